@@ -1,0 +1,57 @@
+"""The ``screenlab`` command line: a thin layer over the core.
+
+Each sub-command lives in its own module of this package and exposes ``register(sub)`` which
+adds an argparse sub-parser whose ``func(args) -> int`` does the work. Exit codes: 0 success
+(or nothing to do), 1 data errors, 2 usage errors. A :class:`ScreenlabError` becomes a message
+on stderr, never a traceback. Heavy modules are imported inside the command functions so that
+``screenlab --help`` starts fast.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+#: sub-command modules, in the order ``--help`` lists them
+COMMAND_MODULES = [
+    "screenlab.cli.ingest_cmd",
+]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="screenlab",
+        description="Analyse catalyst screening campaigns: import plates, compute rates, TOF/TON, "
+        "Arrhenius/Eyring parameters, rank candidates with their uncertainty, export the shortlist.",
+    )
+    from screenlab import __version__
+
+    parser.add_argument("--version", action="version", version=f"screenlab {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for mod in COMMAND_MODULES:
+        importlib.import_module(mod).register(sub)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    from screenlab.errors import ScreenlabError, StoreBusyError, UsageError
+
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args.func(args) or 0)
+    except UsageError as exc:
+        print(f"screenlab {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except StoreBusyError as exc:
+        print(f"screenlab {args.command}: {exc}", file=sys.stderr)
+        return 1
+    except ScreenlabError as exc:
+        print(f"screenlab {args.command}: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130

@@ -1,0 +1,66 @@
+"""Helpers shared by the sub-commands: the --store option and table/csv/json output."""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import sys
+from pathlib import Path
+
+DEFAULT_STORE = "screenlab.duckdb"
+FORMATS = ("table", "csv", "json")
+
+
+def add_store_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--store", metavar="PATH", default=None,
+                   help=f"DuckDB store file (default: $SCREENLAB_STORE, else ./{DEFAULT_STORE})")
+
+
+def add_format_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--format", choices=FORMATS, default="table", help="output format (default: table)")
+
+
+def resolve_store_path(arg: str | None) -> Path:
+    """--store PATH, else $SCREENLAB_STORE, else screenlab.duckdb in the current folder."""
+    return Path(arg or os.environ.get("SCREENLAB_STORE") or DEFAULT_STORE)
+
+
+def emit(frame, fmt: str, out=None) -> None:
+    """Print a DataFrame as an aligned table, CSV or JSON records (NaN -> null)."""
+    out = out or sys.stdout
+    if fmt == "csv":
+        from screenlab.export.safe import neutralise_frame
+
+        neutralise_frame(frame).to_csv(out, index=False)
+    elif fmt == "json":
+        records = frame.to_dict(orient="records")
+        clean = [{k: (None if isinstance(v, float) and not math.isfinite(v) else _plain(v)) for k, v in r.items()}
+                 for r in records]
+        json.dump(clean, out, indent=1, default=str)
+        out.write("\n")
+    else:
+        if frame.empty:
+            out.write("(no rows)\n")
+            return
+        out.write(frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="") + "\n")
+
+
+def _plain(v):
+    try:
+        import numpy as np
+
+        if isinstance(v, np.generic):
+            return v.item()
+    except ImportError:  # pragma: no cover
+        pass
+    if v is None:
+        return None
+    try:
+        import pandas as pd
+
+        if v is pd.NA or (not isinstance(v, str) and pd.isna(v)):
+            return None
+    except (TypeError, ValueError):
+        pass
+    return v

@@ -1,0 +1,1 @@
+"""Exports: shortlist tables, the next-round campaign folder, spreadsheet-safe text."""

@@ -1,0 +1,89 @@
+"""The validated campaign: the one shape that flows from import to analysis.
+
+``ingest`` turns a folder into a :class:`CampaignData`; the store saves one and loads one back;
+the kinetics core takes one. All frames use canonical units (see :mod:`screenlab.units`) and
+the columns documented below. Frames are never mutated by consumers.
+"""
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+READOUT_KINDS = ("conversion", "yield", "product_conc", "absorbance")
+ROLES = ("sample", "blank", "reference", "empty")
+#: analyte name used when a campaign has no [analytes] table and no analyte column
+DEFAULT_ANALYTE = "product"
+
+
+@dataclass(frozen=True)
+class Manifest:
+    """campaign.toml, parsed and checked.
+
+    Units are the manifest's own words (already normalised: ``s|min|h``, ``M|mM|uM``,
+    ``L|mL|uL``); the frames of :class:`CampaignData` are already converted to canonical units.
+    """
+
+    name: str
+    readout_kind: str                      # conversion | yield | product_conc | absorbance
+    readout_scale: str | None = None       # percent | fraction (conversion, yield), else None
+    product_per_substrate: float = 1.0
+    epsilon_M_cm: float | None = None      # absorbance only, L mol-1 cm-1
+    path_length_cm: float | None = None    # absorbance only
+    description: str = ""
+    reaction: str = ""
+    time_unit: str = "min"
+    concentration_unit: str = "mM"
+    volume_unit: str = "uL"
+    analysis: dict = field(default_factory=dict)          # raw [analysis] table
+    analyte_main: str = DEFAULT_ANALYTE                    # [analytes].main
+    byproducts: tuple[str, ...] = ()                       # [analytes].byproducts
+    enantiomers: tuple[str, str] | None = None             # [analytes].enantiomers
+    source_toml: str = ""                                  # the manifest text as imported
+
+    @property
+    def has_analytes(self) -> bool:
+        return bool(self.byproducts) or self.enantiomers is not None
+
+
+@dataclass(frozen=True)
+class CampaignData:
+    """One campaign's validated tables in canonical units.
+
+    catalysts
+        catalyst (str), name (str), family (str), molar_mass_g_mol, sites_per_unit (default 1),
+        metal_wt_pct, metal_molar_mass_g_mol, dispersion (default 1) — floats, NaN when absent.
+    plates
+        plate (str), format (int: 24/48/96/384), n_rows, n_cols (int), temperature_c (float),
+        run_date (str or NA), notes (str or NA).
+    wells
+        plate, well (canonical 'A1'), row, col (0-based int), role (sample|blank|reference|empty),
+        catalyst (str or NA), loading (float), loading_unit (umol|mg|mol% or NA),
+        substrate_conc_mM, volume_uL (float; NaN for empty), temperature_c (float: the well's
+        override, else its plate's), and one string column per named factor (see factor_names).
+    readings
+        plate, well, analyte (str; DEFAULT_ANALYTE when the campaign has no analyte column),
+        time_h (float >= 0), value (float, in the readout's own scale: percent or fraction,
+        product concentration in the manifest's concentration unit, or absorbance).
+        Sorted by plate, well, analyte, time_h.
+    """
+
+    manifest: Manifest
+    catalysts: pd.DataFrame
+    plates: pd.DataFrame
+    wells: pd.DataFrame
+    readings: pd.DataFrame
+    factor_names: tuple[str, ...] = ()
+
+    @property
+    def name(self) -> str:
+        return self.manifest.name
+
+    def content_hash(self) -> str:
+        """A fingerprint of the data (not of file bytes), stable across store round trips."""
+        h = hashlib.sha256()
+        h.update(self.manifest.name.encode())
+        for frame in (self.catalysts, self.plates, self.wells, self.readings):
+            h.update(pd.util.hash_pandas_object(frame.reset_index(drop=True), index=False).values.tobytes())
+        return h.hexdigest()

@@ -1,0 +1,90 @@
+"""The one place where ScreenLab converts units.
+
+Inside the core every quantity is a float in a canonical unit, and the unit is part of the
+column name:
+
+==============  ===============  =============================================
+quantity        canonical unit   column suffix / example
+==============  ===============  =============================================
+time            hour             ``time_h``
+concentration   mmol/L (mM)      ``substrate_conc_mM``, ``product_mM``
+volume          microlitre       ``volume_uL``
+amount          micromole        ``sites_umol``, ``product_umol``
+rate            mM per hour      ``rate_mM_per_h``
+TOF             per hour         ``tof_per_h`` (``tof_per_s`` on request)
+temperature     degree Celsius   ``temperature_c`` (kelvin via :func:`c_to_k`)
+energy          kJ/mol           ``ea_kj_mol``; entropy ``ds_j_mol_k``
+==============  ===============  =============================================
+
+Conversions happen once, at the import boundary (manifest units -> canonical) and at the export
+boundary. Unit words are matched case-insensitively; ``µ`` and ``u`` are the same prefix.
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy import constants as _c
+
+#: Molar gas constant, J mol-1 K-1 (CODATA, exact since the 2019 SI; via scipy.constants).
+R_J_MOL_K: float = _c.R
+#: Boltzmann constant, J K-1, and Planck constant, J s (exact; via scipy.constants).
+KB_J_K: float = _c.k
+H_J_S: float = _c.h
+#: 0 degC in kelvin (exact by definition).
+ZERO_C_IN_K: float = 273.15
+
+TIME_TO_H = {"s": 1.0 / 3600.0, "sec": 1.0 / 3600.0, "min": 1.0 / 60.0, "h": 1.0, "hr": 1.0}
+CONC_TO_MM = {"m": 1000.0, "mm": 1.0, "um": 1.0e-3, "nm": 1.0e-6}
+VOLUME_TO_UL = {"l": 1.0e6, "ml": 1.0e3, "ul": 1.0}
+LOADING_UNITS = ("umol", "mg", "mol%")
+
+
+def normalise_unit_word(word: str) -> str:
+    """Lower-case a unit word, strip spaces and map micro signs (µ, μ) to ``u``."""
+    return str(word).strip().lower().replace("µ", "u").replace("μ", "u").replace(" ", "")
+
+
+def _factor(table: dict[str, float], word: str, kind: str) -> float:
+    key = normalise_unit_word(word)
+    if key not in table:
+        raise KeyError(f"unknown {kind} unit {word!r}; expected one of {', '.join(sorted(set(table)))}")
+    return table[key]
+
+
+def time_factor_to_h(unit: str) -> float:
+    """Multiply a time in ``unit`` (s, min, h) by this to get hours."""
+    return _factor(TIME_TO_H, unit, "time")
+
+
+def conc_factor_to_mM(unit: str) -> float:
+    """Multiply a concentration in ``unit`` (M, mM, uM) by this to get mM."""
+    return _factor(CONC_TO_MM, unit, "concentration")
+
+
+def volume_factor_to_uL(unit: str) -> float:
+    """Multiply a volume in ``unit`` (L, mL, uL) by this to get microlitres."""
+    return _factor(VOLUME_TO_UL, unit, "volume")
+
+
+def normalise_loading_unit(word: str) -> str | None:
+    """Map a loading-unit word to ``umol``, ``mg`` or ``mol%`` (None if unknown)."""
+    key = normalise_unit_word(word).replace("mol-%", "mol%").replace("mole%", "mol%")
+    aliases = {"umol": "umol", "mg": "mg", "mol%": "mol%", "mol_pct": "mol%", "molpct": "mol%"}
+    return aliases.get(key)
+
+
+def amount_umol(conc_mM, volume_uL):
+    """Amount in umol of a solute at ``conc_mM`` in ``volume_uL`` (mM x uL = nmol)."""
+    return np.asarray(conc_mM, dtype=float) * np.asarray(volume_uL, dtype=float) * 1.0e-3
+
+
+def c_to_k(t_c):
+    """Degrees Celsius to kelvin (adds 273.15 exactly)."""
+    return np.asarray(t_c, dtype=float) + ZERO_C_IN_K
+
+
+def k_to_c(t_k):
+    return np.asarray(t_k, dtype=float) - ZERO_C_IN_K
+
+
+def per_h_to_per_s(x):
+    return np.asarray(x, dtype=float) / 3600.0
