@@ -1,0 +1,30 @@
+"""Every flag code ScreenLab sets, with one plain sentence each (for the app, exports and docs).
+
+Each module that sets flags owns a module-level ``FLAGS`` dict; this module only gathers them.
+"""
+from __future__ import annotations
+
+import importlib
+
+_FLAG_MODULES = (
+    "screenlab.kinetics.rates",
+    "screenlab.kinetics.turnover",
+    "screenlab.kinetics.arrhenius",
+    "screenlab.kinetics.orders",
+    "screenlab.stats.quality",
+    "screenlab.stats.ranking",
+)
+
+
+def flag_help() -> dict[str, str]:
+    """code -> sentence, over every module that defines ``FLAGS``."""
+    out: dict[str, str] = {}
+    for name in _FLAG_MODULES:
+        out.update(getattr(importlib.import_module(name), "FLAGS", {}))
+    return out
+
+
+def explain(codes: str) -> list[tuple[str, str]]:
+    """Split a ``;``-joined flag string into (code, sentence) pairs, unknown codes kept."""
+    known = flag_help()
+    return [(c, known.get(c, "")) for c in (codes or "").split(";") if c]
