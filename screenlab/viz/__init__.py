@@ -1,0 +1,1 @@
+"""Plotly figure builders for the app and reports (no Streamlit import)."""

@@ -1,0 +1,368 @@
+"""Plotly figure builders: result frames in, ``go.Figure`` out (no Streamlit, no DuckDB).
+
+Every builder takes frames with the documented core columns (DEVELOPERS.md) and only reshapes
+them for display (log of a TOF, 1000/T for an Arrhenius axis). Nothing here estimates anything.
+
+Conventions shared by every figure:
+
+* axis titles carry their unit (``time / h``, ``ln(TOF / h⁻¹)``, ``1000/T / K⁻¹``);
+* continuous colour is Viridis (perceptually uniform and readable without red/green
+  distinction; van der Walt & Smith 2015, the matplotlib default since 2.0), and discrete series
+  take evenly spaced Viridis colours *and* different marker symbols;
+* well roles are told apart by marker shape as well as colour (:data:`ROLE_STYLE`);
+* only SVG traces (``go.Scatter``, ``go.Heatmap``, ``go.Bar``), no WebGL, so a page with many
+  charts renders in any browser, headless included.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+from plotly.colors import sample_colorscale
+
+from screenlab.plates import ROW_LETTERS
+from screenlab.units import c_to_k
+
+COLORSCALE = "Viridis"
+DIVERGING = "Cividis"  # for signed quantities (B-score, residuals): still no red/green
+
+#: role -> (marker symbol, colour, label). Okabe-Ito colours (Okabe & Ito 2008, "Color Universal
+#: Design"), chosen so that no two roles differ only by red versus green.
+ROLE_STYLE: dict[str, tuple[str, str, str]] = {
+    "sample": ("circle-open", "#ffffff", "sample"),
+    "blank": ("square", "#000000", "blank (no catalyst)"),
+    "reference": ("star", "#e69f00", "reference (benchmark)"),
+    "empty": ("x-thin-open", "#999999", "empty"),
+}
+SYMBOLS = ("circle", "square", "diamond", "triangle-up", "cross", "triangle-down", "pentagon",
+           "star", "hexagon", "x", "triangle-left", "triangle-right")
+DASHES = ("solid", "dash", "dot", "dashdot", "longdash", "longdashdot")
+
+QUANTITY_LABELS: dict[str, str] = {
+    "rate_mM_per_h": "rate / mM h⁻¹",
+    "net_rate_mM_per_h": "net rate / mM h⁻¹",
+    "tof_per_h": "TOF / h⁻¹",
+    "ton": "TON",
+    "enhancement": "rate enhancement over blank (ratio)",
+    "last_conversion_pct": "final conversion / %",
+    "bscore": "B-score (robust SD units)",
+    "residual": "median-polish residual",
+}
+
+
+def _layout(fig: go.Figure, title: str | None = None, **kw) -> go.Figure:
+    fig.update_layout(title=title, template="plotly_white", margin=dict(l=60, r=20, t=50 if title else 20, b=50),
+                      legend=dict(orientation="h", yanchor="bottom", y=1.02, x=0), **kw)
+    return fig
+
+
+def series_colours(n: int) -> list[str]:
+    """n evenly spaced Viridis colours (stopping short of the pale yellow end)."""
+    if n <= 0:
+        return []
+    if n == 1:
+        return sample_colorscale(COLORSCALE, [0.25])
+    return sample_colorscale(COLORSCALE, list(np.linspace(0.0, 0.85, n)))
+
+
+def _fmt(v, digits: int = 3) -> str:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)) or pd.isna(v):
+        return "–"
+    return f"{float(v):.{digits}g}"
+
+
+# --------------------------------------------------------------------------- plate map
+def plate_heatmap(wells: pd.DataFrame, value_col: str, *, n_rows: int, n_cols: int,
+                  label: str | None = None, title: str | None = None,
+                  selected: str | None = None, signed: bool = False) -> go.Figure:
+    """A plate as a grid: colour = ``value_col``, marker shape = well role.
+
+    ``wells`` needs ``well, row, col, role`` (0-based row/col) and ``value_col``; ``catalyst``
+    and ``flags`` are shown on hover when present. Row A is at the top, column 1 on the left
+    (ANSI/SLAS 4-2004). Every well carries its name in ``customdata`` for click selection.
+    """
+    label = label or QUANTITY_LABELS.get(value_col, value_col)
+    z = np.full((n_rows, n_cols), np.nan)
+    text = np.full((n_rows, n_cols), "", dtype=object)
+    r = wells["row"].to_numpy(dtype=int)
+    c = wells["col"].to_numpy(dtype=int)
+    ok = (r >= 0) & (r < n_rows) & (c >= 0) & (c < n_cols)
+    vals = pd.to_numeric(wells[value_col], errors="coerce").to_numpy(dtype=float)
+    z[r[ok], c[ok]] = vals[ok]
+    cat = wells["catalyst"].astype("string").fillna("–") if "catalyst" in wells else pd.Series("–", index=wells.index)
+    flags = wells["flags"].astype("string").fillna("") if "flags" in wells else pd.Series("", index=wells.index)
+    hover = (wells["well"].astype(str) + " · " + wells["role"].astype(str) + " · " + cat.astype(str)
+             + "<br>" + label + ": " + pd.Series(vals, index=wells.index).map(_fmt)
+             + np.where(flags.str.len() > 0, "<br>flags: " + flags, ""))
+    text[r[ok], c[ok]] = hover.to_numpy()[ok]
+    x_labels = [str(i + 1) for i in range(n_cols)]
+    y_labels = list(ROW_LETTERS[:n_rows])
+    finite = vals[np.isfinite(vals)]
+    zmid = 0.0 if signed and finite.size else None
+    fig = go.Figure(go.Heatmap(
+        z=z, x=x_labels, y=y_labels, text=text, hoverinfo="text", hovertemplate="%{text}<extra></extra>",
+        colorscale=DIVERGING if signed else COLORSCALE, zmid=zmid, xgap=2, ygap=2,
+        colorbar=dict(title=dict(text=label, side="right")),
+    ))
+    size = 14 if n_rows <= 8 else 7
+    for role, (symbol, colour, role_label) in ROLE_STYLE.items():
+        sub = wells[ok & (wells["role"].astype(str) == role).to_numpy()]
+        if sub.empty:
+            continue
+        fig.add_trace(go.Scatter(
+            x=[x_labels[i] for i in sub["col"].astype(int)], y=[y_labels[i] for i in sub["row"].astype(int)],
+            mode="markers", name=role_label, customdata=sub["well"].astype(str).to_numpy(),
+            marker=dict(symbol=symbol, size=size, color=colour, line=dict(width=1.5, color="#444444")),
+            hovertemplate="%{customdata}<extra>" + role_label + "</extra>",
+        ))
+    if selected is not None:
+        hit = wells[wells["well"].astype(str) == str(selected)]
+        if not hit.empty and ok[wells.index.get_indexer(hit.index)].all():
+            fig.add_trace(go.Scatter(
+                x=[x_labels[int(hit["col"].iloc[0])]], y=[y_labels[int(hit["row"].iloc[0])]], mode="markers",
+                name=f"selected: {selected}", hoverinfo="skip",
+                marker=dict(symbol="square-open", size=size + 12, color="#000000", line=dict(width=3)),
+            ))
+    fig.update_yaxes(autorange="reversed", title="row", type="category", scaleanchor="x", constrain="domain")
+    fig.update_xaxes(title="column", type="category", side="top", constrain="domain")
+    return _layout(fig, title, height=max(320, 40 * n_rows + 120) if n_rows <= 8 else 620)
+
+
+# --------------------------------------------------------------------------- time courses
+def time_course(points: pd.DataFrame, *, fit: pd.DataFrame | None = None, fit_label: str = "fitted initial rate",
+                y_col: str = "product_mM", y_label: str = "product / mM",
+                title: str | None = None) -> go.Figure:
+    """Readings of one well (``time_h`` and ``y_col``) with an optional fitted line (same columns).
+
+    When ``points`` has a boolean ``in_fit`` column, the readings used by the fit are filled and
+    the others open, so the chemist sees which part of the curve the rate came from.
+    """
+    fig = go.Figure()
+    if "in_fit" in points:
+        used = points["in_fit"].fillna(False).astype(bool)
+        groups = [(points[used], "reading (used in fit)", "circle"), (points[~used], "reading (not used)", "circle-open")]
+    else:
+        groups = [(points, "reading", "circle")]
+    for frame, name, symbol in groups:
+        if frame.empty:
+            continue
+        fig.add_trace(go.Scatter(x=frame["time_h"], y=frame[y_col], mode="markers", name=name,
+                                 marker=dict(symbol=symbol, size=9, color=series_colours(1)[0],
+                                             line=dict(width=1.5, color=series_colours(1)[0]))))
+    if fit is not None and not fit.empty:
+        fig.add_trace(go.Scatter(x=fit["time_h"], y=fit[y_col], mode="lines", name=fit_label,
+                                 line=dict(color="#e69f00", width=3, dash="dash")))
+    fig.update_xaxes(title="time / h", rangemode="tozero")
+    fig.update_yaxes(title=y_label, rangemode="tozero")
+    return _layout(fig, title, height=380)
+
+
+def replicate_courses(points: pd.DataFrame, *, group_col: str = "label", y_col: str = "product_mM",
+                      y_label: str = "product / mM", title: str | None = None) -> go.Figure:
+    """Several wells' time courses overlaid; one colour, symbol and dash per ``group_col`` value."""
+    fig = go.Figure()
+    labels = list(dict.fromkeys(points[group_col].astype(str)))
+    colours = series_colours(len(labels))
+    for i, lab in enumerate(labels):
+        sub = points[points[group_col].astype(str) == lab].sort_values("time_h")
+        fig.add_trace(go.Scatter(
+            x=sub["time_h"], y=sub[y_col], mode="lines+markers", name=lab,
+            marker=dict(symbol=SYMBOLS[i % len(SYMBOLS)], size=7, color=colours[i]),
+            line=dict(color=colours[i], dash=DASHES[i % len(DASHES)], width=1.5),
+        ))
+    fig.update_xaxes(title="time / h", rangemode="tozero")
+    fig.update_yaxes(title=y_label, rangemode="tozero")
+    return _layout(fig, title, height=420)
+
+
+# --------------------------------------------------------------------------- Arrhenius
+def _inv_t(temperature_c) -> np.ndarray:
+    return 1000.0 / np.asarray(c_to_k(np.asarray(temperature_c, dtype=float)), dtype=float)
+
+
+def _ln(x) -> np.ndarray:
+    x = np.asarray(pd.to_numeric(pd.Series(x), errors="coerce"), dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(x > 0, np.log(np.where(x > 0, x, 1.0)), np.nan)
+
+
+def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None, *,
+                   blank_points: pd.DataFrame | None = None, blank_prediction: pd.DataFrame | None = None,
+                   confidence: float = 0.95, title: str | None = None) -> go.Figure:
+    """ln TOF against 1000/T, one series per catalyst, with fit lines and confidence bands.
+
+    points: ``catalyst, temperature_c, tof_per_h`` (+ ``tof_ci_low, tof_ci_high`` for error bars).
+    prediction: the output of ``kinetics.arrhenius.predict_tof`` over a temperature grid
+    (``catalyst, temperature_c, tof_per_h, tof_ci_low, tof_ci_high``): the fitted line and band.
+    blank_points (``temperature_c, blank_rate_mM_per_h``) and blank_prediction (predict_tof rows of
+    the uncatalysed fit, in mM h⁻¹) go on a second y axis, because the uncatalysed reaction has no
+    sites and so no TOF; its slope (hence Ea) is comparable, its level is not.
+    """
+    fig = go.Figure()
+    cats = list(dict.fromkeys(points["catalyst"].astype(str)))
+    if prediction is not None and not prediction.empty:
+        cats += [c for c in dict.fromkeys(prediction["catalyst"].astype(str)) if c not in cats]
+    colours = series_colours(len(cats))
+    pct = f"{confidence * 100:.0f} %"
+    for i, cat in enumerate(cats):
+        col = colours[i]
+        if prediction is not None and not prediction.empty:
+            pr = prediction[prediction["catalyst"].astype(str) == cat].sort_values("temperature_c")
+            if not pr.empty:
+                x = _inv_t(pr["temperature_c"])
+                lo, hi = _ln(pr["tof_ci_low"]), _ln(pr["tof_ci_high"])
+                fig.add_trace(go.Scatter(x=np.concatenate([x, x[::-1]]), y=np.concatenate([hi, lo[::-1]]),
+                                         fill="toself", fillcolor=col, opacity=0.18, line=dict(width=0),
+                                         hoverinfo="skip", showlegend=False, legendgroup=cat,
+                                         name=f"{cat} {pct} band"))
+                fig.add_trace(go.Scatter(x=x, y=_ln(pr["tof_per_h"]), mode="lines", legendgroup=cat,
+                                         name=f"{cat} fit", showlegend=False,
+                                         line=dict(color=col, dash=DASHES[i % len(DASHES)], width=2)))
+        pt = points[points["catalyst"].astype(str) == cat]
+        if pt.empty:
+            continue
+        y = _ln(pt["tof_per_h"])
+        err = None
+        if {"tof_ci_low", "tof_ci_high"} <= set(pt.columns):
+            up = _ln(pt["tof_ci_high"]) - y
+            down = y - _ln(pt["tof_ci_low"])
+            err = dict(type="data", array=np.nan_to_num(up), arrayminus=np.nan_to_num(down), thickness=1)
+        fig.add_trace(go.Scatter(
+            x=_inv_t(pt["temperature_c"]), y=y, mode="markers", name=cat, legendgroup=cat, error_y=err,
+            marker=dict(symbol=SYMBOLS[i % len(SYMBOLS)], size=10, color=col, line=dict(width=1, color="#333")),
+            customdata=np.asarray(pt["temperature_c"], dtype=float),
+            hovertemplate=cat + "<br>T = %{customdata:.1f} °C<br>ln(TOF / h⁻¹) = %{y:.3f}<extra></extra>",
+        ))
+    has_blank = blank_points is not None and not blank_points.empty
+    if has_blank:
+        fig.add_trace(go.Scatter(
+            x=_inv_t(blank_points["temperature_c"]), y=_ln(blank_points["blank_rate_mM_per_h"]), mode="markers",
+            name="uncatalysed (blank rate, right axis)", yaxis="y2", legendgroup="(uncatalysed)",
+            marker=dict(symbol="square", size=9, color="#000000"),
+        ))
+    if blank_prediction is not None and not blank_prediction.empty:
+        bp = blank_prediction.sort_values("temperature_c")
+        fig.add_trace(go.Scatter(x=_inv_t(bp["temperature_c"]), y=_ln(bp["tof_per_h"]), mode="lines",
+                                 name="uncatalysed fit", yaxis="y2", legendgroup="(uncatalysed)",
+                                 line=dict(color="#000000", dash="dot", width=2)))
+        has_blank = True
+    fig.update_xaxes(title="1000/T / K⁻¹")
+    fig.update_yaxes(title="ln(TOF / h⁻¹)")
+    extra = {}
+    if has_blank:
+        extra["yaxis2"] = dict(title="ln(blank rate / mM h⁻¹)", overlaying="y", side="right", showgrid=False)
+    fig = _layout(fig, title, height=480, **extra)
+    # the top axis in °C helps reading; plotly cannot map it non-linearly, so ticks are placed by hand
+    return fig
+
+
+# --------------------------------------------------------------------------- ranking
+def forest_plot(ranking: pd.DataFrame, *, label: str, log_x: bool = False, title: str | None = None,
+                highlight: list[str] | None = None) -> go.Figure:
+    """Estimate and interval per candidate, best at the top (``rank, catalyst, estimate, ci_low, ci_high``)."""
+    r = ranking[np.isfinite(pd.to_numeric(ranking["estimate"], errors="coerce").to_numpy(dtype=float))]
+    r = r.sort_values("rank", na_position="last")
+    est = r["estimate"].to_numpy(dtype=float)
+    lo = pd.to_numeric(r["ci_low"], errors="coerce").to_numpy(dtype=float)
+    hi = pd.to_numeric(r["ci_high"], errors="coerce").to_numpy(dtype=float)
+    cats = r["catalyst"].astype(str).tolist()
+    hl = set(highlight or [])
+    colour = [("#e69f00" if c in hl else series_colours(1)[0]) for c in cats]
+    fig = go.Figure(go.Scatter(
+        x=est, y=cats, mode="markers", name="estimate",
+        error_x=dict(type="data", array=np.nan_to_num(hi - est), arrayminus=np.nan_to_num(est - lo), thickness=1.5),
+        marker=dict(symbol="diamond", size=10, color=colour),
+        customdata=np.stack([lo, hi], axis=1) if len(cats) else None,
+        hovertemplate="%{y}<br>" + label + ": %{x:.3g}<br>interval %{customdata[0]:.3g} – %{customdata[1]:.3g}<extra></extra>",
+    ))
+    fig.update_yaxes(autorange="reversed", title="candidate (best at top)", type="category")
+    fig.update_xaxes(title=label, type="log" if log_x else "linear")
+    return _layout(fig, title, height=max(300, 26 * len(cats) + 120))
+
+
+def rank_intervals(ranking: pd.DataFrame, *, title: str | None = None) -> go.Figure:
+    """Rank and its interval per candidate (``rank, rank_low, rank_high, catalyst``); 1 = best."""
+    r = ranking[pd.to_numeric(ranking["rank"], errors="coerce").notna()].sort_values("rank")
+    rank = r["rank"].to_numpy(dtype=float)
+    lo = pd.to_numeric(r["rank_low"], errors="coerce").to_numpy(dtype=float)
+    hi = pd.to_numeric(r["rank_high"], errors="coerce").to_numpy(dtype=float)
+    fig = go.Figure(go.Scatter(
+        x=rank, y=r["catalyst"].astype(str), mode="markers", name="rank",
+        error_x=dict(type="data", array=np.nan_to_num(hi - rank), arrayminus=np.nan_to_num(rank - lo), thickness=1.5),
+        marker=dict(symbol="circle", size=9, color=series_colours(1)[0]),
+    ))
+    fig.update_yaxes(autorange="reversed", title="candidate", type="category")
+    fig.update_xaxes(title="rank (1 = best)", rangemode="tozero", dtick=1 if len(r) <= 25 else None)
+    return _layout(fig, title, height=max(300, 26 * len(r) + 120))
+
+
+def p_top_bars(ranking: pd.DataFrame, *, k: int, title: str | None = None) -> go.Figure:
+    """P(candidate is among the top K) as horizontal bars, best rank at the top."""
+    r = ranking[pd.to_numeric(ranking["rank"], errors="coerce").notna()].sort_values("rank")
+    fig = go.Figure(go.Bar(x=r["p_top"].astype(float), y=r["catalyst"].astype(str), orientation="h",
+                           marker=dict(color=r["p_top"].astype(float), colorscale=COLORSCALE, cmin=0, cmax=1),
+                           hovertemplate="%{y}: P(top " + str(k) + ") = %{x:.2f}<extra></extra>", name=f"P(top {k})"))
+    fig.update_yaxes(autorange="reversed", title="candidate", type="category")
+    fig.update_xaxes(title=f"P(in top {k}) (probability)", range=[0, 1])
+    return _layout(fig, title, height=max(300, 26 * len(r) + 120))
+
+
+def pareto_plot(frame: pd.DataFrame, *, x: str, y: str, x_label: str, y_label: str, front_col: str = "on_front",
+                log_x: bool = False, log_y: bool = False, title: str | None = None) -> go.Figure:
+    """Two objectives per candidate; the non-dominated ones (``front_col`` true) joined by a line."""
+    fig = go.Figure()
+    front = frame[front_col].fillna(False).astype(bool) if front_col in frame else pd.Series(False, index=frame.index)
+    for mask, name, symbol, colour in ((~front, "dominated", "circle-open", "#777777"),
+                                       (front, "Pareto front", "diamond", series_colours(1)[0])):
+        sub = frame[mask]
+        if sub.empty:
+            continue
+        fig.add_trace(go.Scatter(x=sub[x], y=sub[y], mode="markers+text", name=name, text=sub["catalyst"].astype(str),
+                                 textposition="top center", marker=dict(symbol=symbol, size=11, color=colour,
+                                                                        line=dict(width=1.5, color=colour))))
+    fr = frame[front].sort_values(x)
+    if len(fr) > 1:
+        fig.add_trace(go.Scatter(x=fr[x], y=fr[y], mode="lines", name="front", showlegend=False,
+                                 line=dict(color=series_colours(1)[0], dash="dot")))
+    fig.update_xaxes(title=x_label, type="log" if log_x else "linear")
+    fig.update_yaxes(title=y_label, type="log" if log_y else "linear")
+    return _layout(fig, title, height=460)
+
+
+# --------------------------------------------------------------------------- plate quality
+def zprime_bars(quality: pd.DataFrame, *, threshold: float, title: str | None = None) -> go.Figure:
+    """Z' per plate (``plate, z_prime``) with the acceptance line."""
+    z = pd.to_numeric(quality["z_prime"], errors="coerce")
+    fig = go.Figure(go.Bar(x=quality["plate"].astype(str), y=z, name="Z'",
+                           marker=dict(color=np.where(z >= threshold, series_colours(1)[0], "#e69f00"),
+                                       pattern=dict(shape=np.where(z >= threshold, "", "/"))),
+                           hovertemplate="%{x}: Z' = %{y:.2f}<extra></extra>"))
+    fig.add_hline(y=threshold, line=dict(color="#000000", dash="dash"),
+                  annotation_text=f"Z' = {threshold:g}", annotation_position="top left")
+    fig.update_xaxes(title="plate", type="category")
+    fig.update_yaxes(title="Z' (dimensionless)")
+    return _layout(fig, title, height=360)
+
+
+def control_chart(points: pd.DataFrame, *, x: str, y: str, y_label: str, centre: float | None,
+                  lower: float | None, upper: float | None, out_col: str | None = None,
+                  x_label: str = "plate (run order)", title: str | None = None) -> go.Figure:
+    """A Shewhart-style chart: one point per plate, centre line and control limits."""
+    fig = go.Figure()
+    out = points[out_col].fillna(False).astype(bool) if out_col and out_col in points else pd.Series(False, index=points.index)
+    fig.add_trace(go.Scatter(x=points[x].astype(str), y=points[y], mode="lines+markers", name="benchmark",
+                             line=dict(color=series_colours(1)[0]),
+                             marker=dict(symbol="circle", size=9, color=series_colours(1)[0])))
+    if out.any():
+        fig.add_trace(go.Scatter(x=points.loc[out, x].astype(str), y=points.loc[out, y], mode="markers",
+                                 name="outside limits", marker=dict(symbol="x", size=14, color="#e69f00",
+                                                                    line=dict(width=2))))
+    for val, name, dash in ((centre, "centre", "solid"), (lower, "lower limit", "dash"), (upper, "upper limit", "dash")):
+        if val is not None and np.isfinite(val):
+            fig.add_hline(y=float(val), line=dict(color="#555555", dash=dash), annotation_text=name,
+                          annotation_position="right")
+    fig.update_xaxes(title=x_label, type="category")
+    fig.update_yaxes(title=y_label)
+    return _layout(fig, title, height=380)
