@@ -115,7 +115,7 @@ def active_sites(wells: pd.DataFrame, catalysts: pd.DataFrame) -> pd.DataFrame:
     words = unit_raw.astype(object).where(unit_raw.notna(), "").astype(str)
     words = words.str.strip().str.lower().str.replace("µ", "u").str.replace("μ", "u").str.replace(" ", "")
     lookup = {w: units.normalise_loading_unit(w) for w in pd.unique(words) if w}  # distinct words, not rows
-    unit = words.map(lambda w: lookup.get(w) or "").to_numpy(dtype=object)
+    unit = words.map({k: (v or "") for k, v in lookup.items()}).fillna("").to_numpy(dtype=object)
     conc = _num(wells, "substrate_conc_mM")
     vol = _num(wells, "volume_uL")
 
