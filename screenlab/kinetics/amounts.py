@@ -1,0 +1,128 @@
+"""From readings to amounts: product concentration (mM) and conversion (%) per reading.
+
+This is the only module that knows readout kinds (see DEVELOPERS.md "How to add a readout kind").
+
+conversion / yield
+    ``product_mM = value (as a fraction) x substrate_conc_mM x product_per_substrate``: the
+    fraction of substrate converted (or of the theoretical product formed) times the initial
+    substrate times the stoichiometry. ``scale`` says whether value is percent or fraction.
+product_conc
+    ``product_mM = value x conc_factor_to_mM(manifest concentration unit)``.
+absorbance
+    Beer-Lambert, ``A = epsilon l c``: ``c = (A - A_baseline) / (epsilon_M_cm x path_length_cm)``
+    in mol/L, times 1000 for mM. The baseline is the well's own reading at t = 0, else its first
+    reading (column ``baseline``: ``t0`` or ``first_reading``); with ``first_reading`` the product
+    formed before that reading is not seen.
+
+``conversion_pct = product_mM / (substrate_conc_mM x product_per_substrate) x 100`` (the
+fraction of the theoretical product); NaN where the well has no substrate concentration.
+
+Several analytes: every analyte keeps its own rows. With ``[analytes].enantiomers`` the main
+analyte (``manifest.analyte_main``) has no readings of its own; its rows are added here as the
+sum of the two enantiomers at each time where both were read.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from screenlab.errors import UsageError
+from screenlab.model import CampaignData
+from screenlab.units import conc_factor_to_mM
+
+#: columns of :func:`product_amounts`, in order
+AMOUNT_COLUMNS = ("plate", "well", "analyte", "time_h", "product_mM", "conversion_pct", "baseline")
+
+#: time (h) at or below which a reading counts as taken at t = 0 (about 4 ms)
+T0_TOLERANCE_H = 1.0e-6
+
+
+def _fraction_scale(manifest) -> float:
+    scale = (manifest.readout_scale or "percent").strip().lower()
+    if scale in ("percent", "pct", "%"):
+        return 0.01
+    if scale == "fraction":
+        return 1.0
+    raise UsageError(f"campaign.toml: [readout].scale must be 'percent' or 'fraction', not {manifest.readout_scale!r}")
+
+
+def _absorbance_baseline(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Per reading: the baseline absorbance of its (plate, well, analyte) and whether it was t = 0."""
+    order = frame.sort_values(["plate", "well", "analyte", "time_h"], kind="stable")
+    keys = ["plate", "well", "analyte"]
+    grouped = order.groupby(keys, sort=False, dropna=False)
+    first_value = grouped["value"].transform("first")
+    first_time = grouped["time_h"].transform("first")
+    base = first_value.reindex(frame.index).to_numpy(dtype=float)
+    is_t0 = (first_time.reindex(frame.index).to_numpy(dtype=float) <= T0_TOLERANCE_H)
+    return base, is_t0
+
+
+def product_amounts(data: CampaignData) -> pd.DataFrame:
+    """One row per reading: ``plate, well, analyte, time_h, product_mM, conversion_pct, baseline``.
+
+    ``baseline`` is ``t0`` or ``first_reading`` for absorbance readouts (which reading was taken
+    as zero product) and NA for the other kinds. Rows come sorted by plate, well, analyte, time.
+    """
+    m = data.manifest
+    kind = (m.readout_kind or "").strip().lower()
+    rd = data.readings[["plate", "well", "analyte", "time_h", "value"]].copy()
+    rd["value"] = pd.to_numeric(rd["value"], errors="coerce").astype(float)
+    rd["time_h"] = rd["time_h"].astype(float)
+    w = data.wells[["plate", "well", "substrate_conc_mM"]].drop_duplicates(["plate", "well"])
+    rd = rd.merge(w, on=["plate", "well"], how="left", validate="many_to_one")
+    s0 = rd["substrate_conc_mM"].to_numpy(dtype=float)
+    theo = s0 * float(m.product_per_substrate)            # theoretical maximum product, mM
+    value = rd["value"].to_numpy(dtype=float)
+    baseline = pd.array([pd.NA] * len(rd), dtype="string")
+
+    if kind in ("conversion", "yield"):
+        product = value * _fraction_scale(m) * theo
+    elif kind == "product_conc":
+        product = value * conc_factor_to_mM(m.concentration_unit)
+    elif kind == "absorbance":
+        eps, path = m.epsilon_M_cm, m.path_length_cm
+        if not (eps and path and np.isfinite(eps) and np.isfinite(path) and eps > 0 and path > 0):
+            raise UsageError("campaign.toml: [readout] kind 'absorbance' needs positive "
+                             "epsilon_M_cm and path_length_cm")
+        base, is_t0 = _absorbance_baseline(rd)
+        product = (value - base) / (float(eps) * float(path)) * 1000.0   # mol/L -> mM
+        baseline = pd.array(np.where(is_t0, "t0", "first_reading"), dtype="string")
+    else:
+        raise UsageError(f"campaign.toml: unknown [readout].kind {m.readout_kind!r}")
+
+    with np.errstate(divide="ignore", invalid="ignore"):
+        conv = np.where(theo > 0, product / theo * 100.0, np.nan)
+    out = pd.DataFrame({
+        "plate": rd["plate"].to_numpy(), "well": rd["well"].to_numpy(),
+        "analyte": rd["analyte"].to_numpy(), "time_h": rd["time_h"].to_numpy(),
+        "product_mM": product, "conversion_pct": conv, "baseline": baseline,
+    })
+
+    if m.enantiomers:
+        out = _add_enantiomer_sum(out, m.enantiomers, m.analyte_main, w, float(m.product_per_substrate))
+    return out.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
+
+
+def _add_enantiomer_sum(out: pd.DataFrame, pair, main: str, wells: pd.DataFrame, pps: float) -> pd.DataFrame:
+    """Rows for the main analyte: sum of the two enantiomers where both were read at that time."""
+    both = out[out["analyte"].isin(list(pair))]
+    if both.empty:
+        return out
+    summed = (both.groupby(["plate", "well", "time_h"], sort=False, dropna=False)
+              .agg(product_mM=("product_mM", "sum"), n=("product_mM", "count"))
+              .reset_index())
+    # a sum is only meaningful where both enantiomers have a value at that time
+    summed.loc[summed["n"] < 2, "product_mM"] = np.nan
+    summed = summed.merge(wells, on=["plate", "well"], how="left")
+    theo = summed["substrate_conc_mM"].to_numpy(dtype=float) * pps
+    with np.errstate(divide="ignore", invalid="ignore"):
+        conv = np.where(theo > 0, summed["product_mM"].to_numpy() / theo * 100.0, np.nan)
+    main_rows = pd.DataFrame({
+        "plate": summed["plate"].to_numpy(), "well": summed["well"].to_numpy(),
+        "analyte": main, "time_h": summed["time_h"].to_numpy(),
+        "product_mM": summed["product_mM"].to_numpy(dtype=float), "conversion_pct": conv,
+        "baseline": pd.array([pd.NA] * len(summed), dtype="string"),
+    })
+    rest = out[out["analyte"] != main]
+    return pd.concat([rest, main_rows], ignore_index=True)

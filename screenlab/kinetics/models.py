@@ -1,0 +1,104 @@
+"""Pure model equations of a well's time course, and data-driven start values.
+
+Nothing here fits anything (that is :mod:`screenlab.kinetics.fit`); these are the formulas the
+fitter and the rate step share, each vectorised over arrays.
+
+First-order saturation (the "monomolecular" law; the same shape as NIST StRD Misra1a/BoxBOD)::
+
+    P(t) = b1 * (1 - exp(-k t))          dP/dt at t = 0  =  b1 * k
+
+``b1`` is the plateau (mM of product) and ``k`` the first-order rate constant (1/h). The model
+has **no offset**: product amounts are zero at t = 0 by construction (conversion and yield start
+at zero; absorbance is taken net of the well's own baseline in :mod:`.amounts`), and with the
+usual 6-10 readings per well a third parameter would leave ``k`` poorly determined. A non-zero
+reading at t = 0 simply enters the fit as a residual.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+#: lower end of the k search, as a multiple of 1/t_max: at k = 1e-3 / t_max the curve deviates
+#: from a straight line by 0.05 % at the last reading, so smaller k are indistinguishable.
+K_LOW_TIMES_TMAX = 1.0e-3
+#: upper end of the k search, as a multiple of 1/t_first (first reading after t = 0): at
+#: k = 20 / t_first the curve is at 1 - exp(-20) of its plateau already at the first reading.
+K_HIGH_TIMES_TFIRST = 20.0
+
+
+def first_order(t, b1, k):
+    """Product of a first-order saturation course, ``b1 * (1 - exp(-k t))``."""
+    t = np.asarray(t, dtype=float)
+    return np.asarray(b1, dtype=float) * -np.expm1(-np.asarray(k, dtype=float) * t)
+
+
+def first_order_jacobian(t, b1, k) -> tuple[np.ndarray, np.ndarray]:
+    """Partial derivatives of :func:`first_order`: ``(dP/db1, dP/dk) = (1 - e^-kt, b1 t e^-kt)``."""
+    t = np.asarray(t, dtype=float)
+    k = np.asarray(k, dtype=float)
+    e = np.exp(-k * t)
+    return -np.expm1(-k * t), np.asarray(b1, dtype=float) * t * e
+
+
+def first_order_initial_rate(b1, k):
+    """Initial slope dP/dt at t = 0 of the first-order law: ``b1 * k``."""
+    return np.asarray(b1, dtype=float) * np.asarray(k, dtype=float)
+
+
+def initial_rate_variance(b1, k, var_b1, var_k, cov_b1_k):
+    """Delta-method variance of ``b1 * k``: gradient (k, b1) through the 2 x 2 covariance."""
+    b1 = np.asarray(b1, dtype=float)
+    k = np.asarray(k, dtype=float)
+    return k * k * var_b1 + 2.0 * k * b1 * cov_b1_k + b1 * b1 * var_k
+
+
+def depletion_course(t, intercept, rate, plateau):
+    """Product expected when a reaction starting at ``rate`` slows only by substrate depletion.
+
+    First order in substrate: ``P(t) = a + (Pmax - a) (1 - exp(-r t / (Pmax - a)))`` with
+    ``a`` the intercept, ``r`` the initial rate and ``Pmax`` the theoretical maximum product.
+    Where ``plateau`` is NaN (unknown substrate) or not above the intercept, the straight line
+    ``a + r t`` is returned instead.
+    """
+    t = np.asarray(t, dtype=float)
+    a = np.asarray(intercept, dtype=float)
+    r = np.asarray(rate, dtype=float)
+    span = np.asarray(plateau, dtype=float) - a
+    ok = np.isfinite(span) & (span > 0)
+    safe = np.where(ok, span, 1.0)
+    curved = a + safe * -np.expm1(-r * t / safe)
+    return np.where(ok, curved, a + r * t)
+
+
+def search_bounds_k(t_max, t_first) -> tuple[np.ndarray, np.ndarray]:
+    """Per-group search range of k (1/h) from the sampling times (data-driven, no user start).
+
+    ``k_lo = 1e-3 / t_max`` (the course is a straight line for any smaller k) and
+    ``k_hi = 20 / t_first`` (the course is complete at the first reading for any larger k).
+    """
+    t_max = np.asarray(t_max, dtype=float)
+    t_first = np.asarray(t_first, dtype=float)
+    k_lo = K_LOW_TIMES_TMAX / t_max
+    k_hi = K_HIGH_TIMES_TFIRST / t_first
+    return k_lo, np.maximum(k_hi, k_lo * 10.0)
+
+
+def start_guess(t, y, group, n_groups: int) -> tuple[np.ndarray, np.ndarray]:
+    """Data-driven start values (b1, k) per group, without any user input.
+
+    b1 = the largest reading of the group; k = ln 2 / t_half with t_half the first time the
+    course reaches half of that (the half-life of a first-order course). Used as an extra
+    candidate of the k search and for reporting; the fitter does not depend on it.
+    """
+    t = np.asarray(t, dtype=float)
+    y = np.asarray(y, dtype=float)
+    g = np.asarray(group, dtype=np.int64)
+    b1 = np.full(n_groups, -np.inf)
+    np.maximum.at(b1, g, y)
+    half = y >= 0.5 * b1[g]
+    th = np.full(n_groups, np.inf)
+    np.minimum.at(th, g[half & (t > 0)], t[half & (t > 0)])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        k = np.log(2.0) / th
+    b1 = np.where(np.isfinite(b1), b1, np.nan)
+    k = np.where(np.isfinite(k) & (k > 0), k, np.nan)
+    return b1, k
