@@ -1,0 +1,192 @@
+"""Turn the bytes of one CSV or XLSX file into a frame of stripped text cells.
+
+Every cell is kept as text here; numbers are parsed (and reported) by :mod:`.validate`, so a bad
+cell never stops the reading of the others. Accepted spreadsheet quirks:
+
+* UTF-8 with or without a byte-order mark; cp1252 (Windows "ANSI") when the bytes are not UTF-8,
+  with a note saying so;
+* comma, semicolon or tab as delimiter (the one that occurs most often in the header line wins);
+  with semicolon or tab, a comma inside a number is a decimal comma;
+* CRLF line ends, padded cells and headers, header names in any case (``Substrate Conc`` is
+  ``substrate_conc``), blank rows anywhere, trailing delimiters and empty trailing columns;
+* XLSX: first sheet, read with ``pandas.read_excel(engine="calamine")`` as text; date cells become
+  ISO dates.
+
+Row numbers follow the spreadsheet: the header is row 1, the first data row is row 2.
+"""
+from __future__ import annotations
+
+import io
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from screenlab.errors import Problem
+
+_WS = re.compile(r"\s+")
+_PARSER_SAW = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
+
+
+@dataclass
+class RawTable:
+    """One table as text.
+
+    ``frame`` has one column per (normalised) header name, all cells stripped strings ('' when
+    blank); ``rows`` holds each frame row's spreadsheet row number (header = 1).
+    """
+
+    name: str
+    frame: pd.DataFrame
+    rows: np.ndarray
+    decimal_comma: bool = False
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.frame)
+
+    def has(self, column: str) -> bool:
+        return column in self.frame.columns
+
+
+def normalise_header(name: str) -> str:
+    """Lower-case, strip, runs of white space to one underscore (``' Substrate Conc '`` -> ``substrate_conc``)."""
+    return _WS.sub("_", str(name).replace("\ufeff", "").strip().lower())
+
+
+def decode_text(name: str, data: bytes, notes: list[str]) -> str:
+    """UTF-8 (BOM or not), else cp1252 with a note; never raises."""
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        try:
+            text = data.decode("cp1252")
+        except UnicodeDecodeError:
+            text = data.decode("latin-1")
+        notes.append(f"{name}: not UTF-8; read as Windows-1252 (cp1252). Save as UTF-8 to be sure of "
+                     "non-ASCII characters.")
+    return text
+
+
+def _pick_delimiter(header_line: str) -> str:
+    counts = {d: header_line.count(d) for d in (",", ";", "\t")}
+    best = max(counts, key=lambda d: (counts[d], d == ","))
+    return best if counts[best] > 0 else ","
+
+
+def _read_csv_cells(name: str, text: str, problems: list[Problem]) -> tuple[pd.DataFrame, int, str] | None:
+    """Text -> (cells frame with header row first, row offset, delimiter) or None when unreadable."""
+    lines = text.splitlines()
+    lead = 0
+    while lead < len(lines) and not lines[lead].strip():
+        lead += 1
+    if lead == len(lines):
+        problems.append(Problem(name, None, None, None, "the file is empty"))
+        return None
+    body = "\n".join(lines[lead:])
+    delim = _pick_delimiter(lines[lead])
+    kwargs = dict(sep=delim, header=None, dtype=str, keep_default_na=False, na_filter=False,
+                  skip_blank_lines=False, engine="c", quotechar='"')
+    names = None
+    for _attempt in range(8):  # widen the frame when later rows carry trailing delimiters
+        try:
+            if names is None:
+                cells = pd.read_csv(io.StringIO(body), **kwargs)
+            else:
+                cells = pd.read_csv(io.StringIO(body), names=list(range(names)), **kwargs)
+            break
+        except pd.errors.ParserError as exc:
+            m = _PARSER_SAW.search(str(exc))
+            if not m:
+                problems.append(Problem(name, None, None, None, f"cannot be read as a table: {exc}"))
+                return None
+            names = max(names or 0, int(m.group(3)), int(m.group(1)))
+        except (ValueError, MemoryError) as exc:  # pragma: no cover - defensive
+            problems.append(Problem(name, None, None, None, f"cannot be read as a table: {exc}"))
+            return None
+    else:  # pragma: no cover - eight widenings without success
+        problems.append(Problem(name, None, None, None, "cannot be read as a table: rows of very different lengths"))
+        return None
+    return cells.fillna(""), lead, delim
+
+
+def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.DataFrame | None:
+    try:
+        cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=0, header=None, dtype=str)
+    except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
+        problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
+        return None
+    cells = cells.fillna("").astype(str)
+    # date cells arrive as 'YYYY-MM-DD 00:00:00'; keep the ISO date
+    for c in cells.columns:
+        cells[c] = cells[c].str.replace(r"^(\d{4}-\d{2}-\d{2})[ T]00:00:00$", r"\1", regex=True)
+    return cells
+
+
+def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | None:
+    """Read one CSV/XLSX file into a :class:`RawTable`; problems are appended, never raised.
+
+    Returns None when the file has no usable header (the problem is recorded).
+    """
+    notes: list[str] = []
+    decimal_comma = False
+    offset = 0
+    if name.lower().endswith(".xlsx"):
+        cells = _read_xlsx_cells(name, data, problems)
+        if cells is None:
+            return None
+    else:
+        text = decode_text(name, data, notes)
+        got = _read_csv_cells(name, text, problems)
+        if got is None:
+            return None
+        cells, offset, delim = got
+        decimal_comma = delim in (";", "\t")
+    cells = cells.apply(lambda s: s.str.strip()) if len(cells.columns) else cells
+    if cells.empty:
+        problems.append(Problem(name, None, None, None, "the file is empty"))
+        return None
+    # drop blank rows but keep the spreadsheet row numbers of the others
+    rownum = np.arange(len(cells), dtype=np.int64) + 1 + offset
+    nonblank = (cells != "").any(axis=1).to_numpy()
+    first = int(np.argmax(nonblank)) if nonblank.any() else -1
+    if first < 0:
+        problems.append(Problem(name, None, None, None, "the file is empty"))
+        return None
+    header = [normalise_header(v) for v in cells.iloc[first].tolist()]
+    body = cells.iloc[first + 1:]
+    body_rows = rownum[first + 1:]
+    keep = nonblank[first + 1:]
+    body = body.loc[keep]
+    body_rows = body_rows[keep]
+    ok = True
+    columns: list[str] = []
+    used: dict[str, int] = {}
+    keep_cols = []
+    for j, h in enumerate(header):
+        col = body.iloc[:, j]
+        if h == "":
+            filled = col != ""
+            if filled.any():
+                r = int(body_rows[filled.to_numpy()][0])
+                problems.append(Problem(name, r, None, col[filled].iloc[0],
+                                        f"column {j + 1} has values but no header name"))
+                ok = False
+            continue  # empty trailing (or padding) column
+        if h in used:
+            problems.append(Problem(name, 1 + offset, h, None,
+                                    f"duplicate header name: columns {used[h] + 1} and {j + 1} are both '{h}'"))
+            ok = False
+            continue
+        used[h] = j
+        columns.append(h)
+        keep_cols.append(j)
+    if not ok:
+        return None
+    frame = body.iloc[:, keep_cols].copy()
+    frame.columns = columns
+    frame = frame.reset_index(drop=True)
+    return RawTable(name=name, frame=frame, rows=np.asarray(body_rows, dtype=np.int64),
+                    decimal_comma=decimal_comma, notes=notes)

@@ -1,0 +1,498 @@
+"""Check the four tables of a campaign and build the frames of :class:`~screenlab.model.CampaignData`.
+
+Every check is a vectorised mask over all rows of a table; a :class:`~screenlab.errors.Problem` is
+made only for the rows that fail. All checks run, so one import reports every problem found.
+
+Ranges used (stated in the messages too):
+
+* temperatures: :data:`T_MIN_C` .. :data:`T_MAX_C` degC for well plates and vial blocks (a dry-ice
+  bath to a hot aluminium block; common practice, no source), and never below absolute zero
+  (-273.15 degC, exact by definition of the kelvin scale);
+* readout values: percent -:data:`PERCENT_TOL` .. 100 + PERCENT_TOL, fraction
+  -:data:`FRACTION_TOL` .. 1 + FRACTION_TOL (instrument noise around 0 and full conversion);
+  product concentrations down to -:data:`CONC_TOL_REL` x the largest theoretical product
+  concentration of the campaign; absorbance :data:`ABS_MIN` .. :data:`ABS_MAX` (plate readers
+  saturate near 4; common practice, no source);
+* dispersion in (0, 1]; metal_wt_pct in (0, 100]; molar masses, sites_per_unit, loadings,
+  substrate concentrations and volumes > 0.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from screenlab import plates as platelib
+from screenlab import units
+from screenlab.errors import Problem
+from screenlab.model import DEFAULT_ANALYTE, ROLES
+
+from .tables import RawTable
+
+T_MIN_C = -100.0
+T_MAX_C = 300.0
+ABSOLUTE_ZERO_C = -273.15
+PERCENT_TOL = 2.0
+FRACTION_TOL = 0.02
+CONC_TOL_REL = 0.02
+ABS_MIN = -0.1
+ABS_MAX = 10.0
+
+#: cell words read as "no value" in optional numeric columns
+NA_WORDS = ("", "na", "n/a", "null", "none")
+_NAN_WORDS = ("nan", "+nan", "-nan")
+
+CATALYST_COLUMNS = ("catalyst", "name", "family", "molar_mass_g_mol", "sites_per_unit", "metal_wt_pct",
+                    "metal_molar_mass_g_mol", "dispersion")
+PLATE_COLUMNS = ("plate", "format", "temperature_c", "run_date", "notes")
+LAYOUT_COLUMNS = ("plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc", "volume",
+                  "temperature_c")
+#: names a factor column may not take (they are columns of the wells frame)
+RESERVED_FACTORS = ("row", "col", "substrate_conc_mm", "volume_ul", "analyte", "time", "value")
+READING_COLUMNS = ("plate", "well", "time", "value", "analyte")
+
+
+class Checker:
+    """Problem collection for one table."""
+
+    def __init__(self, table: RawTable, problems: list[Problem]):
+        self.t = table
+        self.f = table.frame
+        self.rows = table.rows
+        self.problems = problems
+
+    @property
+    def name(self) -> str:
+        return self.t.name
+
+    def col(self, column: str) -> pd.Series:
+        if column in self.f.columns:
+            return self.f[column]
+        return pd.Series([""] * len(self.f), dtype="str")
+
+    def report(self, mask, column: str | None, message, values=None) -> None:
+        """One problem per True row of ``mask``; ``message`` is a string or an array of strings."""
+        mask = np.asarray(mask, dtype=bool)
+        if not mask.any():
+            return
+        idx = np.flatnonzero(mask)
+        if values is None:
+            values = self.col(column).to_numpy() if column in self.f.columns else None
+        vals = [None] * len(idx) if values is None else [str(v) for v in np.asarray(values, dtype=object)[idx]]
+        msgs = [message] * len(idx) if isinstance(message, str) else list(np.asarray(message, dtype=object)[idx])
+        rows = self.rows[idx]
+        self.problems.extend(Problem(self.name, int(r), column, v, m) for r, v, m in zip(rows, vals, msgs))
+
+    def whole(self, column: str | None, message: str, value=None) -> None:
+        self.problems.append(Problem(self.name, None, column, value, message))
+
+    def require_columns(self, required) -> bool:
+        missing = [c for c in required if c not in self.f.columns]
+        if missing:
+            found = ", ".join(self.f.columns) or "none"
+            self.problems.append(Problem(self.name, 1, ", ".join(missing), None,
+                                         f"missing required column{'s' if len(missing) > 1 else ''}: "
+                                         f"{', '.join(missing)} (found: {found})"))
+        return not missing
+
+    def number(self, column: str, *, required=None, what: str | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Parse a numeric column.
+
+        Returns (values, ok): values are floats (NaN where blank or bad); ok is True where the cell
+        holds a finite number. ``required`` (bool mask or True) reports blanks on those rows.
+        """
+        raw = self.col(column)
+        text = raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else raw
+        low = raw.str.lower()
+        blank = low.isin(NA_WORDS).to_numpy()
+        v = pd.to_numeric(text.where(~low.isin(NA_WORDS), None), errors="coerce").to_numpy(dtype=float)
+        nanword = low.isin(_NAN_WORDS).to_numpy()
+        notnum = ~blank & np.isnan(v) & ~nanword
+        nonfinite = ~blank & (np.isinf(v) | nanword)
+        self.report(notnum, column, "is not a number")
+        self.report(nonfinite, column, "is not a finite number")
+        v = np.where(np.isfinite(v), v, np.nan)
+        if required is not None:
+            req = np.broadcast_to(np.asarray(required, dtype=bool), blank.shape)
+            self.report(req & blank, column, what or f"a value is required in '{column}'")
+        return v, np.isfinite(v)
+
+    def text(self, column: str) -> pd.Series:
+        return self.col(column)
+
+    def duplicated(self, keys: list[pd.Series] | pd.Series, valid, column: str, what: str) -> np.ndarray:
+        """Report rows repeating an earlier row's key (among ``valid`` rows); returns the mask."""
+        frame = pd.DataFrame({f"k{i}": k.to_numpy() if hasattr(k, "to_numpy") else k
+                              for i, k in enumerate(keys if isinstance(keys, list) else [keys])})
+        frame["_row"] = self.rows
+        frame = frame[np.asarray(valid, dtype=bool)]
+        kcols = [c for c in frame.columns if c != "_row"]
+        dup = frame.duplicated(kcols, keep="first")
+        if not dup.any():
+            return np.zeros(len(self.f), dtype=bool)
+        first = frame.groupby(kcols, sort=False)["_row"].transform("first")
+        mask = np.zeros(len(self.f), dtype=bool)
+        mask[frame.index[dup.to_numpy()]] = True
+        msg = np.full(len(self.f), "", dtype=object)
+        msg[frame.index[dup.to_numpy()]] = [f"{what} (first on row {int(r)})" for r in first[dup].to_numpy()]
+        self.report(mask, column, msg)
+        return mask
+
+
+def _temperature(ch: Checker, column: str, v: np.ndarray, ok: np.ndarray) -> None:
+    below0 = ok & (v < ABSOLUTE_ZERO_C)
+    ch.report(below0, column, "temperature below absolute zero (-273.15 degC)")
+    ch.report(ok & ~below0 & ((v < T_MIN_C) | (v > T_MAX_C)), column,
+              f"temperature outside the plausible range for well plates and vial blocks "
+              f"({T_MIN_C:g} to {T_MAX_C:g} degC); is it in kelvin or fahrenheit?")
+
+
+def _str_or_na(s: pd.Series) -> pd.Series:
+    return s.where(s != "", None).astype("str")
+
+
+def extra_columns_note(ch: Checker, known) -> list[str]:
+    extra = [c for c in ch.f.columns if c not in known]
+    if extra:
+        return [f"{ch.name}: column{'s' if len(extra) > 1 else ''} {', '.join(extra)} not used"]
+    return []
+
+
+# --------------------------------------------------------------------------- catalysts
+def check_catalysts(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFrame, list[str]]:
+    ch = Checker(table, problems)
+    notes = extra_columns_note(ch, CATALYST_COLUMNS)
+    if not ch.require_columns(["catalyst"]):
+        return _empty_catalysts(), notes
+    cid = ch.text("catalyst")
+    missing = (cid == "").to_numpy()
+    ch.report(missing, "catalyst", "a catalyst id is required")
+    ch.duplicated(cid, ~missing, "catalyst", "duplicate catalyst id")
+    out = {"catalyst": cid.astype("str")}
+    name = ch.text("name")
+    out["name"] = name.where(name != "", cid).astype("str")
+    out["family"] = ch.text("family").astype("str")
+    mm, mm_ok = ch.number("molar_mass_g_mol")
+    ch.report(mm_ok & (mm <= 0), "molar_mass_g_mol", "molar mass must be > 0 g/mol")
+    spu, spu_ok = ch.number("sites_per_unit")
+    ch.report(spu_ok & (spu <= 0), "sites_per_unit", "sites_per_unit must be > 0")
+    wt, wt_ok = ch.number("metal_wt_pct")
+    ch.report(wt_ok & ((wt <= 0) | (wt > 100)), "metal_wt_pct", "metal_wt_pct must be > 0 and <= 100 (% by mass)")
+    mmm, mmm_ok = ch.number("metal_molar_mass_g_mol")
+    ch.report(mmm_ok & (mmm <= 0), "metal_molar_mass_g_mol", "metal molar mass must be > 0 g/mol")
+    mmm_blank = ch.text("metal_molar_mass_g_mol").str.lower().isin(NA_WORDS).to_numpy()
+    ch.report(wt_ok & mmm_blank, "metal_molar_mass_g_mol",
+              "metal_wt_pct is given, so metal_molar_mass_g_mol is needed too", values=wt)
+    disp, disp_ok = ch.number("dispersion")
+    ch.report(disp_ok & ((disp <= 0) | (disp > 1)), "dispersion",
+              "dispersion must be in (0, 1] (fraction of metal atoms at the surface)")
+    out["molar_mass_g_mol"] = mm
+    out["sites_per_unit"] = np.where(np.isnan(spu), 1.0, spu)
+    out["metal_wt_pct"] = wt
+    out["metal_molar_mass_g_mol"] = mmm
+    out["dispersion"] = np.where(np.isnan(disp), 1.0, disp)
+    return pd.DataFrame(out).reset_index(drop=True), notes
+
+
+def _empty_catalysts() -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype="str" if c in ("catalyst", "name", "family") else float)
+                         for c in CATALYST_COLUMNS})
+
+
+def _empty_plates() -> pd.DataFrame:
+    return pd.DataFrame({"plate": pd.Series(dtype="str"), "format": pd.Series(dtype=np.int64),
+                         "n_rows": pd.Series(dtype=np.int64), "n_cols": pd.Series(dtype=np.int64),
+                         "temperature_c": pd.Series(dtype=float), "run_date": pd.Series(dtype="str"),
+                         "notes": pd.Series(dtype="str")})
+
+
+def _empty_wells() -> pd.DataFrame:
+    return pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
+                         "role": pd.Series(dtype="str"), "substrate_conc_mM": pd.Series(dtype=float)})
+
+
+# --------------------------------------------------------------------------- plates
+def check_plates(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFrame, list[str]]:
+    ch = Checker(table, problems)
+    notes = extra_columns_note(ch, PLATE_COLUMNS)
+    ch.require_columns(["plate", "format", "temperature_c"])
+    pid = ch.text("plate")
+    if "plate" in ch.f.columns:
+        missing = (pid == "").to_numpy()
+        ch.report(missing, "plate", "a plate id is required")
+        ch.duplicated(pid, ~missing, "plate", "duplicate plate id")
+    fmt = np.zeros(len(pid), dtype=np.int64)
+    if "format" in ch.f.columns:
+        fv, fok = ch.number("format", required=True, what="a format is required (24, 48, 96 or 384)")
+        good = fok & np.isin(fv, list(platelib.FORMATS))
+        ch.report(fok & ~good, "format",
+                  "format must be 24, 48, 96 or 384 wells (4x6, 6x8, 8x12, 16x24; ANSI/SLAS 4-2004 layouts)")
+        fmt = np.where(good, fv, 0).astype(np.int64)
+    t = np.full(len(pid), np.nan)
+    if "temperature_c" in ch.f.columns:
+        t, tok = ch.number("temperature_c", required=True, what="a plate temperature is required (degC)")
+        _temperature(ch, "temperature_c", t, tok)
+    rd = ch.text("run_date")
+    if "run_date" in ch.f.columns:
+        given = (rd != "").to_numpy()
+        parsed = pd.to_datetime(rd.where(rd != "", None), format="ISO8601", errors="coerce")
+        ch.report(given & parsed.isna().to_numpy(), "run_date", "run_date must be an ISO date (YYYY-MM-DD)")
+        iso = parsed.dt.strftime("%Y-%m-%d")
+        rd = rd.where(~parsed.notna(), iso)
+    nr, nc = platelib.format_dims(fmt)
+    frame = pd.DataFrame({
+        "plate": pid.astype("str"), "format": fmt, "n_rows": nr.astype(np.int64), "n_cols": nc.astype(np.int64),
+        "temperature_c": t, "run_date": _str_or_na(rd), "notes": _str_or_na(ch.text("notes")),
+    })
+    return frame.reset_index(drop=True), notes
+
+
+# --------------------------------------------------------------------------- layout
+def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFrame | None,
+                 catalysts: pd.DataFrame | None,
+                 conc_factor: float | None, volume_factor: float | None) -> tuple[pd.DataFrame, tuple[str, ...]]:
+    """Validate layout.csv against plates and catalysts; returns (wells frame, factor names).
+
+    ``plates`` / ``catalysts`` None (their file could not be read) skips the cross-checks with them.
+    """
+    ch = Checker(table, problems)
+    check_plate_ids = plates is not None
+    check_catalyst_ids = catalysts is not None
+    plates = plates if plates is not None else _empty_plates()
+    catalysts = catalysts if catalysts is not None else _empty_catalysts()
+    f = ch.f
+    ch.require_columns(["plate", "well", "role", "substrate_conc", "volume"])
+    n = len(f)
+    # roles
+    role = ch.text("role").str.lower()
+    if "role" in f.columns:
+        ch.report((role == "").to_numpy(), "role", "a role is required: sample, blank, reference or empty")
+        ch.report(((role != "") & ~role.isin(ROLES)).to_numpy(), "role",
+                  "unknown role; expected sample, blank, reference or empty")
+    is_cat = role.isin(("sample", "reference")).to_numpy()
+    is_blank = (role == "blank").to_numpy()
+    is_empty = (role == "empty").to_numpy()
+    is_used = role.isin(("sample", "reference", "blank")).to_numpy()
+    if is_cat.any():
+        missing = [c for c in ("catalyst", "loading", "loading_unit") if c not in f.columns]
+        if missing:
+            ch.whole(", ".join(missing), f"sample and reference wells need the column{'s' if len(missing) > 1 else ''} "
+                                        f"{', '.join(missing)}")
+    # plate and well
+    pid = ch.text("plate")
+    plate_fmt = dict(zip(plates["plate"], plates["format"]))
+    known_plate = pid.isin(list(plate_fmt)).to_numpy()
+    if "plate" in f.columns:
+        ch.report((pid == "").to_numpy(), "plate", "a plate id is required")
+        if check_plate_ids:
+            ch.report(((pid != "") & ~known_plate), "plate", "unknown plate (not in plates.csv)")
+    parsed = platelib.parse_wells(ch.text("well").to_numpy())
+    well_ok = parsed["well"].notna().to_numpy()
+    if "well" in f.columns:
+        ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
+    fmt = pid.map(plate_fmt).fillna(0).astype(np.int64).to_numpy()
+    nr, nc = platelib.format_dims(fmt)
+    outside = well_ok & known_plate & (fmt > 0) & ((parsed["row"].to_numpy() >= nr) | (parsed["col"].to_numpy() >= nc))
+    if outside.any():
+        last = np.array(list(platelib.ROW_LETTERS))[np.clip(nr - 1, 0, 15)]
+        msg = np.array([f"well outside the plate's {a}-well format (rows A-{b}, columns 1-{c})"
+                        for a, b, c in zip(fmt, last, nc)], dtype=object) if n < 50_000 else None
+        if msg is None:
+            msg = "well outside the plate's format"
+        ch.report(outside, "well", msg)
+    wells = parsed["well"].astype("str")
+    placed = well_ok & (pid != "").to_numpy()
+    ch.duplicated([pid, wells], placed, "well", "duplicate well in the layout")
+    # catalyst
+    cat = ch.text("catalyst")
+    has_cat = (cat != "").to_numpy()
+    if "catalyst" in f.columns:
+        ch.report(is_cat & ~has_cat, "catalyst", "a sample or reference well needs a catalyst")
+        if check_catalyst_ids:
+            ch.report(is_cat & has_cat & ~cat.isin(list(catalysts["catalyst"])).to_numpy(), "catalyst",
+                      "unknown catalyst (not in catalysts.csv)")
+        ch.report(is_blank & has_cat, "catalyst",
+                  "a blank well must not name a catalyst (a blank is everything but the catalyst)")
+    loading = np.full(n, np.nan)
+    if "loading" in f.columns:
+        loading, lok = ch.number("loading", required=is_cat, what="a sample or reference well needs a loading")
+        ch.report(is_cat & lok & (loading <= 0), "loading", "loading must be > 0")
+    lu_raw = ch.text("loading_unit")
+    lu = lu_raw.map(units.normalise_loading_unit) if n else lu_raw
+    lu = pd.Series(lu, index=f.index, dtype=object)
+    if "loading_unit" in f.columns:
+        ch.report(is_cat & (lu_raw == "").to_numpy(), "loading_unit",
+                  "a sample or reference well needs a loading_unit (umol, mg or mol%)")
+        ch.report(is_cat & (lu_raw != "").to_numpy() & lu.isna().to_numpy(), "loading_unit",
+                  "unknown loading unit; expected umol, mg or mol%")
+    # substrate and volume
+    conc = np.full(n, np.nan)
+    vol = np.full(n, np.nan)
+    if "substrate_conc" in f.columns:
+        conc, cok = ch.number("substrate_conc", required=is_used,
+                              what="substrate_conc is required for every well except empty ones")
+        ch.report(is_used & cok & (conc <= 0), "substrate_conc", "substrate_conc must be > 0")
+    if "volume" in f.columns:
+        vol, vok = ch.number("volume", required=is_used, what="volume is required for every well except empty ones")
+        ch.report(is_used & vok & (vol <= 0), "volume", "volume must be > 0")
+    # can the loading become active sites?
+    if "catalyst" in f.columns and "loading_unit" in f.columns and len(catalysts):
+        cinfo = catalysts.set_index("catalyst")
+        cinfo = cinfo[~cinfo.index.duplicated()]
+        mm = cat.map(cinfo["molar_mass_g_mol"]).to_numpy(dtype=float)
+        wt = cat.map(cinfo["metal_wt_pct"]).to_numpy(dtype=float)
+        mmm = cat.map(cinfo["metal_molar_mass_g_mol"]).to_numpy(dtype=float)
+        known_cat = cat.isin(list(cinfo.index)).to_numpy()
+        mg = is_cat & known_cat & (lu == "mg").to_numpy()
+        ch.report(mg & np.isnan(mm) & ~(np.isfinite(wt) & np.isfinite(mmm)), "loading_unit",
+                  "an mg loading needs molar_mass_g_mol, or metal_wt_pct and metal_molar_mass_g_mol, "
+                  "for this catalyst in catalysts.csv")
+    molpct = is_cat & (lu == "mol%").to_numpy()
+    ch.report(molpct & ~(conc > 0), "loading_unit",
+              "a mol% loading needs a substrate_conc > 0 (mol% is relative to the substrate)")
+    # temperature override
+    tw = np.full(n, np.nan)
+    if "temperature_c" in f.columns:
+        tw, twok = ch.number("temperature_c")
+        _temperature(ch, "temperature_c", tw, twok)
+    plate_t = pid.map(dict(zip(plates["plate"], plates["temperature_c"]))).to_numpy(dtype=float)
+    temp = np.where(np.isfinite(tw), tw, plate_t)
+    # factors
+    factors = [c for c in f.columns if c not in LAYOUT_COLUMNS]
+    for c in factors:
+        if c in RESERVED_FACTORS:
+            ch.whole(c, f"'{c}' cannot be a factor column name (it is a reserved column of the wells table); rename it")
+    cf = conc_factor if conc_factor is not None else np.nan
+    vf = volume_factor if volume_factor is not None else np.nan
+    out = pd.DataFrame({
+        "plate": pid.astype("str"),
+        "well": wells,
+        "row": parsed["row"].to_numpy(dtype=np.int64),
+        "col": parsed["col"].to_numpy(dtype=np.int64),
+        "role": role.astype("str"),
+        "catalyst": cat.where(is_cat & has_cat, None).astype("str"),
+        "loading": np.where(is_cat, loading, np.nan),
+        "loading_unit": lu.where(is_cat, None).astype("str"),
+        "substrate_conc_mM": np.where(is_empty, np.nan, conc * cf),
+        "volume_uL": np.where(is_empty, np.nan, vol * vf),
+        "temperature_c": temp,
+    })
+    for c in factors:
+        out[c] = f[c].astype("str").to_numpy()
+    out = out.sort_values(["plate", "row", "col"], kind="stable").reset_index(drop=True)
+    return out, tuple(factors)
+
+
+# --------------------------------------------------------------------------- readings
+def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFrame | None,
+                   plates: pd.DataFrame | None, info: dict) -> tuple[pd.DataFrame, list[str]]:
+    """Validate readings.csv against the layout and the manifest (``info`` from parse_manifest).
+
+    ``wells`` / ``plates`` None (their file could not be read) skips the cross-checks with them.
+    """
+    ch = Checker(table, problems)
+    check_wells = wells is not None
+    check_plate_ids = plates is not None
+    wells = wells if wells is not None else _empty_wells()
+    plates = plates if plates is not None else _empty_plates()
+    f = ch.f
+    notes = extra_columns_note(ch, READING_COLUMNS)
+    ch.require_columns(["plate", "well", "time", "value"])
+    n = len(f)
+    pid = ch.text("plate")
+    known_plate = pid.isin(list(plates["plate"])).to_numpy()
+    if "plate" in f.columns:
+        ch.report((pid == "").to_numpy(), "plate", "a plate id is required")
+        if check_plate_ids:
+            ch.report((pid != "").to_numpy() & ~known_plate, "plate", "unknown plate (not in plates.csv)")
+    parsed = platelib.parse_wells(ch.text("well").to_numpy())
+    well = parsed["well"].astype("str")
+    well_ok = parsed["well"].notna().to_numpy()
+    if "well" in f.columns:
+        ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
+    key = pd.MultiIndex.from_arrays([pid.to_numpy(dtype=object), well.to_numpy(dtype=object)])
+    lay = pd.MultiIndex.from_arrays([wells["plate"].to_numpy(dtype=object), wells["well"].to_numpy(dtype=object)])
+    role_of = pd.Series(wells["role"].to_numpy(), index=lay)
+    role_of = role_of[~role_of.index.duplicated()]
+    in_layout = key.isin(role_of.index)
+    check_place = known_plate & well_ok & check_wells
+    ch.report(check_place & ~in_layout, "well", "reading for a well that is not in layout.csv")
+    on_empty = np.zeros(n, dtype=bool)
+    if in_layout.any():
+        roles = role_of.reindex(key).to_numpy(dtype=object)
+        on_empty = in_layout & (roles == "empty")
+    ch.report(on_empty, "well", "reading on a well marked empty in layout.csv")
+    # time
+    t = np.full(n, np.nan)
+    tok = np.zeros(n, dtype=bool)
+    if "time" in f.columns:
+        t, tok = ch.number("time", required=True, what="a time is required")
+        ch.report(tok & (t < 0), "time", "time must be >= 0 (time since the start of the reaction)")
+    # value
+    v = np.full(n, np.nan)
+    if "value" in f.columns:
+        v, vok = ch.number("value", required=True, what="a value is required")
+        kind, scale = info.get("kind"), info.get("scale")
+        if kind in ("conversion", "yield") and scale == "percent":
+            ch.report(vok & ((v < -PERCENT_TOL) | (v > 100 + PERCENT_TOL)), "value",
+                      f"a percent {kind} must lie in 0..100 (+/- {PERCENT_TOL:g} for instrument noise)")
+        elif kind in ("conversion", "yield") and scale == "fraction":
+            ch.report(vok & ((v < -FRACTION_TOL) | (v > 1 + FRACTION_TOL)), "value",
+                      f"a fractional {kind} must lie in 0..1 (+/- {FRACTION_TOL:g} for instrument noise); "
+                      "is it in percent?")
+        elif kind == "product_conc":
+            top = np.nanmax(wells["substrate_conc_mM"].to_numpy(dtype=float), initial=0.0) if len(wells) else 0.0
+            cf = info.get("conc_factor") or np.nan
+            tol = CONC_TOL_REL * top * info.get("product_per_substrate", 1.0) / cf if np.isfinite(cf) else 0.0
+            tol = tol if np.isfinite(tol) else 0.0
+            ch.report(vok & (v < -tol), "value",
+                      f"negative product concentration beyond noise (tolerance -{tol:.3g} {info.get('conc_unit', '')}, "
+                      f"{CONC_TOL_REL * 100:g} % of the largest theoretical product concentration)")
+        elif kind == "absorbance":
+            ch.report(vok & ((v < ABS_MIN) | (v > ABS_MAX)), "value",
+                      f"absorbance outside {ABS_MIN:g}..{ABS_MAX:g} (plate readers saturate near 4)")
+    # analytes
+    declared = bool(info.get("analytes_declared"))
+    kind = info.get("kind")
+    an = ch.text("analyte")
+    if "analyte" in f.columns:
+        if not declared:
+            ch.whole("analyte", "readings have an analyte column but campaign.toml declares no [analytes] table")
+        ch.report((an == "").to_numpy(), "analyte", "an analyte name is required")
+        names = pd.unique(an[an != ""])
+        if kind in ("conversion", "absorbance") and len(names) > 1:
+            ch.whole("analyte", f"a {kind} readout gives one value per well and time, but the readings name "
+                                f"{len(names)} analytes; several analytes need a yield or product_conc readout")
+        if declared:
+            main = info.get("main", DEFAULT_ANALYTE)
+            byp = tuple(info.get("byproducts") or ())
+            en = info.get("enantiomers")
+            allowed = ({main} if not en else set()) | set(byp) | set(en or ())
+            listed = ", ".join(sorted(allowed))
+            unknown = (an != "").to_numpy() & ~an.isin(list(allowed)).to_numpy()
+            if en:
+                is_main = (an == main).to_numpy()
+                ch.report(is_main, "analyte",
+                          f"'{main}' is the sum of the enantiomers {en[0]} and {en[1]} and has no readings of its "
+                          "own; read the two enantiomers instead")
+                unknown &= ~is_main
+                for e in en:  # two names
+                    if not (an == e).any():
+                        ch.whole("analyte", f"enantiomer '{e}' is declared in campaign.toml but never read", e)
+            ch.report(unknown, "analyte", f"unknown analyte; campaign.toml [analytes] declares {listed}")
+    elif declared:
+        ch.whole("analyte", "campaign.toml declares [analytes], so readings.csv needs an analyte column")
+    analyte = an if "analyte" in f.columns else pd.Series([DEFAULT_ANALYTE] * n, dtype="str")
+    # duplicates
+    ch.duplicated([pid, well, analyte, pd.Series(t)], tok & well_ok & (pid != "").to_numpy(), "time",
+                  "duplicate reading for the same plate, well, analyte and time")
+    tf = info.get("time_factor")
+    out = pd.DataFrame({
+        "plate": pid.astype("str").to_numpy(),
+        "well": well.to_numpy(),
+        "analyte": analyte.astype("str").to_numpy(),
+        "time_h": t * (tf if tf is not None else np.nan),
+        "value": v,
+    })
+    out = out.astype({"plate": "str", "well": "str", "analyte": "str"})
+    out = out.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
+    return out, notes
