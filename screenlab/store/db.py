@@ -1,0 +1,811 @@
+"""The DuckDB store: one file holding every imported campaign, with its import history.
+
+Design
+------
+* **Short-lived connections.** Every public method opens a connection, does its work and closes
+  it, so the app (reading) and the CLI (writing) can share one file. DuckDB allows one read-write
+  process *or* several read-only ones; when the file is locked, the open is retried with backoff
+  for ``busy_timeout_s`` (default 10 s, or ``$SCREENLAB_BUSY_TIMEOUT_S``) and then fails with
+  :class:`~screenlab.errors.StoreBusyError` naming the other process.
+* **Offline.** Connections never install or auto-load extensions (only the ones built into the
+  wheel: core_functions, icu, json, parquet).
+* **Versioned rows, nothing lost.** A campaign header (manifest, catalyst set, factor names) and
+  each plate (plate row, layout, factor values, readings) are versions written by one import. A
+  replaced version is marked ``superseded_by`` the replacing import and stays in the file; the
+  ``current_*`` views (and every method here) see only current versions. Raw imported values are
+  never updated.
+* **All or nothing.** One import is one explicit transaction (``begin``/``commit``, ``rollback`` on
+  any error): DuckDB 2.0 auto-commits each statement of a multi-statement string, so no step
+  relies on that.
+* **Fingerprints.** Each plate's canonical content (plate row; layout rows and factor values
+  sorted by well; readings sorted by well, analyte, time) is hashed with SHA-256 in three parts,
+  so a re-import can tell "unchanged", "new" and "changed" apart and say *what* changed.
+
+Schema migrations live in ``screenlab/store/migrations/NNN_name.sql`` and are applied in order,
+each in one transaction, recorded in ``schema_migrations(version, name, applied_at)``.
+"""
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import os
+import re
+import time
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from importlib import resources
+from pathlib import Path
+from typing import Any, Iterable
+
+import duckdb
+import numpy as np
+import pandas as pd
+
+from screenlab.errors import NotFoundError, Problem, ScreenlabError, StoreBusyError, ValidationError
+from screenlab.model import DEFAULT_ANALYTE, CampaignData, Manifest
+from screenlab.store import queries as Q
+
+#: default seconds to keep retrying a locked store file
+DEFAULT_BUSY_TIMEOUT_S = 10.0
+BUSY_TIMEOUT_ENV = "SCREENLAB_BUSY_TIMEOUT_S"
+#: a CHECKPOINT follows an import that wrote at least this many readings
+CHECKPOINT_READINGS = 50_000
+#: extensions compiled into the duckdb wheel; nothing else may load (offline machines)
+BUILTIN_EXTENSIONS = frozenset({"core_functions", "icu", "json", "parquet"})
+
+_CONFIG = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
+_LOCK_WORDS = ("could not set lock", "conflicting lock")
+
+# Canonical columns of the CampaignData frames (see screenlab.model.CampaignData), with the kind
+# each is stored as: "s" text, "f" float, "i" integer.
+CATALYST_COLS = {"catalyst": "s", "name": "s", "family": "s", "molar_mass_g_mol": "f", "sites_per_unit": "f",
+                 "metal_wt_pct": "f", "metal_molar_mass_g_mol": "f", "dispersion": "f"}
+PLATE_COLS = {"plate": "s", "format": "i", "n_rows": "i", "n_cols": "i", "temperature_c": "f",
+              "run_date": "s", "notes": "s"}
+WELL_COLS = {"plate": "s", "well": "s", "row": "i", "col": "i", "role": "s", "catalyst": "s", "loading": "f",
+             "loading_unit": "s", "substrate_conc_mM": "f", "volume_uL": "f", "temperature_c": "f"}
+READING_COLS = {"plate": "s", "well": "s", "analyte": "s", "time_h": "f", "value": "f"}
+_FRAME_COLS = {"catalysts": CATALYST_COLS, "plates": PLATE_COLS, "wells": WELL_COLS, "readings": READING_COLS}
+_REQUIRED = {"catalysts": ("catalyst",), "plates": ("plate",), "wells": ("plate", "well"),
+             "readings": ("plate", "well", "time_h", "value")}
+_STATUSES = ("imported", "unchanged", "added_plates", "replaced", "dry_run")
+
+
+class ImportRefusedError(ScreenlabError):
+    """Data for a stored campaign differs from what the store holds and ``replace`` was not given."""
+
+    def __init__(self, message: str, *, campaign: str, plates: tuple[str, ...] = (),
+                 catalysts: tuple[str, ...] = (), manifest: bool = False):
+        super().__init__(message)
+        self.campaign = campaign
+        self.plates = plates
+        self.catalysts = catalysts
+        self.manifest = manifest
+
+
+@dataclass(frozen=True)
+class ImportReport:
+    """What one import did (or, with ``dry_run``, would do).
+
+    ``status``: imported (new campaign) | unchanged (nothing written) | added_plates (new plates or
+    catalysts for a stored campaign) | replaced (changed plates / manifest / catalysts stored as the
+    new current version, the old one kept as history) | dry_run (nothing written; the lists say
+    what an import would do). ``n_wells`` and ``n_readings`` count the rows written (or that would
+    be written). ``import_id`` is None when nothing was written.
+    """
+
+    campaign: str
+    status: str
+    plates_added: tuple[str, ...] = ()
+    plates_replaced: tuple[str, ...] = ()
+    plates_unchanged: tuple[str, ...] = ()
+    n_wells: int = 0
+    n_readings: int = 0
+    message: str = ""
+    import_id: int | None = None
+    catalysts_added: tuple[str, ...] = ()
+    catalysts_replaced: tuple[str, ...] = ()
+    manifest_replaced: bool = False
+    plates_kept: tuple[str, ...] = ()   # stored plates the imported data did not mention (left as they are)
+
+
+# --------------------------------------------------------------------------------------------
+# dtype bookkeeping: load_campaign gives back the frames with the dtypes they were imported with
+# --------------------------------------------------------------------------------------------
+
+def _dtype_spec(dtype) -> Any:
+    if isinstance(dtype, pd.StringDtype):
+        return {"string": dtype.storage, "na": "nan" if dtype.na_value is np.nan else "NA"}
+    return str(dtype)
+
+
+def _dtype_from_spec(spec) -> Any:
+    if isinstance(spec, dict) and "string" in spec:
+        return pd.StringDtype(spec["string"], na_value=np.nan if spec["na"] == "nan" else pd.NA)
+    return pd.api.types.pandas_dtype(spec)
+
+
+def _restore(frame: pd.DataFrame, schema: list[list]) -> pd.DataFrame:
+    out = {}
+    for col, spec in schema:
+        s = frame[col] if col in frame.columns else pd.Series([pd.NA] * len(frame), dtype=object)
+        try:
+            out[col] = s.astype(_dtype_from_spec(spec))
+        except (TypeError, ValueError):
+            out[col] = s
+        out[col] = out[col].reset_index(drop=True)
+    return pd.DataFrame(out, columns=[c for c, _ in schema]) if out else pd.DataFrame(index=range(len(frame)))
+
+
+# --------------------------------------------------------------------------------------------
+# canonical frames as stored, and their fingerprints
+# --------------------------------------------------------------------------------------------
+
+def _text(s: pd.Series) -> pd.Series:
+    """Text column as pandas ``string`` (missing = NA); non-text values become their str()."""
+    if pd.api.types.is_datetime64_any_dtype(s):
+        out = s.dt.strftime("%Y-%m-%d %H:%M:%S").str.replace(" 00:00:00", "", regex=False)
+        return out.astype("string")
+    return s.astype("string")
+
+
+def _prepared(frame: pd.DataFrame, cols: dict[str, str]) -> pd.DataFrame:
+    """The canonical columns of ``frame`` in storage form (absent optional columns as missing)."""
+    n = len(frame)
+    out = {}
+    for col, kind in cols.items():
+        if col in frame.columns:
+            s = frame[col].reset_index(drop=True)
+        else:
+            s = pd.Series([pd.NA] * n, dtype=object)
+        if kind == "s":
+            out[col] = _text(s)
+        elif kind == "i":
+            out[col] = pd.to_numeric(s, errors="coerce").astype("Int64")
+        else:
+            v = pd.to_numeric(s, errors="coerce").astype("float64")
+            out[col] = v + 0.0  # -0.0 -> 0.0 so equal values fingerprint equally
+    return pd.DataFrame(out, index=range(n))
+
+
+def _column_bytes(s: pd.Series) -> bytes:
+    if isinstance(s.dtype, pd.StringDtype) or s.dtype == object:
+        vals = s.astype(object).where(s.notna(), "\x00").tolist()
+        return ("\x1f".join(map(str, vals)) + "\x1e").encode()
+    if isinstance(s.dtype, pd.Int64Dtype):
+        return s.fillna(-(2**62)).to_numpy(dtype=np.int64).tobytes() + b"\x1e"
+    v = s.to_numpy(dtype=np.float64)
+    v = np.where(np.isnan(v), np.nan, v)  # one NaN bit pattern
+    return np.ascontiguousarray(v).tobytes() + b"\x1e"
+
+
+def _slices(plates: pd.Series) -> dict[str, np.ndarray]:
+    """Positions of each plate's rows (a frame already sorted by plate)."""
+    return {k: np.asarray(v) for k, v in plates.groupby(plates, sort=False).indices.items()}
+
+
+def _digest(frame: pd.DataFrame, positions: np.ndarray | None, cols: list[str]) -> str:
+    h = hashlib.sha256()
+    if positions is not None and len(positions):
+        part = frame.iloc[positions]
+        for c in cols:
+            h.update(c.encode() + b"=")
+            h.update(_column_bytes(part[c]))
+    return h.hexdigest()
+
+
+def plate_fingerprints(plates: pd.DataFrame, wells: pd.DataFrame, factors: pd.DataFrame,
+                       readings: pd.DataFrame) -> pd.DataFrame:
+    """Per-plate SHA-256 fingerprints of stored-form frames: ``plate, fp_plate, fp_layout, fp_readings``.
+
+    Rows are sorted canonically first (layout and factors by well and factor, readings by well,
+    analyte, time and value), so the order of rows in the files does not matter. The loop is over
+    plates (a few groups), each digest is computed from whole column arrays.
+    """
+    w = wells.sort_values(["plate", "well"], kind="stable").reset_index(drop=True)
+    f = factors.sort_values(["plate", "well", "factor"], kind="stable").reset_index(drop=True)
+    r = readings.sort_values(["plate", "well", "analyte", "time_h", "value"], kind="stable").reset_index(drop=True)
+    p = plates.reset_index(drop=True)
+    ws, fs, rs = _slices(w["plate"]), _slices(f["plate"]), _slices(r["plate"])
+    wcols = [c for c in WELL_COLS if c != "plate"]
+    rows = []
+    for i, name in enumerate(p["plate"].tolist()):  # loop over plates, not wells
+        fp_plate = _digest(p, np.array([i]), [c for c in PLATE_COLS if c != "plate"])
+        layout = hashlib.sha256()
+        layout.update(_digest(w, ws.get(name), wcols).encode())
+        layout.update(_digest(f, fs.get(name), ["well", "factor", "value"]).encode())
+        fp_readings = _digest(r, rs.get(name), ["well", "analyte", "time_h", "value"])
+        rows.append((name, fp_plate, layout.hexdigest(), fp_readings))
+    return pd.DataFrame(rows, columns=["plate", "fp_plate", "fp_layout", "fp_readings"])
+
+
+def _manifest_dict(m: Manifest) -> dict:
+    d = dataclasses.asdict(m)
+    return json.loads(json.dumps(d, default=str))
+
+
+def _manifest_fingerprint(m: Manifest) -> str:
+    return hashlib.sha256(json.dumps(_manifest_dict(m), sort_keys=True).encode()).hexdigest()
+
+
+def _manifest_from_json(text: str) -> Manifest:
+    d = json.loads(text)
+    known = {f.name for f in dataclasses.fields(Manifest)}
+    d = {k: v for k, v in d.items() if k in known}
+    if "byproducts" in d:
+        d["byproducts"] = tuple(d["byproducts"] or ())
+    if d.get("enantiomers") is not None:
+        d["enantiomers"] = tuple(d["enantiomers"])
+    return Manifest(**d)
+
+
+@dataclass(frozen=True)
+class _Prepared:
+    """One CampaignData in storage form."""
+
+    catalysts: pd.DataFrame
+    plates: pd.DataFrame
+    wells: pd.DataFrame
+    factors: pd.DataFrame      # long: plate, seq, well, factor, value (non-missing values only)
+    readings: pd.DataFrame
+    fingerprints: pd.DataFrame
+    factor_columns: tuple[str, ...]
+    schema: dict               # frame -> [[column, dtype spec], ...]
+
+
+def _validate(data: CampaignData) -> None:
+    problems: list[Problem] = []
+    frames = {"catalysts": data.catalysts, "plates": data.plates, "wells": data.wells, "readings": data.readings}
+    for name, frame in frames.items():
+        if not isinstance(frame, pd.DataFrame):
+            problems.append(Problem(name, None, None, None, "is not a table (pandas DataFrame)"))
+            continue
+        for col in _REQUIRED[name]:
+            if col not in frame.columns:
+                problems.append(Problem(name, None, col, None, "required column is missing"))
+        if name in ("catalysts", "plates", "readings"):
+            extra = [c for c in frame.columns if c not in _FRAME_COLS[name]]
+            for c in extra:
+                problems.append(Problem(name, None, str(c), None,
+                                        f"column the store does not know; expected only {', '.join(_FRAME_COLS[name])}"))
+    if not str(data.manifest.name or "").strip():
+        problems.append(Problem("campaign.toml", None, "name", None, "campaign name is empty"))
+    if problems:
+        raise ValidationError(problems, source=f"campaign {data.manifest.name!r}")
+
+    def dupes(frame, keys, name):
+        bad = frame[keys].isna().any(axis=1) | frame.duplicated(keys, keep="first")
+        for pos in np.flatnonzero(bad.to_numpy())[:20]:
+            vals = ", ".join(str(frame[k].iloc[pos]) for k in keys)
+            problems.append(Problem(name, int(pos) + 2, keys[-1], vals, f"{'/'.join(keys)} missing or not unique"))
+
+    dupes(data.catalysts, ["catalyst"], "catalysts")
+    dupes(data.plates, ["plate"], "plates")
+    dupes(data.wells, ["plate", "well"], "wells")
+    known = set(data.plates["plate"].dropna().astype(str))
+    for name in ("wells", "readings"):
+        frame = getattr(data, name)
+        bad = ~frame["plate"].astype("string").isin(known).fillna(False).to_numpy(dtype=bool)
+        for pos in np.flatnonzero(bad)[:20]:
+            problems.append(Problem(name, int(pos) + 2, "plate", str(frame["plate"].iloc[pos]),
+                                    "plate is not in the plates table"))
+    if problems:
+        raise ValidationError(problems, source=f"campaign {data.manifest.name!r}")
+
+
+def _prepare(data: CampaignData) -> _Prepared:
+    _validate(data)
+    cat = _prepared(data.catalysts, CATALYST_COLS)
+    pla = _prepared(data.plates, PLATE_COLS)
+    wel = _prepared(data.wells, WELL_COLS)
+    rea = _prepared(data.readings, READING_COLS)
+    if "analyte" not in data.readings.columns:
+        rea["analyte"] = pd.array([DEFAULT_ANALYTE] * len(rea), dtype="string")
+    for frame, name in ((cat, "catalysts"), (pla, "plates"), (wel, "wells"), (rea, "readings")):
+        frame["seq"] = np.arange(len(frame), dtype=np.int64)
+    # every wells column that is not canonical is a named factor, kept in long form
+    factor_columns = tuple(str(c) for c in data.wells.columns if c not in WELL_COLS)
+    if factor_columns:
+        wide = data.wells[list(factor_columns)].reset_index(drop=True)
+        wide = wide.apply(_text)
+        long = wide.assign(seq=np.arange(len(wide), dtype=np.int64)).melt(
+            id_vars="seq", var_name="factor", value_name="value")
+        long = long[long["value"].notna()]
+        long = long.merge(wel[["seq", "plate", "well"]], on="seq", how="left")
+        factors = long[["plate", "seq", "well", "factor", "value"]].reset_index(drop=True)
+        factors["factor"] = factors["factor"].astype("string")
+        factors["value"] = factors["value"].astype("string")
+    else:
+        factors = pd.DataFrame({"plate": pd.array([], dtype="string"), "seq": np.array([], dtype=np.int64),
+                                "well": pd.array([], dtype="string"), "factor": pd.array([], dtype="string"),
+                                "value": pd.array([], dtype="string")})
+    fps = plate_fingerprints(pla, wel, factors, rea)
+    schema = {name: [[str(c), _dtype_spec(frame[c].dtype)] for c in frame.columns]
+              for name, frame in (("catalysts", data.catalysts), ("plates", data.plates),
+                                  ("wells", data.wells), ("readings", data.readings))}
+    return _Prepared(cat, pla, wel, factors, rea, fps, factor_columns, schema)
+
+
+def _fp_text(row) -> str:
+    return f"{row.fp_plate}:{row.fp_layout}:{row.fp_readings}"
+
+
+def _equal_cells(a: pd.Series, b: pd.Series) -> np.ndarray:
+    a = a.reset_index(drop=True)
+    b = b.reset_index(drop=True)
+    both_na = (a.isna() & b.isna()).to_numpy(dtype=bool)
+    eq = (a.astype(object) == b.astype(object)).to_numpy(dtype=bool) if len(a) else np.zeros(0, bool)
+    return both_na | (eq & ~(a.isna() | b.isna()).to_numpy(dtype=bool))
+
+
+def _plain_list(values: Iterable) -> list[str]:
+    return [str(v) for v in values]
+
+
+def _files_frame(files, import_id: int) -> pd.DataFrame:
+    rows = []
+    for i, f in enumerate(files or ()):
+        if isinstance(f, dict):
+            name, sha, n = f.get("name"), f.get("sha256"), f.get("n_rows")
+        elif hasattr(f, "name"):
+            name, sha, n = f.name, getattr(f, "sha256", None), getattr(f, "n_rows", None)
+        else:
+            name, sha, n = (tuple(f) + (None, None, None))[:3]
+        rows.append((import_id, i, str(name), None if sha is None else str(sha), None if n is None else int(n)))
+    frame = pd.DataFrame(rows, columns=["import_id", "seq", "name", "sha256", "n_rows"])
+    return frame.astype({"import_id": "int64", "seq": "int64", "name": "string", "sha256": "string",
+                         "n_rows": "Int64"})
+
+
+def _names(items) -> str:
+    items = list(items)
+    if len(items) <= 12:
+        return ", ".join(items)
+    return ", ".join(items[:12]) + f" and {len(items) - 12} more"
+
+
+# --------------------------------------------------------------------------------------------
+# the store
+# --------------------------------------------------------------------------------------------
+
+class Store:
+    """A ScreenLab store file. Cheap to create; every method opens its own short connection.
+
+    ``read_only=True`` never writes (and needs an existing, up-to-date store file).
+    """
+
+    def __init__(self, path: str | os.PathLike, read_only: bool = False, *, busy_timeout_s: float | None = None):
+        self.path = Path(path)
+        self.read_only = bool(read_only)
+        if busy_timeout_s is None:
+            env = os.environ.get(BUSY_TIMEOUT_ENV)
+            try:
+                busy_timeout_s = float(env) if env else DEFAULT_BUSY_TIMEOUT_S
+            except ValueError:
+                busy_timeout_s = DEFAULT_BUSY_TIMEOUT_S
+        self.busy_timeout_s = float(busy_timeout_s)
+        self._schema_ok = False
+
+    def __repr__(self) -> str:
+        return f"Store({str(self.path)!r}, read_only={self.read_only})"
+
+    # -- connections ---------------------------------------------------------------------------
+
+    def _open(self) -> duckdb.DuckDBPyConnection:
+        if self.read_only and not self.path.exists():
+            raise NotFoundError(f"no store at {self.path} (import a campaign first: screenlab ingest FOLDER)")
+        if not self.read_only and not self.path.parent.exists():
+            raise ScreenlabError(f"cannot create store {self.path}: folder {self.path.parent} does not exist")
+        deadline = time.monotonic() + self.busy_timeout_s
+        delay = 0.05
+        while True:
+            try:
+                return duckdb.connect(str(self.path), read_only=self.read_only, config=dict(_CONFIG))
+            except duckdb.IOException as exc:
+                text = str(exc)
+                if not any(w in text.lower() for w in _LOCK_WORDS):
+                    raise ScreenlabError(f"cannot open store {self.path}: {text}") from exc
+                if time.monotonic() + delay > deadline:
+                    m = re.search(r"PID (\d+)", text)
+                    pid = m.group(1) if m else "unknown"
+                    raise StoreBusyError(
+                        f"store {self.path} is in use by another process (PID {pid}); gave up after "
+                        f"{self.busy_timeout_s:g} s. Close the program holding it (or wait for its import "
+                        f"to finish) and try again.") from exc
+                time.sleep(delay)
+                delay = min(delay * 2, 0.5)
+            except duckdb.Error as exc:
+                raise ScreenlabError(f"cannot open store {self.path}: {exc}") from exc
+
+    @contextmanager
+    def _connect(self):
+        con = self._open()
+        try:
+            if not self._schema_ok:
+                self._check_schema(con)
+            yield con
+        except duckdb.Error as exc:
+            raise ScreenlabError(f"store {self.path}: {exc}") from exc
+        finally:
+            con.close()
+
+    # -- schema --------------------------------------------------------------------------------
+
+    @staticmethod
+    def migrations() -> list[tuple[int, str, str]]:
+        """The shipped migrations as ``(version, name, sql)``, in order."""
+        out = []
+        for entry in resources.files("screenlab.store").joinpath("migrations").iterdir():
+            m = re.match(r"^(\d+)_(.+)\.sql$", entry.name)
+            if m:
+                out.append((int(m.group(1)), m.group(2), entry.read_text(encoding="utf-8")))
+        return sorted(out)
+
+    @staticmethod
+    def _statements(sql: str) -> list[str]:
+        lines = [ln.split("--", 1)[0] for ln in sql.splitlines()]
+        return [s.strip() for s in "\n".join(lines).split(";") if s.strip()]
+
+    def _check_schema(self, con) -> None:
+        shipped = self.migrations()
+        latest = shipped[-1][0]
+        has = con.execute(Q.HAS_MIGRATIONS_TABLE).fetchall()[0][0]
+        applied = {r[0] for r in con.execute(Q.APPLIED_VERSIONS).fetchall()} if has else set()
+        if applied and max(applied) > latest:
+            raise ScreenlabError(f"store {self.path} has schema version {max(applied)}, newer than this "
+                                 f"screenlab understands ({latest}); upgrade screenlab")
+        pending = [m for m in shipped if m[0] not in applied]
+        if pending and self.read_only:
+            raise ScreenlabError(f"store {self.path} needs a schema upgrade (to version {latest}); "
+                                 f"open it once for writing (e.g. screenlab ingest) first")
+        for version, name, sql in pending:
+            con.begin()
+            try:
+                con.execute(Q.CREATE_MIGRATIONS)
+                for stmt in self._statements(sql):
+                    con.execute(stmt)
+                con.execute(Q.RECORD_MIGRATION, [version, name])
+                lib = con.execute(Q.LIBRARY_VERSION).fetchall()[0][0]
+                storage = con.execute(Q.STORAGE_VERSION).fetchall()[0][0]
+                from screenlab import __version__
+
+                for key, value in (("schema_version", str(version)), ("duckdb_version", str(lib)),
+                                   ("storage_version", str(storage)), ("screenlab_version", __version__),
+                                   ("storage_note", f"written by DuckDB {lib} (storage {storage}); open it with "
+                                                    f"DuckDB 2.0 or newer; copy the .duckdb and .wal files together")):
+                    con.execute(Q.UPSERT_META, [key, value])
+                con.commit()
+            except BaseException:
+                con.rollback()
+                raise
+        self._schema_ok = True
+
+    # -- small reads ---------------------------------------------------------------------------
+
+    def metadata(self) -> dict[str, str]:
+        """The metadata table (schema_version, duckdb_version, storage_version, generation, ...)."""
+        with self._connect() as con:
+            return dict(con.execute(Q.ALL_META).fetchall())
+
+    def schema_versions(self) -> list[int]:
+        with self._connect() as con:
+            return [r[0] for r in con.execute(Q.APPLIED_VERSIONS).fetchall()]
+
+    def loaded_extensions(self) -> list[str]:
+        """Extensions loaded in a store connection (should be built-ins only)."""
+        with self._connect() as con:
+            return [r[0] for r in con.execute(Q.LOADED_EXTENSIONS).fetchall()]
+
+    def data_version(self) -> str:
+        """A token that changes on every write (for caches): the store's write generation."""
+        if not self.path.exists():
+            return "empty"
+        with self._connect() as con:
+            rows = con.execute(Q.GET_META, ["generation"]).fetchall()
+        return f"g{rows[0][0] if rows else 0}"
+
+    def campaign_names(self) -> list[str]:
+        if self.read_only and not self.path.exists():
+            return []
+        with self._connect() as con:
+            return [r[0] for r in con.execute(Q.CAMPAIGN_NAMES).fetchall()]
+
+    def campaigns(self) -> pd.DataFrame:
+        """One row per campaign (current data only): ``campaign, description, readout_kind, plates,
+        wells, readings, catalysts, analytes, imported_at, updated_at, imports`` (times UTC)."""
+        with self._connect() as con:
+            frame = con.execute(Q.CAMPAIGNS_SUMMARY).df()
+        for c in ("plates", "wells", "readings", "catalysts", "analytes", "imports"):
+            frame[c] = frame[c].astype("int64")
+        return frame
+
+    def imports(self, campaign: str | None = None) -> pd.DataFrame:
+        """The import history: ``import_id, campaign, imported_at, source, status, plates_added,
+        plates_replaced, plates_unchanged, catalysts_added, catalysts_replaced, manifest_replaced,
+        n_wells, n_readings, files, message`` (list columns joined with ", "; imported_at UTC)."""
+        with self._connect() as con:
+            frame = con.execute(Q.IMPORTS_ALL, [campaign, campaign]).df()
+        for c in ("plates_added", "plates_replaced", "plates_unchanged", "catalysts_added", "catalysts_replaced"):
+            frame[c] = frame[c].map(lambda v: ", ".join(v) if v is not None and len(v) else "").astype("str")
+        return frame
+
+    def import_files(self, campaign: str | None = None) -> pd.DataFrame:
+        """Files behind each import: ``import_id, campaign, name, sha256, n_rows``."""
+        with self._connect() as con:
+            return con.execute(Q.IMPORT_FILES, [campaign, campaign]).df()
+
+    def table_counts(self) -> dict[str, int]:
+        """Row counts of every data table, current and superseded (diagnostics, tests)."""
+        names = ("campaigns", "catalysts", "plates", "wells", "well_factors", "readings", "imports", "import_files")
+        with self._connect() as con:
+            return dict(zip(names, (int(v) for v in con.execute(Q.TABLE_COUNTS).fetchall()[0])))
+
+    # -- load ----------------------------------------------------------------------------------
+
+    def load_campaign(self, name: str) -> CampaignData:
+        """The current data of one campaign, with the columns and dtypes it was imported with."""
+        with self._connect() as con:
+            head = con.execute(Q.CURRENT_HEADER, [name]).df()
+            if head.empty:
+                known = [r[0] for r in con.execute(Q.CAMPAIGN_NAMES).fetchall()]
+                hint = f"; stored campaigns: {_names(known)}" if known else "; the store is empty"
+                raise NotFoundError(f"no campaign {name!r} in store {self.path}{hint}")
+            catalysts = con.execute(Q.CURRENT_CATALYSTS, [name]).df()
+            plates = con.execute(Q.CURRENT_PLATES, [name]).df()
+            wells = con.execute(Q.CURRENT_WELLS, [name]).df()
+            factors = con.execute(Q.CURRENT_FACTORS, [name]).df()
+            readings = con.execute(Q.CURRENT_READINGS, [name]).df()
+        h = head.iloc[0]
+        schema = json.loads(h["frame_schema_json"])
+        manifest = _manifest_from_json(h["manifest_json"])
+        factor_names = tuple(h["factor_names"]) if h["factor_names"] is not None else ()
+        if not factors.empty:
+            wide = factors.pivot(index=["import_id", "seq"], columns="factor", values="value").reset_index()
+            wide.columns.name = None
+            wells = wells.merge(wide, on=["import_id", "seq"], how="left", sort=False)
+        wells = wells.drop(columns=["import_id", "seq"])
+        return CampaignData(
+            manifest=manifest,
+            catalysts=_restore(catalysts, schema["catalysts"]),
+            plates=_restore(plates, schema["plates"]),
+            wells=_restore(wells, schema["wells"]),
+            readings=_restore(readings, schema["readings"]),
+            factor_names=factor_names,
+        )
+
+    # -- import --------------------------------------------------------------------------------
+
+    def import_campaign(self, result_or_data, files=(), *, replace: bool = False, dry_run: bool = False,
+                        source: str | None = None) -> ImportReport:
+        """Import one campaign, all or nothing (see the module docstring for the rules).
+
+        ``result_or_data`` is a reader result (with ``.data``, ``.files``, ``.source``) or a
+        :class:`CampaignData`. Raises :class:`ImportRefusedError` when stored plates, catalysts or
+        the manifest would change and ``replace`` is false (also on a dry run), and
+        :class:`~screenlab.errors.ValidationError` for frames that break the contract.
+        """
+        if isinstance(result_or_data, CampaignData):
+            data = result_or_data
+        elif hasattr(result_or_data, "data") and isinstance(result_or_data.data, CampaignData):
+            data = result_or_data.data
+            files = files or tuple(getattr(result_or_data, "files", ()) or ())
+            source = source if source is not None else str(getattr(result_or_data, "source", "") or "")
+        else:
+            raise TypeError("import_campaign expects a CampaignData or a reader result with .data")
+        if self.read_only:
+            raise ScreenlabError(f"store {self.path} is open read-only; cannot import")
+        prep = _prepare(data)
+        name = data.manifest.name
+        with self._connect() as con:
+            con.begin()
+            try:
+                report = self._import(con, data, prep, files, replace=replace, dry_run=dry_run,
+                                      source=source or "")
+                if report.import_id is None:
+                    con.rollback()
+                else:
+                    con.commit()
+            except BaseException:
+                con.rollback()
+                raise
+            if report.import_id is not None and report.n_readings >= CHECKPOINT_READINGS:
+                con.execute(Q.CHECKPOINT)
+        assert report.campaign == name and report.status in _STATUSES
+        return report
+
+    def _import(self, con, data: CampaignData, prep: _Prepared, files, *, replace: bool, dry_run: bool,
+                source: str) -> ImportReport:
+        name = data.manifest.name
+        head = con.execute(Q.CURRENT_HEADER, [name]).df()
+        new_campaign = head.empty
+        manifest_fp = _manifest_fingerprint(data.manifest)
+        fps = prep.fingerprints.assign(fp=[_fp_text(r) for r in prep.fingerprints.itertuples()])  # one per plate
+
+        # ---- campaign header: manifest, catalysts, factor names, frame schema ----
+        manifest_changed = False
+        cats_added: list[str] = []
+        cats_changed: list[str] = []
+        if new_campaign:
+            catalysts = prep.catalysts
+            factor_names = tuple(data.factor_names)
+            schema = prep.schema
+            header_needed = True
+        else:
+            h = head.iloc[0]
+            manifest_changed = h["fingerprint"] != manifest_fp
+            stored = _prepared(con.execute(Q.CURRENT_CATALYSTS, [name]).df(), CATALYST_COLS)
+            inc = prep.catalysts
+            is_new = ~inc["catalyst"].isin(stored["catalyst"]).to_numpy(dtype=bool)
+            cats_added = _plain_list(inc.loc[is_new, "catalyst"])
+            both = inc.loc[~is_new].merge(stored, on="catalyst", how="left", suffixes=("", "_old"))
+            same = np.ones(len(both), dtype=bool)
+            for c in CATALYST_COLS:
+                if c != "catalyst":
+                    same &= _equal_cells(both[c], both[c + "_old"])
+            cats_changed = _plain_list(both.loc[~same, "catalyst"])
+            # merged catalyst set: stored order (changed rows take the new values), then additions
+            merged = stored.drop(columns=["seq"], errors="ignore")
+            if replace and cats_changed:
+                upd = inc.set_index("catalyst").loc[cats_changed]
+                merged = merged.set_index("catalyst")
+                merged.loc[cats_changed, upd.columns.drop("seq", errors="ignore")] = upd.drop(
+                    columns=["seq"], errors="ignore")
+                merged = merged.reset_index()
+            catalysts = pd.concat([merged, inc.loc[is_new].drop(columns=["seq"])], ignore_index=True)
+            catalysts = _prepared(catalysts, CATALYST_COLS)
+            catalysts["seq"] = np.arange(len(catalysts), dtype=np.int64)
+            old_factors = tuple(h["factor_names"]) if h["factor_names"] is not None else ()
+            factor_names = old_factors + tuple(f for f in data.factor_names if f not in old_factors)
+            old_schema = json.loads(h["frame_schema_json"])
+            schema = {}
+            for frame_name, cols in old_schema.items():
+                have = {c for c, _ in cols}
+                schema[frame_name] = cols + [c for c in prep.schema[frame_name] if c[0] not in have]
+            header_needed = (manifest_changed and replace) or bool(cats_added) or (bool(cats_changed) and replace) \
+                or factor_names != old_factors or schema != old_schema
+
+        # ---- plates ----
+        stored_fp = con.execute(Q.CURRENT_PLATE_FINGERPRINTS, [name]).df()
+        stored_map = dict(zip(stored_fp["plate"], stored_fp["fingerprint"]))
+        added, changed, unchanged, what = [], [], [], {}
+        for row in fps.itertuples():  # one per plate
+            old = stored_map.get(row.plate)
+            if old is None:
+                added.append(row.plate)
+            elif old == row.fp:
+                unchanged.append(row.plate)
+            else:
+                changed.append(row.plate)
+                parts = old.split(":")
+                what[row.plate] = [label for label, a, b in zip(("plate row", "layout", "readings"), parts,
+                                                                 (row.fp_plate, row.fp_layout, row.fp_readings))
+                                   if a != b]
+        kept = sorted(set(stored_map) - set(fps["plate"]))
+
+        if not replace and (changed or manifest_changed or cats_changed):
+            bits = []
+            if changed:
+                detail = "; ".join(f"{p} ({', '.join(what[p])})" for p in changed[:12])
+                more = f"; and {len(changed) - 12} more" if len(changed) > 12 else ""
+                bits.append(f"plate{'s' if len(changed) > 1 else ''} {detail}{more} differ from the stored data")
+            if cats_changed:
+                bits.append(f"catalyst{'s' if len(cats_changed) > 1 else ''} {_names(cats_changed)} differ")
+            if manifest_changed:
+                bits.append("the manifest (campaign.toml) differs")
+            raise ImportRefusedError(
+                f"campaign {name!r}: {'; '.join(bits)}. Nothing was written. To store the new data as the "
+                f"current version (the old version is kept as history), import again with replace "
+                f"(screenlab ingest --replace).",
+                campaign=name, plates=tuple(changed), catalysts=tuple(cats_changed), manifest=manifest_changed)
+
+        write_plates = added + changed
+        sel_p = prep.plates["plate"].isin(write_plates).to_numpy(dtype=bool)
+        sel_w = prep.wells["plate"].isin(write_plates).to_numpy(dtype=bool)
+        sel_r = prep.readings["plate"].isin(write_plates).to_numpy(dtype=bool)
+        n_wells, n_readings = int(sel_w.sum()), int(sel_r.sum())
+
+        if new_campaign:
+            status = "imported"
+        elif not write_plates and not header_needed:
+            status = "unchanged"
+        elif changed or (manifest_changed and replace) or cats_changed:
+            status = "replaced"
+        else:
+            status = "added_plates"
+
+        message = self._message(name, status, added, changed, unchanged, kept, cats_added, cats_changed,
+                                manifest_changed and replace, n_wells, n_readings, dry_run)
+        common = dict(campaign=name, plates_added=tuple(added), plates_replaced=tuple(changed),
+                      plates_unchanged=tuple(unchanged), n_wells=n_wells, n_readings=n_readings,
+                      catalysts_added=tuple(cats_added), catalysts_replaced=tuple(cats_changed),
+                      manifest_replaced=bool(manifest_changed and replace), plates_kept=tuple(kept))
+        if dry_run:
+            return ImportReport(status="dry_run", message=message, import_id=None, **common)
+        if status == "unchanged":
+            return ImportReport(status=status, message=message, import_id=None, **common)
+
+        import_id = int(con.execute(Q.NEXT_IMPORT_ID).fetchall()[0][0])
+        now = datetime.now(timezone.utc).replace(tzinfo=None)
+        tag = {"campaign": name, "import_id": import_id}
+
+        if header_needed:
+            m = data.manifest
+            con.execute(Q.SUPERSEDE_HEADER, [import_id, name])
+            con.execute(Q.INSERT_HEADER, [
+                name, import_id, manifest_fp, m.description, m.reaction, m.readout_kind, m.readout_scale,
+                m.product_per_substrate, m.epsilon_M_cm, m.path_length_cm, m.time_unit, m.concentration_unit,
+                m.volume_unit, m.analyte_main, list(m.byproducts), None if m.enantiomers is None else list(m.enantiomers),
+                json.dumps(m.analysis, default=str), json.dumps(_manifest_dict(m)), m.source_toml,
+                list(factor_names), json.dumps(schema)])
+            _bulk_insert(con, "catalysts", catalysts.assign(**tag))
+        if changed:
+            names = pd.DataFrame({"plate": pd.array(changed, dtype="string")})
+            con.register("incoming_plate_names", names)
+            try:
+                con.execute(Q.SUPERSEDE_PLATES, [import_id, name])
+            finally:
+                con.unregister("incoming_plate_names")
+        plates = prep.plates.loc[sel_p].merge(fps[["plate", "fp"]], on="plate", how="left").rename(
+            columns={"fp": "fingerprint"})
+        _bulk_insert(con, "plates", plates.assign(**tag))
+        _bulk_insert(con, "wells", prep.wells.loc[sel_w].assign(**tag))
+        _bulk_insert(con, "well_factors",
+                     prep.factors.loc[prep.factors["plate"].isin(write_plates).to_numpy(dtype=bool)].assign(**tag))
+        _bulk_insert(con, "readings", prep.readings.loc[sel_r].assign(**tag))
+        from screenlab import __version__
+
+        lib = con.execute(Q.LIBRARY_VERSION).fetchall()[0][0]
+        con.execute(Q.INSERT_IMPORT, [
+            import_id, name, now, source, status, added, changed, unchanged, cats_added, cats_changed,
+            bool(manifest_changed and replace), n_wells, n_readings, message, __version__, str(lib)])
+        _bulk_insert(con, "import_files", _files_frame(files, import_id))
+        con.execute(Q.BUMP_GENERATION)
+        return ImportReport(status=status, message=message, import_id=import_id, **common)
+
+    @staticmethod
+    def _message(name, status, added, changed, unchanged, kept, cats_added, cats_changed, manifest_replaced,
+                 n_wells, n_readings, dry_run) -> str:
+        def plates(ps):
+            return f"{len(ps)} plate{'s' if len(ps) != 1 else ''} ({_names(ps)})"
+
+        counts = f"{n_wells:,} wells, {n_readings:,} readings"
+        if status == "unchanged":
+            text = f"{name}: unchanged, nothing to import ({plates(unchanged)} already stored)"
+        else:
+            parts = []
+            if status == "imported":
+                parts.append(f"new campaign with {plates(added)}")
+            else:
+                if added:
+                    parts.append(f"added {plates(added)}")
+                if changed:
+                    parts.append(f"replaced {plates(changed)} (old version kept as history)")
+                if unchanged:
+                    parts.append(f"{len(unchanged)} unchanged")
+            if cats_added and status != "imported":
+                parts.append(f"added catalyst{'s' if len(cats_added) != 1 else ''} {_names(cats_added)}")
+            if cats_changed:
+                parts.append(f"replaced catalyst{'s' if len(cats_changed) != 1 else ''} {_names(cats_changed)}")
+            if manifest_replaced:
+                parts.append("replaced the manifest")
+            text = f"{name}: " + "; ".join(parts) + f" [{counts}]"
+        if kept:
+            text += f"; {len(kept)} stored plate{'s' if len(kept) != 1 else ''} not in this import left as they are"
+        if dry_run:
+            text = "dry run, nothing written: " + text.replace(f"{name}: ", f"{name}: would be ", 1) \
+                if status != "unchanged" else "dry run: " + text
+        return text
+
+
+def _bulk_insert(con, table: str, frame: pd.DataFrame) -> None:
+    """INSERT ... SELECT from a registered DataFrame (one statement per table, never row by row)."""
+    if frame.empty:
+        return
+    view = f"incoming_{table}"
+    con.register(view, frame)
+    try:
+        con.execute(Q.BULK_INSERT[table])
+    finally:
+        con.unregister(view)
