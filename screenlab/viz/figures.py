@@ -366,3 +366,34 @@ def control_chart(points: pd.DataFrame, *, x: str, y: str, y_label: str, centre:
     fig.update_xaxes(title=x_label, type="category")
     fig.update_yaxes(title=y_label)
     return _layout(fig, title, height=380)
+
+
+def fitted_course(well: pd.Series, *, t_end_h: float, n: int = 60) -> tuple[pd.DataFrame, str]:
+    """The fitted curve of one well from its ``well_rates`` parameters, and a label for it.
+
+    ``initial_slope``: intercept + rate x t over the fitted window (``window_end_h`` when given,
+    else the whole course); ``first_order``: plateau x (1 - exp(-k t)); ``end_point``: the
+    straight line from the origin to the end-point reading. Only evaluates the core's fit.
+    """
+    from screenlab.kinetics import models
+
+    method = str(well.get("method", ""))
+    rate = float(well.get("rate_mM_per_h", np.nan))
+    if method == "initial_slope":
+        t1 = float(well.get("window_end_h", np.nan))
+        t1 = t1 if np.isfinite(t1) and t1 > 0 else t_end_h
+        t = np.linspace(0.0, t1, 2)
+        b0 = float(well.get("intercept_mM", np.nan))
+        y = (b0 if np.isfinite(b0) else 0.0) + rate * t
+        return pd.DataFrame({"time_h": t, "product_mM": y}), f"initial slope: {_fmt(rate)} mM h⁻¹"
+    if method == "first_order":
+        b1 = float(well.get("plateau_mM", np.nan))
+        k = float(well.get("k_per_h", np.nan))
+        t = np.linspace(0.0, t_end_h, n)
+        y = np.asarray(models.first_order(t, b1, k), dtype=float)
+        return (pd.DataFrame({"time_h": t, "product_mM": y}),
+                f"first-order fit: P∞ = {_fmt(b1)} mM, k = {_fmt(k)} h⁻¹, initial rate {_fmt(rate)} mM h⁻¹")
+    if method == "end_point":
+        t = np.array([0.0, float(well.get("last_time_h", t_end_h))])
+        return pd.DataFrame({"time_h": t, "product_mM": rate * t}), f"end-point average rate: {_fmt(rate)} mM h⁻¹"
+    return pd.DataFrame(columns=["time_h", "product_mM"]), "no rate"

@@ -1,0 +1,71 @@
+"""Plate quality: Z' per plate, the benchmark's control chart, edge maps (B-scores)."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from screenlab.app import cache, widgets
+from screenlab.viz import figures
+
+ctx = widgets.context()
+st.title("Plate quality")
+if not widgets.need_campaign(ctx):
+    st.stop()
+
+a = ctx.analysis()
+q, data = a.quality, a.data
+thr = ctx.settings.zprime_min
+
+st.subheader("Z' per plate")
+st.caption(f"Z' = 1 - 3(SD benchmark + SD blank) / |mean benchmark - mean blank| on initial rates "
+           f"(Zhang, Chung & Oldenburg 1999). Plates below {thr:g} are flagged, below 0 failed.")
+if q["zprime"].notna().any():
+    widgets.chart(figures.zprime_bars(q.rename(columns={"zprime": "z_prime"}), threshold=thr), key="quality_zprime",
+                  filename="zprime")
+else:
+    st.info("No plate has two or more usable benchmark and blank wells, so no Z' can be computed.")
+widgets.table(q, key="quality_table", columns=[
+    "plate", "format", "temperature_c", "status", "zprime", "signal_window", "n_sample", "n_reference", "n_blank",
+    "reference_mean_mM_per_h", "blank_mean_mM_per_h", "replicate_cv_median_pct", "reference_cv_pct",
+    "blank_ratio", "blank_z", "edge_p", "edge_shift_mad", "bscore_max_abs", "reference_loo_z", "flags"])
+widgets.flag_glossary(q["flags"])
+
+st.subheader("Benchmark control chart")
+cc = a.control
+if cc is None or cc.empty:
+    st.info("This campaign has no benchmark (reference) wells.")
+else:
+    for cat, g in cc.groupby("catalyst", sort=True):  # one chart per benchmark catalyst
+        g = g.reset_index(drop=True)
+        out = g["flags"].astype(str).str.contains("reference_out_of_limits")
+        basis = "its Arrhenius line" if (g["basis"] == "arrhenius").all() else "the mean at the same temperature"
+        st.markdown(f"**{cat}**: ln(value on the plate / expected from {basis}); "
+                    "centre and ±3 SD limits over all plates, flags from leave-one-out limits.")
+        fig = figures.control_chart(g.assign(out=out), x="plate", y="log_ratio", out_col="out",
+                                    y_label=f"ln(observed / expected) ({g['value_unit'].iloc[0]} basis)",
+                                    centre=float(g["centre"].iloc[0]), lower=float(g["lower"].iloc[0]),
+                                    upper=float(g["upper"].iloc[0]))
+        widgets.chart(fig, key=f"quality_cc_{cat}", filename=f"control-chart-{cat}")
+    widgets.table(cc, key="quality_cc_table", columns=["plate", "run_date", "catalyst", "temperature_c", "n_wells",
+                                                        "value", "value_unit", "expected", "log_ratio", "loo_z", "flags"])
+
+st.subheader("Edge map")
+plates = data.plates["plate"].astype(str).tolist()
+c1, c2 = st.columns(2)
+plate = c1.selectbox("Plate", plates, key="quality_plate")
+value = c2.radio("B-score of", ["rate", "conversion"], horizontal=True, key="quality_bvalue",
+                 format_func=lambda v: {"rate": "initial rate", "conversion": "final conversion"}[v])
+bw = cache.well_bscores(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, value)
+bp = bw[bw["plate"].astype(str) == plate]
+info = data.plates[data.plates["plate"].astype(str) == plate].iloc[0]
+if np.isfinite(pd.to_numeric(bp["bscore"], errors="coerce")).any():
+    widgets.chart(figures.plate_heatmap(bp, "bscore", n_rows=int(info["n_rows"]), n_cols=int(info["n_cols"]),
+                                        signed=True, title=f"{plate}: B-score of sample wells"),
+                  key="quality_edge", filename=f"bscore-{plate}")
+    row = q[q["plate"].astype(str) == plate].iloc[0]
+    st.caption(f"B-score = median-polish residual / (1.4826 x MAD) (Brideau et al. 2003). Edge against interior "
+               f"(Mann-Whitney U): p = {widgets.fmt(row['edge_p'], 2)}, shift = "
+               f"{widgets.fmt(row['edge_shift_mad'], 2)} robust SD. Blank, benchmark and empty wells have no B-score.")
+else:
+    st.info("No B-scores on this plate (too few sample wells with a value, or the residual MAD is zero).")

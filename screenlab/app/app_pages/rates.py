@@ -1,0 +1,90 @@
+"""Rates: the catalyst x temperature table with filters, and replicate time courses overlaid."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from screenlab.app import widgets
+from screenlab.viz import figures
+
+ctx = widgets.context()
+st.title("Rates")
+if not widgets.need_campaign(ctx):
+    st.stop()
+
+a = ctx.analysis()
+data, kin = a.data, a.kinetics
+rates = kin.rates.merge(data.catalysts[["catalyst", "family"]].astype({"catalyst": str}),
+                        how="left", on="catalyst") if "family" in data.catalysts else kin.rates.assign(family=pd.NA)
+factors = [f for f in data.factor_names if f in rates]
+
+with st.container(border=True):
+    cols = st.columns(4)
+    fams = sorted(rates["family"].dropna().astype(str).unique())
+    fam_pick = cols[0].multiselect("Family", fams, key="rates_family", placeholder="all families")
+    temps = sorted(rates["temperature_c"].dropna().unique())
+    t_pick = cols[1].multiselect("Temperature / °C", temps, key="rates_temps", format_func=lambda t: f"{t:g}",
+                                 placeholder="all temperatures")
+    cats = sorted(rates["catalyst"].dropna().astype(str).unique())
+    c_pick = cols[2].multiselect("Catalyst", cats, key="rates_catalysts", placeholder="all catalysts")
+    std_only = cols[3].toggle("Standard condition only", value=False, key="rates_standard",
+                              help="Each catalyst's most-used loading, substrate concentration and factor levels "
+                                   "(what the Arrhenius fit and the ranking use). Off: loading and "
+                                   "concentration series too.")
+    f_pick = {}
+    if factors:
+        fcols = st.columns(min(len(factors), 4))
+        for i, f in enumerate(factors):
+            levels = sorted(rates[f].dropna().astype(str).unique())
+            f_pick[f] = fcols[i % len(fcols)].multiselect(f, levels, key=f"rates_factor_{f}", placeholder=f"all {f}")
+
+mask = pd.Series(True, index=rates.index)
+if fam_pick:
+    mask &= rates["family"].astype(str).isin(fam_pick)
+if t_pick:
+    mask &= rates["temperature_c"].isin(t_pick)
+if c_pick:
+    mask &= rates["catalyst"].astype(str).isin(c_pick)
+if std_only:
+    mask &= rates["is_standard"].fillna(False).astype(bool)
+for f, levels in f_pick.items():
+    if levels:
+        mask &= rates[f].astype(str).isin(levels)
+view = rates[mask]
+
+st.caption(f"{len(view)} of {len(rates)} catalyst x temperature x condition rows. TOF in h⁻¹ "
+           f"(initial TOF from blank-corrected initial rates); intervals at {ctx.settings.confidence * 100:g} %.")
+show = ["catalyst", "family", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", *factors,
+        "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton",
+        "enhancement", "enhancement_ci_low", "enhancement_ci_high", "is_standard", "plates", "flags"]
+sel = widgets.table(view.reset_index(drop=True), key="rates_table", columns=show, on_select="rerun",
+                    selection_mode="single-row", height=420)
+widgets.flag_glossary(view["flags"])
+
+st.subheader("Replicate time courses")
+rows = sel.selection.rows if sel is not None and hasattr(sel, "selection") else []
+choice = view.reset_index(drop=True).iloc[rows[0]] if rows else (view.iloc[0] if len(view) else None)
+if choice is None:
+    st.info("No rows match the filters.")
+    st.stop()
+
+label_of = lambda r: f"{r['catalyst']} at {r['temperature_c']:g} °C"  # noqa: E731
+st.markdown(f"**{label_of(choice)}**, loading {choice['loading']:g} {choice['loading_unit']}, "
+            f"substrate {choice['substrate_conc_mM']:g} mM" + (" (select a row above to change)" if not rows else ""))
+w = kin.wells
+cond = ["catalyst", "loading", "loading_unit", "substrate_conc_mM", *factors]
+wm = np.isclose(pd.to_numeric(w["temperature_c"], errors="coerce"), float(choice["temperature_c"]), atol=1e-6)
+for c in cond:
+    wm &= (w[c].astype(str) == str(choice[c])).to_numpy()
+members = w[wm][["plate", "well", "rate_mM_per_h", "tof_per_h", "method", "outlier", "flags"]]
+pts = kin.amounts.merge(members[["plate", "well"]], on=["plate", "well"])
+if "analyte" in pts:
+    pts = pts[pts["analyte"].astype(str) == data.manifest.analyte_main]
+pts = pts.assign(label=pts["plate"].astype(str) + " " + pts["well"].astype(str))
+if pts.empty:
+    st.info("These wells have no readings.")
+else:
+    widgets.chart(figures.replicate_courses(pts, y_col="product_mM", y_label="product / mM"),
+                  key="rates_courses", filename=f"{choice['catalyst']}-courses")
+    widgets.table(members.reset_index(drop=True), key="rates_members")

@@ -1,0 +1,44 @@
+"""ScreenLab browser app: the entrypoint (router and shared sidebar; no computation here).
+
+Started by ``screenlab app [--store PATH] [--read-only]`` / ``screenlab demo``; see
+:mod:`screenlab.app.runtime` for how the store path arrives.
+"""
+from __future__ import annotations
+
+# numpy and pandas first, in the main thread, before any DuckDB result is fetched
+import numpy  # noqa: F401
+import pandas  # noqa: F401
+import streamlit as st
+
+from screenlab.app import runtime, widgets
+from screenlab.errors import ScreenlabError
+
+
+def pages(read_only: bool) -> dict[str, list]:
+    """The page list; the Import page exists only when the store may be written."""
+    p = lambda name, title, icon, **kw: st.Page(f"app_pages/{name}.py", title=title, icon=f":material/{icon}:", **kw)  # noqa: E731
+    campaign = [p("campaigns", "Campaigns", "dashboard", default=True)]
+    if not read_only:
+        campaign.append(p("import_data", "Import", "upload"))
+    return {
+        "Campaign": campaign,
+        "Kinetics": [p("plate_map", "Plate map", "grid_on"), p("rates", "Rates", "table_chart"),
+                     p("temperature", "Temperature series", "thermostat")],
+        "Decide": [p("ranking", "Ranking", "leaderboard"), p("quality", "Plate quality", "verified"),
+                   p("shortlist", "Shortlist", "checklist")],
+    }
+
+
+def run() -> None:
+    st.set_page_config(page_title="ScreenLab", page_icon=":material/science:", layout="wide")
+    cfg = runtime.config()
+    nav = st.navigation(pages(cfg.read_only), position="sidebar")
+    try:
+        widgets.build_context(cfg)
+    except ScreenlabError as exc:
+        st.error(f"The store could not be read: {exc}")
+        st.stop()
+    nav.run()
+
+
+run()
