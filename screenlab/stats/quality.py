@@ -65,6 +65,8 @@ EDGE_MIN_WELLS = 4
 CV_MAX_PCT = 20.0
 #: |z| above which a plate's blank is off the campaign's blank Arrhenius line
 BLANK_Z_MAX = 3.0
+#: two-sided tail probability of Shewhart 3-sigma limits, 2 (1 - Phi(3))
+SHEWHART_TAIL = 0.0026997960632601866
 #: consistency constant of the MAD for normal data, 1 / Phi^-1(3/4) (R's mad() default)
 MAD_NORMAL = 1.4826
 UNCATALYSED = "(uncatalysed)"
@@ -265,15 +267,18 @@ def control_chart(kin, data=None) -> pd.DataFrame:
     With a handful of plates a bad plate inflates the SD it is judged by (with n points, no
     point can lie more than (n-1)/sqrt(n) sample SDs from their mean: under 3 for n <= 10), so
     the flag ``reference_out_of_limits`` uses leave-one-out limits: the plate against the mean
-    and SD of the *other* plates (``loo_z``; needs at least 3 other plates' worth of spread,
-    i.e. 4 plates). TOF is used when the benchmark wells have one, else the rate in mM/h.
+    ``m_o`` and SD ``s_o`` of the *other* plates as a new observation,
+    ``loo_t = (x - m_o) / (s_o sqrt(1 + 1/n_o))``, flagged when |loo_t| exceeds the Student t
+    quantile with the 3-sigma tail rate (two-sided 0.27 %, the Shewhart false-alarm rate) on
+    the others' degrees of freedom (``loo_limit``; needs at least 4 plates). TOF is used when
+    the benchmark wells have one, else the rate in mM/h.
 
     Columns: ``plate, run_date, catalyst, temperature_c, n_wells, value, value_unit,
-    expected, log_ratio, centre, lower, upper, lower_tof_per_h, upper_tof_per_h, loo_z, basis,
-    flags`` (``value``/``expected`` in ``value_unit``: h-1 for TOF, mM/h for rate).
+    expected, log_ratio, centre, lower, upper, lower_tof_per_h, upper_tof_per_h, loo_t,
+    loo_limit, basis, flags`` (``value``/``expected`` in ``value_unit``: h-1 for TOF, mM/h for rate).
     """
     cols = ["plate", "run_date", "catalyst", "temperature_c", "n_wells", "value", "value_unit", "expected",
-            "log_ratio", "centre", "lower", "upper", "lower_tof_per_h", "upper_tof_per_h", "loo_z", "basis", "flags"]
+            "log_ratio", "centre", "lower", "upper", "lower_tof_per_h", "upper_tof_per_h", "loo_t", "loo_limit", "basis", "flags"]
     w = kin.wells
     ref = w[w["role"].astype(str) == "reference"]
     if ref.empty:
@@ -315,7 +320,8 @@ def control_chart(kin, data=None) -> pd.DataFrame:
         loo_dof = m - n_groups
         with np.errstate(invalid="ignore", divide="ignore"):
             loo_var = (s2 - x * x - m * loo_mean ** 2) / loo_dof if loo_dof >= 2 else np.full_like(x, np.nan)
-            g["loo_z"] = (x - loo_mean) / np.sqrt(np.where(loo_var > 0, loo_var, np.nan))
+            g["loo_t"] = (x - loo_mean) / np.sqrt(np.where(loo_var > 0, loo_var, np.nan) * (1 + 1 / max(m, 1)))
+        g["loo_limit"] = _st.t.ppf(1 - SHEWHART_TAIL / 2, loo_dof) if loo_dof >= 2 else np.nan
         g["expected"] = np.exp(g["_lnexp"])
         g["lower_tof_per_h"] = g["expected"] * np.exp(g["lower"])
         g["upper_tof_per_h"] = g["expected"] * np.exp(g["upper"])
@@ -324,7 +330,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
     res["value_unit"] = "h-1" if use_tof else "mM/h"
     if not use_tof:
         res[["lower_tof_per_h", "upper_tof_per_h"]] = np.nan
-    res["flags"] = np.where(np.abs(res["loo_z"]) > 3.0, "reference_out_of_limits", "")
+    res["flags"] = np.where(np.abs(res["loo_t"]) > res["loo_limit"], "reference_out_of_limits", "")
     if data is not None and "run_date" in data.plates:
         rd = data.plates.drop_duplicates("plate").set_index("plate")["run_date"]
         res["run_date"] = res["plate"].map(rd)
@@ -348,7 +354,7 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     temperature on a gradient plate), ``edge_basis`` (replicates | bscore | '' when untested),
     ``edge_n, interior_n``, ``edge_shift_pct`` (replicates basis: how much higher ring wells
     run than their interior replicates, median, percent), ``edge_p`` (Mann-Whitney U),
-    ``bscore_max_abs``, ``reference_loo_z`` (control chart), ``status`` (ok | flagged | failed)
+    ``bscore_max_abs``, ``reference_loo_t`` (control chart), ``status`` (ok | flagged | failed)
     and ``flags`` (see :data:`FLAGS`).
     """
     from screenlab.settings import AnalysisSettings
@@ -456,11 +462,13 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     # control chart of the benchmark
     cc = control_chart(kin, data)
     if len(cc):
-        worst = cc.assign(_a=cc["loo_z"].abs().fillna(-1), plate=cc["plate"].astype(str)).sort_values("_a")
-        worst = worst.drop_duplicates("plate", keep="last").set_index("plate")
-        out["reference_loo_z"] = worst["loo_z"].reindex(out.index)
+        worst = cc.assign(_a=(cc["loo_t"].abs() / cc["loo_limit"]).fillna(-1), plate=cc["plate"].astype(str))
+        worst = worst.sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")
+        out["reference_loo_t"] = worst["loo_t"].reindex(out.index)
+        out_of_limits = worst["flags"].reindex(out.index).fillna("").str.contains("reference_out_of_limits")
     else:
-        out["reference_loo_z"] = np.nan
+        out["reference_loo_t"] = np.nan
+        out_of_limits = pd.Series(False, index=out.index)
 
     zp = out["zprime"]
     no_ctrl = ~enough
@@ -472,7 +480,7 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     fl["edge_effect"] = out["edge_p"] < EDGE_ALPHA
     fl["high_cv"] = out["replicate_cv_median_pct"] > CV_MAX_PCT
     fl["blank_off_trend"] = out["blank_z"].abs() > BLANK_Z_MAX
-    fl["reference_out_of_limits"] = out["reference_loo_z"].abs() > 3.0
+    fl["reference_out_of_limits"] = out_of_limits
     fl["bscore_undefined"] = mad_zero
     codes = np.array(fl.columns)
     m = fl.fillna(False).to_numpy(dtype=bool)
@@ -483,7 +491,7 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         "reference_mean_mM_per_h", "reference_sd_mM_per_h", "blank_mean_mM_per_h", "blank_sd_mM_per_h",
         "zprime", "signal_window", "n_replicate_groups", "replicate_cv_median_pct", "reference_cv_pct",
         "blank_expected_mM_per_h", "blank_ratio", "blank_z", "edge_basis", "edge_n", "interior_n", "edge_shift_pct",
-        "edge_p", "bscore_max_abs", "reference_loo_z", "status", "flags"]]
+        "edge_p", "bscore_max_abs", "reference_loo_t", "status", "flags"]]
 
 
 __all__ = ["FLAGS", "zprime", "z_factor", "median_polish", "bscores", "well_bscores", "predict_ln",
