@@ -391,6 +391,9 @@ class Store:
     def __repr__(self) -> str:
         return f"Store({str(self.path)!r}, read_only={self.read_only})"
 
+    def close(self) -> None:
+        """Nothing to release: every method closes its own connection (kept for callers that close)."""
+
     # -- connections ---------------------------------------------------------------------------
 
     def _open(self) -> duckdb.DuckDBPyConnection:
