@@ -231,25 +231,18 @@ def well_bscores(kin, data, *, value: str = "rate", mad_scale: float = MAD_NORMA
 
 # --------------------------------------------------------------------------- Arrhenius prediction
 def predict_ln(arr: pd.DataFrame, catalyst: str, temperature_c) -> tuple[np.ndarray, np.ndarray]:
-    """ln of the Arrhenius prediction and its SE for one catalyst row at temperatures (degC).
+    """ln of one catalyst's Arrhenius prediction and its SE at temperatures (degC), via
+    :func:`screenlab.kinetics.arrhenius.predict_tof`; NaN when the catalyst has no fitted row."""
+    from screenlab.kinetics.arrhenius import predict_tof
 
-    Uses the fit columns of the Arrhenius table: ``ln y = fit_intercept + fit_slope_k / T``
-    (T in kelvin) with the covariance ``cov_ii, cov_is, cov_ss`` of (intercept, slope).
-    NaN when the catalyst has no fitted row.
-    """
     t = np.atleast_1d(np.asarray(temperature_c, dtype=float))
-    nan = np.full(t.shape, np.nan)
     if arr is None or arr.empty or "catalyst" not in arr:
-        return nan, nan
-    row = arr[arr["catalyst"].astype(str) == catalyst]
-    need = ["fit_intercept", "fit_slope_k", "cov_ii", "cov_is", "cov_ss"]
-    if row.empty or any(c not in row for c in need):
-        return nan, nan
-    b0, b1, vii, vis, vss = (float(row[c].iloc[0]) for c in need)
-    x = 1.0 / (t + 273.15)
-    ln_y = b0 + b1 * x
-    var = vii + 2.0 * x * vis + x * x * vss
-    return ln_y, np.sqrt(np.where(var >= 0, var, np.nan))
+        return np.full(t.shape, np.nan), np.full(t.shape, np.nan)
+    row = arr[arr["catalyst"].astype(str) == catalyst].head(1)
+    if row.empty:
+        return np.full(t.shape, np.nan), np.full(t.shape, np.nan)
+    p = predict_tof(row, t)
+    return np.log(p["tof_per_h"].to_numpy(dtype=float)), p["ln_tof_se"].to_numpy(dtype=float)
 
 
 # --------------------------------------------------------------------------- control chart
