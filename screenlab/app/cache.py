@@ -2,8 +2,8 @@
 
 Store access is short-lived: each read opens the store, fetches everything into frames and
 closes it again, so ``screenlab ingest`` can write to the same file while the app is open
-(DuckDB lets one process write *or* many read, never both at once). The open is retried a few
-times when the file is momentarily held by another process.
+(DuckDB lets one process write *or* many read, never both at once). ``Store`` retries an open
+while the file is momentarily held by another process.
 
 Everything derived from the data is cached with ``st.cache_data`` keyed by
 ``(store path, store.data_version(), campaign, settings, ...)``. The data version changes on
@@ -12,7 +12,6 @@ stop being asked for (``max_entries`` bounds them).
 """
 from __future__ import annotations
 
-import time
 from contextlib import contextmanager
 from dataclasses import fields
 from typing import Any, Iterator
@@ -20,13 +19,7 @@ from typing import Any, Iterator
 import pandas as pd
 import streamlit as st
 
-from screenlab.errors import StoreBusyError
 from screenlab.settings import AnalysisSettings
-
-#: how often and how long to retry an open while another process holds the store
-OPEN_RETRIES = 5
-OPEN_WAIT_S = 0.2
-
 
 def settings_key(settings: AnalysisSettings) -> tuple:
     """A hashable, order-stable key of a settings object."""
@@ -39,24 +32,17 @@ def settings_from_key(key: tuple) -> AnalysisSettings:
 
 @contextmanager
 def open_store(path: str, read_only: bool) -> Iterator[Any]:
-    """Open the store for one action, retrying briefly while another process holds the file."""
+    """A store object for one action. ``Store`` opens a short connection per method and itself
+    waits (``busy_timeout_s``) while another process holds the file, then raises
+    :class:`StoreBusyError`; nothing stays open between reruns."""
     from screenlab.store import Store
 
-    last: Exception | None = None
-    for attempt in range(OPEN_RETRIES):
-        try:
-            store = Store(path, read_only=read_only)
-            break
-        except StoreBusyError as exc:
-            last = exc
-            time.sleep(OPEN_WAIT_S * (attempt + 1))
-    else:
-        raise last  # type: ignore[misc]
+    store = Store(path, read_only=read_only)
     try:
         yield store
     finally:
         close = getattr(store, "close", None)
-        if close is not None:
+        if callable(close):
             close()
 
 

@@ -20,3 +20,18 @@ def flag_counts(sources: dict[str, pd.Series]) -> pd.DataFrame:
     if not parts:
         return pd.DataFrame(columns=["level", "flag", "rows"])
     return pd.concat(parts, ignore_index=True)
+
+
+def best_candidates(ctx, analysis, n: int = 5) -> None:
+    """The top of the default ranking (TOF at the reference temperature), with intervals."""
+    from screenlab.stats.ranking import DEFAULT_METRIC
+
+    r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, DEFAULT_METRIC,
+                      None, 3)
+    ranked = r[r["rank"].notna()].head(n)
+    if ranked.empty:
+        st.info("No candidate can be ranked yet.")
+        return
+    widgets.table(ranked, key="campaigns_best", columns=["rank", "catalyst", "estimate", "ci_low", "ci_high",
+                                                         "rank_low", "rank_high", "p_best", "flags"])
+    st.page_link("app_pages/ranking.py", label="Full ranking", icon=":material/leaderboard:")

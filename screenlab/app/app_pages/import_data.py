@@ -32,12 +32,18 @@ def _problems_frame(err: ValidationError) -> pd.DataFrame:
         {"row": "Int64"})
 
 
-def _report_lines(report) -> list[str]:
-    """An ImportReport as plain lines (whatever fields it has)."""
-    d = report if isinstance(report, dict) else getattr(report, "__dict__", {}) or {}
-    if hasattr(report, "__dataclass_fields__"):
-        d = {k: getattr(report, k) for k in report.__dataclass_fields__}
-    return [f"- **{k.replace('_', ' ')}**: {v}" for k, v in d.items() if not isinstance(v, (pd.DataFrame, list, dict))]
+def _report_lines(report) -> str:
+    """An ImportReport in a few plain lines."""
+    lines = [f"**{report.campaign}**: {report.status.replace('_', ' ')}"]
+    if report.message:
+        lines.append(report.message)
+    for label, items in (("plates added", report.plates_added), ("plates replaced", report.plates_replaced),
+                         ("plates unchanged", report.plates_unchanged), ("catalysts added", report.catalysts_added),
+                         ("catalysts replaced", report.catalysts_replaced)):
+        if items:
+            lines.append(f"{label}: {', '.join(map(str, items))}")
+    lines.append(f"{report.n_wells} wells, {report.n_readings} readings")
+    return "\n\n".join(lines)
 
 
 if uploads:
@@ -81,7 +87,7 @@ if uploads:
         try:
             with cache.open_store(ctx.path, False) as s:
                 dry = s.import_campaign(result, replace=replace, dry_run=True)
-            st.markdown("**What the import would do:**\n" + "\n".join(_report_lines(dry)))
+            st.markdown("**What the import would do:**\n\n" + _report_lines(dry))
             can_commit = True
         except ScreenlabError as exc:
             st.error(str(exc))
@@ -99,7 +105,7 @@ if uploads:
                     cache.clear()
                     bar.progress(100, text="done")
                     status.update(label="Import complete", state="complete")
-                    st.markdown("\n".join(_report_lines(report)))
+                    st.markdown(_report_lines(report))
                     st.session_state["import_done"] = digest
                 except StoreBusyError as exc:
                     status.update(label="The store is busy", state="error")

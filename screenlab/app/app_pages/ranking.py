@@ -1,0 +1,61 @@
+"""Ranking: estimate and interval per candidate, rank intervals, P(top K), and the Pareto view."""
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from screenlab.app import cache, widgets
+from screenlab.app.app_pages import _common
+from screenlab.viz import figures
+
+ctx = widgets.context()
+st.title("Ranking")
+if not widgets.need_campaign(ctx):
+    st.stop()
+
+a = ctx.analysis()
+metrics = _common.metric_choices()
+temps = sorted(pd.to_numeric(a.kinetics.rates["temperature_c"], errors="coerce").dropna().unique())
+c1, c2, c3 = st.columns([3, 2, 1])
+metric = c1.selectbox("Rank by", list(metrics), format_func=lambda m: metrics[m]["label"], key="rank_metric")
+needs_t = metrics[metric]["per_temperature"]
+temperature = None
+if needs_t:
+    t_opts = [None, *temps]
+    temperature = c2.selectbox(
+        "Temperature / °C", t_opts, key="rank_temperature",
+        format_func=lambda t: f"reference {ctx.settings.reference_temperature_c:g} (from the Arrhenius fit)"
+        if t is None else f"{t:g} (measured)")
+else:
+    c2.caption("This metric does not depend on a temperature.")
+n_cands = int(a.kinetics.rates["catalyst"].nunique())
+k = int(c3.number_input("K (top)", min_value=1, max_value=max(1, n_cands), value=min(3, max(1, n_cands)), step=1,
+                        key="rank_k"))
+
+r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric, temperature, k)
+ranked = r[r["rank"].notna()]
+label = metrics[metric]["axis"]
+st.caption(f"Intervals at {ctx.settings.confidence * 100:g} %. Rank interval and P(top {k}) from the estimates' "
+           "uncertainty; 1 = best. " + metrics[metric].get("help", ""))
+if ranked.empty:
+    st.info("No candidate can be ranked on this metric.")
+else:
+    left, right = st.columns([3, 2])
+    with left:
+        widgets.chart(figures.forest_plot(ranked, label=label, log_x=metrics[metric]["log"],
+                                          title=f"{metrics[metric]['label']}"),
+                      key="rank_forest", filename=f"forest-{metric}")
+    with right:
+        tab1, tab2 = st.tabs(["Rank intervals", f"P(top {k})"])
+        with tab1:
+            widgets.chart(figures.rank_intervals(ranked), key="rank_intervals", filename=f"rank-intervals-{metric}")
+        with tab2:
+            widgets.chart(figures.p_top_bars(ranked, k=k), key="rank_ptop", filename=f"p-top-{metric}")
+st.subheader("Table")
+widgets.table(r, key="rank_table", columns=["rank", "catalyst", "estimate", "ci_low", "ci_high", "rank_low",
+                                             "rank_high", "p_top", "p_best", "n", "reason", "flags"])
+st.session_state["rank_last"] = {"metric": metric, "temperature": temperature, "k": k}
+widgets.flag_glossary(r["flags"])
+
+st.subheader("Pareto view")
+_common.pareto_section(ctx, a, temperature)
