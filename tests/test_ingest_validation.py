@@ -1,0 +1,457 @@
+"""One test per validation message of screenlab.ingest (each names file, row, column).
+
+Campaigns are built in memory from the synthetic good campaign of test_ingest_support and fed
+to read_campaign as an upload dict (file name -> bytes), the same path the app uses.
+"""
+from __future__ import annotations
+
+import re
+
+import pytest
+
+from screenlab.errors import ValidationError
+from screenlab.ingest import read_campaign
+from test_ingest_support import GOOD_CATALYSTS, GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, good_files, good_readings
+
+
+def files(**edits) -> dict[str, bytes]:
+    content = good_files()
+    for key, val in edits.items():
+        name = key.replace("_csv", ".csv").replace("_xlsx", ".xlsx").replace("_toml", ".toml")
+        if val is None:
+            content.pop(name, None)
+        else:
+            content[name] = val
+    return {k: (v if isinstance(v, bytes) else v.encode()) for k, v in content.items()}
+
+
+def problems(**edits):
+    with pytest.raises(ValidationError) as ei:
+        read_campaign(files(**edits))
+    return ei.value.problems
+
+
+def find(probs, file, message, *, row="any", column="any"):
+    """The problems of ``file`` whose message matches the regex ``message`` (and row/column if given)."""
+    hits = [p for p in probs if p.file == file and re.search(message, p.message)
+            and (row == "any" or p.row == row) and (column == "any" or p.column == column)]
+    assert hits, f"no problem {file!r} {message!r} row={row} column={column}; got:\n" + "\n".join(map(str, probs))
+    return hits
+
+
+def replace_line(text: str, lineno: int, new: str) -> str:
+    """Replace 1-based line ``lineno`` of ``text`` (header = line 1)."""
+    lines = text.splitlines()
+    lines[lineno - 1] = new
+    return "\n".join(lines) + "\n"
+
+
+def add_lines(text: str, *new: str) -> str:
+    return text.rstrip("\n") + "\n" + "\n".join(new) + "\n"
+
+
+def toml_with(old: str, new: str) -> str:
+    assert old in GOOD_TOML
+    return GOOD_TOML.replace(old, new)
+
+
+# ----------------------------------------------------------------------------------- campaign.toml
+def test_malformed_toml_reports_its_line():
+    bad = GOOD_TOML.replace('time = "min"', 'time = "min')
+    (p,) = find(problems(campaign_toml=bad), "campaign.toml", "malformed TOML")
+    assert p.row == 6  # the unterminated string is on line 6
+
+
+def test_missing_required_table_and_keys():
+    probs = problems(campaign_toml=GOOD_TOML.replace('name = "aldol test"\n', "").replace('kind = "conversion"\n', ""))
+    find(probs, "campaign.toml", "missing required key 'name'", column="campaign.name")
+    find(probs, "campaign.toml", "missing required key 'kind'", column="readout.kind")
+    probs = problems(campaign_toml='[campaign]\nname = "x"\n')
+    find(probs, "campaign.toml", r"missing required table \[units\]")
+    find(probs, "campaign.toml", r"missing required table \[readout\]")
+
+
+def test_empty_campaign_name():
+    find(problems(campaign_toml=toml_with('name = "aldol test"', 'name = "  "')), "campaign.toml",
+         "campaign name must not be empty", row=2)
+
+
+def test_unknown_units():
+    probs = problems(campaign_toml=toml_with('time = "min"', 'time = "fortnight"').replace('volume = "uL"', 'volume = "gal"'))
+    find(probs, "campaign.toml", "unknown time unit", row=6, column="units.time")
+    find(probs, "campaign.toml", "unknown volume unit", column="units.volume")
+    find(problems(campaign_toml=toml_with('concentration = "mM"', 'concentration = "ppm"')), "campaign.toml",
+         "unknown concentration unit")
+
+
+def test_unknown_readout_kind_and_scale():
+    find(problems(campaign_toml=toml_with('kind = "conversion"', 'kind = "colour"')), "campaign.toml",
+         "unknown readout kind", column="readout.kind")
+    find(problems(campaign_toml=toml_with('scale = "percent"', 'scale = "permille"')), "campaign.toml",
+         "unknown readout scale", column="readout.scale")
+    find(problems(campaign_toml=toml_with('scale = "percent"\n', "")), "campaign.toml",
+         "missing required key 'scale'")
+
+
+def test_absorbance_needs_positive_epsilon_and_path_length():
+    t = toml_with('kind = "conversion"\nscale = "percent"', 'kind = "absorbance"')
+    probs = problems(campaign_toml=t)
+    find(probs, "campaign.toml", "needs 'epsilon_M_cm' > 0", column="readout.epsilon_M_cm")
+    find(probs, "campaign.toml", "needs 'path_length_cm' > 0", column="readout.path_length_cm")
+    t2 = t.replace('kind = "absorbance"', 'kind = "absorbance"\nepsilon_M_cm = -5\npath_length_cm = "thin"')
+    probs = problems(campaign_toml=t2)
+    find(probs, "campaign.toml", "'epsilon_M_cm' must be a number > 0")
+    find(probs, "campaign.toml", "'path_length_cm' must be a number > 0")
+
+
+def test_product_per_substrate_must_be_positive():
+    find(problems(campaign_toml=toml_with("product_per_substrate = 1.0", "product_per_substrate = 0")),
+         "campaign.toml", "product_per_substrate must be a number > 0", row=13)
+
+
+def test_analysis_settings_are_checked():
+    probs = problems(campaign_toml=GOOD_TOML + "confidense = 0.9\nconfidence = \"high\"\n")
+    find(probs, "campaign.toml", "unknown analysis setting", column="analysis.confidense")
+    find(probs, "campaign.toml", "analysis settings must be numbers", column="analysis.confidence")
+
+
+def test_table_that_is_not_a_table():
+    find(problems(campaign_toml='units = "mM"\n' + GOOD_TOML.replace("[units]\n", "[unitz]\n")), "campaign.toml",
+         "'units' must be a table")
+
+
+# ----------------------------------------------------------------------------------- files and headers
+def test_missing_files_are_all_listed():
+    probs = problems(layout_csv=None, readings_csv=None)
+    find(probs, "layout.csv", "missing file")
+    find(probs, "readings.csv", "missing file")
+    find(problems(campaign_toml=None), "campaign.toml", "missing file")
+
+
+def test_empty_file_and_header_only_file():
+    find(problems(catalysts_csv=""), "catalysts.csv", "the file is empty")
+    find(problems(catalysts_csv="\n\n  \n"), "catalysts.csv", "the file is empty")
+    find(problems(plates_csv="plate,format,temperature_c\n"), "plates.csv", "header but no data rows")
+
+
+def test_missing_required_columns_listed_at_once():
+    bad = "\n".join(",".join(c for i, c in enumerate(line.split(",")) if i not in (1, 6, 7))
+                    for line in GOOD_LAYOUT.splitlines()) + "\n"
+    (p,) = find(problems(layout_csv=bad), "layout.csv", "missing required columns: well, substrate_conc, volume")
+    assert p.row == 1
+
+
+def test_missing_catalyst_columns_when_samples_exist():
+    bad = "\n".join(",".join(c for i, c in enumerate(line.split(",")) if i not in (4, 5))
+                    for line in GOOD_LAYOUT.splitlines()) + "\n"
+    find(problems(layout_csv=bad), "layout.csv", "sample and reference wells need the columns loading, loading_unit")
+
+
+def test_duplicate_header_names():
+    bad = GOOD_PLATES.replace("plate,format,temperature_c,run_date,notes", "plate,format,Temperature_C,run_date,temperature_c")
+    find(problems(plates_csv=bad), "plates.csv", "duplicate header name", row=1, column="temperature_c")
+
+
+def test_values_under_an_empty_header():
+    bad = GOOD_PLATES.replace("run_date,notes", "run_date,notes,").replace("first", "first,oops")
+    find(problems(plates_csv=bad), "plates.csv", "column 6 has values but no header name", row=2)
+
+
+def test_csv_and_xlsx_both_present():
+    f = files()
+    f["plates.xlsx"] = b"whatever"
+    with pytest.raises(ValidationError, match="both plates.csv and plates.xlsx are present"):
+        read_campaign(f)
+
+
+def test_unreadable_workbook():
+    f = files(plates_csv=None)
+    f["plates.xlsx"] = b"this is not a zip workbook"
+    with pytest.raises(ValidationError, match=r"plates.xlsx: cannot be read as an Excel workbook"):
+        read_campaign(f)
+
+
+# ----------------------------------------------------------------------------------- catalysts.csv
+def test_catalyst_ids_missing_and_duplicate():
+    probs = problems(catalysts_csv=add_lines(GOOD_CATALYSTS, "C1,again,,100,,,,", ",nameless,,100,,,,"))
+    (p,) = find(probs, "catalysts.csv", r"duplicate catalyst id \(first on row 2\)", row=5, column="catalyst")
+    assert p.value == "C1"
+    find(probs, "catalysts.csv", "a catalyst id is required", row=6)
+
+
+def test_non_numeric_and_non_finite_numbers():
+    probs = problems(catalysts_csv=replace_line(GOOD_CATALYSTS, 2, "C1,Proline,amino acid,abc,inf,,,"))
+    find(probs, "catalysts.csv", "is not a number", row=2, column="molar_mass_g_mol")
+    find(probs, "catalysts.csv", "is not a finite number", row=2, column="sites_per_unit")
+    probs = problems(catalysts_csv=replace_line(GOOD_CATALYSTS, 2, "C1,Proline,amino acid,NaN,,,,"))
+    find(probs, "catalysts.csv", "is not a finite number", column="molar_mass_g_mol")
+
+
+def test_catalyst_number_ranges():
+    probs = problems(catalysts_csv=replace_line(GOOD_CATALYSTS, 3, "C2,Pd/C,supported,-1,0,150,0,1.5"))
+    find(probs, "catalysts.csv", "molar mass must be > 0", row=3)
+    find(probs, "catalysts.csv", "sites_per_unit must be > 0", row=3)
+    find(probs, "catalysts.csv", r"metal_wt_pct must be > 0 and <= 100", row=3)
+    find(probs, "catalysts.csv", "metal molar mass must be > 0", row=3)
+    find(probs, "catalysts.csv", r"dispersion must be in \(0, 1\]", row=3)
+    probs = problems(catalysts_csv=replace_line(GOOD_CATALYSTS, 3, "C2,Pd/C,supported,,,5,,0"))
+    find(probs, "catalysts.csv", r"dispersion must be in \(0, 1\]", row=3)
+
+
+def test_metal_wt_pct_needs_metal_molar_mass():
+    probs = problems(catalysts_csv=replace_line(GOOD_CATALYSTS, 3, "C2,Pd/C,supported,,,5,,0.3"))
+    find(probs, "catalysts.csv", "metal_molar_mass_g_mol is needed too", row=3, column="metal_molar_mass_g_mol")
+
+
+# ----------------------------------------------------------------------------------- plates.csv
+def test_plate_ids_missing_and_duplicate():
+    probs = problems(plates_csv=add_lines(GOOD_PLATES, "P1,96,60,,", ",96,60,,"))
+    find(probs, "plates.csv", r"duplicate plate id \(first on row 2\)", row=4)
+    find(probs, "plates.csv", "a plate id is required", row=5)
+
+
+@pytest.mark.parametrize("fmt", ["12", "1536", "95.5", "ninety-six"])
+def test_format_must_be_a_known_well_count(fmt):
+    probs = problems(plates_csv=replace_line(GOOD_PLATES, 3, f"P2,{fmt},80,,"))
+    hits = [p for p in probs if p.file == "plates.csv" and p.row == 3 and p.column == "format"]
+    assert hits and re.search(r"format must be 24, 48, 96 or 384|is not a number", hits[0].message)
+
+
+def test_plate_temperature_below_absolute_zero_and_implausible():
+    probs = problems(plates_csv=replace_line(GOOD_PLATES, 2, "P1,96,-300,2026-03-01,x"))
+    find(probs, "plates.csv", r"below absolute zero \(-273.15 degC\)", row=2)
+    probs = problems(plates_csv=replace_line(GOOD_PLATES, 2, "P1,96,333.15,2026-03-01,x"))
+    (p,) = find(probs, "plates.csv", "outside the plausible range", row=2)
+    assert "-100 to 300 degC" in p.message  # the range is stated in the message
+    find(problems(plates_csv=replace_line(GOOD_PLATES, 2, "P1,96,,2026-03-01,x")), "plates.csv",
+         "plate temperature is required", row=2)
+
+
+def test_run_date_must_be_iso():
+    find(problems(plates_csv=replace_line(GOOD_PLATES, 2, "P1,96,60,03/31/2026,x")), "plates.csv",
+         "run_date must be an ISO date", row=2, column="run_date")
+
+
+# ----------------------------------------------------------------------------------- layout.csv
+def L(line: int, new: str) -> dict:
+    return {"layout_csv": replace_line(GOOD_LAYOUT, line, new)}
+
+
+def test_unknown_and_missing_role():
+    find(problems(**L(2, "P1,A1,catalyst,C1,1.5,umol,100,200,,DMSO")), "layout.csv", "unknown role", row=2)
+    find(problems(**L(2, "P1,A1,,C1,1.5,umol,100,200,,DMSO")), "layout.csv", "a role is required", row=2)
+
+
+def test_unknown_plate_in_layout():
+    find(problems(**L(2, "P9,A1,sample,C1,1.5,umol,100,200,,DMSO")), "layout.csv", r"unknown plate \(not in plates.csv\)",
+         row=2, column="plate")
+
+
+def test_unparsable_well():
+    for bad in ("Q1", "A0", "1A", "AA1", ""):
+        find(problems(**L(2, f"P1,{bad},sample,C1,1.5,umol,100,200,,DMSO")), "layout.csv", "not a well name", row=2)
+
+
+def test_well_outside_plate_format():
+    (p,) = find(problems(**L(8, "P2,E1,sample,C1,1.5,umol,100,150,,DMSO")), "layout.csv", "outside the plate's 24-well",
+                row=8, column="well")
+    assert "rows A-D, columns 1-6" in p.message
+
+
+def test_duplicate_wells_in_layout():
+    # 'a01' is the same position as A1
+    find(problems(layout_csv=add_lines(GOOD_LAYOUT, "P1,a01,blank,,,,100,200,,DMSO")), "layout.csv",
+         r"duplicate well in the layout \(first on row 2\)", row=10)
+
+
+def test_sample_needs_catalyst_loading_and_unit():
+    probs = problems(**L(2, "P1,A1,sample,,,,100,200,,DMSO"))
+    find(probs, "layout.csv", "needs a catalyst", row=2, column="catalyst")
+    find(probs, "layout.csv", "needs a loading", row=2, column="loading")
+    find(probs, "layout.csv", "needs a loading_unit", row=2, column="loading_unit")
+
+
+def test_unknown_catalyst():
+    find(problems(**L(2, "P1,A1,sample,C7,1.5,umol,100,200,,DMSO")), "layout.csv", "unknown catalyst", row=2)
+
+
+def test_blank_with_a_catalyst():
+    find(problems(**L(5, "P1,A4,blank,C1,,,100,200,,DMSO")), "layout.csv", "a blank well must not name a catalyst", row=5)
+
+
+def test_loading_must_be_positive_and_unit_known():
+    probs = problems(**L(2, "P1,A1,sample,C1,0,mmol,100,200,,DMSO"))
+    find(probs, "layout.csv", "loading must be > 0", row=2)
+    find(probs, "layout.csv", "unknown loading unit", row=2, column="loading_unit")
+
+
+def test_substrate_conc_and_volume_required_and_positive():
+    probs = problems(**L(5, "P1,A4,blank,,,,,,,DMSO"))
+    find(probs, "layout.csv", "substrate_conc is required for every well except empty ones", row=5)
+    find(probs, "layout.csv", "volume is required for every well except empty ones", row=5)
+    probs = problems(**L(2, "P1,A1,sample,C1,1.5,umol,-1,0,,DMSO"))
+    find(probs, "layout.csv", "substrate_conc must be > 0", row=2)
+    find(probs, "layout.csv", "volume must be > 0", row=2)
+
+
+def test_mg_loading_without_molar_mass():
+    cats = replace_line(GOOD_CATALYSTS, 2, "C1,Proline,amino acid,,1,,,")
+    probs = problems(catalysts_csv=cats, layout_csv=replace_line(GOOD_LAYOUT, 2, "P1,A1,sample,C1,1.5,mg,100,200,,DMSO"))
+    find(probs, "layout.csv", "an mg loading needs molar_mass_g_mol", row=2)
+
+
+def test_mol_pct_loading_without_substrate():
+    probs = problems(**L(4, "P1,A3,reference,REF,5,mol%,,200,,MeCN"))
+    find(probs, "layout.csv", "a mol% loading needs a substrate_conc > 0", row=4)
+
+
+def test_well_temperature_override_checked():
+    find(problems(**L(7, "P1,H12,sample,C1,1.5,umol,50,200,-280,DMSO")), "layout.csv", "below absolute zero", row=7,
+         column="temperature_c")
+    find(problems(**L(7, "P1,H12,sample,C1,1.5,umol,50,200,350,DMSO")), "layout.csv", "plausible range", row=7)
+
+
+def test_reserved_factor_name():
+    bad = GOOD_LAYOUT.replace(",solvent\n", ",row\n", 1)
+    find(problems(layout_csv=bad), "layout.csv", "cannot be a factor column name", column="row")
+
+
+# ----------------------------------------------------------------------------------- readings.csv
+def R(*extra: str) -> dict:
+    return {"readings_csv": add_lines(good_readings(), *extra)}
+
+
+def test_reading_unknown_plate_bad_well_and_not_in_layout():
+    probs = problems(**R("P9,A1,0,1", "P1,Z9,0,1", "P1,B7,0,1"))
+    find(probs, "readings.csv", "unknown plate", row=30)
+    find(probs, "readings.csv", "not a well name", row=31)
+    find(probs, "readings.csv", "reading for a well that is not in layout.csv", row=32)
+
+
+def test_reading_on_empty_well():
+    find(problems(**R("P1,A5,0,1")), "readings.csv", "reading on a well marked empty", row=30)
+
+
+def test_negative_and_non_finite_times():
+    probs = problems(**R("P1,A1,-5,1", "P1,A1,inf,1", "P1,A1,,2"))
+    find(probs, "readings.csv", "time must be >= 0", row=30)
+    find(probs, "readings.csv", "is not a finite number", row=31, column="time")
+    find(probs, "readings.csv", "a time is required", row=32)
+
+
+def test_duplicate_readings():
+    # 10 min written as 10.0 is the same time
+    find(problems(**R("P1,a01,10.0,3")), "readings.csv", r"duplicate reading .* \(first on row 3\)", row=30)
+
+
+def test_percent_out_of_range_with_tolerance():
+    probs = problems(**R("P1,A1,50,101.5", "P1,A1,60,103", "P1,A1,70,-3"))
+    rows = {p.row for p in probs if re.search(r"must lie in 0..100", p.message)}
+    assert rows == {31, 32}  # 101.5 is inside the stated +/- 2 tolerance
+
+
+def test_fraction_out_of_range():
+    t = toml_with('scale = "percent"', 'scale = "fraction"')
+    probs = problems(campaign_toml=t)  # the good readings go up to 40 %, i.e. 40 as a fraction
+    hits = find(probs, "readings.csv", r"fractional conversion must lie in 0..1")
+    assert all(float(p.value) > 1.02 for p in hits)
+
+
+def test_negative_product_concentration_beyond_noise():
+    t = toml_with('kind = "conversion"\nscale = "percent"', 'kind = "product_conc"')
+    # largest substrate 100 mM -> tolerance 2 mM
+    probs = problems(campaign_toml=t, readings_csv=add_lines(good_readings(), "P1,A1,50,-1.5", "P1,A1,60,-2.5"))
+    hits = find(probs, "readings.csv", "negative product concentration beyond noise")
+    assert [p.row for p in hits] == [31]
+
+
+def test_absorbance_out_of_range():
+    t = toml_with('kind = "conversion"\nscale = "percent"', 'kind = "absorbance"\nepsilon_M_cm = 18000\npath_length_cm = 0.5')
+    rd = "plate,well,time,value\nP1,A1,0,0.02\nP1,A1,10,-0.5\nP1,A1,20,12\nP1,A1,30,-0.05\n"
+    hits = find(problems(campaign_toml=t, readings_csv=rd), "readings.csv", r"absorbance outside -0.1..10")
+    assert [p.row for p in hits] == [3, 4]
+
+
+def test_missing_value():
+    find(problems(**R("P1,A1,50,")), "readings.csv", "a value is required", row=30)
+
+
+def test_plate_without_blank_is_not_an_error():
+    lay = "\n".join(line for line in GOOD_LAYOUT.splitlines() if "blank" not in line) + "\n"
+    rd = "\n".join(line for line in good_readings().splitlines() if "A4" not in line and "D6" not in line) + "\n"
+    res = read_campaign(files(layout_csv=lay, readings_csv=rd))
+    assert (res.data.wells["role"] != "blank").all()
+
+
+# ----------------------------------------------------------------------------------- analytes
+ANALYTE_TOML = toml_with('kind = "conversion"\nscale = "percent"', 'kind = "yield"\nscale = "percent"') + \
+    '\n[analytes]\nmain = "P"\nbyproducts = ["B1"]\n'
+
+
+def analyte_readings(names=("P", "B1")) -> str:
+    lines = ["plate,well,time,value,analyte"]
+    for line in good_readings().splitlines()[1:]:
+        for a in names:
+            lines.append(f"{line},{a}")
+    return "\n".join(lines) + "\n"
+
+
+def test_analytes_read_when_declared():
+    res = read_campaign(files(campaign_toml=ANALYTE_TOML, readings_csv=analyte_readings()))
+    assert set(res.data.readings["analyte"]) == {"P", "B1"}
+    assert res.data.manifest.analyte_main == "P" and res.data.manifest.byproducts == ("B1",)
+
+
+def test_analyte_column_required_when_declared_and_vice_versa():
+    find(problems(campaign_toml=ANALYTE_TOML), "readings.csv", "needs an analyte column", column="analyte")
+    t = toml_with('kind = "conversion"\nscale = "percent"', 'kind = "yield"\nscale = "percent"')
+    find(problems(campaign_toml=t, readings_csv=analyte_readings()), "readings.csv",
+         "declares no \\[analytes\\] table")
+
+
+def test_unknown_and_missing_analyte_names():
+    rd = add_lines(analyte_readings(), "P1,A1,50,3,B2", "P1,A1,60,3,")
+    probs = problems(campaign_toml=ANALYTE_TOML, readings_csv=rd)
+    find(probs, "readings.csv", "unknown analyte; campaign.toml \\[analytes\\] declares B1, P", row=58, column="analyte")
+    find(probs, "readings.csv", "an analyte name is required", row=59)
+
+
+ENANT_TOML = ANALYTE_TOML.replace('byproducts = ["B1"]', 'byproducts = ["B1"]\nenantiomers = ["P_R", "P_S"]')
+
+
+def test_enantiomers_declared_but_not_read_and_main_read():
+    probs = problems(campaign_toml=ENANT_TOML, readings_csv=analyte_readings(("P", "P_R", "B1")))
+    find(probs, "readings.csv", "enantiomer 'P_S' is declared in campaign.toml but never read")
+    hits = find(probs, "readings.csv", "is the sum of the enantiomers")
+    assert hits[0].row == 2
+    res = read_campaign(files(campaign_toml=ENANT_TOML, readings_csv=analyte_readings(("P_R", "P_S", "B1"))))
+    assert res.data.manifest.enantiomers == ("P_R", "P_S")
+
+
+def test_enantiomers_must_be_two_distinct_names():
+    find(problems(campaign_toml=ANALYTE_TOML.replace('byproducts = ["B1"]', 'enantiomers = ["R"]'),
+                  readings_csv=analyte_readings(("P",))), "campaign.toml", "exactly two")
+    find(problems(campaign_toml=ANALYTE_TOML.replace('["B1"]', '["P"]'), readings_csv=analyte_readings(("P",))),
+         "campaign.toml", "must all differ")
+    find(problems(campaign_toml=ANALYTE_TOML.replace('["B1"]', '"B1"'), readings_csv=analyte_readings()),
+         "campaign.toml", "must be a list of analyte names")
+
+
+def test_conversion_readout_with_several_analytes():
+    t = ANALYTE_TOML.replace('kind = "yield"', 'kind = "conversion"')
+    find(problems(campaign_toml=t, readings_csv=analyte_readings()), "campaign.toml",
+         "several analytes need a yield or product_conc readout")
+    t = toml_with('kind = "conversion"\nscale = "percent"', 'kind = "absorbance"\nepsilon_M_cm = 1e4\npath_length_cm = 1')
+    find(problems(campaign_toml=t, readings_csv=analyte_readings()), "readings.csv",
+         "a absorbance readout gives one value per well and time")
+
+
+# ----------------------------------------------------------------------------------- all at once
+def test_every_problem_is_reported_and_message_capped_at_50():
+    rd = add_lines(good_readings(), *[f"P1,A1,{100 + i},-50" for i in range(70)])
+    with pytest.raises(ValidationError) as ei:
+        read_campaign(files(readings_csv=rd, plates_csv=replace_line(GOOD_PLATES, 2, "P1,97,60,,")))
+    err = ei.value
+    assert len(err.problems) >= 71
+    assert "... and" in str(err) and str(err).count("\n  - ") == 50
+    assert any(p.file == "plates.csv" for p in err.problems)
