@@ -59,7 +59,7 @@ def test_eyring_constants_codata():
     r = fit_temperature_series(T - 273.15, per_h(k), reference_temperature_c=25.0)
     assert r["dg_ref_kj_mol"] == pytest.approx(73.0240614, abs=1e-6)
     assert r["dh_kj_mol"] == pytest.approx(73.0240614, rel=1e-9) and abs(r["ds_j_mol_k"]) < 1e-7
-    assert k[1] == pytest.approx(1.0, rel=1e-8)
+    assert k[1] == pytest.approx(1.0, rel=1e-6)     # 73.0240614 is given to 1e-7 kJ/mol
 
 
 def test_eyring_round_trip_check_values_section3():
