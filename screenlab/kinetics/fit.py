@@ -65,6 +65,30 @@ def _sum(g, w, n_groups):
     return np.bincount(g, weights=w, minlength=n_groups)
 
 
+def _layout(t, y, g, n, G):
+    """Arrange points for fast group sums.
+
+    When groups are of similar size, points go into a dense (G, max n) array padded with
+    t = 0, y = 0: such a pad adds exactly nothing to any sum of the first-order fit (f(0) = 0,
+    y = 0, d f/d k at t = 0 is 0), and row sums are much faster than weighted bincounts.
+    Otherwise flat arrays and ``np.bincount``.
+    """
+    m = int(n.max()) if G else 0
+    if G and m * G <= 4 * max(t.size, 1):
+        order = np.argsort(g, kind="stable")
+        gs = g[order]
+        starts = np.concatenate(([0], np.cumsum(n)[:-1]))
+        pos = np.arange(gs.size) - starts[gs]
+        T = np.zeros((G, m))
+        Y = np.zeros((G, m))
+        T[gs, pos] = t[order]
+        Y[gs, pos] = y[order]
+        ones = np.ones(m)
+        # a matrix-vector product sums short rows ~8x faster than ndarray.sum(axis=1)
+        return T, Y, (lambda v: np.asarray(v)[:, None]), (lambda w: w @ ones)
+    return t, y, (lambda v: np.asarray(v)[g]), (lambda w: np.bincount(g, weights=w, minlength=G))
+
+
 @dataclass(frozen=True)
 class LineFit:
     """Per-group straight line ``y = intercept + slope x`` (arrays of length n_groups).
@@ -146,8 +170,8 @@ class FirstOrderFit:
 
 
 def fit_first_order(t, y, group, n_groups: int | None = None, *, plateau=None, k_start=None,
-                    k_bounds=None, n_grid: int = 40, n_golden: int = 32,
-                    n_polish: int = 6) -> FirstOrderFit:
+                    k_bounds=None, n_grid: int = 24, n_golden: int = 14,
+                    n_polish: int = 8) -> FirstOrderFit:
     """Fit ``y = b1 (1 - exp(-k t))`` in every group; see the module docstring for the method.
 
     plateau
@@ -182,13 +206,16 @@ def fit_first_order(t, y, group, n_groups: int | None = None, *, plateau=None, k
     valid = (n > n_par) & np.isfinite(k_lo) & np.isfinite(k_hi) & (k_lo > 0) & (k_hi > k_lo)
     u_lo = np.log(np.where(valid, k_lo, 1.0))
     u_hi = np.log(np.where(valid, k_hi, 10.0))
-    syy = _sum(g, y * y, G)
+    t, y, expand, gsum = _layout(t, y, g, n, G)
+    syy = gsum(y * y)
     p_safe = np.where(fixed, p, 0.0)
 
     def profile(u):
-        f = -np.expm1(-np.exp(u)[g] * t)
-        sff = _sum(g, f * f, G)
-        syf = _sum(g, y * f, G)
+        m = expand(np.exp(u)) * t
+        np.negative(m, out=m)
+        np.expm1(m, out=m)                      # m = -f, in place: this is the hot loop
+        sff = gsum(m * m)
+        syf = -gsum(y * m)
         with np.errstate(divide="ignore", invalid="ignore"):
             free = syy - syf * syf / sff
         rss = np.where(fixed, syy - 2.0 * p_safe * syf + p_safe * p_safe * sff, free)
@@ -237,27 +264,27 @@ def fit_first_order(t, y, group, n_groups: int | None = None, *, plateau=None, k
     k = np.exp(u)
 
     def plateau_at(kk):
-        f = -np.expm1(-kk[g] * t)
+        f = -np.expm1(-expand(kk) * t)
         with np.errstate(divide="ignore", invalid="ignore"):
-            b = _sum(g, y * f, G) / _sum(g, f * f, G)
+            b = gsum(y * f) / gsum(f * f)
         return np.where(fixed, p, b)
 
     def rss_at(bb, kk):
-        res = y - bb[g] * -np.expm1(-kk[g] * t)
-        return _sum(g, res * res, G)
+        res = y - expand(bb) * -np.expm1(-expand(kk) * t)
+        return gsum(res * res)
 
     b1 = plateau_at(k)
     rss = rss_at(b1, k)
     # 3. Gauss-Newton polish on (b1, k), kept only where it lowers the RSS
     rel_step = np.full(G, np.inf)
     for _ in range(n_polish):
-        f, jk = models.first_order_jacobian(t, b1[g], k[g])
-        res = y - b1[g] * f
-        a11 = _sum(g, f * f, G)
-        a12 = _sum(g, f * jk, G)
-        a22 = _sum(g, jk * jk, G)
-        g1 = _sum(g, f * res, G)
-        g2 = _sum(g, jk * res, G)
+        f, jk = models.first_order_jacobian(t, expand(b1), expand(k))
+        res = y - expand(b1) * f
+        a11 = gsum(f * f)
+        a12 = gsum(f * jk)
+        a22 = gsum(jk * jk)
+        g1 = gsum(f * res)
+        g2 = gsum(jk * res)
         with np.errstate(divide="ignore", invalid="ignore"):
             det = a11 * a22 - a12 * a12
             db1 = np.where(fixed, 0.0, (a22 * g1 - a12 * g2) / det)
@@ -270,12 +297,14 @@ def fit_first_order(t, y, group, n_groups: int | None = None, *, plateau=None, k
         b1 = np.where(take, b1n, b1)
         k = np.where(take, kn, k)
         rss = np.where(take, rn, rss)
+        if not np.any(valid & (rel_step >= 1e-9)):   # every group settled: stop early
+            break
 
     # 4. covariance from the Jacobian at the solution
-    f, jk = models.first_order_jacobian(t, b1[g], k[g])
-    a11 = _sum(g, f * f, G)
-    a12 = _sum(g, f * jk, G)
-    a22 = _sum(g, jk * jk, G)
+    f, jk = models.first_order_jacobian(t, expand(b1), expand(k))
+    a11 = gsum(f * f)
+    a12 = gsum(f * jk)
+    a22 = gsum(jk * jk)
     df = n - n_par
     with np.errstate(divide="ignore", invalid="ignore"):
         s2 = np.where(df > 0, rss / np.maximum(df, 1), np.nan)

@@ -34,9 +34,8 @@ def first_order(t, b1, k):
 def first_order_jacobian(t, b1, k) -> tuple[np.ndarray, np.ndarray]:
     """Partial derivatives of :func:`first_order`: ``(dP/db1, dP/dk) = (1 - e^-kt, b1 t e^-kt)``."""
     t = np.asarray(t, dtype=float)
-    k = np.asarray(k, dtype=float)
-    e = np.exp(-k * t)
-    return -np.expm1(-k * t), np.asarray(b1, dtype=float) * t * e
+    m = np.expm1(-np.asarray(k, dtype=float) * t)      # e^-kt - 1, one transcendental call
+    return -m, np.asarray(b1, dtype=float) * t * (1.0 + m)
 
 
 def first_order_initial_rate(b1, k):
