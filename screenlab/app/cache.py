@@ -82,11 +82,23 @@ def analysis(path: str, read_only: bool, version: Any, campaign: str, skey: tupl
 @st.cache_data(show_spinner="Ranking ...", max_entries=32)
 def ranking(path: str, read_only: bool, version: Any, campaign: str, skey: tuple, metric: str,
             temperature_c: float | None, k: int) -> pd.DataFrame:
+    """``stats.ranking.rank_candidates`` (``temperature_c`` None: the reference temperature)."""
     from screenlab.stats.ranking import rank_candidates
 
     a = analysis(path, read_only, version, campaign, skey)
-    return rank_candidates(a.kinetics, a.quality, metric, temperature_c=temperature_c, k=k,
-                           settings=a.settings)
+    return rank_candidates(a.kinetics, a.quality, metric=metric, at_temperature_c=temperature_c, top_k=int(k),
+                           confidence=a.settings.confidence, catalysts=a.data.catalysts)
+
+
+@st.cache_data(show_spinner="Finding the Pareto set ...", max_entries=16)
+def pareto(path: str, read_only: bool, version: Any, campaign: str, skey: tuple, metrics: tuple[str, ...],
+           temperature_c: float | None, draws: int = 2000) -> pd.DataFrame:
+    """``stats.ranking.pareto`` over 2-3 metrics, with P(on the front) from ``draws`` joint draws."""
+    from screenlab.stats.ranking import pareto as _pareto
+
+    a = analysis(path, read_only, version, campaign, skey)
+    return _pareto(a.kinetics, a.quality, metrics, at_temperature_c=temperature_c, draws=draws,
+                   confidence=a.settings.confidence, catalysts=a.data.catalysts)
 
 
 @st.cache_data(show_spinner=False, max_entries=16)

@@ -64,6 +64,11 @@ def build_context(config: AppConfig) -> Context:
     with st.sidebar:
         st.caption(f"Store: `{config.store_path}`" + (" · read-only" if config.read_only else ""))
         if names:
+            wanted = st.query_params.get("campaign")  # a link may name the campaign: ?campaign=NAME
+            if wanted in names and "sl_campaign" not in st.session_state:
+                st.session_state["sl_campaign"] = wanted
+            if st.session_state.get("sl_campaign") not in (None, *names):
+                del st.session_state["sl_campaign"]  # e.g. a campaign that was replaced under another name
             campaign = st.selectbox("Campaign", names, key="sl_campaign")
             data = cache.campaign_data(config.store_path, config.read_only, version, campaign)
             from screenlab.pipeline import settings_for

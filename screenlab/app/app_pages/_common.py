@@ -24,14 +24,64 @@ def flag_counts(sources: dict[str, pd.Series]) -> pd.DataFrame:
 
 def best_candidates(ctx, analysis, n: int = 5) -> None:
     """The top of the default ranking (TOF at the reference temperature), with intervals."""
-    from screenlab.stats.ranking import DEFAULT_METRIC
-
-    r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, DEFAULT_METRIC,
-                      None, 3)
+    r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, "tof", None, 3)
     ranked = r[r["rank"].notna()].head(n)
     if ranked.empty:
         st.info("No candidate can be ranked yet.")
         return
-    widgets.table(ranked, key="campaigns_best", columns=["rank", "catalyst", "estimate", "ci_low", "ci_high",
-                                                         "rank_low", "rank_high", "p_best", "flags"])
+    st.caption(f"By TOF at the reference temperature {ctx.settings.reference_temperature_c:g} °C (h⁻¹), "
+               f"{ctx.settings.confidence * 100:g} % intervals; P(best) from the estimates' uncertainty.")
+    widgets.table(ranked.rename(columns={"estimate": "tof_per_h", "ci_low": "tof_ci_low", "ci_high": "tof_ci_high"}),
+                  key="campaigns_best", columns=["rank", "catalyst", "family", "tof_per_h", "tof_ci_low", "tof_ci_high",
+                                                 "rank_low", "rank_high", "p_best", "basis", "flags"])
     st.page_link("app_pages/ranking.py", label="Full ranking", icon=":material/leaderboard:")
+
+
+_UNIT_TEXT = {"h-1": "h⁻¹", "kJ/mol": "kJ mol⁻¹", "": ""}
+
+
+def metric_choices() -> dict[str, dict]:
+    """The ranking metrics of the core with display labels (axis titles carry the unit)."""
+    from screenlab.stats.ranking import METRICS
+
+    out = {}
+    for key, m in METRICS.items():
+        unit = _UNIT_TEXT.get(m.unit, m.unit)
+        better = "higher is better" if m.higher_is_better else "lower is better"
+        out[key] = {
+            "label": f"{m.label}" + (f" / {unit}" if unit else "") + f" ({better})",
+            "axis": f"{m.label}" + (f" / {unit}" if unit else " (ratio)" if m.lognormal else ""),
+            "per_temperature": m.source == "rates",
+            "log": bool(m.lognormal),
+            "column": m.column,
+            "higher_is_better": m.higher_is_better,
+        }
+    return out
+
+
+def pareto_section(ctx, analysis, temperature) -> None:
+    """Two or three metrics at once: which candidates no other beats on all of them."""
+    from screenlab.viz import figures
+
+    metrics = metric_choices()
+    keys = list(metrics)
+    default = [k for k in ("tof", "ea") if k in keys] or keys[:2]
+    chosen = st.multiselect("Metrics (two or three)", keys, default=default, max_selections=3, key="rank_pareto",
+                            format_func=lambda m: metrics[m]["label"])
+    if len(chosen) < 2:
+        st.info("Choose two or three metrics.")
+        return
+    front = cache.pareto(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, tuple(chosen),
+                         temperature)
+    ok = front[front["reason"].astype(str) == ""]
+    x, y = metrics[chosen[0]], metrics[chosen[1]]
+    if ok.empty:
+        st.info("No candidate has all of these metrics.")
+    else:
+        fig = figures.pareto_plot(ok, x=x["column"], y=y["column"], x_label=x["axis"], y_label=y["axis"],
+                                  log_x=x["log"], log_y=y["log"])
+        widgets.chart(fig, key="rank_pareto_plot", filename="pareto")
+        st.caption("Pareto front: no other candidate is at least as good on every chosen metric and better on one "
+                   "(point estimates). P(front): share of joint draws from the estimates' uncertainty in which the "
+                   "candidate is on the front." + (" The plot shows the first two metrics." if len(chosen) == 3 else ""))
+    widgets.table(front, key="rank_pareto_table")

@@ -28,7 +28,8 @@ else:
 widgets.table(q, key="quality_table", columns=[
     "plate", "format", "temperature_c", "status", "zprime", "signal_window", "n_sample", "n_reference", "n_blank",
     "reference_mean_mM_per_h", "blank_mean_mM_per_h", "replicate_cv_median_pct", "reference_cv_pct",
-    "blank_ratio", "blank_z", "edge_p", "edge_shift_mad", "bscore_max_abs", "reference_loo_z", "flags"])
+    "blank_ratio", "blank_z", "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs", "reference_loo_t",
+    "flags"])
 widgets.flag_glossary(q["flags"])
 
 st.subheader("Benchmark control chart")
@@ -48,7 +49,8 @@ else:
                                     upper=float(g["upper"].iloc[0]))
         widgets.chart(fig, key=f"quality_cc_{cat}", filename=f"control-chart-{cat}")
     widgets.table(cc, key="quality_cc_table", columns=["plate", "run_date", "catalyst", "temperature_c", "n_wells",
-                                                        "value", "value_unit", "expected", "log_ratio", "loo_z", "flags"])
+                                                        "value", "value_unit", "expected", "log_ratio", "loo_t", "loo_limit",
+                                                        "flags"])
 
 st.subheader("Edge map")
 plates = data.plates["plate"].astype(str).tolist()
@@ -64,8 +66,11 @@ if np.isfinite(pd.to_numeric(bp["bscore"], errors="coerce")).any():
                                         signed=True, title=f"{plate}: B-score of sample wells"),
                   key="quality_edge", filename=f"bscore-{plate}")
     row = q[q["plate"].astype(str) == plate].iloc[0]
-    st.caption(f"B-score = median-polish residual / (1.4826 x MAD) (Brideau et al. 2003). Edge against interior "
-               f"(Mann-Whitney U): p = {widgets.fmt(row['edge_p'], 2)}, shift = "
-               f"{widgets.fmt(row['edge_shift_mad'], 2)} robust SD. Blank, benchmark and empty wells have no B-score.")
+    basis = str(row.get("edge_basis", "") or "")
+    test = (f"Edge against interior ({basis} basis, Mann-Whitney U): p = {widgets.fmt(row.get('edge_p'), 2)}, "
+            f"ring wells {widgets.fmt(row.get('edge_shift_pct'), 2)} % higher." if basis else
+            "Too few wells on the ring or inside for an edge test.")
+    st.caption("B-score = median-polish residual / (1.4826 x MAD) (Brideau et al. 2003). " + test
+               + " Blank, benchmark and empty wells have no B-score.")
 else:
     st.info("No B-scores on this plate (too few sample wells with a value, or the residual MAD is zero).")

@@ -1,0 +1,61 @@
+"""Shortlist: pick candidates from the ranking, note why, download the table and the next-round plates."""
+from __future__ import annotations
+
+import streamlit as st
+
+from screenlab.app import cache, widgets
+from screenlab.app.app_pages import _common
+
+SAFETY = (
+    "**Before scaling up:** a screening plate runs micromoles at fixed temperature with tiny heat release. "
+    "At larger scale the same reaction can run away: check the reaction enthalpy and the heat removal "
+    "(calorimetry), gas evolution and pressure, the stability of catalyst, substrates and solvent at the "
+    "chosen temperature, and the toxicity and handling rules of every metal and ligand. A rate measured on a "
+    "plate is not a process safety assessment."
+)
+
+ctx = widgets.context()
+st.title("Shortlist")
+if not widgets.need_campaign(ctx):
+    st.stop()
+
+a = ctx.analysis()
+metrics = _common.metric_choices()
+last = st.session_state.get("rank_last") or {}
+metric = last.get("metric") if last.get("metric") in metrics else next(iter(metrics))
+temperature = last.get("temperature")
+k = int(last.get("k") or 3)
+r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric, temperature, k)
+ranked = r[r["rank"].notna()]
+st.caption(f"Candidates ranked by **{metrics[metric]['label']}**"
+           + (f" at {temperature:g} °C" if temperature is not None else "")
+           + " (change this on the Ranking page).")
+if ranked.empty:
+    st.info("No candidate can be ranked, so there is nothing to shortlist.")
+    st.stop()
+
+options = ranked["catalyst"].astype(str).tolist()
+picked = st.multiselect("Candidates for the next round", options, default=options[:k], key="short_pick",
+                        help=f"The top {k} by default; order follows the ranking.")
+note = st.text_area("Note (kept with the shortlist)", key="short_note",
+                    placeholder="why these, what to vary next ...")
+if not picked:
+    st.info("Pick at least one candidate.")
+    st.stop()
+
+files = cache.shortlist_files(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric,
+                              temperature, k, tuple(picked), note)
+st.subheader("Shortlisted")
+widgets.table(files.table, key="short_table")
+c1, c2, c3 = st.columns(3)
+c1.download_button("Download CSV", data=files.csv, file_name=f"{ctx.campaign}-shortlist.csv", mime="text/csv",
+                   on_click="ignore", key="short_csv", icon=":material/download:")
+c2.download_button("Download XLSX", data=files.xlsx, file_name=f"{ctx.campaign}-shortlist.xlsx",
+                   mime="application/vnd.openxmlformats-officedocument.spreadsheetml.sheet", on_click="ignore",
+                   key="short_xlsx", icon=":material/download:")
+c3.download_button("Next-round campaign folder (.zip)", data=files.next_round_zip,
+                   file_name=f"{ctx.campaign}-next-round.zip", mime="application/zip", on_click="ignore",
+                   key="short_zip", icon=":material/folder_zip:")
+if files.next_round_summary:
+    st.markdown(files.next_round_summary)
+st.warning(SAFETY, icon=":material/warning:")

@@ -1,0 +1,167 @@
+"""AppTest of every page of the browser app on the demo store.
+
+AppTest (streamlit.testing.v1) runs the script in-process; it checks that each page renders
+without an exception and shows its key elements, and drives a few interactions. The numbers
+themselves are tested in the core's own tests.
+"""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from streamlit.testing.v1 import AppTest
+
+ENTRY = str(Path(__file__).resolve().parent.parent / "screenlab" / "app" / "streamlit_app.py")
+TIMEOUT = 60
+CAMPAIGN = "th-screen-2026"
+
+
+def _app(monkeypatch, store, read_only=False, campaign=CAMPAIGN) -> AppTest:
+    monkeypatch.setenv("SCREENLAB_STORE", str(store))
+    monkeypatch.setenv("SCREENLAB_READ_ONLY", "1" if read_only else "0")
+    at = AppTest.from_file(ENTRY, default_timeout=TIMEOUT)
+    at.session_state["sl_campaign"] = campaign
+    return at
+
+
+def _texts(at) -> str:
+    parts = [m.value for m in at.markdown] + [t.value for t in at.title] + [s.value for s in at.subheader]
+    parts += [c.value for c in at.caption] + [i.value for i in at.info] + [e.value for e in at.error]
+    parts += [m.label for m in at.metric]
+    return "\n".join(str(p) for p in parts)
+
+
+def _page(monkeypatch, store, page, **kw) -> AppTest:
+    at = _app(monkeypatch, store, **kw)
+    at.run()
+    assert not at.exception, at.exception
+    at.switch_page(f"app_pages/{page}.py").run()
+    assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def _figures(at) -> list[dict]:
+    return [json.loads(el.proto.spec) for el in at.get("plotly_chart")]
+
+
+def test_campaigns_overview(monkeypatch, demo_store):
+    at = _app(monkeypatch, demo_store)
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    text = _texts(at)
+    assert "Campaigns" in text and "Best candidates so far" in text and "Temperatures" in text
+    assert {m.label for m in at.metric} >= {"Plates", "Catalysts", "Blank wells", "Benchmark wells"}
+    # the campaign picker lists every stored campaign
+    assert set(at.selectbox(key="sl_campaign").options) >= {CAMPAIGN, "ester-hydrolysis-uv", "henry-chiral-2026"}
+
+
+def test_read_only_hides_import(monkeypatch, demo_store):
+    at = _app(monkeypatch, demo_store, read_only=True)
+    at.run()
+    assert not at.exception
+    with pytest.raises(Exception):
+        at.switch_page("app_pages/import_data.py").run()
+
+
+def test_import_page_reports_every_problem_before_writing(monkeypatch, demo_store_copy):
+    at = _page(monkeypatch, demo_store_copy, "import_data")
+    assert "Import history" in _texts(at)
+    # a campaign whose layout names a plate that does not exist and a reading with a bad time
+    files = {
+        "campaign.toml": b'[campaign]\nname = "broken"\n[units]\ntime = "min"\nconcentration = "mM"\n'
+                         b'volume = "uL"\n[readout]\nkind = "conversion"\nscale = "percent"\n',
+        "catalysts.csv": b"catalyst,name\nC1,cat one\n",
+        "plates.csv": b"plate,format,temperature_c\nP1,96,60\n",
+        "layout.csv": b"plate,well,role,catalyst,loading,loading_unit,substrate_conc,volume\n"
+                      b"P1,A1,sample,C1,1,umol,100,200\nP9,A2,sample,C1,1,umol,100,200\n",
+        "readings.csv": b"plate,well,time,value\nP1,A1,0,0\nP1,A1,minus five,3\n",
+    }
+    uploader = at.get("file_uploader")[0]
+    uploader.set_value([(name, data, "text/plain") for name, data in files.items()]).run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert any("problem" in e.value for e in at.error), [e.value for e in at.error]
+    frames = [df.value for df in at.dataframe]
+    problems = next(f for f in frames if "problem" in f.columns)
+    assert {"layout.csv", "readings.csv"} <= set(problems["file"].astype(str))
+    assert problems["row"].notna().any()
+    # nothing was written, and there is no commit button
+    assert not [b for b in at.button if b.key == "import_commit"]
+
+
+def test_plate_map(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "plate_map")
+    text = _texts(at)
+    assert "Plate map" in text and "Method" in text
+    figs = _figures(at)
+    heat = figs[0]
+    assert heat["data"][0]["type"] == "heatmap" and heat["data"][0]["colorscale"]
+    symbols = {t.get("marker", {}).get("symbol") for t in heat["data"][1:]}
+    assert {"square", "star"} <= symbols  # blank and benchmark told apart by shape
+    course = figs[1]
+    assert course["layout"]["xaxis"]["title"]["text"] == "time / h"
+    assert any(t.get("mode") == "lines" for t in course["data"])  # the fitted rate line
+    # another quantity re-colours the map
+    at.selectbox(key="platemap_quantity").set_value("tof_per_h").run()
+    assert not at.exception
+    assert "TOF / h⁻¹" in json.dumps(_figures(at)[0]["data"][0]["colorbar"], ensure_ascii=False)
+
+
+def test_rates(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "rates")
+    assert "Replicate time courses" in _texts(at)
+    table = at.dataframe[0].value
+    assert {"catalyst", "temperature_c", "tof_per_h", "tof_ci_low"} <= set(table.columns)
+    n = len(table)
+    at.toggle(key="rates_standard").set_value(True).run()
+    assert not at.exception
+    assert len(at.dataframe[0].value) < n
+
+
+def test_temperature_series(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "temperature")
+    text = _texts(at)
+    assert "Activation parameters" in text and "Activation-energy lowering" in text
+    fig = _figures(at)[0]
+    assert fig["layout"]["xaxis"]["title"]["text"] == "1000/T / K⁻¹"
+    assert any(t.get("fill") == "toself" for t in fig["data"])  # confidence bands
+    assert any(t.get("yaxis") == "y2" for t in fig["data"])  # the uncatalysed line
+    ea = next(df.value for df in at.dataframe if "ea_kj_mol" in df.value.columns)
+    assert "(uncatalysed)" in set(ea["catalyst"].astype(str))
+
+
+def test_ranking_metric_change(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "ranking")
+    assert "Pareto view" in _texts(at)
+    before = at.dataframe[0].value
+    box = at.selectbox(key="rank_metric")
+    assert len(box.options) >= 2
+    other = next(o for o in box.options if o != box.value)
+    box.select(other).run()
+    assert not at.exception, [e.value for e in at.exception]
+    after = at.dataframe[0].value
+    assert not before[["catalyst", "estimate"]].equals(after[["catalyst", "estimate"]])
+    forest = _figures(at)[0]
+    assert forest["data"][0]["error_x"]["array"] is not None
+
+
+def test_plate_quality(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "quality")
+    text = _texts(at)
+    assert "Z' per plate" in text and "Benchmark control chart" in text and "Edge map" in text
+    q = at.dataframe[0].value
+    assert {"plate", "zprime", "status"} <= set(q.columns)
+
+
+def test_shortlist_selection_to_download(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "shortlist")
+    assert any("scale" in w.value.lower() for w in at.warning)  # the safety caution
+    pick = at.multiselect(key="short_pick")
+    chosen = pick.options[1:3]
+    pick.set_value(chosen).run()
+    at.text_area(key="short_note").input("repeat at 80 C").run()
+    assert not at.exception, [e.value for e in at.exception]
+    table = next(df.value for df in at.dataframe if "catalyst" in df.value.columns)
+    assert list(table["catalyst"].astype(str)) == list(chosen)
+    downloads = {d.proto.label: d for d in at.get("download_button")}
+    assert {"Download CSV", "Download XLSX", "Next-round campaign folder (.zip)"} <= set(downloads)

@@ -1,0 +1,120 @@
+"""Real-browser test: the launcher starts the server, headless Debian Chromium opens every page.
+
+Marked ``e2e``. Screenshots go to test-output/screenshots/. When /usr/bin/chromium (or
+$CHROMIUM_PATH) is missing the test fails if $CI is set and is skipped otherwise. Playwright's
+own browser download is never used.
+"""
+from __future__ import annotations
+
+import os
+import shutil
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+import pytest
+
+pytestmark = pytest.mark.e2e
+
+ROOT = Path(__file__).resolve().parent.parent
+SHOTS = ROOT / "test-output" / "screenshots"
+CHROMIUM = os.environ.get("CHROMIUM_PATH", "/usr/bin/chromium")
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-dev-shm-usage", "--disable-gpu", "--disable-background-networking",
+                 "--disable-component-update", "--no-first-run", "--enable-unsafe-swiftshader"]
+CAMPAIGN = "th-screen-2026"
+#: url path -> texts that must be on the rendered page
+PAGES = {
+    "": ["Campaigns", "Best candidates so far", "Temperatures"],
+    "import_data": ["Import a campaign", "Import history"],
+    "plate_map": ["Plate map", "Method"],
+    "rates": ["Rates", "Replicate time courses"],
+    "temperature": ["Temperature series", "Activation parameters", "Activation-energy lowering"],
+    "ranking": ["Ranking", "Pareto view"],
+    "quality": ["Plate quality", "Benchmark control chart", "Edge map"],
+    "shortlist": ["Shortlist", "scale-up"],
+}
+
+
+def _need_chromium():
+    if Path(CHROMIUM).is_file():
+        return
+    if os.environ.get("CI"):
+        pytest.fail(f"{CHROMIUM} is missing; the browser test must run in CI")
+    pytest.skip(f"{CHROMIUM} is missing (set CI to make this a failure)")
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _healthy(port: int) -> bool:
+    try:
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/_stcore/health", timeout=2) as r:
+            return r.read().decode().strip() == "ok"
+    except OSError:
+        return False
+
+
+@pytest.fixture(scope="module")
+def server(demo_store, tmp_path_factory):
+    _need_chromium()
+    store = tmp_path_factory.mktemp("browser-store") / "store.duckdb"
+    shutil.copy2(demo_store, store)  # a private copy: the server process holds its own file
+    port = _free_port()
+    code = "import sys; from screenlab.cli import main; sys.exit(main(sys.argv[1:]))"
+    log = tmp_path_factory.mktemp("browser-log") / "server.log"
+    with open(log, "w") as out:
+        proc = subprocess.Popen([sys.executable, "-c", code, "app", "--store", str(store), "--port", str(port)],
+                                stdout=out, stderr=subprocess.STDOUT, cwd=tmp_path_factory.getbasetemp())
+    try:
+        deadline = time.monotonic() + 60
+        while not _healthy(port):
+            if proc.poll() is not None or time.monotonic() > deadline:
+                pytest.fail(f"the app server did not start (exit {proc.poll()}):\n{log.read_text()}")
+            time.sleep(0.3)
+        yield f"http://127.0.0.1:{port}"
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait(timeout=10)
+
+
+def wait_for_app_run(page, timeout_ms: int = 90_000) -> None:
+    """Streamlit has connected, finished running the script and drawn no placeholder skeletons."""
+    from playwright.sync_api import expect
+
+    page.wait_for_selector("[data-testid='stApp'][data-test-connection-state='CONNECTED']", timeout=timeout_ms)
+    page.wait_for_timeout(200)  # some widgets debounce before the run starts
+    page.wait_for_selector("[data-testid='stApp'][data-test-script-state='notRunning']", timeout=timeout_ms)
+    expect(page.get_by_test_id("stSkeleton")).to_have_count(0, timeout=timeout_ms)
+
+
+def test_every_page_renders_in_chromium(server):
+    from playwright.sync_api import expect, sync_playwright
+
+    SHOTS.mkdir(parents=True, exist_ok=True)
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
+        try:
+            page = browser.new_page(viewport={"width": 1440, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            for path, texts in PAGES.items():
+                page.goto(f"{server}/{path}?campaign={CAMPAIGN}", wait_until="domcontentloaded")
+                wait_for_app_run(page)
+                main = page.get_by_test_id("stMain")
+                for text in texts:
+                    expect(main.get_by_text(text, exact=False).first).to_be_visible(timeout=60_000)
+                expect(page.get_by_test_id("stException")).to_have_count(0)
+                page.screenshot(path=str(SHOTS / f"{path or 'campaigns'}.png"), full_page=True)
+            assert not errors, errors
+        finally:
+            browser.close()
