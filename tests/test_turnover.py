@@ -38,7 +38,7 @@ def test_blank_statistics_against_numpy_and_lod_definition():
     assert p1.blank_rate_mM_per_h == pytest.approx(np.mean(rates))
     assert p1.blank_sd_mM_per_h == pytest.approx(np.std(rates, ddof=1))
     assert p1.blank_se_mM_per_h == pytest.approx(stats.sem(rates))           # scipy.stats.sem (ddof=1)
-    assert p1.blank_lod_mM_per_h == pytest.approx(3 * np.std(rates, ddof=1))  # 3-sigma, common practice
+    assert p1.blank_lod_mM_per_h == pytest.approx(3 * stats.sem(rates))    # 3-sigma of the mean, common practice
     assert p1.blank_df == 3 and p1["flags"] == ""
     p2 = b[b.plate == "P2"].iloc[0]
     assert p2.n_blanks == 0 and np.isnan(p2.blank_rate_mM_per_h) and p2["flags"] == "no_blank"
@@ -102,7 +102,7 @@ def test_no_blank_plate_and_lod_lower_bound():
     assert "no_blank" in nb["flags"].split(";") and np.isnan(nb.enhancement)
     assert nb.net_rate_mM_per_h == 10.0                 # not corrected, and says so
     lb = t.loc[("P2", "B1")]
-    lod = 3 * np.std([0.01, -0.02, 0.02, 0.0], ddof=1)
+    lod = 3 * stats.sem([0.01, -0.02, 0.02, 0.0])
     assert "enhancement_lower_bound" in lb["flags"].split(";")
     assert lb.enhancement == pytest.approx(10.0 / lod)
     assert lb.enhancement_ci_high == np.inf

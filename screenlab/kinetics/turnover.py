@@ -4,10 +4,11 @@ Definitions used here (all rates in mM/h, amounts in umol, TOF in h-1):
 
 * **Blank rate** per plate x temperature (a well's own temperature_c, which may override the
   plate's): mean, SD (ddof = 1), SE = SD/sqrt(n) of the blank wells' rates. With a single blank
-  the SE is that well's own fit SE (no scatter to estimate). **Detection limit**
-  ``blank_lod_mM_per_h = 3 x SD`` of the blank rates (3-sigma criterion, Long & Winefordner,
-  Anal. Chem. 1983, 55, 712A; common practice); with one blank, 3 x its fit SE. A blank mean
-  below its LOD means "background not distinguishable from zero" (flag ``blank_below_lod``).
+  the SE is that well's own fit SE (no scatter to estimate). **Detection limit** of the blank
+  mean: ``blank_lod_mM_per_h = 3 x SD / sqrt(n) = 3 x SE`` (the 3-sigma criterion, Long &
+  Winefordner, Anal. Chem. 1983, 55, 712A, applied to the mean of the n blank wells that serves
+  as the denominator; common practice); with one blank, 3 x its fit SE. A blank mean below its
+  LOD means "background not distinguishable from zero" (flag ``blank_below_lod``).
 * **Net rate** = well rate - blank rate (same plate and temperature); SE in quadrature:
   ``sqrt(se_well^2 + se_blank^2)``. Without a blank the rate is *not* corrected (flag ``no_blank``).
 * **TOF (h-1)** = net rate x volume_uL x 1e-3 / sites_umol (mM/h x uL x 1e-3 = umol/h). It is an
@@ -41,7 +42,7 @@ FLAGS: dict[str, str] = {
     "no_blank": "No blank well on this plate at this temperature: the rate is not blank-corrected and no "
                 "enhancement is given.",
     "single_blank": "Only one blank well: its SE is the well's own fit SE and the detection limit rests on it.",
-    "blank_below_lod": "The blank rate is below its detection limit (3 x SD of the blanks): background not "
+    "blank_below_lod": "The blank rate is below its detection limit (3 x SE of the blank mean): background not "
                        "distinguishable from zero.",
     "enhancement_lower_bound": "The blank is below its detection limit, so the enhancement uses the detection limit "
                                "as denominator and is a lower bound.",
@@ -146,7 +147,7 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -
     one_se = out["one_se"].to_numpy(dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
         se = np.where(n >= 2, sd / np.sqrt(n), np.where(n == 1, one_se, np.nan))
-        lod = np.where(n >= 2, 3.0 * sd, np.where(n == 1, 3.0 * one_se, np.nan))
+        lod = 3.0 * se
     dfb = np.where(n >= 2, n - 1, np.where(n == 1, out["one_df"].to_numpy(dtype=float), np.nan))
     mean = out["blank_rate_mM_per_h"].to_numpy(dtype=float)
     detected = np.isfinite(mean) & (~np.isfinite(lod) | (mean >= lod))
