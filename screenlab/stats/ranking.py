@@ -1,0 +1,426 @@
+"""Uncertainty-aware ranking of candidates and Pareto sets over several metrics.
+
+Every candidate's metric is an estimate with a sampling distribution. The ranking draws from
+each distribution (a draws x candidates matrix), ranks every draw once (one ``argsort``), and
+reports how often each candidate comes first (``p_best``), lands in the top k (``p_top``) and
+the 2.5 / 97.5 % points of its rank over the draws (``rank_low``, ``rank_high``; the
+``(1 - confidence) / 2`` quantiles in general).
+
+Sampling distributions (chosen per metric in :data:`METRICS`):
+
+* TOF, enhancement, TON are positive ratios whose error grows with their size, so they are drawn
+  **log-normally**: ``ln X = ln x + s * T_df`` with ``T_df`` Student t and ``s`` the SE on the log
+  scale (``se / x`` by the delta method, or the log-scale SE the source gives, e.g. the Arrhenius
+  prediction's ``ln_tof_se``). Ranking two candidates then compares ratios, as a chemist does
+  ("twice as active"), and no draw goes negative.
+* Ea is a difference-like quantity from a straight-line fit, drawn from a **t** distribution:
+  ``Ea + se * T_df`` with the fit's residual df.
+
+Draws of different candidates are independent (each candidate's wells are its own); metrics of
+one candidate (TOF and Ea come from the same wells) are drawn independently in :func:`pareto`,
+which ignores their correlation.
+
+How to add a metric (selectivity, ee...): add a :class:`Metric` to :data:`METRICS` naming its
+source frame (``rates`` for per-temperature group rows, ``arrhenius`` for per-catalyst fits), the
+estimate column, its SE column (or its CI columns, from which the SE is backed out), the df
+column, the direction and whether it is log-normal. For example a selectivity in percent from
+the rates table would be ``Metric("selectivity", "selectivity", "%", "selectivity_pct", "rates",
+"selectivity_pct", se="selectivity_se_pct", df="tof_df", higher_is_better=True,
+lognormal=False)``; then test its direction and its rank probabilities against a closed form.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import stats as _st
+
+from screenlab.errors import UsageError
+
+#: Flag codes set by this module (code -> one plain sentence).
+FLAGS: dict[str, str] = {
+    "predicted_from_arrhenius": "Not measured at the ranking temperature: the TOF is the catalyst's Arrhenius "
+                                "prediction there, with its prediction interval.",
+    "extrapolated": "The ranking temperature lies outside the temperatures this catalyst was measured at.",
+    "on_failed_plate": "Some of this catalyst's wells sit on a plate that failed its quality check.",
+    "reference": "This is the benchmark (reference) catalyst, ranked alongside the candidates for comparison.",
+}
+UNCATALYSED = "(uncatalysed)"
+#: tolerance when matching a measured temperature to the ranking temperature, degC
+T_MATCH_C = 0.05
+
+
+@dataclass(frozen=True)
+class Metric:
+    """One entry of the metric table (see the module docstring, "How to add a metric")."""
+
+    name: str
+    label: str
+    unit: str                      # display unit ('' when dimensionless)
+    column: str                    # export column name of the estimate (unit in the name)
+    source: str                    # 'rates' (per temperature) | 'arrhenius' (per catalyst)
+    estimate: str
+    se: str | None = None          # SE on the estimate's own scale
+    ci: tuple[str, str] | None = None   # interval columns to back the SE out of when se is None
+    df: str | None = None          # degrees of freedom column (NaN / absent -> normal draws)
+    higher_is_better: bool = True
+    lognormal: bool = True
+    predict: bool = False          # fall back to the Arrhenius prediction at unmeasured T (TOF)
+
+    def ci_column(self, side: str) -> str:
+        """Export name of the interval column: tof_per_h -> tof_ci_low_per_h."""
+        return self.column.replace(self.name, f"{self.name}_ci_{side}", 1)
+
+
+METRICS: dict[str, Metric] = {
+    "tof": Metric("tof", "TOF", "h-1", "tof_per_h", "rates", "tof_per_h", se="tof_se_per_h", df="tof_df",
+                  higher_is_better=True, lognormal=True, predict=True),
+    # the rates table gives the enhancement's interval on the log scale, not its SE: backed out
+    # with the TOF's df (the enhancement's own Welch df is not stored; the interval is kept exactly)
+    "enhancement": Metric("enhancement", "rate enhancement over the blank", "", "enhancement", "rates",
+                          "enhancement", ci=("enhancement_ci_low", "enhancement_ci_high"), df="tof_df",
+                          higher_is_better=True, lognormal=True),
+    "ton": Metric("ton", "TON", "", "ton", "rates", "ton", se="ton_se", df="tof_df",
+                  higher_is_better=True, lognormal=True),
+    "ea": Metric("ea", "apparent Ea", "kJ/mol", "ea_kj_mol", "arrhenius", "ea_kj_mol", se="ea_se", df="fit_df",
+                 higher_is_better=False, lognormal=False),
+}
+
+RANK_COLUMNS = ["rank", "catalyst", "role", "family", "metric", "estimate", "ci_low", "ci_high", "unit",
+                "rank_low", "rank_high", "p_top", "p_best", "p_beats_reference", "n", "temperature_c", "basis",
+                "flags", "reason"]
+
+
+def _metric(name: str) -> Metric:
+    if name not in METRICS:
+        raise UsageError(f"unknown metric {name!r}; choose one of {', '.join(METRICS)}")
+    return METRICS[name]
+
+
+def _num(frame: pd.DataFrame, col: str | None) -> np.ndarray:
+    if col is None or col not in frame:
+        return np.full(len(frame), np.nan)
+    return pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=float)
+
+
+def _tq(confidence: float, df) -> np.ndarray:
+    df = np.asarray(df, dtype=float)
+    q = _st.t.ppf(0.5 + confidence / 2, np.where(np.isfinite(df) & (df > 0), df, 1.0))
+    return np.where(np.isfinite(df), np.where(df > 0, q, np.nan), _st.norm.ppf(0.5 + confidence / 2))
+
+
+def _merge_codes(*cols) -> list[str]:
+    """Element-wise union of ';'-joined flag strings, order kept, no repeats."""
+    out = []
+    for parts in zip(*cols):
+        codes = []
+        for p in parts:
+            if isinstance(p, str) and p:
+                codes.extend(c for c in p.split(";") if c)
+        out.append(";".join(dict.fromkeys(codes)))
+    return out
+
+
+def _roles(kin) -> pd.Series:
+    """catalyst -> role ('reference' wins over 'sample' when a catalyst is both)."""
+    frames = [f[["catalyst", "role"]] for f in (kin.rates, kin.wells) if f is not None and len(f) and "role" in f]
+    both = pd.concat(frames) if frames else pd.DataFrame(columns=["catalyst", "role"])
+    both = both[both["role"].astype(str).isin(["sample", "reference"]) & both["catalyst"].notna()]
+    both = both.assign(catalyst=both["catalyst"].astype(str), _r=(both["role"].astype(str) == "reference"))
+    return both.groupby("catalyst")["_r"].any().map({True: "reference", False: "sample"})
+
+
+def _plate_info(kin, quality) -> pd.DataFrame:
+    """Per catalyst: all plates failed?, any failed?, plate-quality flags of its plates."""
+    w = kin.wells
+    w = w[w["catalyst"].notna() & w["role"].astype(str).isin(["sample", "reference"])]
+    cp = w[["catalyst", "plate"]].astype(str).drop_duplicates()
+    if quality is None or quality.empty:
+        return pd.DataFrame({"catalyst": cp["catalyst"].unique(), "all_failed": False, "any_failed": False,
+                             "plate_flags": ""})
+    q = quality.assign(plate=quality["plate"].astype(str)).set_index("plate")
+    cp = cp.assign(failed=cp["plate"].map(q["status"]).eq("failed").to_numpy(),
+                   pf=cp["plate"].map(q["flags"]).fillna("").astype(str).to_numpy())
+    cp = cp.assign(pf=cp["pf"].str.replace(r"(^|;)failed(?=;|$)", r"\1", regex=True).str.strip(";"))
+    agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"),
+                                     plate_flags=("pf", lambda s: ";".join(_merge_codes(*[[x] for x in s]))))
+    return agg.reset_index()
+
+
+def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c: float | None = None,
+                    confidence: float = 0.95, catalysts: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Each candidate's estimate and sampling distribution for one metric (the ranking's input).
+
+    Columns: ``catalyst, role, family, estimate, ci_low, ci_high, mu, sigma, df, n,
+    temperature_c, basis, flags, reason``. ``mu, sigma`` are the centre and scale of the draws
+    (log scale when the metric is log-normal); ``reason`` is non-empty for candidates that
+    cannot be ranked. ``basis`` is ``measured``, ``arrhenius`` (TOF predicted at an unmeasured
+    temperature) or ``fit`` (Ea).
+    """
+    m = _metric(metric)
+    settings = getattr(kin, "settings", None)
+    if at_temperature_c is None:
+        at_temperature_c = float(getattr(settings, "reference_temperature_c", 60.0))
+    roles = _roles(kin)
+    arr = kin.arrhenius if kin.arrhenius is not None else pd.DataFrame()
+    names = set(roles.index)
+    if len(arr):
+        names |= set(arr["catalyst"].astype(str)) - {UNCATALYSED}
+    base = pd.DataFrame({"catalyst": sorted(names)})
+    base["role"] = base["catalyst"].map(roles).fillna("sample")
+    if catalysts is not None and "family" in catalysts:
+        fam = catalysts.assign(catalyst=catalysts["catalyst"].astype(str)).drop_duplicates("catalyst")
+        base["family"] = base["catalyst"].map(fam.set_index("catalyst")["family"])
+    else:
+        base["family"] = pd.NA
+
+    if m.source == "rates":
+        r = kin.rates
+        r = r[r["catalyst"].notna()].assign(catalyst=lambda d: d["catalyst"].astype(str))
+        if "is_standard" in r:
+            r = r[r["is_standard"].fillna(False).astype(bool)]
+        r = r[np.abs(_num(r, "temperature_c") - at_temperature_c) <= T_MATCH_C]
+        r = r.sort_values("n_wells", ascending=False).drop_duplicates("catalyst")
+        src = pd.DataFrame({"catalyst": r["catalyst"].to_numpy(), "estimate": _num(r, m.estimate),
+                            "se": _num(r, m.se), "lo": _num(r, m.ci[0] if m.ci else None),
+                            "hi": _num(r, m.ci[1] if m.ci else None), "df": _num(r, m.df),
+                            "n": _num(r, "n_wells"), "temperature_c": _num(r, "temperature_c"),
+                            "flags": r["flags"].fillna("").astype(str).to_numpy() if "flags" in r else "",
+                            "ln_se": np.nan, "basis": "measured"})
+        if m.predict and len(arr):
+            from screenlab.kinetics.arrhenius import predict_tof
+
+            missing = arr[arr["catalyst"].astype(str).isin(set(base["catalyst"]) - set(src["catalyst"]))]
+            if len(missing):
+                p = predict_tof(missing, at_temperature_c, confidence)
+                mi = missing.reset_index(drop=True)
+                out_of_range = (at_temperature_c < _num(mi, "t_min_c") - T_MATCH_C) | (
+                    at_temperature_c > _num(mi, "t_max_c") + T_MATCH_C)
+                flags = _merge_codes(mi["flags"].fillna("").astype(str), ["predicted_from_arrhenius"] * len(mi),
+                                     np.where(out_of_range, "extrapolated", ""))
+                n_w = kin.rates.assign(catalyst=kin.rates["catalyst"].astype(str))
+                if "is_standard" in n_w:
+                    n_w = n_w[n_w["is_standard"].fillna(False).astype(bool)]
+                n_w = n_w.groupby("catalyst")["n_wells"].sum()
+                pred = pd.DataFrame({"catalyst": mi["catalyst"].astype(str).to_numpy(),
+                                     "estimate": p["tof_per_h"].to_numpy(float), "se": np.nan, "lo": np.nan,
+                                     "hi": np.nan, "df": p["df"].to_numpy(float),
+                                     "n": mi["catalyst"].astype(str).map(n_w).to_numpy(float),
+                                     "temperature_c": at_temperature_c, "flags": flags,
+                                     "ln_se": p["ln_tof_se"].to_numpy(float), "basis": "arrhenius"})
+                src = pd.concat([src, pred], ignore_index=True)
+    else:
+        a = arr[arr["catalyst"].astype(str) != UNCATALYSED] if len(arr) else arr
+        src = pd.DataFrame({"catalyst": a["catalyst"].astype(str).to_numpy() if len(a) else [],
+                            "estimate": _num(a, m.estimate), "se": _num(a, m.se), "lo": np.nan, "hi": np.nan,
+                            "df": _num(a, m.df), "n": _num(a, "n_temperatures"), "temperature_c": np.nan,
+                            "flags": a["flags"].fillna("").astype(str).to_numpy() if len(a) else [],
+                            "ln_se": np.nan, "basis": "fit"})
+    t = base.merge(src, on="catalyst", how="left")
+    t = t.merge(_plate_info(kin, quality), on="catalyst", how="left")
+
+    est, se, df = t["estimate"].to_numpy(float), t["se"].to_numpy(float), t["df"].to_numpy(float)
+    q = _tq(confidence, df)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if m.lognormal:
+            mu = np.where(est > 0, np.log(np.where(est > 0, est, 1.0)), np.nan)
+            sig = t["ln_se"].to_numpy(float)
+            sig = np.where(np.isfinite(sig), sig, se / est)
+            if m.ci:
+                lo, hi = t["lo"].to_numpy(float), t["hi"].to_numpy(float)
+                sig = np.where(np.isfinite(sig), sig, np.log(hi / lo) / (2 * q))
+            ci_lo, ci_hi = np.exp(mu - q * sig), np.exp(mu + q * sig)
+        else:
+            mu, sig = est, se
+            ci_lo, ci_hi = mu - q * sig, mu + q * sig
+    t["mu"], t["sigma"] = mu, sig
+    t["ci_low"], t["ci_high"] = np.where(np.isfinite(sig), ci_lo, np.nan), np.where(np.isfinite(sig), ci_hi, np.nan)
+
+    # reasons, first applicable wins (vectorised with np.select)
+    no_row = ~np.isfinite(est) & t["basis"].isna().to_numpy()
+    if m.source == "rates":
+        what = f"not measured at {at_temperature_c:g} degC" + (" and no Arrhenius fit" if m.predict else "")
+    else:
+        what = "no Arrhenius fit (needs at least two temperatures)"
+    all_failed = t["all_failed"].fillna(False).to_numpy(bool)
+    n = t["n"].to_numpy(float)
+    few = (n < 2) if m.source == "rates" else (n < 3) | ~(df >= 1)
+    few_txt = "too few wells (fewer than 2 at this condition)" if m.source == "rates" else \
+        "too few temperatures for an Ea with an uncertainty (needs 3)"
+    inactive = ~(est > 0) if m.lognormal else ~np.isfinite(est)
+    inactive_txt = "no activity over the blank" if m.name in ("tof", "ton") else "no estimate"
+    lb = np.isinf(t["hi"].to_numpy(float)) if m.ci else np.zeros(len(t), bool)
+    no_sig = ~(np.isfinite(sig) & (sig > 0) & np.isfinite(mu))
+    t["reason"] = np.select(
+        [no_row, all_failed, few, inactive, lb, no_sig],
+        [what, "measured only on failed plates", few_txt, inactive_txt,
+         "only a lower bound (blank below its detection limit)", "no uncertainty estimate"], default="")
+    t.loc[no_row, ["n"]] = np.nan
+    t["flags"] = _merge_codes(t["flags"].fillna("").astype(str), t["plate_flags"].fillna("").astype(str),
+                              np.where(t["any_failed"].fillna(False).to_numpy(bool), "on_failed_plate", ""),
+                              np.where(t["role"].to_numpy() == "reference", "reference", ""))
+    t["basis"] = t["basis"].fillna("")
+    return t[["catalyst", "role", "family", "estimate", "ci_low", "ci_high", "mu", "sigma", "df", "n",
+              "temperature_c", "basis", "flags", "reason"]]
+
+
+def draw_matrix(mu, sigma, df, draws: int, rng: np.random.Generator) -> np.ndarray:
+    """draws x candidates matrix of ``mu + sigma * T_df`` (normal where df is not finite)."""
+    mu, sigma, df = (np.asarray(v, dtype=float) for v in (mu, sigma, df))
+    k = mu.size
+    z = rng.standard_normal((draws, k))
+    finite = np.isfinite(df)
+    dfx = np.where(finite, df, 1.0)
+    chi = rng.chisquare(dfx, size=(draws, k))
+    scale = np.where(finite, np.sqrt(dfx / chi), 1.0)
+    return mu + sigma * z * scale
+
+
+def rank_draws(score: np.ndarray) -> np.ndarray:
+    """Rank of each column within each row of ``score`` (1 = highest), one argsort."""
+    d, k = score.shape
+    order = np.argsort(-score, axis=1, kind="stable")
+    ranks = np.empty((d, k), dtype=np.int32)
+    np.put_along_axis(ranks, order, np.broadcast_to(np.arange(1, k + 1, dtype=np.int32), (d, k)), axis=1)
+    return ranks
+
+
+def rank_candidates(kin, quality=None, *, metric: str = "tof", at_temperature_c: float | None = None,
+                    top_k: int = 5, draws: int = 10000, seed: int = 0, confidence: float = 0.95,
+                    catalysts: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Rank candidates by a metric with their uncertainty.
+
+    ``metric`` is a key of :data:`METRICS`: ``tof`` (high is good; TOF at ``at_temperature_c``,
+    default the settings' reference temperature: the measured standard-condition group when that
+    temperature was measured, else the Arrhenius prediction with its interval), ``enhancement``
+    (high), ``ea`` (low is good), ``ton`` (high). ``quality`` (from :func:`plate_quality`) adds
+    plate flags and marks candidates measured only on failed plates unrankable. ``catalysts``
+    (CampaignData.catalysts) supplies the family column.
+
+    Columns: ``rank`` (1 = best by point estimate; NA for unrankable), ``catalyst, role, family,
+    metric, estimate, ci_low, ci_high`` (``confidence`` interval of the sampling distribution),
+    ``unit, rank_low, rank_high`` (rank interval over the draws), ``p_top`` (P(rank <= top_k)),
+    ``p_best`` (P(rank 1); sums to 1 over the ranked rows), ``p_beats_reference`` (P(better than
+    the benchmark); NaN for the benchmark and when it is unranked), ``n`` (wells, or temperatures
+    for Ea), ``temperature_c, basis, flags, reason``. Ranked rows first, then the unrankable ones
+    with their reason. The benchmark is ranked like any candidate and carries the flag
+    ``reference``. Reproducible for a given ``seed``.
+    """
+    m = _metric(metric)
+    if draws < 1:
+        raise UsageError("draws must be at least 1")
+    if top_k < 1:
+        raise UsageError("top must be at least 1")
+    t = candidate_table(kin, quality, metric=metric, at_temperature_c=at_temperature_c, confidence=confidence,
+                        catalysts=catalysts)
+    ok = (t["reason"] == "").to_numpy()
+    r, u = t[ok].reset_index(drop=True), t[~ok].sort_values("catalyst").reset_index(drop=True)
+    k = len(r)
+    sign = 1.0 if m.higher_is_better else -1.0
+    r["metric"], u["metric"] = m.name, m.name
+    r["unit"], u["unit"] = m.unit, m.unit
+    if k:
+        rng = np.random.default_rng(seed)
+        score = sign * draw_matrix(r["mu"], r["sigma"], r["df"], draws, rng)
+        ranks = rank_draws(score)
+        alpha = (1 - confidence) / 2
+        r["rank_low"] = np.quantile(ranks, alpha, axis=0, method="inverted_cdf").astype(int)
+        r["rank_high"] = np.quantile(ranks, 1 - alpha, axis=0, method="inverted_cdf").astype(int)
+        r["p_top"] = (ranks <= top_k).mean(axis=0)
+        r["p_best"] = (ranks == 1).mean(axis=0)
+        ref = np.flatnonzero(r["role"].to_numpy() == "reference")
+        if ref.size:
+            j = ref[np.argmax(sign * r["mu"].to_numpy()[ref])]  # the best-placed benchmark if several
+            pb = (score > score[:, [j]]).mean(axis=0)
+            pb[ref] = np.nan
+            r["p_beats_reference"] = pb
+        else:
+            r["p_beats_reference"] = np.nan
+        point = np.argsort(-sign * r["mu"].to_numpy(), kind="stable")
+        rank = np.empty(k, dtype=np.int64)
+        rank[point] = np.arange(1, k + 1)
+        r["rank"] = rank
+        r = r.sort_values("rank").reset_index(drop=True)
+    out = pd.concat([r, u], ignore_index=True) if len(u) else r
+    for c in ("rank_low", "rank_high", "p_top", "p_best", "p_beats_reference", "rank"):
+        if c not in out:
+            out[c] = np.nan
+    out["rank"] = out["rank"].astype("Int64")
+    out["rank_low"] = out["rank_low"].astype("Int64")
+    out["rank_high"] = out["rank_high"].astype("Int64")
+    return out[RANK_COLUMNS].reset_index(drop=True)
+
+
+def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temperature_c: float | None = None,
+           draws: int = 0, seed: int = 0, confidence: float = 0.95,
+           catalysts: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Pareto set over 2-3 metrics, each with its direction (TOF and enhancement high, Ea low).
+
+    A candidate dominates another when it is at least as good on every metric and better on one
+    (point estimates). Columns: ``catalyst, role, family``, one estimate column per metric (its
+    export name, e.g. ``tof_per_h, enhancement, ea_kj_mol``), ``on_front`` (bool),
+    ``dominated_by_count``, ``dominated_by`` (';'-joined names), ``p_front`` (with ``draws`` > 0:
+    the share of joint draws in which the candidate is on the front; metrics drawn
+    independently), ``flags, reason`` (candidates missing any metric are listed, not compared).
+    Sorted: front first, then by dominated_by_count.
+    """
+    metrics = tuple(metrics)
+    if not 2 <= len(metrics) <= 3 or len(set(metrics)) != len(metrics):
+        raise UsageError("pareto needs two or three different metrics")
+    specs = [_metric(x) for x in metrics]
+    tabs = [candidate_table(kin, quality, metric=x, at_temperature_c=at_temperature_c, confidence=confidence,
+                            catalysts=catalysts).set_index("catalyst") for x in metrics]
+    base = tabs[0][["role", "family"]].copy()
+    reasons = pd.concat([tb["reason"].rename(s.name) for tb, s in zip(tabs, specs)], axis=1)
+    base["reason"] = [";".join(f"{k}: {v}" for k, v in row.items() if v) for row in reasons.to_dict("records")]
+    base["flags"] = _merge_codes(*[tb["flags"].reindex(base.index).fillna("") for tb in tabs])
+    for tb, s in zip(tabs, specs):
+        base[s.column] = tb["estimate"].reindex(base.index)
+    ok = (base["reason"] == "").to_numpy()
+    names = base.index.to_numpy()[ok]
+    sign = np.array([1.0 if s.higher_is_better else -1.0 for s in specs])
+    pts = np.column_stack([tb["mu"].reindex(base.index).to_numpy(float)[ok] for tb in tabs]) * sign
+    dom = _dominance(pts[None])[0]                   # dom[i, j]: i dominates j
+    cnt = np.zeros(len(base), dtype=np.int64)
+    by = np.full(len(base), "", dtype=object)
+    cnt[ok] = dom.sum(axis=0)
+    by[ok] = [";".join(names[dom[:, j]]) for j in range(len(names))]   # names only: a loop over candidates
+    base["on_front"] = False
+    base.loc[ok, "on_front"] = cnt[ok] == 0
+    base["dominated_by_count"] = pd.array(np.where(ok, cnt, 0), dtype="Int64")
+    base.loc[~ok, "dominated_by_count"] = pd.NA
+    base["dominated_by"] = by
+    base["p_front"] = np.nan
+    if draws > 0 and ok.sum() > 0:
+        rng = np.random.default_rng(seed)
+        k = int(ok.sum())
+        front = np.zeros(k)
+        chunk = max(1, int(2e7 // max(1, k * k * len(specs))))
+        done = 0
+        while done < draws:                          # chunks of draws bound the memory (d x k x k x m)
+            d = min(chunk, draws - done)
+            cube = np.stack([sign[i] * draw_matrix(tb["mu"].reindex(names), tb["sigma"].reindex(names),
+                                                   tb["df"].reindex(names), d, rng)
+                             for i, tb in enumerate(tabs)], axis=2)
+            front += (~_dominance(cube).any(axis=1)).sum(axis=0)
+            done += d
+        base.loc[ok, "p_front"] = front / draws
+    base = base.reset_index().rename(columns={"index": "catalyst"})
+    base["_o"] = np.where(ok, 0, 1)
+    base = base.sort_values(["_o", "on_front", "dominated_by_count", "catalyst"],
+                            ascending=[True, False, True, True]).drop(columns="_o")
+    cols = ["catalyst", "role", "family", *[s.column for s in specs], "on_front", "dominated_by_count",
+            "dominated_by", "p_front", "flags", "reason"]
+    return base[cols].reset_index(drop=True)
+
+
+def _dominance(pts: np.ndarray) -> np.ndarray:
+    """pts: (draws, k, m) scores, higher better. Returns (draws, k, k): [d, i, j] = i dominates j."""
+    a = pts[:, :, None, :]
+    b = pts[:, None, :, :]
+    return (a >= b).all(axis=3) & (a > b).any(axis=3)
+
+
+__all__ = ["FLAGS", "METRICS", "Metric", "candidate_table", "draw_matrix", "rank_draws", "rank_candidates",
+           "pareto"]
