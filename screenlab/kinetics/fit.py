@@ -94,7 +94,7 @@ class LineFit:
     """Per-group straight line ``y = intercept + slope x`` (arrays of length n_groups).
 
     n (int), slope, intercept, slope_se, intercept_se, cov_slope_intercept, rss, resid_sd, df
-    (int, n - 2). SEs and resid_sd are NaN when df < 1; slope is NaN when x has no spread.
+    (int, n - 2), sxx (sum of squared x deviations, for pooling SDs across groups). SEs and resid_sd are NaN when df < 1; slope is NaN when x has no spread.
     """
 
     n: np.ndarray
@@ -106,6 +106,7 @@ class LineFit:
     rss: np.ndarray
     resid_sd: np.ndarray
     df: np.ndarray
+    sxx: np.ndarray
 
 
 def fit_lines(x, y, group, n_groups: int | None = None) -> LineFit:
@@ -133,7 +134,7 @@ def fit_lines(x, y, group, n_groups: int | None = None) -> LineFit:
     rss = np.where(spread, rss, np.nan)
     return LineFit(n=n, slope=slope, intercept=intercept, slope_se=slope_se,
                    intercept_se=intercept_se, cov_slope_intercept=cov, rss=rss,
-                   resid_sd=np.sqrt(s2), df=np.maximum(df, 0))
+                   resid_sd=np.sqrt(s2), df=np.maximum(df, 0), sxx=sxx)
 
 
 @dataclass(frozen=True)

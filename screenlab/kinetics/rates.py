@@ -50,8 +50,8 @@ FLAGS: dict[str, str] = {
     "end_point_only": "Only one reading after t = 0: the rate is product / time (an average, no standard error).",
     "above_window": "The first reading after t = 0 is already above the conversion window, so the initial "
                     "rate is underestimated.",
-    "induction": "Induction period: the slope over the first half of the fitted readings is below half the "
-                 "slope over the second half, by more than 3 standard errors.",
+    "induction": "Induction period: a line through the first half of the fitted readings is less than half "
+                 "as steep as one through the second half, by more than 3 standard errors.",
     "deactivation": "Deactivation (or an equilibrium limit): the product gained after the initial segment is "
                     "less than half of what the initial rate slowed only by substrate depletion would give, "
                     "by more than 3 residual SDs.",
@@ -238,7 +238,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         tq = stats.t.ppf(0.5 + settings.confidence / 2.0, np.where(rate_df > 0, rate_df, 1))
         half = np.where((rate_df > 0) & np.isfinite(rate_se), tq * rate_se, np.nan)
 
-    induction = _induction(g, t, prod, in_fit, resid_sd, G)
+    induction = _induction(g, t, prod, in_fit, G)
     deactivation = _deactivation(rate, intercept, theo, t_end_seg, last_time, last_prod,
                                  resid_sd, method)
 
@@ -282,25 +282,28 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     return out
 
 
-def _induction(g, t, prod, in_fit, resid_sd, G) -> np.ndarray:
-    """Chord slope over the first half of the fitted readings < 0.5 x that over the second half,
-    and the difference above FLAG_SIGMAS x its SE (each chord's SE taken as s sqrt(2) / dt)."""
+def _induction(g, t, prod, in_fit, G) -> np.ndarray:
+    """Straight lines through the first and the second half of the fitted readings (sharing the
+    middle reading): flagged when the early slope is below half the late slope and the
+    difference exceeds FLAG_SIGMAS standard errors (pooled residual SD of the two lines)."""
     gi, ti, pi = g[in_fit], t[in_fit], prod[in_fit]
-    n = np.bincount(gi, minlength=G)
-    starts = _group_starts(gi, G)
-    ok = n >= 4
-    i0 = np.where(ok, starts, 0)
-    im = np.where(ok, starts + n // 2, 0)
-    il = np.where(ok, starts + n - 1, 0)
     if gi.size == 0:
         return np.zeros(G, dtype=bool)
+    n = np.bincount(gi, minlength=G)
+    starts = _group_starts(gi, G)
+    pos = np.arange(gi.size) - starts[gi]
+    mid = (n // 2)[gi]
+    one, two = pos <= mid, pos >= mid
+    codes = np.concatenate([2 * gi[one], 2 * gi[two] + 1])
+    lf = fit.fit_lines(np.concatenate([ti[one], ti[two]]), np.concatenate([pi[one], pi[two]]), codes, 2 * G)
+    early, late = lf.slope[0::2], lf.slope[1::2]
+    df = (lf.n[0::2] - 2) + (lf.n[1::2] - 2)
     with np.errstate(invalid="ignore", divide="ignore"):
-        dt1, dt2 = ti[im] - ti[i0], ti[il] - ti[im]
-        early = (pi[im] - pi[i0]) / dt1
-        late = (pi[il] - pi[im]) / dt2
-        se = resid_sd * np.sqrt(2.0) * np.sqrt(1.0 / dt1 ** 2 + 1.0 / dt2 ** 2)
-        hit = ok & (dt1 > 0) & (dt2 > 0) & (late > 0) & (early < 0.5 * late) & ((late - early) > FLAG_SIGMAS * se)
-    return np.asarray(hit & np.isfinite(se), dtype=bool)
+        rss = np.nan_to_num(lf.rss[0::2]) + np.nan_to_num(lf.rss[1::2])
+        s2 = rss / df
+        se = np.sqrt(s2 / lf.sxx[0::2] + s2 / lf.sxx[1::2])
+        hit = (n >= 4) & (df > 0) & (late > 0) & (early < 0.5 * late) & ((late - early) > FLAG_SIGMAS * se)
+    return np.asarray(hit, dtype=bool)
 
 
 def _deactivation(rate, intercept, theo, t_end, last_time, last_prod, resid_sd, method) -> np.ndarray:
