@@ -71,6 +71,10 @@ def run_ingest(args) -> int:
             _print_problems(str(src), exc)
             done["failed"] += 1
             continue
+        except (OSError, UnicodeError, ValueError, KeyError, TypeError) as exc:  # a file the reader choked on
+            _err(f"{src}: could not be read ({type(exc).__name__}: {exc}); nothing was written")
+            done["failed"] += 1
+            continue
         for note in result.notes:
             print(f"{src}: note: {note}")
         try:

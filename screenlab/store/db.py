@@ -614,7 +614,10 @@ class Store:
                 con.rollback()
                 raise
             if report.import_id is not None and report.n_readings >= CHECKPOINT_READINGS:
-                con.execute(Q.CHECKPOINT)
+                try:  # merge the WAL into the file now; only an optimisation, the import is committed
+                    con.execute(Q.CHECKPOINT)
+                except duckdb.Error:
+                    pass
         assert report.campaign == name and report.status in _STATUSES
         return report
 

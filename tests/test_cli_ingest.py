@@ -1,0 +1,177 @@
+"""``screenlab ingest`` and ``screenlab campaigns`` end to end (reader + store), exit codes and messages.
+
+The expected counts come from the synthetic files as read by the stdlib ``csv`` module, not from
+screenlab; the lock message format is DuckDB's (https://duckdb.org/docs/2.0/connect/concurrency.html).
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import subprocess
+import sys
+import zipfile
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).parent))
+from store_samples import write_campaign  # noqa: E402
+
+from screenlab.cli import main  # noqa: E402
+from screenlab.store import Store  # noqa: E402
+
+CLI = [sys.executable, "-c", "import sys; from screenlab.cli import main; sys.exit(main())"]
+
+
+def run(capsys, *argv):
+    code = main(list(argv))
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def n_rows(path: Path) -> int:
+    with open(path, newline="") as fh:
+        return sum(1 for _ in csv.DictReader(fh))
+
+
+def test_ingest_a_folder_then_again(tmp_path, capsys):
+    folder = write_campaign(tmp_path / "c", name="aldol-1")
+    db = str(tmp_path / "s.duckdb")
+    code, out, err = run(capsys, "ingest", str(folder), "--store", db)
+    assert code == 0, err
+    assert "aldol-1: new campaign with 2 plates (P1, P2)" in out
+    assert f"{n_rows(folder / 'readings.csv'):,} readings" in out and f"{n_rows(folder / 'layout.csv')} wells" in out
+    code, out, err = run(capsys, "ingest", str(folder), "--store", db)
+    assert code == 0 and "unchanged, nothing to import" in out
+    assert len(Store(db).imports()) == 1
+
+
+def test_ingest_a_folder_of_campaigns_and_a_zip(tmp_path, capsys):
+    root = tmp_path / "round1"
+    write_campaign(root / "a", name="alpha")
+    write_campaign(root / "b", name="beta", plates=("Q1",))
+    src = write_campaign(tmp_path / "z", name="gamma", plates=("Z1",))
+    with zipfile.ZipFile(root / "gamma.zip", "w") as zf:
+        for f in src.iterdir():
+            zf.write(f, f"gamma/{f.name}")
+    db = str(tmp_path / "s.duckdb")
+    code, out, err = run(capsys, "ingest", str(root), "--store", db)
+    assert code == 0, err
+    assert "3 campaigns: 3 done, 0 with errors" in out
+    assert Store(db).campaign_names() == ["alpha", "beta", "gamma"]
+    code, out, _ = run(capsys, "campaigns", "--store", db, "--format", "csv")
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert [r["campaign"] for r in rows] == ["alpha", "beta", "gamma"]
+    assert [int(r["plates"]) for r in rows] == [2, 1, 1]
+    assert int(rows[1]["readings"]) == n_rows(root / "b" / "readings.csv")
+    assert rows[0]["imported_at"].endswith("Z")
+    code, out, _ = run(capsys, "campaigns", "--store", db, "--format", "json")
+    data = json.loads(out)
+    assert {d["campaign"]: d["wells"] for d in data} == {"alpha": 192, "beta": 96, "gamma": 96}
+    code, out, _ = run(capsys, "campaigns", "--store", db)
+    assert code == 0 and "alpha" in out and "readings" in out.splitlines()[0]
+
+
+def test_bad_file_lists_every_problem_and_writes_nothing(tmp_path, capsys):
+    folder = write_campaign(tmp_path / "bad", name="bad-one")
+    with open(folder / "readings.csv", "a") as fh:
+        fh.write("P1,Z99,x,5\nP9,A1,10,3\n")
+    db = tmp_path / "s.duckdb"
+    code, out, err = run(capsys, "ingest", str(folder), "--store", str(db))
+    assert code == 1
+    assert "nothing was written" in err
+    assert "readings.csv, row" in err and "column 'well'" in err and "'Z99'" in err
+    assert "column 'time'" in err
+    assert "Traceback" not in err
+    assert Store(db).campaign_names() == []
+
+
+def test_one_bad_campaign_does_not_stop_the_others(tmp_path, capsys):
+    root = tmp_path / "r"
+    write_campaign(root / "good", name="good")
+    bad = write_campaign(root / "worse", name="worse")
+    (bad / "plates.csv").write_text("plate,format,temperature_c\nP1,97,40\nP2,96,50\n")
+    db = tmp_path / "s.duckdb"
+    code, out, err = run(capsys, "ingest", str(root), "--store", str(db))
+    assert code == 1
+    assert "good: new campaign" in out and "1 with errors" in out
+    assert "plates.csv, row 2, column 'format'" in err
+    assert Store(db).campaign_names() == ["good"]
+
+
+def test_usage_errors_exit_2(tmp_path, capsys):
+    code, _, err = run(capsys, "ingest", str(tmp_path / "nowhere"), "--store", str(tmp_path / "s.duckdb"))
+    assert code == 2 and "does not exist" in err
+    folder = write_campaign(tmp_path / "c")
+    code, _, err = run(capsys, "ingest", str(folder), "--store", str(tmp_path / "no" / "dir" / "s.duckdb"))
+    assert code == 2 and "does not exist" in err
+    with pytest.raises(SystemExit) as exc:
+        main(["ingest"])
+    assert exc.value.code == 2
+
+
+def test_folder_without_campaign_is_a_data_error(tmp_path, capsys):
+    (tmp_path / "empty").mkdir()
+    code, _, err = run(capsys, "ingest", str(tmp_path / "empty"), "--store", str(tmp_path / "s.duckdb"))
+    assert code == 1 and "no campaign" in err
+
+
+def test_changed_plate_refused_then_replaced_and_dry_run(tmp_path, capsys):
+    db = str(tmp_path / "s.duckdb")
+    folder = write_campaign(tmp_path / "c", name="swap", plates=("P1", "P2"))
+    assert run(capsys, "ingest", str(folder), "--store", db)[0] == 0
+    write_campaign(folder, name="swap", plates=("P1", "P2"), k_scale=1.5)   # new readings for both plates
+    code, out, err = run(capsys, "ingest", str(folder), "--store", db)
+    assert code == 1 and "refused" in err and "P1 (readings)" in err and "P2 (readings)" in err
+    assert "--replace" in err
+    code, out, err = run(capsys, "ingest", str(folder), "--store", db, "--replace", "--dry-run")
+    assert code == 0 and "dry run, nothing written" in out
+    assert len(Store(db).imports()) == 1
+    code, out, err = run(capsys, "ingest", str(folder), "--store", db, "--replace")
+    assert code == 0 and "replaced 2 plates (P1, P2)" in out
+    hist = Store(db).imports("swap")
+    assert hist["status"].tolist() == ["imported", "replaced"]
+    # a new plate in the same folder is added
+    write_campaign(folder, name="swap", plates=("P1", "P2", "P3"), k_scale=1.5)
+    code, out, _ = run(capsys, "ingest", str(folder), "--store", db)
+    assert code == 0 and "added 1 plate (P3)" in out
+
+
+def test_store_from_the_environment(tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("SCREENLAB_STORE", str(tmp_path / "env.duckdb"))
+    folder = write_campaign(tmp_path / "c", name="envy", plates=("P1",))
+    assert run(capsys, "ingest", str(folder))[0] == 0
+    assert (tmp_path / "env.duckdb").exists()
+    code, out, _ = run(capsys, "campaigns", "--format", "json")
+    assert json.loads(out)[0]["campaign"] == "envy"
+
+
+def test_campaigns_without_a_store(tmp_path, capsys):
+    code, _, err = run(capsys, "campaigns", "--store", str(tmp_path / "none.duckdb"))
+    assert code == 1 and "no store at" in err
+
+
+def test_busy_store_from_a_real_subprocess(tmp_path):
+    db = tmp_path / "busy.duckdb"
+    folder = write_campaign(tmp_path / "c", name="busy", plates=("P1",))
+    Store(db).campaign_names()
+    holder = subprocess.Popen(
+        [sys.executable, "-c", "import sys, duckdb; con = duckdb.connect(sys.argv[1]); print('ready', flush=True); "
+         "sys.stdin.read()", str(db)], stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline().strip() == "ready"
+        env = dict(os.environ, SCREENLAB_BUSY_TIMEOUT_S="0.5")
+        res = subprocess.run(CLI + ["ingest", str(folder), "--store", str(db)], capture_output=True, text=True,
+                             env=env, timeout=120)
+    finally:
+        holder.stdin.close()
+        holder.wait(timeout=20)
+    assert res.returncode == 1
+    assert f"in use by another process (PID {holder.pid})" in res.stderr
+    assert "Traceback" not in res.stderr
+    # once the other process is gone the same command works
+    res = subprocess.run(CLI + ["ingest", str(folder), "--store", str(db)], capture_output=True, text=True,
+                         timeout=120)
+    assert res.returncode == 0 and "busy: new campaign" in res.stdout
