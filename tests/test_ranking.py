@@ -198,7 +198,7 @@ def test_pareto_front_and_dominance():
     assert not p.loc["K2", "on_front"] and p.loc["K2", "dominated_by"] == "K0;K1;K3"
     assert p.loc["K3", "dominated_by"] == "K0" and p.loc["K3", "dominated_by_count"] == 1
     assert p.loc["K0", "p_front"] == 1.0 and p.loc["K2", "p_front"] == 0.0
-    assert list(p.columns[2:5]) == ["family", "tof_per_h", "ea_kj_mol"]
+    assert list(p.columns[1:4]) == ["family", "tof_per_h", "ea_kj_mol"]
     # three metrics; a candidate without an Ea is listed with its reason, not compared
     kin2 = fake_kin([100.0, 50.0], [1.0, 1.0], ea=[70.0, 50.0], ea_se=[0.5, np.nan])
     p3 = pareto(kin2, metrics=("tof", "enhancement", "ea")).set_index("catalyst")
