@@ -16,6 +16,7 @@ import sys
 COMMAND_MODULES = [
     "screenlab.cli.ingest_cmd",
     "screenlab.cli.app_cmd",
+    "screenlab.cli.kinetics_cmd",
 ]
 
 

@@ -1,0 +1,123 @@
+"""``screenlab rates``, ``screenlab arrhenius`` and ``screenlab orders``: kinetics tables of a stored campaign.
+
+rates      one row per catalyst x temperature x condition (``--per-well``: one row per well)
+arrhenius  one row per catalyst at its standard condition, plus the "(uncatalysed)" row
+orders     apparent orders in substrate concentration and in catalyst loading
+
+Settings come from the campaign's [analysis] table, overridden by the flags given here.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+from screenlab.cli.common import add_format_option, add_store_option, emit, resolve_store_path
+
+RATES_COLUMNS = ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", "n_wells",
+                 "rate_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton", "enhancement",
+                 "enhancement_ci_low", "enhancement_ci_high", "is_standard", "flags"]
+WELL_COLUMNS = ["plate", "well", "role", "catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
+                "method", "rate_mM_per_h", "rate_se_mM_per_h", "blank_rate_mM_per_h", "net_rate_mM_per_h",
+                "sites_umol", "tof_per_h", "tof_se_per_h", "ton", "enhancement", "enhancement_ci_low",
+                "enhancement_ci_high", "outlier", "flags"]
+ARRHENIUS_COLUMNS = ["catalyst", "n_temperatures", "ea_kj_mol", "ea_se", "ea_ci_low", "ea_ci_high", "ln_a",
+                     "dh_kj_mol", "ds_j_mol_k", "dg_ref_kj_mol", "tof_ref_per_h", "tof_ref_ci_low",
+                     "tof_ref_ci_high", "delta_ea_kj_mol", "delta_ea_ci_low", "delta_ea_ci_high", "flags"]
+ORDERS_COLUMNS = ["catalyst", "temperature_c", "variable", "n_levels", "order", "order_se", "order_ci_low",
+                  "order_ci_high", "fixed", "tof_slope", "flags"]
+
+
+def _common(p) -> None:
+    p.add_argument("--campaign", metavar="NAME", required=True, help="campaign name in the store")
+    add_format_option(p)
+    add_store_option(p)
+    p.add_argument("--window", metavar="PCT", type=float, default=None,
+                   help="initial-rate conversion window, percent (default: campaign setting, else 20)")
+    p.add_argument("--confidence", metavar="C", type=float, default=None,
+                   help="confidence level of every interval, e.g. 0.95")
+
+
+def register(sub) -> None:
+    r = sub.add_parser("rates", help="per-group (or per-well) rates, TOF, TON and enhancement of a campaign",
+                       description="Blank-corrected rates, TOF (h-1) with t-based intervals, TON at the last "
+                       "reading and rate enhancement over the blank, per catalyst x temperature x condition.")
+    _common(r)
+    r.add_argument("--per-well", action="store_true", help="one row per well instead of per group")
+    r.set_defaults(func=run_rates)
+
+    a = sub.add_parser("arrhenius", help="Arrhenius / Eyring parameters per catalyst",
+                       description="Weighted fit of ln TOF on 1/T per catalyst at its standard condition: Ea, "
+                       "ln A, dH, dS, dG and TOF at the reference temperature, and Ea relative to the blank.")
+    _common(a)
+    a.add_argument("--reference-temperature", metavar="C", type=float, default=None,
+                   help="temperature (degC) for TOF and dG comparison (default: campaign setting, else 60)")
+    a.set_defaults(func=run_arrhenius)
+
+    o = sub.add_parser("orders", help="apparent orders in substrate and in catalyst loading",
+                       description="Slopes of ln rate on ln substrate concentration and on ln loading, at fixed "
+                       "temperature and other conditions, with intervals; flags TOF that falls with loading.")
+    _common(o)
+    o.set_defaults(func=run_orders)
+
+
+def _check(args) -> None:
+    from screenlab.errors import UsageError
+
+    if args.confidence is not None and not 0.5 <= args.confidence < 1.0:
+        raise UsageError(f"--confidence {args.confidence}: give a level between 0.5 and 1, e.g. 0.95")
+    if args.window is not None and not 0.0 < args.window <= 100.0:
+        raise UsageError(f"--window {args.window}: give a conversion percentage above 0 and at most 100")
+    ref = getattr(args, "reference_temperature", None)
+    if ref is not None and ref <= -273.15:
+        raise UsageError(f"--reference-temperature {ref}: below absolute zero")
+
+
+def _kinetics(args):
+    from screenlab.errors import NotFoundError, UsageError
+    from screenlab.pipeline import settings_for
+    from screenlab.store import Store
+
+    _check(args)
+    path = resolve_store_path(args.store)
+    if not Path(path).exists():
+        raise UsageError(f"store {path} does not exist; import a campaign first with 'screenlab ingest PATH'")
+    store = Store(path, read_only=True)
+    try:
+        names = store.campaign_names()
+        if args.campaign not in names:
+            known = ", ".join(names) if names else "none"
+            raise NotFoundError(f"campaign {args.campaign!r} is not in {path} (stored: {known})")
+        data = store.load_campaign(args.campaign)
+    finally:
+        store.close()
+    from screenlab.kinetics import analyse_kinetics
+
+    settings = settings_for(data, conversion_window_pct=args.window, confidence=args.confidence,
+                            reference_temperature_c=getattr(args, "reference_temperature", None))
+    return data, analyse_kinetics(data, settings)
+
+
+def _pick(frame, cols):
+    return frame[[c for c in cols if c in frame.columns]]
+
+
+def run_rates(args) -> int:
+    data, kin = _kinetics(args)
+    if args.per_well:
+        cols = WELL_COLUMNS[:8] + list(data.factor_names) + WELL_COLUMNS[8:]
+        emit(_pick(kin.wells, cols), args.format)
+    else:
+        cols = RATES_COLUMNS[:6] + list(data.factor_names) + RATES_COLUMNS[6:]
+        emit(_pick(kin.rates, cols), args.format)
+    return 0
+
+
+def run_arrhenius(args) -> int:
+    _, kin = _kinetics(args)
+    emit(_pick(kin.arrhenius, ARRHENIUS_COLUMNS), args.format)
+    return 0
+
+
+def run_orders(args) -> int:
+    _, kin = _kinetics(args)
+    emit(_pick(kin.orders, ORDERS_COLUMNS), args.format)
+    return 0
