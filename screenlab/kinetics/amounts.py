@@ -62,7 +62,9 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
     """One row per reading: ``plate, well, analyte, time_h, product_mM, conversion_pct, baseline``.
 
     ``baseline`` is ``t0`` or ``first_reading`` for absorbance readouts (which reading was taken
-    as zero product) and NA for the other kinds. Rows come sorted by plate, well, analyte, time.
+    as zero product) and NA for the other kinds. Rows keep the order of ``data.readings`` (sorted
+    by plate, well, analyte, time per the CampaignData contract); added enantiomer-sum rows are
+    sorted in.
     """
     m = data.manifest
     kind = (m.readout_kind or "").strip().lower()
@@ -70,11 +72,11 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
     rd["value"] = pd.to_numeric(rd["value"], errors="coerce").astype(float)
     rd["time_h"] = rd["time_h"].astype(float)
     w = data.wells[["plate", "well", "substrate_conc_mM"]].drop_duplicates(["plate", "well"])
-    rd = rd.merge(w, on=["plate", "well"], how="left", validate="many_to_one")
+    rd = rd.merge(w, on=["plate", "well"], how="left")   # w is unique per (plate, well)
     s0 = rd["substrate_conc_mM"].to_numpy(dtype=float)
     theo = s0 * float(m.product_per_substrate)            # theoretical maximum product, mM
     value = rd["value"].to_numpy(dtype=float)
-    baseline = pd.array([pd.NA] * len(rd), dtype="string")
+    baseline = pd.Series(pd.NA, index=rd.index, dtype="string")
 
     if kind in ("conversion", "yield"):
         product = value * _fraction_scale(m) * theo
@@ -87,21 +89,23 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
                              "epsilon_M_cm and path_length_cm")
         base, is_t0 = _absorbance_baseline(rd)
         product = (value - base) / (float(eps) * float(path)) * 1000.0   # mol/L -> mM
-        baseline = pd.array(np.where(is_t0, "t0", "first_reading"), dtype="string")
+        baseline = pd.Series(np.where(is_t0, "t0", "first_reading"), index=rd.index, dtype="string")
     else:
         raise UsageError(f"campaign.toml: unknown [readout].kind {m.readout_kind!r}")
 
     with np.errstate(divide="ignore", invalid="ignore"):
         conv = np.where(theo > 0, product / theo * 100.0, np.nan)
-    out = pd.DataFrame({
-        "plate": rd["plate"].to_numpy(), "well": rd["well"].to_numpy(),
-        "analyte": rd["analyte"].to_numpy(), "time_h": rd["time_h"].to_numpy(),
-        "product_mM": product, "conversion_pct": conv, "baseline": baseline,
-    })
+    # string columns are passed on as they are (converting Arrow strings to numpy is slow)
+    out = rd[["plate", "well", "analyte", "time_h"]].copy()
+    out["product_mM"] = product
+    out["conversion_pct"] = conv
+    out["baseline"] = baseline
+    out = out.reset_index(drop=True)
 
     if m.enantiomers:
         out = _add_enantiomer_sum(out, m.enantiomers, m.analyte_main, w, float(m.product_per_substrate))
-    return out.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
+        out = out.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
+    return out
 
 
 def _add_enantiomer_sum(out: pd.DataFrame, pair, main: str, wells: pd.DataFrame, pps: float) -> pd.DataFrame:

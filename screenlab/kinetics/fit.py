@@ -185,6 +185,33 @@ def fit_first_order(t, y, group, n_groups: int | None = None, *, plateau=None, k
     """
     t, y, g, G = _prepare(t, y, group, n_groups)
     n = np.bincount(g, minlength=G)
+    present = n > 0
+    if G and not present.all():
+        # fit only the groups that have points, then scatter back (empty groups: status 1)
+        local = np.cumsum(present) - 1
+
+        def part(v):
+            return None if v is None else np.broadcast_to(np.asarray(v, dtype=float), (G,))[present]
+
+        sub = fit_first_order(t, y, local[g], int(present.sum()), plateau=part(plateau),
+                              k_start=part(k_start),
+                              k_bounds=None if k_bounds is None else (part(k_bounds[0]), part(k_bounds[1])),
+                              n_grid=n_grid, n_golden=n_golden, n_polish=n_polish)
+        full = {}
+        for name, v in vars(sub).items():
+            if v.dtype == bool:
+                arr = np.zeros(G, dtype=bool)
+            elif name == "status":
+                arr = np.full(G, TOO_FEW, dtype=v.dtype)
+            elif np.issubdtype(v.dtype, np.integer):
+                arr = np.zeros(G, dtype=v.dtype)
+            else:
+                arr = np.full(G, np.nan)
+            arr[present] = v
+            full[name] = arr
+        full["fixed"] = np.isfinite(np.broadcast_to(np.asarray(plateau, dtype=float), (G,))) if plateau is not None else full["fixed"]
+        full["n_params"] = np.where(full["fixed"], 1, 2)
+        return FirstOrderFit(**full)
     if plateau is None:
         p = np.full(G, np.nan)
     else:
