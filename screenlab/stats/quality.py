@@ -346,7 +346,7 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     blank_ratio, blank_z`` (the plate's blank against the blank Arrhenius line; the worst
     temperature on a gradient plate), ``edge_basis`` (replicates | bscore | '' when untested),
     ``edge_n, interior_n``, ``edge_shift_pct`` (replicates basis: how much higher ring wells
-    run than their interior replicates, median, percent), ``edge_p`` (Mann-Whitney U),
+    run than interior ones relative to their replicate groups, geometric mean, percent), ``edge_p`` (Mann-Whitney U),
     ``bscore_max_abs``, ``reference_loo_t`` (control chart), ``status`` (ok | flagged | failed)
     and ``flags`` (see :data:`FLAGS`).
     """
@@ -448,7 +448,7 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         if len(e) >= EDGE_MIN_WELLS and len(i) >= EDGE_MIN_WELLS:
             out.loc[plate, "edge_basis"] = basis
             if basis == "replicates":
-                out.loc[plate, "edge_shift_pct"] = 100 * (np.exp(np.median(e) - np.median(i)) - 1)
+                out.loc[plate, "edge_shift_pct"] = 100 * (np.exp(e.mean() - i.mean()) - 1)
             if np.ptp(np.concatenate([e, i])) > 0:
                 out.loc[plate, "edge_p"] = float(_st.mannwhitneyu(e, i, alternative="two-sided").pvalue)
 

@@ -131,11 +131,19 @@ def _roles(kin) -> pd.Series:
     return both.groupby("catalyst")["_r"].any().map({True: "reference", False: "sample"})
 
 
-def _plate_info(kin, quality) -> pd.DataFrame:
-    """Per catalyst: all plates failed?, any failed?, plate-quality flags of its plates."""
+def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFrame:
+    """Per catalyst: all plates failed?, any failed?, plate-quality flags of its plates.
+
+    ``plates_used`` maps catalyst -> ';'-joined plates behind its estimate (the rates row's
+    ``plates``); catalysts not in it use every plate they have wells on (Arrhenius-based metrics).
+    """
     w = kin.wells
     w = w[w["catalyst"].notna() & w["role"].astype(str).isin(["sample", "reference"])]
     cp = w[["catalyst", "plate"]].astype(str).drop_duplicates()
+    if plates_used is not None and len(plates_used):
+        used = plates_used.dropna().astype(str).str.split(";").explode().rename("plate").reset_index()
+        used.columns = ["catalyst", "plate"]
+        cp = pd.concat([cp[~cp["catalyst"].isin(used["catalyst"])], used], ignore_index=True)
     if quality is None or quality.empty:
         return pd.DataFrame({"catalyst": cp["catalyst"].unique(), "all_failed": False, "any_failed": False,
                              "plate_flags": ""})
@@ -187,7 +195,8 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
                             "hi": _num(r, m.ci[1] if m.ci else None), "df": _num(r, m.df),
                             "n": _num(r, "n_wells"), "temperature_c": _num(r, "temperature_c"),
                             "flags": r["flags"].fillna("").astype(str).to_numpy() if "flags" in r else "",
-                            "ln_se": np.nan, "basis": "measured"})
+                            "ln_se": np.nan, "basis": "measured",
+                            "plates": r["plates"].to_numpy() if "plates" in r else np.nan})
         if m.predict and len(arr):
             from screenlab.kinetics.arrhenius import predict_tof
 
@@ -218,7 +227,8 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
                             "flags": a["flags"].fillna("").astype(str).to_numpy() if len(a) else [],
                             "ln_se": np.nan, "basis": "fit"})
     t = base.merge(src, on="catalyst", how="left")
-    t = t.merge(_plate_info(kin, quality), on="catalyst", how="left")
+    used = src.set_index("catalyst")["plates"] if "plates" in src else None
+    t = t.merge(_plate_info(kin, quality, used), on="catalyst", how="left")
 
     est, se, df = t["estimate"].to_numpy(float), t["se"].to_numpy(float), t["df"].to_numpy(float)
     q = _tq(confidence, df)
