@@ -63,6 +63,7 @@ def test_migrations_from_an_empty_store(tmp_path):
 
     assert meta["duckdb_version"].lstrip("v") == duckdb.__version__
     assert meta["storage_version"] and "DuckDB" in meta["storage_note"]
+    assert "last_written_by" not in meta          # set by the first import
     # opening again (a new Store object) applies nothing twice
     assert Store(path).schema_versions() == shipped
     assert Store(path, read_only=True).campaigns().empty
@@ -180,6 +181,7 @@ def test_reimport_of_unchanged_data_adds_nothing(store):
     store.import_campaign(data)
     counts, version = store.table_counts(), store.data_version()
     again = store.import_campaign(data)
+    assert store.metadata()["last_written_by"].startswith("DuckDB v")
     assert again.status == "unchanged" and again.import_id is None
     assert again.plates_unchanged == ("P1", "P2") and "nothing to import" in again.message
     assert store.table_counts() == counts and store.data_version() == version

@@ -767,6 +767,7 @@ class Store:
             import_id, name, now, source, status, added, changed, unchanged, cats_added, cats_changed,
             bool(manifest_changed and replace), n_wells, n_readings, message, __version__, str(lib)])
         _bulk_insert(con, "import_files", _files_frame(files, import_id))
+        con.execute(Q.UPSERT_META, ["last_written_by", f"DuckDB {lib}, screenlab {__version__}"])
         con.execute(Q.BUMP_GENERATION)
         return ImportReport(status=status, message=message, import_id=import_id, **common)
 
