@@ -132,6 +132,11 @@ def first_order_conversion(t_h, k_cat_per_h, k_blank_per_h, kd_per_h=0.0, tau_h=
     return -np.expm1(-expo)
 
 
+def beer_lambert_absorbance(conc_mM, epsilon_M_cm, path_length_cm):
+    """A = epsilon x l x c with c converted from mM to mol/L."""
+    return np.asarray(epsilon_M_cm, float) * np.asarray(path_length_cm, float) * np.asarray(conc_mM, float) * 1e-3
+
+
 # --------------------------------------------------------------------------------------------
 # small helpers
 
@@ -282,7 +287,10 @@ _TH_LIBRARY = [
 _TH_KD_REF = 0.60       # FE-01 deactivation constant at 60 C, h-1 (Ea 90 kJ/mol)
 _TH_TAU_REF = 0.75      # RU-07 induction time at 60 C, h (activation Ea 70 kJ/mol)
 _TH_EDGE_PLATE = "TH-70"
-_TH_EDGE_GAIN = 0.14    # outer-ring readings rise by up to 14 % of their value by the last reading
+#: outer ring of the edge plate: fraction of solvent lost while the block warmed up before the
+#: first sample, and further loss by the last reading (concentration factor 1 / (1 - lost))
+_TH_EDGE_LOSS0 = 0.08
+_TH_EDGE_LOSS1 = 0.14
 _TH_K2CO3 = 0.35        # rate factor of K2CO3 against KOtBu for the catalysed path (invented)
 
 
@@ -324,20 +332,19 @@ def _th_campaign(rng: np.random.Generator) -> _Campaign:
                            notes=f"main screen, 3 wells per candidate, block at {temp:g} C"))
     # the series block at 60 C: loading series, substrate series, base factor
     ir2 = cats.set_index("catalyst").loc["IR-02"]
+    mn1 = cats.set_index("catalyst").loc["MN-01"]
     groups = [_wells("sample", 3, catalyst="RU-04", loading=ld, loading_unit="umol", **std)
               for ld in (0.125, 0.25, 0.5, 1.0)]
-    groups += [_wells("reference", 3, catalyst="REF-RU", loading=ref.std_loading, loading_unit="umol",
+    groups += [_wells("sample", 3, catalyst="MN-01", loading=mn1.std_loading, loading_unit="mg",
                       **{**std, "substrate_conc": sc}) for sc in (50.0, 100.0, 200.0, 400.0)]
-    groups += [_wells("reference", 3, catalyst="REF-RU", loading=ref.std_loading, loading_unit="umol", **std)]
-    groups += [_wells("reference", 3, catalyst="REF-RU", loading=ref.std_loading, loading_unit="umol",
-                      **{**std, "base": "K2CO3"}),
-               _wells("sample", 3, catalyst="IR-02", loading=ir2.std_loading, loading_unit="umol",
-                      **{**std, "base": "K2CO3"}),
+    groups += [_wells("sample", 3, catalyst=c.name, loading=c.std_loading, loading_unit=c.loading_unit,
+                      **{**std, "base": "K2CO3"}) for c in (ir2, cats.set_index("catalyst").loc["RU-01"])]
+    groups += [_wells("reference", 6, catalyst="REF-RU", loading=ref.std_loading, loading_unit="umol", **std),
                _wells("blank", 6, **std)]
     lay = _place(rng, 96, groups).assign(plate="TH-60S", _temp=60.0)
     layouts.append(lay)
     plates.append(dict(plate="TH-60S", format=96, temperature_c=60.0, run_date="2026-03-06",
-                       notes="series block: RU-04 loading series, benchmark substrate series, base K2CO3"))
+                       notes="series block: RU-04 loading series, MN-01 substrate series, IR-02 and RU-01 with K2CO3"))
     layout = pd.concat(layouts, ignore_index=True)
     layout["_vol_uL"] = layout["volume"]
 
@@ -370,10 +377,12 @@ def _th_campaign(rng: np.random.Generator) -> _Campaign:
     t_h = course["t"].to_numpy() / 60.0
     x = first_order_conversion(t_h, course["_k_cat"], course["_k_blank"], course["_kd"], course["_tau"])
     y = 100.0 * x
-    # planted flaw 2: evaporation through the outer ring of the 70 C block concentrates the
-    # sampled solution, so its yields read high, increasingly with time
+    # planted flaw 2: solvent evaporating through the outer ring of the 70 C block concentrates
+    # the sampled solution against the internal standard, so its yields read high (already at
+    # the first sample, more so later)
     edge = (course["plate"].to_numpy(object) == _TH_EDGE_PLATE) & is_edge(course["_row"], course["_col"], 96)
-    y = y * np.where(edge, 1.0 + _TH_EDGE_GAIN * t_h / t_h.max(), 1.0)
+    lost = _TH_EDGE_LOSS0 + _TH_EDGE_LOSS1 * t_h / t_h.max()
+    y = y * np.where(edge, 1.0 / (1.0 - lost), 1.0)
     y = y + rng.normal(0.0, 1.0, len(y)) * (0.8 + 0.008 * y)      # GC noise, ~0.8-1.6 % absolute
     y = np.where(course["_failed"].to_numpy(bool), 0.0, y)
     y = np.round(np.clip(y, 0.0, 100.0), 2)
@@ -491,7 +500,7 @@ def _uv_campaign(rng: np.random.Generator) -> _Campaign:
     layout = layout.assign(_k_cat=k_cat, _k_blank=k_blank)
     course = _course(layout, np.asarray(_UV_TIMES_S, float))
     x = first_order_conversion(course["t"].to_numpy() / 3600.0, course["_k_cat"], course["_k_blank"])
-    absorb = _UV_EPS * _UV_PATH * (x * course["substrate_conc"].to_numpy(float) * 1e-3)   # A = eps l c
+    absorb = beer_lambert_absorbance(x * course["substrate_conc"].to_numpy(float), _UV_EPS, _UV_PATH)
     absorb = absorb + rng.normal(0.0, 1.0, len(absorb)) * (0.003 + 0.01 * absorb)
     # planted flaw: one air bubble in one well of the 35 C plate, at the 25 min reading
     plate_id, jump = _UV_SPIKE
@@ -853,11 +862,11 @@ Plates:
 * `TH-40`, `TH-50`, `TH-60`, `TH-70` (one block per temperature): 26 candidates x 3 wells, the
   benchmark `REF-RU` x 6, blanks (everything but the catalyst) x 6, 6 empty positions.
 * `TH-60S` (60 C): loading series of `RU-04` at 0.125, 0.25, 0.5 and 1.0 umol (3 wells each);
-  substrate series of `REF-RU` at 50, 100, 200 and 400 mM (3 wells each, plus 3 more at 200 mM);
-  the factor `base`: `REF-RU` and `IR-02` with K2CO3 instead of KOtBu (3 wells each; the catalysed
-  rate falls to {_TH_K2CO3:g} x); 6 blanks at the standard 200 mM (the blank correction of the
-  substrate series uses them, a small error next to the benchmark's rate). Expected apparent
-  orders: 1 in substrate, 1 in loading.
+  substrate series of `MN-01` at 50, 100, 200 and 400 mM (3 wells each); the factor `base`:
+  `IR-02` and `RU-01` with K2CO3 instead of KOtBu (3 wells each; the catalysed rate falls to
+  {_TH_K2CO3:g} x); the benchmark x 6 and 6 blanks, all at the standard 200 mM (the blank correction
+  of the substrate series uses them, a small error next to MN-01's rate). Expected apparent
+  orders: 1 in substrate, 1 in loading (TOF independent of loading).
 
 Families: Ru arene-diamine complexes and Ir Cp* complexes dosed from stock solutions (umol;
 `IR-03` is a chloride-bridged dimer with `sites_per_unit = 2`), Fe/Mn PNP pincer complexes weighed
@@ -868,9 +877,10 @@ Planted flaws and behaviours (what the analysis should notice):
 
 * **Failed well**: one `RU-02` well on `TH-60` received no substrate; its course is flat at 0.0 %.
 * **Missing reading**: one `IR-01` well on `TH-50` has no 120 min reading.
-* **Edge plate**: on `TH-70` the outer ring of the block lost solvent; their yields read high,
-  increasingly with time (up to +{100 * _TH_EDGE_GAIN:.0f} % of the value at 360 min), so edge wells
-  look faster than their inner replicates.
+* **Edge plate**: on `TH-70` the outer ring of the block lost solvent ({100 * _TH_EDGE_LOSS0:.0f} % while
+  warming up, {100 * (_TH_EDGE_LOSS0 + _TH_EDGE_LOSS1):.0f} % by 360 min), which concentrates the sample against
+  the internal standard: their yields read about {100 / (1 - _TH_EDGE_LOSS0) - 100:.0f}-{100 / (1 - _TH_EDGE_LOSS0 - _TH_EDGE_LOSS1) - 100:.0f} % high, so
+  edge wells look faster than their inner replicates (and the blanks on the ring too).
 * **Transport-limited**: `S-PT-AL` (coarse pellets) has an apparent Ea of 15 kJ/mol.
 * **Deactivation**: `FE-01` loses activity with kd = {_TH_KD_REF:g} h-1 at 60 C (Ea of decay 90 kJ/mol);
   its curve flattens below full conversion.
