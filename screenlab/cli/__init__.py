@@ -17,6 +17,7 @@ COMMAND_MODULES = [
     "screenlab.cli.ingest_cmd",
     "screenlab.cli.app_cmd",
     "screenlab.cli.kinetics_cmd",
+    "screenlab.cli.stats_cmd",
 ]
 
 
