@@ -1,0 +1,328 @@
+"""Seeded generator of large synthetic screening campaigns (for the speed benchmark and tests).
+
+Everything here is invented; no number is a measurement. :func:`synthetic_campaign` builds a
+:class:`~screenlab.model.CampaignData` directly in canonical units, :func:`write_campaign_folder`
+writes the same campaign as a folder in the import format (``/work/shared/campaign-format.md``),
+and reading that folder back with :func:`screenlab.ingest.read_campaign` gives the same frames
+(the values are rounded to what the CSV files hold before either is made). Both are vectorised
+over wells and readings; nothing loops over wells.
+
+Design of a campaign of ``n_plates`` plates (:class:`SyntheticSpec`)
+--------------------------------------------------------------------
+* Plates come in *sets*, one plate per block temperature (``temperatures_c``, default
+  40/50/60/70 degC); every plate of a set holds the same candidates, so each candidate is seen
+  at every temperature with ``replicates`` wells per temperature. Each set screens its own block
+  of the library, so the library grows with the number of plates (a 96-well plate with 4 blanks
+  and 4 benchmark wells holds 29 candidates x 3 wells; the 1 left-over position is empty).
+* Every plate has ``n_blanks`` blank wells (no catalyst) and ``n_reference`` wells of the one
+  benchmark catalyst ``REF-1`` (role ``reference``); positions are shuffled per plate.
+* Readout: yield in percent, ``n_times`` readings per well from t = 0 to ``t_end_min`` minutes
+  (spacing denser at the start), Gaussian noise of ``noise_pct`` percentage points, rounded to
+  two decimals.
+* Kinetics: first order in substrate, ``Y(t) = 1 - exp(-(k_cat + k_blank) t)`` with
+  ``k_cat = TOF x [sites] / [S]0`` (so the initial rate is TOF x [sites]) and each TOF and the
+  blank constant following Arrhenius about ``reference_temperature_c``. Candidate TOFs at the
+  reference temperature are log-normal (median ``tof_median_per_h``), activation energies normal
+  (65 +/- 12 kJ/mol, clipped to 25..110); a share ``inactive_share`` of candidates is inactive.
+* Loading 0.5 umol of sites (``sites_per_unit`` 1) in 500 uL with 200 mM substrate, so the site
+  concentration is 1 mM; one named factor column ``solvent`` (constant ``2-propanol``).
+
+Public API: :class:`SyntheticSpec`, :func:`synthetic_campaign`, :func:`write_campaign_folder`,
+:func:`truth_table`, :data:`REFERENCE_CATALYST`.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from screenlab.model import DEFAULT_ANALYTE, CampaignData, Manifest
+from screenlab.plates import FORMATS, all_wells
+from screenlab.units import R_J_MOL_K, ZERO_C_IN_K, time_factor_to_h
+
+REFERENCE_CATALYST = "REF-1"
+UNCATALYSED = "(uncatalysed)"
+_SUBSTRATE_MM = 200.0
+_VOLUME_UL = 500.0
+_LOADING_UMOL = 0.5
+_FACTOR = "solvent"
+_FACTOR_LEVEL = "2-propanol"
+
+
+@dataclass(frozen=True)
+class SyntheticSpec:
+    """What to generate (see the module docstring for the design)."""
+
+    n_plates: int = 4
+    fmt: int = 96
+    n_times: int = 8
+    temperatures_c: tuple[float, ...] = (40.0, 50.0, 60.0, 70.0)
+    replicates: int = 3
+    n_blanks: int = 4
+    n_reference: int = 4
+    t_end_min: float = 240.0
+    noise_pct: float = 0.5
+    tof_median_per_h: float = 30.0
+    tof_log_sd: float = 1.0
+    inactive_share: float = 0.05
+    reference_tof_per_h: float = 40.0
+    reference_ea_kj_mol: float = 60.0
+    blank_k_per_h: float = 0.002
+    blank_ea_kj_mol: float = 80.0
+    reference_temperature_c: float = 60.0
+    seed: int = 0
+    name: str | None = None
+
+    def __post_init__(self) -> None:
+        if self.fmt not in FORMATS:
+            raise ValueError(f"plate format {self.fmt} is not one of {', '.join(map(str, FORMATS))}")
+        if self.n_plates < 1 or self.n_times < 1 or self.replicates < 1:
+            raise ValueError("n_plates, n_times and replicates must be at least 1")
+        if not self.temperatures_c:
+            raise ValueError("at least one temperature is needed")
+        if self.n_blanks < 0 or self.n_reference < 0:
+            raise ValueError("n_blanks and n_reference must be >= 0")
+        if self.candidates_per_plate < 1:
+            raise ValueError(f"a {self.fmt}-well plate has no room for a candidate after "
+                             f"{self.n_blanks} blanks and {self.n_reference} benchmark wells")
+
+    @property
+    def campaign_name(self) -> str:
+        return self.name or f"synthetic-{self.n_plates}x{self.fmt}-s{self.seed}"
+
+    @property
+    def candidates_per_plate(self) -> int:
+        return (self.fmt - self.n_blanks - self.n_reference) // self.replicates
+
+    @property
+    def n_sets(self) -> int:
+        return math.ceil(self.n_plates / len(self.temperatures_c))
+
+    @property
+    def n_candidates(self) -> int:
+        return self.n_sets * self.candidates_per_plate
+
+    @property
+    def n_filled_wells(self) -> int:
+        return self.n_plates * (self.n_blanks + self.n_reference + self.candidates_per_plate * self.replicates)
+
+    @property
+    def n_readings(self) -> int:
+        return self.n_filled_wells * self.n_times
+
+
+def _times_min(spec: SyntheticSpec) -> np.ndarray:
+    """Reading times in minutes, denser at the start: t_end x (i / (n-1))^1.5, to 0.1 min."""
+    if spec.n_times == 1:
+        return np.array([float(spec.t_end_min)])
+    u = np.arange(spec.n_times) / (spec.n_times - 1)
+    return np.round(spec.t_end_min * u ** 1.5, 1)
+
+
+def _arrhenius(value_ref, ea_kj_mol, t_c, tref_c):
+    """value(T) = value(Tref) x exp(-Ea/R (1/T - 1/Tref)) (R from scipy.constants via units)."""
+    t = np.asarray(t_c, dtype=float) + ZERO_C_IN_K
+    tr = float(tref_c) + ZERO_C_IN_K
+    return np.asarray(value_ref, dtype=float) * np.exp(-np.asarray(ea_kj_mol, dtype=float) * 1e3 / R_J_MOL_K
+                                                       * (1.0 / t - 1.0 / tr))
+
+
+def _catalyst_ids(n: int) -> np.ndarray:
+    width = max(5, len(str(n)))
+    return np.char.add("C", np.char.zfill(np.arange(1, n + 1).astype(str), width))
+
+
+def truth_table(spec: SyntheticSpec) -> pd.DataFrame:
+    """The generating values: ``catalyst, role, tof_ref_per_h, ea_kj_mol`` (one row per catalyst,
+    the benchmark last) plus an ``(uncatalysed)`` row whose ``tof_ref_per_h`` column holds the blank
+    rate constant k_blank in h-1 at the reference temperature."""
+    rng = np.random.default_rng([spec.seed, 1])
+    n = spec.n_candidates
+    tof = spec.tof_median_per_h * np.exp(spec.tof_log_sd * rng.standard_normal(n))
+    tof[rng.random(n) < spec.inactive_share] = 0.0
+    ea = np.clip(65.0 + 12.0 * rng.standard_normal(n), 25.0, 110.0)
+    return pd.DataFrame({
+        "catalyst": np.concatenate([_catalyst_ids(n), [REFERENCE_CATALYST, UNCATALYSED]]),
+        "role": np.concatenate([np.full(n, "sample"), ["reference", "blank"]]),
+        "tof_ref_per_h": np.concatenate([tof, [spec.reference_tof_per_h, spec.blank_k_per_h]]),
+        "ea_kj_mol": np.concatenate([ea, [spec.reference_ea_kj_mol, spec.blank_ea_kj_mol]]),
+    })
+
+
+def _tables(spec: SyntheticSpec) -> dict[str, pd.DataFrame]:
+    """Catalysts, plates, layout (file units) and readings (minutes, percent), already rounded."""
+    rng = np.random.default_rng([spec.seed, 2])
+    truth = truth_table(spec)
+    n_t = len(spec.temperatures_c)
+    cpp, reps = spec.candidates_per_plate, spec.replicates
+    P, F = spec.n_plates, spec.fmt
+    width = max(4, len(str(P)))
+    plate_ids = np.char.add("P", np.char.zfill(np.arange(1, P + 1).astype(str), width))
+    plate_set = np.arange(P) // n_t
+    plate_t = np.asarray(spec.temperatures_c, dtype=float)[np.arange(P) % n_t]
+    day0 = np.datetime64("2026-01-05")
+    run_date = np.datetime_as_string(day0 + np.arange(P) // n_t, unit="D")
+
+    # contents of one plate, in slot order: blanks, benchmark, candidates x replicates, empties
+    n_slot = spec.n_blanks + spec.n_reference + cpp * reps
+    slot_role = np.concatenate([np.full(spec.n_blanks, "blank"), np.full(spec.n_reference, "reference"),
+                                np.full(cpp * reps, "sample"), np.full(F - n_slot, "empty")])
+    slot_cand = np.concatenate([np.full(spec.n_blanks + spec.n_reference, -1), np.repeat(np.arange(cpp), reps),
+                                np.full(F - n_slot, -1)])
+    # a random position for every slot of every plate: argsort of uniform keys, one per plate
+    pos = np.argsort(rng.random((P, F)), axis=1)            # slot -> position
+    slot_of_pos = np.argsort(pos, axis=1)                    # position -> slot
+    role = slot_role[slot_of_pos].ravel()
+    cand_local = slot_cand[slot_of_pos]
+    cand_global = np.where(cand_local >= 0, plate_set[:, None] * cpp + cand_local, -1).ravel()
+    n_cand = spec.n_candidates
+    cat_ids = np.concatenate([_catalyst_ids(n_cand), [REFERENCE_CATALYST]])
+    cat_index = np.where(role == "reference", n_cand, cand_global)
+    has_cat = cat_index >= 0
+    grid = all_wells(F)
+    well = np.tile(grid["well"].to_numpy(), P)
+    plate_of_well = np.repeat(np.arange(P), F)
+    catalyst = np.where(has_cat, cat_ids[np.clip(cat_index, 0, None)], "")
+    used = role != "empty"
+    layout = pd.DataFrame({
+        "plate": plate_ids[plate_of_well],
+        "well": well,
+        "role": role,
+        "catalyst": catalyst,
+        "loading": np.where(has_cat, _LOADING_UMOL, np.nan),
+        "loading_unit": np.where(has_cat, "umol", ""),
+        "substrate_conc": np.where(used, _SUBSTRATE_MM, np.nan),
+        "volume": np.where(used, _VOLUME_UL, np.nan),
+        _FACTOR: np.where(used, _FACTOR_LEVEL, ""),
+    })
+
+    # kinetics of every filled well, vectorised over wells x times
+    t_well = plate_t[plate_of_well]
+    tof_ref = truth["tof_ref_per_h"].to_numpy()
+    ea = truth["ea_kj_mol"].to_numpy()
+    tref = spec.reference_temperature_c
+    idx = np.clip(cat_index, 0, None)
+    tof = np.where(has_cat, _arrhenius(tof_ref[idx], ea[idx], t_well, tref), 0.0)
+    site_mM = _LOADING_UMOL / _VOLUME_UL * 1e3                # umol / uL x 1000 = mmol / L
+    k_cat = tof * site_mM / _SUBSTRATE_MM                     # h-1
+    k_blank = _arrhenius(spec.blank_k_per_h, spec.blank_ea_kj_mol, t_well, tref)
+    k = (k_cat + k_blank)[used]
+    t_min = _times_min(spec)
+    t_h = t_min * time_factor_to_h("min")
+    y = -100.0 * np.expm1(-np.outer(k, t_h))
+    y = y + spec.noise_pct * rng.standard_normal(y.shape)
+    y = np.round(np.clip(y, -1.9, 101.9), 2) + 0.0           # + 0.0 turns -0.0 into 0.0
+    nw = int(used.sum())
+    readings = pd.DataFrame({
+        "plate": np.repeat(layout["plate"].to_numpy()[used], spec.n_times),
+        "well": np.repeat(well[used], spec.n_times),
+        "time": np.tile(t_min, nw),
+        "value": y.ravel(),
+    })
+    catalysts = pd.DataFrame({
+        "catalyst": cat_ids,
+        "name": np.char.add("synthetic catalyst ", cat_ids),
+        "family": np.concatenate([np.char.add("family ", (np.arange(n_cand) % 6 + 1).astype(str)), ["benchmark"]]),
+        "sites_per_unit": np.ones(n_cand + 1),
+    })
+    plates = pd.DataFrame({"plate": plate_ids, "format": F, "temperature_c": plate_t, "run_date": run_date,
+                           "notes": np.char.add("synthetic plate set ", (plate_set + 1).astype(str))})
+    return {"catalysts": catalysts, "plates": plates, "layout": layout, "readings": readings}
+
+
+def _manifest_text(spec: SyntheticSpec) -> str:
+    return (
+        "[campaign]\n"
+        f'name = "{spec.campaign_name}"\n'
+        f'description = "Invented synthetic campaign: {spec.n_plates} plates of {spec.fmt} wells, '
+        f'{spec.n_candidates} candidates, seed {spec.seed}"\n'
+        'reaction = "S -> P (synthetic first-order data)"\n\n'
+        "[units]\n"
+        'time = "min"\nconcentration = "mM"\nvolume = "uL"\n\n'
+        "[readout]\n"
+        'kind = "yield"\nscale = "percent"\nproduct_per_substrate = 1.0\n\n'
+        "[analysis]\n"
+        f"reference_temperature_c = {spec.reference_temperature_c:g}\n"
+    )
+
+
+def _manifest(spec: SyntheticSpec) -> Manifest:
+    text = _manifest_text(spec)
+    return Manifest(
+        name=spec.campaign_name, readout_kind="yield", readout_scale="percent", product_per_substrate=1.0,
+        description=(f"Invented synthetic campaign: {spec.n_plates} plates of {spec.fmt} wells, "
+                     f"{spec.n_candidates} candidates, seed {spec.seed}"),
+        reaction="S -> P (synthetic first-order data)", time_unit="min", concentration_unit="mM",
+        volume_unit="uL", analysis={"reference_temperature_c": _toml_number(spec.reference_temperature_c)},
+        analyte_main=DEFAULT_ANALYTE, source_toml=text)
+
+
+def _toml_number(x: float):
+    return int(x) if float(x).is_integer() else float(x)
+
+
+def _str(values) -> pd.Series:
+    """A pandas ``str`` column with NaN for empty text (as the reader gives)."""
+    s = pd.Series(values, dtype="str")
+    return s.where(s != "", np.nan).astype("str")
+
+
+def synthetic_campaign(spec: SyntheticSpec | None = None, **kwargs) -> CampaignData:
+    """The campaign of ``spec`` (or ``SyntheticSpec(**kwargs)``) as a validated-shape CampaignData
+    in canonical units, equal to what :func:`screenlab.ingest.read_campaign` gives for the folder
+    :func:`write_campaign_folder` writes."""
+    spec = spec if spec is not None else SyntheticSpec(**kwargs)
+    tb = _tables(spec)
+    cat, pl, lay, rd = tb["catalysts"], tb["plates"], tb["layout"], tb["readings"]
+    nr, nc = FORMATS[spec.fmt]
+    catalysts = pd.DataFrame({
+        "catalyst": _str(cat["catalyst"]), "name": _str(cat["name"]), "family": _str(cat["family"]),
+        "molar_mass_g_mol": np.nan, "sites_per_unit": cat["sites_per_unit"].to_numpy(dtype=float),
+        "metal_wt_pct": np.nan, "metal_molar_mass_g_mol": np.nan, "dispersion": 1.0,
+    })
+    plates = pd.DataFrame({
+        "plate": _str(pl["plate"]), "format": pl["format"].to_numpy(dtype=np.int64),
+        "n_rows": np.full(len(pl), nr, dtype=np.int64), "n_cols": np.full(len(pl), nc, dtype=np.int64),
+        "temperature_c": pl["temperature_c"].to_numpy(dtype=float), "run_date": _str(pl["run_date"]),
+        "notes": _str(pl["notes"]),
+    })
+    grid = all_wells(spec.fmt)
+    plate_t = np.repeat(pl["temperature_c"].to_numpy(dtype=float), spec.fmt)
+    wells = pd.DataFrame({
+        "plate": _str(lay["plate"]), "well": _str(lay["well"]),
+        "row": np.tile(grid["row"].to_numpy(dtype=np.int64), spec.n_plates),
+        "col": np.tile(grid["col"].to_numpy(dtype=np.int64), spec.n_plates),
+        "role": _str(lay["role"]), "catalyst": _str(lay["catalyst"]),
+        "loading": lay["loading"].to_numpy(dtype=float), "loading_unit": _str(lay["loading_unit"]),
+        "substrate_conc_mM": lay["substrate_conc"].to_numpy(dtype=float),
+        "volume_uL": lay["volume"].to_numpy(dtype=float), "temperature_c": plate_t,
+        _FACTOR: pd.Series(lay[_FACTOR], dtype="str"),  # the reader keeps an empty factor cell as ""
+    })
+    readings = pd.DataFrame({
+        "plate": _str(rd["plate"]), "well": _str(rd["well"]),
+        "analyte": pd.Series(np.full(len(rd), DEFAULT_ANALYTE), dtype="str"),
+        "time_h": rd["time"].to_numpy(dtype=float) * time_factor_to_h("min"),
+        "value": rd["value"].to_numpy(dtype=float),
+    })
+    readings = readings.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
+    return CampaignData(manifest=_manifest(spec), catalysts=catalysts, plates=plates, wells=wells,
+                        readings=readings, factor_names=(_FACTOR,))
+
+
+def write_campaign_folder(out_dir, spec: SyntheticSpec | None = None, **kwargs) -> Path:
+    """Write the campaign of ``spec`` as a campaign folder (campaign.toml, catalysts.csv,
+    plates.csv, layout.csv, readings.csv) in ``out_dir`` (created); returns the folder."""
+    spec = spec if spec is not None else SyntheticSpec(**kwargs)
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    tb = _tables(spec)
+    (out / "campaign.toml").write_text(_manifest_text(spec), encoding="utf-8")
+    for name, frame in tb.items():
+        frame.to_csv(out / f"{name}.csv", index=False, lineterminator="\n")
+    return out
+
+
+__all__ = ["REFERENCE_CATALYST", "SyntheticSpec", "synthetic_campaign", "truth_table", "write_campaign_folder"]
