@@ -1,0 +1,401 @@
+"""Several analytes per well: selectivity to the main product and enantiomeric excess.
+
+Both are estimated from the whole time course of a well, not from one reading.
+
+Amounts and blank correction
+    Amounts come from :func:`screenlab.kinetics.amounts.product_amounts` (with enantiomers, the main
+    product is their sum). For sample and reference wells **the blank's own products are
+    subtracted**, analyte by analyte, as the rates are blank-corrected (DEVELOPERS.md: net rate =
+    well rate - blank rate of the same plate and temperature). The background is taken as first
+    order in substrate: for each plate x temperature and each analyte a pooled background
+    constant ``kb = sum(y E) / sum(E^2)`` over the blank wells' readings, where ``E(t)`` is the
+    substrate-weighted elapsed time ``E(t) = integral_0^t (1 - X(tau)) dtau`` (trapezoid rule over
+    the readings, ``X`` = declared products / (substrate_conc_mM x product_per_substrate), ``X = 0``
+    at t = 0). A catalysed well's background product at time t is ``kb x E_well(t)``: the blank's
+    rate x time at low conversion (the correction the rates make), smaller once the well has used
+    its substrate. Without a substrate concentration ``E = t``. Without a blank on that plate and
+    temperature nothing is subtracted (the rates table's ``no_blank`` flag says so). The blank's
+    own estimation error is not propagated into the SEs (small next to the catalysed products;
+    ``background_dominant`` marks wells where it is not). **Blank wells** report their own,
+    uncorrected selectivity and ee: the background's.
+
+Selectivity (percent of all declared products that is the main product)
+    Per well: least-squares slope through the origin of net main vs net total products
+    (main + every declared by-product) over the readings where all of them were read,
+    ``b = sum(x y) / sum(x^2)``, ``SE = s / sqrt(sum(x^2))`` with ``s^2 = RSS / (n - 1)``
+    (df = n - 1). ``selectivity_pct = 100 b``. Empty (NaN) when the campaign declares no
+    by-products.
+
+Enantiomeric excess of the main product, percent
+    ``ee = (E1 - E2) / (E1 + E2) x 100`` where E1 is the **first** enantiomer named in
+    ``[analytes].enantiomers`` (positive ee = excess of E1), E2 the second. Per well: the slope
+    through the origin of net (E1 - E2) vs net (E1 + E2), SE and df as above. Empty when the
+    campaign declares no enantiomers.
+
+Per group (catalyst x temperature x condition, the rates table's groups; :func:`summarise_groups`)
+    Mean of the wells' values, ``SE = SD / sqrt(n)``, ``t(confidence, n - 1)`` interval; a single
+    well gives its own SE and df. Values are not clipped to 0..100 (or -100..100), so that they
+    stay unbiased: 100.3 % means no by-product beyond the reading noise.
+
+Drift with conversion (``selectivity_drift``, ``ee_drift``)
+    The same per-well data are fitted with a quadratic through the origin, ``y = a x + c x^2``
+    (x scaled by its largest value). The slope of the instantaneous selectivity dy/dx against the
+    amount of product is ``2 c``; the change over the observed range, ``2 c x_max``, is reported
+    (percentage points, ``selectivity_drift_pct``) with the two-sided t-test p-value of c
+    (n - 2 df). A well is flagged when p < :data:`DRIFT_ALPHA` **and** the change is at least
+    :data:`DRIFT_MIN_CHANGE_PCT` points (at least 4 readings, not low product). Parallel
+    first-order paths give a straight line (constant selectivity at every conversion); a product
+    that reacts further (A -> P -> B) bends it down. A group is flagged when at least half of its
+    wells with a value are.
+
+Too little product (``ee_low_product``, ``selectivity_low_product``)
+    The largest net amount over the course (main product for ee, all declared products for
+    selectivity) below :data:`LOW_PRODUCT_CONVERSION_PCT` % of the theoretical product
+    (substrate_conc_mM x product_per_substrate), or below :data:`LOW_PRODUCT_NOISE_MULTIPLE` x the
+    residual SD of the well's line (a few times the reading noise; with df >= 1), or not positive.
+    Below about 1 % conversion a chemist does not quote an ee or a selectivity (common practice, no
+    source). A group is flagged when at least half of its wells are.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from screenlab.kinetics.sites import join_flags
+from screenlab.settings import AnalysisSettings
+
+#: flag codes set here (code -> one plain sentence)
+FLAGS: dict[str, str] = {
+    "selectivity_drift": "Selectivity to the main product changes with conversion (quadratic term of main vs total "
+                         "products significant, p < 0.01, and a change of at least 5 points): the main product may "
+                         "react further, so the selectivity is an average over the course.",
+    "ee_drift": "The enantiomeric excess changes with conversion (quadratic term of E1 - E2 vs E1 + E2 significant, "
+                "p < 0.01, and a change of at least 5 points): racemisation or a second pathway.",
+    "ee_low_product": "Too little main product for a meaningful ee: below 1 % of the theoretical product or below "
+                      "5 x the reading noise of the well.",
+    "selectivity_low_product": "Too little product for a meaningful selectivity: below 1 % of the theoretical product "
+                               "or below 5 x the reading noise of the well.",
+    "background_dominant": "More than half of this well's products at its last reading are attributed to the "
+                           "background (blank): its selectivity and ee rest on a small difference.",
+}
+
+#: significance level of the drift test (two-sided t-test of the quadratic term)
+DRIFT_ALPHA = 0.01
+#: smallest change of the instantaneous selectivity (or ee) over the observed range that is flagged, points
+DRIFT_MIN_CHANGE_PCT = 5.0
+#: below this conversion to product (percent of the theoretical product) ee / selectivity are not meaningful
+LOW_PRODUCT_CONVERSION_PCT = 1.0
+#: ... or below this multiple of the residual SD of the well's line (reading noise)
+LOW_PRODUCT_NOISE_MULTIPLE = 5.0
+#: share of a well's products attributed to the background above which the well is flagged
+BACKGROUND_DOMINANT_FRACTION = 0.5
+
+#: the first columns of :func:`well_selectivity` (the contract), then :data:`WELL_EXTRA`
+WELL_COLUMNS = ("plate", "well", "selectivity_pct", "selectivity_se", "ee_pct", "ee_se", "flags")
+WELL_EXTRA = ("role", "catalyst", "temperature_c", "blank_corrected", "selectivity_n", "selectivity_df",
+              "selectivity_drift_pct", "selectivity_drift_p", "ee_n", "ee_df", "ee_drift_pct", "ee_drift_p",
+              "products_max_mM", "main_max_mM", "background_share_pct")
+#: columns :func:`summarise_groups` returns (added to the rates table)
+GROUP_COLUMNS = ("selectivity_pct", "selectivity_se", "selectivity_df", "selectivity_ci_low", "selectivity_ci_high",
+                 "ee_pct", "ee_se", "ee_df", "ee_ci_low", "ee_ci_high")
+
+
+def _t_quantile(confidence: float, df) -> np.ndarray:
+    df = np.asarray(df, dtype=float)
+    ok = np.isfinite(df) & (df > 0)
+    return np.where(ok, stats.t.ppf(0.5 + float(confidence) / 2.0, np.where(ok, df, 1.0)), np.nan)
+
+
+def origin_fit(code: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int) -> dict[str, np.ndarray]:
+    """Per group (integer ``code`` 0..n_groups-1): straight line and quadratic through the origin.
+
+    Only rows with finite x and y are used. Returns arrays of length n_groups: ``n``, ``slope``,
+    ``se`` (residual SD / sqrt(sum x^2)), ``df`` (n - 1), ``resid_sd``, ``x_max`` (largest x),
+    ``curv_change`` (2 c x_max: change of dy/dx over the observed x range), ``curv_p`` (two-sided
+    t-test of c, n - 2 df). Vectorised with bincount (no loop over groups).
+    """
+    code = np.asarray(code)
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    ok = np.isfinite(x) & np.isfinite(y) & (code >= 0)
+    c, x, y = code[ok].astype(np.int64), x[ok], y[ok]
+    G = int(n_groups)
+
+    def s(w):
+        return np.bincount(c, weights=w, minlength=G)[:G]
+
+    n = np.bincount(c, minlength=G)[:G].astype(float)
+    sxx, sxy = s(x * x), s(x * y)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        b = np.where(sxx > 0, sxy / sxx, np.nan)
+        r = y - b[c] * x
+        rss = s(r * r)
+        df = n - 1.0
+        resid_sd = np.where(df >= 1, np.sqrt(rss / np.where(df >= 1, df, 1.0)), np.nan)
+        se = np.where((df >= 1) & (sxx > 0), resid_sd / np.sqrt(sxx), np.nan)
+
+        x_max = np.full(G, np.nan)
+        if len(c):
+            xm = pd.Series(x).groupby(c).max()
+            x_max[xm.index.to_numpy()] = xm.to_numpy()
+        # quadratic through the origin in scaled units u = x / x_max, v = y / x_max: v = a u + k u^2
+        scale = np.where(np.isfinite(x_max) & (x_max > 0), x_max, np.nan)[c]
+        u, v = x / scale, y / scale
+        fin = np.isfinite(u) & np.isfinite(v)
+        u, v = np.where(fin, u, 0.0), np.where(fin, v, 0.0)
+        s2, s3, s4 = s(u ** 2), s(u ** 3), s(u ** 4)
+        suv, s2v = s(u * v), s(u * u * v)
+        det = s2 * s4 - s3 ** 2
+        good = (n >= 3) & (det > 1e-12 * np.maximum(s2 * s4, 1e-300)) & np.isfinite(det)
+        a = np.where(good, (s4 * suv - s3 * s2v) / np.where(good, det, 1.0), np.nan)
+        k = np.where(good, (s2 * s2v - s3 * suv) / np.where(good, det, 1.0), np.nan)
+        rq = v - a[c] * u - k[c] * u * u
+        rss_q = s(np.where(fin, rq * rq, 0.0))
+        df_q = n - 2.0
+        var_k = np.where(good & (df_q >= 1), rss_q / np.where(df_q >= 1, df_q, 1.0) * s2 / np.where(good, det, 1.0),
+                         np.nan)
+        tk = k / np.sqrt(var_k)
+        p = np.where(np.isfinite(tk), 2.0 * stats.t.sf(np.abs(tk), np.where(df_q >= 1, df_q, 1.0)),
+                     np.where(good & (df_q >= 1) & (var_k == 0) & (k != 0), 0.0, np.nan))
+    return {"n": n, "slope": b, "se": se, "df": np.where(n >= 1, df, np.nan), "resid_sd": resid_sd,
+            "x_max": x_max, "curv_change": 2.0 * k, "curv_p": p}
+
+
+def _empty_wells(base: pd.DataFrame) -> pd.DataFrame:
+    out = base[["plate", "well"]].copy()
+    nan = np.full(len(base), np.nan)
+    for col in ("selectivity_pct", "selectivity_se", "ee_pct", "ee_se"):
+        out[col] = nan
+    out["flags"] = np.array([""] * len(base), dtype=object)
+    out["role"] = base["role"].to_numpy(dtype=object)
+    out["catalyst"] = base["catalyst"].to_numpy(dtype=object)
+    out["temperature_c"] = base["temperature_c"].to_numpy(dtype=float)
+    out["blank_corrected"] = np.zeros(len(base), dtype=bool)
+    for col in WELL_EXTRA[4:]:
+        out[col] = nan
+    return out
+
+
+def _role(frame: pd.DataFrame) -> np.ndarray:
+    return frame["role"].astype(object).where(frame["role"].notna(), "").astype(str).to_numpy(dtype=object)
+
+
+def well_selectivity(data, amounts: pd.DataFrame | None = None,
+                     settings: AnalysisSettings | None = None) -> pd.DataFrame:
+    """Selectivity and ee per non-empty well of a :class:`~screenlab.model.CampaignData`.
+
+    Columns: ``plate, well, selectivity_pct, selectivity_se, ee_pct, ee_se, flags`` and then
+    ``role, catalyst, temperature_c, blank_corrected`` (bool: the blank's products were
+    subtracted), ``selectivity_n`` (readings used), ``selectivity_df``, ``selectivity_drift_pct``
+    (change of the instantaneous selectivity over the observed range, points),
+    ``selectivity_drift_p``, ``ee_n, ee_df, ee_drift_pct, ee_drift_p``, ``products_max_mM`` and
+    ``main_max_mM`` (largest net amounts over the course), ``background_share_pct`` (share of the
+    well's declared products at its last reading attributed to the blank). Selectivity columns are
+    NaN when no by-product is declared, ee columns when no enantiomers are; all are NaN for a
+    campaign without ``[analytes]``. Rows follow ``data.wells`` (empty wells left out). Method: see
+    the module docstring. ``amounts`` is :func:`product_amounts` of ``data`` (computed if None).
+    """
+    del settings   # no tunable part yet; kept for a uniform signature
+    m = data.manifest
+    wl = data.wells
+    role_all = _role(wl)
+    keep = role_all != "empty"
+    base = pd.DataFrame({
+        "plate": wl["plate"].to_numpy(dtype=object)[keep],
+        "well": wl["well"].to_numpy(dtype=object)[keep],
+        "role": role_all[keep],
+        "catalyst": wl["catalyst"].astype(object).to_numpy(dtype=object)[keep],
+        "temperature_c": pd.to_numeric(wl["temperature_c"], errors="coerce").to_numpy(dtype=float)[keep],
+        "s0": pd.to_numeric(wl["substrate_conc_mM"], errors="coerce").to_numpy(dtype=float)[keep],
+    })
+    out = _empty_wells(base)
+    byp = [b for b in m.byproducts]
+    ens = list(m.enantiomers) if m.enantiomers else []
+    if not (byp or ens) or base.empty:
+        return out
+    if amounts is None:
+        from screenlab.kinetics.amounts import product_amounts
+        amounts = product_amounts(data)
+
+    main = m.analyte_main
+    needed = list(dict.fromkeys([main, *byp, *ens]))
+    sub = amounts.loc[amounts["analyte"].isin(needed), ["plate", "well", "analyte", "time_h", "product_mM"]]
+    sub = sub.astype({"plate": object, "well": object, "analyte": object})
+    wide = (sub.groupby(["plate", "well", "time_h", "analyte"], sort=True)["product_mM"].first()
+            .unstack("analyte").reset_index())
+    wide.columns.name = None
+    for a in needed:
+        if a not in wide.columns:
+            wide[a] = np.nan
+    bcode = base[["plate", "well"]].assign(_w=np.arange(len(base)))
+    wide = wide.merge(bcode, on=["plate", "well"], how="inner")
+    wide = wide.sort_values(["_w", "time_h"], kind="stable").reset_index(drop=True)
+    if wide.empty:
+        return out
+    w = wide["_w"].to_numpy(dtype=np.int64)
+    t = wide["time_h"].to_numpy(dtype=float)
+    Y = wide[needed].to_numpy(dtype=float)          # rows: readings; columns: analytes (main first)
+    col = {a: j for j, a in enumerate(needed)}
+    role = base["role"].to_numpy(dtype=object)[w]
+    theo_w = base["s0"].to_numpy(dtype=float) * float(m.product_per_substrate)
+    theo = theo_w[w]
+
+    # substrate-weighted elapsed time E(t) per well (trapezoid, X = 0 at t = 0)
+    prod_cols = [col[main], *[col[b] for b in byp]]
+    total_raw = Y[:, prod_cols].sum(axis=1)          # NaN if any declared product is missing
+    with np.errstate(invalid="ignore", divide="ignore"):
+        X = np.where(theo > 0, total_raw / theo, np.nan)
+        X = np.where(np.isfinite(X), X, np.where(theo > 0, Y[:, col[main]] / theo, np.nan))
+    X = np.clip(np.where(np.isfinite(X), X, 0.0), 0.0, 1.0)
+    f = 1.0 - X
+    first = np.r_[True, w[1:] != w[:-1]]
+    t_prev = np.where(first, 0.0, np.r_[0.0, t[:-1]])
+    f_prev = np.where(first, 1.0, np.r_[1.0, f[:-1]])
+    dE = (t - t_prev) * (f + f_prev) / 2.0
+    E = pd.Series(dE).groupby(w).cumsum().to_numpy()
+
+    # background constants per plate x temperature x analyte, pooled over the blank wells
+    tkey = np.round(base["temperature_c"].to_numpy(dtype=float), 6)
+    pt = pd.DataFrame({"plate": base["plate"].to_numpy(dtype=object), "tkey": tkey})
+    pt_code_w = pt.groupby(["plate", "tkey"], sort=False, dropna=False).ngroup().to_numpy()
+    n_pt = int(pt_code_w.max()) + 1
+    pt_code = pt_code_w[w]
+    is_blank = role == "blank"
+    catalysed = np.isin(role, ["sample", "reference"])
+    finY = np.isfinite(Y)
+    kb = np.full((n_pt, Y.shape[1]), np.nan)
+    for j in range(Y.shape[1]):      # a loop over a few analytes
+        use = is_blank & finY[:, j]
+        see = np.bincount(pt_code[use], weights=E[use] ** 2, minlength=n_pt)
+        sye = np.bincount(pt_code[use], weights=Y[use, j] * E[use], minlength=n_pt)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            kb[:, j] = np.where(see > 0, sye / see, np.nan)
+    kb_rows = kb[pt_code]                                    # (rows, analytes)
+    has_bg = catalysed[:, None] & np.isfinite(kb_rows)
+    background = np.where(has_bg, kb_rows * E[:, None], 0.0)
+    net = Y - background
+    corrected_w = np.zeros(len(base), dtype=bool)
+    corr_rows = has_bg[:, prod_cols].all(axis=1)
+    corrected_w[np.unique(w[corr_rows])] = True
+
+    G = len(base)
+    n_main = net[:, col[main]]
+    flags = {}
+    res = {}
+    last = ~np.r_[w[1:] == w[:-1], False]     # last reading of each well
+    if byp:
+        net_total = net[:, prod_cols].sum(axis=1)
+        fit = origin_fit(w, net_total, n_main, G)
+        res.update(selectivity_pct=100.0 * fit["slope"], selectivity_se=100.0 * fit["se"],
+                   selectivity_n=fit["n"], selectivity_df=fit["df"],
+                   selectivity_drift_pct=100.0 * fit["curv_change"], selectivity_drift_p=fit["curv_p"],
+                   products_max_mM=fit["x_max"])
+        low = _low_product(fit, theo_w)
+        flags["selectivity_low_product"] = low & np.isfinite(fit["slope"])
+        flags["selectivity_drift"] = _drifts(fit) & ~low
+        bg_total = background[:, prod_cols].sum(axis=1)
+        lt = last & np.isfinite(total_raw) & (total_raw > 0)
+        share = np.full(G, np.nan)
+        share[w[lt]] = bg_total[lt] / total_raw[lt]
+        res["background_share_pct"] = 100.0 * share
+    if ens:
+        e1, e2 = col[ens[0]], col[ens[1]]
+        fit_e = origin_fit(w, net[:, e1] + net[:, e2], net[:, e1] - net[:, e2], G)
+        res.update(ee_pct=100.0 * fit_e["slope"], ee_se=100.0 * fit_e["se"], ee_n=fit_e["n"], ee_df=fit_e["df"],
+                   ee_drift_pct=100.0 * fit_e["curv_change"], ee_drift_p=fit_e["curv_p"],
+                   main_max_mM=fit_e["x_max"])
+        low_e = _low_product(fit_e, theo_w)
+        flags["ee_low_product"] = low_e & np.isfinite(fit_e["slope"])
+        flags["ee_drift"] = _drifts(fit_e) & ~low_e
+        if not byp:
+            bg_main = background[:, col[main]]
+            ym = Y[:, col[main]]
+            lt = last & np.isfinite(ym) & (ym > 0)
+            share = np.full(G, np.nan)
+            share[w[lt]] = bg_main[lt] / ym[lt]
+            res["background_share_pct"] = 100.0 * share
+    else:
+        mm = pd.Series(n_main).groupby(w).max()
+        arr = np.full(G, np.nan)
+        arr[mm.index.to_numpy()] = mm.to_numpy()
+        res["main_max_mM"] = arr
+    if "background_share_pct" in res:
+        with np.errstate(invalid="ignore"):
+            flags["background_dominant"] = corrected_w & (res["background_share_pct"] > 100.0 * BACKGROUND_DOMINANT_FRACTION)
+    for k, v in res.items():
+        out[k] = np.asarray(v, dtype=float)
+    out["blank_corrected"] = corrected_w
+    out["flags"] = join_flags(None, flags, index=out.index).to_numpy(dtype=object)
+    return out
+
+
+def _low_product(fit: dict[str, np.ndarray], theo_w: np.ndarray) -> np.ndarray:
+    xm = fit["x_max"]
+    with np.errstate(invalid="ignore"):
+        by_conv = np.isfinite(theo_w) & (theo_w > 0) & (xm < LOW_PRODUCT_CONVERSION_PCT / 100.0 * theo_w)
+        by_noise = np.isfinite(fit["resid_sd"]) & (xm < LOW_PRODUCT_NOISE_MULTIPLE * fit["resid_sd"])
+        nonpos = ~(xm > 0)
+    return (fit["n"] >= 1) & (by_conv | by_noise | nonpos)
+
+
+def _drifts(fit: dict[str, np.ndarray]) -> np.ndarray:
+    with np.errstate(invalid="ignore"):
+        return ((fit["n"] >= 4) & np.isfinite(fit["curv_p"]) & (fit["curv_p"] < DRIFT_ALPHA)
+                & (np.abs(100.0 * fit["curv_change"]) >= DRIFT_MIN_CHANGE_PCT))
+
+
+def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
+                     confidence: float = 0.95) -> pd.DataFrame:
+    """Group statistics of per-well selectivity / ee (one row per group code 0..n_groups-1).
+
+    ``rows`` holds :func:`well_selectivity` columns aligned with ``codes`` (one row per well; a
+    negative code leaves the row out). Returns :data:`GROUP_COLUMNS` plus ``flags``: mean over the
+    wells with a value, SE = SD/sqrt(n) and a t interval with n - 1 df; one well: its own SE and
+    df. Group flags: a well flag carried by at least half of the wells with a value.
+    """
+    codes = np.asarray(codes)
+    G = int(n_groups)
+    out = pd.DataFrame(index=pd.RangeIndex(G))
+    flag_masks: dict[str, np.ndarray] = {}
+    wflags = rows["flags"].astype(object).where(rows["flags"].notna(), "").astype(str) if "flags" in rows \
+        else pd.Series([""] * len(rows))
+    any_value = np.zeros(len(rows), dtype=bool)
+    for key in ("selectivity", "ee"):
+        v = pd.to_numeric(rows.get(f"{key}_pct"), errors="coerce").to_numpy(dtype=float) \
+            if f"{key}_pct" in rows else np.full(len(rows), np.nan)
+        se1 = pd.to_numeric(rows[f"{key}_se"], errors="coerce").to_numpy(dtype=float) \
+            if f"{key}_se" in rows else np.full(len(rows), np.nan)
+        df1 = pd.to_numeric(rows[f"{key}_df"], errors="coerce").to_numpy(dtype=float) \
+            if f"{key}_df" in rows else np.full(len(rows), np.nan)
+        ok = np.isfinite(v) & (codes >= 0)
+        frame = pd.DataFrame({"g": codes[ok], "v": v[ok], "se": se1[ok], "df": df1[ok]})
+        a = frame.groupby("g").agg(n=("v", "size"), mean=("v", "mean"), sd=("v", "std"),
+                                   se1=("se", "first"), df1=("df", "first")).reindex(range(G))
+        n = a["n"].fillna(0).to_numpy(dtype=float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            se = np.where(n >= 2, a["sd"].to_numpy(float) / np.sqrt(n), np.where(n == 1, a["se1"].to_numpy(float),
+                                                                                   np.nan))
+            df = np.where(n >= 2, n - 1.0, np.where(n == 1, a["df1"].to_numpy(float), np.nan))
+            q = _t_quantile(confidence, df)
+            mean = a["mean"].to_numpy(dtype=float)
+        out[f"{key}_pct"] = mean
+        out[f"{key}_se"] = se
+        out[f"{key}_df"] = df
+        out[f"{key}_ci_low"] = mean - q * se
+        out[f"{key}_ci_high"] = mean + q * se
+        any_value |= ok
+    # group flags: carried by at least half of the wells that have a selectivity or an ee
+    c_any = codes[any_value].astype(np.int64)
+    n_any = np.bincount(c_any, minlength=G)[:G].astype(float)
+    for code in ("selectivity_drift", "selectivity_low_product", "background_dominant", "ee_drift",
+                 "ee_low_product"):
+        has = wflags.str.contains(rf"(?:^|;){code}(?:;|$)", regex=True).to_numpy(dtype=bool)
+        cnt = np.bincount(c_any, weights=has[any_value].astype(float), minlength=G)[:G]
+        flag_masks[code] = (n_any > 0) & (cnt >= 0.5 * n_any) & (cnt > 0)
+    out["flags"] = join_flags(None, flag_masks, index=out.index).to_numpy(dtype=object) if flag_masks \
+        else np.array([""] * G, dtype=object)
+    return out[[*GROUP_COLUMNS, "flags"]]
+
+
+__all__ = ["FLAGS", "WELL_COLUMNS", "GROUP_COLUMNS", "well_selectivity", "summarise_groups", "origin_fit"]
