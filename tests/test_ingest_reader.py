@@ -389,7 +389,9 @@ def mutated(draw):
     return f
 
 
-@settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@pytest.mark.slow
+@pytest.mark.filterwarnings("ignore::screenlab.errors.DataQualityWarning")
+@settings(max_examples=50, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(mutated())
 def test_mutations_give_a_result_or_a_validation_error(f):
     try:
@@ -432,8 +434,10 @@ def test_speed_260k_readings():
     print(f"\nread + validated {len(res.data.readings):,} readings in {dt:.2f} s")
     assert len(res.data.readings) == len(rd)
     # the same with one bad reading: still every row checked, still one problem
-    rd.loc[12345, "time"] = -1
-    f["readings.csv"] = rd.to_csv(index=False).encode()
+    lines = f["readings.csv"].split(b"\n")
+    cells = lines[12345 + 1].split(b",")
+    lines[12345 + 1] = b",".join([cells[0], cells[1], b"-1", cells[3]])
+    f["readings.csv"] = b"\n".join(lines)
     t0 = time.perf_counter()
     with pytest.raises(ValidationError) as ei:
         read_campaign(f)

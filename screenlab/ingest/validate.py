@@ -104,7 +104,8 @@ class Checker:
         text = raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else raw
         low = raw.str.lower()
         blank = low.isin(NA_WORDS).to_numpy()
-        v = pd.to_numeric(text.where(~low.isin(NA_WORDS), None), errors="coerce").to_numpy(dtype=float)
+        v = np.array(pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan))
+        v[blank] = np.nan
         nanword = low.isin(_NAN_WORDS).to_numpy()
         notnum = ~blank & np.isnan(v) & ~nanword
         nonfinite = ~blank & (np.isinf(v) | nanword)
@@ -121,7 +122,7 @@ class Checker:
 
     def duplicated(self, keys: list[pd.Series] | pd.Series, valid, column: str, what: str) -> np.ndarray:
         """Report rows repeating an earlier row's key (among ``valid`` rows); returns the mask."""
-        frame = pd.DataFrame({f"k{i}": k.to_numpy() if hasattr(k, "to_numpy") else k
+        frame = pd.DataFrame({f"k{i}": (k.reset_index(drop=True) if isinstance(k, pd.Series) else k)
                               for i, k in enumerate(keys if isinstance(keys, list) else [keys])})
         frame["_row"] = self.rows
         frame = frame[np.asarray(valid, dtype=bool)]
@@ -136,6 +137,14 @@ class Checker:
         msg[frame.index[dup.to_numpy()]] = [f"{what} (first on row {int(r)})" for r in first[dup].to_numpy()]
         self.report(mask, column, msg)
         return mask
+
+
+def parse_wells_fast(names: pd.Series) -> pd.DataFrame:
+    """:func:`screenlab.plates.parse_wells` on the distinct names only, spread back to every row
+    (a readings file repeats a few hundred well names many times)."""
+    codes, uniques = pd.factorize(names.fillna(""), use_na_sentinel=True)
+    parsed = platelib.parse_wells(np.asarray(uniques, dtype=object))
+    return parsed.iloc[codes].reset_index(drop=True)
 
 
 def _temperature(ch: Checker, column: str, v: np.ndarray, ok: np.ndarray) -> None:
@@ -285,19 +294,19 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
         ch.report((pid == "").to_numpy(), "plate", "a plate id is required")
         if check_plate_ids:
             ch.report(((pid != "") & ~known_plate), "plate", "unknown plate (not in plates.csv)")
-    parsed = platelib.parse_wells(ch.text("well").to_numpy())
+    parsed = parse_wells_fast(ch.text("well"))
     well_ok = parsed["well"].notna().to_numpy()
     if "well" in f.columns:
         ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
     fmt = pid.map(plate_fmt).fillna(0).astype(np.int64).to_numpy()
     nr, nc = platelib.format_dims(fmt)
     outside = well_ok & known_plate & (fmt > 0) & ((parsed["row"].to_numpy() >= nr) | (parsed["col"].to_numpy() >= nc))
-    if outside.any():
+    if outside.any():  # messages built for the failing rows only
         last = np.array(list(platelib.ROW_LETTERS))[np.clip(nr - 1, 0, 15)]
-        msg = np.array([f"well outside the plate's {a}-well format (rows A-{b}, columns 1-{c})"
-                        for a, b, c in zip(fmt, last, nc)], dtype=object) if n < 50_000 else None
-        if msg is None:
-            msg = "well outside the plate's format"
+        msg = np.full(n, "", dtype=object)
+        idx = np.flatnonzero(outside)
+        msg[idx] = [f"well outside the plate's {a}-well format (rows A-{b}, columns 1-{c})"
+                    for a, b, c in zip(fmt[idx], last[idx], nc[idx])]
         ch.report(outside, "well", msg)
     wells = parsed["well"].astype("str")
     placed = well_ok & (pid != "").to_numpy()
@@ -317,8 +326,9 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
         loading, lok = ch.number("loading", required=is_cat, what="a sample or reference well needs a loading")
         ch.report(is_cat & lok & (loading <= 0), "loading", "loading must be > 0")
     lu_raw = ch.text("loading_unit")
-    lu = lu_raw.map(units.normalise_loading_unit) if n else lu_raw
-    lu = pd.Series(lu, index=f.index, dtype=object)
+    codes, uniq = pd.factorize(lu_raw)  # normalise the few distinct unit words, not every row
+    canon = np.array([units.normalise_loading_unit(u) for u in uniq] + [None], dtype=object)
+    lu = pd.Series(canon[codes], index=f.index, dtype=object)
     if "loading_unit" in f.columns:
         ch.report(is_cat & (lu_raw == "").to_numpy(), "loading_unit",
                   "a sample or reference well needs a loading_unit (umol, mg or mol%)")
@@ -404,22 +414,21 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
         ch.report((pid == "").to_numpy(), "plate", "a plate id is required")
         if check_plate_ids:
             ch.report((pid != "").to_numpy() & ~known_plate, "plate", "unknown plate (not in plates.csv)")
-    parsed = platelib.parse_wells(ch.text("well").to_numpy())
+    parsed = parse_wells_fast(ch.text("well"))
     well = parsed["well"].astype("str")
     well_ok = parsed["well"].notna().to_numpy()
     if "well" in f.columns:
         ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
-    key = pd.MultiIndex.from_arrays([pid.to_numpy(dtype=object), well.to_numpy(dtype=object)])
-    lay = pd.MultiIndex.from_arrays([wells["plate"].to_numpy(dtype=object), wells["well"].to_numpy(dtype=object)])
-    role_of = pd.Series(wells["role"].to_numpy(), index=lay)
-    role_of = role_of[~role_of.index.duplicated()]
-    in_layout = key.isin(role_of.index)
+    sep = "\x1f"
+    lay_keys = pd.Index(wells["plate"].astype("str") + sep + wells["well"].astype("str")).drop_duplicates()
+    lay_roles = wells.assign(_k=wells["plate"].astype("str") + sep + wells["well"].astype("str")) \
+        .drop_duplicates("_k").set_index("_k")["role"].reindex(lay_keys).to_numpy(dtype=object)
+    pos = lay_keys.get_indexer(pid + sep + well.fillna(""))
+    in_layout = pos >= 0
     check_place = known_plate & well_ok & check_wells
     ch.report(check_place & ~in_layout, "well", "reading for a well that is not in layout.csv")
-    on_empty = np.zeros(n, dtype=bool)
-    if in_layout.any():
-        roles = role_of.reindex(key).to_numpy(dtype=object)
-        on_empty = in_layout & (roles == "empty")
+    roles = np.where(in_layout, lay_roles[np.clip(pos, 0, None)] if len(lay_roles) else None, None)
+    on_empty = in_layout & (roles == "empty")
     ch.report(on_empty, "well", "reading on a well marked empty in layout.csv")
     # time
     t = np.full(n, np.nan)
