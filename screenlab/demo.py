@@ -61,8 +61,8 @@ TRUTH_DIR = "_truth"
 UNCATALYSED = "(uncatalysed)"
 
 #: Standard atomic weights, g/mol (CIAAW/IUPAC; conventional values where the table gives an
-#: interval). H, C, N, O, P, Cl, Fe, Cu, Ru, Rh, Pd, Ir, Pt, Ni, Co, Zn from /work/shared/check-values.md
-#: section 10 (CONFIRMED there); Br 79.904, Mn 54.938043, K 39.0983 are from memory.
+#: interval). H, C, N, O, P, Cl, Fe, Co, Ni, Cu, Ru, Rh, Pd, Ir, Pt from the project's check-values
+#: notes, section 10 (CONFIRMED there); Br 79.904, Mn 54.938043, K 39.0983, Zn 65.38 are from memory.
 ATOMIC_WEIGHTS: dict[str, float] = {
     "H": 1.008, "C": 12.011, "N": 14.007, "O": 15.999, "P": 30.973761998, "Cl": 35.45,
     "Br": 79.904, "K": 39.0983, "Mn": 54.938043, "Fe": 55.845, "Co": 58.933194, "Ni": 58.6934,
