@@ -1,6 +1,7 @@
 """``screenlab rates``, ``screenlab arrhenius`` and ``screenlab orders``: kinetics tables of a stored campaign.
 
-rates      one row per catalyst x temperature x condition (``--per-well``: one row per well)
+rates      one row per catalyst x temperature x condition (``--per-well``: one row per well), with
+           selectivity to the main product and ee where the campaign declares several analytes
 arrhenius  one row per catalyst at its standard condition, plus the "(uncatalysed)" row
 orders     apparent orders in substrate concentration and in catalyst loading
 
@@ -14,11 +15,12 @@ from screenlab.cli.common import add_format_option, add_store_option, emit, reso
 
 RATES_COLUMNS = ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", "n_wells",
                  "rate_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton", "enhancement",
-                 "enhancement_ci_low", "enhancement_ci_high", "is_standard", "flags"]
+                 "enhancement_ci_low", "enhancement_ci_high", "selectivity_pct", "selectivity_ci_low",
+                 "selectivity_ci_high", "ee_pct", "ee_ci_low", "ee_ci_high", "is_standard", "flags"]
 WELL_COLUMNS = ["plate", "well", "role", "catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
                 "method", "rate_mM_per_h", "rate_se_mM_per_h", "blank_rate_mM_per_h", "net_rate_mM_per_h",
                 "sites_umol", "tof_per_h", "tof_se_per_h", "ton", "enhancement", "enhancement_ci_low",
-                "enhancement_ci_high", "outlier", "flags"]
+                "enhancement_ci_high", "selectivity_pct", "selectivity_se", "ee_pct", "ee_se", "outlier", "flags"]
 ARRHENIUS_COLUMNS = ["catalyst", "n_temperatures", "ea_kj_mol", "ea_se", "ea_ci_low", "ea_ci_high", "ln_a",
                      "dh_kj_mol", "ds_j_mol_k", "dg_ref_kj_mol", "tof_ref_per_h", "tof_ref_ci_low",
                      "tof_ref_ci_high", "delta_ea_kj_mol", "delta_ea_ci_low", "delta_ea_ci_high", "flags"]
@@ -100,11 +102,29 @@ def _pick(frame, cols):
     return frame[[c for c in cols if c in frame.columns]]
 
 
+def _wells_with_selectivity(kin):
+    """The per-well table with the selectivity / ee columns and flags of kin.selectivity joined in."""
+    import numpy as np
+
+    wells = kin.wells
+    sel = kin.selectivity
+    extra = ["selectivity_pct", "selectivity_se", "ee_pct", "ee_se"]
+    if sel is None or not len(sel):
+        return wells.assign(**{c: np.nan for c in extra})
+    s = sel[["plate", "well", *extra, "flags"]].rename(columns={"flags": "_sel_flags"})
+    out = wells.astype({"plate": object, "well": object}).merge(
+        s.astype({"plate": object, "well": object}), on=["plate", "well"], how="left")
+    cur = out["flags"].astype(object).where(out["flags"].notna(), "").astype(str).to_numpy(dtype=object)
+    add = out["_sel_flags"].astype(object).where(out["_sel_flags"].notna(), "").astype(str).to_numpy(dtype=object)
+    out["flags"] = np.where(add == "", cur, np.where(cur == "", add, cur + ";" + add))
+    return out.drop(columns="_sel_flags")
+
+
 def run_rates(args) -> int:
     data, kin = _kinetics(args)
     if args.per_well:
         cols = WELL_COLUMNS[:8] + list(data.factor_names) + WELL_COLUMNS[8:]
-        emit(_pick(kin.wells, cols), args.format)
+        emit(_pick(_wells_with_selectivity(kin), cols), args.format)
     else:
         cols = RATES_COLUMNS[:6] + list(data.factor_names) + RATES_COLUMNS[6:]
         emit(_pick(kin.rates, cols), args.format)

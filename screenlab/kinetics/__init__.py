@@ -6,7 +6,7 @@ rates -> Arrhenius / Eyring -> apparent orders (see DEVELOPERS.md "Kinetics").
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import pandas as pd
 
@@ -27,6 +27,10 @@ class KineticsResult:
                (:func:`screenlab.kinetics.arrhenius.arrhenius_table`)
     orders     apparent orders (:func:`screenlab.kinetics.orders.apparent_orders`)
     settings   the :class:`AnalysisSettings` used
+    selectivity  one row per non-empty well: selectivity to the main product and ee, with SEs and
+               flags (:func:`screenlab.kinetics.selectivity.well_selectivity`; NaN values for a
+               campaign without by-products or enantiomers). The rates table carries the group
+               values (``selectivity_pct``, ``ee_pct`` and their intervals).
     """
 
     amounts: pd.DataFrame
@@ -36,6 +40,7 @@ class KineticsResult:
     arrhenius: pd.DataFrame
     orders: pd.DataFrame
     settings: AnalysisSettings
+    selectivity: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> KineticsResult:
@@ -47,6 +52,7 @@ def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> Kinetics
     from screenlab.kinetics import rates as _rates
     from screenlab.kinetics.arrhenius import arrhenius_table
     from screenlab.kinetics.orders import apparent_orders
+    from screenlab.kinetics.selectivity import well_selectivity
     from screenlab.kinetics.turnover import blank_rates, group_rates, well_turnover
 
     if settings is None:
@@ -55,11 +61,12 @@ def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> Kinetics
     per_well = _rates.well_rates(data, settings, amounts=amounts)
     blanks = blank_rates(per_well, settings)
     wells = well_turnover(data, per_well, blanks, settings)
-    groups = group_rates(wells, settings, factor_names=data.factor_names)
+    selectivity = well_selectivity(data, amounts, settings)
+    groups = group_rates(wells, settings, factor_names=data.factor_names, selectivity=selectivity)
     arr = arrhenius_table(groups, blanks, settings)
     orders = apparent_orders(wells, settings, factor_names=data.factor_names)
     return KineticsResult(amounts=amounts, wells=wells, blanks=blanks, rates=groups, arrhenius=arr,
-                          orders=orders, settings=settings)
+                          orders=orders, settings=settings, selectivity=selectivity)
 
 
 __all__ = ["KineticsResult", "analyse_kinetics"]

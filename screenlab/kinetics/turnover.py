@@ -33,6 +33,7 @@ import pandas as pd
 from scipy import stats
 
 from screenlab import units
+from screenlab.kinetics import selectivity as _selectivity
 from screenlab.kinetics import sites as _sites
 from screenlab.kinetics.sites import has_flag, join_flags
 from screenlab.settings import AnalysisSettings
@@ -54,6 +55,7 @@ FLAGS: dict[str, str] = {
     "not_above_blank": "The group's net TOF confidence interval reaches zero or below: no activity shown over "
                        "the blank.",
     **_sites.FLAGS,
+    **_selectivity.FLAGS,
 }
 
 #: extra columns of the per-well turnover frame beyond the contract
@@ -346,14 +348,19 @@ def _standard_conditions(groups: pd.DataFrame, cond_cols: list[str]) -> np.ndarr
 
 
 def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None,
-                factor_names=None) -> pd.DataFrame:
+                factor_names=None, selectivity: pd.DataFrame | None = None) -> pd.DataFrame:
     """The "rates" table: one row per catalyst x temperature x condition (sample and reference wells).
 
     Columns: ``catalyst, role, temperature_c, loading, loading_unit, substrate_conc_mM,
     <factor columns>, n_wells, rate_mM_per_h, rate_sd_mM_per_h, tof_per_h, tof_sd_per_h,
     tof_se_per_h, tof_df, tof_ci_low, tof_ci_high, ton, ton_se, enhancement,
     enhancement_ci_low, enhancement_ci_high, is_standard, plates, flags`` plus ``tof_per_s,
-    n_plates, n_outliers, rate_se_mM_per_h``.
+    n_plates, n_outliers, rate_se_mM_per_h`` and the selectivity / ee columns
+    ``selectivity_pct, selectivity_se, selectivity_df, selectivity_ci_low, selectivity_ci_high,
+    ee_pct, ee_se, ee_df, ee_ci_low, ee_ci_high`` (NaN unless ``selectivity``, the per-well frame of
+    :func:`screenlab.kinetics.selectivity.well_selectivity`, is given and the campaign declares
+    by-products / enantiomers; group statistics by
+    :func:`screenlab.kinetics.selectivity.summarise_groups`, whose group flags join ``flags``).
 
     * n_wells counts the wells with a finite rate; TOF statistics use wells with a finite TOF.
     * TOF SE of the mean: ``sqrt(SD^2/n + b^2/k)`` where b is the mean blank-SE contribution in
@@ -377,7 +384,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         cols = [*keys, "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_sd_per_h",
                 "tof_se_per_h", "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement",
                 "enhancement_ci_low", "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s",
-                "n_plates", "n_outliers", "rate_se_mM_per_h"]
+                "n_plates", "n_outliers", "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS]
         return pd.DataFrame(columns=cols)
 
     t["temperature_c"] = _tkey(t["temperature_c"])
@@ -482,6 +489,20 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     with np.errstate(invalid="ignore"):
         res["rate_se_mM_per_h"] = np.where(a["n_wells"].to_numpy() >= 2,
                                            res["rate_sd_mM_per_h"] / np.sqrt(a["n_wells"].to_numpy(float)), np.nan)
+    n_groups = len(res)
+    if selectivity is not None and len(selectivity):
+        sel_cols = [c for c in selectivity.columns if c not in ("role", "catalyst", "temperature_c")]
+        aligned = t[["plate", "well"]].astype(object).merge(
+            selectivity[sel_cols].astype({"plate": object, "well": object}), on=["plate", "well"], how="left")
+        sel = _selectivity.summarise_groups(aligned, work["_g"].to_numpy(), n_groups, settings.confidence)
+    else:
+        sel = _selectivity.summarise_groups(pd.DataFrame({"flags": []}), np.zeros(0, dtype=np.int64), n_groups,
+                                            settings.confidence)
+    for c in _selectivity.GROUP_COLUMNS:
+        res[c] = sel[c].to_numpy(dtype=float)
+    sel_flags = sel["flags"].to_numpy(dtype=object)
+    cur = res["flags"].to_numpy(dtype=object)
+    res["flags"] = np.where(sel_flags == "", cur, np.where(cur == "", sel_flags, cur + ";" + sel_flags))
     res.attrs["factor_names"] = factors
     res = res.sort_values(["catalyst", "temperature_c", "loading", "substrate_conc_mM"],
                           kind="stable", na_position="last").reset_index(drop=True)
