@@ -5,10 +5,15 @@ one point per temperature: y = ln TOF (TOF in h-1) against x = 1/T, T = t + 273.
 
 * **Weights**: 1/var(ln TOF) with var(ln TOF) = (tof_se/tof)^2 (delta method) when every point
   has a finite positive SE; otherwise an unweighted fit (``fit_weighted`` False).
-* **Covariance**: scaled by the residual variance (chi^2/df), as statsmodels WLS does by default,
-  so the reported SEs reflect the actual scatter about the line (plate-to-plate and temperature
-  errors that replicate SEs miss), and the weights act only as relative precisions. Intervals use
-  Student t with df = n_T - 2. With two temperatures the line goes through both points: estimates
+* **Covariance**: for a weighted fit, scaled by max(1, chi^2/df) (the Birge ratio / Particle Data
+  Group "scale factor" rule): the reported SEs reflect the actual scatter about the line when it
+  exceeds what the replicate SEs predict (plate-to-plate and temperature errors that replicates
+  miss), but never shrink below what the replicate SEs imply — with 3-4 temperatures and df of
+  1-2, a line that happens to pass through its points would otherwise claim an Ea known to a
+  fraction of a kJ/mol. When chi^2/df > 1 this is exactly statsmodels WLS's default covariance
+  and intervals use Student t with df = n_T - 2; when the floor applies the error scale is the
+  replicates' and intervals use the normal quantile (``fit_df`` = inf). Unweighted fits use the
+  residual variance (OLS) and t with df = n_T - 2. With two temperatures the line goes through both points: estimates
   without SE or CI (flag ``two_temperatures``); with one there is no estimate (``one_temperature``).
 * Ea = -slope x R (R from scipy.constants), ln A = intercept (A in h-1).
 * **Eyring** (transition-state theory, transmission coefficient kappa = 1): ln(TOF/T) with TOF in
@@ -60,12 +65,14 @@ COLUMNS = ["catalyst", "role", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mo
 LN_KB_OVER_H = float(np.log(units.KB_J_K / units.H_J_S))
 
 
-def wls_line(x, y, var=None):
+def wls_line(x, y, var=None, *, floor_scale: bool = True):
     """Weighted least squares of y on x (weights 1/var; None = unweighted).
 
-    Returns (intercept, slope, cov 2x2 scaled by the residual variance, df). With df = 0 the
-    covariance is NaN. Matches statsmodels ``WLS(y, [1, x], weights=1/var).fit()`` params and
-    ``cov_params()``.
+    Returns (intercept, slope, cov 2x2, df). The covariance is (X'WX)^-1 times chi^2/df, floored
+    at 1 when ``var`` is given and ``floor_scale`` (see the module docstring) — then the returned
+    df is ``inf`` (normal quantiles: the error scale comes from the replicates, not the residuals);
+    unweighted, it is the OLS covariance. With df = 0 the covariance is NaN. With ``floor_scale=False`` it matches
+    statsmodels ``WLS(y, [1, x], weights=1/var).fit().cov_params()``.
     """
     x = np.asarray(x, float)
     y = np.asarray(y, float)
@@ -78,6 +85,9 @@ def wls_line(x, y, var=None):
     if df > 0:
         res = yw - Xw @ beta
         s2 = float(res @ res) / df
+        if var is not None and floor_scale and s2 < 1.0:
+            # the replicate SEs set the error scale: treated as known, so the effective df is infinite
+            s2, df = 1.0, np.inf
         cov = np.linalg.inv(Xw.T @ Xw) * s2
     else:
         cov = np.full((2, 2), np.nan)
