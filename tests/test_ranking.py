@@ -214,3 +214,17 @@ def test_pareto_p_front_close_call():
     # independent continuous draws: K0 is off the front only if K1 beats it on both metrics,
     # probability 1/2 x 1/2, so P(front) = 3/4 (closed form)
     np.testing.assert_allclose(p["p_front"], 0.75, atol=0.01)
+
+
+def test_selectivity_and_ee_metrics_t_draws():
+    # percent-scale metrics with t draws: P(A ahead of B) for B nearly exact = t.cdf(d / sA, df)
+    # (scipy.stats.t); both high-is-good
+    kin = fake_kin([10.0, 10.0], [1.0, 1.0])
+    rates = kin.rates.assign(selectivity_pct=[92.0, 90.0], selectivity_se=[1.2, 1e-9], selectivity_df=[4.0, 4.0],
+                             ee_pct=[-20.0, 35.0], ee_se=[3.0, 3.0], ee_df=[1e7, 1e7])
+    kin = FakeKinetics(kin.amounts, kin.wells, kin.blanks, rates, kin.arrhenius, kin.orders, kin.settings)
+    r = rank_candidates(kin, metric="selectivity", draws=200_000, seed=5).set_index("catalyst")
+    assert r.loc["K0", "p_best"] == pytest.approx(stats.t.cdf(2.0 / 1.2, 4), abs=0.005)
+    assert r.loc["K0", "unit"] == "%"
+    e = rank_candidates(kin, metric="ee", draws=1000, seed=5)
+    assert e["catalyst"].tolist() == ["K1", "K0"] and e["p_best"].tolist() == [1.0, 0.0]

@@ -18,7 +18,7 @@ QUALITY_COLUMNS = ["plate", "temperature_c", "n_sample", "n_reference", "n_blank
                    "edge_shift_pct", "bscore_max_abs", "reference_loo_t", "status", "flags"]
 RANK_TABLE_COLUMNS = ["rank", "catalyst", "role", "family", "estimate", "ci_low", "ci_high", "unit", "rank_low",
                       "rank_high", "p_top", "p_best", "p_beats_reference", "n", "basis", "flags", "reason"]
-METRIC_CHOICES = ("tof", "enhancement", "ea", "ton")
+METRIC_CHOICES = ("tof", "enhancement", "ea", "ton", "selectivity", "ee")
 
 
 def _campaign(p) -> None:

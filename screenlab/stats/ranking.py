@@ -20,7 +20,10 @@ Draws of different candidates are independent (each candidate's wells are its ow
 one candidate (TOF and Ea come from the same wells) are drawn independently in :func:`pareto`,
 which ignores their correlation.
 
-How to add a metric (selectivity, ee...): add a :class:`Metric` to :data:`METRICS` naming its
+Selectivity and ee (campaigns with an [analytes] table) are drawn from t distributions on the
+percent scale; the ee is signed, the first enantiomer named being the wanted one.
+
+How to add a metric: add a :class:`Metric` to :data:`METRICS` naming its
 source frame (``rates`` for per-temperature group rows, ``arrhenius`` for per-catalyst fits), the
 estimate column, its SE column (or its CI columns, from which the SE is backed out), the df
 column, the direction and whether it is log-normal. For example a selectivity in percent from
@@ -85,6 +88,13 @@ METRICS: dict[str, Metric] = {
                   higher_is_better=True, lognormal=True),
     "ea": Metric("ea", "apparent Ea", "kJ/mol", "ea_kj_mol", "arrhenius", "ea_kj_mol", se="ea_se", df="fit_df",
                  higher_is_better=False, lognormal=False),
+    # bounded percentages near their middle range: t draws on the percent scale
+    "selectivity": Metric("selectivity", "selectivity to the main product", "%", "selectivity_pct", "rates",
+                          "selectivity_pct", se="selectivity_se", df="selectivity_df", higher_is_better=True,
+                          lognormal=False),
+    # signed ee: positive = the first enantiomer named in [analytes].enantiomers, taken as the wanted one
+    "ee": Metric("ee", "enantiomeric excess", "%", "ee_pct", "rates", "ee_pct", se="ee_se", df="ee_df",
+                 higher_is_better=True, lognormal=False),
 }
 
 RANK_COLUMNS = ["rank", "catalyst", "role", "family", "metric", "estimate", "ci_low", "ci_high", "unit",
