@@ -157,6 +157,12 @@ def test_values_under_an_empty_header():
     find(problems(plates_csv=bad), "plates.csv", "column 6 has values but no header name", row=2)
 
 
+def test_unclosed_quote_names_its_row():
+    rd = good_readings().splitlines()
+    rd[4] = 'P1,A1,"40,3'
+    find(problems(readings_csv="\n".join(rd) + "\n"), "readings.csv", "never closed", row=5)
+
+
 def test_csv_and_xlsx_both_present():
     f = files()
     f["plates.xlsx"] = b"whatever"

@@ -27,6 +27,7 @@ from screenlab.errors import Problem
 
 _WS = re.compile(r"\s+")
 _PARSER_SAW = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
+_PARSER_EOF = re.compile(r"EOF inside string starting at row (\d+)")
 
 
 @dataclass
@@ -100,7 +101,13 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]) -> tuple[pd.D
         except pd.errors.ParserError as exc:
             m = _PARSER_SAW.search(str(exc))
             if not m:
-                problems.append(Problem(name, None, None, None, f"cannot be read as a table: {exc}"))
+                eof = _PARSER_EOF.search(str(exc))
+                if eof:  # pandas counts records from 0; the spreadsheet from 1
+                    problems.append(Problem(name, int(eof.group(1)) + 1 + lead, None, None,
+                                            'a quote (") opened on this row is never closed, so the rest of '
+                                            "the file cannot be read"))
+                else:
+                    problems.append(Problem(name, None, None, None, f"cannot be read as a table: {exc}"))
                 return None
             names = max(names or 0, int(m.group(3)), int(m.group(1)))
         except (ValueError, MemoryError) as exc:  # pragma: no cover - defensive
