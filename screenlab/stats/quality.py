@@ -414,10 +414,9 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         out["blank_z"] = b["z"].reindex(out.index)
 
     # B-scores and the edge test (a loop over plates for the U test only)
-    bw = well_bscores(kin, data, value=bscore_value)
-    bw = bw[np.isfinite(bw["residual"].to_numpy(dtype=float))]
-    edge_all = well_bscores(kin, data, value="rate")[["is_edge"]].to_numpy()[:, 0]
-    rep = pd.DataFrame({"plate": w["plate"].astype(str), "is_edge": edge_all, "rate": rate})
+    bw_all = well_bscores(kin, data, value=bscore_value)          # one row per well of kin.wells, same order
+    bw = bw_all[np.isfinite(bw_all["residual"].to_numpy(dtype=float))]
+    rep = pd.DataFrame({"plate": w["plate"].astype(str), "is_edge": bw_all["is_edge"].to_numpy(), "rate": rate})
     rep = rep[(role == "sample").to_numpy() & (rep["rate"] > 0).to_numpy()]
     rep_keys = [rep["plate"]] + [w.loc[rep.index, k] for k in keys if k != "plate"]
     grp = rep.groupby(rep_keys, dropna=False)["rate"]
