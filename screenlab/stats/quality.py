@@ -5,8 +5,10 @@ Conventions (each chosen once, here):
 * **Z'-factor** (Zhang, Chung & Oldenburg 1999, *J. Biomol. Screen.* 4, 67; IUPAC Gold Book
   "Z' factor") between the plate's reference (benchmark) wells, the positive control, and its
   blank wells, the negative control, on their rates: ``Z' = 1 - 3 (sd+ + sd-) / |mu+ - mu-|``
-  with the *sample* SD (ddof = 1). Both SDs zero and the means apart gives 1; equal means give
-  ``-inf`` (no separation at all), never a division error.
+  with the *sample* SD (ddof = 1). Every control well with a finite rate counts, replicate
+  outliers included: Z' is meant to show the spread the screen really has. Both SDs zero and
+  the means apart gives 1; equal means give ``-inf`` (no separation at all), never a division
+  error.
 * **B-score** (Brideau et al. 2003, *J. Biomol. Screen.* 8, 634): the residual of a per-plate
   Tukey median polish (a port of R's ``stats::medpolish``: eps 0.01, maxiter 10, rows first,
   ``na.rm = TRUE``) divided by the plate's MAD of residuals. We scale the MAD by 1.4826 (R's
