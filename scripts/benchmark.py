@@ -1,0 +1,363 @@
+"""Speed of ScreenLab at campaign scale, against a per-well loop as a notebook would write it.
+
+Usage: python scripts/benchmark.py [--sizes 4,100,400,1600] [--quick] [--json FILE]
+
+For each size (plates of 96 wells, 8 readings per well; plus one 384-well case) a fresh
+subprocess generates a seeded synthetic campaign (:mod:`screenlab.synthetic`, not timed), writes
+it as a campaign folder and times, in this order:
+
+import       screenlab.ingest.read_campaign(folder) + Store(tmp).import_campaign(result)
+rates        kinetics amounts + well_rates + blank_rates + well_turnover + group_rates
+arrhenius    kinetics.arrhenius.arrhenius_table
+ranking      stats.ranking.rank_candidates (TOF at the reference temperature, 10,000 draws)
+shortlist    export.shortlist.write_shortlist + export.nextround.design_next_round (top 5)
+app page     the compute behind the Ranking page: store.load_campaign + pipeline.analyse (kinetics,
+             orders, plate quality, control chart) + rank_candidates with plate quality + pareto
+             (2,000 draws) + the forest, rank-interval and Pareto figures
+baseline     the per-well loop: scipy.stats.linregress on the initial window of each well
+             (scipy.optimize.curve_fit first order when fewer than 3 window points), blank
+             subtraction and TOF per catalyst and temperature, scipy.stats.linregress per
+             catalyst for Arrhenius, all in Python loops. At large sizes it runs on a subsample
+             of plates and is extrapolated linearly (the output says so).
+
+Each stage reports wall time and readings per second. Memory: ``peak_rss_mb`` is the process's
+ru_maxrss after all stages (each size runs in its own process), ``py_peak_mb`` the tracemalloc
+peak of Python allocations (numpy arrays included) of a second, untimed pass of rates + Arrhenius
++ ranking (tracemalloc slows allocation-heavy code, so it is never on while timing). Also times
+``screenlab --help`` (process start-up). Targets are printed next to the figures; nothing here
+asserts anything.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+import tracemalloc
+import warnings
+from pathlib import Path
+
+TARGETS = {
+    "import_rps_400": 500_000,          # readings/s, 400 plates, validation included
+    "analysis_speedup": 30.0,           # rates + Arrhenius + ranking vs the per-well loop
+    "analysis_s_400": 0.35,
+    "growth_per_4x": 4.5,
+    "rss_mb_1600": 1024.0,
+}
+BASELINE_MAX_WELLS = 6_000               # above this, the loop runs on a subsample of plates
+
+
+# ------------------------------------------------------------------------------ the loop baseline
+
+def loop_baseline(data, settings, max_wells: int | None = BASELINE_MAX_WELLS) -> dict:
+    """The per-well notebook loop on ``data``; returns seconds (measured and, if subsampled, scaled).
+
+    Plates are subsampled in whole plate sets (every temperature kept) so the Arrhenius step sees
+    the same structure; the time is scaled by (all filled wells / wells run).
+    """
+    import numpy as np
+    from scipy import optimize, stats
+
+    wells = data.wells[data.wells["role"] != "empty"]
+    n_all = len(wells)
+    plates = data.plates["plate"].to_numpy()
+    frac = 1.0
+    if max_wells is not None and n_all > max_wells:
+        keep_n = max(1, int(len(plates) * max_wells / n_all))
+        n_t = data.plates["temperature_c"].nunique()
+        keep_n = max(n_t, keep_n - keep_n % n_t)
+        keep = set(plates[:keep_n])
+        wells = wells[wells["plate"].isin(keep)]
+        frac = len(wells) / n_all
+    rd = data.readings[data.readings["plate"].isin(set(wells["plate"]))]
+    t0 = time.perf_counter()
+    # a notebook: merge, then loop over wells
+    df = rd.merge(wells[["plate", "well", "role", "catalyst", "loading", "substrate_conc_mM", "volume_uL",
+                         "temperature_c"]], on=["plate", "well"])
+    df["product_mM"] = df["value"] / 100.0 * df["substrate_conc_mM"]
+
+    def first_order(t, p_inf, k):
+        return p_inf * (1.0 - np.exp(-k * t))
+
+    out = []
+    for (plate, well), g in df.groupby(["plate", "well"], sort=False):      # the per-well loop
+        g = g.sort_values("time_h")
+        t = g["time_h"].to_numpy()
+        p = g["product_mM"].to_numpy()
+        s0 = g["substrate_conc_mM"].iloc[0]
+        win = p <= settings.conversion_window_pct / 100.0 * s0
+        if win.sum() >= settings.min_window_points:
+            rate = stats.linregress(t[win], p[win]).slope
+        else:
+            try:
+                popt, _ = optimize.curve_fit(first_order, t, p, p0=(max(p.max(), 1e-6), 1.0 / max(t.max(), 1e-6)),
+                                             maxfev=2000)
+                rate = popt[0] * popt[1]
+            except (RuntimeError, ValueError):
+                rate = np.nan
+        out.append((plate, well, g["role"].iloc[0], g["catalyst"].iloc[0], g["loading"].iloc[0],
+                    g["volume_uL"].iloc[0], g["temperature_c"].iloc[0], rate))
+    import pandas as pd
+    w = pd.DataFrame(out, columns=["plate", "well", "role", "catalyst", "loading", "volume_uL", "temperature_c",
+                                   "rate"])
+    blank = w[w["role"] == "blank"].groupby("plate")["rate"].mean()
+    w = w[w["role"] != "blank"].copy()
+    w["net"] = w["rate"] - w["plate"].map(blank)
+    w["tof"] = w["net"] / (w["loading"] / w["volume_uL"] * 1e3)   # mM/h over site mM
+    g = w.groupby(["catalyst", "temperature_c"])["tof"].mean().reset_index()
+    n_fit = 0
+    for cat, c in g.groupby("catalyst"):                            # the per-catalyst loop
+        c = c[c["tof"] > 0]
+        if len(c) >= 2:
+            stats.linregress(1.0 / (c["temperature_c"] + 273.15), np.log(c["tof"]))
+            n_fit += 1
+    secs = time.perf_counter() - t0
+    return {"baseline_s_measured": secs, "baseline_fraction": frac, "baseline_s": secs / frac,
+            "baseline_wells": len(wells), "baseline_fits": n_fit}
+
+
+# ------------------------------------------------------------------------------ one size (worker)
+
+def _timed(results: dict, key: str, fn):
+    t0 = time.perf_counter()
+    value = fn()
+    results[key] = time.perf_counter() - t0
+    return value
+
+
+def run_size(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:
+    warnings.simplefilter("ignore")                      # data-quality notes are not the point here
+    import numpy as np  # noqa: F401  (imported before timing: start-up is measured separately)
+
+    from screenlab.export.nextround import design_next_round
+    from screenlab.export.shortlist import write_shortlist
+    from screenlab.ingest import read_campaign
+    from screenlab.kinetics import KineticsResult
+    from screenlab.kinetics import amounts as k_amounts
+    from screenlab.kinetics import rates as k_rates
+    from screenlab.kinetics.arrhenius import arrhenius_table
+    from screenlab.kinetics.orders import apparent_orders
+    from screenlab.kinetics.turnover import blank_rates, group_rates, well_turnover
+    from screenlab.pipeline import analyse, settings_for
+    from screenlab.stats.ranking import pareto, rank_candidates
+    from screenlab.store import Store
+    from screenlab.synthetic import SyntheticSpec, write_campaign_folder
+    from screenlab.viz import figures
+
+    spec = SyntheticSpec(n_plates=n_plates, fmt=fmt, seed=seed)
+    res: dict = {"plates": n_plates, "format": fmt, "wells": spec.n_filled_wells, "readings": spec.n_readings,
+                 "candidates": spec.n_candidates}
+    with tempfile.TemporaryDirectory(prefix="screenlab-bench-") as tmp:
+        folder = write_campaign_folder(Path(tmp) / "campaign", spec)
+
+        def do_import():
+            result = read_campaign(folder)
+            store = Store(Path(tmp) / "bench.duckdb")
+            try:
+                store.import_campaign(result)
+            finally:
+                store.close()
+            return result.data
+
+        data = _timed(res, "import_s", do_import)
+        settings = settings_for(data)
+
+        def do_rates():
+            am = k_amounts.product_amounts(data)
+            per_well = k_rates.well_rates(data, settings, amounts=am)
+            blanks = blank_rates(per_well, settings)
+            wells = well_turnover(data, per_well, blanks, settings)
+            groups = group_rates(wells, settings, factor_names=data.factor_names)
+            return am, wells, blanks, groups
+
+        am, wells, blanks, groups = _timed(res, "rates_s", do_rates)
+        arr = _timed(res, "arrhenius_s", lambda: arrhenius_table(groups, blanks, settings))
+        orders = _timed(res, "orders_s", lambda: apparent_orders(wells, settings, factor_names=data.factor_names))
+        kin = KineticsResult(amounts=am, wells=wells, blanks=blanks, rates=groups, arrhenius=arr, orders=orders,
+                             settings=settings)
+        ranking = _timed(res, "ranking_s", lambda: rank_candidates(kin, None, metric="tof", draws=10_000,
+                                                                    catalysts=data.catalysts))
+
+        def do_shortlist():
+            out = Path(tmp) / "shortlist"
+            write_shortlist(out, ranking, kin, campaign=data.name, top_k=5, catalysts=data.catalysts)
+            top = ranking.loc[ranking["rank"].notna() & (ranking["role"] != "reference"), "catalyst"].head(5)
+            design_next_round(Path(tmp) / "next-round", data, list(top))
+
+        _timed(res, "shortlist_s", do_shortlist)
+
+        def do_app_page():
+            store = Store(Path(tmp) / "bench.duckdb", read_only=True)
+            try:
+                loaded = store.load_campaign(data.name)
+            finally:
+                store.close()
+            a = analyse(loaded)
+            r = rank_candidates(a.kinetics, a.quality, metric="tof", top_k=3, confidence=a.settings.confidence,
+                                catalysts=a.data.catalysts)
+            front = pareto(a.kinetics, a.quality, ("tof", "ea"), draws=2000, confidence=a.settings.confidence,
+                           catalysts=a.data.catalysts)
+            ranked = r[r["rank"].notna()]
+            figures.forest_plot(ranked, label="TOF / h-1", log_x=True)
+            figures.rank_intervals(ranked)
+            ok = front[front["reason"].astype(str) == ""]
+            figures.pareto_plot(ok, x="tof_per_h", y="ea_kj_mol", x_label="TOF", y_label="Ea", log_x=True)
+
+        _timed(res, "app_page_s", do_app_page)
+        res["baseline"] = loop_baseline(data, settings, max_wells=BASELINE_MAX_WELLS if not quick else 1_500)
+        res["peak_rss_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0   # Linux: KiB
+
+        # untimed memory pass: Python-level peak of rates + Arrhenius + ranking
+        del am, wells, blanks, groups, arr, orders, kin, ranking
+        tracemalloc.start()
+        a2, w2, b2, g2 = do_rates()
+        arr2 = arrhenius_table(g2, b2, settings)
+        kin2 = KineticsResult(amounts=a2, wells=w2, blanks=b2, rates=g2, arrhenius=arr2,
+                              orders=apparent_orders(w2, settings, factor_names=data.factor_names), settings=settings)
+        rank_candidates(kin2, None, metric="tof", draws=10_000, catalysts=data.catalysts)
+        res["py_peak_mb"] = tracemalloc.get_traced_memory()[1] / 2 ** 20
+        tracemalloc.stop()
+    res["analysis_s"] = res["rates_s"] + res["arrhenius_s"] + res["ranking_s"]
+    return res
+
+
+# ------------------------------------------------------------------------------ driver
+
+def startup_seconds(repeats: int = 3) -> float:
+    """Best of ``repeats`` wall times of ``screenlab --help`` in a fresh process."""
+    exe = [sys.executable, "-m", "screenlab.cli"] if not _has_console_script() else ["screenlab"]
+    best = float("inf")
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        subprocess.run([*exe, "--help"], check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+def _has_console_script() -> bool:
+    from shutil import which
+    return which("screenlab") is not None
+
+
+def _worker(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:
+    cmd = [sys.executable, __file__, "--worker", str(n_plates), "--format", str(fmt), "--seed", str(seed)]
+    if quick:
+        cmd.append("--quick")
+    proc = subprocess.run(cmd, capture_output=True, text=True)
+    if proc.returncode != 0:
+        return {"plates": n_plates, "format": fmt, "error": proc.stderr.strip().splitlines()[-1:] or ["failed"]}
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def _fmt_s(x: float) -> str:
+    return f"{x:8.3f}" if x < 100 else f"{x:8.1f}"
+
+
+def report(rows: list[dict], startup: float) -> str:
+    lines = []
+    ok = [r for r in rows if "error" not in r]
+    hdr = (f"{'plates':>6} {'fmt':>4} {'readings':>9} {'cands':>6} | {'import s':>8} {'rd/s':>9} | {'rates':>8} "
+           f"{'arrhen.':>8} {'ranking':>8} {'= anal.':>8} | {'short.':>8} {'app pg':>8} | {'loop s':>8} "
+           f"{'x faster':>8} | {'RSS MB':>7} {'py MB':>7}")
+    lines += [hdr, "-" * len(hdr)]
+    for r in rows:
+        if "error" in r:
+            lines.append(f"{r['plates']:>6} {r['format']:>4}  FAILED: {' '.join(r['error'])}")
+            continue
+        b = r["baseline"]
+        lines.append(
+            f"{r['plates']:>6} {r['format']:>4} {r['readings']:>9,} {r['candidates']:>6} | {_fmt_s(r['import_s'])} "
+            f"{r['readings'] / r['import_s']:>9,.0f} | {_fmt_s(r['rates_s'])} {_fmt_s(r['arrhenius_s'])} "
+            f"{_fmt_s(r['ranking_s'])} {_fmt_s(r['analysis_s'])} | {_fmt_s(r['shortlist_s'])} "
+            f"{_fmt_s(r['app_page_s'])} | {_fmt_s(b['baseline_s'])}{'*' if b['baseline_fraction'] < 1 else ' '}"
+            f"{b['baseline_s'] / r['analysis_s']:>7.1f}x | {r['peak_rss_mb']:>7.0f} {r['py_peak_mb']:>7.0f}")
+    sub = [r for r in ok if r["baseline"]["baseline_fraction"] < 1]
+    if sub:
+        lines.append("* loop baseline extrapolated linearly from a subsample: "
+                     + ", ".join(f"{r['plates']} plates from {r['baseline']['baseline_wells']:,} wells "
+                                 f"({r['baseline']['baseline_fraction'] * 100:.1f} %)" for r in sub))
+    lines.append("'= anal.' = rates + Arrhenius + ranking; 'x faster' = loop baseline (rates + Arrhenius) / anal.")
+    lines.append("orders (not in the sum): " + ", ".join(f"{r['plates']}: {r['orders_s']:.3f} s" for r in ok))
+    # growth factors between consecutive 96-well sizes
+    r96 = sorted([r for r in ok if r["format"] == 96], key=lambda r: r["plates"])
+    lines.append("")
+    lines.append("growth from one size to the next (time ratio; data ratio in brackets):")
+    for a, b in zip(r96, r96[1:]):
+        ratio = b["readings"] / a["readings"]
+        parts = [f"{k.replace('_s', '')} {b[k] / a[k]:.2f}x" for k in
+                 ("import_s", "rates_s", "arrhenius_s", "ranking_s", "analysis_s", "app_page_s") if a[k] > 0]
+        lines.append(f"  {a['plates']} -> {b['plates']} plates ({ratio:.0f}x data): " + ", ".join(parts))
+    lines.append("")
+    lines.append(f"screenlab --help start-up: {startup:.3f} s (best of 3)")
+    lines.append("")
+    lines.append("targets (2 cores):")
+    by = {r["plates"]: r for r in r96}
+
+    def verdict(okay: bool) -> str:
+        return "met" if okay else "MISSED"
+
+    if 400 in by:
+        r = by[400]
+        rps = r["readings"] / r["import_s"]
+        lines.append(f"  import at 400 plates >= {TARGETS['import_rps_400']:,} readings/s: {rps:,.0f} "
+                     f"-> {verdict(rps >= TARGETS['import_rps_400'])}")
+        lines.append(f"  rates + Arrhenius + ranking at 400 plates <= {TARGETS['analysis_s_400']} s: "
+                     f"{r['analysis_s']:.3f} s -> {verdict(r['analysis_s'] <= TARGETS['analysis_s_400'])}")
+    for r in r96:
+        sp = r["baseline"]["baseline_s"] / r["analysis_s"]
+        lines.append(f"  >= {TARGETS['analysis_speedup']:.0f}x faster than the loop at {r['plates']} plates: "
+                     f"{sp:.1f}x -> {verdict(sp >= TARGETS['analysis_speedup'])}")
+    for a, b in zip(r96, r96[1:]):
+        if abs(b["readings"] / a["readings"] - 4) < 0.5 and a["analysis_s"] > 0:
+            g = b["analysis_s"] / a["analysis_s"]
+            lines.append(f"  analysis growth {a['plates']} -> {b['plates']} <= {TARGETS['growth_per_4x']}x: {g:.2f}x "
+                         f"-> {verdict(g <= TARGETS['growth_per_4x'])}")
+    if 1600 in by:
+        m = by[1600]["peak_rss_mb"]
+        lines.append(f"  1,600 plates analyse in < 1 GB: peak RSS {m:.0f} MB -> {verdict(m < TARGETS['rss_mb_1600'])}")
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description="Time ScreenLab at campaign scale against a per-well loop.")
+    p.add_argument("--sizes", default=None,
+                   help="plate counts of 96-well campaigns, comma-separated (default 4,100,400,1600; --quick 4,100)")
+    p.add_argument("--quick", action="store_true", help="sizes 4,100 only unless --sizes is given, no 384-well "
+                                                         "case, smaller loop subsample")
+    p.add_argument("--plates-384", type=int, default=100, help="plates of the 384-well case (0: skip)")
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--json", type=Path, help="also write the raw figures to this JSON file")
+    p.add_argument("--worker", type=int, help=argparse.SUPPRESS)
+    p.add_argument("--format", type=int, default=96, help=argparse.SUPPRESS)
+    args = p.parse_args(argv)
+    if args.worker is not None:
+        print(json.dumps(run_size(args.worker, args.format, args.seed, args.quick)))
+        return 0
+    sizes_text = args.sizes if args.sizes is not None else ("4,100" if args.quick else "4,100,400,1600")
+    try:
+        sizes = [int(s) for s in sizes_text.split(",") if s.strip()]
+    except ValueError:
+        print(f"--sizes: expected comma-separated plate counts, got {sizes_text!r}", file=sys.stderr)
+        return 2
+    t_start = time.perf_counter()
+    rows = []
+    cases = [(n, 96) for n in sizes] + ([] if args.quick or args.plates_384 <= 0 else [(args.plates_384, 384)])
+    for n, fmt in cases:
+        t0 = time.perf_counter()
+        rows.append(_worker(n, fmt, args.seed, args.quick))
+        print(f"  ... {n} plates x {fmt} wells done in {time.perf_counter() - t0:.0f} s", file=sys.stderr, flush=True)
+    startup = startup_seconds()
+    print(f"ScreenLab speed benchmark: python {sys.version.split()[0]}, {os.cpu_count()} CPUs, seed {args.seed}")
+    print(report(rows, startup))
+    print(f"\ntotal benchmark wall time {time.perf_counter() - t_start:.0f} s")
+    if args.json:
+        args.json.write_text(json.dumps({"rows": rows, "startup_s": startup}, indent=2), encoding="utf-8")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
