@@ -154,14 +154,42 @@ def test_plate_quality(monkeypatch, demo_store):
 
 
 def test_shortlist_selection_to_download(monkeypatch, demo_store):
+    import io
+    import zipfile
+
+    import openpyxl
+    import pandas as pd
+    from streamlit.runtime.media_file_manager import MediaFileManager
+
+    served: dict[str, bytes] = {}
+    original = MediaFileManager.add
+
+    def spy(self, path_or_data, mimetype, coordinates, file_name=None, is_for_static_download=False):
+        if file_name:
+            served[file_name] = path_or_data if isinstance(path_or_data, bytes) else str(path_or_data).encode()
+        return original(self, path_or_data, mimetype, coordinates, file_name, is_for_static_download)
+
+    monkeypatch.setattr(MediaFileManager, "add", spy)
     at = _page(monkeypatch, demo_store, "shortlist")
-    assert any("scale" in w.value.lower() for w in at.warning)  # the safety caution
+    assert any("scale-up" in w.value for w in at.warning)  # the safety caution
     pick = at.multiselect(key="short_pick")
-    chosen = pick.options[1:3]
+    chosen = [o for o in pick.options[1:3]]
     pick.set_value(chosen).run()
     at.text_area(key="short_note").input("repeat at 80 C").run()
     assert not at.exception, [e.value for e in at.exception]
     table = next(df.value for df in at.dataframe if "catalyst" in df.value.columns)
-    assert list(table["catalyst"].astype(str)) == list(chosen)
-    downloads = {d.proto.label: d for d in at.get("download_button")}
-    assert {"Download CSV", "Download XLSX", "Next-round campaign folder (.zip)"} <= set(downloads)
+    assert list(table.loc[table["role"] != "reference", "catalyst"].astype(str)) == chosen
+    assert (table["role"] == "reference").any()  # the benchmark comes along for comparison
+    labels = {d.proto.label for d in at.get("download_button")}
+    assert {"Download CSV", "Download XLSX", "Next-round campaign folder (.zip)"} <= labels
+    # the downloads carry the selection
+    csv = pd.read_csv(io.BytesIO(served[f"{CAMPAIGN}-shortlist.csv"]))
+    assert list(csv.loc[csv["role"] != "reference", "catalyst"].astype(str)) == chosen
+    book = openpyxl.load_workbook(io.BytesIO(served[f"{CAMPAIGN}-shortlist.xlsx"]), read_only=True)
+    assert "shortlist" in book.sheetnames
+    with zipfile.ZipFile(io.BytesIO(served[f"{CAMPAIGN}-next-round.zip"])) as zf:
+        names = zf.namelist()
+        assert any(n.endswith("campaign.toml") for n in names) and any(n.endswith("layout.csv") for n in names)
+        layout = pd.read_csv(zf.open(next(n for n in names if n.endswith("layout.csv"))))
+        assert set(chosen) <= set(layout["catalyst"].dropna().astype(str))
+        assert zf.read(next(n for n in names if n.endswith("NOTE.txt"))).decode().strip() == "repeat at 80 C"

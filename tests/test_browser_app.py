@@ -112,7 +112,7 @@ def test_every_page_renders_in_chromium(server):
                 wait_for_app_run(page)
                 main = page.get_by_test_id("stMain")
                 for text in texts:
-                    expect(main.get_by_text(text, exact=False).first).to_be_visible(timeout=60_000)
+                    expect(main.get_by_text(text, exact=False).filter(visible=True).first).to_be_visible(timeout=60_000)
                 expect(page.get_by_test_id("stException")).to_have_count(0)
                 page.screenshot(path=str(SHOTS / f"{path or 'campaigns'}.png"), full_page=True)
             assert not errors, errors

@@ -127,7 +127,10 @@ def plate_heatmap(wells: pd.DataFrame, value_col: str, *, n_rows: int, n_cols: i
             ))
     fig.update_yaxes(autorange="reversed", title="row", type="category", scaleanchor="x", constrain="domain")
     fig.update_xaxes(title="column", type="category", side="top", constrain="domain")
-    return _layout(fig, title, height=max(320, 40 * n_rows + 120) if n_rows <= 8 else 620)
+    fig = _layout(fig, title, height=max(320, 40 * n_rows + 140) if n_rows <= 8 else 640)
+    # the column numbers sit on top, so the role legend goes below the plate
+    fig.update_layout(legend=dict(orientation="h", yanchor="top", y=-0.04, x=0))
+    return fig
 
 
 # --------------------------------------------------------------------------- time courses

@@ -35,7 +35,7 @@ k = int(c3.number_input("K (top)", min_value=1, max_value=max(1, n_cands), value
 r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric, temperature, k)
 ranked = r[r["rank"].notna()]
 label = metrics[metric]["axis"]
-st.caption(f"Intervals at {ctx.settings.confidence * 100:g} %. Rank interval and P(top {k}) from the estimates' "
+st.caption(f"Intervals at {ctx.settings.confidence * 100:g} %; the benchmark in orange. Rank interval and P(top {k}) from the estimates' "
            "uncertainty; 1 = best. " + metrics[metric].get("help", ""))
 if ranked.empty:
     st.info("No candidate can be ranked on this metric.")
@@ -43,7 +43,9 @@ else:
     left, right = st.columns([3, 2])
     with left:
         widgets.chart(figures.forest_plot(ranked, label=label, log_x=metrics[metric]["log"],
-                                          title=f"{metrics[metric]['label']}"),
+                                          title=f"{metrics[metric]['label']}",
+                                          highlight=ranked.loc[ranked["role"].astype(str) == "reference",
+                                                               "catalyst"].astype(str).tolist()),
                       key="rank_forest", filename=f"forest-{metric}")
     with right:
         tab1, tab2 = st.tabs(["Rank intervals", f"P(top {k})"])

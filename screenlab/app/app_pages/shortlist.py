@@ -5,14 +5,7 @@ import streamlit as st
 
 from screenlab.app import cache, widgets
 from screenlab.app.app_pages import _common
-
-SAFETY = (
-    "**Before scaling up:** a screening plate runs micromoles at fixed temperature with tiny heat release. "
-    "At larger scale the same reaction can run away: check the reaction enthalpy and the heat removal "
-    "(calorimetry), gas evolution and pressure, the stability of catalyst, substrates and solvent at the "
-    "chosen temperature, and the toxicity and handling rules of every metal and ligand. A rate measured on a "
-    "plate is not a process safety assessment."
-)
+from screenlab.export.shortlist import SAFETY_NOTE
 
 ctx = widgets.context()
 st.title("Shortlist")
@@ -34,9 +27,12 @@ if ranked.empty:
     st.info("No candidate can be ranked, so there is nothing to shortlist.")
     st.stop()
 
-options = ranked["catalyst"].astype(str).tolist()
+cands = ranked[ranked["role"].astype(str) != "reference"]
+options = cands["catalyst"].astype(str).tolist()
 picked = st.multiselect("Candidates for the next round", options, default=options[:k], key="short_pick",
-                        help=f"The top {k} by default; order follows the ranking.")
+                        help=f"The top {k} by default, in ranking order; the benchmark is always added for "
+                             "comparison.")
+picked = [c for c in options if c in set(picked)]  # keep the ranking order
 note = st.text_area("Note (kept with the shortlist)", key="short_note",
                     placeholder="why these, what to vary next ...")
 if not picked:
@@ -58,4 +54,5 @@ c3.download_button("Next-round campaign folder (.zip)", data=files.next_round_zi
                    key="short_zip", icon=":material/folder_zip:")
 if files.next_round_summary:
     st.markdown(files.next_round_summary)
-st.warning(SAFETY, icon=":material/warning:")
+title, _, body = SAFETY_NOTE.partition("\n")
+st.warning(f"**{title.strip()} (scale-up caution)**\n\n{body.strip()}", icon=":material/warning:")
