@@ -200,3 +200,23 @@ def test_seeded_campaigns_recover_truth_and_intervals_cover():
     true_e = true_rate / true_blank
     cover_e = ((g.enhancement_ci_low <= true_e) & (true_e <= g.enhancement_ci_high)).mean()
     assert 0.92 <= cover_e <= 0.985
+
+
+def test_outlier_rule_pools_scatter_and_catches_a_dead_well():
+    # 60 groups of 3 replicates with 10 % log-normal scatter (invented): a per-group MAD would flag
+    # roughly one group in six by chance (two wells agreeing makes the third look wild); the
+    # pooled scale (modified z of Iglewicz & Hoaglin 1993 with the MAD pooled over groups) flags
+    # few, and a dead well (zero rate) among active replicates is always flagged.
+    from screenlab.kinetics.turnover import _robust_z
+
+    rng = np.random.default_rng(3)
+    vals = np.exp(np.log(50.0) + rng.normal(0, 0.10, (60, 3)))
+    groups = np.repeat(np.arange(60), 3)
+    z = _robust_z(vals.ravel(), groups)
+    assert np.mean(z > 3.5) < 0.02
+    own_mad = np.array([np.median(np.abs(v - np.median(v))) for v in vals])
+    naive = 0.6745 * np.abs(vals - np.median(vals, axis=1, keepdims=True)) / own_mad[:, None]
+    assert np.mean(naive > 3.5) > 0.05                      # what the per-group rule would have done
+    vals[0, 1] = 0.0
+    z = _robust_z(vals.ravel(), groups, se=np.where(vals.ravel() == 0, 0.0, 1.0))
+    assert z[1] == np.inf and z[0] < 3.5

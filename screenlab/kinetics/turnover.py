@@ -23,8 +23,10 @@ Definitions used here (all rates in mM/h, amounts in umol, TOF in h-1):
 * **Outliers**: modified z = 0.6745 |x - median| / MAD > settings.outlier_z (Iglewicz & Hoaglin,
   "How to Detect and Handle Outliers", ASQC 1993) over the replicates of a group (>= 3 wells),
   on TOF (rate when sites are unknown). When MAD = 0 the mean absolute deviation is used,
-  z = |x - median| / (1.253314 x MeanAD) (common practice, no source). Wells are flagged, never
-  dropped.
+  z = |x - median| / (1.253314 x MeanAD) (common practice, no source). Active groups are judged
+  on the log scale against the campaign's pooled replicate scatter instead (see ``_robust_z``),
+  so that three replicates of which two agree by chance do not flag the third. Wells are
+  flagged, never dropped.
 """
 from __future__ import annotations
 
@@ -49,7 +51,8 @@ FLAGS: dict[str, str] = {
                                "as denominator and is a lower bound.",
     "below_blank": "The well's rate is not above its blank (net rate <= 0).",
     "no_sites": "The active-site count is unknown, so TOF and TON are not given.",
-    "outlier": "This replicate's robust z (0.6745|x - median|/MAD) exceeds the outlier limit; kept, not deleted.",
+    "outlier": "This replicate lies further from its group's median than the outlier limit allows (robust z "
+               "against the campaign's pooled replicate scatter); kept, not deleted.",
     "has_outlier": "At least one replicate of this group is flagged as an outlier.",
     "single_well": "Only one well in this group: its SE is the well's own fit SE.",
     "not_above_blank": "The group's net TOF confidence interval reaches zero or below: no activity shown over "
@@ -195,8 +198,24 @@ def _infer_factors(frame: pd.DataFrame, factor_names=None) -> tuple[str, ...]:
     return tuple(out)
 
 
-def _robust_z(values: np.ndarray, group_codes: np.ndarray) -> np.ndarray:
-    """Modified z of each value within its group (NaN for groups with < 3 finite values)."""
+def _robust_z(values: np.ndarray, group_codes: np.ndarray, se: np.ndarray | None = None) -> np.ndarray:
+    """Robust z of each value within its replicate group (NaN for groups with < 3 finite values).
+
+    * Groups whose median is positive (active catalysts) are judged on the log scale with a
+      scale pooled over the campaign: z = 0.6745 |ln x - median_g ln x| / M, where M is the
+      median of the non-zero |ln x - median_g ln x| over all such groups — the modified z of
+      Iglewicz & Hoaglin (1993) with the MAD pooled across groups. With three replicates a
+      group's own MAD is tiny whenever two wells agree by chance, which would flag the third;
+      the pooled scale does not. A non-positive value in an active group (a dead well) has
+      z = inf.
+    * Other groups (blanks, inactive catalysts, scattering about zero) use the group's own
+      modified z = 0.6745 |x - median| / MAD; when MAD = 0, |x - median| / (1.253314 x mean
+      absolute deviation) (common practice, no source).
+    * With ``se`` (each value's own standard error) z is capped at |x - median| / se: a replicate
+      is an outlier only when its departure is large against both the replicate scatter and its
+      own measurement error (so wells near the noise floor are not flagged for noise).
+    """
+    values = np.asarray(values, dtype=float)
     s = pd.Series(values)
     g = pd.Series(group_codes)
     ok = np.isfinite(values) & (group_codes >= 0)
@@ -205,11 +224,22 @@ def _robust_z(values: np.ndarray, group_codes: np.ndarray) -> np.ndarray:
     dev = (s - med).abs()
     mad = dev.groupby(g).transform("median")
     mean_ad = dev.groupby(g).transform("mean")
-    cnt = s.groupby(g).transform("count")
+    cnt = s.groupby(g).transform("count").to_numpy()
     with np.errstate(invalid="ignore", divide="ignore"):
         z = np.where(mad > 0, 0.6745 * dev / mad,
                      np.where(mean_ad > 0, dev / (1.253314 * mean_ad), 0.0))
-    return np.where(ok & (cnt.to_numpy() >= 3), z, np.nan)
+        active = (med > 0).to_numpy() & ok & (cnt >= 3)
+        ln = pd.Series(np.where(active & (values > 0), np.log(np.abs(values) + (values <= 0)), np.nan))
+        dev_ln = (ln - ln.groupby(g).transform("median")).abs().to_numpy()
+        pool = dev_ln[np.isfinite(dev_ln) & (dev_ln > 0)]
+        if pool.size:
+            z_ln = np.where(values > 0, 0.6745 * dev_ln / np.median(pool), np.inf)
+            z = np.where(active, z_ln, z)
+        if se is not None:
+            se = np.asarray(se, dtype=float)
+            cap = np.where(np.isfinite(se) & (se > 0), dev.to_numpy() / se, np.inf)
+            z = np.minimum(z, cap)
+    return np.where(ok & (cnt >= 3), z, np.nan)
 
 
 def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
@@ -288,8 +318,11 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     codes_bl = pd.DataFrame({"p": out["plate"].to_numpy(dtype=object), "t": keyed["tkey"]}).groupby(
         ["p", "t"], sort=False).ngroup().to_numpy()
     codes_bl = np.where(role == "blank", codes_bl, -1)
-    z = np.where(catalysed, _robust_z(metric, codes_cat), _robust_z(rate, codes_bl))
-    outlier = np.isfinite(z) & (z > float(settings.outlier_z))
+    # each well's own measurement error (the shared blank's error is common to its replicates)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        own_se = np.where(np.isfinite(tof), se_w * amount_per_mM / sites, se_w)
+    z = np.where(catalysed, _robust_z(metric, codes_cat, own_se), _robust_z(rate, codes_bl, se_w))
+    outlier = ~np.isnan(z) & (z > float(settings.outlier_z))   # z = inf: a dead well among active ones
 
     flags = join_flags(out["flags"] if "flags" in out else None, {}, index=out.index)
     site_flag_text = st["site_flags"].where(catalysed, "")
