@@ -18,6 +18,7 @@ COMMAND_MODULES = [
     "screenlab.cli.app_cmd",
     "screenlab.cli.kinetics_cmd",
     "screenlab.cli.stats_cmd",
+    "screenlab.cli.backup_cmd",
 ]
 
 
