@@ -14,16 +14,19 @@ Amounts and blank correction
     at t = 0). A catalysed well's background product at time t is ``kb x E_well(t)``: the blank's
     rate x time at low conversion (the correction the rates make), smaller once the well has used
     its substrate. Without a substrate concentration ``E = t``. Without a blank on that plate and
-    temperature nothing is subtracted (the rates table's ``no_blank`` flag says so). The blank's
-    own estimation error is not propagated into the SEs (small next to the catalysed products;
-    ``background_dominant`` marks wells where it is not). **Blank wells** report their own,
-    uncorrected selectivity and ee: the background's.
+    temperature nothing is subtracted (the rates table's ``no_blank`` flag says so). The error of
+    the background constants (residual SD of the pooled blank fit / sqrt(sum E^2), df = readings
+    - 1) is propagated into each well's SE by the delta method (``selectivity_blank_se``,
+    ``ee_blank_se``); the replicates on one plate share it, so it does not average out over them
+    (see :func:`summarise_groups`). **Blank wells** report their own, uncorrected selectivity and
+    ee: the background's.
 
 Selectivity (percent of all declared products that is the main product)
     Per well: least-squares slope through the origin of net main vs net total products
     (main + every declared by-product) over the readings where all of them were read,
     ``b = sum(x y) / sum(x^2)``, ``SE = s / sqrt(sum(x^2))`` with ``s^2 = RSS / (n - 1)``
-    (df = n - 1). ``selectivity_pct = 100 b``. Empty (NaN) when the campaign declares no
+    (df = n - 1), combined with the background term in quadrature (Welch-Satterthwaite df).
+    ``selectivity_pct = 100 b``. Empty (NaN) when the campaign declares no
     by-products.
 
 Enantiomeric excess of the main product, percent
@@ -33,8 +36,13 @@ Enantiomeric excess of the main product, percent
     campaign declares no enantiomers.
 
 Per group (catalyst x temperature x condition, the rates table's groups; :func:`summarise_groups`)
-    Mean of the wells' values, ``SE = SD / sqrt(n)``, ``t(confidence, n - 1)`` interval; a single
-    well gives its own SE and df. Values are not clipped to 0..100 (or -100..100), so that they
+    Mean of the wells' values, ``SE = sqrt(SD^2 / n + mean(blank_se^2) / k)`` with k the number of
+    plates behind the group (the replicates of a plate share one blank), ``t`` interval. Its df is
+    Welch-Satterthwaite over the two terms, at least n - 1 and at most the wells' summed fit df,
+    with the replicate term weighted by the variance the wells' own fit SEs predict rather than
+    by the sample SD (with three replicates a chance low SD would otherwise raise the df just when
+    the SE is too small; plain Welch covered about 92 % in our simulations, this about 96 %).
+    A single well gives its own SE and df. Values are not clipped to 0..100 (or -100..100), so that they
     stay unbiased: 100.3 % means no by-product beyond the reading noise.
 
 Drift with conversion (``selectivity_drift``, ``ee_drift``)
@@ -94,7 +102,8 @@ BACKGROUND_DOMINANT_FRACTION = 0.5
 #: the first columns of :func:`well_selectivity` (the contract), then :data:`WELL_EXTRA`
 WELL_COLUMNS = ("plate", "well", "selectivity_pct", "selectivity_se", "ee_pct", "ee_se", "flags")
 WELL_EXTRA = ("role", "catalyst", "temperature_c", "blank_corrected", "selectivity_n", "selectivity_df",
-              "selectivity_drift_pct", "selectivity_drift_p", "ee_n", "ee_df", "ee_drift_pct", "ee_drift_p",
+              "selectivity_blank_se", "selectivity_drift_pct", "selectivity_drift_p", "ee_n", "ee_df", "ee_blank_se",
+              "ee_drift_pct", "ee_drift_p",
               "products_max_mM", "main_max_mM", "background_share_pct")
 #: columns :func:`summarise_groups` returns (added to the rates table)
 GROUP_COLUMNS = ("selectivity_pct", "selectivity_se", "selectivity_df", "selectivity_ci_low", "selectivity_ci_high",
@@ -265,12 +274,20 @@ def well_selectivity(data, amounts: pd.DataFrame | None = None,
     catalysed = np.isin(role, ["sample", "reference"])
     finY = np.isfinite(Y)
     kb = np.full((n_pt, Y.shape[1]), np.nan)
+    kb_var = np.zeros((n_pt, Y.shape[1]))          # variance of each background constant
+    kb_df = np.full((n_pt, Y.shape[1]), np.inf)
     for j in range(Y.shape[1]):      # a loop over a few analytes
         use = is_blank & finY[:, j]
         see = np.bincount(pt_code[use], weights=E[use] ** 2, minlength=n_pt)
         sye = np.bincount(pt_code[use], weights=Y[use, j] * E[use], minlength=n_pt)
+        nb = np.bincount(pt_code[use], minlength=n_pt).astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             kb[:, j] = np.where(see > 0, sye / see, np.nan)
+            r = Y[use, j] - kb[pt_code[use], j] * E[use]
+            rss = np.bincount(pt_code[use], weights=r * r, minlength=n_pt)
+            ok = (see > 0) & (nb >= 2)
+            kb_var[:, j] = np.where(ok, rss / np.where(ok, nb - 1.0, 1.0) / np.where(ok, see, 1.0), 0.0)
+            kb_df[:, j] = np.where(ok, nb - 1.0, np.inf)
     kb_rows = kb[pt_code]                                    # (rows, analytes)
     has_bg = catalysed[:, None] & np.isfinite(kb_rows)
     background = np.where(has_bg, kb_rows * E[:, None], 0.0)
@@ -287,8 +304,12 @@ def well_selectivity(data, amounts: pd.DataFrame | None = None,
     if byp:
         net_total = net[:, prod_cols].sum(axis=1)
         fit = origin_fit(w, net_total, n_main, G)
-        res.update(selectivity_pct=100.0 * fit["slope"], selectivity_se=100.0 * fit["se"],
-                   selectivity_n=fit["n"], selectivity_df=fit["df"],
+        terms = [(col[main], 1.0, 1.0), *[(col[b], 1.0, 0.0) for b in byp]]
+        vb, dfb = _blank_variance(w, net_total, n_main, E, fit["slope"], G, terms, has_bg,
+                                  kb_var[pt_code_w], kb_df[pt_code_w])
+        se_tot, df_tot = _combine(fit["se"], fit["df"], vb, dfb)
+        res.update(selectivity_pct=100.0 * fit["slope"], selectivity_se=100.0 * se_tot,
+                   selectivity_n=fit["n"], selectivity_df=df_tot, selectivity_blank_se=100.0 * np.sqrt(vb),
                    selectivity_drift_pct=100.0 * fit["curv_change"], selectivity_drift_p=fit["curv_p"],
                    products_max_mM=fit["x_max"])
         low = _low_product(fit, theo_w)
@@ -301,8 +322,13 @@ def well_selectivity(data, amounts: pd.DataFrame | None = None,
         res["background_share_pct"] = 100.0 * share
     if ens:
         e1, e2 = col[ens[0]], col[ens[1]]
-        fit_e = origin_fit(w, net[:, e1] + net[:, e2], net[:, e1] - net[:, e2], G)
-        res.update(ee_pct=100.0 * fit_e["slope"], ee_se=100.0 * fit_e["se"], ee_n=fit_e["n"], ee_df=fit_e["df"],
+        xe, ye = net[:, e1] + net[:, e2], net[:, e1] - net[:, e2]
+        fit_e = origin_fit(w, xe, ye, G)
+        vb, dfb = _blank_variance(w, xe, ye, E, fit_e["slope"], G, [(e1, 1.0, 1.0), (e2, 1.0, -1.0)], has_bg,
+                                  kb_var[pt_code_w], kb_df[pt_code_w])
+        se_tot, df_tot = _combine(fit_e["se"], fit_e["df"], vb, dfb)
+        res.update(ee_pct=100.0 * fit_e["slope"], ee_se=100.0 * se_tot, ee_n=fit_e["n"], ee_df=df_tot,
+                   ee_blank_se=100.0 * np.sqrt(vb),
                    ee_drift_pct=100.0 * fit_e["curv_change"], ee_drift_p=fit_e["curv_p"],
                    main_max_mM=fit_e["x_max"])
         low_e = _low_product(fit_e, theo_w)
@@ -328,6 +354,50 @@ def well_selectivity(data, amounts: pd.DataFrame | None = None,
     out["blank_corrected"] = corrected_w
     out["flags"] = join_flags(None, flags, index=out.index).to_numpy(dtype=object)
     return out
+
+
+def _blank_variance(w, x, y, E, b, G, terms, has_bg, var_kb_w, df_kb_w):
+    """Variance of a well's slope b = sum(xy)/sum(x^2) from the error of the background constants.
+
+    ``terms``: (analyte column, sx, sy) with dx/dkb = -sx E and dy/dkb = -sy E; then
+    db/dkb = (-sx sum(E y) - sy sum(x E) + 2 b sx sum(x E)) / sum(x^2) (delta method; the constants
+    of different analytes taken as independent). Returns (variance, smallest df of the terms used).
+    """
+    ok = np.isfinite(x) & np.isfinite(y)
+    c = w[ok]
+    xo, yo, eo = x[ok], y[ok], E[ok]
+    sxx = np.bincount(c, weights=xo * xo, minlength=G)[:G]
+    sey = np.bincount(c, weights=eo * yo, minlength=G)[:G]
+    sxe = np.bincount(c, weights=xo * eo, minlength=G)[:G]
+    corrected = np.zeros((G, has_bg.shape[1]), dtype=bool)
+    for j in range(has_bg.shape[1]):
+        corrected[:, j] = np.bincount(w, weights=has_bg[:, j].astype(float), minlength=G)[:G] > 0
+    var = np.zeros(G)
+    df = np.full(G, np.inf)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for j, sx, sy in terms:          # a loop over two or three analytes
+            g = np.where(sxx > 0, (-sx * sey - sy * sxe + 2.0 * b * sx * sxe) / sxx, 0.0)
+            g = np.where(np.isfinite(g) & corrected[:, j], g, 0.0)
+            var = var + g * g * var_kb_w[:, j]
+            df = np.where(g != 0, np.minimum(df, df_kb_w[:, j]), df)
+    return var, df
+
+
+def _welch(v1, d1, v2, d2):
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t1 = np.where(v1 > 0, v1 ** 2 / d1, 0.0)
+        t2 = np.where(v2 > 0, v2 ** 2 / d2, 0.0)
+        den = t1 + t2
+        return np.where(den > 0, (v1 + v2) ** 2 / den, np.inf)
+
+
+def _combine(se_fit, df_fit, var_blank, df_blank):
+    """SE including the background term; Welch-Satterthwaite df."""
+    v1 = se_fit ** 2
+    se = np.sqrt(v1 + var_blank)
+    df = np.where(np.isfinite(se_fit), _welch(v1, df_fit, var_blank, df_blank), np.nan)
+    df = np.where(np.isfinite(df_fit) & (var_blank == 0), df_fit, df)
+    return se, df
 
 
 def _low_product(fit: dict[str, np.ndarray], theo_w: np.ndarray) -> np.ndarray:
@@ -368,15 +438,29 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
             if f"{key}_se" in rows else np.full(len(rows), np.nan)
         df1 = pd.to_numeric(rows[f"{key}_df"], errors="coerce").to_numpy(dtype=float) \
             if f"{key}_df" in rows else np.full(len(rows), np.nan)
+        bse = pd.to_numeric(rows[f"{key}_blank_se"], errors="coerce").to_numpy(dtype=float) \
+            if f"{key}_blank_se" in rows else np.zeros(len(rows))
+        plate = rows["plate"].astype(str).to_numpy(dtype=object) if "plate" in rows else np.zeros(len(rows))
         ok = np.isfinite(v) & (codes >= 0)
-        frame = pd.DataFrame({"g": codes[ok], "v": v[ok], "se": se1[ok], "df": df1[ok]})
+        frame = pd.DataFrame({"g": codes[ok], "v": v[ok], "se": se1[ok], "df": df1[ok],
+                              "b2": np.nan_to_num(bse[ok], nan=0.0) ** 2, "plate": plate[ok]})
+        frame["fit2"] = frame["se"] ** 2 - frame["b2"]
+        frame["dfs"] = frame["df"]
         a = frame.groupby("g").agg(n=("v", "size"), mean=("v", "mean"), sd=("v", "std"),
-                                   se1=("se", "first"), df1=("df", "first")).reindex(range(G))
+                                   se1=("se", "first"), df1=("df", "first"), b2=("b2", "mean"),
+                                   k=("plate", "nunique"), fit2=("fit2", "mean"),
+                                   dfsum=("dfs", "sum")).reindex(range(G))
         n = a["n"].fillna(0).to_numpy(dtype=float)
         with np.errstate(invalid="ignore", divide="ignore"):
-            se = np.where(n >= 2, a["sd"].to_numpy(float) / np.sqrt(n), np.where(n == 1, a["se1"].to_numpy(float),
-                                                                                   np.nan))
-            df = np.where(n >= 2, n - 1.0, np.where(n == 1, a["df1"].to_numpy(float), np.nan))
+            v_rep = a["sd"].to_numpy(float) ** 2 / n
+            v_bl = a["b2"].fillna(0.0).to_numpy(float) / a["k"].fillna(1.0).to_numpy(float)
+            se = np.where(n >= 2, np.sqrt(v_rep + v_bl), np.where(n == 1, a["se1"].to_numpy(float), np.nan))
+            # df: Welch-Satterthwaite weighted by the variance the wells' own fits lead one to expect
+            # (not by the sample SD itself, whose chance lows would inflate the df)
+            v_exp = np.maximum(a["fit2"].to_numpy(float), 0.0) / n
+            df = np.where(n >= 2, np.minimum(_welch(v_exp, n - 1.0, v_bl, np.inf), a["dfsum"].to_numpy(float)),
+                          np.where(n == 1, a["df1"].to_numpy(float), np.nan))
+            df = np.where((n >= 2) & ~np.isfinite(df), n - 1.0, np.maximum(df, n - 1.0))
             q = _t_quantile(confidence, df)
             mean = a["mean"].to_numpy(dtype=float)
         out[f"{key}_pct"] = mean
