@@ -122,10 +122,22 @@ def test_table_that_is_not_a_table():
 
 # ----------------------------------------------------------------------------------- files and headers
 def test_missing_files_are_all_listed():
-    probs = problems(layout_csv=None, readings_csv=None)
+    probs = problems(layout_csv=None, catalysts_csv=None)
     find(probs, "layout.csv", "missing file")
-    find(probs, "readings.csv", "missing file")
+    find(probs, "catalysts.csv", "missing file")
     find(problems(campaign_toml=None), "campaign.toml", "missing file")
+    find(problems(plates_csv=None), "plates.csv", "missing file")
+
+
+def test_a_planned_campaign_without_readings_is_accepted():
+    # the next-round folder has no readings yet: the layout imports, the readings frame is empty
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = read_campaign(files(readings_csv=None))
+    assert res.data.readings.empty and list(res.data.readings.columns) == ["plate", "well", "analyte", "time_h", "value"]
+    assert any("planned campaign" in n for n in res.notes)
 
 
 def test_empty_file_and_header_only_file():

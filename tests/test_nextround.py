@@ -101,7 +101,6 @@ def test_manifest_is_valid_toml(demo, tmp_path):
     assert doc["readout"]["kind"] == "yield"
 
 
-@pytest.mark.xfail(reason="the reader still requires readings.csv; a planned campaign has none yet", strict=False)
 def test_reader_accepts_folder_without_readings(demo, tmp_path):
     from screenlab.ingest.reader import read_campaign
 

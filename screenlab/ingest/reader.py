@@ -5,6 +5,8 @@ one :class:`~screenlab.errors.ValidationError` that lists every problem found in
 """
 from __future__ import annotations
 
+import pandas as pd
+
 import hashlib
 import warnings
 from dataclasses import dataclass
@@ -109,6 +111,11 @@ def read_campaign(source) -> ReadResult:
             tables[t] = None
             continue
         name = csv_name or xlsx_name
+        if name is None and t == "readings":
+            # a planned campaign (e.g. the next round written by `screenlab shortlist`): layout only
+            notes.append("no readings.csv: a planned campaign (layout only); nothing to analyse until readings arrive")
+            tables[t] = None
+            continue
         if name is None:
             problems.append(Problem(f"{t}.csv", None, None, None,
                                     f"missing file: the campaign needs {t}.csv (or {t}.xlsx)"))
@@ -137,7 +144,9 @@ def read_campaign(source) -> ReadResult:
         wells, factor_names = v.check_layout(tables["layout"], problems, plates=plates, catalysts=catalysts,
                                              conc_factor=info.get("conc_factor"),
                                              volume_factor=info.get("volume_factor"))
-    readings = None
+    readings = pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
+                             "analyte": pd.Series(dtype="str"), "time_h": pd.Series(dtype=float),
+                             "value": pd.Series(dtype=float)})
     if tables["readings"] is not None:
         readings, nt = v.check_readings(tables["readings"], problems, wells=wells, plates=plates, info=info)
         notes.extend(nt)
