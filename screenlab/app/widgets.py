@@ -138,8 +138,22 @@ _UNIT_SUFFIX = [
 ]
 
 
+#: core columns whose name does not end in their unit: they share the unit of their estimate
+_INHERITED_UNIT = [
+    (r"^(tof|tof_ref)_(ci_low|ci_high|se)$", " / h⁻¹"),
+    (r"^(ea|dh|delta_ea)_(ci_low|ci_high|se)$", " / kJ mol⁻¹"),
+    (r"^ds_se$", " / J mol⁻¹ K⁻¹"),
+]
+_SPECIAL = {"zprime": "Z'", "ln_a": "ln(A / h⁻¹)", "ton": "TON", "ton_se": "TON se"}
+
+
 def nice_label(col: str) -> str:
     """Column name -> header with its unit written out (``tof_per_h`` -> ``tof / h⁻¹``)."""
+    if col in _SPECIAL:
+        return _SPECIAL[col]
+    for pattern, unit in _INHERITED_UNIT:
+        if re.search(pattern, col):
+            return col.replace("_", " ") + unit
     for pattern, unit in _UNIT_SUFFIX:
         if re.search(pattern, col):
             return re.sub(pattern, "", col).replace("_", " ") + unit

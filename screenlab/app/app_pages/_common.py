@@ -31,8 +31,8 @@ def best_candidates(ctx, analysis, n: int = 5) -> None:
         return
     st.caption(f"By TOF at the reference temperature {ctx.settings.reference_temperature_c:g} °C (h⁻¹), "
                f"{ctx.settings.confidence * 100:g} % intervals; P(best) from the estimates' uncertainty.")
-    widgets.table(ranked.rename(columns={"estimate": "tof_per_h", "ci_low": "tof_ci_low", "ci_high": "tof_ci_high"}),
-                  key="campaigns_best", columns=["rank", "catalyst", "family", "tof_per_h", "tof_ci_low", "tof_ci_high",
+    widgets.table(ranked.rename(columns={"estimate": "tof_per_h", "ci_low": "tof_ci_low_per_h", "ci_high": "tof_ci_high_per_h"}),
+                  key="campaigns_best", columns=["rank", "catalyst", "family", "tof_per_h", "tof_ci_low_per_h", "tof_ci_high_per_h",
                                                  "rank_low", "rank_high", "p_best", "basis", "flags"])
     st.page_link("app_pages/ranking.py", label="Full ranking", icon=":material/leaderboard:")
 

@@ -54,8 +54,11 @@ else:
         with tab2:
             widgets.chart(figures.p_top_bars(ranked, k=k), key="rank_ptop", filename=f"p-top-{metric}")
 st.subheader("Table")
-widgets.table(r, key="rank_table", columns=["rank", "catalyst", "estimate", "ci_low", "ci_high", "rank_low",
-                                             "rank_high", "p_top", "p_best", "n", "reason", "flags"])
+col = metrics[metric]["column"]
+lo, hi = (col.replace(metric, f"{metric}_ci_{side}", 1) for side in ("low", "high"))
+widgets.table(r.rename(columns={"estimate": col, "ci_low": lo, "ci_high": hi}), key="rank_table",
+              columns=["rank", "catalyst", "family", "role", col, lo, hi, "rank_low", "rank_high", "p_top", "p_best",
+                       "p_beats_reference", "n", "temperature_c", "basis", "reason", "flags"])
 st.session_state["rank_last"] = {"metric": metric, "temperature": temperature, "k": k}
 widgets.flag_glossary(r["flags"])
 

@@ -1,0 +1,87 @@
+"""The plotly figure builders (screenlab.viz.figures): axes, units, orientation, colour, markers."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from plotly.colors import sample_colorscale
+from scipy import constants
+
+from screenlab.plates import all_wells
+from screenlab.viz import figures
+
+
+def _plate():
+    w = all_wells(96)
+    w["role"] = np.where(w["col"] == 0, "blank", np.where(w["col"] == 11, "reference", "sample"))
+    w.loc[w["well"] == "H6", "role"] = "empty"
+    w["catalyst"] = "C1"
+    w["rate_mM_per_h"] = w["row"] * 12.0 + w["col"]
+    return w
+
+
+def test_heatmap_puts_a1_top_left_and_values_in_place():
+    w = _plate()
+    fig = figures.plate_heatmap(w, "rate_mM_per_h", n_rows=8, n_cols=12, selected="B3")
+    heat = fig.data[0]
+    z = np.asarray(heat.z)
+    assert z.shape == (8, 12)
+    assert z[1, 2] == 1 * 12 + 2  # B3
+    assert list(heat.y)[0] == "A" and list(heat.x)[0] == "1"
+    assert fig.layout.yaxis.autorange == "reversed"  # row A at the top (ANSI/SLAS 4-2004 well positions)
+    assert "mM h⁻¹" in heat.colorbar.title.text
+
+
+def test_roles_differ_by_shape_and_not_only_by_colour():
+    fig = figures.plate_heatmap(_plate(), "rate_mM_per_h", n_rows=8, n_cols=12)
+    symbols = {t.name: t.marker.symbol for t in fig.data[1:]}
+    assert len(set(symbols.values())) == len(symbols) == 4
+    # every well name is there for click selection
+    names = np.concatenate([np.asarray(t.customdata) for t in fig.data[1:]])
+    assert len(names) == 96
+
+
+def test_viridis_is_the_perceptually_uniform_map():
+    # matplotlib's viridis starts at (0.267004, 0.004874, 0.329415) and ends at
+    # (0.993248, 0.906157, 0.143936) (van der Walt & Smith, matplotlib _cm_listed.py; from memory)
+    first, last = sample_colorscale(figures.COLORSCALE, [0.0, 1.0])
+    rgb = lambda s: np.array([float(v) for v in s[4:-1].split(",")]) / 255  # noqa: E731
+    assert np.allclose(rgb(first), [0.267004, 0.004874, 0.329415], atol=0.01)
+    assert np.allclose(rgb(last), [0.993248, 0.906157, 0.143936], atol=0.01)
+
+
+def test_arrhenius_axis_is_1000_over_kelvin_and_ln_tof():
+    pts = pd.DataFrame({"catalyst": ["A", "A"], "temperature_c": [25.0, 50.0], "tof_per_h": [10.0, 40.0],
+                        "tof_ci_low": [8.0, 30.0], "tof_ci_high": [12.0, 50.0]})
+    pred = pd.DataFrame({"catalyst": ["A"] * 3, "temperature_c": [20.0, 35.0, 55.0], "tof_per_h": [8.0, 18.0, 50.0],
+                         "tof_ci_low": [6.0, 15.0, 40.0], "tof_ci_high": [10.0, 21.0, 60.0]})
+    fig = figures.arrhenius_plot(pts, pred)
+    marker = next(t for t in fig.data if t.mode == "markers")
+    # 0 degC = 273.15 K (scipy.constants.zero_Celsius, CODATA)
+    assert np.allclose(marker.x, 1000.0 / (np.array([25.0, 50.0]) + constants.zero_Celsius))
+    assert np.allclose(marker.y, np.log([10.0, 40.0]))
+    assert np.allclose(marker.error_y.array, np.log([12.0, 50.0]) - np.log([10.0, 40.0]))
+    band = next(t for t in fig.data if t.fill == "toself")
+    assert len(band.x) == 6
+    assert fig.layout.xaxis.title.text == "1000/T / K⁻¹" and fig.layout.yaxis.title.text == "ln(TOF / h⁻¹)"
+
+
+def test_forest_plot_orders_by_rank_and_draws_the_interval():
+    r = pd.DataFrame({"rank": [2, 1, 3], "catalyst": ["B", "A", "C"], "estimate": [5.0, 9.0, 1.0],
+                      "ci_low": [4.0, 7.0, 0.5], "ci_high": [7.0, 10.0, 2.0]})
+    fig = figures.forest_plot(r, label="TOF / h⁻¹", log_x=True, highlight=["B"])
+    tr = fig.data[0]
+    assert list(tr.y) == ["A", "B", "C"]
+    assert np.allclose(tr.error_x.array, [1.0, 2.0, 1.0]) and np.allclose(tr.error_x.arrayminus, [2.0, 1.0, 0.5])
+    assert fig.layout.xaxis.type == "log"
+    assert tr.marker.color[1] != tr.marker.color[0]
+
+
+def test_fitted_course_follows_the_core_parameters():
+    line, label = figures.fitted_course(pd.Series({"method": "initial_slope", "rate_mM_per_h": 2.0,
+                                                   "intercept_mM": 0.5, "window_end_h": 3.0}), t_end_h=10.0)
+    assert np.allclose(line["time_h"], [0, 3]) and np.allclose(line["product_mM"], [0.5, 6.5])
+    curve, label = figures.fitted_course(pd.Series({"method": "first_order", "rate_mM_per_h": 20.0,
+                                                    "plateau_mM": 100.0, "k_per_h": 0.2}), t_end_h=10.0)
+    # P = P_inf (1 - exp(-k t)); at t = 10 h: 100 (1 - e^-2) = 86.466 mM
+    assert np.isclose(curve["product_mM"].iloc[-1], 100.0 * (1 - np.exp(-2.0)))
+    assert "first-order" in label
