@@ -230,21 +230,24 @@ def well_selectivity(data, amounts: pd.DataFrame | None = None,
     main = m.analyte_main
     needed = list(dict.fromkeys([main, *byp, *ens]))
     sub = amounts.loc[amounts["analyte"].isin(needed), ["plate", "well", "analyte", "time_h", "product_mM"]]
-    sub = sub.astype({"plate": object, "well": object, "analyte": object})
-    wide = (sub.groupby(["plate", "well", "time_h", "analyte"], sort=True)["product_mM"].first()
-            .unstack("analyte").reset_index())
-    wide.columns.name = None
-    for a in needed:
-        if a not in wide.columns:
-            wide[a] = np.nan
-    bcode = base[["plate", "well"]].assign(_w=np.arange(len(base)))
-    wide = wide.merge(bcode, on=["plate", "well"], how="inner")
-    wide = wide.sort_values(["_w", "time_h"], kind="stable").reset_index(drop=True)
-    if wide.empty:
+    # integer codes instead of string group-bys: well (row of base), analyte (column of Y)
+    bidx = pd.MultiIndex.from_arrays([base["plate"].astype(str), base["well"].astype(str)])
+    wcode = bidx.get_indexer(pd.MultiIndex.from_arrays([sub["plate"].astype(str), sub["well"].astype(str)]))
+    acode = pd.Index(needed).get_indexer(sub["analyte"].astype(str))
+    ts = sub["time_h"].to_numpy(dtype=float)
+    val = sub["product_mM"].to_numpy(dtype=float)
+    sel_rows = (wcode >= 0) & (acode >= 0) & np.isfinite(ts)
+    if not sel_rows.any():
         return out
-    w = wide["_w"].to_numpy(dtype=np.int64)
-    t = wide["time_h"].to_numpy(dtype=float)
-    Y = wide[needed].to_numpy(dtype=float)          # rows: readings; columns: analytes (main first)
+    wcode, acode, ts, val = wcode[sel_rows], acode[sel_rows], ts[sel_rows], val[sel_rows]
+    order = np.lexsort((acode, ts, wcode))
+    wcode, acode, ts, val = wcode[order], acode[order], ts[order], val[order]
+    new_row = np.r_[True, (wcode[1:] != wcode[:-1]) | (ts[1:] != ts[:-1])]
+    rowid = np.cumsum(new_row) - 1
+    Y = np.full((int(rowid[-1]) + 1, len(needed)), np.nan)   # rows: (well, time); columns: analytes
+    Y[rowid, acode] = val
+    w = wcode[new_row].astype(np.int64)
+    t = ts[new_row]
     col = {a: j for j, a in enumerate(needed)}
     role = base["role"].to_numpy(dtype=object)[w]
     theo_w = base["s0"].to_numpy(dtype=float) * float(m.product_per_substrate)
