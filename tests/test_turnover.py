@@ -220,3 +220,18 @@ def test_outlier_rule_pools_scatter_and_catches_a_dead_well():
     vals[0, 1] = 0.0
     z = _robust_z(vals.ravel(), groups, se=np.where(vals.ravel() == 0, 0.0, 1.0))
     assert z[1] == np.inf and z[0] < 3.5
+
+
+def test_failed_well_is_flagged_and_left_out_of_the_group():
+    # a dispensing failure (no product) among active replicates: shown per well, not averaged in
+    rows = [well("P1", "A1", "blank", None, 1.0), well("P1", "A2", "blank", None, 1.1), well("P1", "A3", "blank", None, 0.9)]
+    rows += [well("P1", f"B{i}", "sample", "C1", v) for i, v in enumerate([50.0, 52.0, 0.0], 1)]
+    rows += [well("P1", f"C{i}", "sample", "C2", v) for i, v in enumerate([20.0, 21.0, 19.0], 1)]
+    w = frame(rows)
+    t = well_turnover(CATS, w, blank_rates(w, S), S)
+    assert t.loc[t.well == "B3", "flags"].iloc[0].count("failed_well") == 1
+    assert not t.loc[t.well != "B3", "flags"].str.contains("failed_well").any()
+    g = group_rates(t, S, factor_names=("solvent",)).set_index("catalyst")
+    kept = t.loc[t.well.isin(["B1", "B2"]), "tof_per_h"]
+    assert g.loc["C1", "n_wells"] == 2 and g.loc["C1", "tof_per_h"] == pytest.approx(kept.mean())
+    assert "excluded_failed_well" in g.loc["C1", "flags"] and "excluded_failed_well" not in g.loc["C2", "flags"]

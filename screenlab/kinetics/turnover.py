@@ -54,6 +54,9 @@ FLAGS: dict[str, str] = {
     "outlier": "This replicate lies further from its group's median than the outlier limit allows (robust z "
                "against the campaign's pooled replicate scatter); kept, not deleted.",
     "has_outlier": "At least one replicate of this group is flagged as an outlier.",
+    "failed_well": "No product above the blank while this well's replicates are active (e.g. a dispensing "
+                   "failure): left out of the group statistics, kept in the per-well table.",
+    "excluded_failed_well": "One or more failed wells (flag failed_well) were left out of this group's statistics.",
     "single_well": "Only one well in this group: its SE is the well's own fit SE.",
     "not_above_blank": "The group's net TOF confidence interval reaches zero or below: no activity shown over "
                        "the blank.",
@@ -336,6 +339,8 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         "below_blank": catalysed & has_blank & np.isfinite(net) & (net <= 0),
         "enhancement_lower_bound": lower & np.isfinite(enh),
         "outlier": outlier,
+        # an outlier with no net activity among active replicates: a failed well, not chemistry
+        "failed_well": catalysed & outlier & ~(metric > 0),
     }, index=out.index)
 
     out["sites_umol"] = sites
@@ -404,13 +409,16 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     * Enhancement: geometric mean of the replicates' enhancements; CI on the log scale with
       var = SD(ln E)^2/n + mean relative blank variance / k, or the single well's CI. A lower
       bound if any replicate's is (upper limit +inf).
-    * Outliers stay in every statistic; the group carries ``has_outlier``.
+    * Outliers stay in every statistic; the group carries ``has_outlier``. Failed wells (flag
+      ``failed_well``: no product above the blank among active replicates) are left out of the
+      statistics, counted out of ``n_wells`` and named by the group flag ``excluded_failed_well``.
     """
     settings = settings or AnalysisSettings()
     factors = _infer_factors(turnover, factor_names)
     role = _role(turnover)
     t = turnover[np.isin(role, ["sample", "reference"])].copy()
     t = t[np.isfinite(_f(t, "rate_mM_per_h"))]
+    failed = has_flag(t["flags"], "failed_well") if len(t) else np.zeros(0, bool)
     keys = _group_keys(t, factors)
     cond_cols = ["loading", "loading_unit", "substrate_conc_mM", *factors]
     if t.empty:
@@ -448,9 +456,13 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "ns": has_flag(fl, "no_sites"),
         "outlier": t["outlier"].to_numpy(dtype=bool) if "outlier" in t else np.zeros(len(t), bool),
         "plate": t["plate"].astype(str).to_numpy(dtype=object),
+        "failed": failed,
     })
+    # failed wells (flag failed_well) are shown per well but left out of every group statistic
+    stat_cols = ["rate", "tof", "tof_se1", "rate_df1", "b_tof2", "ton", "ln_e", "rel_b", "e_lo1", "e_hi1"]
+    work.loc[work["failed"].to_numpy(), stat_cols] = np.nan
     g = work.groupby("_g", sort=True)
-    a = g.agg(n_wells=("rate", "size"), rate_mean=("rate", "mean"), rate_sd=("rate", "std"),
+    a = g.agg(n_wells=("rate", "count"), n_failed=("failed", "sum"), rate_mean=("rate", "mean"), rate_sd=("rate", "std"),
               n_tof=("tof", "count"), tof_mean=("tof", "mean"), tof_sd=("tof", "std"),
               tof_se1=("tof_se1", "first"), rate_df1=("rate_df1", "first"), b2=("b_tof2", "mean"),
               blank_df=("blank_df", "min"), ton_mean=("ton", "mean"), ton_sd=("ton", "std"),
@@ -510,6 +522,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     res["flags"] = join_flags(None, {
         "single_well": n == 1,
         "has_outlier": a["n_out"].to_numpy() > 0,
+        "excluded_failed_well": a["n_failed"].to_numpy() > 0,
         "no_blank": a["nb"].to_numpy(dtype=bool),
         "no_sites": a["ns"].to_numpy(dtype=bool),
         "enhancement_lower_bound": lb & np.isfinite(e_mean),
