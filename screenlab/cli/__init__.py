@@ -19,6 +19,7 @@ COMMAND_MODULES = [
     "screenlab.cli.kinetics_cmd",
     "screenlab.cli.stats_cmd",
     "screenlab.cli.backup_cmd",
+    "screenlab.cli.flags_cmd",
 ]
 
 

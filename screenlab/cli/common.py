@@ -43,7 +43,7 @@ def emit(frame, fmt: str, out=None) -> None:
         if frame.empty:
             out.write("(no rows)\n")
             return
-        out.write(frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="") + "\n")
+        out.write(_aligned(frame) + "\n")
 
 
 def _plain(v):
@@ -64,3 +64,18 @@ def _plain(v):
     except (TypeError, ValueError):
         pass
     return v
+
+
+def _aligned(frame) -> str:
+    """Fixed-width text: numbers right-aligned (4 significant digits), text left-aligned."""
+    import pandas as pd
+
+    formatters = {}
+    for col in frame.columns:
+        s = frame[col]
+        if not (pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)):
+            text = s.astype(object).where(s.notna(), "").astype(str)
+            width = max([len(str(col))] + [len(t) for t in text])
+            formatters[col] = (lambda w: lambda x: f"{'' if x is None or x is pd.NA or (isinstance(x, float) and x != x) else x!s:<{w}}")(width)
+    return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", formatters=formatters,
+                           justify="left")
