@@ -85,3 +85,16 @@ def test_fitted_course_follows_the_core_parameters():
     # P = P_inf (1 - exp(-k t)); at t = 10 h: 100 (1 - e^-2) = 86.466 mM
     assert np.isclose(curve["product_mM"].iloc[-1], 100.0 * (1 - np.exp(-2.0)))
     assert "first-order" in label
+
+
+def test_arrhenius_axes_share_their_span_so_slopes_compare():
+    import pandas as pd
+
+    from screenlab.viz.figures import arrhenius_plot
+
+    pts = pd.DataFrame({"catalyst": ["A"] * 3, "temperature_c": [40, 50, 60], "tof_per_h": [10, 20, 40.0]})
+    bp = pd.DataFrame({"temperature_c": [40, 50, 60], "blank_rate_mM_per_h": [0.01, 0.05, 0.3]})
+    f = arrhenius_plot(pts, blank_points=bp)
+    r1, r2 = f.layout.yaxis.range, f.layout.yaxis2.range
+    assert abs((r1[1] - r1[0]) - (r2[1] - r2[0])) < 1e-12
+    assert r2[0] <= np.log(0.01) and np.log(0.3) <= r2[1] and r1[0] <= np.log(10) and np.log(40) <= r1[1]

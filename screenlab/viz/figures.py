@@ -201,7 +201,8 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
     (``catalyst, temperature_c, tof_per_h, tof_ci_low, tof_ci_high``): the fitted line and band.
     blank_points (``temperature_c, blank_rate_mM_per_h``) and blank_prediction (predict_tof rows of
     the uncatalysed fit, in mM h⁻¹) go on a second y axis, because the uncatalysed reaction has no
-    sites and so no TOF; its slope (hence Ea) is comparable, its level is not.
+    sites and so no TOF; both axes span the same number of ln units, so its slope (hence Ea) is
+    comparable by eye, its level is not.
     """
     fig = go.Figure()
     cats = list(dict.fromkeys(points["catalyst"].astype(str)))
@@ -255,7 +256,19 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
     fig.update_yaxes(title="ln(TOF / h⁻¹)")
     extra = {}
     if has_blank:
-        extra["yaxis2"] = dict(title="ln(blank rate / mM h⁻¹)", overlaying="y", side="right", showgrid=False)
+        # both axes get the same span in ln units, so a slope (hence Ea) reads the same on either
+        def _span(on_y2: bool):
+            vals = [np.asarray(t.y, dtype=float) for t in fig.data
+                    if t.y is not None and ((getattr(t, "yaxis", None) == "y2") == on_y2)]
+            v = np.concatenate(vals) if vals else np.array([])
+            v = v[np.isfinite(v)]
+            return (float(v.min()), float(v.max())) if v.size else (0.0, 1.0)
+        (l0, l1), (r0, r1) = _span(False), _span(True)
+        half = 0.55 * max(l1 - l0, r1 - r0, 0.5)
+        lm, rm = (l0 + l1) / 2, (r0 + r1) / 2
+        fig.update_yaxes(range=[lm - half, lm + half])
+        extra["yaxis2"] = dict(title="ln(blank rate / mM h⁻¹)", overlaying="y", side="right", showgrid=False,
+                               range=[rm - half, rm + half])
     fig = _layout(fig, title, height=480, **extra)
     # the top axis in °C helps reading; plotly cannot map it non-linearly, so ticks are placed by hand
     return fig
