@@ -52,6 +52,9 @@ class RawTable:
         return column in self.frame.columns
 
 
+_GUARD = r"^'(?=[=+\-@])"
+
+
 def normalise_header(name: str) -> str:
     """Lower-case, strip, runs of white space to one underscore (``' Substrate Conc '`` -> ``substrate_conc``)."""
     return _WS.sub("_", str(name).replace("\ufeff", "").strip().lower())
@@ -151,7 +154,9 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
             return None
         cells, offset, delim = got
         decimal_comma = delim in (";", "\t")
-    cells = cells.apply(lambda s: s.str.strip()) if len(cells.columns) else cells
+    # strip padding; a leading apostrophe before = + - @ is the formula guard our own exports add
+    # (screenlab.export.safe), so such cells read back as the text that was exported
+    cells = cells.apply(lambda s: s.str.strip().str.replace(_GUARD, "", regex=True)) if len(cells.columns) else cells
     if cells.empty:
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
