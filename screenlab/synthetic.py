@@ -32,6 +32,7 @@ Public API: :class:`SyntheticSpec`, :func:`synthetic_campaign`, :func:`write_cam
 """
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -236,7 +237,7 @@ def _tables(spec: SyntheticSpec) -> dict[str, pd.DataFrame]:
 def _manifest_text(spec: SyntheticSpec) -> str:
     return (
         "[campaign]\n"
-        f'name = "{spec.campaign_name}"\n'
+        f'name = {json.dumps(spec.campaign_name, ensure_ascii=False)}\n'
         f'description = "Invented synthetic campaign: {spec.n_plates} plates of {spec.fmt} wells, '
         f'{spec.n_candidates} candidates, seed {spec.seed}"\n'
         'reaction = "S -> P (synthetic first-order data)"\n\n'
