@@ -117,78 +117,212 @@ def curvature_p(x, y, var=None) -> float:
     return float(2 * stats.t.sf(abs(beta[2] / se), df))
 
 
+def _group_sum(codes, n_groups, values) -> np.ndarray:
+    """Sum of ``values`` per group code (0..n_groups-1), vectorised with np.bincount."""
+    return np.bincount(codes, weights=values, minlength=n_groups)
+
+
+def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h, se_per_h=None, *,
+                          confidence=0.95, reference_temperature_c=60.0, low_ea_kj_mol=None) -> dict:
+    """Arrhenius + Eyring fits of many series at once: point i belongs to series ``group_codes[i]``.
+
+    The same definitions as :func:`fit_temperature_series` (module docstring), computed for all
+    series together: each series' weighted least-squares line comes from closed-form 2x2 normal
+    equations on per-series sums (``np.bincount``, centred on the weighted mean of 1/T for
+    accuracy), the curvature term from batched 3x3 normal equations, the Eyring line from the same
+    sums, and one vectorised t-quantile call. ``se_per_h`` None = unweighted (no flag); otherwise a
+    series is weighted when every one of its points has a finite positive SE, else unweighted with
+    flag ``unweighted``. Returns a dict of arrays of length ``n_groups`` keyed like :data:`COLUMNS`
+    (except catalyst/role/delta_ea*); ``flags`` is an object array of str.
+    """
+    g = np.asarray(group_codes, dtype=np.int64)
+    t_c = np.asarray(temperature_c, float)
+    v = np.asarray(value_per_h, float)
+    G = int(n_groups)
+    nan = np.full(G, np.nan)
+    R = units.R_J_MOL_K
+    out = {c: nan.copy() for c in COLUMNS if c not in ("catalyst", "role", "flags", "fit_weighted",
+                                                        "n_temperatures")}
+    out["reference_temperature_c"] = np.full(G, float(reference_temperature_c))
+    # distinct temperatures per series (rounded to 1e-6 degC, as the single-series fit counts them)
+    tkey = np.round(t_c, 6)
+    n_pts = np.bincount(g, minlength=G)
+    if len(g):
+        order = np.lexsort((tkey, g))
+        gs, ts = g[order], tkey[order]
+        new = np.ones(len(gs), bool)
+        new[1:] = (gs[1:] != gs[:-1]) | (ts[1:] != ts[:-1])
+        nt = np.bincount(gs[new], minlength=G)
+        t_min = np.full(G, np.inf)
+        t_max = np.full(G, -np.inf)
+        np.minimum.at(t_min, g, t_c)
+        np.maximum.at(t_max, g, t_c)
+        has = n_pts > 0
+        out["t_min_c"] = np.where(has, t_min, np.nan)
+        out["t_max_c"] = np.where(has, t_max, np.nan)
+    else:
+        nt = np.zeros(G, np.int64)
+    out["n_temperatures"] = nt.astype(np.int64)
+    fit = nt >= 2                                   # series with a line
+
+    # weights: 1/var(ln v) = (v/se)^2 when every point of the series has a finite positive SE
+    if se_per_h is None:
+        weighted = np.zeros(G, bool)
+        unweighted_flag = np.zeros(G, bool)
+        w = np.ones(len(g))
+    else:
+        se = np.asarray(se_per_h, float)
+        ok = np.isfinite(se) & (se > 0)
+        weighted = np.bincount(g, weights=~ok, minlength=G) == 0
+        unweighted_flag = ~weighted
+        with np.errstate(invalid="ignore", divide="ignore"):
+            w = np.where(weighted[g], (v / np.where(ok, se, 1.0)) ** 2, 1.0)
+    weighted &= fit
+    unweighted_flag &= fit
+    out["fit_weighted"] = weighted
+
+    T = units.c_to_k(t_c)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        x = 1.0 / T
+        y = np.log(v)
+        ye = y - np.log(3600.0) - np.log(T)        # Eyring: ln(k/T), k in s-1
+        s0 = _group_sum(g, G, w)
+        xbar = _group_sum(g, G, w * x) / s0
+        ybar = _group_sum(g, G, w * y) / s0
+        yebar = _group_sum(g, G, w * ye) / s0
+        dx = x - xbar[g]
+        dy = y - ybar[g]
+        dye = ye - yebar[g]
+        sxx = _group_sum(g, G, w * dx * dx)
+        b1 = _group_sum(g, G, w * dx * dy) / sxx
+        e1 = _group_sum(g, G, w * dx * dye) / sxx
+        b0 = ybar - b1 * xbar
+        e0 = yebar - e1 * xbar
+        rss = _group_sum(g, G, w * (dy - b1[g] * dx) ** 2)
+        rss_e = _group_sum(g, G, w * (dye - e1[g] * dx) ** 2)
+        df = (n_pts - 2).astype(float)
+        pos = fit & (df > 0)
+        s2 = np.where(pos, rss / np.where(pos, df, 1.0), np.nan)
+        s2e = np.where(pos, rss_e / np.where(pos, df, 1.0), np.nan)
+        # covariance scale floored at 1 for weighted fits (then the error scale is the replicates'
+        # and the df infinite); the Eyring line's own scale is floored the same way
+        floor = pos & weighted & (s2 < 1.0)
+        s2 = np.where(floor, 1.0, s2)
+        df = np.where(floor, np.inf, df)
+        s2e = np.where(pos & weighted & (s2e < 1.0), 1.0, s2e)
+        # (X'WX)^-1 for X = [1, x]: var b1 = 1/Sxx, var b0 = 1/S0 + xbar^2/Sxx, cov = -xbar/Sxx
+        inv_ss = 1.0 / sxx
+        inv_ii = 1.0 / s0 + xbar ** 2 / sxx
+        inv_is = -xbar / sxx
+        cov_ii, cov_is, cov_ss = inv_ii * s2, inv_is * s2, inv_ss * s2
+        ecov_ii, ecov_is, ecov_ss = inv_ii * s2e, inv_is * s2e, inv_ss * s2e
+
+    out["fit_intercept"] = np.where(fit, b0, np.nan)
+    out["fit_slope_k"] = np.where(fit, b1, np.nan)
+    out["cov_ii"], out["cov_is"], out["cov_ss"] = cov_ii, cov_is, cov_ss
+    out["fit_df"] = np.where(fit, df, np.nan)
+    ea = np.where(fit, -b1 * R / 1000.0, np.nan)
+    out["ea_kj_mol"] = ea
+    out["ln_a"] = out["fit_intercept"]
+    q = t_quantile(confidence, np.where(pos, df, np.nan))
+    t_ref = float(units.c_to_k(reference_temperature_c))
+    x0 = 1.0 / t_ref
+    with np.errstate(invalid="ignore"):
+        ea_se = np.sqrt(cov_ss) * R / 1000.0
+        out["ea_se"] = np.where(pos, ea_se, np.nan)
+        out["ln_a_se"] = np.where(pos, np.sqrt(cov_ii), np.nan)
+        out["ea_ci_low"] = np.where(pos, ea - q * ea_se, np.nan)
+        out["ea_ci_high"] = np.where(pos, ea + q * ea_se, np.nan)
+        dh = -e1 * R / 1000.0
+        ds = R * (e0 - LN_KB_OVER_H)
+        out["dh_kj_mol"] = np.where(fit, dh, np.nan)
+        out["ds_j_mol_k"] = np.where(fit, ds, np.nan)
+        out["dg_ref_kj_mol"] = np.where(fit, dh - t_ref * ds / 1000.0, np.nan)
+        out["dh_se"] = np.where(pos, np.sqrt(ecov_ss) * R / 1000.0, np.nan)
+        out["ds_se"] = np.where(pos, np.sqrt(ecov_ii) * R, np.nan)
+        # dG = -R (e1 + T e0) + const  ->  var = R^2 (var e1 + 2 T cov + T^2 var e0)
+        out["dg_ref_se"] = np.where(pos, R / 1000.0 * np.sqrt(ecov_ss + 2 * t_ref * ecov_is
+                                                              + t_ref ** 2 * ecov_ii), np.nan)
+        ln_ref = b0 + b1 * x0
+        out["tof_ref_per_h"] = np.where(fit, np.exp(ln_ref), np.nan)
+        s_ref = np.sqrt(cov_ii + 2 * x0 * cov_is + x0 ** 2 * cov_ss)
+        out["tof_ref_ci_low"] = np.where(pos, np.exp(ln_ref - q * s_ref), np.nan)
+        out["tof_ref_ci_high"] = np.where(pos, np.exp(ln_ref + q * s_ref), np.nan)
+
+    curv = _curvature_batch(g, G, x, y, w, n_pts, nt >= 4)
+    out["curvature_p"] = curv
+    low = np.zeros(G, bool) if low_ea_kj_mol is None else fit & (ea < float(low_ea_kj_mol))
+    out["flags"] = _flag_text(G, [("one_temperature", nt == 1), ("unweighted", unweighted_flag),
+                                  ("two_temperatures", fit & ~pos), ("curvature", (nt >= 4) & (curv < 0.05)),
+                                  ("low_ea", low)])
+    return out
+
+
+def _curvature_batch(g, G, x, y, w, n_pts, mask) -> np.ndarray:
+    """Two-sided p-value of the 1/T^2 term per series (see :func:`curvature_p`); NaN where not ``mask``.
+
+    Per series, x is centred on its (unweighted) mean and scaled by its SD, then the weighted 3x3
+    normal equations of [1, xc, xc^2] are solved for all series at once.
+    """
+    p = np.full(G, np.nan)
+    if not mask.any():
+        return p
+    keep = mask[g]
+    g, x, y, w = g[keep], x[keep], y[keep], w[keep]
+    n = n_pts.astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = _group_sum(g, G, x) / n
+        d = x - mean[g]
+        sd = np.sqrt(_group_sum(g, G, d * d) / n)
+        sd = np.where(np.isfinite(sd) & (sd > 0), sd, 1.0)
+        xc = d / sd[g]
+        pw = [_group_sum(g, G, w * xc ** k) for k in range(5)]             # sum w xc^k, k = 0..4
+        m = np.empty((G, 3, 3))
+        for i in range(3):
+            for j in range(3):
+                m[:, i, j] = pw[i + j]
+        rhs = np.stack([_group_sum(g, G, w * y * xc ** k) for k in range(3)], axis=1)
+        m[~mask] = np.eye(3)
+        rhs[~mask] = 0.0
+        good = mask & np.isfinite(m).all(axis=(1, 2)) & np.isfinite(rhs).all(axis=1)
+        m[~good] = np.eye(3)
+        rhs[~good] = 0.0
+        inv = np.linalg.inv(m)
+        beta = np.einsum("gij,gj->gi", inv, rhs)
+        res = y - (beta[g, 0] + beta[g, 1] * xc + beta[g, 2] * xc ** 2)
+        df = n - 3
+        s2 = _group_sum(g, G, w * res * res) / np.where(mask, df, 1.0)
+        se = np.sqrt(inv[:, 2, 2] * s2)
+        b2 = beta[:, 2]
+        tstat = np.abs(b2 / np.where(np.isfinite(se) & (se > 0), se, 1.0))
+        pv = 2 * stats.t.sf(tstat, np.where(mask, df, 1.0))
+        pv = np.where(np.isfinite(se) & (se > 0), pv, np.where(b2 != 0, 0.0, 1.0))
+    return np.where(good, pv, np.where(mask, np.nan, np.nan))
+
+
+def _flag_text(n: int, codes) -> np.ndarray:
+    """``;``-joined flag strings (object array of str) from (code, mask) pairs, in the given order."""
+    out = np.full(n, "", dtype=object)
+    for code, mask in codes:                     # a loop over a few codes, not over rows
+        mask = np.asarray(mask, bool)
+        if mask.any():
+            out = np.where(mask, np.where(out == "", code, out + ";" + code), out)
+    return out
+
+
 def fit_temperature_series(temperature_c, value_per_h, se_per_h=None, *, confidence=0.95,
                            reference_temperature_c=60.0, low_ea_kj_mol=None) -> dict:
     """Arrhenius + Eyring fit of one series of positive rates (TOF in h-1, or mM/h for blanks).
 
-    Returns a dict with the keys of :data:`COLUMNS` (except catalyst/role/delta_ea*).
+    Returns a dict with the keys of :data:`COLUMNS` (except catalyst/role/delta_ea*). The single-
+    series form of :func:`fit_temperature_batch` (same definitions, one code path).
     """
-    t_c = np.asarray(temperature_c, float)
-    v = np.asarray(value_per_h, float)
-    se = None if se_per_h is None else np.asarray(se_per_h, float)
-    out = {c: np.nan for c in COLUMNS if c not in ("catalyst", "role", "flags", "fit_weighted")}
-    out.update(n_temperatures=int(len(np.unique(np.round(t_c, 6)))), flags="", fit_weighted=False,
-               reference_temperature_c=float(reference_temperature_c))
-    flags = []
-    if len(t_c):
-        out["t_min_c"], out["t_max_c"] = float(t_c.min()), float(t_c.max())
-    nt = out["n_temperatures"]
-    if nt < 2:
-        if nt == 1:
-            flags.append("one_temperature")
-        out["flags"] = ";".join(flags)
-        return out
-    T = units.c_to_k(t_c)
-    x = 1.0 / T
-    y = np.log(v)
-    var = None
-    if se is not None and np.all(np.isfinite(se) & (se > 0)):
-        var = (se / v) ** 2
-        out["fit_weighted"] = True
-    elif se is not None:
-        flags.append("unweighted")
-    b0, b1, cov, df = wls_line(x, y, var)
-    R = units.R_J_MOL_K
-    out.update(fit_intercept=b0, fit_slope_k=b1, cov_ii=cov[0, 0], cov_is=cov[0, 1], cov_ss=cov[1, 1],
-               fit_df=float(df))
-    out["ea_kj_mol"] = -b1 * R / 1000.0
-    out["ln_a"] = b0
-    q = float(t_quantile(confidence, df)) if df > 0 else np.nan
-    if df > 0:
-        out["ea_se"] = np.sqrt(cov[1, 1]) * R / 1000.0
-        out["ln_a_se"] = np.sqrt(cov[0, 0])
-        out["ea_ci_low"] = out["ea_kj_mol"] - q * out["ea_se"]
-        out["ea_ci_high"] = out["ea_kj_mol"] + q * out["ea_se"]
-    else:
-        flags.append("two_temperatures")
-    # Eyring: ln(k/T) with k in s-1 = ln(TOF_h) - ln 3600 - ln T
-    ye = y - np.log(3600.0) - np.log(T)
-    e0, e1, ecov, _ = wls_line(x, ye, var)
-    t_ref = float(units.c_to_k(reference_temperature_c))
-    out["dh_kj_mol"] = -e1 * R / 1000.0
-    out["ds_j_mol_k"] = R * (e0 - LN_KB_OVER_H)
-    out["dg_ref_kj_mol"] = out["dh_kj_mol"] - t_ref * out["ds_j_mol_k"] / 1000.0
-    if df > 0:
-        out["dh_se"] = np.sqrt(ecov[1, 1]) * R / 1000.0
-        out["ds_se"] = np.sqrt(ecov[0, 0]) * R
-        # dG = -R (e1 + T e0) + const  ->  var = R^2 (var e1 + 2 T cov + T^2 var e0)
-        out["dg_ref_se"] = R / 1000.0 * np.sqrt(ecov[1, 1] + 2 * t_ref * ecov[0, 1] + t_ref ** 2 * ecov[0, 0])
-    # prediction at the reference temperature
-    x0 = 1.0 / t_ref
-    ln_ref = b0 + b1 * x0
-    out["tof_ref_per_h"] = float(np.exp(ln_ref))
-    if df > 0:
-        s = np.sqrt(cov[0, 0] + 2 * x0 * cov[0, 1] + x0 ** 2 * cov[1, 1])
-        out["tof_ref_ci_low"] = float(np.exp(ln_ref - q * s))
-        out["tof_ref_ci_high"] = float(np.exp(ln_ref + q * s))
-    if nt >= 4:
-        p = curvature_p(x, y, var)
-        out["curvature_p"] = p
-        if p < 0.05:
-            flags.append("curvature")
-    if low_ea_kj_mol is not None and out["ea_kj_mol"] < float(low_ea_kj_mol):
-        flags.append("low_ea")
-    out["flags"] = ";".join(flags)
+    t_c = np.asarray(temperature_c, float).ravel()
+    r = fit_temperature_batch(np.zeros(len(t_c), np.int64), 1, t_c, value_per_h, se_per_h, confidence=confidence,
+                              reference_temperature_c=reference_temperature_c, low_ea_kj_mol=low_ea_kj_mol)
+    out = {k: float(a[0]) for k, a in r.items() if k not in ("n_temperatures", "flags", "fit_weighted")}
+    out.update(n_temperatures=int(r["n_temperatures"][0]), flags=str(r["flags"][0]),
+               fit_weighted=bool(r["fit_weighted"][0]))
     return out
 
 
@@ -223,26 +357,38 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
     """
     settings = settings or AnalysisSettings()
     conf = settings.confidence
-    rows = []
-    std = groups[groups["is_standard"].astype(bool)] if len(groups) else groups
-    for cat, g in std.groupby("catalyst", sort=True):           # a loop over catalysts
-        tof = g["tof_per_h"].to_numpy(float)
-        lo = g["tof_ci_low"].to_numpy(float)
-        se = g["tof_se_per_h"].to_numpy(float)
-        active = np.isfinite(tof) & (tof > 0) & ~(np.isfinite(lo) & (lo <= 0))
-        active &= ~has_flag(g["flags"], "no_sites")
-        r = fit_temperature_series(g["temperature_c"].to_numpy(float)[active], tof[active], se[active],
-                                   confidence=conf, reference_temperature_c=settings.reference_temperature_c,
-                                   low_ea_kj_mol=settings.low_ea_kj_mol)
+    std = groups[groups["is_standard"].astype(bool).to_numpy()] if len(groups) else groups
+    parts = []
+    if len(std):
+        # one batched fit over all catalysts: integer codes, no per-catalyst frames
+        codes, cats = pd.factorize(std["catalyst"], sort=True)
+        keep = codes >= 0                                   # rows without a catalyst name are not fitted
+        codes = codes[keep]
+        t_c = pd.to_numeric(std["temperature_c"], errors="coerce").to_numpy(float)[keep]
+        tof = pd.to_numeric(std["tof_per_h"], errors="coerce").to_numpy(float)[keep]
+        lo = pd.to_numeric(std["tof_ci_low"], errors="coerce").to_numpy(float)[keep]
+        se = pd.to_numeric(std["tof_se_per_h"], errors="coerce").to_numpy(float)[keep]
+        no_sites = has_flag(std["flags"], "no_sites")[keep]     # one pass over the whole frame
+        with np.errstate(invalid="ignore"):
+            active = np.isfinite(tof) & (tof > 0) & ~(np.isfinite(lo) & (lo <= 0)) & ~no_sites
+        k = len(cats)
+        r = fit_temperature_batch(codes[active], k, t_c[active], tof[active], se[active], confidence=conf,
+                                  reference_temperature_c=settings.reference_temperature_c,
+                                  low_ea_kj_mol=settings.low_ea_kj_mol)
+        # the temperature range covers every standard-condition row, active or not
+        t_min = np.full(k, np.inf)
+        t_max = np.full(k, -np.inf)
+        np.fmin.at(t_min, codes, t_c)
+        np.fmax.at(t_max, codes, t_c)
+        r["t_min_c"] = np.where(np.isfinite(t_min), t_min, np.nan)
+        r["t_max_c"] = np.where(np.isfinite(t_max), t_max, np.nan)
+        inactive = np.bincount(codes, weights=~active, minlength=k) > 0
         fl = r["flags"]
-        if (~active).any():
-            fl = ";".join([c for c in ["no_activity", *fl.split(";")] if c])
-        if len(g):
-            r["t_min_c"] = float(g["temperature_c"].min())
-            r["t_max_c"] = float(g["temperature_c"].max())
-        r["flags"] = fl
-        r.update(catalyst=cat, role=str(g["role"].iloc[0]))
-        rows.append(r)
+        r["flags"] = np.where(inactive, np.where(fl == "", "no_activity", "no_activity;" + fl), fl)
+        first = np.unique(codes, return_index=True)[1]
+        r["catalyst"] = np.asarray(cats, dtype=object)
+        r["role"] = std["role"].to_numpy(dtype=object)[keep][first].astype(str)
+        parts.append(pd.DataFrame(r, columns=COLUMNS))
     pts = _uncatalysed_points(blanks)
     if len(pts):
         act = pts["active"].to_numpy(bool)
@@ -254,8 +400,9 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
         r["t_min_c"] = float(pts["temperature_c"].min())
         r["t_max_c"] = float(pts["temperature_c"].max())
         r.update(catalyst=UNCATALYSED, role="blank")
-        rows.append(r)
-    out = pd.DataFrame(rows, columns=COLUMNS) if rows else pd.DataFrame(columns=COLUMNS)
+        parts.append(pd.DataFrame([r], columns=COLUMNS))
+    out = pd.concat(parts, ignore_index=True) if len(parts) > 1 else (parts[0] if parts else
+                                                                     pd.DataFrame(columns=COLUMNS))
     # delta Ea = Ea(uncatalysed) - Ea(catalyst)
     blank = out[out["catalyst"] == UNCATALYSED]
     if len(blank) and len(out):
