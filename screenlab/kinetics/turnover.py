@@ -37,7 +37,7 @@ from scipy import stats
 from screenlab import units
 from screenlab.kinetics import selectivity as _selectivity
 from screenlab.kinetics import sites as _sites
-from screenlab.kinetics.sites import has_flag, join_flags
+from screenlab.kinetics.sites import join_flags
 from screenlab.settings import AnalysisSettings
 
 #: flag codes set here (code -> one plain sentence); the site codes of screenlab.kinetics.sites included
@@ -120,6 +120,49 @@ def _f(frame: pd.DataFrame, col: str) -> np.ndarray:
 
 def _role(frame: pd.DataFrame) -> np.ndarray:
     return frame["role"].astype(object).where(frame["role"].notna(), "").astype(str).to_numpy(dtype=object)
+
+
+class _FlagIndex:
+    """A ``;``-joined flag column factorised once: each distinct string is parsed once, rows keep a code.
+
+    A flag column holds few distinct strings (combinations of a few codes), so the tests below
+    loop over distinct strings, never over rows. ``has(code)`` equals
+    :func:`screenlab.kinetics.sites.has_flag`; ``join(masks)`` equals
+    :func:`screenlab.kinetics.sites.join_flags` (codes already present are not repeated).
+    """
+
+    def __init__(self, flags, n: int | None = None):
+        if flags is None:
+            vals = np.full(int(n or 0), "", dtype=object)
+        else:
+            s = pd.Series(flags, copy=False).astype(object)
+            vals = s.where(s.notna(), "").to_numpy(dtype=object)
+        codes, uniques = pd.factorize(vals)
+        self.codes = codes
+        self.uniques = [str(u) for u in uniques]
+        self._tokens = [set(u.split(";")) for u in self.uniques]
+
+    def has(self, code: str) -> np.ndarray:
+        present = np.array([code in tk for tk in self._tokens], dtype=bool)
+        return present[self.codes] if len(self.codes) else np.zeros(0, bool)
+
+    def join(self, masks) -> np.ndarray:
+        """Object array of str: each row's flags with the codes whose mask is true appended, in order."""
+        items = [(c, np.asarray(m, dtype=bool)) for c, m in masks.items()]
+        n = len(self.codes)
+        if not n:
+            return np.zeros(0, dtype=object)
+        bits = np.zeros(n, dtype=np.int64)
+        for i, (code, mask) in enumerate(items):          # a loop over a few codes
+            bits |= (mask & ~self.has(code)).astype(np.int64) << i
+        combo = self.codes.astype(np.int64) * (1 << len(items)) + bits
+        cc, cu = pd.factorize(combo)
+        text = np.empty(len(cu), dtype=object)
+        for j, c in enumerate(cu):                         # a loop over distinct flag combinations
+            base, b = self.uniques[int(c) >> len(items)], int(c) & ((1 << len(items)) - 1)
+            added = [code for i, (code, _) in enumerate(items) if b >> i & 1]
+            text[j] = ";".join([base, *added]) if base else ";".join(added)
+        return text[cc]
 
 
 # --------------------------------------------------------------------------------------------- blanks
@@ -327,13 +370,12 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     z = np.where(catalysed, _robust_z(metric, codes_cat, own_se), _robust_z(rate, codes_bl, se_w))
     outlier = ~np.isnan(z) & (z > float(settings.outlier_z))   # z = inf: a dead well among active ones
 
-    flags = join_flags(out["flags"] if "flags" in out else None, {}, index=out.index)
-    site_flag_text = st["site_flags"].where(catalysed, "")
-    flags = pd.Series(np.where(site_flag_text.to_numpy() == "", flags.to_numpy(),
-                               np.where(flags.to_numpy() == "", site_flag_text.to_numpy(),
-                                        flags.to_numpy() + ";" + site_flag_text.to_numpy())),
-                      index=out.index, dtype=object)
-    flags = join_flags(flags, {
+    # flag columns are factorised: each distinct flag string is parsed once (no regex per row)
+    fi = _FlagIndex(out["flags"] if "flags" in out else None, n=len(out))
+    base = np.asarray(fi.uniques, dtype=object)[fi.codes] if len(out) else np.zeros(0, dtype=object)
+    site_flag_text = st["site_flags"].where(catalysed, "").to_numpy(dtype=object)
+    base = np.where(site_flag_text == "", base, np.where(base == "", site_flag_text, base + ";" + site_flag_text))
+    flags = _FlagIndex(base).join({
         "no_blank": (catalysed | (role == "blank")) & ~has_blank,
         "no_sites": catalysed & ~np.isfinite(sites),
         "below_blank": catalysed & has_blank & np.isfinite(net) & (net <= 0),
@@ -341,7 +383,7 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         "outlier": outlier,
         # an outlier with no net activity among active replicates: a failed well, not chemistry
         "failed_well": catalysed & outlier & ~(metric > 0),
-    }, index=out.index)
+    })
 
     out["sites_umol"] = sites
     out["site_basis"] = np.where(catalysed, st["site_basis"].to_numpy(dtype=object), "")
@@ -361,7 +403,7 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     out["ln_enhancement_se"] = np.where(ok_ci, ln_se, np.nan)
     out["enhancement_df"] = np.where(ok_ci, enh_df, np.nan)
     out["outlier"] = outlier
-    out["flags"] = flags.to_numpy(dtype=object)
+    out["flags"] = flags
     return out
 
 
@@ -383,6 +425,27 @@ def _standard_conditions(groups: pd.DataFrame, cond_cols: list[str]) -> np.ndarr
                           ascending=[True, False, False, True, True, True], kind="stable")
     best = per.drop_duplicates("catalyst")["_cond"].to_numpy()
     return np.isin(c["_cond"].to_numpy(), best)
+
+
+def _plate_lists(group_codes: np.ndarray, n_groups: int, plate: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per group: the number of distinct plates and their sorted names joined with ``;``.
+
+    Vectorised: distinct (group, plate) pairs sorted by group then plate name, then one
+    ``np.add.reduceat`` of the (separator-prefixed) names per group.
+    """
+    if not len(group_codes):
+        return np.zeros(n_groups, np.int64), np.full(n_groups, "", dtype=object)
+    pcode, pnames = pd.factorize(plate, sort=True)          # codes in sorted name order
+    pair = np.unique(group_codes.astype(np.int64) * (len(pnames) + 1) + pcode)
+    pg, pp = pair // (len(pnames) + 1), pair % (len(pnames) + 1)
+    n_plates = np.bincount(pg, minlength=n_groups).astype(np.int64)
+    names = np.asarray(pnames, dtype=object)[pp]
+    start = np.ones(len(pg), bool)
+    start[1:] = pg[1:] != pg[:-1]
+    names = np.where(start, names, ";" + names)
+    joined = np.full(n_groups, "", dtype=object)
+    joined[pg[start]] = np.add.reduceat(names, np.flatnonzero(start))
+    return n_plates, joined
 
 
 def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None,
@@ -418,7 +481,8 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     role = _role(turnover)
     t = turnover[np.isin(role, ["sample", "reference"])].copy()
     t = t[np.isfinite(_f(t, "rate_mM_per_h"))]
-    failed = has_flag(t["flags"], "failed_well") if len(t) else np.zeros(0, bool)
+    fi = _FlagIndex(t["flags"])                      # the flag column parsed once per distinct string
+    failed = fi.has("failed_well")
     keys = _group_keys(t, factors)
     cond_cols = ["loading", "loading_unit", "substrate_conc_mM", *factors]
     if t.empty:
@@ -437,7 +501,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         ln_enh = np.where(np.isfinite(enh) & (enh > 0) & np.isfinite(_f(t, "enhancement_ci_low")), np.log(
             np.where(enh > 0, enh, 1.0)), np.nan)
         rel_b = (_f(t, "blank_se_mM_per_h") / _f(t, "blank_rate_mM_per_h")) ** 2
-    fl = t["flags"]
+    lb_flag = fi.has("enhancement_lower_bound")
     work = pd.DataFrame({
         "_g": t.groupby(keys, dropna=False, sort=False).ngroup().to_numpy(),
         "rate": _f(t, "rate_mM_per_h"),
@@ -448,14 +512,13 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "blank_df": _f(t, "blank_df"),
         "ton": _f(t, "ton"),
         "ln_e": ln_enh,
-        "rel_b": np.where(np.isfinite(ln_enh) & ~has_flag(fl, "enhancement_lower_bound"), rel_b, np.nan),
+        "rel_b": np.where(np.isfinite(ln_enh) & ~lb_flag, rel_b, np.nan),
         "e_lo1": _f(t, "enhancement_ci_low"),
         "e_hi1": _f(t, "enhancement_ci_high"),
-        "lb": has_flag(fl, "enhancement_lower_bound"),
-        "nb": has_flag(fl, "no_blank"),
-        "ns": has_flag(fl, "no_sites"),
+        "lb": lb_flag,
+        "nb": fi.has("no_blank"),
+        "ns": fi.has("no_sites"),
         "outlier": t["outlier"].to_numpy(dtype=bool) if "outlier" in t else np.zeros(len(t), bool),
-        "plate": t["plate"].astype(str).to_numpy(dtype=object),
         "failed": failed,
     })
     # failed wells (flag failed_well) are shown per well but left out of every group statistic
@@ -468,12 +531,15 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
               blank_df=("blank_df", "min"), ton_mean=("ton", "mean"), ton_sd=("ton", "std"),
               n_ton=("ton", "count"), n_e=("ln_e", "count"), ln_e_mean=("ln_e", "mean"), ln_e_sd=("ln_e", "std"),
               rel_b=("rel_b", "mean"), e_lo1=("e_lo1", "first"), e_hi1=("e_hi1", "first"), lb=("lb", "any"),
-              nb=("nb", "any"), ns=("ns", "all"), n_out=("outlier", "sum"), n_plates=("plate", "nunique"))
-    plates = g["plate"].agg(lambda s: ";".join(sorted(set(s))))   # one call per group, not per well
-    first = t.assign(_g=work["_g"].to_numpy()).groupby("_g", sort=True)[keys].first()
+              nb=("nb", "any"), ns=("ns", "all"), n_out=("outlier", "sum"))
+    gcode = work["_g"].to_numpy()
+    n_plates, plates = _plate_lists(gcode, len(a), t["plate"].astype(str).to_numpy(dtype=object))
+    # the group keys from each group's first row (keys are equal within a group)
+    first_row = np.unique(gcode, return_index=True)[1]
+    first = t[keys].iloc[first_row]
 
     n = a["n_tof"].to_numpy(dtype=float)
-    k = a["n_plates"].to_numpy(dtype=float)
+    k = n_plates.astype(float)
     sd = a["tof_sd"].to_numpy(dtype=float)
     b2 = np.nan_to_num(a["b2"].to_numpy(dtype=float), nan=0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -518,8 +584,8 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     res["enhancement_ci_low"] = e_lo
     res["enhancement_ci_high"] = e_hi
     res["is_standard"] = _standard_conditions(res, cond_cols)
-    res["plates"] = plates.to_numpy(dtype=object)
-    res["flags"] = join_flags(None, {
+    res["plates"] = plates
+    res["flags"] = _FlagIndex(None, n=len(res)).join({
         "single_well": n == 1,
         "has_outlier": a["n_out"].to_numpy() > 0,
         "excluded_failed_well": a["n_failed"].to_numpy() > 0,
@@ -528,9 +594,9 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "enhancement_lower_bound": lb & np.isfinite(e_mean),
         "not_above_blank": (n >= 1) & ~a["nb"].to_numpy(dtype=bool) & (
             (mean <= 0) | (np.isfinite(lo) & (lo <= 0))),
-    }, index=res.index).to_numpy(dtype=object)
+    })
     res["tof_per_s"] = tof_per_s(mean)
-    res["n_plates"] = a["n_plates"].to_numpy(dtype=np.int64)
+    res["n_plates"] = n_plates
     res["n_outliers"] = a["n_out"].to_numpy(dtype=np.int64)
     with np.errstate(invalid="ignore"):
         res["rate_se_mM_per_h"] = np.where(a["n_wells"].to_numpy() >= 2,
