@@ -297,7 +297,7 @@ def _curvature_batch(g, G, x, y, w, n_pts, mask) -> np.ndarray:
         tstat = np.abs(b2 / np.where(np.isfinite(se) & (se > 0), se, 1.0))
         pv = 2 * stats.t.sf(tstat, np.where(mask, df, 1.0))
         pv = np.where(np.isfinite(se) & (se > 0), pv, np.where(b2 != 0, 0.0, 1.0))
-    return np.where(good, pv, np.where(mask, np.nan, np.nan))
+    return np.where(good, pv, np.nan)
 
 
 def _flag_text(n: int, codes) -> np.ndarray:
