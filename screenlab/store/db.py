@@ -170,55 +170,102 @@ def _prepared(frame: pd.DataFrame, cols: dict[str, str]) -> pd.DataFrame:
     return pd.DataFrame(out, index=range(n))
 
 
-def _column_bytes(s: pd.Series) -> bytes:
+#: fingerprint definition recorded in the store metadata (key ``fingerprint_version``). A store
+#: whose plates carry another version has them recomputed from its stored rows when it is first
+#: opened for writing (see ``Store._refresh_fingerprints``), so an unchanged re-import stays unchanged.
+FINGERPRINT_VERSION = "2"
+_M64 = np.uint64(0xFFFFFFFFFFFFFFFF)
+_NA_HASH = np.uint64(0x9E3779B97F4A7C15)   # hash of a missing cell (any kind)
+
+
+def _mix64(x: np.ndarray) -> np.ndarray:
+    """The splitmix64 finaliser (Steele, Lea & Flood 2014, "Fast splittable pseudorandom number
+    generators", OOPSLA): a bijective avalanche mix of uint64 values, wrapping arithmetic."""
+    x = x ^ (x >> np.uint64(30))
+    x = x * np.uint64(0xBF58476D1CE4E5B9)
+    x = x ^ (x >> np.uint64(27))
+    x = x * np.uint64(0x94D049BB133111EB)
+    return x ^ (x >> np.uint64(31))
+
+
+def _text_hash(values) -> np.ndarray:
+    """64-bit BLAKE2b of each text (UTF-8); used on the distinct values of a column only."""
+    out = np.empty(len(values), dtype=np.uint64)
+    for i, t in enumerate(values):  # distinct values (plates, well names, catalysts), not rows
+        out[i] = int.from_bytes(hashlib.blake2b(str(t).encode("utf-8", "surrogatepass"), digest_size=8).digest(),
+                                "little")
+    return out
+
+
+def _column_hash(s: pd.Series) -> np.ndarray:
+    """One uint64 per cell of a stored-form column, defined by the value alone (not by dtype or
+    pandas internals): text by BLAKE2b of its UTF-8, integers and floats by their 64-bit pattern
+    (one NaN pattern; -0.0 was already made 0.0), missing cells by a fixed constant."""
     if isinstance(s.dtype, pd.StringDtype) or s.dtype == object:
-        vals = s.astype(object).where(s.notna(), "\x00").tolist()
-        return ("\x1f".join(map(str, vals)) + "\x1e").encode()
+        codes, uniques = pd.factorize(s, use_na_sentinel=True)
+        h = _text_hash(uniques.tolist())
+        return np.where(codes < 0, _NA_HASH, h[np.clip(codes, 0, None)] if len(h) else _NA_HASH)
     if isinstance(s.dtype, pd.Int64Dtype):
-        return s.fillna(-(2**62)).to_numpy(dtype=np.int64).tobytes() + b"\x1e"
+        na = s.isna().to_numpy(dtype=bool)
+        v = s.fillna(0).to_numpy(dtype=np.int64).view(np.uint64)
+        return np.where(na, _NA_HASH, _mix64(v ^ np.uint64(0x1)))
     v = s.to_numpy(dtype=np.float64)
-    v = np.where(np.isnan(v), np.nan, v)  # one NaN bit pattern
-    return np.ascontiguousarray(v).tobytes() + b"\x1e"
+    na = np.isnan(v)
+    bits = np.where(na, 0.0, v).view(np.uint64)
+    return np.where(na, _NA_HASH, _mix64(bits ^ np.uint64(0x2)))
 
 
-def _slices(plates: pd.Series) -> dict[str, np.ndarray]:
-    """Positions of each plate's rows (a frame already sorted by plate)."""
-    return {k: np.asarray(v) for k, v in plates.groupby(plates, sort=False).indices.items()}
+def _row_hashes(frame: pd.DataFrame, cols: list[str]) -> np.ndarray:
+    """One uint64 per row combining ``cols`` in order (each column tagged with its name)."""
+    h = np.zeros(len(frame), dtype=np.uint64)
+    for c in cols:  # columns, not rows
+        tag = _text_hash([c])[0]
+        h = _mix64((h * np.uint64(0x100000001B3)) ^ _mix64(_column_hash(frame[c]) ^ tag))
+    return h
 
 
-def _digest(frame: pd.DataFrame, positions: np.ndarray | None, cols: list[str]) -> str:
-    h = hashlib.sha256()
-    if positions is not None and len(positions):
-        part = frame.iloc[positions]
-        for c in cols:
-            h.update(c.encode() + b"=")
-            h.update(_column_bytes(part[c]))
-    return h.hexdigest()
+def _sort_key(s: pd.Series) -> np.ndarray:
+    """A numeric key ordering a column by value (text via sorted factor codes, missing first)."""
+    if isinstance(s.dtype, pd.StringDtype) or s.dtype == object:
+        return pd.factorize(s, sort=True, use_na_sentinel=True)[0]
+    return pd.to_numeric(s, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+
+
+def _plate_digests(names: pd.Index, frame: pd.DataFrame, keys: list[str], cols: list[str]) -> list[str]:
+    """SHA-256 per plate of ``names`` over the row hashes of its rows, rows sorted canonically by
+    ``keys`` (so the order of rows in the files does not matter). One vectorised sort and hash over
+    the whole frame; each plate's digest is taken of its contiguous slice of the hash array."""
+    pos = names.get_indexer(frame["plate"].astype("string").fillna("\x00"))
+    if (pos < 0).any():  # rows of a plate not in the plates table (the validation refuses them)
+        keep = pos >= 0
+        frame, pos = frame.loc[keep], pos[keep]
+    order = np.lexsort([_sort_key(frame[k]) for k in reversed(keys)] + [pos]) if len(frame) else np.zeros(0, int)
+    part = frame.iloc[order]
+    hashes = _row_hashes(part, cols)
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(pos, minlength=len(names)))])
+    return [hashlib.sha256(hashes[a:b].tobytes()).hexdigest() for a, b in zip(bounds[:-1], bounds[1:])]
 
 
 def plate_fingerprints(plates: pd.DataFrame, wells: pd.DataFrame, factors: pd.DataFrame,
                        readings: pd.DataFrame) -> pd.DataFrame:
-    """Per-plate SHA-256 fingerprints of stored-form frames: ``plate, fp_plate, fp_layout, fp_readings``.
+    """Per-plate fingerprints of stored-form frames: ``plate, fp_plate, fp_layout, fp_readings``
+    (SHA-256 hex, definition :data:`FINGERPRINT_VERSION`).
 
-    Rows are sorted canonically first (layout and factors by well and factor, readings by well,
-    analyte, time and value), so the order of rows in the files does not matter. The loop is over
-    plates (a few groups), each digest is computed from whole column arrays.
+    Each row is hashed once, vectorised, into 64 bits (:func:`_row_hashes`); rows are sorted
+    canonically first (layout by well, factors by well and factor, readings by well, analyte, time
+    and value), and each part's digest is the SHA-256 of the plate's slice of those row hashes.
     """
-    w = wells.sort_values(["plate", "well"], kind="stable").reset_index(drop=True)
-    f = factors.sort_values(["plate", "well", "factor"], kind="stable").reset_index(drop=True)
-    r = readings.sort_values(["plate", "well", "analyte", "time_h", "value"], kind="stable").reset_index(drop=True)
     p = plates.reset_index(drop=True)
-    ws, fs, rs = _slices(w["plate"]), _slices(f["plate"]), _slices(r["plate"])
-    wcols = [c for c in WELL_COLS if c != "plate"]
-    rows = []
-    for i, name in enumerate(p["plate"].tolist()):  # loop over plates, not wells
-        fp_plate = _digest(p, np.array([i]), [c for c in PLATE_COLS if c != "plate"])
-        layout = hashlib.sha256()
-        layout.update(_digest(w, ws.get(name), wcols).encode())
-        layout.update(_digest(f, fs.get(name), ["well", "factor", "value"]).encode())
-        fp_readings = _digest(r, rs.get(name), ["well", "analyte", "time_h", "value"])
-        rows.append((name, fp_plate, layout.hexdigest(), fp_readings))
-    return pd.DataFrame(rows, columns=["plate", "fp_plate", "fp_layout", "fp_readings"])
+    names = pd.Index(p["plate"].astype("string").fillna("\x00"))
+    p_hash = _row_hashes(p, [c for c in PLATE_COLS if c != "plate"])
+    fp_plate = [hashlib.sha256(h.tobytes()).hexdigest() for h in p_hash]  # one per plate
+    wl = _plate_digests(names, wells, ["well"], [c for c in WELL_COLS if c != "plate"])
+    fl = _plate_digests(names, factors, ["well", "factor"], ["well", "factor", "value"])
+    fp_layout = [hashlib.sha256((a + b).encode()).hexdigest() for a, b in zip(wl, fl)]
+    fp_readings = _plate_digests(names, readings, ["well", "analyte", "time_h", "value"],
+                                 ["well", "analyte", "time_h", "value"])
+    return pd.DataFrame({"plate": p["plate"].tolist(), "fp_plate": fp_plate, "fp_layout": fp_layout,
+                         "fp_readings": fp_readings}, columns=["plate", "fp_plate", "fp_layout", "fp_readings"])
 
 
 def _manifest_dict(m: Manifest) -> dict:
@@ -483,7 +530,53 @@ class Store:
             except BaseException:
                 con.rollback()
                 raise
+        if not self.read_only:
+            self._refresh_fingerprints(con)
         self._schema_ok = True
+
+    @staticmethod
+    def _refresh_fingerprints(con) -> None:
+        """Bring the plates' fingerprints to :data:`FINGERPRINT_VERSION` (one transaction).
+
+        A store written by an older screenlab holds fingerprints of another definition; comparing
+        them with new ones would call every re-imported plate "changed". They are recomputed from
+        the stored rows (which are the stored form the fingerprints are defined on), for every
+        plate version, current and superseded. Only the derived ``fingerprint`` column changes.
+        """
+        rows = con.execute(Q.GET_META, ["fingerprint_version"]).fetchall()
+        if rows and rows[0][0] == FINGERPRINT_VERSION:
+            return
+        con.begin()
+        try:
+            plates = con.execute(Q.ALL_PLATE_VERSIONS).df()
+            if len(plates):
+                frames = [plates] + [con.execute(q).df() for q in (Q.ALL_WELL_VERSIONS, Q.ALL_FACTOR_VERSIONS,
+                                                                      Q.ALL_READING_VERSIONS)]
+                keyed = []
+                for frame, cols in zip(frames, (PLATE_COLS, WELL_COLS, None, READING_COLS)):
+                    key = (frame["campaign"].astype("string") + "\x1f" + frame["plate"].astype("string") + "\x1f"
+                           + frame["import_id"].astype("int64").astype("string"))
+                    body = frame.drop(columns=["campaign", "plate", "import_id"])
+                    if cols is None:  # well factors: all text
+                        body = body.apply(_text)
+                    else:
+                        body = _prepared(body, {c: k for c, k in cols.items() if c != "plate"})
+                    keyed.append(body.assign(plate=key.to_numpy()))
+                fps = plate_fingerprints(*keyed)
+                out = pd.DataFrame({"campaign": plates["campaign"].astype("string"),
+                                    "plate": plates["plate"].astype("string"),
+                                    "import_id": plates["import_id"].astype("int64"),
+                                    "fingerprint": pd.array([_fp_text(r) for r in fps.itertuples()], dtype="string")})
+                con.register("incoming_fingerprints", out)
+                try:
+                    con.execute(Q.UPDATE_FINGERPRINTS)
+                finally:
+                    con.unregister("incoming_fingerprints")
+            con.execute(Q.UPSERT_META, ["fingerprint_version", FINGERPRINT_VERSION])
+            con.commit()
+        except BaseException:
+            con.rollback()
+            raise
 
     # -- small reads ---------------------------------------------------------------------------
 

@@ -93,6 +93,23 @@ SELECT (SELECT count(*) FROM campaigns), (SELECT count(*) FROM catalysts), (SELE
        (SELECT count(*) FROM wells), (SELECT count(*) FROM well_factors), (SELECT count(*) FROM readings),
        (SELECT count(*) FROM imports), (SELECT count(*) FROM import_files)"""
 
+# --- fingerprint upgrade: every stored plate version (current and superseded), keyed by
+# (campaign, plate, import_id); see Store._refresh_fingerprints -------------------------------
+
+ALL_PLATE_VERSIONS = """
+SELECT campaign, plate, import_id, format, n_rows, n_cols, temperature_c, run_date, notes
+FROM plates ORDER BY campaign, plate, import_id"""
+ALL_WELL_VERSIONS = """
+SELECT campaign, plate, import_id, well, "row", col, role, catalyst, loading, loading_unit,
+       substrate_conc_mM, volume_uL, temperature_c
+FROM wells"""
+ALL_FACTOR_VERSIONS = "SELECT campaign, plate, import_id, well, factor, value FROM well_factors"
+ALL_READING_VERSIONS = "SELECT campaign, plate, import_id, well, analyte, time_h, value FROM readings"
+UPDATE_FINGERPRINTS = """
+UPDATE plates SET fingerprint = n.fingerprint
+FROM incoming_fingerprints n
+WHERE plates.campaign = n.campaign AND plates.plate = n.plate AND plates.import_id = n.import_id"""
+
 # --- writes (one import = one transaction) ----------------------------------------------------
 
 SUPERSEDE_HEADER = "UPDATE campaigns SET superseded_by = ? WHERE campaign = ? AND superseded_by IS NULL"
