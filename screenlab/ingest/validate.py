@@ -20,6 +20,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from screenlab import plates as platelib
 from screenlab import units
@@ -104,8 +106,7 @@ class Checker:
         text = raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else raw
         low = raw.str.lower()
         blank = low.isin(NA_WORDS).to_numpy()
-        v = np.array(pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan))
-        v[blank] = np.nan
+        v = _to_float(text, blank)
         nanword = low.isin(_NAN_WORDS).to_numpy()
         notnum = ~blank & np.isnan(v) & ~nanword
         nonfinite = ~blank & (np.isinf(v) | nanword)
@@ -137,6 +138,24 @@ class Checker:
         msg[frame.index[dup.to_numpy()]] = [f"{what} (first on row {int(r)})" for r in first[dup].to_numpy()]
         self.report(mask, column, msg)
         return mask
+
+
+def _to_float(text: pd.Series, blank: np.ndarray) -> np.ndarray:
+    """Cells -> float64 (NaN where blank or not a number), vectorised.
+
+    The whole column is first cast by Arrow (one C pass; blanks as nulls); any cell Arrow cannot
+    read makes the whole column fall back to ``pandas.to_numeric(errors="coerce")``, whose reading
+    is the reference here. Both accept the same plain decimal / exponent / inf / nan spellings."""
+    arr = getattr(text.array, "_pa_array", None)
+    if arr is not None:
+        try:
+            cast = pc.cast(pc.if_else(pa.array(blank), None, arr), pa.float64())
+            return np.array(cast.to_numpy(zero_copy_only=False), dtype=np.float64)
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
+            pass
+    v = np.array(pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan))
+    v[blank] = np.nan
+    return v
 
 
 def parse_wells_fast(names: pd.Series) -> pd.DataFrame:
