@@ -53,3 +53,43 @@ def test_rank_summary_reproducible_and_bounded():
         np.testing.assert_array_equal(a[c], b[c])
     assert a["p_best"].sum() == pytest.approx(1.0, abs=1e-12)
     assert (a["rank_low"] <= a["rank_high"]).all() and a["rank_low"].min() >= 1 and a["rank_high"].max() <= 50
+
+
+def _plain_front_share(params, draws, seed):
+    """Every pair in every draw (the O(draws k^2) definition), same chunk seeds as front_share."""
+    k, m = len(params[0][0]), len(params)
+    hits = np.zeros(k)
+    for d, ss in R._chunks(draws, k, seed, per_cell=m):
+        rng = np.random.default_rng(ss)
+        cube = np.stack([R.draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params], axis=2)
+        hits += (~R._dominance(cube).any(axis=1)).sum(axis=0)
+    return hits / draws
+
+
+@pytest.mark.parametrize("m", [2, 3])
+@pytest.mark.parametrize("case", range(3))
+def test_front_share_matches_pairwise(monkeypatch, m, case):
+    rng = np.random.default_rng(200 + case)
+    k = [5, 60, 250][case]
+    monkeypatch.setattr(R, "CHUNK_CELLS", 3001)
+    base = rng.normal(0, 1, k)
+    # correlated metrics (as TOF and enhancement are) give a small front and many prunable candidates
+    params = [(base + rng.normal(0, s, k), rng.uniform(0.02, 0.5, k), rng.choice([2.5, 6.0, np.inf], k))
+              for s in (0.3, 1.0, 0.2)[:m]]
+    got = R.front_share(params, 400, seed=case)
+    np.testing.assert_allclose(got, _plain_front_share(params, 400, case), rtol=0, atol=1e-12)
+    assert (got * 400).sum() >= 400            # every draw has at least one candidate on its front
+
+
+@pytest.mark.parametrize("m", [2, 3])
+def test_point_dominance_matches_pairwise(monkeypatch, m):
+    rng = np.random.default_rng(7)
+    k = 200
+    monkeypatch.setattr(R, "CHUNK_CELLS", 5000)           # several column blocks
+    pts = rng.integers(0, 6, size=(k, m)).astype(float)   # coarse values: many ties and duplicates
+    names = np.array([f"C{i:03d}" for i in range(k)], dtype=object)
+    cnt, by = R._point_dominance(pts, names, cap=4)
+    dom = R._dominance(pts[None])[0]
+    np.testing.assert_array_equal(cnt, dom.sum(axis=0))
+    for j in range(k):
+        assert by[j] == ";".join(names[dom[:, j]][:4])

@@ -512,7 +512,8 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
     A candidate dominates another when it is at least as good on every metric and better on one
     (point estimates). Columns: ``catalyst, role, family``, one estimate column per metric (its
     export name, e.g. ``tof_per_h, enhancement, ea_kj_mol``), ``on_front`` (bool),
-    ``dominated_by_count``, ``dominated_by`` (';'-joined names), ``p_front`` (with ``draws`` > 0:
+    ``dominated_by_count``, ``dominated_by`` (';'-joined names of the first :data:`MAX_DOMINATORS`
+    dominating candidates in name order; the count has them all), ``p_front`` (with ``draws`` > 0:
     the share of joint draws in which the candidate is on the front; metrics drawn
     independently), ``flags, reason`` (candidates missing any metric are listed, not compared).
     Sorted: front first, then by dominated_by_count.
@@ -533,11 +534,9 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
     names = base.index.to_numpy()[ok]
     sign = np.array([1.0 if s.higher_is_better else -1.0 for s in specs])
     pts = np.column_stack([tb["mu"].reindex(base.index).to_numpy(float)[ok] for tb in tabs]) * sign
-    dom = _dominance(pts[None])[0]                   # dom[i, j]: i dominates j
     cnt = np.zeros(len(base), dtype=np.int64)
     by = np.full(len(base), "", dtype=object)
-    cnt[ok] = dom.sum(axis=0)
-    by[ok] = [";".join(names[dom[:, j]]) for j in range(len(names))]   # names only: a loop over candidates
+    cnt[ok], by[ok] = _point_dominance(pts, names, MAX_DOMINATORS)
     base["on_front"] = False
     base.loc[ok, "on_front"] = cnt[ok] == 0
     base["dominated_by_count"] = pd.array(np.where(ok, cnt, 0), dtype="Int64")
@@ -545,19 +544,10 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
     base["dominated_by"] = by
     base["p_front"] = np.nan
     if draws > 0 and ok.sum() > 0:
-        rng = np.random.default_rng(seed)
-        k = int(ok.sum())
-        front = np.zeros(k)
-        chunk = max(1, int(2e7 // max(1, k * k * len(specs))))
-        done = 0
-        while done < draws:                          # chunks of draws bound the memory (d x k x k x m)
-            d = min(chunk, draws - done)
-            cube = np.stack([sign[i] * draw_matrix(tb["mu"].reindex(names), tb["sigma"].reindex(names),
-                                                   tb["df"].reindex(names), d, rng)
-                             for i, tb in enumerate(tabs)], axis=2)
-            front += (~_dominance(cube).any(axis=1)).sum(axis=0)
-            done += d
-        base.loc[ok, "p_front"] = front / draws
+        # t draws are symmetric, so sign * (mu + sigma T) is drawn as (sign * mu) + sigma T
+        params = [(sign[i] * tb["mu"].reindex(names).to_numpy(float), tb["sigma"].reindex(names).to_numpy(float),
+                   tb["df"].reindex(names).to_numpy(float)) for i, tb in enumerate(tabs)]
+        base.loc[ok, "p_front"] = front_share(params, draws, seed)
     base = base.reset_index().rename(columns={"index": "catalyst"})
     base["_o"] = np.where(ok, 0, 1)
     base = base.sort_values(["_o", "on_front", "dominated_by_count", "catalyst"],
@@ -574,5 +564,91 @@ def _dominance(pts: np.ndarray) -> np.ndarray:
     return (a >= b).all(axis=3) & (a > b).any(axis=3)
 
 
-__all__ = ["FLAGS", "METRICS", "Metric", "candidate_table", "draw_matrix", "rank_draws", "rank_candidates",
-           "pareto"]
+def _point_dominance(pts: np.ndarray, names: np.ndarray, cap: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per candidate (rows of pts, higher better): how many candidates dominate it, and the first
+    ``cap`` of their names (in the order of ``names``) joined with ';'.
+
+    Pairwise in blocks of columns, so memory is k x block (time k^2 m, done once per call).
+    """
+    k, m = pts.shape
+    cnt = np.zeros(k, np.int64)
+    ii, jj = [], []
+    step = max(1, CHUNK_CELLS // max(1, k * m))
+    for j0 in range(0, k, step):                     # blocks of candidates bound the memory
+        blk = pts[j0:j0 + step]
+        a, b = pts[:, None, :], blk[None, :, :]
+        dom = (a >= b).all(axis=2) & (a > b).any(axis=2)        # dom[i, j]: i dominates j0 + j
+        cnt[j0:j0 + step] = dom.sum(axis=0)
+        i, j = np.nonzero(dom & (np.cumsum(dom, axis=0) <= cap))
+        ii.append(i)
+        jj.append(j + j0)
+    by = np.full(k, "", dtype=object)
+    if k:
+        i, j = np.concatenate(ii), np.concatenate(jj)
+        o = np.lexsort((i, j))
+        joined = pd.Series(names[i[o]]).groupby(j[o], sort=True).agg(";".join)
+        by[joined.index.to_numpy()] = joined.to_numpy()
+    return cnt, by
+
+
+def _front_2(p1: np.ndarray, p2: np.ndarray) -> np.ndarray:
+    """(draws, k) on-front mask for two metrics (higher better), without pairwise comparisons.
+
+    Sorted on metric 1 (best first), a candidate is dominated exactly when some candidate before
+    it is at least as good on metric 2: a running maximum of metric 2 along each row. Ties on
+    metric 1 between continuous draws have probability 0.
+    """
+    order = np.argsort(-p1, axis=1)
+    q = np.take_along_axis(p2, order, axis=1)
+    before = np.maximum.accumulate(q, axis=1)
+    front_sorted = np.ones(q.shape, bool)
+    front_sorted[:, 1:] = q[:, 1:] > before[:, :-1]
+    out = np.zeros(q.shape, bool)
+    np.put_along_axis(out, order, front_sorted, axis=1)
+    return out
+
+
+def _front_n(pts: np.ndarray) -> np.ndarray:
+    """(draws, k) on-front mask for (draws, k, m) scores (higher better), any m.
+
+    Candidates that no draw of this chunk can put on the front are dropped first: j is dominated in
+    every draw when some candidate's smallest draw beats j's largest draw on every metric (checked
+    against a few strong witnesses; dropping fewer is only slower, never wrong, and a dominator
+    that was dropped is itself dominated by a kept one). The pairwise test then runs on the rest.
+    """
+    d, k, m = pts.shape
+    lo, hi = pts.min(axis=0), pts.max(axis=0)            # (k, m) over this chunk's draws
+    top = max(1, min(k, 64))
+    rank_sum = np.argsort(np.argsort(-lo, axis=0), axis=0).sum(axis=1)
+    wit = np.unique(np.concatenate([np.argsort(-lo, axis=0)[:top].ravel(), np.argsort(rank_sum)[:top]]))
+    never = (lo[wit][:, None, :] > hi[None, :, :]).all(axis=2).any(axis=0)
+    keep = np.flatnonzero(~never)
+    out = np.zeros((d, k), bool)
+    s = keep.size
+    sub = max(1, CHUNK_CELLS * 4 // max(1, s * s * m))
+    for r0 in range(0, d, sub):                          # sub-batches of draws bound d x s x s x m
+        sp = pts[r0:r0 + sub][:, keep, :]
+        out[r0:r0 + sub, keep] = ~_dominance(sp).any(axis=1)
+    return out
+
+
+def front_share(params, draws: int, seed=0) -> np.ndarray:
+    """Share of joint draws in which each candidate is on the Pareto front.
+
+    ``params`` holds one ``(mu, sigma, df)`` triple per metric (arrays over the same candidates,
+    oriented so that higher is better); metrics and candidates are drawn independently. Draws are
+    made in chunks (each with its own seed from ``seed``): two metrics use the sort + running
+    maximum front, three or more the pruned pairwise test. Same seed -> same output.
+    """
+    k, m = len(params[0][0]), len(params)
+    hits = np.zeros(k, np.int64)
+    for d, ss in _chunks(draws, k, seed, per_cell=m):
+        rng = np.random.default_rng(ss)
+        cube = [draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params]
+        front = _front_2(cube[0], cube[1]) if m == 2 else _front_n(np.stack(cube, axis=2))
+        hits += front.sum(axis=0)
+    return hits / draws
+
+
+__all__ = ["FLAGS", "METRICS", "Metric", "candidate_table", "draw_matrix", "rank_draws", "rank_summary",
+           "rank_candidates", "front_share", "pareto"]
