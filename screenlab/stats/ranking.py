@@ -559,9 +559,12 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
 
 def _dominance(pts: np.ndarray) -> np.ndarray:
     """pts: (draws, k, m) scores, higher better. Returns (draws, k, k): [d, i, j] = i dominates j."""
-    a = pts[:, :, None, :]
-    b = pts[:, None, :, :]
-    return (a >= b).all(axis=3) & (a > b).any(axis=3)
+    ge = gt = None
+    for c in range(pts.shape[2]):                    # metric by metric: no reduction over a short last axis
+        a, b = pts[:, :, None, c], pts[:, None, :, c]
+        ge = (a >= b) if ge is None else (ge & (a >= b))
+        gt = (a > b) if gt is None else (gt | (a > b))
+    return ge & gt
 
 
 def _point_dominance(pts: np.ndarray, names: np.ndarray, cap: int) -> tuple[np.ndarray, np.ndarray]:
@@ -608,27 +611,54 @@ def _front_2(p1: np.ndarray, p2: np.ndarray) -> np.ndarray:
     return out
 
 
+def _directions(m: int) -> np.ndarray:
+    """A few positive weight vectors (m x n): the unit vectors and the grid {0, 1, 2}^m directions."""
+    g = np.array(np.meshgrid(*[np.arange(3)] * m, indexing="ij")).reshape(m, -1).T
+    g = g[g.sum(axis=1) > 0].astype(float)
+    g /= np.linalg.norm(g, axis=1, keepdims=True)
+    return np.unique(np.round(g, 12), axis=0).T
+
+
 def _front_n(pts: np.ndarray) -> np.ndarray:
     """(draws, k) on-front mask for (draws, k, m) scores (higher better), any m.
 
-    Candidates that no draw of this chunk can put on the front are dropped first: j is dominated in
-    every draw when some candidate's smallest draw beats j's largest draw on every metric (checked
-    against a few strong witnesses; dropping fewer is only slower, never wrong, and a dominator
-    that was dropped is itself dominated by a kept one). The pairwise test then runs on the rest.
+    In each draw the maximiser of a positive-weighted sum of the (standardised) metrics is on the
+    front, so a handful of weightings gives front members ("witnesses") at O(k) cost. Every
+    candidate is first tested against those witnesses; the pairwise test then runs only among the
+    candidates no witness dominates (a candidate dominated by anyone is dominated by a front
+    member, and front members always survive the first test, so the result is exact).
     """
     d, k, m = pts.shape
-    lo, hi = pts.min(axis=0), pts.max(axis=0)            # (k, m) over this chunk's draws
-    top = max(1, min(k, 64))
-    rank_sum = np.argsort(np.argsort(-lo, axis=0), axis=0).sum(axis=1)
-    wit = np.unique(np.concatenate([np.argsort(-lo, axis=0)[:top].ravel(), np.argsort(rank_sum)[:top]]))
-    never = (lo[wit][:, None, :] > hi[None, :, :]).all(axis=2).any(axis=0)
-    keep = np.flatnonzero(~never)
+    centre = pts.mean(axis=(0, 1))
+    scale = pts.std(axis=(0, 1))
+    scale[~(scale > 0)] = 1.0
+    wits = np.argmax(((pts - centre) / scale) @ _directions(m), axis=1)        # (d, n_dir) front members
+    dominated = np.zeros((d, k), bool)
+    for w in range(wits.shape[1]):                   # a loop over a few weightings, not candidates
+        a = np.take_along_axis(pts, wits[:, w, None, None], axis=1)           # (d, 1, m)
+        dominated |= (a >= pts).all(axis=2) & (a > pts).any(axis=2)
+    alive = ~dominated
+    n_alive = alive.sum(axis=1)
     out = np.zeros((d, k), bool)
-    s = keep.size
-    sub = max(1, CHUNK_CELLS * 4 // max(1, s * s * m))
-    for r0 in range(0, d, sub):                          # sub-batches of draws bound d x s x s x m
-        sp = pts[r0:r0 + sub][:, keep, :]
-        out[r0:r0 + sub, keep] = ~_dominance(sp).any(axis=1)
+    by_size = np.argsort(n_alive, kind="stable")     # draws with few survivors together: padding stays small
+    budget = CHUNK_CELLS * 4
+    r0 = 0
+    while r0 < d:                                    # batches of draws bound d' x s x s x m
+        ns = n_alive[by_size[r0:]].astype(np.int64)
+        over = np.flatnonzero((np.arange(ns.size) + 1) * np.maximum(ns, 1) ** 2 * m > budget)
+        r1 = r0 + (max(1, int(over[0])) if over.size else ns.size)
+        rows = by_size[r0:r1]
+        s = max(1, int(n_alive[rows].max()))
+        al = alive[rows]
+        idx = np.argsort(~al, axis=1, kind="stable")[:, :s]                  # survivors first, padded
+        valid = np.arange(s)[None, :] < n_alive[rows][:, None]
+        sp = np.take_along_axis(pts[rows], idx[:, :, None], axis=1)
+        sp[~valid] = -np.inf                         # padding dominates nobody
+        front_s = ~_dominance(sp).any(axis=1) & valid
+        blk = np.zeros((rows.size, k), bool)
+        np.put_along_axis(blk, idx, front_s, axis=1)
+        out[rows] = blk
+        r0 = r1
     return out
 
 
@@ -638,7 +668,7 @@ def front_share(params, draws: int, seed=0) -> np.ndarray:
     ``params`` holds one ``(mu, sigma, df)`` triple per metric (arrays over the same candidates,
     oriented so that higher is better); metrics and candidates are drawn independently. Draws are
     made in chunks (each with its own seed from ``seed``): two metrics use the sort + running
-    maximum front, three or more the pruned pairwise test. Same seed -> same output.
+    maximum front, three or more the witness-pruned pairwise test. Same seed -> same output.
     """
     k, m = len(params[0][0]), len(params)
     hits = np.zeros(k, np.int64)
