@@ -46,6 +46,50 @@ def _fraction_scale(manifest) -> float:
     raise UsageError(f"campaign.toml: [readout].scale must be 'percent' or 'fraction', not {manifest.readout_scale!r}")
 
 
+def _change_points(values: pd.Series) -> np.ndarray:
+    """Boolean array of length n - 1: row i + 1 differs from row i (missing values count as different)."""
+    arr = values.array
+    pa_arr = getattr(arr, "_pa_array", None)
+    if pa_arr is not None and len(values) > 1:
+        import pyarrow as pa
+        import pyarrow.compute as pc
+        chunk = pa_arr.combine_chunks() if isinstance(pa_arr, pa.ChunkedArray) else pa_arr
+        ne = pc.fill_null(pc.not_equal(chunk.slice(1), chunk.slice(0, len(chunk) - 1)), True)
+        return ne.to_numpy(zero_copy_only=False).astype(bool, copy=False)
+    obj = values.to_numpy(dtype=object)
+    ne = obj[1:] != obj[:-1]
+    miss = pd.isna(obj)
+    return np.asarray(ne | miss[1:] | miss[:-1], dtype=bool)
+
+
+def well_index(plate: pd.Series, well: pd.Series, key_plate: pd.Series, key_well: pd.Series) -> np.ndarray:
+    """For every row of (plate, well): the position of the same (plate, well) among the keys, -1 if absent.
+
+    Keys must be unique (the first match is used otherwise). Consecutive rows with the same
+    (plate, well) are looked up once, so sorted readings (the CampaignData contract) cost one string
+    comparison per row and one key lookup per well; any other order gives the same answer, just slower.
+    """
+    n = len(plate)
+    if n == 0:
+        return np.zeros(0, dtype=np.int64)
+    start = np.ones(n, dtype=bool)
+    if n > 1:
+        start[1:] = _change_points(plate) | _change_points(well)
+    first = np.flatnonzero(start)
+    keys = pd.MultiIndex.from_arrays([pd.Series(key_plate).astype(str).to_numpy(dtype=object),
+                                      pd.Series(key_well).astype(str).to_numpy(dtype=object)])
+    runs = pd.MultiIndex.from_arrays([pd.Series(plate).iloc[first].astype(str).to_numpy(dtype=object),
+                                      pd.Series(well).iloc[first].astype(str).to_numpy(dtype=object)])
+    if not keys.is_unique:
+        keep = ~keys.duplicated()
+        pos = np.flatnonzero(keep)
+        found = keys[keep].get_indexer(runs)
+        run_code = np.where(found >= 0, pos[np.maximum(found, 0)], -1)
+    else:
+        run_code = keys.get_indexer(runs)
+    return np.asarray(run_code, dtype=np.int64)[np.cumsum(start) - 1]
+
+
 def _absorbance_baseline(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """Per reading: the baseline absorbance of its (plate, well, analyte) and whether it was t = 0."""
     order = frame.sort_values(["plate", "well", "analyte", "time_h"], kind="stable")
@@ -68,12 +112,16 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
     """
     m = data.manifest
     kind = (m.readout_kind or "").strip().lower()
-    rd = data.readings[["plate", "well", "analyte", "time_h", "value"]].copy()
-    rd["value"] = pd.to_numeric(rd["value"], errors="coerce").astype(float)
-    rd["time_h"] = rd["time_h"].astype(float)
+    src = data.readings
+    # string columns are passed on as they are (converting Arrow strings to numpy is slow)
+    rd = pd.DataFrame({c: src[c].array for c in ("plate", "well", "analyte")})
+    rd["time_h"] = src["time_h"].astype(float).to_numpy()
+    rd["value"] = pd.to_numeric(src["value"], errors="coerce").astype(float).to_numpy()
     w = data.wells[["plate", "well", "substrate_conc_mM"]].drop_duplicates(["plate", "well"])
-    rd = rd.merge(w, on=["plate", "well"], how="left")   # w is unique per (plate, well)
-    s0 = rd["substrate_conc_mM"].to_numpy(dtype=float)
+    # integer well code per reading, once (no string merge); -1 for a well not in wells.csv
+    code = well_index(rd["plate"], rd["well"], w["plate"], w["well"])
+    w_s0 = pd.to_numeric(w["substrate_conc_mM"], errors="coerce").astype(float).to_numpy()
+    s0 = np.where(code >= 0, w_s0[np.maximum(code, 0)] if len(w_s0) else np.nan, np.nan)
     theo = s0 * float(m.product_per_substrate)            # theoretical maximum product, mM
     value = rd["value"].to_numpy(dtype=float)
     baseline = pd.Series(pd.NA, index=rd.index, dtype="string")
@@ -95,7 +143,6 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
 
     with np.errstate(divide="ignore", invalid="ignore"):
         conv = np.where(theo > 0, product / theo * 100.0, np.nan)
-    # string columns are passed on as they are (converting Arrow strings to numpy is slow)
     out = rd[["plate", "well", "analyte", "time_h"]].copy()
     out["product_mM"] = product
     out["conversion_pct"] = conv

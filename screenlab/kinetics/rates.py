@@ -41,7 +41,7 @@ import pandas as pd
 from scipy import stats
 
 from screenlab.kinetics import fit, models
-from screenlab.kinetics.amounts import T0_TOLERANCE_H, product_amounts
+from screenlab.kinetics.amounts import T0_TOLERANCE_H, product_amounts, well_index
 from screenlab.model import CampaignData
 from screenlab.settings import AnalysisSettings
 
@@ -76,6 +76,25 @@ FLAG_SIGMAS = 3.0
 
 _WELL_COLUMNS = ["plate", "well", "row", "col", "role", "catalyst", "temperature_c", "loading",
                  "loading_unit", "substrate_conc_mM", "volume_uL"]
+
+
+#: method names; position = internal method code
+_METHODS = ("no_data", "initial_slope", "first_order", "end_point")
+
+
+def _flag_text(flags: dict[str, np.ndarray], n: int) -> np.ndarray:
+    """Object array of str: the codes whose mask is true, in the order of ``flags``, joined with ``;``.
+
+    The masks are packed into one integer per row; each distinct combination (a few) is joined once.
+    """
+    bits = np.zeros(n, dtype=np.int64)
+    names = list(flags)
+    for i, name in enumerate(names):        # a loop over flag codes, not wells
+        bits |= np.asarray(flags[name], dtype=bool).astype(np.int64) << i
+    combos, inv = np.unique(bits, return_inverse=True)
+    text = np.array([";".join(nm for i, nm in enumerate(names) if int(c) >> i & 1) for c in combos]
+                    + [""], dtype=object)   # the trailing "" keeps the array 1-d of str when empty
+    return text[inv.ravel()] if n else np.zeros(0, dtype=object)
 
 
 def _group_starts(g: np.ndarray, n_groups: int) -> np.ndarray:
@@ -119,17 +138,16 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     theo = np.where(np.isfinite(theo) & (theo > 0), theo, np.nan)
 
     # --- the main analyte's usable readings, sorted by (well, time) --------------------------
-    main = amounts[amounts["analyte"] == data.manifest.analyte_main]
-    key_w = pd.MultiIndex.from_arrays([out["plate"].astype(str), out["well"].astype(str)])
-    key_r = pd.MultiIndex.from_arrays([main["plate"].astype(str), main["well"].astype(str)])
-    code = key_w.get_indexer(key_r)
-    t_all = main["time_h"].to_numpy(dtype=float)
-    p_all = main["product_mM"].to_numpy(dtype=float)
+    # integer well codes once, on whole columns (no string group-by, merge or frame filter)
+    is_main = (amounts["analyte"] == data.manifest.analyte_main).fillna(False).to_numpy(dtype=bool)
+    code = np.where(is_main, well_index(amounts["plate"], amounts["well"], out["plate"], out["well"]), -1)
+    t_all = amounts["time_h"].to_numpy(dtype=float)
+    p_all = amounts["product_mM"].to_numpy(dtype=float)
     use = (code >= 0) & np.isfinite(t_all) & np.isfinite(p_all)
     first_reading_base = np.zeros(G, dtype=bool)
-    if "baseline" in main.columns:
-        fr = (main["baseline"].astype("string") == "first_reading").fillna(False).to_numpy(dtype=bool)
-        first_reading_base[np.unique(code[fr & (code >= 0)])] = True
+    if "baseline" in amounts.columns:
+        fr = (amounts["baseline"].astype("string") == "first_reading").fillna(False).to_numpy(dtype=bool)
+        first_reading_base[code[fr & (code >= 0)]] = True
     code, t, prod = code[use], t_all[use], p_all[use]
     order = np.lexsort((t, code))
     g, t, prod = code[order], t[order], prod[order]
@@ -162,11 +180,11 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     last_conv = _take(conv, i_last)
 
     # --- method per well -------------------------------------------------------------------
-    method = np.full(G, "no_data", dtype=object)
     m_slope = (n_win >= min_pts) & (n_pos >= 1)
     m_first = ~m_slope & (n_points >= 3) & (n_pos >= 2)
     m_end = ~m_slope & ~m_first & (n_pos >= 1)
-    method[m_slope], method[m_first], method[m_end] = "initial_slope", "first_order", "end_point"
+    m_fit = m_slope | m_first
+    method = np.select([m_slope, m_first, m_end], list(_METHODS[1:]), default=_METHODS[0]).astype(object)
 
     rate = np.full(G, np.nan)
     rate_se = np.full(G, np.nan)
@@ -233,32 +251,31 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     rate_df[failed] = 0
 
     with np.errstate(invalid="ignore", divide="ignore"):
-        k_out = np.where(method == "first_order", k_fit, rate / theo)
+        k_out = np.where(m_first, k_fit, rate / theo)
         k_out = np.where(failed, np.nan, k_out)
-        tq = stats.t.ppf(0.5 + settings.confidence / 2.0, np.where(rate_df > 0, rate_df, 1))
+        # one t quantile per distinct df (a handful), not per well
+        df_u, df_inv = np.unique(np.where(rate_df > 0, rate_df, 1), return_inverse=True)
+        tq = stats.t.ppf(0.5 + settings.confidence / 2.0, df_u)[df_inv.ravel()]
         half = np.where((rate_df > 0) & np.isfinite(rate_se), tq * rate_se, np.nan)
 
     induction = _induction(g, t, prod, in_fit, G)
     deactivation = _deactivation(rate, intercept, theo, t_end_seg, last_time, last_prod,
-                                 resid_sd, method)
+                                 resid_sd, m_fit)
 
     flags = {
-        "no_readings": method == "no_data",
-        "end_point_only": method == "end_point",
+        "no_readings": ~(m_fit | m_end),
+        "end_point_only": m_end,
         "above_window": np.nan_to_num(first_conv, nan=-np.inf) > window,
         "induction": induction,
         "deactivation": deactivation,
         "fixed_plateau": fixed_flag,
         "fit_failed": failed,
-        "few_points": np.isin(method, ["initial_slope", "first_order"]) & (used_pts < 4) & ~failed,
+        "few_points": m_fit & (used_pts < 4) & ~failed,
         "negative_rate": np.nan_to_num(rate, nan=0.0) < 0,
         "baseline_first_reading": first_reading_base,
         "no_substrate": ~np.isfinite(theo) & (n_points > 0),
     }
-    text = np.full(G, "", dtype=object)
-    for code_name, mask in flags.items():  # a loop over flag codes, not wells
-        text = text + np.where(mask, code_name + ";", "")
-    flag_str = pd.Series(text, dtype="string").str.rstrip(";")
+    flag_str = _flag_text(flags, G)
 
     out["n_points"] = n_points.astype(np.int64)
     out["method"] = pd.Series(method, dtype="string")
@@ -269,7 +286,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     out["last_time_h"] = last_time
     out["last_product_mM"] = last_prod
     out["last_conversion_pct"] = last_conv
-    out["flags"] = flag_str.to_numpy()
+    out["flags"] = flag_str
     out["rate_ci_low_mM_per_h"] = rate - half
     out["rate_ci_high_mM_per_h"] = rate + half
     out["window_points"] = np.where(m_slope, n_win, 0)
@@ -306,7 +323,7 @@ def _induction(g, t, prod, in_fit, G) -> np.ndarray:
     return np.asarray(hit, dtype=bool)
 
 
-def _deactivation(rate, intercept, theo, t_end, last_time, last_prod, resid_sd, method) -> np.ndarray:
+def _deactivation(rate, intercept, theo, t_end, last_time, last_prod, resid_sd, fitted) -> np.ndarray:
     """Product gained from the end of the initial segment to the last reading < 0.5 x the gain that
     the initial rate, slowed only by substrate depletion (first order, plateau = theoretical
     maximum; a straight line when that is unknown), predicts - and short of it by more than
@@ -317,7 +334,7 @@ def _deactivation(rate, intercept, theo, t_end, last_time, last_prod, resid_sd, 
         pred_last = models.depletion_course(last_time, a0, rate, theo)
         pred_gain = pred_last - pred_end
         obs_gain = last_prod - pred_end
-        hit = (np.isin(method, ["initial_slope", "first_order"]) & (last_time > t_end) & (rate > 0)
+        hit = (fitted & (last_time > t_end) & (rate > 0)
                & (pred_gain > 0) & (obs_gain < 0.5 * pred_gain)
                & ((pred_gain - obs_gain) > FLAG_SIGMAS * np.sqrt(2.0) * resid_sd))
     return np.asarray(np.nan_to_num(hit, nan=0) > 0, dtype=bool)
