@@ -5,10 +5,16 @@ closes it again, so ``screenlab ingest`` can write to the same file while the ap
 (DuckDB lets one process write *or* many read, never both at once). ``Store`` retries an open
 while the file is momentarily held by another process.
 
-Everything derived from the data is cached with ``st.cache_data`` keyed by
-``(store path, store.data_version(), campaign, settings, ...)``. The data version changes on
-every write to the store, so a new import shows up on the next rerun and stale entries simply
-stop being asked for (``max_entries`` bounds them).
+Everything derived from the data is cached keyed by ``(store path, store.data_version(),
+campaign, settings, ...)``. The data version changes on every write to the store, so a new import
+shows up on the next rerun and stale entries simply stop being asked for (``max_entries`` bounds
+them).
+
+The two big objects, the loaded campaign and its :class:`Analysis` (per-reading frames of a few
+hundred thousand rows on a 400-plate campaign), are held with ``st.cache_resource``: one shared
+object per key, handed out without the pickle round trip ``st.cache_data`` makes on every hit
+(seconds for a large campaign). They are therefore READ-ONLY: pages and the helpers below derive
+new frames from them and never assign into them. Small derived tables stay on ``st.cache_data``.
 """
 from __future__ import annotations
 
@@ -64,15 +70,15 @@ def imports(path: str, read_only: bool, version: Any, campaign: str | None) -> p
         return s.imports(campaign)
 
 
-@st.cache_data(show_spinner="Loading the campaign ...", max_entries=8)
+@st.cache_resource(show_spinner="Loading the campaign ...", max_entries=4)
 def campaign_data(path: str, read_only: bool, version: Any, campaign: str):
     with open_store(path, read_only) as s:
         return s.load_campaign(campaign)
 
 
-@st.cache_data(show_spinner="Analysing the campaign ...", max_entries=8)
+@st.cache_resource(show_spinner="Analysing the campaign ...", max_entries=6)
 def analysis(path: str, read_only: bool, version: Any, campaign: str, skey: tuple):
-    """``pipeline.analyse`` of one campaign under one set of settings."""
+    """``pipeline.analyse`` of one campaign under one set of settings (shared: read-only)."""
     from screenlab.pipeline import analyse
 
     data = campaign_data(path, read_only, version, campaign)
@@ -123,6 +129,17 @@ def arrhenius_prediction(path: str, read_only: bool, version: Any, campaign: str
     return predict_tof(a.kinetics.arrhenius, grid, a.settings.confidence)
 
 
+@st.cache_data(show_spinner=False, max_entries=16)
+def flag_counts(path: str, read_only: bool, version: Any, campaign: str, skey: tuple) -> pd.DataFrame:
+    """Rows per flag code at each level (``level, flag, rows``): wells, groups, plates, Arrhenius fits."""
+    from screenlab.app.app_pages._common import flag_counts as _fc
+
+    a = analysis(path, read_only, version, campaign, skey)
+    kin = a.kinetics
+    return _fc({"well": kin.wells["flags"], "group": kin.rates["flags"], "plate": a.quality["flags"],
+                "Arrhenius fit": kin.arrhenius["flags"]})
+
+
 @st.cache_resource(show_spinner=False)
 def flag_help() -> dict[str, str]:
     """Flag code -> sentence, gathered once per process."""
@@ -134,6 +151,8 @@ def flag_help() -> dict[str, str]:
 def clear() -> None:
     """Forget every cached result (after this app wrote to the store)."""
     st.cache_data.clear()
+    campaign_data.clear()
+    analysis.clear()
 
 
 @dataclass(frozen=True)

@@ -5,6 +5,10 @@ Started by ``screenlab app [--store PATH] [--read-only]`` / ``screenlab demo``; 
 """
 from __future__ import annotations
 
+import os
+import sys
+import time
+
 # numpy and pandas first, in the main thread, before any DuckDB result is fetched
 import numpy  # noqa: F401
 import pandas  # noqa: F401
@@ -29,7 +33,13 @@ def pages(read_only: bool) -> dict[str, list]:
     }
 
 
+#: set to 1 to print each script run's time (sidebar context and page) to the server log; ``profile``
+#: also prints the page script's cProfile hot spots there
+TIMING_ENV = "SCREENLAB_APP_TIMING"
+
+
 def run() -> None:
+    t0 = time.perf_counter()
     st.set_page_config(page_title="ScreenLab", page_icon=":material/science:", layout="wide")
     cfg = runtime.config()
     nav = st.navigation(pages(cfg.read_only), position="sidebar")
@@ -38,7 +48,26 @@ def run() -> None:
     except ScreenlabError as exc:
         st.error(f"The store could not be read: {exc}")
         st.stop()
-    nav.run()
+    t1 = time.perf_counter()
+    mode = os.environ.get(TIMING_ENV, "").strip().lower()
+    prof = None
+    if mode == "profile":  # developer aid: the page script's hot spots, cumulative time
+        import cProfile
+
+        prof = cProfile.Profile()
+        prof.enable()
+    try:
+        nav.run()
+    finally:
+        if prof is not None:
+            import pstats
+
+            prof.disable()
+            pstats.Stats(prof, stream=sys.stderr).sort_stats("cumulative").print_stats(r"screenlab|pandas/core/frame|plotly|streamlit/elements", 30)
+        if mode not in ("", "0"):
+            t2 = time.perf_counter()
+            print(f"[screenlab timing] page={nav.url_path or 'campaigns'} context={t1 - t0:.3f}s "
+                  f"page_script={t2 - t1:.3f}s total={t2 - t0:.3f}s", file=sys.stderr, flush=True)
 
 
 run()

@@ -15,6 +15,7 @@ Conventions shared by every figure:
 """
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -60,11 +61,17 @@ def _layout(fig: go.Figure, title: str | None = None, **kw) -> go.Figure:
 
 def series_colours(n: int) -> list[str]:
     """n evenly spaced Viridis colours (stopping short of the pale yellow end)."""
+    return list(_series_colours(int(n)))
+
+
+@functools.lru_cache(maxsize=64)
+def _series_colours(n: int) -> tuple[str, ...]:
+    # sampling a named colour scale is slow in plotly (it rebuilds its name table per call)
     if n <= 0:
-        return []
+        return ()
     if n == 1:
-        return sample_colorscale(COLORSCALE, [0.25])
-    return sample_colorscale(COLORSCALE, list(np.linspace(0.0, 0.85, n)))
+        return tuple(sample_colorscale(COLORSCALE, [0.25]))
+    return tuple(sample_colorscale(COLORSCALE, list(np.linspace(0.0, 0.85, n))))
 
 
 def _fmt(v, digits: int = 3) -> str:
@@ -285,7 +292,8 @@ def forest_plot(ranking: pd.DataFrame, *, label: str, log_x: bool = False, title
     hi = pd.to_numeric(r["ci_high"], errors="coerce").to_numpy(dtype=float)
     cats = r["catalyst"].astype(str).tolist()
     hl = set(highlight or [])
-    colour = [("#e69f00" if c in hl else series_colours(1)[0]) for c in cats]
+    base = series_colours(1)[0]
+    colour = np.where(np.isin(np.asarray(cats, dtype=object), list(hl)), "#e69f00", base).tolist() if cats else []
     fig = go.Figure(go.Scatter(
         x=est, y=cats, mode="markers", name="estimate",
         error_x=dict(type="data", array=np.nan_to_num(hi - est), arrayminus=np.nan_to_num(est - lo), thickness=1.5),

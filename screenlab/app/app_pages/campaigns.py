@@ -49,8 +49,7 @@ if widgets.need_campaign(ctx):
         st.page_link("app_pages/quality.py", label="Plate quality details", icon=":material/verified:")
 
     st.subheader("Flags")
-    counts = _common.flag_counts({"well": kin.wells["flags"], "group": kin.rates["flags"],
-                                  "plate": a.quality["flags"], "Arrhenius fit": kin.arrhenius["flags"]})
+    counts = cache.flag_counts(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key)
     if counts.empty:
         st.success("No flags raised.")
     else:

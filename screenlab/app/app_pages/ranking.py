@@ -1,12 +1,16 @@
 """Ranking: estimate and interval per candidate, rank intervals, P(top K), and the Pareto view."""
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import streamlit as st
 
 from screenlab.app import cache, widgets
 from screenlab.app.app_pages import _common
 from screenlab.viz import figures
+
+#: a chart row per candidate: beyond a few dozen the charts are unreadable and slow in the browser
+CHART_ROWS_MIN, CHART_ROWS_DEFAULT = 10, 40
 
 ctx = widgets.context()
 st.title("Ranking")
@@ -40,19 +44,30 @@ st.caption(f"Intervals at {ctx.settings.confidence * 100:g} %; the benchmark in 
 if ranked.empty:
     st.info("No candidate can be ranked on this metric.")
 else:
+    n_ranked = len(ranked)
+    n_show = n_ranked
+    if n_ranked > CHART_ROWS_MIN:
+        n_show = int(st.number_input(
+            "Candidates in the charts", min_value=CHART_ROWS_MIN, max_value=n_ranked,
+            value=min(CHART_ROWS_DEFAULT, n_ranked), step=10, key="rank_chart_rows",
+            help=f"The best N of {n_ranked} ranked candidates (the benchmark always); the table below has all."))
+    by_rank = ranked.sort_values("rank", kind="stable")
+    shown = by_rank[(np.arange(n_ranked) < n_show) | (by_rank["role"].astype(str) == "reference").to_numpy()]
+    if n_show < n_ranked:
+        st.caption(f"Charts: the best {n_show} of {n_ranked} ranked candidates, and the benchmark.")
     left, right = st.columns([3, 2])
     with left:
-        widgets.chart(figures.forest_plot(ranked, label=label, log_x=metrics[metric]["log"],
+        widgets.chart(figures.forest_plot(shown, label=label, log_x=metrics[metric]["log"],
                                           title=f"{metrics[metric]['label']}",
-                                          highlight=ranked.loc[ranked["role"].astype(str) == "reference",
-                                                               "catalyst"].astype(str).tolist()),
+                                          highlight=shown.loc[shown["role"].astype(str) == "reference",
+                                                              "catalyst"].astype(str).tolist()),
                       key="rank_forest", filename=f"forest-{metric}")
     with right:
         tab1, tab2 = st.tabs(["Rank intervals", f"P(top {k})"])
         with tab1:
-            widgets.chart(figures.rank_intervals(ranked), key="rank_intervals", filename=f"rank-intervals-{metric}")
+            widgets.chart(figures.rank_intervals(shown), key="rank_intervals", filename=f"rank-intervals-{metric}")
         with tab2:
-            widgets.chart(figures.p_top_bars(ranked, k=k), key="rank_ptop", filename=f"p-top-{metric}")
+            widgets.chart(figures.p_top_bars(shown, k=k), key="rank_ptop", filename=f"p-top-{metric}")
 st.subheader("Table")
 col = metrics[metric]["column"]
 lo, hi = (col.replace(metric, f"{metric}_ci_{side}", 1) for side in ("low", "high"))

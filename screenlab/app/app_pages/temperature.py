@@ -26,8 +26,9 @@ if fitted.empty:
     st.stop()
 
 order = fitted.sort_values("tof_ref_per_h", ascending=False, na_position="last")["catalyst"].astype(str).tolist()
-default = [c for c in order if c in set(arr.loc[arr["role"].astype(str) == "reference", "catalyst"].astype(str))][:1]
-default += [c for c in order if c not in default][: max(0, 4 - len(default))]
+refs = set(arr.loc[arr["role"].astype(str) == "reference", "catalyst"].astype(str))
+default = [c for c in order if c in refs][:1]
+default += [c for c in order[:8] if c not in default][: max(0, 4 - len(default))]
 c1, c2 = st.columns([4, 1])
 chosen = c1.multiselect("Catalysts", order, default=default, key="arrh_catalysts",
                         help="Sorted by fitted TOF at the reference temperature, highest first.")
