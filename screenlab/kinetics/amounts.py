@@ -76,10 +76,20 @@ def well_index(plate: pd.Series, well: pd.Series, key_plate: pd.Series, key_well
     if n > 1:
         start[1:] = _change_points(plate) | _change_points(well)
     first = np.flatnonzero(start)
-    keys = pd.MultiIndex.from_arrays([pd.Series(key_plate).astype(str).to_numpy(dtype=object),
-                                      pd.Series(key_well).astype(str).to_numpy(dtype=object)])
-    runs = pd.MultiIndex.from_arrays([pd.Series(plate).iloc[first].astype(str).to_numpy(dtype=object),
-                                      pd.Series(well).iloc[first].astype(str).to_numpy(dtype=object)])
+    k = len(key_plate)
+
+    def text(v, take=None):
+        v = pd.Series(v, copy=False).reset_index(drop=True)
+        if take is not None:
+            v = v.iloc[take].reset_index(drop=True)
+        return v if pd.api.types.is_string_dtype(v.dtype) and v.dtype != object else v.astype(str)
+
+    # one integer per (plate, well): factorise keys and run starts together (Arrow-fast), then match ints
+    cp, _ = pd.factorize(pd.concat([text(key_plate), text(plate, first)], ignore_index=True), use_na_sentinel=False)
+    cw, uw = pd.factorize(pd.concat([text(key_well), text(well, first)], ignore_index=True), use_na_sentinel=False)
+    combined = cp.astype(np.int64) * (len(uw) + 1) + cw
+    keys = pd.Index(combined[:k])
+    runs = combined[k:]
     if not keys.is_unique:
         keep = ~keys.duplicated()
         pos = np.flatnonzero(keep)

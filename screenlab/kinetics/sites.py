@@ -19,7 +19,6 @@ build their ``;``-joined flag columns.
 """
 from __future__ import annotations
 
-import re
 from collections.abc import Mapping
 
 import numpy as np
@@ -37,8 +36,47 @@ FLAGS: dict[str, str] = {
 }
 
 
-def _code_pattern(code: str) -> str:
-    return r"(?:^|;)" + re.escape(code) + r"(?:;|$)"
+class FlagIndex:
+    """A ``;``-joined flag column factorised once: each distinct string is parsed once, rows keep a code.
+
+    A flag column holds few distinct strings (combinations of a few codes), so the work below loops
+    over distinct strings, never over rows. ``has(code)``: which rows carry ``code`` as a whole
+    ``;``-separated token. ``join(masks)``: each row's flags with the codes whose mask is true
+    appended in order, codes already present not repeated.
+    """
+
+    def __init__(self, flags, n: int | None = None):
+        if flags is None:
+            vals = np.full(int(n or 0), "", dtype=object)
+        else:
+            s = pd.Series(flags, copy=False).astype(object)
+            vals = s.where(s.notna(), "").to_numpy(dtype=object)
+        codes, uniques = pd.factorize(vals)
+        self.codes = np.asarray(codes, dtype=np.int64)
+        self.uniques = [str(u) for u in uniques]
+        self._tokens = [set(u.split(";")) for u in self.uniques]
+
+    def has(self, code: str) -> np.ndarray:
+        present = np.array([code in tk for tk in self._tokens], dtype=bool)
+        return present[self.codes] if len(self.codes) else np.zeros(0, bool)
+
+    def join(self, masks: Mapping[str, np.ndarray]) -> np.ndarray:
+        """Object array of str (see the class docstring)."""
+        items = [(c, np.asarray(m, dtype=bool)) for c, m in masks.items()]
+        n = len(self.codes)
+        if not n:
+            return np.zeros(0, dtype=object)
+        bits = np.zeros(n, dtype=np.int64)
+        for i, (code, mask) in enumerate(items):          # a loop over a few codes
+            bits |= (mask & ~self.has(code)).astype(np.int64) << i
+        combo = self.codes * (1 << len(items)) + bits
+        cc, cu = pd.factorize(combo)
+        text = np.empty(len(cu), dtype=object)
+        for j, c in enumerate(cu):                         # a loop over distinct flag combinations
+            base, b = self.uniques[int(c) >> len(items)], int(c) & ((1 << len(items)) - 1)
+            added = [code for i, (code, _) in enumerate(items) if b >> i & 1]
+            text[j] = ";".join([base, *added]) if base else ";".join(added)
+        return text[cc]
 
 
 def join_flags(existing, masks: Mapping[str, np.ndarray], index=None) -> pd.Series:
@@ -50,29 +88,17 @@ def join_flags(existing, masks: Mapping[str, np.ndarray], index=None) -> pd.Seri
     """
     if existing is None:
         n = len(next(iter(masks.values()))) if masks else len(index)
-        cur = pd.Series([""] * n, index=index, dtype=object)
+        fi = FlagIndex(None, n=n)
     else:
-        cur = pd.Series(existing, copy=True).astype(object)
-        cur = cur.where(cur.notna(), "").astype(str).astype(object)
-        if index is not None:
-            cur.index = index
-    for code, mask in masks.items():
-        mask = np.asarray(mask, dtype=bool)
-        if not mask.any():
-            continue
-        present = cur.str.contains(_code_pattern(code), regex=True).to_numpy(dtype=bool)
-        add = mask & ~present
-        vals = cur.to_numpy(dtype=object)
-        sep = np.where(vals == "", "", ";").astype(object)
-        cur = pd.Series(np.where(add, vals + sep + code, vals), index=cur.index, dtype=object)
-    return cur
+        fi = FlagIndex(existing)
+        if index is None:
+            index = pd.Series(existing, copy=False).index
+    return pd.Series(fi.join(masks), index=index, dtype=object)
 
 
 def has_flag(flags, code: str) -> np.ndarray:
     """Boolean array: which rows of a ``;``-joined flag column carry ``code``."""
-    s = pd.Series(flags, copy=False).astype(object)
-    s = s.where(s.notna(), "").astype(str)
-    return s.str.contains(_code_pattern(code), regex=True).to_numpy(dtype=bool)
+    return FlagIndex(flags).has(code)
 
 
 def _num(frame: pd.DataFrame, col: str, default: float = np.nan) -> np.ndarray:
@@ -95,27 +121,39 @@ def active_sites(wells: pd.DataFrame, catalysts: pd.DataFrame) -> pd.DataFrame:
     cat_cols = ["catalyst", "molar_mass_g_mol", "sites_per_unit", "metal_wt_pct", "metal_molar_mass_g_mol",
                 "dispersion"]
     cats = catalysts.reindex(columns=cat_cols).drop_duplicates("catalyst")
-    cat_key = wells["catalyst"].astype(object).where(wells["catalyst"].notna(), None) if "catalyst" in wells else \
-        pd.Series([None] * n, index=idx, dtype=object)
-    has_cat = cat_key.notna().to_numpy()
-    looked = pd.DataFrame({"catalyst": cat_key.to_numpy(dtype=object)}).merge(
-        cats.astype({"catalyst": object}), on="catalyst", how="left", validate="many_to_one")
-    known = has_cat & looked["catalyst"].isin(cats["catalyst"].astype(object)).to_numpy()
+    # distinct catalyst names once (Arrow-fast), then one lookup per name
+    cat_codes, cat_names = (pd.factorize(wells["catalyst"]) if "catalyst" in wells
+                            else (np.full(n, -1, dtype=np.int64), pd.Index([], dtype=object)))
+    cat_codes = np.asarray(cat_codes, dtype=np.int64)
+    has_cat = cat_codes >= 0
+    # catalyst row per well by one index lookup over the distinct names (no merge)
+    names = cats["catalyst"].astype(object).to_numpy(dtype=object)
+    named = pd.notna(names)
+    name_pos = pd.Index(names[named]).get_indexer(pd.Index(np.asarray(cat_names, dtype=object)))
+    pos = np.where(has_cat, np.append(name_pos, -1)[cat_codes], -1)
+    known = pos >= 0
+    row = np.flatnonzero(named)[np.maximum(pos, 0)] if named.any() else np.zeros(n, dtype=np.int64)
 
-    mm = _num(looked, "molar_mass_g_mol")
-    spu = _num(looked, "sites_per_unit")
+    def per_well(col: str) -> np.ndarray:
+        v = _num(cats, col)
+        return np.where(known, v[row], np.nan) if v.size else np.full(n, np.nan)
+
+    mm = per_well("molar_mass_g_mol")
+    spu = per_well("sites_per_unit")
     spu = np.where(np.isfinite(spu), spu, 1.0)
-    wt = _num(looked, "metal_wt_pct")
-    metal_mm = _num(looked, "metal_molar_mass_g_mol")
-    disp = _num(looked, "dispersion")
+    wt = per_well("metal_wt_pct")
+    metal_mm = per_well("metal_molar_mass_g_mol")
+    disp = per_well("dispersion")
     disp = np.where(np.isfinite(disp), disp, 1.0)
 
     loading = _num(wells, "loading")
     unit_raw = wells["loading_unit"] if "loading_unit" in wells else pd.Series([None] * n, index=idx)
-    words = unit_raw.astype(object).where(unit_raw.notna(), "").astype(str)
-    words = words.str.strip().str.lower().str.replace("µ", "u").str.replace("μ", "u").str.replace(" ", "")
-    lookup = {w: units.normalise_loading_unit(w) for w in pd.unique(words) if w}  # distinct words, not rows
-    unit = words.map({k: (v or "") for k, v in lookup.items()}).fillna("").to_numpy(dtype=object)
+    u_codes, u_words = pd.factorize(unit_raw)
+    normal = []
+    for w in u_words:                                  # distinct words, not rows
+        w = str(w).strip().lower().replace("µ", "u").replace("μ", "u").replace(" ", "")
+        normal.append((units.normalise_loading_unit(w) or "") if w else "")
+    unit = np.array(normal + [""], dtype=object)[np.asarray(u_codes, dtype=np.int64)]
     conc = _num(wells, "substrate_conc_mM")
     vol = _num(wells, "volume_uL")
 
