@@ -15,9 +15,11 @@ Python loop over wells. Points with a non-finite coordinate are ignored.
     ``b1(k) = sum(y f) / sum(f^2)`` with ``f = 1 - exp(-k t)``, so the residual sum of squares is
     a function of k alone. It is minimised over log k by a coarse grid spanning the whole
     data-driven range (see :func:`screenlab.kinetics.models.search_bounds_k`; no user start
-    value is needed, a given one is only one more candidate), golden-section refinement
-    between the neighbours of the best grid point, then a few Gauss-Newton steps on (b1, k)
-    that are kept only when they lower the RSS. Standard errors come from the Jacobian
+    value is needed, a given one is only one more candidate; 12 points, about a factor 3 in k
+    apart over the usual range), a short golden-section refinement between the neighbours of
+    the best grid point (to about 10 % in k), then Gauss-Newton steps on (b1, k) that are kept
+    only when they lower the RSS, until every group's relative step is below 1e-9. The
+    exponentials are the cost, so the bracket stages are kept short and Newton does the rest. Standard errors come from the Jacobian
     ``J = [f, b1 t exp(-k t)]``: ``cov = s^2 (J^T J)^-1`` with ``s^2 = RSS / (n - 2)``.
     The plateau may be fixed per group (one-parameter fit in k, ``s^2 = RSS / (n - 1)``).
     Doubtful fits are not hidden: ``status`` says whether k ended at an end of the searched
@@ -171,8 +173,8 @@ class FirstOrderFit:
 
 
 def fit_first_order(t, y, group, n_groups: int | None = None, *, plateau=None, k_start=None,
-                    k_bounds=None, n_grid: int = 24, n_golden: int = 14,
-                    n_polish: int = 8) -> FirstOrderFit:
+                    k_bounds=None, n_grid: int = 12, n_golden: int = 6,
+                    n_polish: int = 12) -> FirstOrderFit:
     """Fit ``y = b1 (1 - exp(-k t))`` in every group; see the module docstring for the method.
 
     plateau
