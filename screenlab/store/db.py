@@ -42,6 +42,7 @@ from typing import Any, Iterable
 import duckdb
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from screenlab.errors import NotFoundError, Problem, ScreenlabError, StoreBusyError, ValidationError
 from screenlab.model import DEFAULT_ANALYTE, CampaignData, Manifest
@@ -900,11 +901,14 @@ class Store:
 
 
 def _bulk_insert(con, table: str, frame: pd.DataFrame) -> None:
-    """INSERT ... SELECT from a registered DataFrame (one statement per table, never row by row)."""
+    """INSERT ... SELECT from the frame as one Arrow table (one statement per table, never row by row).
+
+    Converting to Arrow first lets DuckDB scan the columns zero-copy; scanning pandas text columns
+    directly costs several times more at campaign scale."""
     if frame.empty:
         return
     view = f"incoming_{table}"
-    con.register(view, frame)
+    con.register(view, pa.Table.from_pandas(frame, preserve_index=False))
     try:
         con.execute(Q.BULK_INSERT[table])
     finally:
