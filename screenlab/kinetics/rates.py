@@ -106,8 +106,10 @@ def _first_index(g: np.ndarray, mask: np.ndarray, n_groups: int) -> np.ndarray:
     out = np.full(n_groups, -1, dtype=np.int64)
     idx = np.flatnonzero(mask)
     if idx.size:
-        gg, first = np.unique(g[idx], return_index=True)
-        out[gg] = idx[first]
+        gi = g[idx]                                       # g is sorted: first of each run
+        new = np.ones(gi.size, dtype=bool)
+        new[1:] = gi[1:] != gi[:-1]
+        out[gi[new]] = idx[new]
     return out
 
 
@@ -149,8 +151,12 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         fr = (amounts["baseline"].astype("string") == "first_reading").fillna(False).to_numpy(dtype=bool)
         first_reading_base[code[fr & (code >= 0)]] = True
     code, t, prod = code[use], t_all[use], p_all[use]
-    order = np.lexsort((t, code))
-    g, t, prod = code[order], t[order], prod[order]
+    # readings arrive sorted by well and time (CampaignData contract): sort only when they are not
+    # (np.lexsort is stable, so skipping it on sorted input changes nothing)
+    if code.size > 1 and not np.all((code[1:] > code[:-1]) | ((code[1:] == code[:-1]) & (t[1:] >= t[:-1]))):
+        order = np.lexsort((t, code))
+        code, t, prod = code[order], t[order], prod[order]
+    g = code
     conv = prod / theo[g] * 100.0
 
     n_points = np.bincount(g, minlength=G)
