@@ -427,27 +427,38 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
     notes = extra_columns_note(ch, READING_COLUMNS)
     ch.require_columns(["plate", "well", "time", "value"])
     n = len(f)
+    # plates and wells as integer codes over their distinct texts: checks, the layout lookup, the
+    # duplicate test and the final sort work on the codes, never on per-row strings
     pid = ch.text("plate")
-    known_plate = pid.isin(list(plates["plate"])).to_numpy()
+    p_codes, p_uniq = pd.factorize(pid)
+    p_uniq = pd.Index(p_uniq)
+    known_plate = p_uniq.isin(list(plates["plate"]))[p_codes] if n else np.zeros(0, dtype=bool)
     if "plate" in f.columns:
-        ch.report((pid == "").to_numpy(), "plate", "a plate id is required")
+        p_blank = (p_uniq == "")[p_codes] if n else np.zeros(0, dtype=bool)
+        ch.report(p_blank, "plate", "a plate id is required")
         if check_plate_ids:
-            ch.report((pid != "").to_numpy() & ~known_plate, "plate", "unknown plate (not in plates.csv)")
-    parsed = parse_wells_fast(ch.text("well"))
-    well = parsed["well"].astype("str")
-    well_ok = parsed["well"].notna().to_numpy()
+            ch.report(~p_blank & ~known_plate, "plate", "unknown plate (not in plates.csv)")
+    w_codes, w_uniq = pd.factorize(ch.text("well").fillna(""))
+    w_name = platelib.parse_wells(np.asarray(w_uniq, dtype=object))["well"].astype("str")
+    c_of_w, c_uniq = pd.factorize(w_name, use_na_sentinel=True)  # distinct raw name -> canonical name code
+    c_codes = c_of_w[w_codes] if n else np.zeros(0, dtype=np.intp)  # per row; -1: not a well name
+    well_ok = c_codes >= 0
+    well = pd.Series(pd.array(w_name, dtype="str").take(w_codes), copy=False)
     if "well" in f.columns:
         ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
-    sep = "\x1f"
-    lay_keys = pd.Index(wells["plate"].astype("str") + sep + wells["well"].astype("str")).drop_duplicates()
-    lay_roles = wells.assign(_k=wells["plate"].astype("str") + sep + wells["well"].astype("str")) \
-        .drop_duplicates("_k").set_index("_k")["role"].reindex(lay_keys).to_numpy(dtype=object)
-    pos = lay_keys.get_indexer(pid + sep + well.fillna(""))
-    in_layout = pos >= 0
+    # layout (plate, well) -> role of its first row, as one int64 key per layout row and per reading
+    n_c = max(len(c_uniq), 1)
+    lay_p = p_uniq.get_indexer(wells["plate"].astype("str"))
+    lay_c = pd.Index(c_uniq).get_indexer(wells["well"].astype("str"))
+    lay_ok = (lay_p >= 0) & (lay_c >= 0)
+    lay_key, first = np.unique(lay_p[lay_ok].astype(np.int64) * n_c + lay_c[lay_ok], return_index=True)
+    lay_empty = wells["role"].to_numpy(dtype=object)[np.flatnonzero(lay_ok)[first]] == "empty"
+    row_key = p_codes.astype(np.int64) * n_c + c_codes
+    pos = np.clip(np.searchsorted(lay_key, row_key), 0, max(len(lay_key) - 1, 0))
+    in_layout = well_ok & (lay_key[pos] == row_key) if len(lay_key) else np.zeros(n, dtype=bool)
     check_place = known_plate & well_ok & check_wells
     ch.report(check_place & ~in_layout, "well", "reading for a well that is not in layout.csv")
-    roles = np.where(in_layout, lay_roles[np.clip(pos, 0, None)] if len(lay_roles) else None, None)
-    on_empty = in_layout & (roles == "empty")
+    on_empty = in_layout & lay_empty[pos] if len(lay_key) else np.zeros(n, dtype=bool)
     ch.report(on_empty, "well", "reading on a well marked empty in layout.csv")
     # time
     t = np.full(n, np.nan)
@@ -510,17 +521,28 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
     elif declared:
         ch.whole("analyte", "campaign.toml declares [analytes], so readings.csv needs an analyte column")
     analyte = an if "analyte" in f.columns else pd.Series([DEFAULT_ANALYTE] * n, dtype="str")
+    a_codes, a_uniq = pd.factorize(analyte)
     # duplicates
-    ch.duplicated([pid, well, analyte, pd.Series(t)], tok & well_ok & (pid != "").to_numpy(), "time",
+    p_filled = (p_uniq != "")[p_codes] if n else np.zeros(0, dtype=bool)
+    ch.duplicated([p_codes, c_codes, a_codes, t], tok & well_ok & p_filled, "time",
                   "duplicate reading for the same plate, well, analyte and time")
     tf = info.get("time_factor")
+    time_h = t * (tf if tf is not None else np.nan)
+    # sort by plate, well, analyte, time_h (text in code-point order, missing last; stable), as
+    # DataFrame.sort_values would, from the ranks of the distinct texts
+    def rank(uniq) -> np.ndarray:
+        r = np.full(len(uniq) + 1, len(uniq), dtype=np.int64)  # last slot: missing (code -1)
+        present = np.flatnonzero(pd.notna(np.asarray(uniq, dtype=object)))
+        order = present[np.argsort(np.asarray(uniq, dtype=object)[present], kind="stable")]
+        r[order] = np.arange(len(order))
+        return r
+    order = np.lexsort((time_h, rank(a_uniq)[a_codes], rank(c_uniq)[c_codes], rank(p_uniq)[p_codes])) \
+        if n else np.zeros(0, dtype=np.intp)
     out = pd.DataFrame({
-        "plate": pid.astype("str").to_numpy(),
-        "well": well.to_numpy(),
-        "analyte": analyte.astype("str").to_numpy(),
-        "time_h": t * (tf if tf is not None else np.nan),
-        "value": v,
+        "plate": pd.array(pid.array, dtype="str").take(order),
+        "well": well.array.take(order),
+        "analyte": pd.array(analyte.array, dtype="str").take(order),
+        "time_h": time_h[order],
+        "value": v[order],
     })
-    out = out.astype({"plate": "str", "well": "str", "analyte": "str"})
-    out = out.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
     return out, notes
