@@ -286,11 +286,13 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
 
 
 #: elements per chunk of draws (draws x candidates); bounds the memory of every Monte Carlo step
-CHUNK_CELLS = 1 << 20
+CHUNK_CELLS = 1 << 21
 #: cells of the banded rank histograms (candidates x window) used for the rank intervals
-WINDOW_CELLS = 1 << 21
+WINDOW_CELLS = 1 << 23
 #: ranks kept in memory at once when a rank quantile falls outside its window (draws x candidates)
-FALLBACK_CELLS = 1 << 23
+FALLBACK_CELLS = 1 << 24
+#: draws whose ranks place the rank-histogram windows (kept in memory up to FALLBACK_CELLS ranks)
+PILOT_DRAWS = 1000
 #: names listed in ``dominated_by`` at most (``dominated_by_count`` has the full number)
 MAX_DOMINATORS = 10
 
@@ -355,8 +357,9 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
       over the draws, the same order statistics as ``np.quantile(ranks, q, axis=0,
       method="inverted_cdf")`` on the full draws x k rank matrix. They come from a banded rank
       histogram per candidate (a window of ranks placed around the quantile seen in the first
-      chunk); a candidate whose quantile falls outside its window is resolved exactly by drawing
-      the chunks again (each chunk has its own seed) and keeping only that candidate's ranks.
+      :data:`PILOT_DRAWS` draws); a candidate whose quantile falls outside its window is resolved
+      exactly by drawing the chunks again (each chunk has its own seed) and keeping only that
+      candidate's ranks.
 
     Columns are handled in point-estimate order (best first). Same ``seed`` -> same output.
     """
@@ -378,7 +381,36 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     cols = np.arange(k)
     start = hist = base = wid = lo_idx = hi_idx = key0 = None
 
-    for n, (d, ss) in enumerate(chunks):
+    pilot_rows = min(draws, max(PILOT_DRAWS, 1), max(1, FALLBACK_CELLS // k))
+    pilot, n_pilot = [], 0                           # the first chunks' ranks place the windows
+
+    def place_windows(ranks):
+        nonlocal start, hist, base, wid, lo_idx, hi_idx, key0
+        start, hist, base, wid, lo_idx, hi_idx, key0 = {}, {}, {}, {}, {}, {}, {}
+        spread = 4 * np.sqrt(alpha * (1 - alpha) / len(ranks))
+        for side, q in (("low", alpha), ("high", 1 - alpha)):
+            lo_q, hi_q = np.quantile(ranks, [max(0.0, q - spread), min(1.0, q + spread)], axis=0,
+                                     method="inverted_cdf").astype(np.int64)
+            margin = 8 + (hi_q - lo_q) // 4
+            first = np.clip(lo_q - margin, 1, k)
+            w = np.minimum(hi_q + margin, k) - first + 1
+            if w.sum() > WINDOW_CELLS:                   # keep the histograms bounded; misses go to the fallback
+                w = np.maximum(1, (w * (WINDOW_CELLS / w.sum())).astype(np.int64))
+            start[side], wid[side] = first, w
+            # cells per candidate: [below the window, w window ranks, above the window]
+            base[side] = np.concatenate([[0], np.cumsum(w + 2)[:-1]])
+            hist[side] = np.zeros(int((w + 2).sum()), np.int64)
+            lo_idx[side] = (start[side] - 1).astype(ranks.dtype)
+            hi_idx[side] = (start[side] + w).astype(ranks.dtype)
+            key0[side] = (base[side] + 1 - start[side]).astype(ranks.dtype)
+
+    def count(ranks):
+        for side in ("low", "high"):
+            key = np.clip(ranks, lo_idx[side], hi_idx[side])
+            key += key0[side]
+            hist[side] += np.bincount(key.ravel(), minlength=hist[side].size)
+
+    for d, ss in chunks:
         score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
         order = np.argsort(-score, axis=1)            # ties between continuous draws have probability 0
         ranks = _ranks_from_order(order)
@@ -386,29 +418,19 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         best += np.bincount(order[:, 0], minlength=k)
         if ref_pos is not None:
             beats += np.count_nonzero(score > score[:, [ref_pos]], axis=0)
-        if n == 0:                                   # place each window around the first chunk's quantiles
-            start, hist, base, wid, lo_idx, hi_idx, key0 = {}, {}, {}, {}, {}, {}, {}
-            spread = 4 * np.sqrt(alpha * (1 - alpha) / d)
-            for side, q in (("low", alpha), ("high", 1 - alpha)):
-                lo_q, hi_q = np.quantile(ranks, [max(0.0, q - spread), min(1.0, q + spread)], axis=0,
-                                         method="inverted_cdf").astype(np.int64)
-                margin = 8 + (hi_q - lo_q) // 4
-                first = np.clip(lo_q - margin, 1, k)
-                w = np.minimum(hi_q + margin, k) - first + 1
-                if w.sum() > WINDOW_CELLS:               # keep the histograms bounded; misses go to the fallback
-                    w = np.maximum(1, (w * (WINDOW_CELLS / w.sum())).astype(np.int64))
-                start[side], wid[side] = first, w
-                # cells per candidate: [below the window, w window ranks, above the window]
-                base[side] = np.concatenate([[0], np.cumsum(w + 2)[:-1]])
-                hist[side] = np.zeros(int((w + 2).sum()), np.int64)
-                lo_idx[side] = (start[side] - 1).astype(ranks.dtype)
-                hi_idx[side] = (start[side] + w).astype(ranks.dtype)
-                key0[side] = (base[side] + 1 - start[side]).astype(ranks.dtype)
-        for side in ("low", "high"):
-            key = np.clip(ranks, lo_idx[side], hi_idx[side])
-            key += key0[side]
-            hist[side] += np.bincount(key.ravel(), minlength=hist[side].size)
-        del score, order, ranks
+        del score, order
+        if start is None:
+            pilot.append(ranks)
+            n_pilot += d
+            if n_pilot >= pilot_rows:
+                kept = np.concatenate(pilot)
+                place_windows(kept)
+                count(kept)
+                del kept
+                pilot = []
+        else:
+            count(ranks)
+        del ranks
 
     unresolved = np.zeros(k, bool)
     for side in ("low", "high"):
