@@ -185,9 +185,13 @@ def test_kill_9_during_a_large_import_leaves_a_clean_store(tmp_path, big, when, 
             time.sleep(0.001)
         time.sleep(delay)
     else:
-        time.sleep(random.Random(os.getpid()).uniform(0.2, 3.0))
-    finished_first = proc.poll() is not None
-    os.kill(proc.pid, signal.SIGKILL)
+        time.sleep(random.Random(os.getpid()).uniform(0.05, 1.5))
+    finished_first = proc.poll() is not None   # poll() reaps a finished child: kill only a live one
+    if not finished_first:
+        try:
+            os.kill(proc.pid, signal.SIGKILL)
+        except ProcessLookupError:            # ended between poll() and kill()
+            finished_first = True
     proc.communicate(timeout=60)
 
     store = Store(db)  # opens cleanly (the WAL, if any, is replayed or discarded)
