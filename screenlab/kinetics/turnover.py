@@ -37,7 +37,7 @@ from scipy import stats
 from screenlab import units
 from screenlab.kinetics import selectivity as _selectivity
 from screenlab.kinetics import sites as _sites
-from screenlab.kinetics.sites import join_flags
+from screenlab.kinetics.sites import FlagIndex, join_flags
 from screenlab.settings import AnalysisSettings
 
 #: flag codes set here (code -> one plain sentence); the site codes of screenlab.kinetics.sites included
@@ -122,50 +122,9 @@ def _role(frame: pd.DataFrame) -> np.ndarray:
     return frame["role"].astype(object).where(frame["role"].notna(), "").astype(str).to_numpy(dtype=object)
 
 
-class _FlagIndex:
-    """A ``;``-joined flag column factorised once: each distinct string is parsed once, rows keep a code.
+# the flag column parsed once per distinct string (shared with sites.py)
+_FlagIndex = FlagIndex
 
-    A flag column holds few distinct strings (combinations of a few codes), so the tests below
-    loop over distinct strings, never over rows. ``has(code)`` equals
-    :func:`screenlab.kinetics.sites.has_flag`; ``join(masks)`` equals
-    :func:`screenlab.kinetics.sites.join_flags` (codes already present are not repeated).
-    """
-
-    def __init__(self, flags, n: int | None = None):
-        if flags is None:
-            vals = np.full(int(n or 0), "", dtype=object)
-        else:
-            s = pd.Series(flags, copy=False).astype(object)
-            vals = s.where(s.notna(), "").to_numpy(dtype=object)
-        codes, uniques = pd.factorize(vals)
-        self.codes = codes
-        self.uniques = [str(u) for u in uniques]
-        self._tokens = [set(u.split(";")) for u in self.uniques]
-
-    def has(self, code: str) -> np.ndarray:
-        present = np.array([code in tk for tk in self._tokens], dtype=bool)
-        return present[self.codes] if len(self.codes) else np.zeros(0, bool)
-
-    def join(self, masks) -> np.ndarray:
-        """Object array of str: each row's flags with the codes whose mask is true appended, in order."""
-        items = [(c, np.asarray(m, dtype=bool)) for c, m in masks.items()]
-        n = len(self.codes)
-        if not n:
-            return np.zeros(0, dtype=object)
-        bits = np.zeros(n, dtype=np.int64)
-        for i, (code, mask) in enumerate(items):          # a loop over a few codes
-            bits |= (mask & ~self.has(code)).astype(np.int64) << i
-        combo = self.codes.astype(np.int64) * (1 << len(items)) + bits
-        cc, cu = pd.factorize(combo)
-        text = np.empty(len(cu), dtype=object)
-        for j, c in enumerate(cu):                         # a loop over distinct flag combinations
-            base, b = self.uniques[int(c) >> len(items)], int(c) & ((1 << len(items)) - 1)
-            added = [code for i, (code, _) in enumerate(items) if b >> i & 1]
-            text[j] = ";".join([base, *added]) if base else ";".join(added)
-        return text[cc]
-
-
-# --------------------------------------------------------------------------------------------- blanks
 
 def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -> pd.DataFrame:
     """One row per plate x temperature that has any non-empty well.
