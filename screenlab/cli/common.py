@@ -79,3 +79,29 @@ def _aligned(frame) -> str:
             formatters[col] = (lambda w: lambda x: f"{'' if x is None or x is pd.NA or (isinstance(x, float) and x != x) else x!s:<{w}}")(width)
     return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", formatters=formatters,
                            justify="left")
+
+
+def load_stored_campaign(store_arg: str | None, campaign: str, *, history: bool = False):
+    """The campaign's data from the store (and, with ``history``, its import records and file hashes).
+
+    Raises UsageError for a missing store file and NotFoundError (listing what is stored) for an
+    unknown campaign. Returns ``(data, imports, files)``; the last two are None without ``history``.
+    """
+    from screenlab.errors import NotFoundError, UsageError
+    from screenlab.store import Store
+
+    path = resolve_store_path(store_arg)
+    if not Path(path).exists():
+        raise UsageError(f"store {path} does not exist; import a campaign first with 'screenlab ingest PATH'")
+    store = Store(path, read_only=True)
+    try:
+        names = store.campaign_names()
+        if campaign not in names:
+            known = ", ".join(names) if names else "none"
+            raise NotFoundError(f"campaign {campaign!r} is not in {path} (stored: {known})")
+        data = store.load_campaign(campaign)
+        imports = store.imports(campaign) if history else None
+        files = store.import_files(campaign) if history else None
+    finally:
+        store.close()
+    return data, imports, files

@@ -9,9 +9,8 @@ Settings come from the campaign's [analysis] table, overridden by the flags give
 """
 from __future__ import annotations
 
-from pathlib import Path
 
-from screenlab.cli.common import add_format_option, add_store_option, emit, resolve_store_path
+from screenlab.cli.common import add_format_option, add_store_option, emit
 
 RATES_COLUMNS = ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", "n_wells",
                  "rate_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton", "enhancement",
@@ -74,23 +73,11 @@ def _check(args) -> None:
 
 
 def _kinetics(args):
-    from screenlab.errors import NotFoundError, UsageError
+    from screenlab.cli.common import load_stored_campaign
     from screenlab.pipeline import settings_for
-    from screenlab.store import Store
 
     _check(args)
-    path = resolve_store_path(args.store)
-    if not Path(path).exists():
-        raise UsageError(f"store {path} does not exist; import a campaign first with 'screenlab ingest PATH'")
-    store = Store(path, read_only=True)
-    try:
-        names = store.campaign_names()
-        if args.campaign not in names:
-            known = ", ".join(names) if names else "none"
-            raise NotFoundError(f"campaign {args.campaign!r} is not in {path} (stored: {known})")
-        data = store.load_campaign(args.campaign)
-    finally:
-        store.close()
+    data, _, _ = load_stored_campaign(args.store, args.campaign)
     from screenlab.kinetics import analyse_kinetics
 
     settings = settings_for(data, conversion_window_pct=args.window, confidence=args.confidence,

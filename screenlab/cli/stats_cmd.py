@@ -11,7 +11,7 @@ import math
 import sys
 from pathlib import Path
 
-from screenlab.cli.common import add_format_option, add_store_option, emit, resolve_store_path
+from screenlab.cli.common import add_format_option, add_store_option, emit
 
 QUALITY_COLUMNS = ["plate", "temperature_c", "n_sample", "n_reference", "n_blank", "zprime",
                    "replicate_cv_median_pct", "reference_cv_pct", "blank_ratio", "blank_z", "edge_basis", "edge_p",
@@ -90,25 +90,11 @@ def _check(args) -> None:
 
 def _load(args, *, history: bool = False):
     """Load and analyse the campaign; with ``history`` also its import records and file hashes."""
-    from screenlab.errors import NotFoundError, UsageError
+    from screenlab.cli.common import load_stored_campaign
     from screenlab.pipeline import analyse
-    from screenlab.store import Store
 
     _check(args)
-    path = resolve_store_path(args.store)
-    if not Path(path).exists():
-        raise UsageError(f"store {path} does not exist; import a campaign first with 'screenlab ingest PATH'")
-    store = Store(path, read_only=True)
-    try:
-        names = store.campaign_names()
-        if args.campaign not in names:
-            known = ", ".join(names) if names else "none"
-            raise NotFoundError(f"campaign {args.campaign!r} is not in {path} (stored: {known})")
-        data = store.load_campaign(args.campaign)
-        imports = store.imports(args.campaign) if history else None
-        files = store.import_files(args.campaign) if history else None
-    finally:
-        store.close()
+    data, imports, files = load_stored_campaign(args.store, args.campaign, history=history)
     return analyse(data), imports, files
 
 
