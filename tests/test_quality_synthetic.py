@@ -7,12 +7,12 @@ before and independently of the kinetics package.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 import pytest
 
+from screenlab.kinetics import KineticsResult
 from screenlab.model import CampaignData, Manifest
 from screenlab.plates import all_wells, is_edge
 from screenlab.settings import AnalysisSettings
@@ -21,15 +21,6 @@ from screenlab.stats.quality import control_chart, plate_quality, well_bscores
 R = 8.31446261815324
 
 
-@dataclass(frozen=True)
-class FakeKinetics:
-    amounts: pd.DataFrame
-    wells: pd.DataFrame
-    blanks: pd.DataFrame
-    rates: pd.DataFrame
-    arrhenius: pd.DataFrame
-    orders: pd.DataFrame
-    settings: AnalysisSettings
 
 
 def _fit_arrhenius(name, role, t_c, y, y_se):
@@ -151,7 +142,7 @@ def make_campaign(seed=0, *, n_cat=8, temps=(40.0, 50.0, 60.0, 70.0), plates_per
                                                                   "loading", "loading_unit", "substrate_conc_mM",
                                                                   "volume_uL", "temperature_c"]],
                         readings=pd.DataFrame(columns=["plate", "well", "analyte", "time_h", "value"]))
-    kin = FakeKinetics(amounts=pd.DataFrame(), wells=w, blanks=blanks, rates=g, arrhenius=arr, orders=pd.DataFrame(),
+    kin = KineticsResult(amounts=pd.DataFrame(), wells=w, blanks=blanks, rates=g, arrhenius=arr, orders=pd.DataFrame(),
                        settings=AnalysisSettings())
     return data, kin, truth
 
@@ -194,7 +185,7 @@ def test_bad_plate_failed():
 def test_no_controls_plate_failed():
     data, kin, _ = make_campaign(seed=4)
     w = kin.wells[~((kin.wells.plate == "P60-1") & (kin.wells.role == "blank"))]
-    kin2 = FakeKinetics(kin.amounts, w, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
+    kin2 = KineticsResult(kin.amounts, w, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
     q = plate_quality(data, kin2, kin.settings).set_index("plate")
     assert q.loc["P60-1", "status"] == "failed"
     assert "no_controls" in q.loc["P60-1", "flags"]
@@ -239,7 +230,7 @@ def test_control_chart_flags_shifted_benchmark():
     w = kin.wells.copy()
     m = (w.plate == "P60-2") & (w.role == "reference")
     w.loc[m, "tof_per_h"] = w.loc[m, "tof_per_h"] * 0.5
-    kin2 = FakeKinetics(kin.amounts, w, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
+    kin2 = KineticsResult(kin.amounts, w, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
     cc = control_chart(kin2, data).set_index("plate")
     assert cc.loc["P60-2", "flags"] == "reference_out_of_limits"
     assert (cc.drop(index="P60-2")["flags"] == "").all()
