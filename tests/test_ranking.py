@@ -12,7 +12,9 @@ from screenlab.errors import UsageError
 from screenlab.settings import AnalysisSettings
 from screenlab.stats.quality import plate_quality
 from screenlab.stats.ranking import METRICS, draw_matrix, pareto, rank_candidates, rank_draws
-from test_quality_synthetic import FakeKinetics, make_campaign
+from test_quality_synthetic import make_campaign
+
+from screenlab.kinetics import KineticsResult
 
 
 def fake_kin(tof, se, *, df=1e7, n=4, ea=None, ea_se=None, ea_df=1e7, roles=None, t=60.0, flags=None,
@@ -33,7 +35,7 @@ def fake_kin(tof, se, *, df=1e7, n=4, ea=None, ea_se=None, ea_df=1e7, roles=None
     if ea is not None:
         arr = pd.DataFrame({"catalyst": names, "role": roles, "n_temperatures": 4, "t_min_c": 40.0, "t_max_c": 70.0,
                             "ea_kj_mol": ea, "ea_se": ea_se, "fit_df": ea_df, "flags": ""})
-    return FakeKinetics(pd.DataFrame(), wells, pd.DataFrame(), rates, arr, pd.DataFrame(), AnalysisSettings())
+    return KineticsResult(pd.DataFrame(), wells, pd.DataFrame(), rates, arr, pd.DataFrame(), AnalysisSettings())
 
 
 def test_two_lognormal_candidates_match_normal_cdf():
@@ -114,7 +116,7 @@ def test_unrankable_listed_after_with_reasons():
     wells = pd.concat([kin.wells[kin.wells.catalyst != "K4"],
                        pd.DataFrame({"catalyst": ["K4"], "role": ["sample"], "plate": ["P9"]})])
     quality = pd.concat([quality, pd.DataFrame({"plate": ["P9"], "status": ["failed"], "flags": ["failed;zprime_low"]})])
-    kin = FakeKinetics(kin.amounts, wells, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
+    kin = KineticsResult(kin.amounts, wells, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
     r = rank_candidates(kin, quality, draws=2000)
     assert r["catalyst"].tolist()[:2] == ["K0", "K1"]
     assert r["rank"].tolist()[:2] == [1, 2] and r["rank"][2:].isna().all()
@@ -222,7 +224,7 @@ def test_selectivity_and_ee_metrics_t_draws():
     kin = fake_kin([10.0, 10.0], [1.0, 1.0])
     rates = kin.rates.assign(selectivity_pct=[92.0, 90.0], selectivity_se=[1.2, 1e-9], selectivity_df=[4.0, 4.0],
                              ee_pct=[-20.0, 35.0], ee_se=[3.0, 3.0], ee_df=[1e7, 1e7])
-    kin = FakeKinetics(kin.amounts, kin.wells, kin.blanks, rates, kin.arrhenius, kin.orders, kin.settings)
+    kin = KineticsResult(kin.amounts, kin.wells, kin.blanks, rates, kin.arrhenius, kin.orders, kin.settings)
     r = rank_candidates(kin, metric="selectivity", draws=200_000, seed=5).set_index("catalyst")
     assert r.loc["K0", "p_best"] == pytest.approx(stats.t.cdf(2.0 / 1.2, 4), abs=0.005)
     assert r.loc["K0", "unit"] == "%"

@@ -10,7 +10,9 @@ import pandas as pd
 from screenlab.export.shortlist import write_shortlist
 from screenlab.stats.quality import plate_quality
 from screenlab.stats.ranking import rank_candidates
-from test_quality_synthetic import FakeKinetics, make_campaign
+from test_quality_synthetic import make_campaign
+
+from screenlab.kinetics import KineticsResult
 
 NASTY = ['=HYPERLINK("x")', "@SUM(A1)", "+cmd", "-1.5"]
 
@@ -19,7 +21,7 @@ def _renamed(kin, data, mapping):
     """The campaign with some catalysts renamed (ids in every frame)."""
     def ren(f):
         return f.assign(catalyst=f["catalyst"].replace(mapping)) if "catalyst" in f else f
-    k = FakeKinetics(kin.amounts, ren(kin.wells), kin.blanks, ren(kin.rates), ren(kin.arrhenius), kin.orders,
+    k = KineticsResult(kin.amounts, ren(kin.wells), kin.blanks, ren(kin.rates), ren(kin.arrhenius), kin.orders,
                      kin.settings)
     return k, ren(data.catalysts)
 
