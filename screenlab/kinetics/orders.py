@@ -38,70 +38,125 @@ COLUMNS = ["catalyst", "temperature_c", "variable", "n_levels", "order", "order_
            "tof_slope_ci_low", "tof_slope_ci_high", "order_df"]
 
 
-def _ols(x: np.ndarray, y: np.ndarray):
-    n = len(x)
-    X = np.column_stack([np.ones(n), x])
-    beta, *_ = np.linalg.lstsq(X, y, rcond=None)
-    df = n - 2
-    if df <= 0:
-        return float(beta[1]), np.nan, df
-    res = y - X @ beta
-    s2 = float(res @ res) / df
-    cov = np.linalg.inv(X.T @ X) * s2
-    return float(beta[1]), float(np.sqrt(cov[1, 1])), df
+def _group_ols(gid: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int):
+    """Per-group OLS slope of y on x (rows tagged by ``gid``): slope, SE, df = n - 2, n.
+
+    Two-pass (centred) sums with np.bincount, so every group is fitted at once. SE is NaN where
+    df <= 0; the slope is NaN where x does not vary within the group.
+    """
+    w = np.bincount(gid, minlength=n_groups).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mx = np.bincount(gid, x, n_groups) / w
+        my = np.bincount(gid, y, n_groups) / w
+        dx = x - mx[gid]
+        dy = y - my[gid]
+        sxx = np.bincount(gid, dx * dx, n_groups)
+        sxy = np.bincount(gid, dx * dy, n_groups)
+        slope = np.where(sxx > 0, sxy / np.where(sxx > 0, sxx, 1.0), np.nan)
+        res = dy - slope[gid] * dx
+        rss = np.bincount(gid, res * res, n_groups)
+        df = w - 2
+        se = np.where(df > 0, np.sqrt(rss / np.where(df > 0, df, 1.0) / sxx), np.nan)
+    return slope, se, df, w
+
+
+def _distinct_levels(gid: np.ndarray, lv: np.ndarray, mask: np.ndarray, n_groups: int) -> np.ndarray:
+    """Number of distinct values of ``lv[mask]`` in each group."""
+    g, v = gid[mask], lv[mask]
+    if g.size == 0:
+        return np.zeros(n_groups, dtype=np.int64)
+    order = np.lexsort((v, g))
+    g, v = g[order], v[order]
+    new = np.ones(g.size, dtype=bool)
+    new[1:] = (g[1:] != g[:-1]) | (v[1:] != v[:-1])
+    return np.bincount(g[new], minlength=n_groups)
+
+
+def _fixed_text(first: pd.DataFrame, fixed: list[str]) -> np.ndarray:
+    """``"name=value; ..."`` of the fixed conditions of each series (missing values left out)."""
+    parts = []
+    for k in fixed:
+        col = first[k]
+        txt = np.array([f"{k}={v}" for v in col.to_numpy(dtype=object)], dtype=object)
+        parts.append(np.where(col.isna().to_numpy(), "", txt))
+    if not parts:
+        return np.full(len(first), "", dtype=object)
+    stacked = np.column_stack(parts)
+    return np.array(["; ".join(p for p in row if p) for row in stacked], dtype=object)
 
 
 def apparent_orders(turnover: pd.DataFrame, settings: AnalysisSettings | None = None,
                     factor_names=None) -> pd.DataFrame:
-    """Orders in substrate and in catalyst loading; columns :data:`COLUMNS`."""
+    """Orders in substrate and in catalyst loading; columns :data:`COLUMNS`.
+
+    Every series is fitted at once (group ids and np.bincount sums), so the cost grows with the
+    number of wells, not with the number of series times pandas overhead.
+    """
     settings = settings or AnalysisSettings()
     factors = list(_infer_factors(turnover, factor_names))
     role = _role(turnover)
-    t = turnover[np.isin(role, ["sample", "reference"])].copy()
-    t = t[np.isfinite(pd.to_numeric(t["rate_mM_per_h"], errors="coerce").to_numpy(float))]
-    rows = []
+    t = turnover[np.isin(role, ["sample", "reference"])]
+    t = t[np.isfinite(pd.to_numeric(t["rate_mM_per_h"], errors="coerce").to_numpy(float))].copy()
     if t.empty:
         return pd.DataFrame(columns=COLUMNS)
     t["temperature_c"] = _tkey(t["temperature_c"])
+    net = pd.to_numeric(t["net_rate_mM_per_h"], errors="coerce").to_numpy(float)
+    tof = pd.to_numeric(t["tof_per_h"], errors="coerce").to_numpy(float)
     series = {
         "substrate_conc": ("substrate_conc_mM", ["loading", "loading_unit", *factors]),
         "loading": ("loading", ["loading_unit", "substrate_conc_mM", *factors]),
     }
+    frames = []
     for variable, (col, fixed) in series.items():
         keys = ["catalyst", "temperature_c", *fixed]
-        for key, g in t.groupby(keys, dropna=False, sort=True):     # a loop over series, not wells
-            lv = pd.to_numeric(g[col], errors="coerce").to_numpy(float)
-            if len(np.unique(lv[np.isfinite(lv) & (lv > 0)])) < 2:
-                continue
-            net = pd.to_numeric(g["net_rate_mM_per_h"], errors="coerce").to_numpy(float)
-            ok = np.isfinite(lv) & (lv > 0) & np.isfinite(net) & (net > 0)
-            flags = {"nonpositive_rates": bool((np.isfinite(net) & (net <= 0)).any())}
-            n_levels = len(np.unique(lv[ok]))
-            if n_levels < 2:
-                continue
-            x = np.log(lv[ok])
-            order, se, df = _ols(x, np.log(net[ok]))
-            q = float(t_quantile(settings.confidence, df)) if df > 0 else np.nan
-            flags["no_replicates"] = df <= 0
-            r = dict(catalyst=key[0], temperature_c=float(key[1]), variable=variable, n_levels=n_levels,
-                     order=order, order_se=se, order_ci_low=order - q * se, order_ci_high=order + q * se,
-                     n_wells=int(ok.sum()), level_min=float(lv[ok].min()), level_max=float(lv[ok].max()),
-                     fixed="; ".join(f"{k}={v}" for k, v in zip(fixed, key[2:]) if not pd.isna(v)),
-                     order_df=float(df), tof_slope=np.nan, tof_slope_se=np.nan, tof_slope_ci_low=np.nan,
-                     tof_slope_ci_high=np.nan)
-            if variable == "loading":
-                tof = pd.to_numeric(g["tof_per_h"], errors="coerce").to_numpy(float)
-                okt = ok & np.isfinite(tof) & (tof > 0)
-                if len(np.unique(lv[okt])) >= 2:
-                    s, sse, sdf = _ols(np.log(lv[okt]), np.log(tof[okt]))
-                    sq = float(t_quantile(settings.confidence, sdf)) if sdf > 0 else np.nan
-                    r.update(tof_slope=s, tof_slope_se=sse, tof_slope_ci_low=s - sq * sse,
-                             tof_slope_ci_high=s + sq * sse)
-                    flags["tof_falls_with_loading"] = bool(np.isfinite(sse) and s + sq * sse < 0)
-            r["flags"] = ";".join(c for c, on in flags.items() if on)
-            rows.append(r)
-    out = pd.DataFrame(rows, columns=COLUMNS)
-    if len(out):
-        out["flags"] = join_flags(out["flags"], {}, index=out.index).to_numpy(dtype=object)
-        out["n_levels"] = out["n_levels"].astype(np.int64)
+        gid_s = t.groupby(keys, dropna=False, sort=True, observed=True).ngroup()
+        gid = gid_s.to_numpy(np.int64)
+        n_groups = int(gid.max()) + 1 if gid.size else 0
+        lv = pd.to_numeric(t[col], errors="coerce").to_numpy(float)
+        pos = np.isfinite(lv) & (lv > 0)
+        ok = pos & np.isfinite(net) & (net > 0)
+        n_levels = _distinct_levels(gid, lv, ok, n_groups)
+        keep = (_distinct_levels(gid, lv, pos, n_groups) >= 2) & (n_levels >= 2)
+        if not keep.any():
+            continue
+        nonpos = np.bincount(gid, (np.isfinite(net) & (net <= 0)).astype(float), n_groups) > 0
+        go = gid[ok]
+        order, se, df, n_ok = _group_ols(go, np.log(lv[ok]), np.log(net[ok]), n_groups)
+        q = np.asarray(t_quantile(settings.confidence, np.where(df > 0, df, np.nan)), dtype=float)
+        lo = np.full(n_groups, np.inf)
+        hi = np.full(n_groups, -np.inf)
+        np.minimum.at(lo, go, lv[ok])
+        np.maximum.at(hi, go, lv[ok])
+        first = t.iloc[np.unique(gid, return_index=True)[1]]        # one row per series, in gid order
+        out = pd.DataFrame({
+            "catalyst": first["catalyst"].to_numpy(dtype=object), "temperature_c": first["temperature_c"].to_numpy(float),
+            "variable": variable, "n_levels": n_levels, "order": order, "order_se": se,
+            "order_ci_low": order - q * se, "order_ci_high": order + q * se, "n_wells": n_ok.astype(np.int64),
+            "level_min": lo, "level_max": hi, "fixed": "",
+            "order_df": df, "tof_slope": np.nan, "tof_slope_se": np.nan, "tof_slope_ci_low": np.nan,
+            "tof_slope_ci_high": np.nan})
+        flag_cols = {"nonpositive_rates": nonpos, "no_replicates": df <= 0}
+        if variable == "loading":
+            okt = ok & np.isfinite(tof) & (tof > 0)
+            fit_t = _distinct_levels(gid, lv, okt, n_groups) >= 2
+            gt = gid[okt]
+            s, sse, sdf, _ = _group_ols(gt, np.log(lv[okt]), np.log(tof[okt]), n_groups)
+            sq = np.asarray(t_quantile(settings.confidence, np.where(sdf > 0, sdf, np.nan)), dtype=float)
+            out["tof_slope"] = np.where(fit_t, s, np.nan)
+            out["tof_slope_se"] = np.where(fit_t, sse, np.nan)
+            out["tof_slope_ci_low"] = np.where(fit_t, s - sq * sse, np.nan)
+            out["tof_slope_ci_high"] = np.where(fit_t, s + sq * sse, np.nan)
+            flag_cols["tof_falls_with_loading"] = fit_t & np.isfinite(sse) & (s + sq * sse < 0)
+        codes = np.full(n_groups, "", dtype=object)
+        for code, on in flag_cols.items():                           # a loop over flag codes
+            codes = np.where(on, np.where(codes == "", code, codes + ";" + code), codes)
+        out["flags"] = codes
+        out = out[keep].copy()
+        out["fixed"] = _fixed_text(first[keep], fixed)
+        frames.append(out)
+    if not frames:
+        return pd.DataFrame(columns=COLUMNS)
+    out = pd.concat(frames, ignore_index=True)[COLUMNS]
+    out["flags"] = join_flags(out["flags"], {}, index=out.index).to_numpy(dtype=object)
+    out["n_levels"] = out["n_levels"].astype(np.int64)
     return out
