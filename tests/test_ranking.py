@@ -230,3 +230,23 @@ def test_selectivity_and_ee_metrics_t_draws():
     assert r.loc["K0", "unit"] == "%"
     e = rank_candidates(kin, metric="ee", draws=1000, seed=5)
     assert e["catalyst"].tolist() == ["K1", "K0"] and e["p_best"].tolist() == [1.0, 0.0]
+
+
+@pytest.mark.parametrize("df", [1.0, 2.0, 2.7, 6.0, 40.0, np.inf, 5e4])
+def test_draw_matrix_columns_follow_student_t(df):
+    # reference distribution: scipy.stats.t / scipy.stats.norm (Kolmogorov-Smirnov at 1e-3)
+    d = draw_matrix([1.5, -2.0], [0.5, 2.0], [df, df], 40_000, np.random.default_rng(int(min(df, 99))))
+    assert d.shape == (40_000, 2) and np.isfinite(d).all()
+    ref = stats.norm if not np.isfinite(df) or df > 1e4 else stats.t(df)
+    for j, (m, s) in enumerate([(1.5, 0.5), (-2.0, 2.0)]):
+        assert stats.kstest((d[:, j].astype(float) - m) / s, ref.cdf).pvalue > 1e-3
+
+
+def test_draw_matrix_mixed_columns_and_tail_quantiles():
+    df = np.array([np.inf, 3.0, np.nan, 0.0, 12.5])
+    d = draw_matrix(np.zeros(5), np.ones(5), df, 200_000, np.random.default_rng(4)).astype(float)
+    # 99.5 % points: scipy.stats.t.ppf / scipy.stats.norm.ppf; NaN or zero df is drawn as normal
+    exp = [stats.norm.ppf(0.995), stats.t.ppf(0.995, 3), stats.norm.ppf(0.995), stats.norm.ppf(0.995),
+           stats.t.ppf(0.995, 12.5)]
+    np.testing.assert_allclose(np.quantile(d, 0.995, axis=0), exp, rtol=0.04)
+    assert np.corrcoef(d[:, 0], d[:, 1])[0, 1] == pytest.approx(0.0, abs=0.01)   # columns independent
