@@ -18,8 +18,9 @@ Conventions (each chosen once, here):
   and empty wells are missing cells), on the initial rate by default or on the last conversion.
 * **Edge effect**: a two-sided Mann-Whitney U test (scipy.stats.mannwhitneyu) of sample wells
   on the outer ring against interior ones, flagged ``edge_effect`` when p < :data:`EDGE_ALPHA`
-  with at least :data:`EDGE_MIN_WELLS` wells on each side. The values compared are, by
-  preference, each well's ``ln(rate / median rate of its replicate group on the plate)``
+  with at least :data:`EDGE_MIN_WELLS` wells on each side (all plates at once by
+  :func:`mannwhitneyu_grouped`: scipy's statistic and p-value for each plate). The values
+  compared are, by preference, each well's ``ln(rate / median rate of its replicate group on the plate)``
   (basis ``replicates``: a ring well against its own replicates elsewhere, whatever the
   catalyst). The additive median polish cannot serve here on its own: a uniform ring offset is
   almost exactly a row effect for rows A and H plus a column effect for the first and last
@@ -41,6 +42,7 @@ import warnings
 
 import numpy as np
 import pandas as pd
+from scipy import special as _sp_special
 from scipy import stats as _st
 
 from screenlab.errors import DataQualityWarning
@@ -106,6 +108,26 @@ def _zprime_from_moments(mu_p, sd_p, mu_n, sd_n):
 
 
 # --------------------------------------------------------------------------- median polish
+def _nanmedian(a: np.ndarray, axis: int) -> np.ndarray:
+    """Median along ``axis`` ignoring NaN, NaN for an all-NaN slice (no warning).
+
+    The same numbers as ``np.nanmedian`` (mean of the two middle values of the sorted finite
+    values, ``(low + high) / 2``) from one ``np.sort`` (NaN sorts last), without its masked-array
+    detour, which dominated the median polish of a few hundred plates.
+    """
+    a = np.asarray(a, dtype=float)
+    if a.shape[axis] == 0:
+        return np.full(np.delete(a.shape, axis), np.nan)
+    srt = np.sort(a, axis=axis)
+    n = np.count_nonzero(~np.isnan(a), axis=axis, keepdims=True)
+    hi = n // 2
+    lo = np.where(n % 2 == 1, hi, hi - 1).clip(min=0)
+    low = np.take_along_axis(srt, lo, axis=axis)
+    high = np.take_along_axis(srt, hi, axis=axis)
+    med = np.squeeze((low + high) / 2.0, axis=axis)
+    return np.where(np.squeeze(n, axis=axis) > 0, med, np.nan)
+
+
 def median_polish(x, eps: float = 0.01, maxiter: int = 10):
     """Tukey median polish of a matrix (2-D) or a stack of plates (3-D, plates first).
 
@@ -134,16 +156,16 @@ def median_polish(x, eps: float = 0.01, maxiter: int = 10):
         warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows/columns: their effect stays NaN
         for _ in range(maxiter):
             a = active[:, None]
-            rdelta = np.nanmedian(z, axis=2)
+            rdelta = _nanmedian(z, axis=2)
             z_new = z - rdelta[:, :, None]
             r_new = r + rdelta
-            delta = np.nanmedian(c, axis=1)
+            delta = _nanmedian(c, axis=1)
             c_new = c - delta[:, None]
             t_new = t + delta
-            cdelta = np.nanmedian(z_new, axis=1)
+            cdelta = _nanmedian(z_new, axis=1)
             z_new = z_new - cdelta[:, None, :]
             c_new = c_new + cdelta
-            delta = np.nanmedian(r_new, axis=1)
+            delta = _nanmedian(r_new, axis=1)
             r_new = r_new - delta[:, None]
             t_new = t_new + delta
             z = np.where(a[:, :, None], z_new, z)
@@ -163,6 +185,13 @@ def median_polish(x, eps: float = 0.01, maxiter: int = 10):
     return t, r, c, z, iters, converged
 
 
+def _residual_mad(stack: np.ndarray) -> np.ndarray:
+    """Each plate's (unscaled) MAD over the non-missing cells of a 3-D residual stack."""
+    flat = stack.reshape(stack.shape[0], -1)
+    med = _nanmedian(flat, axis=1)
+    return _nanmedian(np.abs(flat - med[:, None]), axis=1)
+
+
 def bscores(residuals, mad_scale: float = MAD_NORMAL):
     """B-scores of a residual matrix or stack (plates first): residual / (mad_scale x MAD).
 
@@ -171,18 +200,17 @@ def bscores(residuals, mad_scale: float = MAD_NORMAL):
     """
     res = np.asarray(residuals, dtype=float)
     stack = res if res.ndim == 3 else res[None]
-    flat = stack.reshape(stack.shape[0], -1)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        med = np.nanmedian(flat, axis=1)
-        mad = np.nanmedian(np.abs(flat - med[:, None]), axis=1)
-    bad = ~(mad > 0)
-    if np.any(bad & np.isfinite(mad)):
+    out, mad = _bscores_and_mad(stack, mad_scale)
+    if np.any(~(mad > 0) & np.isfinite(mad)):
         warnings.warn("median-polish residual MAD is 0 on a plate; its B-scores are undefined (NaN)",
                       DataQualityWarning, stacklevel=2)
-    scale = np.where(bad, np.nan, mad * mad_scale)
-    out = stack / scale[:, None, None]
     return out if res.ndim == 3 else out[0]
+
+
+def _bscores_and_mad(stack: np.ndarray, mad_scale: float):
+    mad = _residual_mad(stack)
+    scale = np.where(~(mad > 0), np.nan, mad * mad_scale)
+    return stack / scale[:, None, None], mad
 
 
 def _well_values(kin, value: str) -> pd.Series:
@@ -190,6 +218,38 @@ def _well_values(kin, value: str) -> pd.Series:
     if col is None:
         raise ValueError(f"value must be 'rate' or 'conversion', not {value!r}")
     return pd.to_numeric(kin.wells[col], errors="coerce")
+
+
+def _bscore_cube(kin, data, value: str, mad_scale: float) -> dict:
+    """Median polish of every plate at once on a (plates x rows x cols) stack of sample wells.
+
+    Returns the plate index (``plates``: data.plates order, as text), per-well arrays aligned
+    with ``kin.wells`` (``p_i`` plate position or -1, ``rows, cols, vals, use, fmt``), the
+    residual and B-score stacks and each plate's residual MAD (NaN for a plate without cells).
+    """
+    w = kin.wells
+    plates = data.plates[["plate", "format", "n_rows", "n_cols"]].drop_duplicates("plate")
+    pidx = pd.Index(plates["plate"].astype(str))
+    n_r = int(plates["n_rows"].max()) if len(plates) else 0
+    n_c = int(plates["n_cols"].max()) if len(plates) else 0
+    vals = _well_values(kin, value).to_numpy(dtype=float)
+    p_i = pidx.get_indexer(w["plate"].astype(str))
+    rows = w["row"].to_numpy(dtype=np.int64)
+    cols = w["col"].to_numpy(dtype=np.int64)
+    use = (w["role"].astype(str).to_numpy() == "sample") & np.isfinite(vals) & (p_i >= 0)
+    cube = np.full((len(pidx), max(n_r, 1), max(n_c, 1)), np.nan)
+    cube[p_i[use], rows[use], cols[use]] = vals[use]
+    if len(pidx):
+        _, _, _, res, _, _ = median_polish(cube)
+        b, mad = _bscores_and_mad(res, mad_scale)
+    else:
+        res = b = cube
+        mad = np.full(0, np.nan)
+    fmt_by_plate = plates["format"].to_numpy()
+    fmt = np.where(p_i >= 0, fmt_by_plate[np.maximum(p_i, 0)] if len(pidx) else 0, 0)
+    fmt = np.where(pd.isna(fmt), 0, fmt).astype(np.int64)
+    return {"plates": pidx, "p_i": p_i, "rows": rows, "cols": cols, "vals": vals, "use": use,
+            "fmt": fmt, "res": res, "b": b, "mad": mad}
 
 
 def well_bscores(kin, data, *, value: str = "rate", mad_scale: float = MAD_NORMAL) -> pd.DataFrame:
@@ -200,35 +260,95 @@ def well_bscores(kin, data, *, value: str = "rate", mad_scale: float = MAD_NORMA
     wells are listed with NaN residual and B-score.
     """
     w = kin.wells
-    plates = data.plates[["plate", "format", "n_rows", "n_cols"]].drop_duplicates("plate")
-    pidx = pd.Index(plates["plate"].astype(str))
-    n_r = int(plates["n_rows"].max()) if len(plates) else 0
-    n_c = int(plates["n_cols"].max()) if len(plates) else 0
-    vals = _well_values(kin, value).to_numpy()
-    p_i = pidx.get_indexer(w["plate"].astype(str))
-    rows = w["row"].to_numpy(dtype=np.int64)
-    cols = w["col"].to_numpy(dtype=np.int64)
-    use = (w["role"].astype(str).to_numpy() == "sample") & np.isfinite(vals) & (p_i >= 0)
-    cube = np.full((len(pidx), max(n_r, 1), max(n_c, 1)), np.nan)
-    cube[p_i[use], rows[use], cols[use]] = vals[use]
-    if len(pidx):
-        _, _, _, res, _, _ = median_polish(cube)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", DataQualityWarning)
-            b = bscores(res, mad_scale=mad_scale)
-    else:
-        res = b = cube
-    resid = np.full(len(w), np.nan)
-    bs = np.full(len(w), np.nan)
-    resid[use] = res[p_i[use], rows[use], cols[use]]
-    bs[use] = b[p_i[use], rows[use], cols[use]]
-    fmt = plates.set_index(plates["plate"].astype(str))["format"].reindex(w["plate"].astype(str)).to_numpy()
-    fmt = np.where(pd.isna(fmt), 0, fmt).astype(np.int64)
+    cb = _bscore_cube(kin, data, value, mad_scale)
+    resid, bs = _cells_at_wells(cb)
     return pd.DataFrame({
-        "plate": w["plate"].to_numpy(), "well": w["well"].to_numpy(), "row": rows, "col": cols,
+        "plate": w["plate"].to_numpy(), "well": w["well"].to_numpy(), "row": cb["rows"], "col": cb["cols"],
         "role": w["role"].to_numpy(), "catalyst": w["catalyst"].to_numpy(),
-        "is_edge": is_edge(rows, cols, fmt), "value": vals, "residual": resid, "bscore": bs,
+        "is_edge": is_edge(cb["rows"], cb["cols"], cb["fmt"]), "value": cb["vals"], "residual": resid, "bscore": bs,
     })
+
+
+def _cells_at_wells(cb: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Residual and B-score of each well of kin.wells (NaN off the stack)."""
+    use, p_i, rows, cols = cb["use"], cb["p_i"], cb["rows"], cb["cols"]
+    resid = np.full(len(use), np.nan)
+    bs = np.full(len(use), np.nan)
+    resid[use] = cb["res"][p_i[use], rows[use], cols[use]]
+    bs[use] = cb["b"][p_i[use], rows[use], cols[use]]
+    return resid, bs
+
+
+# --------------------------------------------------------------------------- Mann-Whitney U
+def mannwhitneyu_grouped(values, in_x, group, n_groups: int) -> tuple[np.ndarray, np.ndarray]:
+    """Two-sided Mann-Whitney U test of ``x`` against ``y`` inside each group, all groups at once.
+
+    ``values`` are pooled observations, ``in_x`` marks those of the first sample and ``group``
+    (ints in ``0 .. n_groups-1``) the test each belongs to. Returns ``(u1, p)`` per group (NaN
+    where a side is empty), the statistic and p-value that ``scipy.stats.mannwhitneyu(x, y,
+    alternative="two-sided")`` gives for that group on its own with its defaults (scipy 1.7+):
+    the exact null distribution when a side has at most 8 values and there are no ties,
+    otherwise the normal approximation with tie correction and continuity correction. Ranks
+    are mid-ranks within each group from one sort of (group, value); the exact p-values come
+    from scipy itself, batched over groups of the same sizes (a loop over size pairs, not over
+    groups). NaN values are not allowed.
+    """
+    v = np.asarray(values, dtype=float)
+    x = np.asarray(in_x, dtype=bool)
+    g = np.asarray(group, dtype=np.int64)
+    if np.isnan(v).any():
+        raise ValueError("mannwhitneyu_grouped: values must not contain NaN")
+    n1 = np.bincount(g[x], minlength=n_groups).astype(float)
+    n2 = np.bincount(g[~x], minlength=n_groups).astype(float)
+    u1 = np.full(n_groups, np.nan)
+    p = np.full(n_groups, np.nan)
+    if v.size == 0:
+        return u1, p
+    order = np.lexsort((v, g))
+    vs, gs, xs = v[order], g[order], x[order]
+    n = v.size
+    new_run = np.ones(n, dtype=bool)
+    new_run[1:] = (gs[1:] != gs[:-1]) | (vs[1:] != vs[:-1])
+    run_start = np.flatnonzero(new_run)
+    run_len = np.diff(np.append(run_start, n))
+    group_start = np.searchsorted(gs, gs, side="left")
+    ordinal = (np.arange(n) - group_start + 1).astype(float)
+    rank = np.repeat(ordinal[run_start] + (run_len - 1) / 2.0, run_len)
+    r1 = np.bincount(gs[xs], weights=rank[xs], minlength=n_groups)
+    tie_term = np.bincount(gs[run_start], weights=(run_len.astype(float) ** 3 - run_len), minlength=n_groups)
+    ties = np.bincount(gs[run_start], weights=(run_len > 1), minlength=n_groups) > 0
+    ok = (n1 > 0) & (n2 > 0)
+    u1 = np.where(ok, r1 - n1 * (n1 + 1) / 2, np.nan)
+    u = np.maximum(u1, n1 * n2 - u1)
+    # normal approximation, scipy.stats._mannwhitneyu._get_mwu_z (tie-corrected SD, continuity 0.5)
+    nn = n1 + n2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = np.sqrt(n1 * n2 / 12 * ((nn + 1) - tie_term / (nn * (nn - 1))))
+        z = (u - n1 * n2 / 2 - 0.5) / s
+    p = np.where(ok, np.clip(2 * _sp_special.ndtr(-z), 0.0, 1.0), np.nan)
+    exact = ok & ~((n1 > 8) & (n2 > 8)) & ~ties
+    if exact.any():
+        ex_x = exact[gs] & xs
+        ex_y = exact[gs] & ~xs
+        sizes = pd.DataFrame({"n1": n1[exact], "n2": n2[exact], "g": np.flatnonzero(exact)})
+        for (a, b), part in sizes.groupby(["n1", "n2"], sort=False):  # a loop over size pairs
+            sel = np.zeros(n_groups, dtype=bool)
+            sel[part["g"].to_numpy()] = True
+            xa = vs[ex_x & sel[gs]].reshape(len(part), int(a))
+            ya = vs[ex_y & sel[gs]].reshape(len(part), int(b))
+            res = _st.mannwhitneyu(xa, ya, alternative="two-sided", method="exact", axis=1)
+            p[part["g"].to_numpy()] = res.pvalue
+    return u1, p
+
+
+def _group_ids(columns, rows: np.ndarray) -> np.ndarray:
+    """One integer id per selected row (boolean mask ``rows``) for the distinct combinations of
+    the given equal-length columns (NaN / NA is a level of its own, like ``groupby(dropna=False)``)."""
+    gid = np.zeros(int(np.count_nonzero(rows)), dtype=np.int64)
+    for col in columns:  # a loop over a handful of key columns
+        codes, uniques = pd.factorize(col, use_na_sentinel=False)
+        gid, _ = pd.factorize(gid * max(len(uniques), 1) + np.asarray(codes, dtype=np.int64)[rows])
+    return np.asarray(gid, dtype=np.int64)
 
 
 # --------------------------------------------------------------------------- Arrhenius prediction
@@ -275,16 +395,17 @@ def control_chart(kin, data=None) -> pd.DataFrame:
     cols = ["plate", "run_date", "catalyst", "temperature_c", "n_wells", "value", "value_unit", "expected",
             "log_ratio", "centre", "lower", "upper", "lower_tof_per_h", "upper_tof_per_h", "loo_t", "loo_limit", "basis", "flags"]
     w = kin.wells
-    ref = w[w["role"].astype(str) == "reference"]
+    need = [c for c in ("catalyst", "plate", "temperature_c", "rate_mM_per_h", "tof_per_h") if c in w]
+    ref = w.loc[(w["role"].astype(str) == "reference").to_numpy(), need]  # only the columns used below
     if ref.empty:
         return pd.DataFrame({c: pd.Series(dtype=object) for c in cols})
     tof = pd.to_numeric(ref.get("tof_per_h", pd.Series(np.nan, index=ref.index)), errors="coerce")
     use_tof = bool(np.isfinite(tof).any())
     val = tof if use_tof else pd.to_numeric(ref["rate_mM_per_h"], errors="coerce")
-    ref = ref.assign(_v=val.where(val > 0))
+    v = val.where(val > 0)
+    ref = ref.assign(_v=v, _ln=np.log(v))  # geometric mean per plate: mean of the logs (NaN skipped)
     per = (ref.groupby(["catalyst", "plate"], sort=True)
-              .agg(temperature_c=("temperature_c", "median"), n_wells=("_v", "count"),
-                   _lnv=("_v", lambda s: np.log(s.dropna()).mean() if s.notna().any() else np.nan))
+              .agg(temperature_c=("temperature_c", "median"), n_wells=("_v", "count"), _lnv=("_ln", "mean"))
               .reset_index())
     per["value"] = np.exp(per["_lnv"])
     out = []
@@ -356,22 +477,28 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
 
     settings = settings or getattr(kin, "settings", None) or AnalysisSettings()
     w = kin.wells
-    role = w["role"].astype(str)
-    rate = pd.to_numeric(w["rate_mM_per_h"], errors="coerce")
-    frame = pd.DataFrame({"plate": w["plate"].astype(str), "role": role, "rate": rate.where(np.isfinite(rate))})
+    role = w["role"].astype(str).to_numpy()
+    rate = pd.to_numeric(w["rate_mM_per_h"], errors="coerce").to_numpy(dtype=float)
+    finite = np.isfinite(rate)
     plates = data.plates.drop_duplicates("plate").assign(plate=lambda d: d["plate"].astype(str))
     out = plates[["plate", "format", "temperature_c"]].reset_index(drop=True)
     out = out.set_index("plate")
+    # the B-score stack indexes plates the same way (data.plates' plates, first occurrence, as text)
+    cb = _bscore_cube(kin, data, bscore_value, MAD_NORMAL)
+    n_pl = len(out)
+    p_i = cb["p_i"]                     # each well's plate position in ``out``, -1 for an unknown plate
+    known = p_i >= 0
 
-    counts = frame.assign(ok=frame["rate"].notna()).pivot_table(
-        index="plate", columns="role", values="ok", aggfunc="sum", fill_value=0)
     for r in ("sample", "reference", "blank"):
-        out[f"n_{r}"] = counts[r].reindex(out.index).fillna(0).astype(int) if r in counts else 0
-    mom = frame.groupby(["plate", "role"])["rate"].agg(["mean", "std"])
-    for r, name in (("reference", "reference"), ("blank", "blank")):
-        sub = mom.xs(r, level="role") if r in mom.index.get_level_values("role") else pd.DataFrame(columns=["mean", "std"])
-        out[f"{name}_mean_mM_per_h"] = sub["mean"].reindex(out.index).astype(float)
-        out[f"{name}_sd_mM_per_h"] = sub["std"].reindex(out.index).astype(float)
+        out[f"n_{r}"] = np.bincount(p_i[known & finite & (role == r)], minlength=n_pl).astype(np.int64)
+    ctrl = known & np.isin(role, ["reference", "blank"])
+    ctrl_role = np.where(role[ctrl] == "reference", 0, 1)
+    mom = (pd.Series(np.where(finite, rate, np.nan)[ctrl])
+           .groupby([p_i[ctrl], ctrl_role]).agg(["mean", "std"]))
+    for code, name in ((0, "reference"), (1, "blank")):
+        sub = mom.xs(code, level=1) if code in mom.index.get_level_values(1) else pd.DataFrame(columns=["mean", "std"])
+        out[f"{name}_mean_mM_per_h"] = sub["mean"].reindex(range(n_pl)).to_numpy(dtype=float)
+        out[f"{name}_sd_mM_per_h"] = sub["std"].reindex(range(n_pl)).to_numpy(dtype=float)
     mp, sp = out["reference_mean_mM_per_h"], out["reference_sd_mM_per_h"]
     mn, sn = out["blank_mean_mM_per_h"], out["blank_sd_mM_per_h"]
     enough = (out["n_reference"] >= 2) & (out["n_blank"] >= 2)
@@ -380,18 +507,24 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         out["signal_window"] = np.where(enough, ((mp - mn).abs() - 3 * (sp + sn)) / sp, np.nan)
         out["reference_cv_pct"] = np.where(out["n_reference"] >= 2, 100 * sp / mp.abs(), np.nan)
 
-    # replicate CVs of sample groups
+    # replicate groups of sample wells: same plate, catalyst, loading, substrate concentration,
+    # temperature and factor levels (NaN a level of its own), as one integer id per well
     keys = ["plate", "catalyst", "loading", "substrate_conc_mM", "temperature_c", *data.factor_names]
     keys = [k for k in keys if k in w]
-    samp = w[role == "sample"].assign(plate=lambda d: d["plate"].astype(str), _r=rate[role == "sample"])
-    samp = samp[samp["_r"].notna()]
-    if len(samp):
-        g = samp.groupby(keys, dropna=False)["_r"].agg(["mean", "std", "count"]).reset_index()
+    is_samp = known & (role == "sample")
+    gid = _group_ids([w["plate"].astype(str)] + [w[k] for k in keys if k != "plate"], is_samp)
+    s_rate, s_plate = rate[is_samp], p_i[is_samp]
+    # replicate CVs
+    has = ~np.isnan(s_rate)
+    if has.any():
+        g = pd.Series(s_rate[has]).groupby(gid[has]).agg(["mean", "std", "count"])
+        g_plate = np.zeros(int(gid.max()) + 1, dtype=np.int64)
+        g_plate[gid] = s_plate
+        g = g.assign(plate=g_plate[g.index.to_numpy()])
         g = g[(g["count"] >= 2) & (g["mean"] > 0)]
-        g["cv"] = 100 * g["std"] / g["mean"]
-        cv = g.groupby("plate")["cv"].agg(["median", "count"])
-        out["n_replicate_groups"] = cv["count"].reindex(out.index).fillna(0).astype(int)
-        out["replicate_cv_median_pct"] = cv["median"].reindex(out.index)
+        cv = (100 * g["std"] / g["mean"]).groupby(g["plate"]).agg(["median", "count"])
+        out["n_replicate_groups"] = cv["count"].reindex(range(n_pl)).fillna(0).astype(int).to_numpy()
+        out["replicate_cv_median_pct"] = cv["median"].reindex(range(n_pl)).to_numpy(dtype=float)
     else:
         out["n_replicate_groups"] = 0
         out["replicate_cv_median_pct"] = np.nan
@@ -415,43 +548,60 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         out["blank_ratio"] = b["ratio"].reindex(out.index)
         out["blank_z"] = b["z"].reindex(out.index)
 
-    # B-scores and the edge test (a loop over plates for the U test only)
-    bw_all = well_bscores(kin, data, value=bscore_value)          # one row per well of kin.wells, same order
-    bw = bw_all[np.isfinite(bw_all["residual"].to_numpy(dtype=float))]
-    rep = pd.DataFrame({"plate": w["plate"].astype(str), "is_edge": bw_all["is_edge"].to_numpy(), "rate": rate})
-    rep = rep[(role == "sample").to_numpy() & (rep["rate"] > 0).to_numpy()]
-    rep_keys = [rep["plate"]] + [w.loc[rep.index, k] for k in keys if k != "plate"]
-    grp = rep.groupby(rep_keys, dropna=False)["rate"]
-    rep = rep.assign(dev=np.log(rep["rate"] / grp.transform("median")), size=grp.transform("count"))
-    rep = rep[rep["size"] >= 2]
-    rep_by_plate = dict(tuple(rep.groupby("plate")))
-    out["edge_basis"] = ""
-    out["edge_n"] = 0
-    out["interior_n"] = 0
-    out["edge_shift_pct"] = np.nan
-    out["edge_p"] = np.nan
-    out["bscore_max_abs"] = np.nan
-    mad_zero = pd.Series(False, index=out.index)
-    for plate, g in bw.groupby(bw["plate"].astype(str)):
-        res = g["residual"].to_numpy(dtype=float)
-        mad_zero[plate] = not np.median(np.abs(res - np.median(res))) > 0
-        if np.isfinite(g["bscore"]).any():
-            out.loc[plate, "bscore_max_abs"] = float(np.nanmax(np.abs(g["bscore"])))
-        r = rep_by_plate.get(plate)
-        e = r.loc[r["is_edge"], "dev"].to_numpy() if r is not None else np.array([])
-        i = r.loc[~r["is_edge"], "dev"].to_numpy() if r is not None else np.array([])
-        basis = "replicates"
-        if len(e) < EDGE_MIN_WELLS or len(i) < EDGE_MIN_WELLS:
-            basis = "bscore"
-            e = g.loc[g["is_edge"], "residual"].to_numpy(dtype=float)
-            i = g.loc[~g["is_edge"], "residual"].to_numpy(dtype=float)
-        out.loc[plate, ["edge_n", "interior_n"]] = [len(e), len(i)]
-        if len(e) >= EDGE_MIN_WELLS and len(i) >= EDGE_MIN_WELLS:
-            out.loc[plate, "edge_basis"] = basis
-            if basis == "replicates":
-                out.loc[plate, "edge_shift_pct"] = 100 * (np.exp(e.mean() - i.mean()) - 1)
-            if np.ptp(np.concatenate([e, i])) > 0:
-                out.loc[plate, "edge_p"] = float(_st.mannwhitneyu(e, i, alternative="two-sided").pvalue)
+    # B-scores and the edge test, every plate at once
+    resid, _ = _cells_at_wells(cb)
+    edge = is_edge(cb["rows"], cb["cols"], cb["fmt"])
+    bw = np.isfinite(resid)                                  # wells with a residual (all on known plates)
+    has_res = np.bincount(p_i[bw], minlength=n_pl) > 0      # plates with at least one residual
+    mad_zero = has_res & ~(cb["mad"] > 0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)      # all-NaN plates stay NaN
+        bmax = np.nanmax(np.abs(cb["b"]).reshape(n_pl, -1), axis=1) if n_pl else np.full(0, np.nan)
+    # replicate deviations ln(rate / median of the well's replicate group on the plate), over
+    # positive rates, kept for groups of two or more
+    pos = s_rate > 0
+    grp = pd.Series(s_rate[pos]).groupby(gid[pos])
+    rep_dev = np.log(s_rate[pos] / grp.transform("median").to_numpy())
+    keep = grp.transform("count").to_numpy() >= 2
+    rep_p = s_plate[pos][keep]
+    rep_edge = edge[is_samp][pos][keep]
+    rep_dev = rep_dev[keep]
+    ne_rep = np.bincount(rep_p[rep_edge], minlength=n_pl)
+    ni_rep = np.bincount(rep_p[~rep_edge], minlength=n_pl)
+    use_rep = (ne_rep >= EDGE_MIN_WELLS) & (ni_rep >= EDGE_MIN_WELLS)
+    ne_b = np.bincount(p_i[bw & edge], minlength=n_pl)
+    ni_b = np.bincount(p_i[bw & ~edge], minlength=n_pl)
+    edge_n = np.where(has_res, np.where(use_rep, ne_rep, ne_b), 0)
+    interior_n = np.where(has_res, np.where(use_rep, ni_rep, ni_b), 0)
+    tested = has_res & (edge_n >= EDGE_MIN_WELLS) & (interior_n >= EDGE_MIN_WELLS)
+    by_rep = tested & use_rep
+    by_b = tested & ~use_rep
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean_e = np.bincount(rep_p[rep_edge], weights=rep_dev[rep_edge], minlength=n_pl) / ne_rep
+        mean_i = np.bincount(rep_p[~rep_edge], weights=rep_dev[~rep_edge], minlength=n_pl) / ni_rep
+    shift = np.where(by_rep, 100 * (np.exp(mean_e - mean_i) - 1), np.nan)
+    # pooled values of the tested plates: replicate deviations or median-polish residuals
+    rsel = by_rep[rep_p]
+    bsel = bw & (p_i >= 0)
+    bsel[bsel] = by_b[p_i[bsel]]
+    t_val = np.concatenate([rep_dev[rsel], resid[bsel]])
+    t_edge = np.concatenate([rep_edge[rsel], edge[bsel]])
+    t_p = np.concatenate([rep_p[rsel], p_i[bsel]])
+    # a plate whose values are all equal (or not all finite) gets no p-value, as np.ptp(...) > 0
+    vmin = np.full(n_pl, np.inf)
+    vmax = np.full(n_pl, -np.inf)
+    np.minimum.at(vmin, t_p, t_val)
+    np.maximum.at(vmax, t_p, t_val)
+    spread = tested & (vmax - vmin > 0)
+    rows_ok = spread[t_p]
+    _, edge_p = mannwhitneyu_grouped(t_val[rows_ok], t_edge[rows_ok], t_p[rows_ok], n_pl)
+    out["edge_basis"] = np.where(by_rep, "replicates", np.where(by_b, "bscore", ""))
+    out["edge_n"] = edge_n.astype(np.int64)
+    out["interior_n"] = interior_n.astype(np.int64)
+    out["edge_shift_pct"] = shift
+    out["edge_p"] = np.where(spread, edge_p, np.nan)
+    out["bscore_max_abs"] = np.where(has_res, bmax, np.nan)
+    mad_zero = pd.Series(mad_zero, index=out.index)
 
     # control chart of the benchmark
     cc = control_chart(kin, data)
@@ -478,7 +628,10 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     fl["bscore_undefined"] = mad_zero
     codes = np.array(fl.columns)
     m = fl.fillna(False).to_numpy(dtype=bool)
-    out["flags"] = [";".join(codes[row]) for row in m]  # one short join per plate
+    flags = np.full(len(m), "", dtype=object)
+    for j, code in enumerate(codes):  # a loop over the eight flag codes
+        flags = np.where(m[:, j], np.where(flags == "", code, flags + ";" + code), flags)
+    out["flags"] = flags
     out["status"] = np.where(failed, "failed", np.where(m.any(axis=1), "flagged", "ok"))
     return out.reset_index()[[
         "plate", "format", "temperature_c", "n_sample", "n_reference", "n_blank",
@@ -488,5 +641,5 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         "edge_p", "bscore_max_abs", "reference_loo_t", "status", "flags"]]
 
 
-__all__ = ["FLAGS", "zprime", "z_factor", "median_polish", "bscores", "well_bscores", "predict_ln",
+__all__ = ["FLAGS", "zprime", "z_factor", "median_polish", "bscores", "well_bscores", "mannwhitneyu_grouped", "predict_ln",
            "control_chart", "plate_quality"]
