@@ -85,7 +85,7 @@ def _pick_delimiter(header_line: str) -> str:
     return best if counts[best] > 0 else ","
 
 
-def _arrow_cells(body: str, delim: str, n_cols: int) -> tuple[pd.DataFrame, np.ndarray] | None:
+def _arrow_cells(body: str | bytes, delim: str, n_cols: int) -> tuple[pd.DataFrame, np.ndarray] | None:
     """Fast path: ``body`` (lines joined by newline) read by pyarrow.csv as text cells, already
     stripped and formula-guard cleaned; returns (cells, record index of each cells row) or None.
 
@@ -94,9 +94,14 @@ def _arrow_cells(body: str, delim: str, n_cols: int) -> tuple[pd.DataFrame, np.n
     line with the header's number of fields (pyarrow refuses ragged rows; the pandas path widens).
     Blank lines are skipped by pyarrow; their record numbers are recovered from the newline offsets.
     """
-    if '"' in body or not body.isascii():
-        return None
-    raw = body.encode("ascii")
+    if isinstance(body, str):
+        if '"' in body or not body.isascii():
+            return None
+        raw = body.encode("ascii")
+    else:
+        raw = body
+        if b'"' in raw or not raw.isascii():
+            return None
     try:
         table = pacsv.read_csv(
             io.BytesIO(raw),
@@ -105,25 +110,74 @@ def _arrow_cells(body: str, delim: str, n_cols: int) -> tuple[pd.DataFrame, np.n
                                              escape_char=False, newlines_in_values=False,
                                              ignore_empty_lines=True),
             convert_options=pacsv.ConvertOptions(
-                column_types={f"f{i}": pa.string() for i in range(n_cols)}, strings_can_be_null=False,
+                column_types={f"f{i}": pa.large_string() for i in range(n_cols)}, strings_can_be_null=False,
                 quoted_strings_can_be_null=False, null_values=[], true_values=[], false_values=[]))
     except (pa.ArrowInvalid, pa.ArrowException):
         return None
     if table.num_columns != n_cols:
         return None
     # record index of every non-empty line: lines are separated by single newlines (no quotes)
-    buf = np.frombuffer(raw, dtype=np.uint8)
-    nl = np.flatnonzero(buf == 10)
-    starts = np.concatenate(([0], nl + 1))
-    ends = np.concatenate((nl, [len(buf)]))
-    records = np.flatnonzero(ends > starts)
+    if b"\n\n" not in raw and not raw.startswith(b"\n") and not raw.endswith(b"\n"):
+        records = np.arange(table.num_rows)  # no empty line: every line is a record
+    else:
+        buf = np.frombuffer(raw, dtype=np.uint8)
+        nl = np.flatnonzero(buf == 10)
+        starts = np.concatenate(([0], nl + 1))
+        ends = np.concatenate((nl, [len(buf)]))
+        records = np.flatnonzero(ends > starts)
     if len(records) != table.num_rows:
         return None
+    # trimming and the guard run only when the file holds a character they act on: the lines hold
+    # no CR, LF, VT or FF (line breaks), so a space or tab (ASCII white space) and an apostrophe
+    trim = b" " in raw or b"\t" in raw
+    guard = b"'" in raw
     cols = {}
     for j, c in enumerate(table.columns):
-        c = pc.replace_substring_regex(pc.ascii_trim_whitespace(c), pattern=_GUARD, replacement=_GUARD_KEEP)
+        if trim:
+            c = pc.ascii_trim_whitespace(c)
+        if guard:
+            c = pc.replace_substring_regex(c, pattern=_GUARD, replacement=_GUARD_KEEP)
         cols[j] = pd.Series(pd.array(c, dtype=_STR), copy=False)
     return pd.DataFrame(cols), records
+
+
+#: ASCII characters that ``str.splitlines`` takes as line breaks besides CR and LF
+_OTHER_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e")
+#: ASCII white space of ``str.strip`` once those are excluded (LF, CR are line ends here)
+_BLANK = b" \t\x1f"
+
+
+def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray] | None:
+    """The fast path straight from the file's bytes, skipping the decode / splitlines / join /
+    encode of :func:`_read_csv_cells` (which it equals): taken for ASCII files without a quote and
+    without the rarer line-break characters (VT, FF, FS, GS, RS), else None. Returns what
+    ``_read_csv_cells`` returns.
+
+    For such bytes, ``str.splitlines`` breaks lines at LF, CR LF and CR only, so normalising CR LF
+    and CR to LF and splitting at LF gives the same lines, and a line is blank for ``str.strip``
+    when it holds only space, tab and US (0x1f)."""
+    if not data.isascii() or b'"' in data or any(b in data for b in _OTHER_BREAKS):
+        return None
+    if b"\r" in data:
+        data = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
+    lead, start = 0, 0
+    while True:  # leading blank lines (a handful)
+        end = data.find(b"\n", start)
+        line = data[start:] if end < 0 else data[start:end]
+        if line.strip(_BLANK):
+            break
+        if end < 0:
+            return None  # no header at all: the text path says so
+        lead, start = lead + 1, end + 1
+    header = line.decode("ascii")
+    delim = _pick_delimiter(header)
+    body = data[start:]
+    if body.endswith(b"\n"):  # as "\n".join(text.splitlines()) has it: no final line end
+        body = body[:-1]
+    fast = _arrow_cells(body, delim, header.count(delim) + 1)
+    if fast is None:
+        return None
+    return fast[0], lead, delim, fast[1]
 
 
 def _read_csv_cells(name: str, text: str, problems: list[Problem]
@@ -189,6 +243,18 @@ def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.Data
     return cells
 
 
+def _nonblank(cells: pd.DataFrame) -> np.ndarray:
+    """Rows with at least one non-empty cell; from the Arrow string lengths when every column is
+    an Arrow text column without nulls (as the CSV paths give), else by comparing cells with ''."""
+    total = np.zeros(len(cells), dtype=np.int64)
+    for j in range(cells.shape[1]):  # columns, not rows
+        arr = getattr(cells.iloc[:, j].array, "_pa_array", None)
+        if arr is None or arr.null_count or not pa.types.is_string(arr.type) and not pa.types.is_large_string(arr.type):
+            return (cells != "").any(axis=1).to_numpy()
+        total += pc.binary_length(arr).to_numpy()
+    return total > 0
+
+
 def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | None:
     """Read one CSV/XLSX file into a :class:`RawTable`; problems are appended, never raised.
 
@@ -203,8 +269,10 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
         if cells is None:
             return None
     else:
-        text = decode_text(name, data, notes)
-        got = _read_csv_cells(name, text, problems)
+        got = _read_plain_csv(data)
+        if got is None:
+            text = decode_text(name, data, notes)
+            got = _read_csv_cells(name, text, problems)
         if got is None:
             return None
         cells, offset, delim, records = got
@@ -218,7 +286,7 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
         return None
     # drop blank rows but keep the spreadsheet row numbers of the others
     rownum = (np.arange(len(cells), dtype=np.int64) if records is None else records.astype(np.int64)) + 1 + offset
-    nonblank = (cells != "").any(axis=1).to_numpy()
+    nonblank = _nonblank(cells)
     first = int(np.argmax(nonblank)) if nonblank.any() else -1
     if first < 0:
         problems.append(Problem(name, None, None, None, "the file is empty"))

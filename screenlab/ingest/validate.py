@@ -53,6 +53,50 @@ RESERVED_FACTORS = ("row", "col", "substrate_conc_mm", "volume_ul", "analyte", "
 READING_COLUMNS = ("plate", "well", "time", "value", "analyte")
 
 
+class Distinct:
+    """A text column as integer codes into its distinct values, so that elementwise work (lower
+    case, membership, lookups, number parsing) runs once per distinct value and is spread back to
+    the rows by the codes. ``values`` holds the distinct cells plus one last slot, a missing cell,
+    which code -1 (a missing cell in the column) points at."""
+
+    def __init__(self, column: pd.Series):
+        codes, uniques = pd.factorize(column, use_na_sentinel=True)
+        self.codes = np.asarray(codes, dtype=np.intp)
+        arr = getattr(uniques, "_pa_array", None)
+        if arr is not None and isinstance(column.dtype, pd.StringDtype):
+            arr = pa.concat_arrays([*arr.chunks, pa.nulls(1, arr.type)]) if arr.num_chunks else pa.nulls(1, arr.type)
+            self.values = pd.Series(pd.array(arr, dtype=column.dtype), copy=False)
+        else:
+            distinct = pd.Series(uniques, dtype=column.dtype)
+            self.values = pd.concat([distinct, pd.Series([None], dtype=column.dtype)], ignore_index=True)
+
+    def __len__(self) -> int:
+        return len(self.codes)
+
+    def spread(self, per_value) -> np.ndarray:
+        """Per-distinct-value results (one per ``values`` entry) as one per row."""
+        return np.asarray(per_value)[self.codes]
+
+    def isin(self, items) -> np.ndarray:
+        """Per distinct value: is it one of ``items`` (``Series.isin`` by Python set lookups;
+        a missing cell matches a missing item)?"""
+        items = list(items)
+        keys = {x for x in items if not pd.isna(x)}
+        na_listed = len(keys) < len(items) and any(pd.isna(x) for x in items)
+        return np.array([na_listed if pd.isna(x) else x in keys for x in self.values.tolist()], dtype=bool)
+
+    def lookup(self, mapping: pd.Series) -> np.ndarray:
+        """Per distinct value: ``mapping[value]`` as float (NaN when absent; ``Series.map`` with a
+        Series of unique index)."""
+        pos = mapping.index.get_indexer(self.values)
+        return np.append(mapping.to_numpy(dtype=float), np.nan)[pos]
+
+    def take(self, per_value, codes: np.ndarray | None = None) -> pd.api.extensions.ExtensionArray:
+        """Per-distinct-value texts as a per-row ``str`` array (``codes`` defaults to the rows' own;
+        -1 gives a missing cell)."""
+        return pd.array(per_value, dtype="str").take(self.codes if codes is None else codes)
+
+
 class Checker:
     """Problem collection for one table."""
 
@@ -61,6 +105,7 @@ class Checker:
         self.f = table.frame
         self.rows = table.rows
         self.problems = problems
+        self._distinct: dict[str, Distinct] = {}
 
     @property
     def name(self) -> str:
@@ -69,7 +114,13 @@ class Checker:
     def col(self, column: str) -> pd.Series:
         if column in self.f.columns:
             return self.f[column]
-        return pd.Series([""] * len(self.f), dtype="str")
+        return pd.Series(pd.array([""], dtype="str").take(np.zeros(len(self.f), dtype=np.intp)))
+
+    def distinct(self, column: str) -> Distinct:
+        """The column (all '' when absent) as a :class:`Distinct`, computed once per checker."""
+        if column not in self._distinct:
+            self._distinct[column] = Distinct(self.col(column))
+        return self._distinct[column]
 
     def report(self, mask, column: str | None, message, values=None) -> None:
         """One problem per True row of ``mask``; ``message`` is a string or an array of strings."""
@@ -78,8 +129,10 @@ class Checker:
             return
         idx = np.flatnonzero(mask)
         if values is None:
-            values = self.col(column).to_numpy() if column in self.f.columns else None
-        vals = [None] * len(idx) if values is None else [str(v) for v in np.asarray(values, dtype=object)[idx]]
+            values = self.col(column).iloc[idx].to_numpy() if column in self.f.columns else None
+        else:
+            values = np.asarray(values, dtype=object)[idx]
+        vals = [None] * len(idx) if values is None else [str(v) for v in values]
         msgs = [message] * len(idx) if isinstance(message, str) else list(np.asarray(message, dtype=object)[idx])
         rows = self.rows[idx]
         self.problems.extend(Problem(self.name, int(r), column, v, m) for r, v, m in zip(rows, vals, msgs))
@@ -101,18 +154,30 @@ class Checker:
 
         Returns (values, ok): values are floats (NaN where blank or bad); ok is True where the cell
         holds a finite number. ``required`` (bool mask or True) reports blanks on those rows.
+
+        A column Arrow casts to float64 whole, without a NaN, is taken as it is (no blank, no
+        'na' word, no 'nan' spelling can be in it). Otherwise the cells are read once per distinct
+        text, by the same element-wise rules, and spread to the rows.
         """
         raw = self.col(column)
         text = raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else raw
-        low = raw.str.lower()
-        blank = low.isin(NA_WORDS).to_numpy()
-        v = _to_float(text, blank)
-        nanword = low.isin(_NAN_WORDS).to_numpy()
-        notnum = ~blank & np.isnan(v) & ~nanword
-        nonfinite = ~blank & (np.isinf(v) | nanword)
-        self.report(notnum, column, "is not a number")
-        self.report(nonfinite, column, "is not a finite number")
-        v = np.where(np.isfinite(v), v, np.nan)
+        direct = _cast_float(text)
+        if direct is not None and not np.isnan(direct).any():
+            inf = np.isinf(direct)
+            self.report(inf, column, "is not a finite number")
+            v = np.where(inf, np.nan, direct)
+            return v, ~inf
+        d = self.distinct(column)
+        u_raw = d.values
+        u_text = u_raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else u_raw
+        u_low = u_raw.str.lower()
+        u_blank = u_low.isin(NA_WORDS).to_numpy()
+        u_v = _to_float(u_text, u_blank)
+        u_nanword = u_low.isin(_NAN_WORDS).to_numpy()
+        blank = d.spread(u_blank)
+        self.report(d.spread(~u_blank & np.isnan(u_v) & ~u_nanword), column, "is not a number")
+        self.report(d.spread(~u_blank & (np.isinf(u_v) | u_nanword)), column, "is not a finite number")
+        v = d.spread(np.where(np.isfinite(u_v), u_v, np.nan))
         if required is not None:
             req = np.broadcast_to(np.asarray(required, dtype=bool), blank.shape)
             self.report(req & blank, column, what or f"a value is required in '{column}'")
@@ -123,21 +188,35 @@ class Checker:
 
     def duplicated(self, keys: list[pd.Series] | pd.Series, valid, column: str, what: str) -> np.ndarray:
         """Report rows repeating an earlier row's key (among ``valid`` rows); returns the mask."""
-        frame = pd.DataFrame({f"k{i}": (k.reset_index(drop=True) if isinstance(k, pd.Series) else k)
+        valid = np.asarray(valid, dtype=bool)
+        idx = np.flatnonzero(valid)
+        frame = pd.DataFrame({f"k{i}": (k.reset_index(drop=True).iloc[idx].reset_index(drop=True)
+                                        if isinstance(k, pd.Series) else np.asarray(k)[idx])
                               for i, k in enumerate(keys if isinstance(keys, list) else [keys])})
-        frame["_row"] = self.rows
-        frame = frame[np.asarray(valid, dtype=bool)]
+        frame["_row"] = self.rows[idx]
         kcols = [c for c in frame.columns if c != "_row"]
-        dup = frame.duplicated(kcols, keep="first")
+        dup = frame.duplicated(kcols, keep="first").to_numpy()
         if not dup.any():
             return np.zeros(len(self.f), dtype=bool)
-        first = frame.groupby(kcols, sort=False)["_row"].transform("first")
+        first = frame.groupby(kcols, sort=False)["_row"].transform("first").to_numpy()
         mask = np.zeros(len(self.f), dtype=bool)
-        mask[frame.index[dup.to_numpy()]] = True
+        mask[idx[dup]] = True
         msg = np.full(len(self.f), "", dtype=object)
-        msg[frame.index[dup.to_numpy()]] = [f"{what} (first on row {int(r)})" for r in first[dup].to_numpy()]
+        msg[idx[dup]] = [f"{what} (first on row {int(r)})" for r in first[dup]]
         self.report(mask, column, msg)
         return mask
+
+
+def _cast_float(text: pd.Series) -> np.ndarray | None:
+    """The whole column cast to float64 by Arrow, or None when a cell does not cast (or the column
+    is not Arrow text)."""
+    arr = getattr(text.array, "_pa_array", None)
+    if arr is None:
+        return None
+    try:
+        return np.array(pc.cast(arr, pa.float64()).to_numpy(zero_copy_only=False), dtype=np.float64)
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
+        return None
 
 
 def _to_float(text: pd.Series, blank: np.ndarray) -> np.ndarray:
@@ -275,12 +354,29 @@ def check_plates(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFrame
 
 
 # --------------------------------------------------------------------------- layout
+def _text_ranks(values: pd.Series) -> np.ndarray:
+    """Rank of each entry of ``values`` in code-point order, missing entries after all texts (as
+    ``sort_values`` orders a text column), ties sharing a rank."""
+    present = values.notna().to_numpy(dtype=bool)
+    ranks = np.full(len(values), 0, dtype=np.int64)
+    texts = values[present].astype(str).tolist()
+    order = sorted(range(len(texts)), key=texts.__getitem__)  # distinct values, not rows
+    r = np.empty(len(texts), dtype=np.int64)
+    r[order] = np.arange(len(texts), dtype=np.int64)
+    ranks[present] = r
+    ranks[~present] = len(texts)
+    return ranks
+
+
 def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFrame | None,
                  catalysts: pd.DataFrame | None,
                  conc_factor: float | None, volume_factor: float | None) -> tuple[pd.DataFrame, tuple[str, ...]]:
     """Validate layout.csv against plates and catalysts; returns (wells frame, factor names).
 
     ``plates`` / ``catalysts`` None (their file could not be read) skips the cross-checks with them.
+
+    Text columns are handled as codes into their distinct values (:class:`Distinct`): every
+    element-wise test, lookup and conversion runs once per distinct cell and is spread to the rows.
     """
     ch = Checker(table, problems)
     check_plate_ids = plates is not None
@@ -291,35 +387,42 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     ch.require_columns(["plate", "well", "role", "substrate_conc", "volume"])
     n = len(f)
     # roles
-    role = ch.text("role").str.lower()
+    rd = ch.distinct("role")
+    role_u = rd.values.str.lower()
     if "role" in f.columns:
-        ch.report((role == "").to_numpy(), "role", "a role is required: sample, blank, reference or empty")
-        ch.report(((role != "") & ~role.isin(ROLES)).to_numpy(), "role",
+        ch.report(rd.spread((role_u == "").to_numpy()), "role", "a role is required: sample, blank, reference or empty")
+        ch.report(rd.spread(((role_u != "") & ~role_u.isin(ROLES)).to_numpy()), "role",
                   "unknown role; expected sample, blank, reference or empty")
-    is_cat = role.isin(("sample", "reference")).to_numpy()
-    is_blank = (role == "blank").to_numpy()
-    is_empty = (role == "empty").to_numpy()
-    is_used = role.isin(("sample", "reference", "blank")).to_numpy()
+    is_cat = rd.spread(role_u.isin(("sample", "reference")).to_numpy())
+    is_blank = rd.spread((role_u == "blank").to_numpy())
+    is_empty = rd.spread((role_u == "empty").to_numpy())
+    is_used = rd.spread(role_u.isin(("sample", "reference", "blank")).to_numpy())
     if is_cat.any():
         missing = [c for c in ("catalyst", "loading", "loading_unit") if c not in f.columns]
         if missing:
             ch.whole(", ".join(missing), f"sample and reference wells need the column{'s' if len(missing) > 1 else ''} "
                                         f"{', '.join(missing)}")
     # plate and well
-    pid = ch.text("plate")
+    pd_ = ch.distinct("plate")
     plate_fmt = dict(zip(plates["plate"], plates["format"]))
-    known_plate = pid.isin(list(plate_fmt)).to_numpy()
+    pid_u = pd_.values
+    known_plate = pd_.spread(pd_.isin(plate_fmt))
+    pid_blank = pd_.spread((pid_u == "").to_numpy())
     if "plate" in f.columns:
-        ch.report((pid == "").to_numpy(), "plate", "a plate id is required")
+        ch.report(pid_blank, "plate", "a plate id is required")
         if check_plate_ids:
-            ch.report(((pid != "") & ~known_plate), "plate", "unknown plate (not in plates.csv)")
-    parsed = parse_wells_fast(ch.text("well"))
-    well_ok = parsed["well"].notna().to_numpy()
+            ch.report(pd_.spread((pid_u != "").to_numpy()) & ~known_plate, "plate", "unknown plate (not in plates.csv)")
+    wd = ch.distinct("well")
+    parsed_u = platelib.parse_wells(np.asarray(wd.values.fillna(""), dtype=object))
+    well_u = parsed_u["well"].astype("str")
+    well_ok = wd.spread(well_u.notna().to_numpy())
     if "well" in f.columns:
         ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
-    fmt = pid.map(plate_fmt).fillna(0).astype(np.int64).to_numpy()
+    fmt = pd_.spread(np.array([plate_fmt.get(p, 0) if not pd.isna(p) else 0 for p in pid_u.tolist()], dtype=np.int64))
     nr, nc = platelib.format_dims(fmt)
-    outside = well_ok & known_plate & (fmt > 0) & ((parsed["row"].to_numpy() >= nr) | (parsed["col"].to_numpy() >= nc))
+    row = wd.spread(parsed_u["row"].to_numpy(dtype=np.int64))
+    col = wd.spread(parsed_u["col"].to_numpy(dtype=np.int64))
+    outside = well_ok & known_plate & (fmt > 0) & ((row >= nr) | (col >= nc))
     if outside.any():  # messages built for the failing rows only
         last = np.array(list(platelib.ROW_LETTERS))[np.clip(nr - 1, 0, 15)]
         msg = np.full(n, "", dtype=object)
@@ -327,16 +430,20 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
         msg[idx] = [f"well outside the plate's {a}-well format (rows A-{b}, columns 1-{c})"
                     for a, b, c in zip(fmt[idx], last[idx], nc[idx])]
         ch.report(outside, "well", msg)
-    wells = parsed["well"].astype("str")
-    placed = well_ok & (pid != "").to_numpy()
-    ch.duplicated([pid, wells], placed, "well", "duplicate well in the layout")
+    # canonical well names: distinct raw name -> code of its canonical name (-1: not a well)
+    canon_of_u, canon = pd.factorize(well_u, use_na_sentinel=True)
+    canon_code = wd.spread(canon_of_u)
+    placed = well_ok & ~pid_blank
+    key = pd_.codes.astype(np.int64) * (len(canon) + 1) + (canon_code + 1)  # one int per (plate, well)
+    ch.duplicated([key], placed, "well", "duplicate well in the layout")
     # catalyst
-    cat = ch.text("catalyst")
-    has_cat = (cat != "").to_numpy()
+    cd = ch.distinct("catalyst")
+    cat_u = cd.values
+    has_cat = cd.spread((cat_u != "").to_numpy())
     if "catalyst" in f.columns:
         ch.report(is_cat & ~has_cat, "catalyst", "a sample or reference well needs a catalyst")
         if check_catalyst_ids:
-            ch.report(is_cat & has_cat & ~cat.isin(list(catalysts["catalyst"])).to_numpy(), "catalyst",
+            ch.report(is_cat & has_cat & ~cd.spread(cd.isin(catalysts["catalyst"])), "catalyst",
                       "unknown catalyst (not in catalysts.csv)")
         ch.report(is_blank & has_cat, "catalyst",
                   "a blank well must not name a catalyst (a blank is everything but the catalyst)")
@@ -344,15 +451,18 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     if "loading" in f.columns:
         loading, lok = ch.number("loading", required=is_cat, what="a sample or reference well needs a loading")
         ch.report(is_cat & lok & (loading <= 0), "loading", "loading must be > 0")
-    lu_raw = ch.text("loading_unit")
-    codes, uniq = pd.factorize(lu_raw)  # normalise the few distinct unit words, not every row
-    canon = np.array([units.normalise_loading_unit(u) for u in uniq] + [None], dtype=object)
-    lu = pd.Series(canon[codes], index=f.index, dtype=object)
+    ud = ch.distinct("loading_unit")  # normalise the few distinct unit words, not every row
+    lu_u = np.array([None if u is None or (isinstance(u, float) and np.isnan(u)) else units.normalise_loading_unit(u)
+                     for u in ud.values.iloc[:-1].tolist()] + [None], dtype=object)
+    lu_blank = ud.spread((ud.values == "").to_numpy())
+    lu_none = ud.spread(pd.isna(lu_u))
     if "loading_unit" in f.columns:
-        ch.report(is_cat & (lu_raw == "").to_numpy(), "loading_unit",
+        ch.report(is_cat & lu_blank, "loading_unit",
                   "a sample or reference well needs a loading_unit (umol, mg or mol%)")
-        ch.report(is_cat & (lu_raw != "").to_numpy() & lu.isna().to_numpy(), "loading_unit",
+        ch.report(is_cat & ~lu_blank & lu_none, "loading_unit",
                   "unknown loading unit; expected umol, mg or mol%")
+    lu_mg = ud.spread(lu_u == "mg")
+    lu_molpct = ud.spread(lu_u == "mol%")
     # substrate and volume
     conc = np.full(n, np.nan)
     vol = np.full(n, np.nan)
@@ -367,15 +477,15 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     if "catalyst" in f.columns and "loading_unit" in f.columns and len(catalysts):
         cinfo = catalysts.set_index("catalyst")
         cinfo = cinfo[~cinfo.index.duplicated()]
-        mm = cat.map(cinfo["molar_mass_g_mol"]).to_numpy(dtype=float)
-        wt = cat.map(cinfo["metal_wt_pct"]).to_numpy(dtype=float)
-        mmm = cat.map(cinfo["metal_molar_mass_g_mol"]).to_numpy(dtype=float)
-        known_cat = cat.isin(list(cinfo.index)).to_numpy()
-        mg = is_cat & known_cat & (lu == "mg").to_numpy()
+        mm = cd.spread(cd.lookup(cinfo["molar_mass_g_mol"]))
+        wt = cd.spread(cd.lookup(cinfo["metal_wt_pct"]))
+        mmm = cd.spread(cd.lookup(cinfo["metal_molar_mass_g_mol"]))
+        known_cat = cd.spread(cd.isin(cinfo.index))
+        mg = is_cat & known_cat & lu_mg
         ch.report(mg & np.isnan(mm) & ~(np.isfinite(wt) & np.isfinite(mmm)), "loading_unit",
                   "an mg loading needs molar_mass_g_mol, or metal_wt_pct and metal_molar_mass_g_mol, "
                   "for this catalyst in catalysts.csv")
-    molpct = is_cat & (lu == "mol%").to_numpy()
+    molpct = is_cat & lu_molpct
     ch.report(molpct & ~(conc > 0), "loading_unit",
               "a mol% loading needs a substrate_conc > 0 (mol% is relative to the substrate)")
     # temperature override
@@ -383,7 +493,9 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     if "temperature_c" in f.columns:
         tw, twok = ch.number("temperature_c")
         _temperature(ch, "temperature_c", tw, twok)
-    plate_t = pid.map(dict(zip(plates["plate"], plates["temperature_c"]))).to_numpy(dtype=float)
+    plate_temp = dict(zip(plates["plate"], plates["temperature_c"]))
+    plate_t = pd_.spread(np.array([plate_temp.get(p, np.nan) if not pd.isna(p) else np.nan for p in pid_u.tolist()],
+                                  dtype=float))
     temp = np.where(np.isfinite(tw), tw, plate_t)
     # factors
     factors = [c for c in f.columns if c not in LAYOUT_COLUMNS]
@@ -392,31 +504,66 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
             ch.whole(c, f"'{c}' cannot be a factor column name (it is a reserved column of the wells table); rename it")
     cf = conc_factor if conc_factor is not None else np.nan
     vf = volume_factor if volume_factor is not None else np.nan
+    # rows sorted by plate (text order, missing last), row, col; stable
+    order = np.lexsort((col, row, pd_.spread(_text_ranks(pid_u)))) if n else np.zeros(0, dtype=np.intp)
+    p_codes, w_codes, r_codes, c_codes, u_codes = (d.codes[order] for d in (pd_, wd, rd, cd, ud))
+    cat_keep, unit_keep = (is_cat & has_cat)[order], is_cat[order]
     out = pd.DataFrame({
-        "plate": pid.astype("str"),
-        "well": wells,
-        "row": parsed["row"].to_numpy(dtype=np.int64),
-        "col": parsed["col"].to_numpy(dtype=np.int64),
-        "role": role.astype("str"),
-        "catalyst": cat.where(is_cat & has_cat, None).astype("str"),
-        "loading": np.where(is_cat, loading, np.nan),
-        "loading_unit": lu.where(is_cat, None).astype("str"),
-        "substrate_conc_mM": np.where(is_empty, np.nan, conc * cf),
-        "volume_uL": np.where(is_empty, np.nan, vol * vf),
-        "temperature_c": temp,
+        "plate": pd_.take(pid_u, p_codes),
+        "well": wd.take(well_u, w_codes),
+        "row": row[order],
+        "col": col[order],
+        "role": rd.take(role_u, r_codes),
+        "catalyst": cd.take(cat_u, np.where(cat_keep, c_codes, -1)),
+        "loading": np.where(is_cat, loading, np.nan)[order],
+        "loading_unit": ud.take(lu_u, np.where(unit_keep, u_codes, -1)),
+        "substrate_conc_mM": np.where(is_empty, np.nan, conc * cf)[order],
+        "volume_uL": np.where(is_empty, np.nan, vol * vf)[order],
+        "temperature_c": temp[order],
     })
     for c in factors:
-        out[c] = f[c].astype("str").to_numpy()
-    out = out.sort_values(["plate", "row", "col"], kind="stable").reset_index(drop=True)
+        out[c] = f[c].astype("str").to_numpy()[order]
     return out, tuple(factors)
 
 
 # --------------------------------------------------------------------------- readings
+def _fold(keys: list[tuple[np.ndarray, int]]) -> np.ndarray | None:
+    """Small non-negative integer keys (each with its number of values) folded into one int64 whose
+    numeric order is their lexicographic order (mixed radix), or None when it would not fit."""
+    span = 1
+    for _, size in keys:
+        span *= max(int(size), 1)
+    if span >= 2 ** 62:
+        return None
+    out = np.zeros(len(keys[0][0]), dtype=np.int64)
+    for k, size in keys:
+        out = out * max(int(size), 1) + k
+    return out
+
+
+def _sort_rows(group: np.ndarray, time: np.ndarray) -> np.ndarray:
+    """``np.lexsort((time, group))``: a stable sort by group; the time sort is skipped when every
+    group's times already come in order (NaN after numbers, as lexsort puts them)."""
+    order = np.argsort(group, kind="stable")
+    g, t = group[order], time[order]
+    same = g[1:] == g[:-1]
+    a, b = t[:-1], t[1:]
+    back = (a > b) | (np.isnan(a) & ~np.isnan(b))
+    if (same & back).any():
+        return np.lexsort((time, group))
+    return order
+
+
 def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFrame | None,
                    plates: pd.DataFrame | None, info: dict) -> tuple[pd.DataFrame, list[str]]:
     """Validate readings.csv against the layout and the manifest (``info`` from parse_manifest).
 
     ``wells`` / ``plates`` None (their file could not be read) skips the cross-checks with them.
+
+    Plates, wells and analytes are integer codes over their distinct texts (:class:`Distinct`):
+    the checks, the layout lookup, the duplicate test and the final sort work on the codes, never
+    on per-row strings. Duplicates are found from the sorted rows (equal plate, well, analyte and
+    time are neighbours there); only the few rows in such runs go through the exact test.
     """
     ch = Checker(table, problems)
     check_wells = wells is not None
@@ -427,38 +574,45 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
     notes = extra_columns_note(ch, READING_COLUMNS)
     ch.require_columns(["plate", "well", "time", "value"])
     n = len(f)
-    # plates and wells as integer codes over their distinct texts: checks, the layout lookup, the
-    # duplicate test and the final sort work on the codes, never on per-row strings
-    pid = ch.text("plate")
-    p_codes, p_uniq = pd.factorize(pid)
-    p_uniq = pd.Index(p_uniq)
-    known_plate = p_uniq.isin(list(plates["plate"]))[p_codes] if n else np.zeros(0, dtype=bool)
+    pd_ = ch.distinct("plate")
+    p_codes = pd_.codes
+    p_u = pd_.values
+    known_plate = pd_.spread(pd_.isin(plates["plate"]))
+    p_blank = pd_.spread((p_u == "").to_numpy())
     if "plate" in f.columns:
-        p_blank = (p_uniq == "")[p_codes] if n else np.zeros(0, dtype=bool)
         ch.report(p_blank, "plate", "a plate id is required")
         if check_plate_ids:
             ch.report(~p_blank & ~known_plate, "plate", "unknown plate (not in plates.csv)")
-    w_codes, w_uniq = pd.factorize(ch.text("well").fillna(""))
-    w_name = platelib.parse_wells(np.asarray(w_uniq, dtype=object))["well"].astype("str")
+    wd = ch.distinct("well")
+    w_name = platelib.parse_wells(np.asarray(wd.values.fillna(""), dtype=object))["well"].astype("str")
     c_of_w, c_uniq = pd.factorize(w_name, use_na_sentinel=True)  # distinct raw name -> canonical name code
-    c_codes = c_of_w[w_codes] if n else np.zeros(0, dtype=np.intp)  # per row; -1: not a well name
+    c_codes = wd.spread(c_of_w)  # per row; -1: not a well name
     well_ok = c_codes >= 0
-    well = pd.Series(pd.array(w_name, dtype="str").take(w_codes), copy=False)
     if "well" in f.columns:
         ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
     # layout (plate, well) -> role of its first row, as one int64 key per layout row and per reading
-    n_c = max(len(c_uniq), 1)
-    lay_p = p_uniq.get_indexer(wells["plate"].astype("str"))
+    n_p, n_c = len(p_u), max(len(c_uniq), 1)
+    lay_p = pd.Index(p_u.iloc[:-1]).get_indexer(wells["plate"].astype("str"))
     lay_c = pd.Index(c_uniq).get_indexer(wells["well"].astype("str"))
     lay_ok = (lay_p >= 0) & (lay_c >= 0)
-    lay_key, first = np.unique(lay_p[lay_ok].astype(np.int64) * n_c + lay_c[lay_ok], return_index=True)
-    lay_empty = wells["role"].to_numpy(dtype=object)[np.flatnonzero(lay_ok)[first]] == "empty"
-    row_key = p_codes.astype(np.int64) * n_c + c_codes
-    pos = np.clip(np.searchsorted(lay_key, row_key), 0, max(len(lay_key) - 1, 0))
-    in_layout = well_ok & (lay_key[pos] == row_key) if len(lay_key) else np.zeros(n, dtype=bool)
+    keys = lay_p[lay_ok].astype(np.int64) * n_c + lay_c[lay_ok]
+    first = ~pd.Index(keys).duplicated(keep="first")
+    lay_key = keys[first]
+    lay_empty = (wells["role"] == "empty").to_numpy(dtype=bool)[np.flatnonzero(lay_ok)[first]]
+    placed = well_ok & (p_codes >= 0)
+    row_key = np.where(placed, p_codes.astype(np.int64) * n_c + c_codes, 0)
+    if n_p * n_c <= max(4 * (n + len(wells)), 1 << 20):  # direct address table
+        slot = np.full(n_p * n_c, -1, dtype=np.int64)
+        slot[lay_key] = np.arange(len(lay_key))
+        hit = slot[row_key]
+    else:  # sparse key space: binary search
+        srt = np.argsort(lay_key)
+        pos = np.clip(np.searchsorted(lay_key[srt], row_key), 0, max(len(lay_key) - 1, 0))
+        hit = np.where(lay_key[srt][pos] == row_key, srt[pos], -1) if len(lay_key) else np.full(n, -1)
+    in_layout = placed & (hit >= 0)
     check_place = known_plate & well_ok & check_wells
     ch.report(check_place & ~in_layout, "well", "reading for a well that is not in layout.csv")
-    on_empty = in_layout & lay_empty[pos] if len(lay_key) else np.zeros(n, dtype=bool)
+    on_empty = in_layout & lay_empty[np.maximum(hit, 0)] if len(lay_key) else np.zeros(n, dtype=bool)
     ch.report(on_empty, "well", "reading on a well marked empty in layout.csv")
     # time
     t = np.full(n, np.nan)
@@ -492,56 +646,73 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
     # analytes
     declared = bool(info.get("analytes_declared"))
     kind = info.get("kind")
-    an = ch.text("analyte")
     if "analyte" in f.columns:
+        ad = ch.distinct("analyte")
+        a_u = ad.values
+        seen = np.bincount(ad.codes % len(a_u), minlength=len(a_u)) > 0 if n else np.zeros(len(a_u), dtype=bool)
         if not declared:
             ch.whole("analyte", "readings have an analyte column but campaign.toml declares no [analytes] table")
-        ch.report((an == "").to_numpy(), "analyte", "an analyte name is required")
-        names = pd.unique(an[an != ""])
-        if kind in ("conversion", "absorbance") and len(names) > 1:
+        ch.report(ad.spread((a_u == "").to_numpy()), "analyte", "an analyte name is required")
+        n_names = int((seen & (a_u != "").to_numpy()).sum())
+        if kind in ("conversion", "absorbance") and n_names > 1:
             ch.whole("analyte", f"a {kind} readout gives one value per well and time, but the readings name "
-                                f"{len(names)} analytes; several analytes need a yield or product_conc readout")
+                                f"{n_names} analytes; several analytes need a yield or product_conc readout")
         if declared:
             main = info.get("main", DEFAULT_ANALYTE)
             byp = tuple(info.get("byproducts") or ())
             en = info.get("enantiomers")
             allowed = ({main} if not en else set()) | set(byp) | set(en or ())
             listed = ", ".join(sorted(allowed))
-            unknown = (an != "").to_numpy() & ~an.isin(list(allowed)).to_numpy()
+            unknown = (a_u != "").to_numpy() & ~ad.isin(allowed)
             if en:
-                is_main = (an == main).to_numpy()
-                ch.report(is_main, "analyte",
+                is_main = (a_u == main).to_numpy()
+                ch.report(ad.spread(is_main), "analyte",
                           f"'{main}' is the sum of the enantiomers {en[0]} and {en[1]} and has no readings of its "
                           "own; read the two enantiomers instead")
                 unknown &= ~is_main
                 for e in en:  # two names
-                    if not (an == e).any():
+                    if not (seen & (a_u == e).to_numpy()).any():
                         ch.whole("analyte", f"enantiomer '{e}' is declared in campaign.toml but never read", e)
-            ch.report(unknown, "analyte", f"unknown analyte; campaign.toml [analytes] declares {listed}")
-    elif declared:
-        ch.whole("analyte", "campaign.toml declares [analytes], so readings.csv needs an analyte column")
-    analyte = an if "analyte" in f.columns else pd.Series([DEFAULT_ANALYTE] * n, dtype="str")
-    a_codes, a_uniq = pd.factorize(analyte)
-    # duplicates
-    p_filled = (p_uniq != "")[p_codes] if n else np.zeros(0, dtype=bool)
-    ch.duplicated([p_codes, c_codes, a_codes, t], tok & well_ok & p_filled, "time",
-                  "duplicate reading for the same plate, well, analyte and time")
+            ch.report(ad.spread(unknown), "analyte", f"unknown analyte; campaign.toml [analytes] declares {listed}")
+        a_codes, a_u_out = ad.codes, a_u
+    else:
+        if declared:
+            ch.whole("analyte", "campaign.toml declares [analytes], so readings.csv needs an analyte column")
+        a_codes = np.zeros(n, dtype=np.intp)
+        a_u_out = pd.Series([DEFAULT_ANALYTE, None], dtype="str")
     tf = info.get("time_factor")
     time_h = t * (tf if tf is not None else np.nan)
     # sort by plate, well, analyte, time_h (text in code-point order, missing last; stable), as
     # DataFrame.sort_values would, from the ranks of the distinct texts
-    def rank(uniq) -> np.ndarray:
-        r = np.full(len(uniq) + 1, len(uniq), dtype=np.int64)  # last slot: missing (code -1)
-        present = np.flatnonzero(pd.notna(np.asarray(uniq, dtype=object)))
-        order = present[np.argsort(np.asarray(uniq, dtype=object)[present], kind="stable")]
-        r[order] = np.arange(len(order))
-        return r
-    order = np.lexsort((time_h, rank(a_uniq)[a_codes], rank(c_uniq)[c_codes], rank(p_uniq)[p_codes])) \
-        if n else np.zeros(0, dtype=np.intp)
+    p_rank = _text_ranks(p_u)[p_codes]
+    c_rank = _text_ranks(pd.concat([pd.Series(c_uniq, dtype="str"), pd.Series([None], dtype="str")],
+                                   ignore_index=True))[c_codes]
+    a_rank = _text_ranks(a_u_out)[a_codes]
+    group = _fold([(p_rank, n_p), (c_rank, len(c_uniq) + 1), (a_rank, len(a_u_out))]) if n else None
+    if not n:
+        order = np.zeros(0, dtype=np.intp)
+    elif group is None:
+        order = np.lexsort((time_h, a_rank, c_rank, p_rank))
+    else:
+        order = _sort_rows(group, time_h)
+    # duplicates: rows with the same plate, well, analyte and time share (group, time_h), so they
+    # are neighbours in the sorted order; the exact test runs on the rows of such runs only
+    valid = tok & well_ok & ~p_blank
+    if group is not None and tf is not None and np.isfinite(tf) and tf > 0:
+        g, th = group[order], time_h[order]
+        tie = (g[1:] == g[:-1]) & (th[1:] == th[:-1])
+        run = np.zeros(n, dtype=bool)
+        run[1:] |= tie
+        run[:-1] |= tie
+        candidate = np.zeros(n, dtype=bool)
+        candidate[order] = run
+        valid &= candidate
+    ch.duplicated([p_codes, c_codes, a_codes, t], valid, "time",
+                  "duplicate reading for the same plate, well, analyte and time")
     out = pd.DataFrame({
-        "plate": pd.array(pid.array, dtype="str").take(order),
-        "well": well.array.take(order),
-        "analyte": pd.array(analyte.array, dtype="str").take(order),
+        "plate": pd_.take(p_u, p_codes[order]),
+        "well": wd.take(w_name, wd.codes[order]),
+        "analyte": pd.array(a_u_out, dtype="str").take(a_codes[order]),
         "time_h": time_h[order],
         "value": v[order],
     })

@@ -202,10 +202,8 @@ def _column_hash(s: pd.Series) -> np.ndarray:
     """One uint64 per cell of a stored-form column, defined by the value alone (not by dtype or
     pandas internals): text by BLAKE2b of its UTF-8, integers and floats by their 64-bit pattern
     (one NaN pattern; -0.0 was already made 0.0), missing cells by a fixed constant."""
-    if isinstance(s.dtype, pd.StringDtype) or s.dtype == object:
-        codes, uniques = pd.factorize(s, use_na_sentinel=True)
-        h = _text_hash(uniques.tolist())
-        return np.where(codes < 0, _NA_HASH, h[np.clip(codes, 0, None)] if len(h) else _NA_HASH)
+    if _is_text(s):
+        return _ColumnReader(s.to_frame("c")).hash("c")
     if isinstance(s.dtype, pd.Int64Dtype):
         na = s.isna().to_numpy(dtype=bool)
         v = s.fillna(0).to_numpy(dtype=np.int64).view(np.uint64)
@@ -216,33 +214,129 @@ def _column_hash(s: pd.Series) -> np.ndarray:
     return np.where(na, _NA_HASH, _mix64(bits ^ np.uint64(0x2)))
 
 
-def _row_hashes(frame: pd.DataFrame, cols: list[str]) -> np.ndarray:
-    """One uint64 per row combining ``cols`` in order (each column tagged with its name)."""
-    h = np.zeros(len(frame), dtype=np.uint64)
-    for c in cols:  # columns, not rows
-        tag = _text_hash([c])[0]
-        h = _mix64((h * np.uint64(0x100000001B3)) ^ _mix64(_column_hash(frame[c]) ^ tag))
-    return h
+def _is_text(s: pd.Series) -> bool:
+    return isinstance(s.dtype, pd.StringDtype) or s.dtype == object
 
 
 def _sort_key(s: pd.Series) -> np.ndarray:
     """A numeric key ordering a column by value (text via sorted factor codes, missing first)."""
-    if isinstance(s.dtype, pd.StringDtype) or s.dtype == object:
+    if _is_text(s):
         return pd.factorize(s, sort=True, use_na_sentinel=True)[0]
     return pd.to_numeric(s, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+
+
+class _ColumnReader:
+    """The columns of one stored-form frame (optionally only the rows of ``keep``), each read
+    once: cell hashes as :func:`_column_hash` defines them and sort keys ordering rows as
+    :func:`_sort_key` does. A text column is factorised once; its distinct values are hashed
+    and ranked, and both are spread to the rows through the codes."""
+
+    def __init__(self, frame: pd.DataFrame, keep: np.ndarray | None = None):
+        self.frame = frame
+        self.keep = keep
+        self._factors: dict[str, tuple[np.ndarray, Any]] = {}
+
+    def _factor(self, c: str) -> tuple[np.ndarray, Any]:
+        if c not in self._factors:
+            codes, uniques = pd.factorize(self.frame[c], use_na_sentinel=True)
+            codes = np.asarray(codes, dtype=np.intp)
+            self._factors[c] = (codes if self.keep is None else codes[self.keep], uniques)
+        return self._factors[c]
+
+    def _values(self, c: str) -> pd.Series:
+        s = self.frame[c]
+        return s if self.keep is None else s[self.keep]
+
+    def hash(self, c: str, tag: np.uint64 | None = None) -> np.ndarray:
+        """Cell hashes of column ``c``; with ``tag``, ``_mix64(hash ^ tag)`` (for text taken on the
+        distinct values and spread, which is the same number per cell)."""
+        if not _is_text(self.frame[c]):
+            h = _column_hash(self._values(c))
+            return h if tag is None else _mix64(h ^ tag)
+        codes, uniques = self._factor(c)
+        h = np.append(_text_hash(uniques.tolist() if hasattr(uniques, "tolist") else list(uniques)), _NA_HASH)
+        return (h if tag is None else _mix64(h ^ tag))[codes]  # last slot: missing (code -1)
+
+    def key(self, c: str) -> tuple[np.ndarray, int | None]:
+        """(sort key, number of distinct values); text keys are ranks 0..n-1 (missing -1), and
+        only they carry the count."""
+        if not _is_text(self.frame[c]):
+            return _sort_key(self._values(c)), None
+        codes, uniques = self._factor(c)
+        ranks = np.append(_sort_key(pd.Series(uniques)), -1).astype(np.int64)  # ranks of the distinct values
+        return ranks[codes], len(uniques)
+
+
+def _row_hashes(frame: pd.DataFrame | _ColumnReader, cols: list[str]) -> np.ndarray:
+    """One uint64 per row combining ``cols`` in order (each column tagged with its name):
+    ``h = mix(h * P ^ mix(cell ^ tag))`` from ``h = 0``."""
+    reader = frame if isinstance(frame, _ColumnReader) else _ColumnReader(frame)
+    n = len(reader.frame) if reader.keep is None else int(np.count_nonzero(reader.keep))
+    h = None
+    for c in cols:  # columns, not rows
+        tag = _text_hash([c])[0]
+        cell = reader.hash(c, tag)
+        # first column: h = 0, so h * P ^ x is x itself
+        h = _mix64(cell) if h is None else _mix64((h * np.uint64(0x100000001B3)) ^ cell)
+    return np.zeros(n, dtype=np.uint64) if h is None else h
+
+
+def _lex_sorted(keys: list[np.ndarray]) -> bool:
+    """True when rows already follow the order ``np.lexsort(keys[::-1])`` gives (primary key
+    first; NaN after every number, NaNs tied), so that the sort can be skipped: a stable sort of
+    sorted rows is the identity."""
+    if len(keys[0]) < 2:
+        return True
+    open_ = np.ones(len(keys[0]) - 1, dtype=bool)  # pairs not yet decided by an earlier key
+    for k in keys:
+        a, b = k[:-1], k[1:]
+        if k.dtype.kind == "f":
+            na, nb = np.isnan(a), np.isnan(b)
+            lt, gt = (a < b) | (~na & nb), (a > b) | (na & ~nb)
+        else:
+            lt, gt = a < b, a > b
+        if (open_ & gt).any():
+            return False
+        open_ &= ~lt
+        if not open_.any():
+            return True
+    return True
+
+
+def _plate_positions(names: pd.Index, plate: pd.Series) -> np.ndarray:
+    """Position in ``names`` of each row's plate (as text, missing as NUL; -1 when absent), looked
+    up once per distinct name."""
+    codes, uniques = pd.factorize(plate, use_na_sentinel=True)
+    text = pd.Series(uniques).astype("string").fillna("\x00").tolist() + ["\x00"]  # last: missing
+    return names.get_indexer(pd.Index(text, dtype="string"))[np.asarray(codes, dtype=np.intp)]
 
 
 def _plate_digests(names: pd.Index, frame: pd.DataFrame, keys: list[str], cols: list[str]) -> list[str]:
     """SHA-256 per plate of ``names`` over the row hashes of its rows, rows sorted canonically by
     ``keys`` (so the order of rows in the files does not matter). One vectorised sort and hash over
-    the whole frame; each plate's digest is taken of its contiguous slice of the hash array."""
-    pos = names.get_indexer(frame["plate"].astype("string").fillna("\x00"))
+    the whole frame; each plate's digest is taken of its contiguous slice of the hash array.
+
+    Rows are hashed in their own order and the hashes permuted (a row's hash does not depend on
+    its place). The plate position and the text keys right after it are folded into one int64
+    key (lexicographic order of small ranks = numeric order of the mixed-radix number), and the
+    sort is skipped when the rows already come in that order."""
+    pos = _plate_positions(names, frame["plate"])
+    keep = None
     if (pos < 0).any():  # rows of a plate not in the plates table (the validation refuses them)
         keep = pos >= 0
-        frame, pos = frame.loc[keep], pos[keep]
-    order = np.lexsort([_sort_key(frame[k]) for k in reversed(keys)] + [pos]) if len(frame) else np.zeros(0, int)
-    part = frame.iloc[order]
-    hashes = _row_hashes(part, cols)
+        pos = pos[keep]
+    reader = _ColumnReader(frame, keep)
+    lead, span, rest = pos.astype(np.int64), max(len(names), 1), []
+    for k in keys:
+        key, n_distinct = reader.key(k)
+        if not rest and n_distinct is not None and span * (n_distinct + 1) < 2 ** 62:
+            lead, span = lead * (n_distinct + 1) + (key + 1), span * (n_distinct + 1)
+        else:
+            rest.append(key)
+    ordered = [lead] + rest
+    hashes = _row_hashes(reader, cols)
+    if not _lex_sorted(ordered):
+        hashes = hashes[np.lexsort(ordered[::-1])]
     bounds = np.concatenate([[0], np.cumsum(np.bincount(pos, minlength=len(names)))])
     return [hashlib.sha256(hashes[a:b].tobytes()).hexdigest() for a, b in zip(bounds[:-1], bounds[1:])]
 
@@ -324,8 +418,16 @@ def _validate(data: CampaignData) -> None:
         raise ValidationError(problems, source=f"campaign {data.manifest.name!r}")
 
     def dupes(frame, keys, name):
-        bad = frame[keys].isna().any(axis=1) | frame.duplicated(keys, keep="first")
-        for pos in np.flatnonzero(bad.to_numpy())[:20]:
+        # missing or repeated keys, judged on per-column factor codes (the same equality as
+        # DataFrame.duplicated, which factorises the key columns too)
+        key = np.zeros(len(frame), dtype=np.int64)
+        missing = np.zeros(len(frame), dtype=bool)
+        for k in keys:  # one or two key columns
+            codes, uniques = pd.factorize(frame[k], use_na_sentinel=True)
+            missing |= codes < 0
+            key = key * (len(uniques) + 1) + (codes + 1)
+        bad = missing | _repeated(key)
+        for pos in np.flatnonzero(bad)[:20]:
             vals = ", ".join(str(frame[k].iloc[pos]) for k in keys)
             problems.append(Problem(name, int(pos) + 2, keys[-1], vals, f"{'/'.join(keys)} missing or not unique"))
 
@@ -335,12 +437,25 @@ def _validate(data: CampaignData) -> None:
     known = set(data.plates["plate"].dropna().astype(str))
     for name in ("wells", "readings"):
         frame = getattr(data, name)
-        bad = ~frame["plate"].astype("string").isin(known).fillna(False).to_numpy(dtype=bool)
+        bad = ~_rows_in(frame["plate"], known)
         for pos in np.flatnonzero(bad)[:20]:
             problems.append(Problem(name, int(pos) + 2, "plate", str(frame["plate"].iloc[pos]),
                                     "plate is not in the plates table"))
     if problems:
         raise ValidationError(problems, source=f"campaign {data.manifest.name!r}")
+
+
+def _repeated(key: np.ndarray) -> np.ndarray:
+    """True for every element equal to an earlier one (``duplicated(keep="first")``)."""
+    return pd.Index(key).duplicated(keep="first")
+
+
+def _rows_in(values: pd.Series, names) -> np.ndarray:
+    """Per row: is the cell, as text, one of ``names`` (missing: no)? Judged once per distinct value."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    text = pd.Series(uniques).astype("string").tolist()
+    hit = np.array([t is not pd.NA and t in names for t in text] + [False], dtype=bool)  # last: missing
+    return hit[np.asarray(codes, dtype=np.intp)]
 
 
 def _prepare(data: CampaignData) -> _Prepared:
@@ -354,17 +469,18 @@ def _prepare(data: CampaignData) -> _Prepared:
     for frame, name in ((cat, "catalysts"), (pla, "plates"), (wel, "wells"), (rea, "readings")):
         frame["seq"] = np.arange(len(frame), dtype=np.int64)
     # every wells column that is not canonical is a named factor, kept in long form
-    factor_columns = tuple(str(c) for c in data.wells.columns if c not in WELL_COLS)
-    if factor_columns:
-        wide = data.wells[list(factor_columns)].reset_index(drop=True)
-        wide = wide.apply(_text)
-        long = wide.assign(seq=np.arange(len(wide), dtype=np.int64)).melt(
-            id_vars="seq", var_name="factor", value_name="value")
-        long = long[long["value"].notna()]
-        long = long.merge(wel[["seq", "plate", "well"]], on="seq", how="left")
-        factors = long[["plate", "seq", "well", "factor", "value"]].reset_index(drop=True)
-        factors["factor"] = factors["factor"].astype("string")
-        factors["value"] = factors["value"].astype("string")
+    labels = [c for c in data.wells.columns if c not in WELL_COLS]
+    factor_columns = tuple(str(c) for c in labels)
+    parts = []
+    for c in labels:  # a few named factors; each keeps its non-missing cells, in well order
+        value = _text(data.wells[c].reset_index(drop=True))
+        seq = np.flatnonzero(value.notna().to_numpy(dtype=bool))
+        parts.append(pd.DataFrame({
+            "plate": wel["plate"].array.take(seq), "seq": seq.astype(np.int64), "well": wel["well"].array.take(seq),
+            "factor": pd.array([str(c)], dtype="string").take(np.zeros(len(seq), dtype=np.intp)),
+            "value": value.array.take(seq)}))
+    if parts:
+        factors = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0]
     else:
         factors = pd.DataFrame({"plate": pd.array([], dtype="string"), "seq": np.array([], dtype=np.int64),
                                 "well": pd.array([], dtype="string"), "factor": pd.array([], dtype="string"),
@@ -801,10 +917,15 @@ class Store:
                 campaign=name, plates=tuple(changed), catalysts=tuple(cats_changed), manifest=manifest_changed)
 
         write_plates = added + changed
-        sel_p = prep.plates["plate"].isin(write_plates).to_numpy(dtype=bool)
-        sel_w = prep.wells["plate"].isin(write_plates).to_numpy(dtype=bool)
-        sel_r = prep.readings["plate"].isin(write_plates).to_numpy(dtype=bool)
-        n_wells, n_readings = int(sel_w.sum()), int(sel_r.sum())
+        # rows of the plates being written (every row when no plate is unchanged: the validation
+        # has made sure that each row's plate is in the plates table)
+        write_set = set(write_plates)
+
+        def rows(frame: pd.DataFrame) -> pd.DataFrame:
+            return frame if not unchanged else frame.loc[_rows_in(frame["plate"], write_set)]
+
+        wells_out, readings_out = rows(prep.wells), rows(prep.readings)
+        n_wells, n_readings = len(wells_out), len(readings_out)
 
         if new_campaign:
             status = "imported"
@@ -839,7 +960,7 @@ class Store:
                 m.volume_unit, m.analyte_main, list(m.byproducts), None if m.enantiomers is None else list(m.enantiomers),
                 json.dumps(m.analysis, default=str), json.dumps(_manifest_dict(m)), m.source_toml,
                 list(factor_names), json.dumps(schema)])
-            _bulk_insert(con, "catalysts", catalysts.assign(**tag))
+            _bulk_insert(con, "catalysts", _tagged(catalysts, **tag))
         if changed:
             names = pd.DataFrame({"plate": pd.array(changed, dtype="string")})
             con.register("incoming_plate_names", names)
@@ -847,13 +968,12 @@ class Store:
                 con.execute(Q.SUPERSEDE_PLATES, [import_id, name])
             finally:
                 con.unregister("incoming_plate_names")
-        plates = prep.plates.loc[sel_p].merge(fps[["plate", "fp"]], on="plate", how="left").rename(
+        plates = rows(prep.plates).merge(fps[["plate", "fp"]], on="plate", how="left").rename(
             columns={"fp": "fingerprint"})
-        _bulk_insert(con, "plates", plates.assign(**tag))
-        _bulk_insert(con, "wells", prep.wells.loc[sel_w].assign(**tag))
-        _bulk_insert(con, "well_factors",
-                     prep.factors.loc[prep.factors["plate"].isin(write_plates).to_numpy(dtype=bool)].assign(**tag))
-        _bulk_insert(con, "readings", prep.readings.loc[sel_r].assign(**tag))
+        _bulk_insert(con, "plates", _tagged(plates, **tag))
+        _bulk_insert(con, "wells", _tagged(wells_out, **tag))
+        _bulk_insert(con, "well_factors", _tagged(rows(prep.factors), **tag))
+        _bulk_insert(con, "readings", _tagged(readings_out, **tag))
         from screenlab import __version__
 
         lib = con.execute(Q.LIBRARY_VERSION).fetchall()[0][0]
@@ -900,15 +1020,26 @@ class Store:
         return text
 
 
-def _bulk_insert(con, table: str, frame: pd.DataFrame) -> None:
-    """INSERT ... SELECT from the frame as one Arrow table (one statement per table, never row by row).
+def _tagged(frame: pd.DataFrame, *, campaign: str, import_id: int) -> pa.Table:
+    """``frame`` as one Arrow table plus the constant ``campaign`` and ``import_id`` columns (built
+    in Arrow, not as per-row Python values)."""
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    n = table.num_rows
+    return (table.append_column("campaign", pa.array([campaign], pa.large_string()).take(
+                pa.array(np.zeros(n, dtype=np.int32))))
+            .append_column("import_id", pa.array(np.full(n, import_id, dtype=np.int64))))
 
-    Converting to Arrow first lets DuckDB scan the columns zero-copy; scanning pandas text columns
-    directly costs several times more at campaign scale."""
-    if frame.empty:
+
+def _bulk_insert(con, table: str, rows: pa.Table | pd.DataFrame) -> None:
+    """INSERT ... SELECT from the rows as one Arrow table (one statement per table, never row by row).
+
+    Arrow lets DuckDB scan the columns zero-copy; scanning pandas text columns directly costs
+    several times more at campaign scale."""
+    data = rows if isinstance(rows, pa.Table) else pa.Table.from_pandas(rows, preserve_index=False)
+    if data.num_rows == 0:
         return
     view = f"incoming_{table}"
-    con.register(view, pa.Table.from_pandas(frame, preserve_index=False))
+    con.register(view, data)
     try:
         con.execute(Q.BULK_INSERT[table])
     finally:
