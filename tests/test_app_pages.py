@@ -132,7 +132,7 @@ def test_temperature_series(monkeypatch, demo_store):
 
 def test_ranking_metric_change(monkeypatch, demo_store):
     at = _page(monkeypatch, demo_store, "ranking")
-    assert "Pareto view" in _texts(at)
+    assert at.radio(key="rank_view").options == ["Ranking", "Pareto view"]
     before = at.dataframe[0].value
     box = at.selectbox(key="rank_metric")
     assert box.value == "tof" and len(box.options) >= 2
@@ -144,6 +144,19 @@ def test_ranking_metric_change(monkeypatch, demo_store):
     assert list(before["catalyst"]) != list(after["catalyst"])
     forest = _figures(at)[0]
     assert forest["data"][0]["error_x"]["array"] is not None
+
+
+def test_ranking_pareto_view(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "ranking")
+    at.radio(key="rank_view").set_value("Pareto view").run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert "Pareto view" in _texts(at)
+    assert at.multiselect(key="rank_pareto").value == ["tof", "ea"]
+    fig = _figures(at)[0]
+    names = {t.get("name") for t in fig["data"]}
+    assert "Pareto front" in names
+    front = at.dataframe[0].value
+    assert {"catalyst", "on_front"} <= set(front.columns) and front["on_front"].any()
 
 
 def test_plate_quality(monkeypatch, demo_store):

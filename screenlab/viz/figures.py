@@ -333,22 +333,40 @@ def p_top_bars(ranking: pd.DataFrame, *, k: int, title: str | None = None) -> go
     return _layout(fig, title, height=max(300, 26 * len(r) + 120))
 
 
+#: above this many points a scatter is drawn with WebGL (SVG slows the browser down)
+WEBGL_POINTS = 5000
+#: at most this many front members carry a text label (the rest show their name on hover)
+PARETO_LABELS = 30
+
+
 def pareto_plot(frame: pd.DataFrame, *, x: str, y: str, x_label: str, y_label: str, front_col: str = "on_front",
                 log_x: bool = False, log_y: bool = False, title: str | None = None) -> go.Figure:
-    """Two objectives per candidate; the non-dominated ones (``front_col`` true) joined by a line."""
+    """Two objectives per candidate; the non-dominated ones (``front_col`` true) joined by a line.
+
+    Front members are labelled (the first :data:`PARETO_LABELS` along the x axis); dominated
+    candidates are unlabelled markers with their name on hover, drawn with WebGL when there are
+    more than :data:`WEBGL_POINTS` of them.
+    """
     fig = go.Figure()
     front = frame[front_col].fillna(False).astype(bool) if front_col in frame else pd.Series(False, index=frame.index)
-    for mask, name, symbol, colour in ((~front, "dominated", "circle-open", "#777777"),
-                                       (front, "Pareto front", "diamond", series_colours(1)[0])):
-        sub = frame[mask]
-        if sub.empty:
-            continue
-        fig.add_trace(go.Scatter(x=sub[x], y=sub[y], mode="markers+text", name=name, text=sub["catalyst"].astype(str),
-                                 textposition="top center", marker=dict(symbol=symbol, size=11, color=colour,
-                                                                        line=dict(width=1.5, color=colour))))
+    hover = "%{text}<br>" + x_label + ": %{x:.3g}<br>" + y_label + ": %{y:.3g}<extra></extra>"
+    sub = frame[~front]
+    if not sub.empty:
+        trace = go.Scattergl if len(sub) > WEBGL_POINTS else go.Scatter
+        fig.add_trace(trace(x=sub[x], y=sub[y], mode="markers", name="dominated", text=sub["catalyst"].astype(str),
+                            hovertemplate=hover, marker=dict(symbol="circle-open", size=9, color="#777777",
+                                                             line=dict(width=1.2, color="#777777"))))
     fr = frame[front].sort_values(x)
+    if not fr.empty:
+        names = fr["catalyst"].astype(str)
+        labels = np.where(np.arange(len(fr)) < PARETO_LABELS, names, "")
+        fig.add_trace(go.Scatter(x=fr[x], y=fr[y], mode="markers+text", name="Pareto front", text=labels,
+                                 customdata=names, textposition="top center",
+                                 hovertemplate=hover.replace("%{text}", "%{customdata}"),
+                                 marker=dict(symbol="diamond", size=11, color=series_colours(1)[0],
+                                             line=dict(width=1.5, color=series_colours(1)[0]))))
     if len(fr) > 1:
-        fig.add_trace(go.Scatter(x=fr[x], y=fr[y], mode="lines", name="front", showlegend=False,
+        fig.add_trace(go.Scatter(x=fr[x], y=fr[y], mode="lines", name="front", showlegend=False, hoverinfo="skip",
                                  line=dict(color=series_colours(1)[0], dash="dot")))
     fig.update_xaxes(title=x_label, type="log" if log_x else "linear")
     fig.update_yaxes(title=y_label, type="log" if log_y else "linear")

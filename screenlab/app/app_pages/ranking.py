@@ -36,6 +36,14 @@ n_cands = int(a.kinetics.rates["catalyst"].nunique())
 k = int(c3.number_input("K (top)", min_value=1, max_value=max(1, n_cands), value=min(3, max(1, n_cands)), step=1,
                         key="rank_k"))
 
+view = st.radio("Show", ["Ranking", "Pareto view"], horizontal=True, key="rank_view",
+                help="Ranking: one metric with its uncertainty. Pareto view: two or three metrics at once, "
+                     "which candidates no other beats on all of them.")
+if view == "Pareto view":
+    st.subheader("Pareto view")
+    _common.pareto_section(ctx, a, temperature)
+    st.stop()
+
 r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric, temperature, k)
 ranked = r[r["rank"].notna()]
 label = metrics[metric]["axis"]
@@ -76,6 +84,3 @@ widgets.table(r.rename(columns={"estimate": col, "ci_low": lo, "ci_high": hi}), 
                        "p_beats_reference", "n", "temperature_c", "basis", "reason", "flags"])
 st.session_state["rank_last"] = {"metric": metric, "temperature": temperature, "k": k}
 widgets.flag_glossary(r["flags"])
-
-st.subheader("Pareto view")
-_common.pareto_section(ctx, a, temperature)
