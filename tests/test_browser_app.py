@@ -13,6 +13,7 @@ import subprocess
 import sys
 import time
 import urllib.request
+from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
@@ -60,6 +61,12 @@ def _healthy(port: int) -> bool:
         return False
 
 
+@dataclass(frozen=True)
+class Server:
+    url: str
+    store: Path
+
+
 @pytest.fixture(scope="module")
 def server(demo_store, tmp_path_factory):
     _need_chromium()
@@ -77,7 +84,7 @@ def server(demo_store, tmp_path_factory):
             if proc.poll() is not None or time.monotonic() > deadline:
                 pytest.fail(f"the app server did not start (exit {proc.poll()}):\n{log.read_text()}")
             time.sleep(0.3)
-        yield f"http://127.0.0.1:{port}"
+        yield Server(url=f"http://127.0.0.1:{port}", store=store)
     finally:
         proc.terminate()
         try:
@@ -108,7 +115,7 @@ def test_every_page_renders_in_chromium(server):
             errors: list[str] = []
             page.on("pageerror", lambda e: errors.append(str(e)))
             for path, texts in PAGES.items():
-                page.goto(f"{server}/{path}?campaign={CAMPAIGN}", wait_until="domcontentloaded")
+                page.goto(f"{server.url}/{path}?campaign={CAMPAIGN}", wait_until="domcontentloaded")
                 wait_for_app_run(page)
                 main = page.get_by_test_id("stMain")
                 for text in texts:
@@ -118,3 +125,84 @@ def test_every_page_renders_in_chromium(server):
             assert not errors, errors
         finally:
             browser.close()
+
+
+def _browser(p):
+    return p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
+
+
+def test_ranking_pareto_view_in_chromium(server):
+    from playwright.sync_api import expect, sync_playwright
+
+    with sync_playwright() as p:
+        browser = _browser(p)
+        try:
+            page = browser.new_page(viewport={"width": 1440, "height": 1000})
+            page.goto(f"{server.url}/ranking?campaign={CAMPAIGN}", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            page.get_by_test_id("stMain").get_by_text("Pareto view", exact=True).click()
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            expect(main.get_by_text("Metrics (two or three)").first).to_be_visible(timeout=60_000)
+            expect(page.get_by_test_id("stPlotlyChart").first).to_be_visible(timeout=60_000)
+            expect(page.get_by_test_id("stException")).to_have_count(0)
+            page.screenshot(path=str(SHOTS / "ranking-pareto.png"), full_page=True)
+        finally:
+            browser.close()
+
+
+def test_upload_check_and_commit_in_chromium(server, tmp_path):
+    """A user uploads a campaign's files, reads the validation report, commits, and the store has it;
+    a broken file set is refused with its row-level problems and writes nothing."""
+    from playwright.sync_api import expect, sync_playwright
+
+    from screenlab.store import Store
+    from screenlab.synthetic import SyntheticSpec, write_campaign_folder
+
+    name = "upload-check-2026"
+    folder = write_campaign_folder(tmp_path / "upload", SyntheticSpec(n_plates=2, seed=5, name=name))
+    files = sorted(str(f) for f in Path(folder).iterdir() if f.is_file())
+    bad = tmp_path / "bad"
+    bad.mkdir()
+    for f in files:
+        shutil.copy2(f, bad / Path(f).name)
+    lay = (bad / "layout.csv").read_text().splitlines()
+    first = lay[1].split(",")
+    first[1] = "Z99"                                          # a well that no plate format has
+    (bad / "layout.csv").write_text("\n".join([lay[0], ",".join(first), *lay[2:]]) + "\n")
+    before = Store(server.store, read_only=True).campaign_names()
+    assert name not in before
+    with sync_playwright() as p:
+        browser = _browser(p)
+        try:
+            page = browser.new_page(viewport={"width": 1440, "height": 1000})
+            page.goto(f"{server.url}/import_data", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            upload = page.locator("[data-testid='stFileUploader'] input[type='file']").first
+            # broken set first: the report lists the problem, nothing is written
+            upload.set_input_files(sorted(str(f) for f in bad.iterdir()))
+            wait_for_app_run(page)
+            expect(main.get_by_text("nothing was written", exact=False).first).to_be_visible(timeout=60_000)
+            expect(main.get_by_text("Import into the store")).to_have_count(0)
+            assert Store(server.store, read_only=True).campaign_names() == before
+            page.screenshot(path=str(SHOTS / "import-problems.png"), full_page=True)
+            # a fresh visit (empty uploader): upload the good files and commit
+            page.goto(f"{server.url}/import_data", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            upload = page.locator("[data-testid='stFileUploader'] input[type='file']").first
+            upload.set_input_files(files)
+            wait_for_app_run(page)
+            expect(main.get_by_text("No problems found", exact=False).first).to_be_visible(timeout=60_000)
+            expect(main.get_by_text("What the import would do", exact=False).first).to_be_visible()
+            main.get_by_role("button", name="Import into the store").click()
+            wait_for_app_run(page)
+            expect(main.get_by_text("Import complete", exact=False).first).to_be_visible(timeout=60_000)
+            expect(page.get_by_test_id("stException")).to_have_count(0)
+            page.screenshot(path=str(SHOTS / "import-committed.png"), full_page=True)
+        finally:
+            browser.close()
+    assert name in Store(server.store, read_only=True).campaign_names()
+    stored = Store(server.store, read_only=True).load_campaign(name)
+    assert len(stored.readings) == SyntheticSpec(n_plates=2, seed=5, name=name).n_readings
