@@ -36,6 +36,7 @@ def test_rank_summary_matches_full_matrix(monkeypatch, case, window_cells):
     df[rng.random(k) < 0.3] = np.inf                      # some normal columns
     monkeypatch.setattr(R, "CHUNK_CELLS", 997)            # many small chunks
     monkeypatch.setattr(R, "WINDOW_CELLS", window_cells)
+    monkeypatch.setattr(R, "BLOCK_CELLS", 64 if case % 2 else R.BLOCK_CELLS)   # many column blocks
     draws, top_k, conf, ref = 1500, 3, [0.95, 0.9, 0.8, 0.5][case], k // 2
     got = R.rank_summary(mu, sigma, df, draws, seed=case, top_k=top_k, confidence=conf, reference=ref)
     exp = _reference_summary(mu, sigma, df, draws, case, top_k, conf, ref)

@@ -34,6 +34,7 @@ lognormal=False)``; then test its direction and its rank probabilities against a
 from __future__ import annotations
 
 import os
+import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
@@ -289,8 +290,10 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
 
 #: elements per chunk of draws (draws x candidates); bounds the memory of every Monte Carlo step
 CHUNK_CELLS = 1 << 21
-#: cells of the banded rank histograms (candidates x window) used for the rank intervals
-WINDOW_CELLS = 1 << 23
+#: cells of the banded rank histograms (candidates x window, int32) used for the rank intervals
+WINDOW_CELLS = 1 << 24
+#: histogram cells updated per bincount (bounds its temporary)
+BLOCK_CELLS = 1 << 21
 #: ranks kept in memory at once when a rank quantile falls outside its window (draws x candidates)
 FALLBACK_CELLS = 1 << 24
 #: draws whose ranks place the rank-histogram windows (kept in memory up to FALLBACK_CELLS ranks)
@@ -435,14 +438,13 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     top = np.zeros(k, np.int64)
     best = np.zeros(k, np.int64)
     beats = np.zeros(k, np.int64)
-    cols = np.arange(k)
-    start = hist = base = wid = lo_idx = hi_idx = key0 = None
+    start = hist = base = wid = lo_idx = hi_idx = key0 = col_blocks = None
 
     pilot_rows = min(draws, max(PILOT_DRAWS, 1), max(1, FALLBACK_CELLS // k))
 
     def place_windows(ranks):
-        nonlocal start, hist, base, wid, lo_idx, hi_idx, key0
-        start, hist, base, wid, lo_idx, hi_idx, key0 = {}, {}, {}, {}, {}, {}, {}
+        nonlocal start, hist, base, wid, lo_idx, hi_idx, key0, col_blocks
+        start, hist, base, wid, lo_idx, hi_idx, key0, col_blocks = {}, {}, {}, {}, {}, {}, {}, {}
         spread = 4 * np.sqrt(alpha * (1 - alpha) / len(ranks))
         for side, q in (("low", alpha), ("high", 1 - alpha)):
             lo_q, hi_q = np.quantile(ranks, [max(0.0, q - spread), min(1.0, q + spread)], axis=0,
@@ -455,16 +457,29 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
             start[side], wid[side] = first, w
             # cells per candidate: [below the window, w window ranks, above the window]
             base[side] = np.concatenate([[0], np.cumsum(w + 2)[:-1]])
-            hist[side] = np.zeros(int((w + 2).sum()), np.int64)
+            hist[side] = np.zeros(int((w + 2).sum()), np.int32)            # counts <= draws
+            ends = np.searchsorted(np.cumsum(w + 2), np.arange(1, 1 + hist[side].size // BLOCK_CELLS) * BLOCK_CELLS)
+            cuts = np.unique(np.concatenate([[0], np.minimum(ends + 1, k), [k]]))
+            col_blocks[side] = list(zip(cuts[:-1].tolist(), cuts[1:].tolist()))
             lo_idx[side] = (start[side] - 1).astype(ranks.dtype)
             hi_idx[side] = (start[side] + w).astype(ranks.dtype)
             key0[side] = (base[side] + 1 - start[side]).astype(ranks.dtype)
 
-    def count(ranks, into):
+    lock = threading.Lock()
+
+    def count(ranks):
+        """Fold one chunk's ranks into the shared banded histograms (the bincounts run unlocked)."""
         for side in ("low", "high"):
             key = np.clip(ranks, lo_idx[side], hi_idx[side])
             key += key0[side]
-            into[side] += np.bincount(key.ravel(), minlength=into[side].size)
+            # column blocks: candidate c's cells are hist[base[c]:base[c] + w[c] + 2], so a block of
+            # columns has its own slice and the bincount temporary stays a block's size
+            for c0, c1 in col_blocks[side]:
+                h0, h1 = int(base[side][c0]), int(base[side][c1 - 1] + wid[side][c1 - 1] + 2)
+                add = np.bincount((key[:, c0:c1] - h0).ravel(), minlength=h1 - h0)
+                with lock:
+                    hist[side][h0:h1] += add
+            del key
 
     def ranked_chunk(chunk):
         d, ss = chunk
@@ -478,15 +493,14 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         return ranks, top_c, best_c, beats_c
 
     def run_share(my_chunks):
-        """Fold a share of the chunks into counts of its own (one share per worker thread)."""
-        acc = {"top": np.zeros(k, np.int64), "best": np.zeros(k, np.int64), "beats": np.zeros(k, np.int64),
-               "low": np.zeros_like(hist["low"]), "high": np.zeros_like(hist["high"])}
+        """Fold a share of the chunks into the counts (one share per worker thread)."""
+        acc = np.zeros((3, k), np.int64)
         for chunk in my_chunks:
             ranks, t_c, b_c, r_c = ranked_chunk(chunk)
-            acc["top"] += t_c
-            acc["best"] += b_c
-            acc["beats"] += r_c
-            count(ranks, acc)
+            acc[0] += t_c
+            acc[1] += b_c
+            acc[2] += r_c
+            count(ranks)
             del ranks
         return acc
 
@@ -504,28 +518,33 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         best += f[2]
         beats += f[3]
     place_windows(kept)
-    count(kept, hist)
+    count(kept)
     del kept, firsts
     rest = chunks[n_first:]
     n_workers = _n_workers(len(rest))
     with _executor(n_workers) as pool:
         for acc in pool.map(run_share, [rest[i::n_workers] for i in range(n_workers)]):
-            top += acc["top"]
-            best += acc["best"]
-            beats += acc["beats"]
-            hist["low"] += acc["low"]
-            hist["high"] += acc["high"]
+            top += acc[0]
+            best += acc[1]
+            beats += acc[2]
 
     unresolved = np.zeros(k, bool)
     for side in ("low", "high"):
-        cells, w, b = hist[side], wid[side], base[side]
-        seg = np.repeat(cols, w + 2)                     # candidate of each cell
-        pos = np.arange(cells.size) - b[seg]             # 0 = below the window, w + 1 = above it
-        cs = np.cumsum(cells)
-        within = cs - (cs[b] - cells[b])[seg]            # draws with rank <= this cell's rank
-        short = np.bincount(seg, weights=((within < need[side]) & (pos >= 1) & (pos <= w[seg])), minlength=k)
-        short = short.astype(np.int64)                   # window ranks still below the order statistic
-        ok = (cells[b] < need[side]) & (short < w)
+        short = np.zeros(k, np.int64)
+        for c0, c1 in col_blocks[side]:              # block by block: temporaries stay a block's size
+            w, b = wid[side][c0:c1], base[side][c0:c1]
+            h0 = int(b[0])
+            cells = hist[side][h0:int(b[-1] + w[-1] + 2)]
+            b = b - h0
+            seg = np.repeat(np.arange(c1 - c0), w + 2)   # candidate of each cell
+            pos = np.arange(cells.size) - b[seg]         # 0 = below the window, w + 1 = above it
+            cs = np.cumsum(cells)
+            within = cs - (cs[b] - cells[b])[seg]        # draws with rank <= this cell's rank
+            # window ranks still below the order statistic
+            short[c0:c1] = np.bincount(seg, weights=((within < need[side]) & (pos >= 1) & (pos <= w[seg])),
+                                       minlength=c1 - c0).astype(np.int64)
+        first_cells = hist[side][base[side]]
+        ok = (first_cells < need[side]) & (short < wid[side])
         out[f"rank_{side}"][perm] = np.where(ok, start[side] + short, 0)
         unresolved |= ~ok
     if unresolved.any():                             # exact fallback: ranks of those columns only
