@@ -62,6 +62,7 @@ class Distinct:
     def __init__(self, column: pd.Series):
         codes, uniques = pd.factorize(column, use_na_sentinel=True)
         self.codes = np.asarray(codes, dtype=np.intp)
+        uniques = getattr(uniques, "array", uniques)  # an Index for a Series: its array
         arr = getattr(uniques, "_pa_array", None)
         if arr is not None and isinstance(column.dtype, pd.StringDtype):
             arr = pa.concat_arrays([*arr.chunks, pa.nulls(1, arr.type)]) if arr.num_chunks else pa.nulls(1, arr.type)
@@ -78,12 +79,25 @@ class Distinct:
         return np.asarray(per_value)[self.codes]
 
     def isin(self, items) -> np.ndarray:
-        """Per distinct value: is it one of ``items`` (``Series.isin`` by Python set lookups;
-        a missing cell matches a missing item)?"""
-        items = list(items)
-        keys = {x for x in items if not pd.isna(x)}
-        na_listed = len(keys) < len(items) and any(pd.isna(x) for x in items)
-        return np.array([na_listed if pd.isna(x) else x in keys for x in self.values.tolist()], dtype=bool)
+        """Per distinct value: is it one of ``items``? ``Series.isin`` as pandas computes it for
+        Arrow text (the text items, a missing item matching a missing cell), done by one Arrow
+        ``is_in`` with the items as an Arrow array (pandas' own path builds the set item by item)."""
+        vals = getattr(self.values.array, "_pa_array", None)
+        listed = getattr(getattr(items, "array", None), "_pa_array", None)
+        if listed is None:
+            seq = list(items)
+            if vals is not None and all(isinstance(x, str) for x in seq):  # a few words: roles, analytes
+                listed = pa.array(seq, type=pa.large_string())
+        elif not (pa.types.is_string(listed.type) or pa.types.is_large_string(listed.type)):
+            listed = None
+        if vals is None or listed is None:
+            return self.values.isin(list(items)).to_numpy(dtype=bool)
+        if isinstance(listed, pa.ChunkedArray):
+            listed = listed.combine_chunks() if listed.num_chunks else pa.array([], type=pa.large_string())
+        if len(listed) == 0:
+            return np.zeros(len(self.values), dtype=bool)
+        hit = pc.is_in(vals, value_set=listed.cast(vals.type))
+        return np.asarray(hit.to_numpy(zero_copy_only=False), dtype=bool)
 
     def lookup(self, mapping: pd.Series) -> np.ndarray:
         """Per distinct value: ``mapping[value]`` as float (NaN when absent; ``Series.map`` with a
@@ -159,6 +173,12 @@ class Checker:
         'na' word, no 'nan' spelling can be in it). Otherwise the cells are read once per distinct
         text, by the same element-wise rules, and spread to the rows.
         """
+        if column not in self.f.columns:  # every cell blank
+            v = np.full(len(self.f), np.nan)
+            if required is not None:
+                req = np.broadcast_to(np.asarray(required, dtype=bool), v.shape)
+                self.report(req, column, what or f"a value is required in '{column}'")
+            return v, np.zeros(len(self.f), dtype=bool)
         raw = self.col(column)
         text = raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else raw
         direct = _cast_float(text)
@@ -554,6 +574,13 @@ def _sort_rows(group: np.ndarray, time: np.ndarray) -> np.ndarray:
     return order
 
 
+def _index_of(index: pd.Index, values: pd.Series) -> np.ndarray:
+    """``index.get_indexer(values)`` looked up once per distinct value of ``values``."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    pos = index.get_indexer(pd.Index(uniques))
+    return np.append(pos, index.get_indexer(pd.Index([None], dtype=values.dtype)))[codes]
+
+
 def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFrame | None,
                    plates: pd.DataFrame | None, info: dict) -> tuple[pd.DataFrame, list[str]]:
     """Validate readings.csv against the layout and the manifest (``info`` from parse_manifest).
@@ -592,8 +619,8 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
         ch.report(~well_ok, "well", "not a well name (expected a row letter and a column number, e.g. A1 or a01)")
     # layout (plate, well) -> role of its first row, as one int64 key per layout row and per reading
     n_p, n_c = len(p_u), max(len(c_uniq), 1)
-    lay_p = pd.Index(p_u.iloc[:-1]).get_indexer(wells["plate"].astype("str"))
-    lay_c = pd.Index(c_uniq).get_indexer(wells["well"].astype("str"))
+    lay_p = _index_of(pd.Index(p_u.iloc[:-1]), wells["plate"].astype("str"))
+    lay_c = _index_of(pd.Index(c_uniq), wells["well"].astype("str"))
     lay_ok = (lay_p >= 0) & (lay_c >= 0)
     keys = lay_p[lay_ok].astype(np.int64) * n_c + lay_c[lay_ok]
     first = ~pd.Index(keys).duplicated(keep="first")

@@ -32,6 +32,7 @@ import json
 import os
 import re
 import time
+from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -51,7 +52,8 @@ from screenlab.store import queries as Q
 #: default seconds to keep retrying a locked store file
 DEFAULT_BUSY_TIMEOUT_S = 10.0
 BUSY_TIMEOUT_ENV = "SCREENLAB_BUSY_TIMEOUT_S"
-#: a CHECKPOINT follows an import that wrote at least this many readings
+#: an import that writes at least this many readings commits straight into the database file
+#: (a checkpoint at commit instead of a WAL write), and a CHECKPOINT follows it
 CHECKPOINT_READINGS = 50_000
 #: extensions compiled into the duckdb wheel; nothing else may load (offline machines)
 BUILTIN_EXTENSIONS = frozenset({"core_functions", "icu", "json", "parquet"})
@@ -247,15 +249,20 @@ class _ColumnReader:
         s = self.frame[c]
         return s if self.keep is None else s[self.keep]
 
-    def hash(self, c: str, tag: np.uint64 | None = None) -> np.ndarray:
-        """Cell hashes of column ``c``; with ``tag``, ``_mix64(hash ^ tag)`` (for text taken on the
-        distinct values and spread, which is the same number per cell)."""
+    def hash(self, c: str, tag: np.uint64 | None = None, first: bool = False) -> np.ndarray:
+        """Cell hashes of column ``c``; with ``tag``, ``_mix64(hash ^ tag)``, and with ``first``
+        also mixed once more (the first column's row-hash step); for text these are taken on the
+        distinct values and spread, which gives the same number per cell."""
+        def steps(h: np.ndarray) -> np.ndarray:
+            if tag is not None:
+                h = _mix64(h ^ tag)
+            return _mix64(h) if first else h
+
         if not _is_text(self.frame[c]):
-            h = _column_hash(self._values(c))
-            return h if tag is None else _mix64(h ^ tag)
+            return steps(_column_hash(self._values(c)))
         codes, uniques = self._factor(c)
         h = np.append(_text_hash(uniques.tolist() if hasattr(uniques, "tolist") else list(uniques)), _NA_HASH)
-        return (h if tag is None else _mix64(h ^ tag))[codes]  # last slot: missing (code -1)
+        return steps(h)[codes]  # last slot: missing (code -1)
 
     def key(self, c: str) -> tuple[np.ndarray, int | None]:
         """(sort key, number of distinct values); text keys are ranks 0..n-1 (missing -1), and
@@ -275,9 +282,10 @@ def _row_hashes(frame: pd.DataFrame | _ColumnReader, cols: list[str]) -> np.ndar
     h = None
     for c in cols:  # columns, not rows
         tag = _text_hash([c])[0]
-        cell = reader.hash(c, tag)
-        # first column: h = 0, so h * P ^ x is x itself
-        h = _mix64(cell) if h is None else _mix64((h * np.uint64(0x100000001B3)) ^ cell)
+        if h is None:  # first column: h = 0, so mix(h * P ^ x) is mix(x)
+            h = reader.hash(c, tag, first=True)
+        else:
+            h = _mix64((h * np.uint64(0x100000001B3)) ^ reader.hash(c, tag))
     return np.zeros(n, dtype=np.uint64) if h is None else h
 
 
@@ -385,14 +393,14 @@ def _manifest_from_json(text: str) -> Manifest:
 
 @dataclass(frozen=True)
 class _Prepared:
-    """One CampaignData in storage form."""
+    """One CampaignData in storage form (``fingerprints`` None when left to the caller)."""
 
     catalysts: pd.DataFrame
     plates: pd.DataFrame
     wells: pd.DataFrame
     factors: pd.DataFrame      # long: plate, seq, well, factor, value (non-missing values only)
     readings: pd.DataFrame
-    fingerprints: pd.DataFrame
+    fingerprints: pd.DataFrame | None
     factor_columns: tuple[str, ...]
     schema: dict               # frame -> [[column, dtype spec], ...]
 
@@ -458,8 +466,9 @@ def _rows_in(values: pd.Series, names) -> np.ndarray:
     return hit[np.asarray(codes, dtype=np.intp)]
 
 
-def _prepare(data: CampaignData) -> _Prepared:
-    _validate(data)
+def _prepare(data: CampaignData, fingerprints: bool = True, validated: bool = False) -> _Prepared:
+    if not validated:
+        _validate(data)
     cat = _prepared(data.catalysts, CATALYST_COLS)
     pla = _prepared(data.plates, PLATE_COLS)
     wel = _prepared(data.wells, WELL_COLS)
@@ -485,7 +494,7 @@ def _prepare(data: CampaignData) -> _Prepared:
         factors = pd.DataFrame({"plate": pd.array([], dtype="string"), "seq": np.array([], dtype=np.int64),
                                 "well": pd.array([], dtype="string"), "factor": pd.array([], dtype="string"),
                                 "value": pd.array([], dtype="string")})
-    fps = plate_fingerprints(pla, wel, factors, rea)
+    fps = plate_fingerprints(pla, wel, factors, rea) if fingerprints else None
     schema = {name: [[str(c), _dtype_spec(frame[c].dtype)] for c in frame.columns]
               for name, frame in (("catalysts", data.catalysts), ("plates", data.plates),
                                   ("wells", data.wells), ("readings", data.readings))}
@@ -587,8 +596,10 @@ class Store:
                 raise ScreenlabError(f"cannot open store {self.path}: {exc}") from exc
 
     @contextmanager
-    def _connect(self):
-        con = self._open()
+    def _connect(self, opened: Future | None = None):
+        """A connection with the schema checked (``opened``: one being opened by
+        :meth:`_open_checked` in another thread), closed on exit."""
+        con = self._open() if opened is None else opened.result()
         try:
             if not self._schema_ok:
                 self._check_schema(con)
@@ -597,6 +608,21 @@ class Store:
             raise ScreenlabError(f"store {self.path}: {exc}") from exc
         finally:
             con.close()
+
+    def _open_checked(self) -> duckdb.DuckDBPyConnection:
+        """:meth:`_open` and the schema check (migrations, fingerprint upgrade) as :meth:`_connect`
+        does them, for a thread that opens the store while another prepares the data."""
+        con = self._open()
+        try:
+            if not self._schema_ok:
+                self._check_schema(con)
+        except duckdb.Error as exc:
+            con.close()
+            raise ScreenlabError(f"store {self.path}: {exc}") from exc
+        except BaseException:
+            con.close()
+            raise
+        return con
 
     # -- schema --------------------------------------------------------------------------------
 
@@ -638,11 +664,13 @@ class Store:
                 storage = con.execute(Q.STORAGE_VERSION).fetchall()[0][0]
                 from screenlab import __version__
 
-                for key, value in (("schema_version", str(version)), ("duckdb_version", str(lib)),
-                                   ("storage_version", str(storage)), ("screenlab_version", __version__),
-                                   ("storage_note", f"written by DuckDB {lib} (storage {storage}); open it with "
-                                                    f"DuckDB 2.0 or newer; copy the .duckdb and .wal files together")):
-                    con.execute(Q.UPSERT_META, [key, value])
+                meta = {"schema_version": str(version), "duckdb_version": str(lib), "storage_version": str(storage),
+                        "screenlab_version": __version__,
+                        "storage_note": f"written by DuckDB {lib} (storage {storage}); open it with "
+                                        f"DuckDB 2.0 or newer; copy the .duckdb and .wal files together"}
+                if not applied and not self.read_only:  # a new store: no plate has a fingerprint of an older kind
+                    meta["fingerprint_version"] = FINGERPRINT_VERSION
+                con.execute(Q.UPSERT_META_MANY, [list(meta), list(meta.values())])
                 con.commit()
             except BaseException:
                 con.rollback()
@@ -809,35 +837,81 @@ class Store:
             raise TypeError("import_campaign expects a CampaignData or a reader result with .data")
         if self.read_only:
             raise ScreenlabError(f"store {self.path} is open read-only; cannot import")
-        prep = _prepare(data)
+        _validate(data)  # frames that break the contract are refused before the store is touched
         name = data.manifest.name
-        with self._connect() as con:
+        # Work that overlaps (DuckDB runs without the GIL): a worker opens the store (schema check)
+        # while this thread puts the data in storage form; then a worker computes the fingerprints
+        # while this thread writes, for a campaign with nothing stored yet (its plates are all new,
+        # whatever their fingerprints), the wells and readings. This thread hands DuckDB only
+        # Arrow tables made before the fingerprint worker starts, which alone reads the prepared
+        # frames meanwhile.
+        with ThreadPoolExecutor(max_workers=2, thread_name_prefix="screenlab-import") as pool:
+            opened = pool.submit(self._open_checked)
+            try:
+                prep = _prepare(data, fingerprints=False, validated=True)
+                whole = {"wells": _arrow(prep.wells), "well_factors": _arrow(prep.factors),
+                         "readings": _arrow(prep.readings)}
+                plate_names = prep.plates["plate"].tolist()
+            except BaseException:
+                if opened.exception() is None:
+                    opened.result().close()
+                raise
+            pending = pool.submit(plate_fingerprints, prep.plates, prep.wells, prep.factors, prep.readings)
+            report = self._import_connected(data, prep, files, replace=replace, dry_run=dry_run, source=source,
+                                            pending=pending, whole=whole, plate_names=plate_names, opened=opened)
+        assert report.campaign == name and report.status in _STATUSES
+        return report
+
+    def _import_connected(self, data: CampaignData, prep: _Prepared, files, *, replace: bool, dry_run: bool,
+                          source: str | None, pending: Future, whole: dict[str, pa.Table],
+                          plate_names: list, opened: Future) -> ImportReport:
+        with self._connect(opened) as con:
             con.begin()
+            large = False
             try:
                 report = self._import(con, data, prep, files, replace=replace, dry_run=dry_run,
-                                      source=source or "")
+                                      source=source or "", pending=pending, whole=whole, plate_names=plate_names)
                 if report.import_id is None:
                     con.rollback()
                 else:
+                    # a large import commits straight into the file (one checkpoint at commit), not
+                    # into the WAL first and the file at a later CHECKPOINT
+                    large = report.n_readings >= CHECKPOINT_READINGS
+                    if large:
+                        con.execute(Q.COMMIT_INTO_FILE)
                     con.commit()
             except BaseException:
                 con.rollback()
                 raise
-            if report.import_id is not None and report.n_readings >= CHECKPOINT_READINGS:
-                try:  # merge the WAL into the file now; only an optimisation, the import is committed
+            finally:
+                if large:
+                    try:
+                        con.execute(Q.DEFAULT_CHECKPOINT_THRESHOLD)
+                    except duckdb.Error:  # pragma: no cover - a setting of this connection only
+                        pass
+            if large:
+                try:  # merge anything left in the WAL; only an optimisation, the import is committed
                     con.execute(Q.CHECKPOINT)
                 except duckdb.Error:
                     pass
-        assert report.campaign == name and report.status in _STATUSES
         return report
 
     def _import(self, con, data: CampaignData, prep: _Prepared, files, *, replace: bool, dry_run: bool,
-                source: str) -> ImportReport:
+                source: str, pending: Future | None = None, whole: dict[str, pa.Table] | None = None,
+                plate_names: list | None = None) -> ImportReport:
+        """The import in the open transaction. ``pending`` (fingerprints being computed elsewhere,
+        else ``prep.fingerprints``) is waited for only when needed: at once when the campaign has
+        stored plates, else after the wells and readings are written. ``whole`` holds the
+        prepared wells, factors and readings as Arrow tables, written when every plate is."""
         name = data.manifest.name
         head = con.execute(Q.CURRENT_HEADER, [name]).df()
         new_campaign = head.empty
         manifest_fp = _manifest_fingerprint(data.manifest)
-        fps = prep.fingerprints.assign(fp=[_fp_text(r) for r in prep.fingerprints.itertuples()])  # one per plate
+        plate_names = prep.plates["plate"].tolist() if plate_names is None else plate_names
+
+        def fingerprints() -> pd.DataFrame:
+            fp = prep.fingerprints if pending is None else pending.result()
+            return fp.assign(fp=[_fp_text(r) for r in fp.itertuples()])  # one per plate
 
         # ---- campaign header: manifest, catalysts, factor names, frame schema ----
         manifest_changed = False
@@ -886,7 +960,9 @@ class Store:
         stored_fp = con.execute(Q.CURRENT_PLATE_FINGERPRINTS, [name]).df()
         stored_map = dict(zip(stored_fp["plate"], stored_fp["fingerprint"]))
         added, changed, unchanged, what = [], [], [], {}
-        for row in fps.itertuples():  # one per plate
+        # with nothing stored for the campaign every plate is added, whatever its fingerprint
+        fps = fingerprints() if stored_map else None
+        for row in (fps.itertuples() if fps is not None else ()):  # one per plate
             old = stored_map.get(row.plate)
             if old is None:
                 added.append(row.plate)
@@ -898,7 +974,9 @@ class Store:
                 what[row.plate] = [label for label, a, b in zip(("plate row", "layout", "readings"), parts,
                                                                  (row.fp_plate, row.fp_layout, row.fp_readings))
                                    if a != b]
-        kept = sorted(set(stored_map) - set(fps["plate"]))
+        if fps is None:
+            added = list(plate_names)
+        kept = sorted(set(stored_map) - set(plate_names))
 
         if not replace and (changed or manifest_changed or cats_changed):
             bits = []
@@ -924,8 +1002,12 @@ class Store:
         def rows(frame: pd.DataFrame) -> pd.DataFrame:
             return frame if not unchanged else frame.loc[_rows_in(frame["plate"], write_set)]
 
-        wells_out, readings_out = rows(prep.wells), rows(prep.readings)
-        n_wells, n_readings = len(wells_out), len(readings_out)
+        if whole is None or unchanged:
+            out = {"wells": _arrow(rows(prep.wells)), "well_factors": _arrow(rows(prep.factors)),
+                   "readings": _arrow(rows(prep.readings))}
+        else:
+            out = whole
+        n_wells, n_readings = out["wells"].num_rows, out["readings"].num_rows
 
         if new_campaign:
             status = "imported"
@@ -968,12 +1050,12 @@ class Store:
                 con.execute(Q.SUPERSEDE_PLATES, [import_id, name])
             finally:
                 con.unregister("incoming_plate_names")
+        for table in ("wells", "well_factors", "readings"):
+            _bulk_insert(con, table, _tag(out[table], **tag))
+        fps = fingerprints() if fps is None else fps
         plates = rows(prep.plates).merge(fps[["plate", "fp"]], on="plate", how="left").rename(
             columns={"fp": "fingerprint"})
         _bulk_insert(con, "plates", _tagged(plates, **tag))
-        _bulk_insert(con, "wells", _tagged(wells_out, **tag))
-        _bulk_insert(con, "well_factors", _tagged(rows(prep.factors), **tag))
-        _bulk_insert(con, "readings", _tagged(readings_out, **tag))
         from screenlab import __version__
 
         lib = con.execute(Q.LIBRARY_VERSION).fetchall()[0][0]
@@ -981,8 +1063,7 @@ class Store:
             import_id, name, now, source, status, added, changed, unchanged, cats_added, cats_changed,
             bool(manifest_changed and replace), n_wells, n_readings, message, __version__, str(lib)])
         _bulk_insert(con, "import_files", _files_frame(files, import_id))
-        con.execute(Q.UPSERT_META, ["last_written_by", f"DuckDB {lib}, screenlab {__version__}"])
-        con.execute(Q.BUMP_GENERATION)
+        con.execute(Q.BUMP_GENERATION_WRITTEN_BY, [f"DuckDB {lib}, screenlab {__version__}"])
         return ImportReport(status=status, message=message, import_id=import_id, **common)
 
     @staticmethod
@@ -1020,10 +1101,17 @@ class Store:
         return text
 
 
+def _arrow(frame: pd.DataFrame) -> pa.Table:
+    return pa.Table.from_pandas(frame, preserve_index=False)
+
+
 def _tagged(frame: pd.DataFrame, *, campaign: str, import_id: int) -> pa.Table:
-    """``frame`` as one Arrow table plus the constant ``campaign`` and ``import_id`` columns (built
-    in Arrow, not as per-row Python values)."""
-    table = pa.Table.from_pandas(frame, preserve_index=False)
+    return _tag(_arrow(frame), campaign=campaign, import_id=import_id)
+
+
+def _tag(table: pa.Table, *, campaign: str, import_id: int) -> pa.Table:
+    """``table`` plus the constant ``campaign`` and ``import_id`` columns (built in Arrow, not as
+    per-row Python values)."""
     n = table.num_rows
     return (table.append_column("campaign", pa.array([campaign], pa.large_string()).take(
                 pa.array(np.zeros(n, dtype=np.int32))))

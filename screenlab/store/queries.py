@@ -20,16 +20,28 @@ HAS_MIGRATIONS_TABLE = (
 )
 RECORD_MIGRATION = "INSERT INTO schema_migrations VALUES (?, ?, now()::TIMESTAMP)"
 UPSERT_META = "INSERT OR REPLACE INTO metadata VALUES (?, ?)"
+#: several metadata entries in one statement: parameters are the list of keys and the list of values
+UPSERT_META_MANY = "INSERT OR REPLACE INTO metadata SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[])"
 GET_META = "SELECT value FROM metadata WHERE key = ?"
 ALL_META = "SELECT key, value FROM metadata ORDER BY key"
 BUMP_GENERATION = """
 INSERT OR REPLACE INTO metadata
 SELECT 'generation', CAST(coalesce(max(CAST(value AS BIGINT)), 0) + 1 AS VARCHAR)
 FROM metadata WHERE key = 'generation'"""
+#: BUMP_GENERATION and the 'last_written_by' entry (the parameter) in one statement
+BUMP_GENERATION_WRITTEN_BY = """
+INSERT OR REPLACE INTO metadata
+SELECT 'generation', CAST(coalesce(max(CAST(value AS BIGINT)), 0) + 1 AS VARCHAR)
+FROM metadata WHERE key = 'generation'
+UNION ALL SELECT 'last_written_by', ?"""
 LIBRARY_VERSION = "SELECT library_version FROM pragma_version()"
 STORAGE_VERSION = "SELECT tags['storage_version'] FROM duckdb_databases() WHERE database_name = current_database()"
 LOADED_EXTENSIONS = "SELECT extension_name FROM duckdb_extensions() WHERE loaded ORDER BY extension_name"
 CHECKPOINT = "CHECKPOINT"
+#: a large import's commit checkpoints straight into the database file (DuckDB checkpoints at commit
+#: when the changes exceed the threshold) instead of writing the rows to the WAL and again at CHECKPOINT
+COMMIT_INTO_FILE = "SET checkpoint_threshold = '1KB'"
+DEFAULT_CHECKPOINT_THRESHOLD = "RESET checkpoint_threshold"
 
 # --- reads of the current state ---------------------------------------------------------------
 
