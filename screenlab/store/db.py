@@ -1102,7 +1102,19 @@ class Store:
 
 
 def _arrow(frame: pd.DataFrame) -> pa.Table:
-    return pa.Table.from_pandas(frame, preserve_index=False)
+    """The frame as an Arrow table, as ``pa.Table.from_pandas(frame, preserve_index=False)`` makes it
+    (missing float values as nulls), built column by column without its thread pool and schema
+    metadata: Arrow-backed columns as they are, numeric numpy columns wrapped (no copy)."""
+    cols = {}
+    for c in frame.columns:  # columns, not rows
+        s = frame[c]
+        if isinstance(s.dtype, np.dtype):
+            if s.dtype.kind not in "fiub":
+                return pa.Table.from_pandas(frame, preserve_index=False)  # e.g. object: pandas' own inference
+            cols[str(c)] = pa.array(s.to_numpy(), from_pandas=True)
+        else:
+            cols[str(c)] = pa.array(s.array)  # Arrow text, nullable integers: their own __arrow_array__
+    return pa.table(cols) if cols else pa.Table.from_pandas(frame, preserve_index=False)
 
 
 def _tagged(frame: pd.DataFrame, *, campaign: str, import_id: int) -> pa.Table:
