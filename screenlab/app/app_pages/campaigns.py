@@ -34,6 +34,14 @@ if widgets.need_campaign(ctx):
                 + f" · **readout:** {data.manifest.readout_kind}"
                 + (f" ({data.manifest.readout_scale})" if data.manifest.readout_scale else ""))
 
+    with st.container(border=True):
+        st.markdown("**From screen to shortlist**")
+        steps = st.columns(4)
+        steps[0].page_link("app_pages/ranking.py", label="1. Ranking: who leads, and how sure", icon=":material/leaderboard:")
+        steps[1].page_link("app_pages/plate_map.py", label="2. Plate map: the wells behind a number", icon=":material/grid_on:")
+        steps[2].page_link("app_pages/quality.py", label="3. Plate quality: which plates to trust", icon=":material/verified:")
+        steps[3].page_link("app_pages/shortlist.py", label="4. Shortlist: pick, note, download", icon=":material/checklist:")
+
     left, right = st.columns([3, 2])
     with left:
         st.subheader("Best candidates so far")
