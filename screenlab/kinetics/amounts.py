@@ -53,7 +53,10 @@ def _change_points(values: pd.Series) -> np.ndarray:
     if pa_arr is not None and len(values) > 1:
         import pyarrow as pa
         import pyarrow.compute as pc
-        chunk = pa_arr.combine_chunks() if isinstance(pa_arr, pa.ChunkedArray) else pa_arr
+        if isinstance(pa_arr, pa.ChunkedArray):
+            chunk = pa_arr.chunk(0) if pa_arr.num_chunks == 1 else pa_arr.combine_chunks()
+        else:
+            chunk = pa_arr
         ne = pc.fill_null(pc.not_equal(chunk.slice(1), chunk.slice(0, len(chunk) - 1)), True)
         return ne.to_numpy(zero_copy_only=False).astype(bool, copy=False)
     obj = values.to_numpy(dtype=object)
@@ -77,6 +80,15 @@ def well_index(plate: pd.Series, well: pd.Series, key_plate: pd.Series, key_well
         start[1:] = _change_points(plate) | _change_points(well)
     first = np.flatnonzero(start)
     k = len(key_plate)
+    arrow = [_arrow_strings(v) for v in (key_plate, plate, key_well, well)]
+    if all(a is not None for a in arrow):
+        # Arrow strings throughout: one dictionary encoding of keys + run starts per column
+        import pyarrow as pa
+        at = pa.array(first)
+        cp = _dictionary_codes(arrow[0], arrow[1].take(at))
+        cw = _dictionary_codes(arrow[2], arrow[3].take(at))
+        n_w = int(cw.max()) + 1 if cw.size else 0
+        return _match_runs(cp * (n_w + 1) + cw, k, start)
 
     def text(v, take=None):
         v = pd.Series(v, copy=False).reset_index(drop=True)
@@ -88,6 +100,37 @@ def well_index(plate: pd.Series, well: pd.Series, key_plate: pd.Series, key_well
     cp, _ = pd.factorize(pd.concat([text(key_plate), text(plate, first)], ignore_index=True), use_na_sentinel=False)
     cw, uw = pd.factorize(pd.concat([text(key_well), text(well, first)], ignore_index=True), use_na_sentinel=False)
     combined = cp.astype(np.int64) * (len(uw) + 1) + cw
+    return _match_runs(combined, k, start)
+
+
+def _arrow_strings(values):
+    """The pyarrow string array behind a pandas string column (or None)."""
+    pa_arr = getattr(getattr(values, "array", None), "_pa_array", None)
+    if pa_arr is None:
+        return None
+    import pyarrow as pa
+    if not (pa.types.is_string(pa_arr.type) or pa.types.is_large_string(pa_arr.type)):
+        return None
+    return pa_arr
+
+
+def _dictionary_codes(keys, runs) -> np.ndarray:
+    """Integer codes of ``keys`` followed by ``runs`` (pyarrow string arrays) from one dictionary
+    encoding; equal strings share a code, and so do missing values (as factorize with
+    ``use_na_sentinel=False``)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    chunks = []
+    for a in (keys, runs):
+        a = a.cast(pa.large_string()) if not pa.types.is_large_string(a.type) else a
+        chunks.extend(a.chunks if isinstance(a, pa.ChunkedArray) else [a])
+    joined = pa.chunked_array(chunks, type=pa.large_string()).combine_chunks()
+    enc = pc.dictionary_encode(joined, null_encoding="encode")
+    return enc.indices.to_numpy(zero_copy_only=False).astype(np.int64, copy=False)
+
+
+def _match_runs(combined: np.ndarray, k: int, start: np.ndarray) -> np.ndarray:
+    """Expand: ``combined`` holds k key codes then one code per run (``start`` marks run starts)."""
     keys = pd.Index(combined[:k])
     runs = combined[k:]
     if not keys.is_unique:
@@ -97,7 +140,8 @@ def well_index(plate: pd.Series, well: pd.Series, key_plate: pd.Series, key_well
         run_code = np.where(found >= 0, pos[np.maximum(found, 0)], -1)
     else:
         run_code = keys.get_indexer(runs)
-    return np.asarray(run_code, dtype=np.int64)[np.cumsum(start) - 1]
+    lengths = np.diff(np.append(np.flatnonzero(start), len(start)))
+    return np.repeat(np.asarray(run_code, dtype=np.int64), lengths)
 
 
 def _absorbance_baseline(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
@@ -112,6 +156,16 @@ def _absorbance_baseline(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     return base, is_t0
 
 
+def _missing_strings(n: int):
+    """A string-dtype array of n missing values (what ``pd.Series(pd.NA, dtype="string")`` holds)."""
+    template = pd.array([pd.NA], dtype="string")
+    pa_arr = getattr(template, "_pa_array", None)
+    if pa_arr is not None:
+        import pyarrow as pa
+        return type(template)(pa.chunked_array([pa.nulls(n, pa_arr.type)]), dtype=template.dtype)
+    return template.take(np.zeros(n, dtype=np.intp))
+
+
 def product_amounts(data: CampaignData) -> pd.DataFrame:
     """One row per reading: ``plate, well, analyte, time_h, product_mM, conversion_pct, baseline``.
 
@@ -123,18 +177,18 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
     m = data.manifest
     kind = (m.readout_kind or "").strip().lower()
     src = data.readings
-    # string columns are passed on as they are (converting Arrow strings to numpy is slow)
-    rd = pd.DataFrame({c: src[c].array for c in ("plate", "well", "analyte")})
-    rd["time_h"] = src["time_h"].astype(float).to_numpy()
-    rd["value"] = pd.to_numeric(src["value"], errors="coerce").astype(float).to_numpy()
-    w = data.wells[["plate", "well", "substrate_conc_mM"]].drop_duplicates(["plate", "well"])
-    # integer well code per reading, once (no string merge); -1 for a well not in wells.csv
-    code = well_index(rd["plate"], rd["well"], w["plate"], w["well"])
-    w_s0 = pd.to_numeric(w["substrate_conc_mM"], errors="coerce").astype(float).to_numpy()
+    n = len(src)
+    time_h = src["time_h"].astype(float).to_numpy()
+    value = pd.to_numeric(src["value"], errors="coerce").astype(float).to_numpy()
+    wells = data.wells
+    # integer well code per reading, once (no string merge); -1 for a well not in wells.csv. A
+    # (plate, well) listed twice takes its first row (as drop_duplicates would keep it).
+    code = well_index(src["plate"], src["well"], wells["plate"], wells["well"])
+    w_s0 = pd.to_numeric(wells["substrate_conc_mM"], errors="coerce").astype(float).to_numpy()
     s0 = np.where(code >= 0, w_s0[np.maximum(code, 0)] if len(w_s0) else np.nan, np.nan)
     theo = s0 * float(m.product_per_substrate)            # theoretical maximum product, mM
-    value = rd["value"].to_numpy(dtype=float)
-    baseline = pd.Series(pd.NA, index=rd.index, dtype="string")
+    # the baseline column (string dtype) by one take from its few words, not one conversion per row
+    baseline = _missing_strings(n)
 
     if kind in ("conversion", "yield"):
         product = value * _fraction_scale(m) * theo
@@ -145,21 +199,23 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
         if not (eps and path and np.isfinite(eps) and np.isfinite(path) and eps > 0 and path > 0):
             raise UsageError("campaign.toml: [readout] kind 'absorbance' needs positive "
                              "epsilon_M_cm and path_length_cm")
+        rd = pd.DataFrame({c: src[c].array for c in ("plate", "well", "analyte")})
+        rd["time_h"] = time_h
+        rd["value"] = value
         base, is_t0 = _absorbance_baseline(rd)
         product = (value - base) / (float(eps) * float(path)) * 1000.0   # mol/L -> mM
-        baseline = pd.Series(np.where(is_t0, "t0", "first_reading"), index=rd.index, dtype="string")
+        baseline = pd.array(["first_reading", "t0"], dtype="string").take(is_t0.astype(np.intp))
     else:
         raise UsageError(f"campaign.toml: unknown [readout].kind {m.readout_kind!r}")
 
     with np.errstate(divide="ignore", invalid="ignore"):
         conv = np.where(theo > 0, product / theo * 100.0, np.nan)
-    out = rd[["plate", "well", "analyte", "time_h"]].copy()
-    out["product_mM"] = product
-    out["conversion_pct"] = conv
-    out["baseline"] = baseline
-    out = out.reset_index(drop=True)
+    # string columns are passed on as they are (converting Arrow strings to numpy is slow)
+    out = pd.DataFrame({"plate": src["plate"].array, "well": src["well"].array, "analyte": src["analyte"].array,
+                        "time_h": time_h, "product_mM": product, "conversion_pct": conv, "baseline": baseline})
 
     if m.enantiomers:
+        w = wells[["plate", "well", "substrate_conc_mM"]].drop_duplicates(["plate", "well"])
         out = _add_enantiomer_sum(out, m.enantiomers, m.analyte_main, w, float(m.product_per_substrate))
         out = out.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
     return out

@@ -42,6 +42,7 @@ from scipy import stats
 
 from screenlab.kinetics import fit, models
 from screenlab.kinetics.amounts import T0_TOLERANCE_H, product_amounts, well_index
+from screenlab.kinetics.sites import text_array, with_columns
 from screenlab.model import CampaignData
 from screenlab.settings import AnalysisSettings
 
@@ -87,6 +88,12 @@ def _flag_text(flags: dict[str, np.ndarray], n: int) -> np.ndarray:
 
     The masks are packed into one integer per row; each distinct combination (a few) is joined once.
     """
+    words, codes = _flag_codes(flags, n)
+    return words[codes] if n else np.zeros(0, dtype=object)
+
+
+def _flag_codes(flags: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_flag_text` as distinct texts (object array of str) and one code per row into them."""
     bits = np.zeros(n, dtype=np.int64)
     names = list(flags)
     for i, name in enumerate(names):        # a loop over flag codes, not wells
@@ -94,7 +101,7 @@ def _flag_text(flags: dict[str, np.ndarray], n: int) -> np.ndarray:
     combos, inv = np.unique(bits, return_inverse=True)
     text = np.array([";".join(nm for i, nm in enumerate(names) if int(c) >> i & 1) for c in combos]
                     + [""], dtype=object)   # the trailing "" keeps the array 1-d of str when empty
-    return text[inv.ravel()] if n else np.zeros(0, dtype=object)
+    return text, inv.ravel()
 
 
 def _group_starts(g: np.ndarray, n_groups: int) -> np.ndarray:
@@ -102,11 +109,11 @@ def _group_starts(g: np.ndarray, n_groups: int) -> np.ndarray:
 
 
 def _first_index(g: np.ndarray, mask: np.ndarray, n_groups: int) -> np.ndarray:
-    """Index (into the sorted arrays) of the first True of ``mask`` per group, -1 if none."""
+    """Index of the first True of ``mask`` per group, -1 if none (each group's rows contiguous)."""
     out = np.full(n_groups, -1, dtype=np.int64)
     idx = np.flatnonzero(mask)
     if idx.size:
-        gi = g[idx]                                       # g is sorted: first of each run
+        gi = g[idx]                                       # groups are contiguous: first of each run
         new = np.ones(gi.size, dtype=bool)
         new[1:] = gi[1:] != gi[:-1]
         out[gi[new]] = idx[new]
@@ -117,6 +124,56 @@ def _take(values: np.ndarray, idx: np.ndarray) -> np.ndarray:
     safe = np.where(idx >= 0, idx, 0)
     got = values[safe] if values.size else np.zeros(idx.shape)
     return np.where(idx >= 0, got, np.nan)
+
+
+def _first_order_fit(wells: np.ndarray, t, y, g, G: int, plateau=None, k_start=None) -> fit.FirstOrderFit:
+    """:func:`screenlab.kinetics.fit.fit_first_order` of the readings of ``wells`` (the sorted
+    well codes in ``g``, every one with readings), fitted with those wells numbered 0..n-1 (what
+    the fitter does itself for groups without points) and spread back to all G wells: wells not
+    fitted get NaN estimates, 0 df and status TOO_FEW. ``plateau`` / ``k_start``: per well (G)."""
+    local = np.full(G, -1, dtype=np.int64)
+    local[wells] = np.arange(wells.size)
+    sub = fit.fit_first_order(t, y, local[g], int(wells.size),
+                              plateau=None if plateau is None else np.asarray(plateau, dtype=float)[wells],
+                              k_start=None if k_start is None else np.asarray(k_start, dtype=float)[wells])
+    full = {}
+    for name, v in vars(sub).items():
+        if v.dtype == bool:
+            arr = np.zeros(G, dtype=bool)
+        elif name == "status":
+            arr = np.full(G, fit.TOO_FEW, dtype=v.dtype)
+        elif np.issubdtype(v.dtype, np.integer):
+            arr = np.zeros(G, dtype=v.dtype)
+        else:
+            arr = np.full(G, np.nan)
+        arr[wells] = v
+        full[name] = arr
+    return fit.FirstOrderFit(**full)
+
+
+def _order_by_well(code: np.ndarray, t: np.ndarray) -> np.ndarray | None:
+    """None when every well's readings form one run sorted by time (the order readings come in),
+    else the stable order by (well code, time)."""
+    if code.size <= 1:
+        return None
+    same = code[1:] == code[:-1]
+    if np.all(~same | (t[1:] >= t[:-1])):
+        run_code = code[np.flatnonzero(np.concatenate(([True], ~same)))]
+        if np.bincount(run_code).max() <= 1:               # no well split over two runs
+            return None
+    return np.lexsort((t, code))
+
+
+def _equals(values: pd.Series, word: str) -> np.ndarray:
+    """Boolean array: which rows equal ``word`` (missing values do not)."""
+    pa_arr = getattr(values.array, "_pa_array", None)
+    if pa_arr is not None:
+        import pyarrow as pa
+        import pyarrow.compute as pc
+        if pa.types.is_string(pa_arr.type) or pa.types.is_large_string(pa_arr.type):
+            eq = pc.fill_null(pc.equal(pa_arr, pa.scalar(word, pa_arr.type)), False)
+            return eq.to_numpy(zero_copy_only=False).astype(bool, copy=False)
+    return (values.astype("string") == word).fillna(False).to_numpy(dtype=bool)
 
 
 def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
@@ -131,36 +188,47 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     pps = float(data.manifest.product_per_substrate)
 
     wells = data.wells
-    role = wells["role"].astype("string")
-    wells = wells[(role != "empty").fillna(True).to_numpy()].reset_index(drop=True)
+    # non-empty wells by position (no copy of the wide wells frame until the end)
+    role_codes, role_words = pd.factorize(wells["role"])
+    not_empty = np.array([str(w) != "empty" for w in role_words] + [True], dtype=bool)
+    rows = np.flatnonzero(not_empty[np.asarray(role_codes, dtype=np.int64)])
     cols = _WELL_COLUMNS + [f for f in data.factor_names if f in wells.columns and f not in _WELL_COLUMNS]
-    out = wells[cols].copy()
-    G = len(out)
-    theo = out["substrate_conc_mM"].to_numpy(dtype=float) * pps
+    G = len(rows)
+    theo = wells["substrate_conc_mM"].to_numpy(dtype=float)[rows] * pps
     theo = np.where(np.isfinite(theo) & (theo > 0), theo, np.nan)
 
-    # --- the main analyte's usable readings, sorted by (well, time) --------------------------
+    # --- the main analyte's usable readings, each well's in one run sorted by time ------------
     # integer well codes once, on whole columns (no string group-by, merge or frame filter)
-    is_main = (amounts["analyte"] == data.manifest.analyte_main).fillna(False).to_numpy(dtype=bool)
-    code = np.where(is_main, well_index(amounts["plate"], amounts["well"], out["plate"], out["well"]), -1)
+    is_main = _equals(amounts["analyte"], data.manifest.analyte_main)
+    code = np.where(is_main, well_index(amounts["plate"], amounts["well"], wells["plate"].iloc[rows],
+                                        wells["well"].iloc[rows]), -1)
     t_all = amounts["time_h"].to_numpy(dtype=float)
     p_all = amounts["product_mM"].to_numpy(dtype=float)
     use = (code >= 0) & np.isfinite(t_all) & np.isfinite(p_all)
     first_reading_base = np.zeros(G, dtype=bool)
     if "baseline" in amounts.columns:
-        fr = (amounts["baseline"].astype("string") == "first_reading").fillna(False).to_numpy(dtype=bool)
+        fr = _equals(amounts["baseline"], "first_reading")
         first_reading_base[code[fr & (code >= 0)]] = True
-    code, t, prod = code[use], t_all[use], p_all[use]
-    # readings arrive sorted by well and time (CampaignData contract): sort only when they are not
-    # (np.lexsort is stable, so skipping it on sorted input changes nothing)
-    if code.size > 1 and not np.all((code[1:] > code[:-1]) | ((code[1:] == code[:-1]) & (t[1:] >= t[:-1]))):
-        order = np.lexsort((t, code))
+    if use.all():
+        t, prod = t_all, p_all
+    else:
+        code, t, prod = code[use], t_all[use], p_all[use]
+    # readings arrive sorted by plate, well, analyte and time (CampaignData contract), so each
+    # well's readings are one time-sorted run already; otherwise a stable sort by (well, time).
+    # Only the order within a well matters below (every group sum runs over a well's readings
+    # in time order), not the order of the wells.
+    order = _order_by_well(code, t)
+    if order is not None:
         code, t, prod = code[order], t[order], prod[order]
     g = code
     conv = prod / theo[g] * 100.0
 
     n_points = np.bincount(g, minlength=G)
-    starts = _group_starts(g, G)
+    run_start = np.ones(g.size, dtype=bool)
+    run_start[1:] = g[1:] != g[:-1]
+    starts = np.zeros(G, dtype=np.int64)                  # first reading of each well (0 for none)
+    starts[g[run_start]] = np.flatnonzero(run_start)
+    pos = np.arange(g.size) - starts[g]                   # place of each reading in its well
     is_t0 = t <= T0_TOLERANCE_H
     n_t0 = np.bincount(g, weights=is_t0, minlength=G)
     has_t0 = n_t0 > 0
@@ -168,7 +236,8 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         p_t0 = np.where(has_t0, np.bincount(g, weights=np.where(is_t0, prod, 0.0), minlength=G) / n_t0, np.nan)
 
     # leading run of readings at or below the window (unknown conversion counts as inside)
-    above = np.nan_to_num(conv, nan=-np.inf) > window
+    with np.errstate(invalid="ignore"):
+        above = conv > window                             # NaN (no substrate) is not above
     c = np.cumsum(above)
     c_before = c - above
     offset = c_before[starts[g]] if g.size else c_before
@@ -190,7 +259,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     m_first = ~m_slope & (n_points >= 3) & (n_pos >= 2)
     m_end = ~m_slope & ~m_first & (n_pos >= 1)
     m_fit = m_slope | m_first
-    method = np.select([m_slope, m_first, m_end], list(_METHODS[1:]), default=_METHODS[0]).astype(object)
+    method_code = np.select([m_slope, m_first, m_end], [1, 2, 3], default=0)   # into _METHODS
 
     rate = np.full(G, np.nan)
     rate_se = np.full(G, np.nan)
@@ -215,16 +284,16 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         intercept[ok], resid_sd[ok] = lf.intercept[ok], lf.resid_sd[ok]
         used_pts[m_slope] = n_win[m_slope]
         failed |= m_slope & ~ok
-        seg_end = np.full(G, -np.inf)
-        np.maximum.at(seg_end, g[sel], t[sel])
-        t_end_seg[ok] = seg_end[ok]
+        # the window is a leading run of the time-sorted course: its end is its last reading
+        t_end_seg[ok] = t[starts[ok] + n_win[ok] - 1]
         in_fit |= sel
 
     # first-order fit of the whole course
     sel = m_first[g]
     if sel.any():
-        b1_start, k_start = models.start_guess(t[sel], prod[sel], g[sel], G)
-        free = fit.fit_first_order(t[sel], prod[sel], g[sel], G, k_start=k_start)
+        t_s, p_s, g_s = t[sel], prod[sel], g[sel]
+        b1_start, k_start = models.start_guess(t_s, p_s, g_s, G)
+        free = _first_order_fit(np.flatnonzero(m_first), t_s, p_s, g_s, G, k_start=k_start)
         with np.errstate(invalid="ignore", divide="ignore"):
             poor = ((n_points < 4) | (free.status != fit.OK)
                     | ~(free.b1 <= PLATEAU_MAX_RATIO * theo) | ~(free.b1_se <= PLATEAU_MAX_REL_SE * np.abs(free.b1)))
@@ -235,8 +304,8 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         plateau[keep_free], resid_sd[keep_free] = free.b1[keep_free], free.resid_sd[keep_free]
         failed |= m_first & ~refit & ~keep_free
         if refit.any():
-            sel2 = sel & refit[g]
-            fx = fit.fit_first_order(t[sel2], prod[sel2], g[sel2], G, plateau=np.where(refit, theo, np.nan))
+            sel2 = refit[g_s]
+            fx = _first_order_fit(np.flatnonzero(refit), t_s[sel2], p_s[sel2], g_s[sel2], G, plateau=theo)
             good = refit & (fx.status == fit.OK)
             rate[good], rate_se[good], rate_df[good] = fx.rate[good], fx.rate_se[good], fx.df[good]
             k_fit[good], plateau[good], resid_sd[good] = fx.k[good], fx.b1[good], fx.resid_sd[good]
@@ -264,7 +333,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         tq = stats.t.ppf(0.5 + settings.confidence / 2.0, df_u)[df_inv.ravel()]
         half = np.where((rate_df > 0) & np.isfinite(rate_se), tq * rate_se, np.nan)
 
-    induction = _induction(g, t, prod, in_fit, G)
+    induction = _induction(g, t, prod, in_fit, G, pos)
     deactivation = _deactivation(rate, intercept, theo, t_end_seg, last_time, last_prod,
                                  resid_sd, m_fit)
 
@@ -281,50 +350,58 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         "baseline_first_reading": first_reading_base,
         "no_substrate": ~np.isfinite(theo) & (n_points > 0),
     }
-    flag_str = _flag_text(flags, G)
 
-    out["n_points"] = n_points.astype(np.int64)
-    out["method"] = pd.Series(method, dtype="string")
-    out["rate_mM_per_h"] = rate
-    out["rate_se_mM_per_h"] = rate_se
-    out["rate_df"] = rate_df
-    out["k_per_h"] = k_out
-    out["last_time_h"] = last_time
-    out["last_product_mM"] = last_prod
-    out["last_conversion_pct"] = last_conv
-    out["flags"] = flag_str
-    out["rate_ci_low_mM_per_h"] = rate - half
-    out["rate_ci_high_mM_per_h"] = rate + half
-    out["window_points"] = np.where(m_slope, n_win, 0)
-    out["intercept_mM"] = intercept
-    out["plateau_mM"] = plateau
-    out["resid_sd_mM"] = resid_sd
-    out["has_t0"] = has_t0
-    out["first_time_h"] = first_time
-    out["first_conversion_pct"] = first_conv
-    return out
+    flag_words, flag_codes = _flag_codes(flags, G)
+    out = wells[cols].reset_index(drop=True) if G == len(wells) else wells[cols].iloc[rows].reset_index(drop=True)
+    return with_columns(out, {
+        "n_points": n_points.astype(np.int64),
+        "method": pd.array(np.array(_METHODS, dtype=object), dtype="string").take(method_code),
+        "rate_mM_per_h": rate,
+        "rate_se_mM_per_h": rate_se,
+        "rate_df": rate_df,
+        "k_per_h": k_out,
+        "last_time_h": last_time,
+        "last_product_mM": last_prod,
+        "last_conversion_pct": last_conv,
+        "flags": text_array(flag_words, flag_codes),
+        "rate_ci_low_mM_per_h": rate - half,
+        "rate_ci_high_mM_per_h": rate + half,
+        "window_points": np.where(m_slope, n_win, 0),
+        "intercept_mM": intercept,
+        "plateau_mM": plateau,
+        "resid_sd_mM": resid_sd,
+        "has_t0": has_t0,
+        "first_time_h": first_time,
+        "first_conversion_pct": first_conv,
+    })
 
 
-def _induction(g, t, prod, in_fit, G) -> np.ndarray:
+def _induction(g, t, prod, in_fit, G, pos=None) -> np.ndarray:
     """Straight lines through the first and the second half of the fitted readings (sharing the
     middle reading): flagged when the early slope is below half the late slope and the
-    difference exceeds FLAG_SIGMAS standard errors (pooled residual SD of the two lines)."""
-    gi, ti, pi = g[in_fit], t[in_fit], prod[in_fit]
-    if gi.size == 0:
+    difference exceeds FLAG_SIGMAS standard errors (pooled residual SD of the two lines).
+
+    Each well's readings are contiguous and time-sorted in ``g`` and its fitted ones a leading
+    run of them, so ``pos`` (each reading's place in its well; from sorted ``g`` when not given)
+    is also its place among the fitted ones."""
+    if not in_fit.any():
         return np.zeros(G, dtype=bool)
-    n = np.bincount(gi, minlength=G)
-    starts = _group_starts(gi, G)
-    pos = np.arange(gi.size) - starts[gi]
-    mid = (n // 2)[gi]
-    one, two = pos <= mid, pos >= mid
-    codes = np.concatenate([2 * gi[one], 2 * gi[two] + 1])
-    lf = fit.fit_lines(np.concatenate([ti[one], ti[two]]), np.concatenate([pi[one], pi[two]]), codes, 2 * G)
-    early, late = lf.slope[0::2], lf.slope[1::2]
-    df = (lf.n[0::2] - 2) + (lf.n[1::2] - 2)
+    if pos is None:
+        gi = g[in_fit]
+        pos = np.zeros(g.shape, dtype=np.int64)
+        pos[in_fit] = np.arange(gi.size) - _group_starts(gi, G)[gi]
+    n = np.bincount(g, weights=in_fit, minlength=G).astype(np.int64)
+    mid = (n // 2)[g]
+    one, two = in_fit & (pos <= mid), in_fit & (pos >= mid)
+    # the two halves fitted separately (each group's sums in the same order as one joint fit)
+    early_fit = fit.fit_lines(t[one], prod[one], g[one], G)
+    late_fit = fit.fit_lines(t[two], prod[two], g[two], G)
+    early, late = early_fit.slope, late_fit.slope
+    df = (early_fit.n - 2) + (late_fit.n - 2)
     with np.errstate(invalid="ignore", divide="ignore"):
-        rss = np.nan_to_num(lf.rss[0::2]) + np.nan_to_num(lf.rss[1::2])
+        rss = np.nan_to_num(early_fit.rss) + np.nan_to_num(late_fit.rss)
         s2 = rss / df
-        se = np.sqrt(s2 / lf.sxx[0::2] + s2 / lf.sxx[1::2])
+        se = np.sqrt(s2 / early_fit.sxx + s2 / late_fit.sxx)
         hit = (n >= 4) & (df > 0) & (late > 0) & (early < 0.5 * late) & ((late - early) > FLAG_SIGMAS * se)
     return np.asarray(hit, dtype=bool)
 

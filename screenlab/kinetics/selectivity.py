@@ -70,7 +70,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from screenlab.kinetics.sites import join_flags
+from screenlab.kinetics.sites import FlagIndex, join_flags, text_array
 from screenlab.settings import AnalysisSettings
 
 #: flag codes set here (code -> one plain sentence)
@@ -113,7 +113,11 @@ GROUP_COLUMNS = ("selectivity_pct", "selectivity_se", "selectivity_df", "selecti
 def _t_quantile(confidence: float, df) -> np.ndarray:
     df = np.asarray(df, dtype=float)
     ok = np.isfinite(df) & (df > 0)
-    return np.where(ok, stats.t.ppf(0.5 + float(confidence) / 2.0, np.where(ok, df, 1.0)), np.nan)
+    out = np.full(df.shape, np.nan)
+    if ok.any():                     # one quantile per distinct df (the same numbers, fewer of them)
+        u, inv = np.unique(df[ok], return_inverse=True)
+        out[ok] = stats.t.ppf(0.5 + float(confidence) / 2.0, u)[inv.ravel()]
+    return out
 
 
 def origin_fit(code: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int) -> dict[str, np.ndarray]:
@@ -426,46 +430,93 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
     negative code leaves the row out). Returns :data:`GROUP_COLUMNS` plus ``flags``: mean over the
     wells with a value, SE = SD/sqrt(n) and a t interval with n - 1 df; one well: its own SE and
     df. Group flags: a well flag carried by at least half of the wells with a value.
+
+    Means, SDs and sums come from one pandas group-by per quantity (its compensated sums); sizes,
+    first values and plate counts from bincounts over the group codes; no loop over groups or rows.
     """
     codes = np.asarray(codes)
     G = int(n_groups)
-    out = pd.DataFrame(index=pd.RangeIndex(G))
+    n_rows = len(rows)
+    out: dict[str, np.ndarray] = {}
     flag_masks: dict[str, np.ndarray] = {}
-    wflags = rows["flags"].astype(object).where(rows["flags"].notna(), "").astype(str) if "flags" in rows \
-        else pd.Series([""] * len(rows))
-    any_value = np.zeros(len(rows), dtype=bool)
+
+    def num(col: str, default: float) -> np.ndarray:
+        if col not in rows:
+            return np.full(n_rows, default)
+        return pd.to_numeric(rows[col], errors="coerce").to_numpy(dtype=float)
+
+    def scatter(present: np.ndarray, values) -> np.ndarray:
+        full = np.full(G, np.nan)
+        full[present] = values
+        return full
+
+    if "plate" in rows:
+        plate_code, plate_names = pd.factorize(rows["plate"])
+        plate_code = np.asarray(plate_code, dtype=np.int64)
+        if (plate_code < 0).any():                 # a missing plate counts as its text, as str() gives it
+            plate_code, plate_names = pd.factorize(rows["plate"].astype(str).to_numpy(dtype=object))
+            plate_code = np.asarray(plate_code, dtype=np.int64)
+        n_plate_names = len(plate_names)
+    else:
+        plate_code, n_plate_names = np.zeros(n_rows, dtype=np.int64), 1
+    any_value = np.zeros(n_rows, dtype=bool)
+    if not n_rows or not (codes >= 0).any():
+        # nothing to summarise: every statistic NaN, no group flags
+        nan = np.full(G, np.nan)
+        empty = FlagIndex(None, n=G).join_codes({})
+        return pd.DataFrame({**{c: nan.copy() for c in GROUP_COLUMNS}, "flags": text_array(*empty)},
+                            index=pd.RangeIndex(G))
     for key in ("selectivity", "ee"):
-        v = pd.to_numeric(rows.get(f"{key}_pct"), errors="coerce").to_numpy(dtype=float) \
-            if f"{key}_pct" in rows else np.full(len(rows), np.nan)
-        se1 = pd.to_numeric(rows[f"{key}_se"], errors="coerce").to_numpy(dtype=float) \
-            if f"{key}_se" in rows else np.full(len(rows), np.nan)
-        df1 = pd.to_numeric(rows[f"{key}_df"], errors="coerce").to_numpy(dtype=float) \
-            if f"{key}_df" in rows else np.full(len(rows), np.nan)
-        bse = pd.to_numeric(rows[f"{key}_blank_se"], errors="coerce").to_numpy(dtype=float) \
-            if f"{key}_blank_se" in rows else np.zeros(len(rows))
-        plate = rows["plate"].astype(str).to_numpy(dtype=object) if "plate" in rows else np.zeros(len(rows))
+        v = num(f"{key}_pct", np.nan)
+        se1 = num(f"{key}_se", np.nan)
+        df1 = num(f"{key}_df", np.nan)
+        bse = num(f"{key}_blank_se", 0.0)
         ok = np.isfinite(v) & (codes >= 0)
-        frame = pd.DataFrame({"g": codes[ok], "v": v[ok], "se": se1[ok], "df": df1[ok],
-                              "b2": np.nan_to_num(bse[ok], nan=0.0) ** 2, "plate": plate[ok]})
-        frame["fit2"] = frame["se"] ** 2 - frame["b2"]
-        frame["dfs"] = frame["df"]
-        a = frame.groupby("g").agg(n=("v", "size"), mean=("v", "mean"), sd=("v", "std"),
-                                   se1=("se", "first"), df1=("df", "first"), b2=("b2", "mean"),
-                                   k=("plate", "nunique"), fit2=("fit2", "mean"),
-                                   dfsum=("dfs", "sum")).reindex(range(G))
-        n = a["n"].fillna(0).to_numpy(dtype=float)
+        g = codes[ok].astype(np.int64)
+        n = np.zeros(G)
+        mean = sd = se_first = df_first = b2m = fit2m = dfsum = np.full(G, np.nan)
+        k = np.ones(G)
+        if g.size:
+            b2 = np.nan_to_num(bse[ok], nan=0.0) ** 2
+            se_ok, df_ok = se1[ok], df1[ok]
+            frame = pd.DataFrame({"v": v[ok], "b2": b2, "fit2": se_ok ** 2 - b2})
+            gb = frame.groupby(g, sort=True)
+            means = gb.mean()
+            present = means.index.to_numpy(dtype=np.int64)
+            mean = scatter(present, means["v"].to_numpy(dtype=float))
+            b2m = scatter(present, means["b2"].to_numpy(dtype=float))
+            fit2m = scatter(present, means["fit2"].to_numpy(dtype=float))
+            sd = scatter(present, gb["v"].std().to_numpy(dtype=float))
+            dfsum = scatter(present, pd.Series(df_ok).groupby(g, sort=True).sum().to_numpy(dtype=float))
+            n = np.bincount(g, minlength=G)[:G].astype(float)
+            order = np.argsort(g, kind="stable")
+            gs = g[order]
+            for dst, src in ((0, se_ok), (1, df_ok)):          # first non-missing value per group
+                vals = src[order]
+                idx = np.flatnonzero(~np.isnan(vals))
+                got = np.full(G, np.nan)
+                if idx.size:
+                    lead = np.ones(idx.size, dtype=bool)
+                    lead[1:] = gs[idx[1:]] != gs[idx[:-1]]
+                    got[gs[idx[lead]]] = vals[idx[lead]]
+                if dst == 0:
+                    se_first = got
+                else:
+                    df_first = got
+            pair = np.unique(g * (n_plate_names + 1) + plate_code[ok])
+            k = np.bincount(pair // (n_plate_names + 1), minlength=G)[:G].astype(float)
+            k = np.where(n > 0, k, 1.0)
         with np.errstate(invalid="ignore", divide="ignore"):
-            v_rep = a["sd"].to_numpy(float) ** 2 / n
-            v_bl = a["b2"].fillna(0.0).to_numpy(float) / a["k"].fillna(1.0).to_numpy(float)
-            se = np.where(n >= 2, np.sqrt(v_rep + v_bl), np.where(n == 1, a["se1"].to_numpy(float), np.nan))
+            v_rep = sd ** 2 / n
+            v_bl = np.nan_to_num(b2m, nan=0.0) / k
+            se = np.where(n >= 2, np.sqrt(v_rep + v_bl), np.where(n == 1, se_first, np.nan))
             # df: Welch-Satterthwaite weighted by the variance the wells' own fits lead one to expect
             # (not by the sample SD itself, whose chance lows would inflate the df)
-            v_exp = np.maximum(a["fit2"].to_numpy(float), 0.0) / n
-            df = np.where(n >= 2, np.minimum(_welch(v_exp, n - 1.0, v_bl, np.inf), a["dfsum"].to_numpy(float)),
-                          np.where(n == 1, a["df1"].to_numpy(float), np.nan))
+            v_exp = np.maximum(fit2m, 0.0) / n
+            df = np.where(n >= 2, np.minimum(_welch(v_exp, n - 1.0, v_bl, np.inf), dfsum),
+                          np.where(n == 1, df_first, np.nan))
             df = np.where((n >= 2) & ~np.isfinite(df), n - 1.0, np.maximum(df, n - 1.0))
             q = _t_quantile(confidence, df)
-            mean = a["mean"].to_numpy(dtype=float)
         out[f"{key}_pct"] = mean
         out[f"{key}_se"] = se
         out[f"{key}_df"] = df
@@ -475,14 +526,14 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
     # group flags: carried by at least half of the wells that have a selectivity or an ee
     c_any = codes[any_value].astype(np.int64)
     n_any = np.bincount(c_any, minlength=G)[:G].astype(float)
+    wflags = FlagIndex(rows["flags"]) if "flags" in rows and n_rows else None
     for code in ("selectivity_drift", "selectivity_low_product", "background_dominant", "ee_drift",
                  "ee_low_product"):
-        has = wflags.str.contains(rf"(?:^|;){code}(?:;|$)", regex=True).to_numpy(dtype=bool)
+        has = wflags.has(code) if wflags is not None else np.zeros(n_rows, dtype=bool)
         cnt = np.bincount(c_any, weights=has[any_value].astype(float), minlength=G)[:G]
         flag_masks[code] = (n_any > 0) & (cnt >= 0.5 * n_any) & (cnt > 0)
-    out["flags"] = join_flags(None, flag_masks, index=out.index).to_numpy(dtype=object) if flag_masks \
-        else np.array([""] * G, dtype=object)
-    return out[[*GROUP_COLUMNS, "flags"]]
-
+    words, flag_codes = FlagIndex(None, n=G).join_codes(flag_masks)
+    return pd.DataFrame({**{c: out[c] for c in GROUP_COLUMNS}, "flags": text_array(words, flag_codes)},
+                        index=pd.RangeIndex(G))
 
 __all__ = ["FLAGS", "WELL_COLUMNS", "GROUP_COLUMNS", "well_selectivity", "summarise_groups", "origin_fit"]

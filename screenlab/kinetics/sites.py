@@ -19,6 +19,7 @@ build their ``;``-joined flag columns.
 """
 from __future__ import annotations
 
+import copy
 from collections.abc import Mapping
 
 import numpy as np
@@ -47,25 +48,45 @@ class FlagIndex:
 
     def __init__(self, flags, n: int | None = None):
         if flags is None:
-            vals = np.full(int(n or 0), "", dtype=object)
+            codes, uniques = np.zeros(int(n or 0), dtype=np.int64), ([""] if n else [])
         else:
-            s = pd.Series(flags, copy=False).astype(object)
-            vals = s.where(s.notna(), "").to_numpy(dtype=object)
-        codes, uniques = pd.factorize(vals)
+            # factorised as it is (Arrow strings stay in Arrow); a missing value reads as ""
+            codes, uniques = pd.factorize(pd.Series(flags, copy=False))
         self.codes = np.asarray(codes, dtype=np.int64)
         self.uniques = [str(u) for u in uniques]
+        if (self.codes < 0).any():
+            self.codes = np.where(self.codes < 0, len(self.uniques), self.codes)
+            self.uniques.append("")
         self._tokens = [set(u.split(";")) for u in self.uniques]
 
     def has(self, code: str) -> np.ndarray:
         present = np.array([code in tk for tk in self._tokens], dtype=bool)
         return present[self.codes] if len(self.codes) else np.zeros(0, bool)
 
+    @classmethod
+    def from_codes(cls, codes: np.ndarray, words) -> "FlagIndex":
+        """An index over a flag column already given as integer codes into ``words`` (str)."""
+        self = cls.__new__(cls)
+        self.codes = np.asarray(codes, dtype=np.int64)
+        self.uniques = [str(w) for w in words]
+        self._tokens = [set(u.split(";")) for u in self.uniques]
+        return self
+
+    def text(self) -> np.ndarray:
+        """The flag column itself, as an object array of str."""
+        return np.asarray(self.uniques, dtype=object)[self.codes] if len(self.codes) else np.zeros(0, dtype=object)
+
     def join(self, masks: Mapping[str, np.ndarray]) -> np.ndarray:
         """Object array of str (see the class docstring)."""
+        words, codes = self.join_codes(masks)
+        return words[codes]
+
+    def join_codes(self, masks: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`join` as distinct texts (object array) and one code per row into them."""
         items = [(c, np.asarray(m, dtype=bool)) for c, m in masks.items()]
         n = len(self.codes)
         if not n:
-            return np.zeros(0, dtype=object)
+            return np.zeros(0, dtype=object), np.zeros(0, dtype=np.int64)
         bits = np.zeros(n, dtype=np.int64)
         for i, (code, mask) in enumerate(items):          # a loop over a few codes
             bits |= (mask & ~self.has(code)).astype(np.int64) << i
@@ -76,7 +97,32 @@ class FlagIndex:
             base, b = self.uniques[int(c) >> len(items)], int(c) & ((1 << len(items)) - 1)
             added = [code for i, (code, _) in enumerate(items) if b >> i & 1]
             text[j] = ";".join([base, *added]) if base else ";".join(added)
-        return text[cc]
+        return text, np.asarray(cc, dtype=np.int64)
+
+
+def text_array(words, codes):
+    """``words[codes]`` as the column a frame makes of that object array (pandas infers the column
+    type from the distinct words), built by one take instead of one string conversion per row."""
+    words = np.asarray(words, dtype=object)
+    codes = np.asarray(codes, dtype=np.intp)
+    if not len(codes) or not len(words):
+        return words[codes]                   # empty: an object column, as before
+    return pd.Series(words, copy=False).array.take(codes)
+
+
+def with_columns(frame: pd.DataFrame, new: dict) -> pd.DataFrame:
+    """A new frame: ``frame``'s columns (those named in ``new`` replaced in place) then the other
+    columns of ``new`` in order, as successive ``out[c] = v`` on a copy would give; ``frame`` is not
+    changed (no deep copy: pandas copy-on-write keeps the shared columns apart)."""
+    out = frame.copy(deep=False)
+    for c in [c for c in new if c in frame.columns]:
+        out[c] = new[c]
+    fresh = {c: v for c, v in new.items() if c not in frame.columns}
+    if fresh:
+        attrs = copy.deepcopy(frame.attrs)
+        out = pd.concat([out, pd.DataFrame(fresh, index=out.index)], axis=1)
+        out.attrs = attrs
+    return out
 
 
 def join_flags(existing, masks: Mapping[str, np.ndarray], index=None) -> pd.Series:
@@ -116,26 +162,45 @@ def active_sites(wells: pd.DataFrame, catalysts: pd.DataFrame) -> pd.DataFrame:
     ``site_basis`` (``per_unit`` | ``surface_metal`` | ``""``) and ``site_flags`` (codes of
     :data:`FLAGS`). Inputs are not changed.
     """
+    sites, basis, (flag_words, flag_codes) = site_arrays(wells, catalysts)
+    basis_col = text_array(BASIS_WORDS, basis) if len(wells) else np.zeros(0, dtype=str)
+    return pd.DataFrame({"sites_umol": sites, "site_basis": basis_col,
+                         "site_flags": text_array(flag_words, flag_codes)}, index=wells.index)
+
+
+#: ``site_basis`` words by the codes :func:`site_arrays` returns
+BASIS_WORDS = ("", "per_unit", "surface_metal")
+
+
+def site_arrays(wells: pd.DataFrame, catalysts: pd.DataFrame, factorized=None):
+    """:func:`active_sites` as arrays: ``sites_umol`` (float), the ``site_basis`` code per well
+    (into :data:`BASIS_WORDS`) and the site flags as (distinct texts, code per well).
+    ``factorized`` may hold ``pd.factorize`` of the ``catalyst`` / ``loading_unit`` columns."""
+    factorized = factorized or {}
     n = len(wells)
     idx = wells.index
-    cat_cols = ["catalyst", "molar_mass_g_mol", "sites_per_unit", "metal_wt_pct", "metal_molar_mass_g_mol",
-                "dispersion"]
-    cats = catalysts.reindex(columns=cat_cols).drop_duplicates("catalyst")
     # distinct catalyst names once (Arrow-fast), then one lookup per name
-    cat_codes, cat_names = (pd.factorize(wells["catalyst"]) if "catalyst" in wells
-                            else (np.full(n, -1, dtype=np.int64), pd.Index([], dtype=object)))
+    if "catalyst" in factorized:
+        cat_codes, cat_names = factorized["catalyst"]
+    else:
+        cat_codes, cat_names = (pd.factorize(wells["catalyst"]) if "catalyst" in wells
+                                else (np.full(n, -1, dtype=np.int64), pd.Index([], dtype=object)))
     cat_codes = np.asarray(cat_codes, dtype=np.int64)
     has_cat = cat_codes >= 0
-    # catalyst row per well by one index lookup over the distinct names (no merge)
-    names = cats["catalyst"].astype(object).to_numpy(dtype=object)
-    named = pd.notna(names)
-    name_pos = pd.Index(names[named]).get_indexer(pd.Index(np.asarray(cat_names, dtype=object)))
+    # catalyst row per well by one index lookup over the distinct names (no merge); a name listed
+    # twice in catalysts.csv takes its first row
+    listed = pd.Index(catalysts["catalyst"] if "catalyst" in catalysts.columns else [], dtype=None)
+    first_rows = np.arange(len(listed))
+    if not listed.is_unique:
+        first_rows = np.flatnonzero(~listed.duplicated(keep="first"))
+        listed = listed[first_rows]
+    name_pos = listed.get_indexer(cat_names) if len(listed) else np.full(len(cat_names), -1)
     pos = np.where(has_cat, np.append(name_pos, -1)[cat_codes], -1)
     known = pos >= 0
-    row = np.flatnonzero(named)[np.maximum(pos, 0)] if named.any() else np.zeros(n, dtype=np.int64)
+    row = first_rows[np.maximum(pos, 0)] if len(first_rows) else np.zeros(n, dtype=np.int64)
 
     def per_well(col: str) -> np.ndarray:
-        v = _num(cats, col)
+        v = _num(catalysts, col)
         return np.where(known, v[row], np.nan) if v.size else np.full(n, np.nan)
 
     mm = per_well("molar_mass_g_mol")
@@ -148,18 +213,19 @@ def active_sites(wells: pd.DataFrame, catalysts: pd.DataFrame) -> pd.DataFrame:
 
     loading = _num(wells, "loading")
     unit_raw = wells["loading_unit"] if "loading_unit" in wells else pd.Series([None] * n, index=idx)
-    u_codes, u_words = pd.factorize(unit_raw)
+    u_codes, u_words = factorized["loading_unit"] if "loading_unit" in factorized else pd.factorize(unit_raw)
     normal = []
     for w in u_words:                                  # distinct words, not rows
         w = str(w).strip().lower().replace("µ", "u").replace("μ", "u").replace(" ", "")
         normal.append((units.normalise_loading_unit(w) or "") if w else "")
-    unit = np.array(normal + [""], dtype=object)[np.asarray(u_codes, dtype=np.int64)]
+    unit_words = np.array(normal + [""], dtype=object)
+    u_codes = np.asarray(u_codes, dtype=np.int64)
     conc = _num(wells, "substrate_conc_mM")
     vol = _num(wells, "volume_uL")
 
-    is_umol = unit == "umol"
-    is_mg = unit == "mg"
-    is_pct = unit == "mol%"
+    is_umol = (unit_words == "umol")[u_codes]            # compared per distinct word, not per row
+    is_mg = (unit_words == "mg")[u_codes]
+    is_pct = (unit_words == "mol%")[u_codes]
     metal = is_mg & np.isfinite(wt)
     with np.errstate(invalid="ignore", divide="ignore"):
         s_umol = loading * spu
@@ -169,15 +235,14 @@ def active_sites(wells: pd.DataFrame, catalysts: pd.DataFrame) -> pd.DataFrame:
     sites = np.select([is_umol, metal, is_mg, is_pct], [s_umol, s_mg_metal, s_mg_unit, s_pct], default=np.nan)
     sites = np.where(known, sites, np.nan)
     sites = np.where(np.isfinite(sites) & (sites > 0), sites, np.nan)
-    basis = np.where(known & metal & np.isfinite(sites), "surface_metal",
-                     np.where(known & np.isfinite(sites), "per_unit", ""))
+    basis = np.where(known & metal & np.isfinite(sites), 2, np.where(known & np.isfinite(sites), 1, 0))
 
     no_loading = has_cat & known & (~(is_umol | is_mg | is_pct) | ~np.isfinite(loading) | (loading <= 0))
-    flags = join_flags(None, {
+    flags = FlagIndex(None, n=n).join_codes({
         "unknown_catalyst": has_cat & ~known,
         "no_loading": no_loading,
         "missing_metal_molar_mass": known & metal & ~np.isfinite(metal_mm) & ~no_loading,
         "missing_molar_mass": known & is_mg & ~metal & ~np.isfinite(mm) & ~no_loading,
         "no_substrate": known & is_pct & ~(np.isfinite(conc) & np.isfinite(vol) & (conc > 0)) & ~no_loading,
-    }, index=idx)
-    return pd.DataFrame({"sites_umol": sites, "site_basis": basis, "site_flags": flags.to_numpy()}, index=idx)
+    })
+    return sites, basis, flags

@@ -37,7 +37,8 @@ from scipy import stats
 from screenlab import units
 from screenlab.kinetics import selectivity as _selectivity
 from screenlab.kinetics import sites as _sites
-from screenlab.kinetics.sites import FlagIndex, join_flags
+from screenlab.kinetics.amounts import well_index
+from screenlab.kinetics.sites import FlagIndex
 from screenlab.settings import AnalysisSettings
 
 #: flag codes set here (code -> one plain sentence); the site codes of screenlab.kinetics.sites included
@@ -94,8 +95,13 @@ def t_quantile(confidence: float, df) -> np.ndarray:
     """Two-sided Student-t quantile; df = inf gives the normal quantile, df <= 0 or NaN gives NaN."""
     df = np.asarray(df, dtype=float)
     q = 0.5 + float(confidence) / 2.0
+    ok = np.isfinite(df) & (df > 0)
+    out = np.full(df.shape, np.nan)
     with np.errstate(invalid="ignore"):
-        out = np.where(np.isfinite(df) & (df > 0), stats.t.ppf(q, np.where(df > 0, df, 1.0)), np.nan)
+        if ok.any():
+            # one quantile per distinct df (the same numbers as one per element, fewer of them)
+            inv, u = pd.factorize(df[ok])
+            out[ok] = stats.t.ppf(q, np.asarray(u, dtype=float))[inv]
         out = np.where(np.isposinf(df), stats.norm.ppf(q), out)
     return out
 
@@ -115,11 +121,86 @@ def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
 def _f(frame: pd.DataFrame, col: str) -> np.ndarray:
     if col not in frame.columns:
         return np.full(len(frame), np.nan)
-    return pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=float)
+    values = frame[col]
+    if isinstance(values.dtype, np.dtype) and values.dtype.kind in "fiu":
+        return values.to_numpy(dtype=float)               # already numeric: nothing to coerce
+    return pd.to_numeric(values, errors="coerce").to_numpy(dtype=float)
+
+
+def _factorize(values) -> tuple[np.ndarray, object]:
+    """``pd.factorize(values)``: int64 codes (missing values -1) and the distinct values."""
+    codes, uniques = pd.factorize(values)
+    return np.asarray(codes, dtype=np.int64), uniques
+
+
+def _key_of(codes: np.ndarray, uniques) -> tuple[np.ndarray, int]:
+    """Codes with missing values as one more value (``groupby(dropna=False)``), and their count."""
+    k = len(uniques)
+    if codes.size and codes.min() < 0:
+        return np.where(codes < 0, k, codes), k + 1
+    return codes, k
+
+
+def _codes(values) -> tuple[np.ndarray, int]:
+    """Integer code per row and the number of distinct values; missing values are one value (as
+    ``groupby(dropna=False)`` treats them)."""
+    return _key_of(*_factorize(values))
+
+
+def _role_parts(frame: pd.DataFrame):
+    """The role column as an object array of str ("" where missing) and as key codes."""
+    codes, uniques = _factorize(frame["role"])
+    words = np.array([str(u) for u in uniques] + [""], dtype=object)
+    return words[codes], _key_of(codes, uniques)          # code -1 (missing) takes the trailing ""
 
 
 def _role(frame: pd.DataFrame) -> np.ndarray:
-    return frame["role"].astype(object).where(frame["role"].notna(), "").astype(str).to_numpy(dtype=object)
+    """Object array of str: each row's role, "" where missing (one str() per distinct value)."""
+    return _role_parts(frame)[0]
+
+
+def _key_codes(columns, rows: np.ndarray | None = None) -> np.ndarray:
+    """Group number of each row (of ``rows``, when given) over several key columns, numbered in
+    order of first appearance: the numbers of ``groupby(keys, dropna=False, sort=False).ngroup()``.
+
+    Each column is factorised once (Arrow-fast for string columns; a column may also be given as
+    its ``_codes`` result) and the codes are combined arithmetically, so no tuple of keys is ever
+    built per row.
+    """
+    code = None
+    size = 1
+    for col in columns:
+        c, k = col if isinstance(col, tuple) else _codes(col)
+        if rows is not None:
+            c = c[rows]
+        k = max(k, 1)
+        if code is None:
+            code, size = c, k
+            continue
+        if size * k >= 2 ** 62:                      # keep the mixed-radix number in int64
+            code = np.asarray(pd.factorize(code)[0], dtype=np.int64)
+            size = int(code.max()) + 1 if code.size else 1
+        code = code * k + c
+        size *= k
+    if code is None:
+        return np.zeros(len(rows) if rows is not None else 0, dtype=np.int64)
+    return np.asarray(pd.factorize(code)[0], dtype=np.int64)
+
+
+def _group_first(values: np.ndarray, order: np.ndarray, sorted_codes: np.ndarray, n_groups: int) -> np.ndarray:
+    """Per group: the first non-NaN value in row order (``groupby.first()``), NaN if none.
+
+    ``order`` is a stable argsort of the group codes, ``sorted_codes`` the codes in that order.
+    """
+    v = values[order]
+    out = np.full(n_groups, np.nan)
+    idx = np.flatnonzero(~np.isnan(v))
+    if idx.size:
+        seg = sorted_codes[idx]
+        new = np.ones(idx.size, dtype=bool)
+        new[1:] = seg[1:] != seg[:-1]
+        out[seg[new]] = v[idx[new]]
+    return out
 
 
 # the flag column parsed once per distinct string (shared with sites.py)
@@ -136,49 +217,57 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -
     """
     del settings  # the definition has no tunable part; kept for a uniform signature
     role = _role(wells)
-    keep = role != "empty"
-    w = pd.DataFrame({
-        "plate": wells["plate"].to_numpy(dtype=object)[keep],
-        "temperature_c": _f(wells, "temperature_c")[keep],
-        "is_blank": (role == "blank")[keep],
-        "rate": _f(wells, "rate_mM_per_h")[keep],
-        "se": _f(wells, "rate_se_mM_per_h")[keep],
-        "df": _f(wells, "rate_df")[keep],
-    })
-    w["tkey"] = _tkey(w["temperature_c"])
-    keys = w.drop_duplicates(["plate", "tkey"])[["plate", "tkey", "temperature_c"]]
-    b = w[w["is_blank"] & np.isfinite(w["rate"])]
-    g = b.groupby(["plate", "tkey"], sort=False)
-    agg = g.agg(n_blanks=("rate", "size"), blank_rate_mM_per_h=("rate", "mean"),
-                blank_sd_mM_per_h=("rate", "std"), one_se=("se", "first"), one_df=("df", "first")).reset_index()
-    out = keys.merge(agg, on=["plate", "tkey"], how="left")
-    n = out["n_blanks"].fillna(0).to_numpy(dtype=float)
-    sd = out["blank_sd_mM_per_h"].to_numpy(dtype=float)
-    one_se = out["one_se"].to_numpy(dtype=float)
+    keep = np.flatnonzero(role != "empty")
+    temp = _f(wells, "temperature_c")[keep]
+    tkey = _tkey(temp)
+    # plate x temperature key per kept well, numbered in order of first appearance
+    kcode = _key_codes([_codes(wells["plate"]), _codes(_tkey(_f(wells, "temperature_c")))], keep)
+    K = int(kcode.max()) + 1 if kcode.size else 0
+    first = np.unique(kcode, return_index=True)[1]           # first kept well of each key
+    rate = _f(wells, "rate_mM_per_h")[keep]
+    blank = (role[keep] == "blank") & np.isfinite(rate)
+    bk = kcode[blank]
+    n = np.bincount(bk, minlength=K).astype(float)
+    mean = np.full(K, np.nan)
+    sd = np.full(K, np.nan)
+    one_se = np.full(K, np.nan)
+    one_df = np.full(K, np.nan)
+    if bk.size:
+        # mean and SD by a pandas group-by (its compensated sums), the first SE / df by position
+        gb = pd.Series(rate[blank]).groupby(bk, sort=True)
+        present = np.unique(bk)
+        mean[present] = gb.mean().to_numpy(dtype=float)
+        sd[present] = gb.std().to_numpy(dtype=float)
+        order = np.argsort(bk, kind="stable")
+        sorted_codes = bk[order]
+        one_se = _group_first(_f(wells, "rate_se_mM_per_h")[keep][blank], order, sorted_codes, K)
+        one_df = _group_first(_f(wells, "rate_df")[keep][blank], order, sorted_codes, K)
     with np.errstate(invalid="ignore", divide="ignore"):
         se = np.where(n >= 2, sd / np.sqrt(n), np.where(n == 1, one_se, np.nan))
         lod = 3.0 * se
-    dfb = np.where(n >= 2, n - 1, np.where(n == 1, out["one_df"].to_numpy(dtype=float), np.nan))
-    mean = out["blank_rate_mM_per_h"].to_numpy(dtype=float)
+    dfb = np.where(n >= 2, n - 1, np.where(n == 1, one_df, np.nan))
     detected = np.isfinite(mean) & (~np.isfinite(lod) | (mean >= lod))
-    flags = join_flags(None, {
+    flag_words, flag_codes = _FlagIndex(None, n=K).join_codes({
         "no_blank": n == 0,
         "single_blank": n == 1,
         "blank_below_lod": (n >= 1) & np.isfinite(lod) & (mean < lod),
-    }, index=out.index)
-    res = pd.DataFrame({
-        "plate": out["plate"].to_numpy(dtype=object),
-        "temperature_c": out["temperature_c"].to_numpy(dtype=float),
-        "n_blanks": n.astype(np.int64),
-        "blank_rate_mM_per_h": mean,
-        "blank_sd_mM_per_h": np.where(n >= 2, sd, np.nan),
-        "blank_se_mM_per_h": se,
-        "blank_lod_mM_per_h": lod,
-        "flags": flags.to_numpy(dtype=object),
-        "blank_df": dfb,
-        "blank_detected": detected & (n >= 1),
     })
-    return res.sort_values(["plate", "temperature_c"], kind="stable").reset_index(drop=True)
+    plate = wells["plate"].iloc[keep[first]].to_numpy(dtype=object)
+    temperature = temp[first]
+    by = _sort_order([plate, temperature])
+    res = pd.DataFrame({
+        "plate": plate[by],
+        "temperature_c": temperature[by],
+        "n_blanks": n.astype(np.int64)[by],
+        "blank_rate_mM_per_h": mean[by],
+        "blank_sd_mM_per_h": np.where(n >= 2, sd, np.nan)[by],
+        "blank_se_mM_per_h": se[by],
+        "blank_lod_mM_per_h": lod[by],
+        "flags": _sites.text_array(flag_words, flag_codes[by]),
+        "blank_df": dfb[by],
+        "blank_detected": (detected & (n >= 1))[by],
+    })
+    return res
 
 
 # ----------------------------------------------------------------------------------------- per well
@@ -221,30 +310,99 @@ def _robust_z(values: np.ndarray, group_codes: np.ndarray, se: np.ndarray | None
       own measurement error (so wells near the noise floor are not flagged for noise).
     """
     values = np.asarray(values, dtype=float)
-    s = pd.Series(values)
-    g = pd.Series(group_codes)
+    group_codes = np.asarray(group_codes)
     ok = np.isfinite(values) & (group_codes >= 0)
-    s = s.where(ok)
-    med = s.groupby(g).transform("median")
-    dev = (s - med).abs()
-    mad = dev.groupby(g).transform("median")
-    mean_ad = dev.groupby(g).transform("mean")
-    cnt = s.groupby(g).transform("count").to_numpy()
+    z = np.full(values.shape, np.nan)
+    rows = np.flatnonzero(ok)
+    if not rows.size:
+        return z
+    # statistics over the rows in a group only (others take no part), groups renumbered 0..G-1
+    g, _ = pd.factorize(group_codes[rows])
+    g = np.asarray(g, dtype=np.int64)
+    G = int(g.max()) + 1
+    x = values[rows]
+    cnt = np.bincount(g, minlength=G)
+    median = _Medians(g, G)
+    med = median(x)[g]
+    dev = np.abs(x - med)
+    mad = median(dev)[g]
     with np.errstate(invalid="ignore", divide="ignore"):
-        z = np.where(mad > 0, 0.6745 * dev / mad,
-                     np.where(mean_ad > 0, dev / (1.253314 * mean_ad), 0.0))
-        active = (med > 0).to_numpy() & ok & (cnt >= 3)
-        ln = pd.Series(np.where(active & (values > 0), np.log(np.abs(values) + (values <= 0)), np.nan))
-        dev_ln = (ln - ln.groupby(g).transform("median")).abs().to_numpy()
+        zr = np.where(mad > 0, 0.6745 * dev / mad, 0.0)
+        flat = mad == 0                        # MAD = 0: the mean absolute deviation instead
+        if flat.any():
+            mean_ad = pd.Series(dev[flat]).groupby(g[flat], sort=True).mean()
+            mad0 = np.full(G, np.nan)
+            mad0[mean_ad.index.to_numpy(dtype=np.int64)] = mean_ad.to_numpy(dtype=float)
+            m0 = mad0[g[flat]]
+            zr[flat] = np.where(m0 > 0, dev[flat] / (1.253314 * m0), 0.0)
+        active = (med > 0) & (cnt[g] >= 3)
+        pos = active & (x > 0)
+        dev_ln = np.full(x.shape, np.nan)
+        if pos.any():
+            ln = np.full(x.shape, np.nan)
+            ln[pos] = np.log(x[pos])
+            dev_ln = np.abs(ln - median(ln)[g])
         pool = dev_ln[np.isfinite(dev_ln) & (dev_ln > 0)]
         if pool.size:
-            z_ln = np.where(values > 0, 0.6745 * dev_ln / np.median(pool), np.inf)
-            z = np.where(active, z_ln, z)
+            z_ln = np.where(x > 0, 0.6745 * dev_ln / np.median(pool), np.inf)
+            zr = np.where(active, z_ln, zr)
         if se is not None:
-            se = np.asarray(se, dtype=float)
-            cap = np.where(np.isfinite(se) & (se > 0), dev.to_numpy() / se, np.inf)
-            z = np.minimum(z, cap)
-    return np.where(ok & (cnt >= 3), z, np.nan)
+            se_r = np.asarray(se, dtype=float)[rows]
+            cap = np.where(np.isfinite(se_r) & (se_r > 0), dev / se_r, np.inf)
+            zr = np.minimum(zr, cap)
+    z[rows] = np.where(cnt[g] >= 3, zr, np.nan)
+    return z
+
+
+class _Medians:
+    """Group medians (``groupby.median``: the middle value, or the mean of the two middle values)
+    of several value arrays over one grouping. Small groups (the usual replicate sets) are laid
+    out as rows of a NaN-padded matrix and sorted row-wise; larger ones by one sort of their rows."""
+
+    SMALL = 8
+
+    def __init__(self, g: np.ndarray, n_groups: int):
+        self.g = g
+        self.G = n_groups
+        cnt = np.bincount(g, minlength=n_groups)
+        order = np.argsort(g, kind="stable")
+        place = np.empty(g.size, dtype=np.int64)
+        place[order] = np.arange(g.size) - (np.cumsum(cnt) - cnt)[g[order]]
+        small_group = cnt <= self.SMALL
+        self.small = small_group[g]
+        self.row_of = np.cumsum(small_group) - 1          # row of each small group in the matrix
+        self.n_small = int(small_group.sum())
+        self.width = int(cnt[small_group].max()) if self.n_small else 0
+        self.cell = (self.row_of[g[self.small]], place[self.small])
+        self.small_groups = np.flatnonzero(small_group)
+
+    def __call__(self, x: np.ndarray) -> np.ndarray:
+        """Per group: the median of its non-NaN values ``x`` (one per row of ``g``); NaN if none."""
+        out = np.full(self.G, np.nan)
+        if self.n_small:
+            m = np.full((self.n_small, self.width), np.nan)
+            m[self.cell] = x[self.small]
+            m.sort(axis=1)                                  # NaN (padding, missing) last
+            c = self.width - np.isnan(m).sum(axis=1)
+            r = np.arange(self.n_small)
+            lo = m[r, np.maximum(c - 1, 0) // 2]
+            hi = m[r, np.minimum(c // 2, self.width - 1)]
+            with np.errstate(over="ignore", invalid="ignore"):
+                med = np.where(c % 2 == 1, lo, (lo + hi) / 2)
+            out[self.small_groups] = np.where(c > 0, med, np.nan)
+        big = ~self.small & ~np.isnan(x)
+        if big.any():
+            gb, xb = self.g[big], x[big]
+            order = np.lexsort((xb, gb))
+            xs, gs = xb[order], gb[order]
+            cnt = np.bincount(gs, minlength=self.G)
+            start = np.cumsum(cnt) - cnt
+            has = np.flatnonzero(cnt)
+            lo = xs[start[has] + (cnt[has] - 1) // 2]
+            hi = xs[start[has] + cnt[has] // 2]
+            with np.errstate(over="ignore"):
+                out[has] = np.where(cnt[has] % 2 == 1, lo, (lo + hi) / 2)
+        return out
 
 
 def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
@@ -261,32 +419,40 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     settings = settings or AnalysisSettings()
     catalysts = data if isinstance(data, pd.DataFrame) else data.catalysts
     factor_names = _infer_factors(wells, getattr(data, "factor_names", None))
-    out = wells.copy()
-    out.attrs["factor_names"] = factor_names
-    role = _role(out)
+    role, role_key = _role_parts(wells)
     catalysed = np.isin(role, ["sample", "reference"])
+    n_wells = len(wells)
+    # each string column factorised once, shared by the site lookup and the replicate groups
+    parts = {c: _factorize(wells[c]) for c in ("catalyst", "loading_unit") if c in wells}
 
-    st = _sites.active_sites(out, catalysts)
-    sites = np.where(catalysed, st["sites_umol"].to_numpy(dtype=float), np.nan)
+    site_umol, site_basis, (site_words, site_codes) = _sites.site_arrays(wells, catalysts, factorized=parts)
+    sites = np.where(catalysed, site_umol, np.nan)
 
-    bl = blanks[["plate", "temperature_c", "n_blanks", "blank_rate_mM_per_h", "blank_se_mM_per_h",
-                 "blank_lod_mM_per_h", "blank_df", "blank_detected"]].copy()
-    bl["tkey"] = _tkey(bl["temperature_c"])
-    bl = bl.drop(columns="temperature_c").drop_duplicates(["plate", "tkey"])
-    keyed = pd.DataFrame({"plate": out["plate"].to_numpy(dtype=object), "tkey": _tkey(_f(out, "temperature_c"))})
-    m = keyed.merge(bl.astype({"plate": object}), on=["plate", "tkey"], how="left", validate="many_to_one")
-    n_bl = m["n_blanks"].fillna(0).to_numpy(dtype=float)
-    b_rate = m["blank_rate_mM_per_h"].to_numpy(dtype=float)
-    b_se = m["blank_se_mM_per_h"].to_numpy(dtype=float)
-    b_lod = m["blank_lod_mM_per_h"].to_numpy(dtype=float)
-    b_df = m["blank_df"].to_numpy(dtype=float)
-    b_det = m["blank_detected"].fillna(False).to_numpy(dtype=bool)
+    # each well's blank row (same plate and temperature key) by position: no merge
+    tkey = _tkey(_f(wells, "temperature_c"))
+    plate_parts = _factorize(wells["plate"])
+    pt_code = _key_codes([_key_of(*plate_parts), _codes(tkey)])          # plate x temperature, per well
+    brow = _blank_rows(plate_parts, tkey, blanks)
+    found = brow >= 0
+
+    def from_blank(col: str, fill=np.nan) -> np.ndarray:
+        v = pd.to_numeric(blanks[col], errors="coerce").to_numpy(dtype=float) if col != "blank_detected" \
+            else blanks[col].fillna(False).to_numpy(dtype=bool)
+        got = v[np.maximum(brow, 0)] if len(v) else np.zeros(n_wells, dtype=v.dtype)
+        return np.where(found, got, fill)
+
+    n_bl = np.nan_to_num(from_blank("n_blanks", 0.0), nan=0.0)
+    b_rate = from_blank("blank_rate_mM_per_h")
+    b_se = from_blank("blank_se_mM_per_h")
+    b_lod = from_blank("blank_lod_mM_per_h")
+    b_df = from_blank("blank_df")
+    b_det = from_blank("blank_detected", False).astype(bool)
     has_blank = n_bl >= 1
 
-    rate = _f(out, "rate_mM_per_h")
-    se_w = _f(out, "rate_se_mM_per_h")
-    df_w = _f(out, "rate_df")
-    vol = _f(out, "volume_uL")
+    rate = _f(wells, "rate_mM_per_h")
+    se_w = _f(wells, "rate_se_mM_per_h")
+    df_w = _f(wells, "rate_df")
+    vol = _f(wells, "volume_uL")
     with np.errstate(invalid="ignore", divide="ignore"):
         b_rate_c = np.where(has_blank, b_rate, 0.0)
         b_se_c = np.where(has_blank, np.nan_to_num(b_se, nan=0.0), 0.0)
@@ -295,8 +461,8 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         amount_per_mM = units.amount_umol(1.0, vol)          # umol per mM in this well
         tof = net * amount_per_mM / sites
         tof_se = net_se * amount_per_mM / sites
-        blank_product = b_rate_c * _f(out, "last_time_h")
-        ton = (_f(out, "last_product_mM") - blank_product) * amount_per_mM / sites
+        blank_product = b_rate_c * _f(wells, "last_time_h")
+        ton = (_f(wells, "last_product_mM") - blank_product) * amount_per_mM / sites
 
         # enhancement: measured blank, or the LOD as denominator (lower bound)
         lower = catalysed & has_blank & ~b_det & np.isfinite(b_lod) & (b_lod > 0)
@@ -307,34 +473,36 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         rel_b = np.where(lower, 0.0, (b_se / b_rate) ** 2)
         ln_se = np.sqrt(rel_w + rel_b)
         enh_df = welch_df(rel_w, df_w, rel_b, b_df)
-        q = t_quantile(settings.confidence, enh_df)
         ok_ci = usable & (rate > 0) & np.isfinite(ln_se)
+        q = t_quantile(settings.confidence, np.where(ok_ci, enh_df, np.nan))   # used where ok_ci only
         ln_e = np.log(np.where(ok_ci, enh, 1.0))
         e_lo = np.where(ok_ci, np.exp(ln_e - q * ln_se), np.nan)
         e_hi = np.where(ok_ci, np.where(lower, np.inf, np.exp(ln_e + q * ln_se)), np.nan)
 
     # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
     metric = np.where(np.isfinite(tof), tof, rate)
-    keys = _group_keys(out, factor_names)
-    kf = out[keys].copy()
-    kf["temperature_c"] = _tkey(kf["temperature_c"])
-    codes_cat = kf.groupby(keys, dropna=False, sort=False).ngroup().to_numpy()
-    codes_cat = np.where(catalysed, codes_cat, -1)
-    codes_bl = pd.DataFrame({"p": out["plate"].to_numpy(dtype=object), "t": keyed["tkey"]}).groupby(
-        ["p", "t"], sort=False).ngroup().to_numpy()
-    codes_bl = np.where(role == "blank", codes_bl, -1)
+    keys = _group_keys(wells, factor_names)
+    known = {"temperature_c": _codes(tkey), "role": role_key, **{c: _key_of(*v) for c, v in parts.items()}}
+    key_cols = [known[k] if k in known else wells[k] for k in keys]
+    codes_cat = np.where(catalysed, _key_codes(key_cols), -1)
+    codes_bl = np.where(role == "blank", pt_code, -1)
     # each well's own measurement error (the shared blank's error is common to its replicates)
     with np.errstate(invalid="ignore", divide="ignore"):
         own_se = np.where(np.isfinite(tof), se_w * amount_per_mM / sites, se_w)
     z = np.where(catalysed, _robust_z(metric, codes_cat, own_se), _robust_z(rate, codes_bl, se_w))
     outlier = ~np.isnan(z) & (z > float(settings.outlier_z))   # z = inf: a dead well among active ones
 
-    # flag columns are factorised: each distinct flag string is parsed once (no regex per row)
-    fi = _FlagIndex(out["flags"] if "flags" in out else None, n=len(out))
-    base = np.asarray(fi.uniques, dtype=object)[fi.codes] if len(out) else np.zeros(0, dtype=object)
-    site_flag_text = st["site_flags"].where(catalysed, "").to_numpy(dtype=object)
-    base = np.where(site_flag_text == "", base, np.where(base == "", site_flag_text, base + ";" + site_flag_text))
-    flags = _FlagIndex(base).join({
+    # flag columns are factorised: each distinct flag string is parsed once (no regex per row);
+    # the incoming flags and the site flags are combined per distinct pair
+    fi = _FlagIndex(wells["flags"] if "flags" in wells else None, n=n_wells)
+    s_code = np.where(catalysed, site_codes, -1) if len(site_codes) else np.full(n_wells, -1)
+    pair, pair_u = pd.factorize(fi.codes * (len(site_words) + 1) + (s_code + 1))
+    words = []
+    for c in np.asarray(pair_u, dtype=np.int64):                 # a loop over distinct pairs
+        base, sc = fi.uniques[int(c) // (len(site_words) + 1)], int(c) % (len(site_words) + 1) - 1
+        site = str(site_words[sc]) if sc >= 0 else ""
+        words.append(base if site == "" else (site if base == "" else base + ";" + site))
+    flag_words, flag_codes = _FlagIndex.from_codes(pair, words).join_codes({
         "no_blank": (catalysed | (role == "blank")) & ~has_blank,
         "no_sites": catalysed & ~np.isfinite(sites),
         "below_blank": catalysed & has_blank & np.isfinite(net) & (net <= 0),
@@ -344,58 +512,99 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         "failed_well": catalysed & outlier & ~(metric > 0),
     })
 
-    out["sites_umol"] = sites
-    out["site_basis"] = np.where(catalysed, st["site_basis"].to_numpy(dtype=object), "")
-    out["blank_rate_mM_per_h"] = b_rate
-    out["blank_se_mM_per_h"] = b_se
-    out["blank_lod_mM_per_h"] = b_lod
-    out["blank_df"] = b_df
-    out["net_rate_mM_per_h"] = net
-    out["net_rate_se_mM_per_h"] = net_se
-    out["tof_per_h"] = tof
-    out["tof_se_per_h"] = tof_se
-    out["tof_per_s"] = tof_per_s(tof)
-    out["ton"] = ton
-    out["enhancement"] = enh
-    out["enhancement_ci_low"] = e_lo
-    out["enhancement_ci_high"] = e_hi
-    out["ln_enhancement_se"] = np.where(ok_ci, ln_se, np.nan)
-    out["enhancement_df"] = np.where(ok_ci, enh_df, np.nan)
-    out["outlier"] = outlier
-    out["flags"] = flags
+    new = {
+        "sites_umol": sites,
+        "site_basis": _sites.text_array(_sites.BASIS_WORDS, np.where(catalysed, site_basis, 0)),
+        "blank_rate_mM_per_h": b_rate,
+        "blank_se_mM_per_h": b_se,
+        "blank_lod_mM_per_h": b_lod,
+        "blank_df": b_df,
+        "net_rate_mM_per_h": net,
+        "net_rate_se_mM_per_h": net_se,
+        "tof_per_h": tof,
+        "tof_se_per_h": tof_se,
+        "tof_per_s": tof_per_s(tof),
+        "ton": ton,
+        "enhancement": enh,
+        "enhancement_ci_low": e_lo,
+        "enhancement_ci_high": e_hi,
+        "ln_enhancement_se": np.where(ok_ci, ln_se, np.nan),
+        "enhancement_df": np.where(ok_ci, enh_df, np.nan),
+        "outlier": outlier,
+        "flags": _sites.text_array(flag_words, flag_codes),
+    }
+    out = _sites.with_columns(wells, new)
+    out.attrs["factor_names"] = factor_names
     return out
+
+
+def _blank_rows(plate_parts, tkey: np.ndarray, blanks: pd.DataFrame) -> np.ndarray:
+    """For each well (plate, temperature key): its row in ``blanks`` (the first one with that plate
+    and key, as a left merge on the deduplicated blanks gives), -1 when there is none.
+    ``plate_parts`` is :func:`_factorize` of the wells' plates (a missing plate matches one)."""
+    n = len(tkey)
+    if not len(blanks) or not n:
+        return np.full(n, -1, dtype=np.int64)
+    codes, names = plate_parts
+    w_plate = np.where(codes < 0, len(names), codes)
+    bp = np.asarray(pd.Index(names).get_indexer(blanks["plate"]), dtype=np.int64)
+    bp = np.where(pd.isna(blanks["plate"]).to_numpy(dtype=bool), len(names), bp)
+    t_codes, t_u = pd.factorize(np.concatenate([tkey, _tkey(blanks["temperature_c"])]), use_na_sentinel=False)
+    nt = len(t_u)
+    w_key = w_plate * nt + t_codes[:n]
+    b_ok = np.flatnonzero(bp >= 0)
+    b_key = bp[b_ok] * nt + t_codes[n:][b_ok]
+    uniq, first = np.unique(b_key, return_index=True)        # the first blank row of each key
+    at = np.minimum(np.searchsorted(uniq, w_key), len(uniq) - 1)
+    hit = uniq[at] == w_key
+    return np.where(hit, b_ok[first[at]], -1)
 
 
 # ---------------------------------------------------------------------------------------- per group
 
-def _standard_conditions(groups: pd.DataFrame, cond_cols: list[str]) -> np.ndarray:
-    """True for rows at their catalyst's most-used condition (most wells, then most temperatures,
-    then lowest loading and concentration, for a deterministic choice)."""
-    c = groups[["catalyst", *cond_cols]].copy()
-    c["_n"] = groups["n_wells"].to_numpy()
-    cond_id = c.groupby(["catalyst", *cond_cols], dropna=False, sort=False).ngroup()
-    c["_cond"] = cond_id.to_numpy()
-    per = c.groupby("_cond", sort=False).agg(catalyst=("catalyst", "first"), n=("_n", "sum"),
-                                              n_t=("_n", "size"), loading=("loading", "first"),
-                                              conc=("substrate_conc_mM", "first")).reset_index()
-    per["loading"] = per["loading"].fillna(np.inf)
-    per["conc"] = per["conc"].fillna(np.inf)
-    per = per.sort_values(["catalyst", "n", "n_t", "loading", "conc", "_cond"],
-                          ascending=[True, False, False, True, True, True], kind="stable")
-    best = per.drop_duplicates("catalyst")["_cond"].to_numpy()
-    return np.isin(c["_cond"].to_numpy(), best)
+def _standard_flags(cat_code: np.ndarray, cond_code: np.ndarray, n_wells: np.ndarray, loading: np.ndarray,
+                    conc: np.ndarray) -> np.ndarray:
+    """True for groups at their catalyst's most-used condition (most wells, then most temperatures,
+    then lowest loading and concentration, then the condition seen first, for a deterministic choice).
+
+    ``cat_code`` / ``cond_code``: per group, the catalyst and the condition (catalyst, loading, unit,
+    concentration, factor levels) as integer codes, conditions numbered in order of first appearance.
+    """
+    if not len(cond_code):
+        return np.zeros(0, dtype=bool)
+    n_cond = int(cond_code.max()) + 1
+    n_sum = np.bincount(cond_code, weights=n_wells, minlength=n_cond)
+    n_t = np.bincount(cond_code, minlength=n_cond)
+    first = np.unique(cond_code, return_index=True)[1]        # first group of each condition
+    load = loading[first]
+    cc = conc[first]
+    load = np.where(np.isnan(load), np.inf, load)
+    cc = np.where(np.isnan(cc), np.inf, cc)
+    order = np.lexsort((np.arange(n_cond), cc, load, -n_t, -n_sum, cat_code[first]))
+    cat_sorted = cat_code[first][order]
+    lead = np.ones(n_cond, dtype=bool)
+    lead[1:] = cat_sorted[1:] != cat_sorted[:-1]
+    best = np.zeros(n_cond, dtype=bool)
+    best[order[lead]] = True
+    return best[cond_code]
 
 
-def _plate_lists(group_codes: np.ndarray, n_groups: int, plate: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _plate_lists(group_codes: np.ndarray, n_groups: int, plate) -> tuple[np.ndarray, np.ndarray]:
     """Per group: the number of distinct plates and their sorted names joined with ``;``.
 
     Vectorised: distinct (group, plate) pairs sorted by group then plate name, then one
-    ``np.add.reduceat`` of the (separator-prefixed) names per group.
+    ``np.add.reduceat`` of the (separator-prefixed) names per group. ``plate`` may be an array or a
+    Series (Arrow strings are factorised without building Python strings per row).
     """
     if not len(group_codes):
         return np.zeros(n_groups, np.int64), np.full(n_groups, "", dtype=object)
     pcode, pnames = pd.factorize(plate, sort=True)          # codes in sorted name order
-    pair = np.unique(group_codes.astype(np.int64) * (len(pnames) + 1) + pcode)
+    pcode = np.asarray(pcode, dtype=np.int64)
+    if (pcode < 0).any():                                   # a missing name counts as its text
+        pcode, pnames = pd.factorize(pd.Series(plate, copy=False).astype(str).to_numpy(dtype=object), sort=True)
+    # distinct (group, plate) pairs, sorted; a stable sort is fast on rows that come grouped
+    pair = np.sort(group_codes.astype(np.int64) * (len(pnames) + 1) + pcode, kind="stable")
+    pair = pair[np.concatenate(([True], pair[1:] != pair[:-1]))]
     pg, pp = pair // (len(pnames) + 1), pair % (len(pnames) + 1)
     n_plates = np.bincount(pg, minlength=n_groups).astype(np.int64)
     names = np.asarray(pnames, dtype=object)[pp]
@@ -405,6 +614,20 @@ def _plate_lists(group_codes: np.ndarray, n_groups: int, plate: np.ndarray) -> t
     joined = np.full(n_groups, "", dtype=object)
     joined[pg[start]] = np.add.reduceat(names, np.flatnonzero(start))
     return n_plates, joined
+
+
+def _sort_order(columns) -> np.ndarray:
+    """Stable ascending order by several columns, missing values last (``DataFrame.sort_values``
+    with several keys), from per-column sorted factor codes."""
+    keys = []
+    for col in columns:
+        if isinstance(col, np.ndarray) and col.dtype.kind == "f":
+            keys.append(col)           # floats sort as they are (equal values keep their order, NaN last)
+            continue
+        c, u = pd.factorize(col, sort=True)
+        c = np.asarray(c, dtype=np.int64)
+        keys.append(np.where(c < 0, len(u), c))
+    return np.lexsort(keys[::-1])
 
 
 def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None,
@@ -437,144 +660,176 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     """
     settings = settings or AnalysisSettings()
     factors = _infer_factors(turnover, factor_names)
-    role = _role(turnover)
-    t = turnover[np.isin(role, ["sample", "reference"])].copy()
-    t = t[np.isfinite(_f(t, "rate_mM_per_h"))]
-    fi = _FlagIndex(t["flags"])                      # the flag column parsed once per distinct string
-    failed = fi.has("failed_well")
-    keys = _group_keys(t, factors)
+    role, role_key = _role_parts(turnover)
+    rate_all = _f(turnover, "rate_mM_per_h")
+    # the catalysed wells with a rate, by position (no copy of the wide per-well frame)
+    rows = np.flatnonzero(np.isin(role, ["sample", "reference"]) & np.isfinite(rate_all))
+    fi = _FlagIndex(turnover["flags"])               # the flag column parsed once per distinct string
+    keys = _group_keys(turnover, factors)
     cond_cols = ["loading", "loading_unit", "substrate_conc_mM", *factors]
-    if t.empty:
+    if not rows.size:
         cols = [*keys, "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_sd_per_h",
                 "tof_se_per_h", "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement",
                 "enhancement_ci_low", "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s",
                 "n_plates", "n_outliers", "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS]
         return pd.DataFrame(columns=cols)
 
-    t["temperature_c"] = _tkey(t["temperature_c"])
-    tof = _f(t, "tof_per_h")
-    amount_per_site = units.amount_umol(1.0, _f(t, "volume_uL")) / _f(t, "sites_umol")
-    with np.errstate(invalid="ignore"):
-        b_tof = np.nan_to_num(_f(t, "blank_se_mM_per_h"), nan=0.0) * amount_per_site
-        enh = _f(t, "enhancement")
-        ln_enh = np.where(np.isfinite(enh) & (enh > 0) & np.isfinite(_f(t, "enhancement_ci_low")), np.log(
-            np.where(enh > 0, enh, 1.0)), np.nan)
-        rel_b = (_f(t, "blank_se_mM_per_h") / _f(t, "blank_rate_mM_per_h")) ** 2
-    lb_flag = fi.has("enhancement_lower_bound")
-    work = pd.DataFrame({
-        "_g": t.groupby(keys, dropna=False, sort=False).ngroup().to_numpy(),
-        "rate": _f(t, "rate_mM_per_h"),
-        "tof": np.where(np.isfinite(tof), tof, np.nan),
-        "tof_se1": _f(t, "tof_se_per_h"),
-        "rate_df1": _f(t, "rate_df"),
-        "b_tof2": np.where(np.isfinite(tof), b_tof ** 2, np.nan),
-        "blank_df": _f(t, "blank_df"),
-        "ton": _f(t, "ton"),
-        "ln_e": ln_enh,
-        "rel_b": np.where(np.isfinite(ln_enh) & ~lb_flag, rel_b, np.nan),
-        "e_lo1": _f(t, "enhancement_ci_low"),
-        "e_hi1": _f(t, "enhancement_ci_high"),
-        "lb": lb_flag,
-        "nb": fi.has("no_blank"),
-        "ns": fi.has("no_sites"),
-        "outlier": t["outlier"].to_numpy(dtype=bool) if "outlier" in t else np.zeros(len(t), bool),
-        "failed": failed,
-    })
-    # failed wells (flag failed_well) are shown per well but left out of every group statistic
-    stat_cols = ["rate", "tof", "tof_se1", "rate_df1", "b_tof2", "ton", "ln_e", "rel_b", "e_lo1", "e_hi1"]
-    work.loc[work["failed"].to_numpy(), stat_cols] = np.nan
-    g = work.groupby("_g", sort=True)
-    a = g.agg(n_wells=("rate", "count"), n_failed=("failed", "sum"), rate_mean=("rate", "mean"), rate_sd=("rate", "std"),
-              n_tof=("tof", "count"), tof_mean=("tof", "mean"), tof_sd=("tof", "std"),
-              tof_se1=("tof_se1", "first"), rate_df1=("rate_df1", "first"), b2=("b_tof2", "mean"),
-              blank_df=("blank_df", "min"), ton_mean=("ton", "mean"), ton_sd=("ton", "std"),
-              n_ton=("ton", "count"), n_e=("ln_e", "count"), ln_e_mean=("ln_e", "mean"), ln_e_sd=("ln_e", "std"),
-              rel_b=("rel_b", "mean"), e_lo1=("e_lo1", "first"), e_hi1=("e_hi1", "first"), lb=("lb", "any"),
-              nb=("nb", "any"), ns=("ns", "all"), n_out=("outlier", "sum"))
-    gcode = work["_g"].to_numpy()
-    n_plates, plates = _plate_lists(gcode, len(a), t["plate"].astype(str).to_numpy(dtype=object))
-    # the group keys from each group's first row (keys are equal within a group)
-    first_row = np.unique(gcode, return_index=True)[1]
-    first = t[keys].iloc[first_row]
+    def col(name):
+        return _f(turnover, name)[rows]
 
-    n = a["n_tof"].to_numpy(dtype=float)
+    def has(code):
+        return fi.has(code)[rows]
+
+    tkey = _tkey(turnover["temperature_c"])
+    col_codes = {k: _codes(tkey) if k == "temperature_c" else role_key if k == "role" else _codes(turnover[k])
+                 for k in keys}
+    gcode = _key_codes([col_codes[k] for k in keys], rows)   # = groupby(keys, dropna=False, sort=False).ngroup()
+    n_groups = int(gcode.max()) + 1
+    failed = has("failed_well")
+    tof = col("tof_per_h")
+    amount_per_site = units.amount_umol(1.0, col("volume_uL")) / col("sites_umol")
+    with np.errstate(invalid="ignore"):
+        b_tof = np.nan_to_num(col("blank_se_mM_per_h"), nan=0.0) * amount_per_site
+        enh = col("enhancement")
+        e_lo1 = col("enhancement_ci_low")
+        ln_enh = np.where(np.isfinite(enh) & (enh > 0) & np.isfinite(e_lo1), np.log(
+            np.where(enh > 0, enh, 1.0)), np.nan)
+        rel_b = (col("blank_se_mM_per_h") / col("blank_rate_mM_per_h")) ** 2
+    lb_flag = has("enhancement_lower_bound")
+    tof = np.where(np.isfinite(tof), tof, np.nan)
+    stat = {
+        "rate": rate_all[rows],
+        "tof": tof,
+        "ton": col("ton"),
+        "ln_e": ln_enh,
+        "b_tof2": np.where(np.isfinite(tof), b_tof ** 2, np.nan),
+        "rel_b": np.where(np.isfinite(ln_enh) & ~lb_flag, rel_b, np.nan),
+        "tof_se1": col("tof_se_per_h"),
+        "rate_df1": col("rate_df"),
+        "e_lo1": e_lo1,
+        "e_hi1": col("enhancement_ci_high"),
+    }
+    # failed wells (flag failed_well) are shown per well but left out of every group statistic
+    for v in stat.values():
+        v[failed] = np.nan
+    blank_df = col("blank_df")
+    outlier = (turnover["outlier"].to_numpy(dtype=bool)[rows] if "outlier" in turnover
+               else np.zeros(len(rows), bool))
+
+    # group statistics: means and SDs by one pandas group-by over a float block (the same cython
+    # kernels as a per-column agg, so the same numbers); counts, first values, min, any / all by
+    # bincount over the group codes
+    moments = pd.DataFrame({c: stat[c] for c in ("rate", "tof", "ton", "ln_e", "b_tof2", "rel_b")})
+    gb = moments.groupby(gcode, sort=True)                 # one grouping, shared by both reductions
+    mean = {c: v.to_numpy(dtype=float) for c, v in gb.mean().items()}
+    sdev = {c: v.to_numpy(dtype=float) for c, v in gb[["rate", "tof", "ton", "ln_e"]].std().items()}
+
+    def count(mask):
+        return np.bincount(gcode[mask], minlength=n_groups).astype(np.int64)
+
+    order = np.argsort(gcode, kind="stable")
+    sorted_codes = gcode[order]
+    starts = np.searchsorted(sorted_codes, np.arange(n_groups), side="left")
+    n_wells = count(~np.isnan(stat["rate"]))
+    n = count(~np.isnan(stat["tof"])).astype(float)
+    nt = count(~np.isnan(stat["ton"])).astype(float)
+    ne = count(~np.isnan(stat["ln_e"])).astype(float)
+    n_failed = count(failed)
+    n_out = count(outlier)
+    lb = count(lb_flag) > 0
+    nb = count(has("no_blank")) > 0
+    ns = count(~has("no_sites")) == 0
+    tof_se1 = _group_first(stat["tof_se1"], order, sorted_codes, n_groups)
+    rate_df1 = _group_first(stat["rate_df1"], order, sorted_codes, n_groups)
+    e_lo_1 = _group_first(stat["e_lo1"], order, sorted_codes, n_groups)
+    e_hi_1 = _group_first(stat["e_hi1"], order, sorted_codes, n_groups)
+    bdf = np.fmin.reduceat(blank_df[order], starts)          # min, missing values skipped
+    n_plates, plates = _plate_lists(sorted_codes, n_groups, turnover["plate"].iloc[rows[order]])
+    # the group keys from each group's first row (keys are equal within a group)
+    first_row = rows[order[starts]]
+
     k = n_plates.astype(float)
-    sd = a["tof_sd"].to_numpy(dtype=float)
-    b2 = np.nan_to_num(a["b2"].to_numpy(dtype=float), nan=0.0)
+    sd = sdev["tof"]
+    b2 = np.nan_to_num(mean["b_tof2"], nan=0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         v_rep = np.where(n >= 2, sd ** 2 / n, np.nan)
         v_blank = np.where(n >= 2, b2 / k, 0.0)
-        se = np.where(n >= 2, np.sqrt(v_rep + v_blank), np.where(n == 1, a["tof_se1"].to_numpy(float), np.nan))
-        df = np.where(n >= 2, welch_df(v_rep, n - 1, v_blank, a["blank_df"].to_numpy(float)),
-                      np.where(n == 1, a["rate_df1"].to_numpy(float), np.nan))
+        se = np.where(n >= 2, np.sqrt(v_rep + v_blank), np.where(n == 1, tof_se1, np.nan))
+        df = np.where(n >= 2, welch_df(v_rep, n - 1, v_blank, bdf), np.where(n == 1, rate_df1, np.nan))
         q = t_quantile(settings.confidence, df)
-        mean = a["tof_mean"].to_numpy(dtype=float)
-        lo = mean - q * se
-        hi = mean + q * se
-        nt = a["n_ton"].to_numpy(dtype=float)
-        ton_se = np.where(nt >= 2, a["ton_sd"].to_numpy(float) / np.sqrt(nt), np.nan)
+        tof_mean = mean["tof"]
+        lo = tof_mean - q * se
+        hi = tof_mean + q * se
+        ton_se = np.where(nt >= 2, sdev["ton"] / np.sqrt(nt), np.nan)
 
-        ne = a["n_e"].to_numpy(dtype=float)
-        lnm = a["ln_e_mean"].to_numpy(dtype=float)
-        v_ln = np.where(ne >= 2, a["ln_e_sd"].to_numpy(float) ** 2 / ne, np.nan)
-        v_lb = np.where(ne >= 2, np.nan_to_num(a["rel_b"].to_numpy(float), nan=0.0) / k, 0.0)
-        qe = t_quantile(settings.confidence, np.where(ne >= 2, welch_df(v_ln, ne - 1, v_lb,
-                                                                        a["blank_df"].to_numpy(float)), np.nan))
-        lb = a["lb"].to_numpy(dtype=bool)
+        lnm = mean["ln_e"]
+        v_ln = np.where(ne >= 2, sdev["ln_e"] ** 2 / ne, np.nan)
+        v_lb = np.where(ne >= 2, np.nan_to_num(mean["rel_b"], nan=0.0) / k, 0.0)
+        qe = t_quantile(settings.confidence, np.where(ne >= 2, welch_df(v_ln, ne - 1, v_lb, bdf), np.nan))
         e_mean = np.where(ne >= 1, np.exp(lnm), np.nan)
-        e_lo = np.where(ne >= 2, np.exp(lnm - qe * np.sqrt(v_ln + v_lb)),
-                        np.where(ne == 1, a["e_lo1"].to_numpy(float), np.nan))
+        e_lo = np.where(ne >= 2, np.exp(lnm - qe * np.sqrt(v_ln + v_lb)), np.where(ne == 1, e_lo_1, np.nan))
         e_hi = np.where(ne >= 2, np.where(lb, np.inf, np.exp(lnm + qe * np.sqrt(v_ln + v_lb))),
-                        np.where(ne == 1, a["e_hi1"].to_numpy(float), np.nan))
+                        np.where(ne == 1, e_hi_1, np.nan))
+        rate_se = np.where(n_wells >= 2, sdev["rate"] / np.sqrt(n_wells.astype(float)), np.nan)
 
-    res = first.reset_index(drop=True)
-    res["n_wells"] = a["n_wells"].to_numpy(dtype=np.int64)
-    res["rate_mM_per_h"] = a["rate_mean"].to_numpy(dtype=float)
-    res["rate_sd_mM_per_h"] = a["rate_sd"].to_numpy(dtype=float)
-    res["tof_per_h"] = mean
-    res["tof_sd_per_h"] = np.where(n >= 2, sd, np.nan)
-    res["tof_se_per_h"] = se
-    res["tof_df"] = df
-    res["tof_ci_low"] = lo
-    res["tof_ci_high"] = hi
-    res["ton"] = a["ton_mean"].to_numpy(dtype=float)
-    res["ton_se"] = ton_se
-    res["enhancement"] = e_mean
-    res["enhancement_ci_low"] = e_lo
-    res["enhancement_ci_high"] = e_hi
-    res["is_standard"] = _standard_conditions(res, cond_cols)
-    res["plates"] = plates
-    res["flags"] = _FlagIndex(None, n=len(res)).join({
+    # the standard condition of each catalyst: conditions numbered in order of first appearance
+    cond_code = _key_codes([col_codes[c] for c in ["catalyst", *cond_cols]], rows)[order[starts]]
+    loading = _f(turnover, "loading")[first_row]
+    conc = _f(turnover, "substrate_conc_mM")[first_row]
+    is_standard = _standard_flags(col_codes["catalyst"][0][first_row], cond_code, n_wells.astype(float),
+                                  loading, conc)
+    flags = _FlagIndex(None, n=n_groups).join({
         "single_well": n == 1,
-        "has_outlier": a["n_out"].to_numpy() > 0,
-        "excluded_failed_well": a["n_failed"].to_numpy() > 0,
-        "no_blank": a["nb"].to_numpy(dtype=bool),
-        "no_sites": a["ns"].to_numpy(dtype=bool),
+        "has_outlier": n_out > 0,
+        "excluded_failed_well": n_failed > 0,
+        "no_blank": nb,
+        "no_sites": ns,
         "enhancement_lower_bound": lb & np.isfinite(e_mean),
-        "not_above_blank": (n >= 1) & ~a["nb"].to_numpy(dtype=bool) & (
-            (mean <= 0) | (np.isfinite(lo) & (lo <= 0))),
+        "not_above_blank": (n >= 1) & ~nb & ((tof_mean <= 0) | (np.isfinite(lo) & (lo <= 0))),
     })
-    res["tof_per_s"] = tof_per_s(mean)
-    res["n_plates"] = n_plates
-    res["n_outliers"] = a["n_out"].to_numpy(dtype=np.int64)
-    with np.errstate(invalid="ignore"):
-        res["rate_se_mM_per_h"] = np.where(a["n_wells"].to_numpy() >= 2,
-                                           res["rate_sd_mM_per_h"] / np.sqrt(a["n_wells"].to_numpy(float)), np.nan)
-    n_groups = len(res)
     if selectivity is not None and len(selectivity):
         sel_cols = [c for c in selectivity.columns if c not in ("role", "catalyst", "temperature_c")]
-        aligned = t[["plate", "well"]].astype(object).merge(
-            selectivity[sel_cols].astype({"plate": object, "well": object}), on=["plate", "well"], how="left")
-        sel = _selectivity.summarise_groups(aligned, work["_g"].to_numpy(), n_groups, settings.confidence)
+        # each group row's selectivity row by position (a well without one takes no part: code -1)
+        at = well_index(turnover["plate"].iloc[rows], turnover["well"].iloc[rows],
+                        selectivity["plate"], selectivity["well"])
+        aligned = selectivity[sel_cols].iloc[np.maximum(at, 0)].reset_index(drop=True)
+        sel = _selectivity.summarise_groups(aligned, np.where(at >= 0, gcode, -1), n_groups, settings.confidence)
     else:
         sel = _selectivity.summarise_groups(pd.DataFrame({"flags": []}), np.zeros(0, dtype=np.int64), n_groups,
                                             settings.confidence)
-    for c in _selectivity.GROUP_COLUMNS:
-        res[c] = sel[c].to_numpy(dtype=float)
     sel_flags = sel["flags"].to_numpy(dtype=object)
-    cur = res["flags"].to_numpy(dtype=object)
-    res["flags"] = np.where(sel_flags == "", cur, np.where(cur == "", sel_flags, cur + ";" + sel_flags))
+    more = sel_flags != ""
+    if more.any():
+        flags = flags.copy()
+        flags[more] = np.where(flags[more] == "", sel_flags[more], flags[more] + ";" + sel_flags[more])
+    # rows in the table's order (catalyst, temperature, loading, concentration; stable), taken once
+    by = _sort_order([turnover["catalyst"].iloc[first_row], tkey[first_row], loading, conc])
+    new = {
+        "temperature_c": tkey[first_row],
+        "n_wells": n_wells,
+        "rate_mM_per_h": mean["rate"],
+        "rate_sd_mM_per_h": sdev["rate"],
+        "tof_per_h": tof_mean,
+        "tof_sd_per_h": np.where(n >= 2, sd, np.nan),
+        "tof_se_per_h": se,
+        "tof_df": df,
+        "tof_ci_low": lo,
+        "tof_ci_high": hi,
+        "ton": mean["ton"],
+        "ton_se": ton_se,
+        "enhancement": e_mean,
+        "enhancement_ci_low": e_lo,
+        "enhancement_ci_high": e_hi,
+        "is_standard": is_standard,
+        "plates": plates,
+        "flags": flags,
+        "tof_per_s": tof_per_s(tof_mean),
+        "n_plates": n_plates,
+        "n_outliers": n_out,
+        "rate_se_mM_per_h": rate_se,
+        **{c: sel[c].to_numpy(dtype=float) for c in _selectivity.GROUP_COLUMNS},
+    }
+    res = _sites.with_columns(turnover[keys].iloc[first_row[by]].reset_index(drop=True),
+                              {c: v[by] for c, v in new.items()})
     res.attrs["factor_names"] = factors
-    res = res.sort_values(["catalyst", "temperature_c", "loading", "substrate_conc_mM"],
-                          kind="stable", na_position="last").reset_index(drop=True)
     return res
