@@ -85,12 +85,15 @@ def _pick_delimiter(header_line: str) -> str:
     return best if counts[best] > 0 else ","
 
 
-def _arrow_cells(body: str | bytes, delim: str, n_cols: int) -> tuple[pd.DataFrame, np.ndarray] | None:
+def _arrow_cells(body: str | bytes, delim: str, n_cols: int
+                 ) -> tuple[pd.DataFrame, np.ndarray, np.ndarray | None] | None:
     """Fast path: ``body`` (lines joined by newline) read by pyarrow.csv as text cells, already
-    stripped and formula-guard cleaned; returns (cells, record index of each cells row) or None.
+    stripped and formula-guard cleaned; returns (cells, record index of each cells row, all-True
+    non-blank mask when no row can be blank else None) or None.
 
-    Taken only when the result is the same as the pandas path's: ASCII text (so ASCII white space
-    stripping equals ``str.strip``), no quote character (so records are lines) and every non-blank
+    Taken only when the result is the same as the pandas path's: ASCII text without the unit
+    separator 0x1f (so ASCII white space stripping equals ``str.strip``), no quote character (so
+    records are lines) and every non-blank
     line with the header's number of fields (pyarrow refuses ragged rows; the pandas path widens).
     Blank lines are skipped by pyarrow; their record numbers are recovered from the newline offsets.
     """
@@ -100,8 +103,10 @@ def _arrow_cells(body: str | bytes, delim: str, n_cols: int) -> tuple[pd.DataFra
         raw = body.encode("ascii")
     else:
         raw = body
-        if b'"' in raw or not raw.isascii():
+        if b'"' in raw or not raw.isascii():  # (cheap next to the parse; the byte path checked already)
             return None
+    if b"\x1f" in raw:  # US: white space to str.strip, not to Arrow's ASCII trim (FS, GS, RS break lines)
+        return None
     try:
         table = pacsv.read_csv(
             io.BytesIO(raw),
@@ -138,7 +143,12 @@ def _arrow_cells(body: str | bytes, delim: str, n_cols: int) -> tuple[pd.DataFra
         if guard:
             c = pc.replace_substring_regex(c, pattern=_GUARD, replacement=_GUARD_KEEP)
         cols[j] = pd.Series(pd.array(c, dtype=_STR), copy=False)
-    return pd.DataFrame(cols), records
+    # a blank row (every cell empty once trimmed) is a line of delimiters and white space, so it
+    # starts with one of them; when no line does, no row is blank
+    starts = {delim.encode(), b" ", b"\t"}
+    maybe_blank = raw[:1] in starts or any(b"\n" + c in raw for c in starts)
+    nonblank = None if maybe_blank else np.ones(table.num_rows, dtype=bool)
+    return pd.DataFrame(cols), records, nonblank
 
 
 #: ASCII characters that ``str.splitlines`` takes as line breaks besides CR and LF
@@ -147,7 +157,7 @@ _OTHER_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e")
 _BLANK = b" \t\x1f"
 
 
-def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray] | None:
+def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray, np.ndarray | None] | None:
     """The fast path straight from the file's bytes, skipping the decode / splitlines / join /
     encode of :func:`_read_csv_cells` (which it equals): taken for ASCII files without a quote and
     without the rarer line-break characters (VT, FF, FS, GS, RS), else None. Returns what
@@ -177,13 +187,14 @@ def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray] | 
     fast = _arrow_cells(body, delim, header.count(delim) + 1)
     if fast is None:
         return None
-    return fast[0], lead, delim, fast[1]
+    return fast[0], lead, delim, fast[1], fast[2]
 
 
 def _read_csv_cells(name: str, text: str, problems: list[Problem]
-                    ) -> tuple[pd.DataFrame, int, str, np.ndarray | None] | None:
+                    ) -> tuple[pd.DataFrame, int, str, np.ndarray | None, np.ndarray | None] | None:
     """Text -> (cells frame with header row first, row offset, delimiter, record index of each
-    cells row or None when every record is a row) or None when unreadable.
+    cells row or None when every record is a row, non-blank row mask when known) or None when
+    unreadable.
 
     The frame from the Arrow fast path is already stripped and guard-cleaned (record index given);
     the pandas path returns raw cells (record index None)."""
@@ -198,7 +209,7 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     delim = _pick_delimiter(lines[lead])
     fast = _arrow_cells(body, delim, lines[lead].count(delim) + 1)
     if fast is not None:
-        return fast[0], lead, delim, fast[1]
+        return fast[0], lead, delim, fast[1], fast[2]
     kwargs = dict(sep=delim, header=None, dtype=str, keep_default_na=False, na_filter=False,
                   skip_blank_lines=False, engine="c", quotechar='"')
     names = None
@@ -227,7 +238,7 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     else:  # pragma: no cover - eight widenings without success
         problems.append(Problem(name, None, None, None, "cannot be read as a table: rows of very different lengths"))
         return None
-    return cells.fillna(""), lead, delim, None
+    return cells.fillna(""), lead, delim, None, None
 
 
 def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.DataFrame | None:
@@ -263,7 +274,7 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
     notes: list[str] = []
     decimal_comma = False
     offset = 0
-    records = None
+    records = nonblank = None
     if name.lower().endswith(".xlsx"):
         cells = _read_xlsx_cells(name, data, problems)
         if cells is None:
@@ -275,7 +286,7 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
             got = _read_csv_cells(name, text, problems)
         if got is None:
             return None
-        cells, offset, delim, records = got
+        cells, offset, delim, records, nonblank = got
         decimal_comma = delim in (";", "\t")
     # strip padding; a leading apostrophe before = + - @ is the formula guard our own exports add
     # (screenlab.export.safe), so such cells read back as the text that was exported
@@ -286,7 +297,7 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
         return None
     # drop blank rows but keep the spreadsheet row numbers of the others
     rownum = (np.arange(len(cells), dtype=np.int64) if records is None else records.astype(np.int64)) + 1 + offset
-    nonblank = _nonblank(cells)
+    nonblank = _nonblank(cells) if nonblank is None else nonblank
     first = int(np.argmax(nonblank)) if nonblank.any() else -1
     if first < 0:
         problems.append(Problem(name, None, None, None, "the file is empty"))

@@ -525,25 +525,47 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     cf = conc_factor if conc_factor is not None else np.nan
     vf = volume_factor if volume_factor is not None else np.nan
     # rows sorted by plate (text order, missing last), row, col; stable
-    order = np.lexsort((col, row, pd_.spread(_text_ranks(pid_u)))) if n else np.zeros(0, dtype=np.intp)
-    p_codes, w_codes, r_codes, c_codes, u_codes = (d.codes[order] for d in (pd_, wd, rd, cd, ud))
-    cat_keep, unit_keep = (is_cat & has_cat)[order], is_cat[order]
+    p_rank = pd_.spread(_text_ranks(pid_u))
+    presorted = _nondecreasing([p_rank, row, col])  # a layout written plate by plate, row by row
+    order = None if presorted else np.lexsort((col, row, p_rank))
+
+    def ordered(x: np.ndarray) -> np.ndarray:
+        return x if order is None else x[order]
+
+    p_codes, w_codes, r_codes, c_codes, u_codes = (ordered(d.codes) for d in (pd_, wd, rd, cd, ud))
+    cat_keep, unit_keep = ordered(is_cat & has_cat), ordered(is_cat)
+    plate_text = f["plate"] if "plate" in f.columns else None
     out = pd.DataFrame({
-        "plate": pd_.take(pid_u, p_codes),
+        "plate": (plate_text.array if order is None and plate_text is not None and plate_text.dtype == "str"
+                  else pd_.take(pid_u, p_codes)),
         "well": wd.take(well_u, w_codes),
-        "row": row[order],
-        "col": col[order],
+        "row": ordered(row),
+        "col": ordered(col),
         "role": rd.take(role_u, r_codes),
         "catalyst": cd.take(cat_u, np.where(cat_keep, c_codes, -1)),
-        "loading": np.where(is_cat, loading, np.nan)[order],
+        "loading": ordered(np.where(is_cat, loading, np.nan)),
         "loading_unit": ud.take(lu_u, np.where(unit_keep, u_codes, -1)),
-        "substrate_conc_mM": np.where(is_empty, np.nan, conc * cf)[order],
-        "volume_uL": np.where(is_empty, np.nan, vol * vf)[order],
-        "temperature_c": temp[order],
+        "substrate_conc_mM": ordered(np.where(is_empty, np.nan, conc * cf)),
+        "volume_uL": ordered(np.where(is_empty, np.nan, vol * vf)),
+        "temperature_c": ordered(temp),
     })
     for c in factors:
-        out[c] = f[c].astype("str").to_numpy()[order]
+        out[c] = ordered(f[c].astype("str").to_numpy())
     return out, tuple(factors)
+
+
+def _nondecreasing(keys: list[np.ndarray]) -> bool:
+    """Rows already in lexicographic order of integer ``keys`` (primary first), so that a stable
+    sort would leave them where they are."""
+    if not len(keys[0]):
+        return True
+    undecided = np.ones(len(keys[0]) - 1, dtype=bool)
+    for k in keys:
+        a, b = k[:-1], k[1:]
+        if (undecided & (a > b)).any():
+            return False
+        undecided &= a == b
+    return True
 
 
 # --------------------------------------------------------------------------- readings
@@ -736,8 +758,12 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
         valid &= candidate
     ch.duplicated([p_codes, c_codes, a_codes, t], valid, "time",
                   "duplicate reading for the same plate, well, analyte and time")
+    # rows already grouped by plate in text order keep their plate cells (the sort moves rows
+    # only within a plate), so the column is the file's own
+    plate_text = f["plate"] if "plate" in f.columns else None
+    same_plates = plate_text is not None and plate_text.dtype == "str" and _nondecreasing([p_rank])
     out = pd.DataFrame({
-        "plate": pd_.take(p_u, p_codes[order]),
+        "plate": plate_text.array if same_plates else pd_.take(p_u, p_codes[order]),
         "well": wd.take(w_name, wd.codes[order]),
         "analyte": pd.array(a_u_out, dtype="str").take(a_codes[order]),
         "time_h": time_h[order],
