@@ -58,18 +58,23 @@ def test_role_matches_string_conversion():
 
 # ------------------------------------------------------------------------------- group statistics
 
-@pytest.mark.parametrize("seed", [0, 1, 2, 3])
-def test_group_medians_equal_pandas_median(seed):
+@pytest.mark.parametrize("seed,layout", [(0, "mixed"), (1, "mixed"), (2, "mixed"), (3, "mixed"), (4, "threes"),
+                                         (5, "fours"), (6, "threes_and_big")])
+def test_group_medians_equal_pandas_median(seed, layout):
     rng = np.random.default_rng(seed)
-    sizes = np.concatenate([rng.integers(1, 12, 300), [50, 9, 200]])     # small, and larger than the matrix
+    sizes = {"mixed": np.concatenate([rng.integers(1, 12, 300), [50, 9, 200]]),  # small, and beyond the matrix
+             "threes": np.full(300, 3), "fours": np.full(200, 4),
+             "threes_and_big": np.concatenate([np.full(300, 3), [40, 400]])}[layout]
     g = rng.permutation(np.repeat(np.arange(sizes.size), sizes))
     x = rng.normal(size=g.size) * 10.0 ** rng.uniform(-6, 6, g.size)
     x[rng.random(g.size) < 0.15] = 1.0                  # ties
     x[rng.random(g.size) < 0.05] = -0.0
+    median = turnover._Medians(g, sizes.size)
+    ref = pd.Series(x).groupby(g).median().reindex(range(sizes.size)).to_numpy()
+    np.testing.assert_array_equal(median(x), ref)                 # no missing values
     x[rng.random(g.size) < 0.1] = np.nan
     ref = pd.Series(x).groupby(g).median().reindex(range(sizes.size)).to_numpy()
-    got = turnover._Medians(g, sizes.size)(x)
-    np.testing.assert_array_equal(got, ref)
+    np.testing.assert_array_equal(median(x), ref)
 
 
 @pytest.mark.parametrize("seed", [0, 1])
@@ -377,3 +382,11 @@ def test_group_rates_statistics_equal_a_pandas_aggregation():
     np.testing.assert_array_equal(got["n_wells"].to_numpy(), ref["n_wells"].to_numpy())
     for a, b in (("rate_mM_per_h", "rate"), ("rate_sd_mM_per_h", "rate_sd"), ("tof_per_h", "tof"), ("ton", "ton")):
         np.testing.assert_array_equal(got[a].to_numpy(), ref[b].to_numpy(), err_msg=a)
+
+
+def test_first_rows_equal_unique_return_index():
+    rng = np.random.default_rng(3)
+    codes, _ = pd.factorize(rng.integers(0, 40, 500))           # numbered in order of first appearance
+    codes = np.asarray(codes, dtype=np.int64)
+    np.testing.assert_array_equal(turnover._first_rows(codes), np.unique(codes, return_index=True)[1])
+    assert turnover._first_rows(np.zeros(0, dtype=np.int64)).size == 0

@@ -53,11 +53,9 @@ def _change_points(values: pd.Series) -> np.ndarray:
     if pa_arr is not None and len(values) > 1:
         import pyarrow as pa
         import pyarrow.compute as pc
-        if isinstance(pa_arr, pa.ChunkedArray):
-            chunk = pa_arr.chunk(0) if pa_arr.num_chunks == 1 else pa_arr.combine_chunks()
-        else:
-            chunk = pa_arr
-        ne = pc.fill_null(pc.not_equal(chunk.slice(1), chunk.slice(0, len(chunk) - 1)), True)
+        if isinstance(pa_arr, pa.ChunkedArray) and pa_arr.num_chunks == 1:
+            pa_arr = pa_arr.chunk(0)
+        ne = pc.fill_null(pc.not_equal(pa_arr.slice(1), pa_arr.slice(0, len(pa_arr) - 1)), True)
         return ne.to_numpy(zero_copy_only=False).astype(bool, copy=False)
     obj = values.to_numpy(dtype=object)
     ne = obj[1:] != obj[:-1]
@@ -131,8 +129,17 @@ def _dictionary_codes(keys, runs) -> np.ndarray:
 
 def _match_runs(combined: np.ndarray, k: int, start: np.ndarray) -> np.ndarray:
     """Expand: ``combined`` holds k key codes then one code per run (``start`` marks run starts)."""
-    keys = pd.Index(combined[:k])
     runs = combined[k:]
+    lengths = np.diff(np.append(np.flatnonzero(start), len(start)))
+    size = int(combined.max()) + 1 if combined.size else 0
+    if k and size <= 4 * combined.size + 1024:
+        # small code range: a lookup table instead of a hash index
+        seen = np.bincount(combined[:k], minlength=size)
+        if seen.max() <= 1:
+            table = np.full(size, -1, dtype=np.int64)
+            table[combined[:k]] = np.arange(k)
+            return np.repeat(table[runs], lengths)
+    keys = pd.Index(combined[:k])
     if not keys.is_unique:
         keep = ~keys.duplicated()
         pos = np.flatnonzero(keep)
@@ -140,7 +147,6 @@ def _match_runs(combined: np.ndarray, k: int, start: np.ndarray) -> np.ndarray:
         run_code = np.where(found >= 0, pos[np.maximum(found, 0)], -1)
     else:
         run_code = keys.get_indexer(runs)
-    lengths = np.diff(np.append(np.flatnonzero(start), len(start)))
     return np.repeat(np.asarray(run_code, dtype=np.int64), lengths)
 
 

@@ -42,7 +42,7 @@ from scipy import stats
 
 from screenlab.kinetics import fit, models
 from screenlab.kinetics.amounts import T0_TOLERANCE_H, product_amounts, well_index
-from screenlab.kinetics.sites import text_array, with_columns
+from screenlab.kinetics.sites import frame_of, text_array
 from screenlab.model import CampaignData
 from screenlab.settings import AnalysisSettings
 
@@ -108,18 +108,6 @@ def _group_starts(g: np.ndarray, n_groups: int) -> np.ndarray:
     return np.searchsorted(g, np.arange(n_groups), side="left")
 
 
-def _first_index(g: np.ndarray, mask: np.ndarray, n_groups: int) -> np.ndarray:
-    """Index of the first True of ``mask`` per group, -1 if none (each group's rows contiguous)."""
-    out = np.full(n_groups, -1, dtype=np.int64)
-    idx = np.flatnonzero(mask)
-    if idx.size:
-        gi = g[idx]                                       # groups are contiguous: first of each run
-        new = np.ones(gi.size, dtype=bool)
-        new[1:] = gi[1:] != gi[:-1]
-        out[gi[new]] = idx[new]
-    return out
-
-
 def _take(values: np.ndarray, idx: np.ndarray) -> np.ndarray:
     safe = np.where(idx >= 0, idx, 0)
     got = values[safe] if values.size else np.zeros(idx.shape)
@@ -164,6 +152,14 @@ def _order_by_well(code: np.ndarray, t: np.ndarray) -> np.ndarray | None:
     return np.lexsort((t, code))
 
 
+def _all_missing(values: pd.Series) -> bool:
+    """Whether every value is missing (read from the Arrow null count when there is one)."""
+    pa_arr = getattr(values.array, "_pa_array", None)
+    if pa_arr is not None:
+        return pa_arr.null_count == len(pa_arr)
+    return bool(values.isna().all())
+
+
 def _equals(values: pd.Series, word: str) -> np.ndarray:
     """Boolean array: which rows equal ``word`` (missing values do not)."""
     pa_arr = getattr(values.array, "_pa_array", None)
@@ -206,7 +202,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     p_all = amounts["product_mM"].to_numpy(dtype=float)
     use = (code >= 0) & np.isfinite(t_all) & np.isfinite(p_all)
     first_reading_base = np.zeros(G, dtype=bool)
-    if "baseline" in amounts.columns:
+    if "baseline" in amounts.columns and not _all_missing(amounts["baseline"]):
         fr = _equals(amounts["baseline"], "first_reading")
         first_reading_base[code[fr & (code >= 0)]] = True
     if use.all():
@@ -230,25 +226,33 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     starts[g[run_start]] = np.flatnonzero(run_start)
     pos = np.arange(g.size) - starts[g]                   # place of each reading in its well
     is_t0 = t <= T0_TOLERANCE_H
-    n_t0 = np.bincount(g, weights=is_t0, minlength=G)
+    g_t0 = g[is_t0]
+    n_t0_int = np.bincount(g_t0, minlength=G)
+    n_t0 = n_t0_int.astype(float)
     has_t0 = n_t0 > 0
     with np.errstate(invalid="ignore", divide="ignore"):
-        p_t0 = np.where(has_t0, np.bincount(g, weights=np.where(is_t0, prod, 0.0), minlength=G) / n_t0, np.nan)
+        p_t0 = np.where(has_t0, np.bincount(g_t0, weights=prod[is_t0], minlength=G) / n_t0, np.nan)
 
     # leading run of readings at or below the window (unknown conversion counts as inside)
     with np.errstate(invalid="ignore"):
         above = conv > window                             # NaN (no substrate) is not above
-    c = np.cumsum(above)
-    c_before = c - above
-    offset = c_before[starts[g]] if g.size else c_before
-    in_win = (c - offset) == 0
-    n_win = np.bincount(g, weights=in_win, minlength=G).astype(np.int64)
+    # the window ends at each well's first reading above it (wells are contiguous, time-sorted)
+    first_above = starts + n_points
+    ia = np.flatnonzero(above)
+    if ia.size:
+        ga = g[ia]
+        lead = np.ones(ia.size, dtype=bool)
+        lead[1:] = ga[1:] != ga[:-1]
+        first_above[ga[lead]] = ia[lead]
+    n_win = (first_above - starts).astype(np.int64)
+    in_win = pos < n_win[g]
 
-    i_first = _first_index(g, ~is_t0, G)                  # first reading after t = 0
+    # first reading after t = 0: each well's readings are time-sorted, so its t = 0 readings lead
+    i_first = np.where(n_t0_int < n_points, starts + n_t0_int, -1)
     first_time = _take(t, i_first)
     first_prod = _take(prod, i_first)
     first_conv = _take(conv, i_first)
-    n_pos = np.bincount(g, weights=~is_t0, minlength=G).astype(np.int64)
+    n_pos = n_points - n_t0_int                          # readings after t = 0
     i_last = np.where(n_points > 0, starts + n_points - 1, -1)
     last_time = _take(t, i_last)
     last_prod = _take(prod, i_last)
@@ -352,8 +356,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     }
 
     flag_words, flag_codes = _flag_codes(flags, G)
-    out = wells[cols].reset_index(drop=True) if G == len(wells) else wells[cols].iloc[rows].reset_index(drop=True)
-    return with_columns(out, {
+    return frame_of(wells, cols, None if G == len(wells) else rows, {
         "n_points": n_points.astype(np.int64),
         "method": pd.array(np.array(_METHODS, dtype=object), dtype="string").take(method_code),
         "rate_mM_per_h": rate,

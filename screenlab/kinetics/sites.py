@@ -125,6 +125,33 @@ def with_columns(frame: pd.DataFrame, new: dict) -> pd.DataFrame:
     return out
 
 
+def frame_of(frame: pd.DataFrame, cols, rows: np.ndarray | None, new: dict) -> pd.DataFrame:
+    """One new frame (default index): ``frame[cols]`` at positions ``rows`` (all when None), then the
+    columns of ``new`` (one named like a taken column replaces it in place), built in one go.
+    The frame's ``attrs`` are kept."""
+    data = {}
+    at = None
+    for c in cols:
+        s = frame[c]
+        if isinstance(s.dtype, np.dtype):
+            v = s.to_numpy()
+            data[c] = v if rows is None else v[rows]
+            continue
+        arr = s.array
+        if rows is None:
+            data[c] = arr
+        elif isinstance(arr, pd.arrays.ArrowStringArray):
+            import pyarrow as pa
+            at = pa.array(rows) if at is None else at          # the positions converted once
+            data[c] = type(arr)(arr._pa_array.take(at), dtype=arr.dtype)
+        else:
+            data[c] = arr.take(rows)
+    data.update(new)
+    out = pd.DataFrame(data)
+    out.attrs = copy.deepcopy(frame.attrs)
+    return out
+
+
 def join_flags(existing, masks: Mapping[str, np.ndarray], index=None) -> pd.Series:
     """Append flag codes to an existing ``;``-joined flag column, vectorised.
 

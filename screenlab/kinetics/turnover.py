@@ -147,16 +147,25 @@ def _codes(values) -> tuple[np.ndarray, int]:
     return _key_of(*_factorize(values))
 
 
-def _role_parts(frame: pd.DataFrame):
-    """The role column as an object array of str ("" where missing) and as key codes."""
-    codes, uniques = _factorize(frame["role"])
-    words = np.array([str(u) for u in uniques] + [""], dtype=object)
-    return words[codes], _key_of(codes, uniques)          # code -1 (missing) takes the trailing ""
+class _Roles:
+    """The role column factorised once: ``is_(*names)`` compares the distinct words, not the rows."""
+
+    def __init__(self, frame: pd.DataFrame):
+        self.codes, uniques = _factorize(frame["role"])
+        # code -1 (missing) takes the trailing ""
+        self.words = np.array([str(u) for u in uniques] + [""], dtype=object)
+        self.key = _key_of(self.codes, uniques)
+
+    def is_(self, *names: str) -> np.ndarray:
+        return np.isin(self.words, names)[self.codes]
+
+    def text(self) -> np.ndarray:
+        return self.words[self.codes]
 
 
 def _role(frame: pd.DataFrame) -> np.ndarray:
     """Object array of str: each row's role, "" where missing (one str() per distinct value)."""
-    return _role_parts(frame)[0]
+    return _Roles(frame).text()
 
 
 def _key_codes(columns, rows: np.ndarray | None = None) -> np.ndarray:
@@ -185,6 +194,17 @@ def _key_codes(columns, rows: np.ndarray | None = None) -> np.ndarray:
     if code is None:
         return np.zeros(len(rows) if rows is not None else 0, dtype=np.int64)
     return np.asarray(pd.factorize(code)[0], dtype=np.int64)
+
+
+def _first_rows(codes: np.ndarray) -> np.ndarray:
+    """Position of the first row of each code, for codes numbered in order of first appearance
+    (0, 1, 2, ... as they first occur): where the running maximum steps up."""
+    if not codes.size:
+        return np.zeros(0, dtype=np.int64)
+    top = np.maximum.accumulate(codes)
+    step = np.ones(codes.size, dtype=bool)
+    step[1:] = top[1:] > top[:-1]
+    return np.flatnonzero(step)
 
 
 def _group_first(values: np.ndarray, order: np.ndarray, sorted_codes: np.ndarray, n_groups: int) -> np.ndarray:
@@ -216,16 +236,16 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -
     without blanks get NaN and flag ``no_blank``. Blank wells without a finite rate are ignored.
     """
     del settings  # the definition has no tunable part; kept for a uniform signature
-    role = _role(wells)
-    keep = np.flatnonzero(role != "empty")
+    roles = _Roles(wells)
+    keep = np.flatnonzero(~roles.is_("empty"))
     temp = _f(wells, "temperature_c")[keep]
     tkey = _tkey(temp)
     # plate x temperature key per kept well, numbered in order of first appearance
     kcode = _key_codes([_codes(wells["plate"]), _codes(_tkey(_f(wells, "temperature_c")))], keep)
     K = int(kcode.max()) + 1 if kcode.size else 0
-    first = np.unique(kcode, return_index=True)[1]           # first kept well of each key
+    first = _first_rows(kcode)                               # first kept well of each key
     rate = _f(wells, "rate_mM_per_h")[keep]
-    blank = (role[keep] == "blank") & np.isfinite(rate)
+    blank = roles.is_("blank")[keep] & np.isfinite(rate)
     bk = kcode[blank]
     n = np.bincount(bk, minlength=K).astype(float)
     mean = np.full(K, np.nan)
@@ -357,7 +377,8 @@ def _robust_z(values: np.ndarray, group_codes: np.ndarray, se: np.ndarray | None
 class _Medians:
     """Group medians (``groupby.median``: the middle value, or the mean of the two middle values)
     of several value arrays over one grouping. Small groups (the usual replicate sets) are laid
-    out as rows of a NaN-padded matrix and sorted row-wise; larger ones by one sort of their rows."""
+    out as rows of a NaN-padded matrix and sorted row-wise (a matrix of equal-sized groups is a
+    single gather, and three values need no sort); larger ones by one sort of their rows."""
 
     SMALL = 8
 
@@ -366,30 +387,50 @@ class _Medians:
         self.G = n_groups
         cnt = np.bincount(g, minlength=n_groups)
         order = np.argsort(g, kind="stable")
-        place = np.empty(g.size, dtype=np.int64)
-        place[order] = np.arange(g.size) - (np.cumsum(cnt) - cnt)[g[order]]
         small_group = cnt <= self.SMALL
         self.small = small_group[g]
-        self.row_of = np.cumsum(small_group) - 1          # row of each small group in the matrix
-        self.n_small = int(small_group.sum())
-        self.width = int(cnt[small_group].max()) if self.n_small else 0
-        self.cell = (self.row_of[g[self.small]], place[self.small])
         self.small_groups = np.flatnonzero(small_group)
+        self.n_small = int(self.small_groups.size)
+        widths = cnt[small_group]
+        self.width = int(widths.max()) if self.n_small else 0
+        # rows of the small groups, group by group (matrix row i = small_groups[i])
+        self.perm = order[self.small[order]]
+        self.uniform = bool(self.n_small) and bool((widths == self.width).all()) and self.width > 0
+        if not self.uniform:
+            place = np.empty(g.size, dtype=np.int64)
+            place[order] = np.arange(g.size) - (np.cumsum(cnt) - cnt)[g[order]]
+            row_of = np.cumsum(small_group) - 1
+            self.cell = (row_of[g[self.small]], place[self.small])
+
+    def _small(self, x: np.ndarray) -> np.ndarray:
+        w = self.width
+        if self.uniform:
+            m = x[self.perm].reshape(self.n_small, w)
+            if not np.isnan(m).any():
+                if w == 3:                                  # the middle of three, by min / max
+                    a, b, c = m[:, 0], m[:, 1], m[:, 2]
+                    return np.maximum(np.minimum(a, b), np.minimum(np.maximum(a, b), c))
+                m = np.sort(m, axis=1)
+                lo, hi = m[:, (w - 1) // 2], m[:, w // 2]
+                return lo if w % 2 == 1 else (lo + hi) / 2
+        else:
+            m = np.full((self.n_small, w), np.nan)
+            m[self.cell] = x[self.small]
+        m.sort(axis=1)                                      # NaN (padding, missing) last
+        c = w - np.isnan(m).sum(axis=1)
+        r = np.arange(self.n_small)
+        lo = m[r, np.maximum(c - 1, 0) // 2]
+        hi = m[r, np.minimum(c // 2, w - 1)]
+        with np.errstate(over="ignore", invalid="ignore"):
+            med = np.where(c % 2 == 1, lo, (lo + hi) / 2)
+        return np.where(c > 0, med, np.nan)
 
     def __call__(self, x: np.ndarray) -> np.ndarray:
         """Per group: the median of its non-NaN values ``x`` (one per row of ``g``); NaN if none."""
         out = np.full(self.G, np.nan)
-        if self.n_small:
-            m = np.full((self.n_small, self.width), np.nan)
-            m[self.cell] = x[self.small]
-            m.sort(axis=1)                                  # NaN (padding, missing) last
-            c = self.width - np.isnan(m).sum(axis=1)
-            r = np.arange(self.n_small)
-            lo = m[r, np.maximum(c - 1, 0) // 2]
-            hi = m[r, np.minimum(c // 2, self.width - 1)]
-            with np.errstate(over="ignore", invalid="ignore"):
-                med = np.where(c % 2 == 1, lo, (lo + hi) / 2)
-            out[self.small_groups] = np.where(c > 0, med, np.nan)
+        if self.n_small and self.width:
+            with np.errstate(over="ignore"):
+                out[self.small_groups] = self._small(x)
         big = ~self.small & ~np.isnan(x)
         if big.any():
             gb, xb = self.g[big], x[big]
@@ -419,8 +460,9 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     settings = settings or AnalysisSettings()
     catalysts = data if isinstance(data, pd.DataFrame) else data.catalysts
     factor_names = _infer_factors(wells, getattr(data, "factor_names", None))
-    role, role_key = _role_parts(wells)
-    catalysed = np.isin(role, ["sample", "reference"])
+    roles = _Roles(wells)
+    catalysed = roles.is_("sample", "reference")
+    is_blank = roles.is_("blank")
     n_wells = len(wells)
     # each string column factorised once, shared by the site lookup and the replicate groups
     parts = {c: _factorize(wells[c]) for c in ("catalyst", "loading_unit") if c in wells}
@@ -482,10 +524,10 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
     metric = np.where(np.isfinite(tof), tof, rate)
     keys = _group_keys(wells, factor_names)
-    known = {"temperature_c": _codes(tkey), "role": role_key, **{c: _key_of(*v) for c, v in parts.items()}}
+    known = {"temperature_c": _codes(tkey), "role": roles.key, **{c: _key_of(*v) for c, v in parts.items()}}
     key_cols = [known[k] if k in known else wells[k] for k in keys]
     codes_cat = np.where(catalysed, _key_codes(key_cols), -1)
-    codes_bl = np.where(role == "blank", pt_code, -1)
+    codes_bl = np.where(is_blank, pt_code, -1)
     # each well's own measurement error (the shared blank's error is common to its replicates)
     with np.errstate(invalid="ignore", divide="ignore"):
         own_se = np.where(np.isfinite(tof), se_w * amount_per_mM / sites, se_w)
@@ -503,7 +545,7 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         site = str(site_words[sc]) if sc >= 0 else ""
         words.append(base if site == "" else (site if base == "" else base + ";" + site))
     flag_words, flag_codes = _FlagIndex.from_codes(pair, words).join_codes({
-        "no_blank": (catalysed | (role == "blank")) & ~has_blank,
+        "no_blank": (catalysed | is_blank) & ~has_blank,
         "no_sites": catalysed & ~np.isfinite(sites),
         "below_blank": catalysed & has_blank & np.isfinite(net) & (net <= 0),
         "enhancement_lower_bound": lower & np.isfinite(enh),
@@ -660,10 +702,10 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     """
     settings = settings or AnalysisSettings()
     factors = _infer_factors(turnover, factor_names)
-    role, role_key = _role_parts(turnover)
+    roles = _Roles(turnover)
     rate_all = _f(turnover, "rate_mM_per_h")
     # the catalysed wells with a rate, by position (no copy of the wide per-well frame)
-    rows = np.flatnonzero(np.isin(role, ["sample", "reference"]) & np.isfinite(rate_all))
+    rows = np.flatnonzero(roles.is_("sample", "reference") & np.isfinite(rate_all))
     fi = _FlagIndex(turnover["flags"])               # the flag column parsed once per distinct string
     keys = _group_keys(turnover, factors)
     cond_cols = ["loading", "loading_unit", "substrate_conc_mM", *factors]
@@ -681,7 +723,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         return fi.has(code)[rows]
 
     tkey = _tkey(turnover["temperature_c"])
-    col_codes = {k: _codes(tkey) if k == "temperature_c" else role_key if k == "role" else _codes(turnover[k])
+    col_codes = {k: _codes(tkey) if k == "temperature_c" else roles.key if k == "role" else _codes(turnover[k])
                  for k in keys}
     gcode = _key_codes([col_codes[k] for k in keys], rows)   # = groupby(keys, dropna=False, sort=False).ngroup()
     n_groups = int(gcode.max()) + 1
@@ -778,7 +820,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     conc = _f(turnover, "substrate_conc_mM")[first_row]
     is_standard = _standard_flags(col_codes["catalyst"][0][first_row], cond_code, n_wells.astype(float),
                                   loading, conc)
-    flags = _FlagIndex(None, n=n_groups).join({
+    flag_words, flag_codes = _FlagIndex(None, n=n_groups).join_codes({
         "single_well": n == 1,
         "has_outlier": n_out > 0,
         "excluded_failed_well": n_failed > 0,
@@ -797,11 +839,16 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     else:
         sel = _selectivity.summarise_groups(pd.DataFrame({"flags": []}), np.zeros(0, dtype=np.int64), n_groups,
                                             settings.confidence)
-    sel_flags = sel["flags"].to_numpy(dtype=object)
-    more = sel_flags != ""
-    if more.any():
-        flags = flags.copy()
-        flags[more] = np.where(flags[more] == "", sel_flags[more], flags[more] + ";" + sel_flags[more])
+    # the selectivity group flags follow this module's, per distinct pair of flag texts
+    sel_fi = _FlagIndex(sel["flags"])
+    if any(sel_fi.uniques):
+        m = len(sel_fi.uniques)
+        flag_codes, pairs = pd.factorize(flag_codes * m + sel_fi.codes)
+        words = []
+        for c in np.asarray(pairs, dtype=np.int64):              # a loop over distinct pairs
+            cur, more = str(flag_words[c // m]), sel_fi.uniques[c % m]
+            words.append(cur if more == "" else (more if cur == "" else cur + ";" + more))
+        flag_words = np.array(words, dtype=object)
     # rows in the table's order (catalyst, temperature, loading, concentration; stable), taken once
     by = _sort_order([turnover["catalyst"].iloc[first_row], tkey[first_row], loading, conc])
     new = {
@@ -822,14 +869,15 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "enhancement_ci_high": e_hi,
         "is_standard": is_standard,
         "plates": plates,
-        "flags": flags,
+        "flags": flag_codes,
         "tof_per_s": tof_per_s(tof_mean),
         "n_plates": n_plates,
         "n_outliers": n_out,
         "rate_se_mM_per_h": rate_se,
         **{c: sel[c].to_numpy(dtype=float) for c in _selectivity.GROUP_COLUMNS},
     }
-    res = _sites.with_columns(turnover[keys].iloc[first_row[by]].reset_index(drop=True),
-                              {c: v[by] for c, v in new.items()})
+    new = {c: v[by] for c, v in new.items()}
+    new["flags"] = _sites.text_array(flag_words, new["flags"])
+    res = _sites.frame_of(turnover, keys, first_row[by], new)
     res.attrs["factor_names"] = factors
     return res
