@@ -390,3 +390,16 @@ def test_first_rows_equal_unique_return_index():
     codes = np.asarray(codes, dtype=np.int64)
     np.testing.assert_array_equal(turnover._first_rows(codes), np.unique(codes, return_index=True)[1])
     assert turnover._first_rows(np.zeros(0, dtype=np.int64)).size == 0
+
+
+def test_group_medians_of_threes_with_many_missing_and_infinite_values():
+    rng = np.random.default_rng(1)
+    g = rng.permutation(np.repeat(np.arange(400), 3))
+    x = rng.normal(size=g.size)
+    x[rng.random(g.size) < 0.4] = np.nan                  # groups with 0, 1, 2 or 3 values
+    median = turnover._Medians(g, 400)
+    ref = pd.Series(x).groupby(g).median().reindex(range(400)).to_numpy()
+    np.testing.assert_array_equal(median(x), ref)
+    x[:5], x[5:8] = np.inf, -np.inf
+    ref = pd.Series(x).groupby(g).median().reindex(range(400)).to_numpy()
+    np.testing.assert_array_equal(median(x), ref)

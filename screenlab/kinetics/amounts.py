@@ -70,9 +70,16 @@ def well_index(plate: pd.Series, well: pd.Series, key_plate: pd.Series, key_well
     (plate, well) are looked up once, so sorted readings (the CampaignData contract) cost one string
     comparison per row and one key lookup per well; any other order gives the same answer, just slower.
     """
+    return np.repeat(*well_runs(plate, well, key_plate, key_well))
+
+
+def well_runs(plate: pd.Series, well: pd.Series, key_plate: pd.Series,
+              key_well: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`well_index` as runs of consecutive equal (plate, well): the key position of each run
+    and its length (``np.repeat`` of the two is the per-row answer)."""
     n = len(plate)
     if n == 0:
-        return np.zeros(0, dtype=np.int64)
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
     start = np.ones(n, dtype=bool)
     if n > 1:
         start[1:] = _change_points(plate) | _change_points(well)
@@ -128,7 +135,8 @@ def _dictionary_codes(keys, runs) -> np.ndarray:
 
 
 def _match_runs(combined: np.ndarray, k: int, start: np.ndarray) -> np.ndarray:
-    """Expand: ``combined`` holds k key codes then one code per run (``start`` marks run starts)."""
+    """``combined`` holds k key codes then one code per run (``start`` marks run starts): each run's
+    key position (-1 if absent) and each run's length."""
     runs = combined[k:]
     lengths = np.diff(np.append(np.flatnonzero(start), len(start)))
     size = int(combined.max()) + 1 if combined.size else 0
@@ -138,7 +146,7 @@ def _match_runs(combined: np.ndarray, k: int, start: np.ndarray) -> np.ndarray:
         if seen.max() <= 1:
             table = np.full(size, -1, dtype=np.int64)
             table[combined[:k]] = np.arange(k)
-            return np.repeat(table[runs], lengths)
+            return table[runs], lengths
     keys = pd.Index(combined[:k])
     if not keys.is_unique:
         keep = ~keys.duplicated()
@@ -147,7 +155,7 @@ def _match_runs(combined: np.ndarray, k: int, start: np.ndarray) -> np.ndarray:
         run_code = np.where(found >= 0, pos[np.maximum(found, 0)], -1)
     else:
         run_code = keys.get_indexer(runs)
-    return np.repeat(np.asarray(run_code, dtype=np.int64), lengths)
+    return np.asarray(run_code, dtype=np.int64), lengths
 
 
 def _absorbance_baseline(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
@@ -189,10 +197,11 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
     wells = data.wells
     # integer well code per reading, once (no string merge); -1 for a well not in wells.csv. A
     # (plate, well) listed twice takes its first row (as drop_duplicates would keep it).
-    code = well_index(src["plate"], src["well"], wells["plate"], wells["well"])
+    run_code, run_len = well_runs(src["plate"], src["well"], wells["plate"], wells["well"])
     w_s0 = pd.to_numeric(wells["substrate_conc_mM"], errors="coerce").astype(float).to_numpy()
-    s0 = np.where(code >= 0, w_s0[np.maximum(code, 0)] if len(w_s0) else np.nan, np.nan)
-    theo = s0 * float(m.product_per_substrate)            # theoretical maximum product, mM
+    s0 = np.where(run_code >= 0, w_s0[np.maximum(run_code, 0)] if len(w_s0) else np.nan, np.nan)
+    # theoretical maximum product (mM), per run of a well's readings, then per reading
+    theo = np.repeat(s0 * float(m.product_per_substrate), run_len)
     # the baseline column (string dtype) by one take from its few words, not one conversion per row
     baseline = _missing_strings(n)
 

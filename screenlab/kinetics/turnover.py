@@ -406,10 +406,18 @@ class _Medians:
         w = self.width
         if self.uniform:
             m = x[self.perm].reshape(self.n_small, w)
-            if not np.isnan(m).any():
-                if w == 3:                                  # the middle of three, by min / max
-                    a, b, c = m[:, 0], m[:, 1], m[:, 2]
-                    return np.maximum(np.minimum(a, b), np.minimum(np.maximum(a, b), c))
+            missing = np.isnan(m)
+            if w == 3 and not np.isposinf(m).any():
+                # three values sorted by min / max (missing ones last, as +inf)
+                m = np.where(missing, np.inf, m)
+                a, b, c = m[:, 0], m[:, 1], m[:, 2]
+                s0 = np.minimum(np.minimum(a, b), c)
+                s1 = np.maximum(np.minimum(a, b), np.minimum(np.maximum(a, b), c))
+                if not missing.any():
+                    return s1
+                k = 3 - missing.sum(axis=1)
+                return np.where(k == 3, s1, np.where(k == 2, (s0 + s1) / 2, np.where(k == 1, s0, np.nan)))
+            if not missing.any():
                 m = np.sort(m, axis=1)
                 lo, hi = m[:, (w - 1) // 2], m[:, w // 2]
                 return lo if w % 2 == 1 else (lo + hi) / 2
