@@ -184,9 +184,10 @@ class Checker:
         direct = _cast_float(text)
         if direct is not None and not np.isnan(direct).any():
             inf = np.isinf(direct)
-            self.report(inf, column, "is not a finite number")
-            v = np.where(inf, np.nan, direct)
-            return v, ~inf
+            if inf.any():
+                self.report(inf, column, "is not a finite number")
+                direct[inf] = np.nan
+            return direct, ~inf
         d = self.distinct(column)
         u_raw = d.values
         u_text = u_raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else u_raw
@@ -234,9 +235,10 @@ def _cast_float(text: pd.Series) -> np.ndarray | None:
     if arr is None:
         return None
     try:
-        return np.array(pc.cast(arr, pa.float64()).to_numpy(zero_copy_only=False), dtype=np.float64)
+        out = np.asarray(pc.cast(arr, pa.float64()).to_numpy(zero_copy_only=False), dtype=np.float64)
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
         return None
+    return out if out.flags.writeable else out.copy()  # the frames get arrays of their own
 
 
 def _to_float(text: pd.Series, blank: np.ndarray) -> np.ndarray:
@@ -577,9 +579,10 @@ def _fold(keys: list[tuple[np.ndarray, int]]) -> np.ndarray | None:
         span *= max(int(size), 1)
     if span >= 2 ** 62:
         return None
-    out = np.zeros(len(keys[0][0]), dtype=np.int64)
-    for k, size in keys:
-        out = out * max(int(size), 1) + k
+    out = np.array(keys[0][0], dtype=np.int64)
+    for k, size in keys[1:]:
+        np.multiply(out, max(int(size), 1), out=out)
+        np.add(out, k, out=out)
     return out
 
 
@@ -649,7 +652,10 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
     lay_key = keys[first]
     lay_empty = (wells["role"] == "empty").to_numpy(dtype=bool)[np.flatnonzero(lay_ok)[first]]
     placed = well_ok & (p_codes >= 0)
-    row_key = np.where(placed, p_codes.astype(np.int64) * n_c + c_codes, 0)
+    row_key = p_codes.astype(np.int64)
+    np.multiply(row_key, n_c, out=row_key)
+    np.add(row_key, c_codes, out=row_key)
+    row_key[~placed] = 0
     if n_p * n_c <= max(4 * (n + len(wells)), 1 << 20):  # direct address table
         slot = np.full(n_p * n_c, -1, dtype=np.int64)
         slot[lay_key] = np.arange(len(lay_key))

@@ -181,14 +181,24 @@ _M64 = np.uint64(0xFFFFFFFFFFFFFFFF)
 _NA_HASH = np.uint64(0x9E3779B97F4A7C15)   # hash of a missing cell (any kind)
 
 
-def _mix64(x: np.ndarray) -> np.ndarray:
+def _mix64(x: np.ndarray, inplace: bool = False) -> np.ndarray:
     """The splitmix64 finaliser (Steele, Lea & Flood 2014, "Fast splittable pseudorandom number
-    generators", OOPSLA): a bijective avalanche mix of uint64 values, wrapping arithmetic."""
-    x = x ^ (x >> np.uint64(30))
-    x = x * np.uint64(0xBF58476D1CE4E5B9)
-    x = x ^ (x >> np.uint64(27))
-    x = x * np.uint64(0x94D049BB133111EB)
-    return x ^ (x >> np.uint64(31))
+    generators", OOPSLA): a bijective avalanche mix of uint64 values, wrapping arithmetic.
+
+    Computed with one scratch array (``inplace``: in ``x`` itself, which the caller owns), as row
+    hashes of a large table go through it several times per column."""
+    t = np.right_shift(x, np.uint64(30))
+    if inplace:
+        np.bitwise_xor(x, t, out=x)
+    else:
+        x = np.bitwise_xor(x, t, out=t)
+        t = np.empty_like(x)
+    np.multiply(x, np.uint64(0xBF58476D1CE4E5B9), out=x)
+    np.right_shift(x, np.uint64(27), out=t)
+    np.bitwise_xor(x, t, out=x)
+    np.multiply(x, np.uint64(0x94D049BB133111EB), out=x)
+    np.right_shift(x, np.uint64(31), out=t)
+    return np.bitwise_xor(x, t, out=x)
 
 
 def _text_hash(values) -> np.ndarray:
@@ -212,8 +222,11 @@ def _column_hash(s: pd.Series) -> np.ndarray:
         return np.where(na, _NA_HASH, _mix64(v ^ np.uint64(0x1)))
     v = s.to_numpy(dtype=np.float64)
     na = np.isnan(v)
-    bits = np.where(na, 0.0, v).view(np.uint64)
-    return np.where(na, _NA_HASH, _mix64(bits ^ np.uint64(0x2)))
+    bits = np.where(na, 0.0, v).view(np.uint64)  # a new array: hashed in place below
+    np.bitwise_xor(bits, np.uint64(0x2), out=bits)
+    h = _mix64(bits, inplace=True)
+    h[na] = _NA_HASH
+    return h
 
 
 def _is_text(s: pd.Series) -> bool:
@@ -253,10 +266,11 @@ class _ColumnReader:
         """Cell hashes of column ``c``; with ``tag``, ``_mix64(hash ^ tag)``, and with ``first``
         also mixed once more (the first column's row-hash step); for text these are taken on the
         distinct values and spread, which gives the same number per cell."""
-        def steps(h: np.ndarray) -> np.ndarray:
+        def steps(h: np.ndarray) -> np.ndarray:  # on an array of its own
             if tag is not None:
-                h = _mix64(h ^ tag)
-            return _mix64(h) if first else h
+                np.bitwise_xor(h, tag, out=h)
+                h = _mix64(h, inplace=True)
+            return _mix64(h, inplace=True) if first else h
 
         if not _is_text(self.frame[c]):
             return steps(_column_hash(self._values(c)))
@@ -284,8 +298,10 @@ def _row_hashes(frame: pd.DataFrame | _ColumnReader, cols: list[str]) -> np.ndar
         tag = _text_hash([c])[0]
         if h is None:  # first column: h = 0, so mix(h * P ^ x) is mix(x)
             h = reader.hash(c, tag, first=True)
-        else:
-            h = _mix64((h * np.uint64(0x100000001B3)) ^ reader.hash(c, tag))
+        else:  # h is this function's own array: updated in place
+            np.multiply(h, np.uint64(0x100000001B3), out=h)
+            np.bitwise_xor(h, reader.hash(c, tag), out=h)
+            h = _mix64(h, inplace=True)
     return np.zeros(n, dtype=np.uint64) if h is None else h
 
 
@@ -1131,13 +1147,17 @@ def _tag(table: pa.Table, *, campaign: str, import_id: int) -> pa.Table:
 
 
 def _bulk_insert(con, table: str, rows: pa.Table | pd.DataFrame) -> None:
-    """INSERT ... SELECT from the rows as one Arrow table (one statement per table, never row by row).
+    """INSERT ... SELECT from the rows as one Arrow table of one record batch (one statement per
+    table, never row by row).
 
     Arrow lets DuckDB scan the columns zero-copy; scanning pandas text columns directly costs
     several times more at campaign scale."""
     data = rows if isinstance(rows, pa.Table) else pa.Table.from_pandas(rows, preserve_index=False)
     if data.num_rows == 0:
         return
+    # one record batch: DuckDB inserts a table of several batches (columns in chunks, e.g. straight
+    # from the CSV reader) batch by batch and merges the row groups, much slower than one scan
+    data = data.combine_chunks()
     view = f"incoming_{table}"
     con.register(view, data)
     try:
