@@ -277,8 +277,12 @@ def test_induction_with_positions_equals_without():
     rng = np.random.default_rng(0)
     starts = np.searchsorted(g, np.arange(G))
     pos = np.arange(g.size) - starts[g]
-    in_fit = pos < rng.integers(2, 9, G)[g]                      # a leading run of each well
-    np.testing.assert_array_equal(rates._induction(g, t, p, in_fit, G, pos), rates._induction(g, t, p, in_fit, G))
+    n_fit = rng.integers(0, 9, G)
+    in_fit = pos < n_fit[g]                                      # a leading run of each well
+    ref = rates._induction(g, t, p, in_fit, G)
+    np.testing.assert_array_equal(rates._induction(g, t, p, in_fit, G, pos), ref)
+    np.testing.assert_array_equal(rates._induction(g, t, p, None, G, pos, n_fit=np.bincount(g[in_fit], minlength=G)), ref)
+    assert ref.any()                                             # the flag is reached at all
 
 
 # ------------------------------------------------------------------------------- group summaries

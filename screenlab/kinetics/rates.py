@@ -257,6 +257,8 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     last_time = _take(t, i_last)
     last_prod = _take(prod, i_last)
     last_conv = _take(conv, i_last)
+    # the per-reading temporaries are done with: free them before the fits (a smaller working set)
+    del conv, above, ia, is_t0, g_t0, use
 
     # --- method per well -------------------------------------------------------------------
     m_slope = (n_win >= min_pts) & (n_pos >= 1)
@@ -277,11 +279,12 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     used_pts = np.zeros(G, dtype=np.int64)
     # end of the initial segment (for the deactivation check) and the fitted set (induction)
     t_end_seg = np.full(G, np.nan)
-    in_fit = np.zeros(g.shape, dtype=bool)
+    n_fit = np.zeros(G, dtype=np.int64)         # fitted readings per well: a leading run of each
 
     # initial slope
-    sel = in_win & m_slope[g]
-    if sel.any():
+    sel = np.flatnonzero(in_win & m_slope[g])
+    del in_win
+    if sel.size:
         lf = fit.fit_lines(t[sel], prod[sel], g[sel], G)
         ok = m_slope & np.isfinite(lf.slope)
         rate[ok], rate_se[ok], rate_df[ok] = lf.slope[ok], lf.slope_se[ok], lf.df[ok]
@@ -290,11 +293,11 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         failed |= m_slope & ~ok
         # the window is a leading run of the time-sorted course: its end is its last reading
         t_end_seg[ok] = t[starts[ok] + n_win[ok] - 1]
-        in_fit |= sel
+        n_fit[m_slope] = n_win[m_slope]
 
     # first-order fit of the whole course
-    sel = m_first[g]
-    if sel.any():
+    sel = np.flatnonzero(m_first[g])
+    if sel.size:
         t_s, p_s, g_s = t[sel], prod[sel], g[sel]
         b1_start, k_start = models.start_guess(t_s, p_s, g_s, G)
         free = _first_order_fit(np.flatnonzero(m_first), t_s, p_s, g_s, G, k_start=k_start)
@@ -317,7 +320,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
             failed |= refit & ~good
         used_pts[m_first] = n_points[m_first]
         t_end_seg[m_first] = first_time[m_first]
-        in_fit |= sel
+        n_fit[m_first] = n_points[m_first]
 
     # end point: earliest reading after t = 0, net of the t = 0 reading when there is one
     if m_end.any():
@@ -337,7 +340,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         tq = stats.t.ppf(0.5 + settings.confidence / 2.0, df_u)[df_inv.ravel()]
         half = np.where((rate_df > 0) & np.isfinite(rate_se), tq * rate_se, np.nan)
 
-    induction = _induction(g, t, prod, in_fit, G, pos)
+    induction = _induction(g, t, prod, None, G, pos, n_fit=n_fit)
     deactivation = _deactivation(rate, intercept, theo, t_end_seg, last_time, last_prod,
                                  resid_sd, m_fit)
 
@@ -379,23 +382,32 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     })
 
 
-def _induction(g, t, prod, in_fit, G, pos=None) -> np.ndarray:
+def _induction(g, t, prod, in_fit, G, pos=None, n_fit=None) -> np.ndarray:
     """Straight lines through the first and the second half of the fitted readings (sharing the
     middle reading): flagged when the early slope is below half the late slope and the
     difference exceeds FLAG_SIGMAS standard errors (pooled residual SD of the two lines).
 
     Each well's readings are contiguous and time-sorted in ``g`` and its fitted ones a leading
-    run of them, so ``pos`` (each reading's place in its well; from sorted ``g`` when not given)
-    is also its place among the fitted ones."""
-    if not in_fit.any():
-        return np.zeros(G, dtype=bool)
-    if pos is None:
-        gi = g[in_fit]
-        pos = np.zeros(g.shape, dtype=np.int64)
-        pos[in_fit] = np.arange(gi.size) - _group_starts(gi, G)[gi]
-    n = np.bincount(g, weights=in_fit, minlength=G).astype(np.int64)
-    mid = (n // 2)[g]
-    one, two = in_fit & (pos <= mid), in_fit & (pos >= mid)
+    run of them: either the mask ``in_fit`` (``pos``, each reading's place in its well, from
+    sorted ``g`` when not given) or, with ``pos``, the number ``n_fit`` of fitted readings per well."""
+    if n_fit is None:
+        if not in_fit.any():
+            return np.zeros(G, dtype=bool)
+        if pos is None:
+            gi = g[in_fit]
+            pos = np.zeros(g.shape, dtype=np.int64)
+            pos[in_fit] = np.arange(gi.size) - _group_starts(gi, G)[gi]
+        n = np.bincount(g, weights=in_fit, minlength=G).astype(np.int64)
+        mid = (n // 2)[g]
+        one, two = np.flatnonzero(in_fit & (pos <= mid)), np.flatnonzero(in_fit & (pos >= mid))
+    else:
+        n = np.asarray(n_fit, dtype=np.int64)
+        if not (n > 0).any():
+            return np.zeros(G, dtype=bool)
+        half = n // 2
+        # first half: places 0..mid of a leading run; second half: places mid..n-1
+        one = np.flatnonzero(pos <= np.where(n > 0, half, -1)[g])
+        two = np.flatnonzero((pos >= half[g]) & (pos < n[g]))
     # the two halves fitted separately (each group's sums in the same order as one joint fit)
     early_fit = fit.fit_lines(t[one], prod[one], g[one], G)
     late_fit = fit.fit_lines(t[two], prod[two], g[two], G)
