@@ -377,13 +377,20 @@ def pareto_plot(frame: pd.DataFrame, *, x: str, y: str, x_label: str, y_label: s
 def zprime_bars(quality: pd.DataFrame, *, threshold: float, title: str | None = None) -> go.Figure:
     """Z' per plate (``plate, z_prime``) with the acceptance line."""
     z = pd.to_numeric(quality["z_prime"], errors="coerce")
-    fig = go.Figure(go.Bar(x=quality["plate"].astype(str), y=z, name="Z'",
-                           marker=dict(color=np.where(z >= threshold, series_colours(1)[0], "#e69f00"),
-                                       pattern=dict(shape=np.where(z >= threshold, "", "/"))),
-                           hovertemplate="%{x}: Z' = %{y:.2f}<extra></extra>"))
+    plates = quality["plate"].astype(str)
+    low = (z < threshold).to_numpy()
+    fig = go.Figure()
+    # two traces (not a pattern per bar): one hatch pattern for the whole low set keeps the SVG small
+    for mask, name, colour, hatch in ((~low, f"Z' >= {threshold:g}", series_colours(1)[0], ""),
+                                      (low, f"Z' < {threshold:g}", "#e69f00", "/")):
+        if mask.any():
+            fig.add_trace(go.Bar(x=plates[mask], y=z[mask], name=name,
+                                 marker=dict(color=colour, pattern=dict(shape=hatch)),
+                                 hovertemplate="%{x}: Z' = %{y:.2f}<extra></extra>"))
+    fig.update_layout(barmode="overlay")
     fig.add_hline(y=threshold, line=dict(color="#000000", dash="dash"),
                   annotation_text=f"Z' = {threshold:g}", annotation_position="top left")
-    fig.update_xaxes(title="plate", type="category")
+    fig.update_xaxes(title="plate", type="category", categoryorder="array", categoryarray=plates.tolist())
     fig.update_yaxes(title="Z' (dimensionless)")
     return _layout(fig, title, height=360)
 
