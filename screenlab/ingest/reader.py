@@ -9,7 +9,6 @@ import pandas as pd
 
 import hashlib
 import warnings
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -75,11 +74,6 @@ def _gather(source) -> tuple[dict[str, bytes], str]:
                                    "is neither a campaign folder nor a .zip of one")], source=label)
 
 
-def _read_table(name: str, data: bytes) -> tuple[RawTable | None, list[Problem]]:
-    problems: list[Problem] = []
-    return read_table(name, data, problems), problems
-
-
 def read_campaign(source) -> ReadResult:
     """Read and validate one campaign.
 
@@ -89,24 +83,15 @@ def read_campaign(source) -> ReadResult:
     :class:`~screenlab.errors.ValidationError` listing every problem found.
     """
     files, label = _gather(source)
-    # Two workers run beside this thread: one takes the SHA-256 of every file, one reads the
-    # readings table (the largest) while this one reads and checks the others. Both spend most
-    # of their time in code that releases the GIL (hashlib, the Arrow CSV reader).
-    with ThreadPoolExecutor(max_workers=2, thread_name_prefix="screenlab-read") as pool:
-        digests = pool.submit(lambda: {k: hashlib.sha256(v).hexdigest() for k, v in files.items()})
-        return _read_campaign(files, label, pool, digests)
-
-
-def _read_campaign(files: dict[str, bytes], label: str, pool: ThreadPoolExecutor, digests) -> ReadResult:
     by_lower: dict[str, str] = {}
     for k in files:
         by_lower.setdefault(k.lower(), k)
     problems: list[Problem] = []
-    records: list[tuple[str, int]] = []
+    records: list[FileRecord] = []
     notes: list[str] = []
 
     def record(name: str, n_rows: int) -> None:
-        records.append((name, int(n_rows)))
+        records.append(FileRecord(name, hashlib.sha256(files[name]).hexdigest(), int(n_rows)))
 
     mname = by_lower.get(MANIFEST)
     manifest, info = parse_manifest(files[mname] if mname else None, problems)
@@ -136,9 +121,6 @@ def _read_campaign(files: dict[str, bytes], label: str, pool: ThreadPoolExecutor
                                     f"missing file: the campaign needs {t}.csv (or {t}.xlsx)"))
             tables[t] = None
             continue
-        if t == "readings":  # the last table: read by a worker while the others are checked below
-            tables[t] = pool.submit(_read_table, name, files[name])
-            continue
         n_before = len(problems)
         raw = read_table(name, files[name], problems)
         if raw is not None and raw.n_rows == 0:
@@ -150,7 +132,6 @@ def _read_campaign(files: dict[str, bytes], label: str, pool: ThreadPoolExecutor
             problems.append(Problem(name, None, None, None, "cannot be read"))
         tables[t] = raw
 
-    n_read, n_notes = len(problems), len(notes)  # where the readings file's problems and notes go
     catalysts = plates = wells = None
     factor_names: tuple[str, ...] = ()
     if tables["catalysts"] is not None:
@@ -159,38 +140,23 @@ def _read_campaign(files: dict[str, bytes], label: str, pool: ThreadPoolExecutor
     if tables["plates"] is not None:
         plates, nt = v.check_plates(tables["plates"], problems)
         notes.extend(nt)
+    well_names: dict = {}  # well names parsed for the layout, reused for the readings
     if tables["layout"] is not None:
         wells, factor_names = v.check_layout(tables["layout"], problems, plates=plates, catalysts=catalysts,
                                              conc_factor=info.get("conc_factor"),
-                                             volume_factor=info.get("volume_factor"))
-    check_problems = problems[n_read:]  # the readings file's own problems come before the checks'
-    del problems[n_read:]
-    if tables["readings"] is not None:
-        name = by_lower.get("readings.csv") or by_lower.get("readings.xlsx")
-        raw, read_problems = tables["readings"].result()
-        problems.extend(read_problems)
-        if raw is not None and raw.n_rows == 0:
-            problems.append(Problem(name, None, None, None, "has a header but no data rows"))
-        if raw is not None:
-            notes[n_notes:n_notes] = raw.notes
-            record(name, raw.n_rows)
-        elif not read_problems:  # pragma: no cover - read_table always says why
-            problems.append(Problem(name, None, None, None, "cannot be read"))
-        tables["readings"] = raw
-    problems.extend(check_problems)
+                                             volume_factor=info.get("volume_factor"), well_names=well_names)
     readings = pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
                              "analyte": pd.Series(dtype="str"), "time_h": pd.Series(dtype=float),
                              "value": pd.Series(dtype=float)})
     if tables["readings"] is not None:
-        readings, nt = v.check_readings(tables["readings"], problems, wells=wells, plates=plates, info=info)
+        readings, nt = v.check_readings(tables["readings"], problems, wells=wells, plates=plates, info=info,
+                                        well_names=well_names)
         notes.extend(nt)
 
     if problems or manifest is None:
         raise ValidationError(problems, source=label)
-    sha = digests.result()
-    records = [FileRecord(name, sha[name], n_rows) for name, n_rows in records]
     data = CampaignData(manifest=manifest, catalysts=catalysts, plates=plates, wells=wells, readings=readings,
                         factor_names=factor_names)
     for note in notes:
-        warnings.warn(note, DataQualityWarning, stacklevel=3)  # the caller of read_campaign
+        warnings.warn(note, DataQualityWarning, stacklevel=2)
     return ReadResult(data=data, files=tuple(records), source=label, notes=tuple(notes))

@@ -85,7 +85,7 @@ def _pick_delimiter(header_line: str) -> str:
     return best if counts[best] > 0 else ","
 
 
-def _arrow_cells(body: str | bytes, delim: str, n_cols: int
+def _arrow_cells(body: str | bytes, delim: str, n_cols: int, checked: bool = False
                  ) -> tuple[pd.DataFrame, np.ndarray, np.ndarray | None] | None:
     """Fast path: ``body`` (lines joined by newline) read by pyarrow.csv as text cells, already
     stripped and formula-guard cleaned; returns (cells, record index of each cells row, all-True
@@ -103,13 +103,13 @@ def _arrow_cells(body: str | bytes, delim: str, n_cols: int
         raw = body.encode("ascii")
     else:
         raw = body
-        if b'"' in raw or not raw.isascii():  # (cheap next to the parse; the byte path checked already)
+        if not checked and (b'"' in raw or not raw.isascii()):  # ``checked``: the caller has
             return None
     if b"\x1f" in raw:  # US: white space to str.strip, not to Arrow's ASCII trim (FS, GS, RS break lines)
         return None
     try:
         table = pacsv.read_csv(
-            io.BytesIO(raw),
+            pa.BufferReader(pa.py_buffer(raw)),  # read by Arrow in place (not through a Python file)
             read_options=pacsv.ReadOptions(autogenerate_column_names=True, use_threads=True),
             parse_options=pacsv.ParseOptions(delimiter=delim, quote_char=False, double_quote=False,
                                              escape_char=False, newlines_in_values=False,
@@ -122,10 +122,10 @@ def _arrow_cells(body: str | bytes, delim: str, n_cols: int
     if table.num_columns != n_cols:
         return None
     # record index of every non-empty line: lines are separated by single newlines (no quotes)
-    if b"\n\n" not in raw and not raw.startswith(b"\n") and not raw.endswith(b"\n"):
-        records = np.arange(table.num_rows)  # no empty line: every line is a record
+    buf = np.frombuffer(raw, dtype=np.uint8)
+    if int(np.count_nonzero(buf == 10)) + 1 == table.num_rows:
+        records = np.arange(table.num_rows)  # as many records as lines: no line is empty
     else:
-        buf = np.frombuffer(raw, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
         starts = np.concatenate(([0], nl + 1))
         ends = np.concatenate((nl, [len(buf)]))
@@ -143,10 +143,9 @@ def _arrow_cells(body: str | bytes, delim: str, n_cols: int
         if guard:
             c = pc.replace_substring_regex(c, pattern=_GUARD, replacement=_GUARD_KEEP)
         cols[j] = pd.Series(pd.array(c, dtype=_STR), copy=False)
-    # a blank row (every cell empty once trimmed) is a line of delimiters and white space, so it
-    # starts with one of them; when no line does, no row is blank
-    starts = {delim.encode(), b" ", b"\t"}
-    maybe_blank = raw[:1] in starts or any(b"\n" + c in raw for c in starts)
+    # a blank row has every cell empty, so its first one; when no first cell is, no row is blank
+    first = cols[0].array._pa_array if cols else None
+    maybe_blank = first is None or (len(first) > 0 and pc.min(pc.binary_length(first)).as_py() == 0)
     nonblank = None if maybe_blank else np.ones(table.num_rows, dtype=bool)
     return pd.DataFrame(cols), records, nonblank
 
@@ -184,7 +183,7 @@ def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray, np
     body = data[start:]
     if body.endswith(b"\n"):  # as "\n".join(text.splitlines()) has it: no final line end
         body = body[:-1]
-    fast = _arrow_cells(body, delim, header.count(delim) + 1)
+    fast = _arrow_cells(body, delim, header.count(delim) + 1, checked=True)
     if fast is None:
         return None
     return fast[0], lead, delim, fast[1], fast[2]

@@ -267,6 +267,22 @@ def parse_wells_fast(names: pd.Series) -> pd.DataFrame:
     return parsed.iloc[codes].reset_index(drop=True)
 
 
+def parse_names(names: pd.Series, cache: dict | None = None) -> pd.DataFrame:
+    """:func:`screenlab.plates.parse_wells` of distinct well names (missing as ''), with ``cache``
+    (name -> parsed well, row, col) shared by the tables of one campaign, so a name the layout
+    parsed is not parsed again for the readings."""
+    texts = names.fillna("").tolist()
+    if cache is None:
+        return platelib.parse_wells(np.asarray(texts, dtype=object))
+    todo = list(dict.fromkeys(t for t in texts if t not in cache))
+    if todo:
+        parsed = platelib.parse_wells(np.asarray(todo, dtype=object))
+        cache.update(zip(todo, zip(parsed["well"].tolist(), parsed["row"].tolist(), parsed["col"].tolist())))
+    well, row, col = zip(*(cache[t] for t in texts)) if texts else ((), (), ())
+    return pd.DataFrame({"well": np.array(well, dtype=object), "row": np.array(row, dtype=np.int64),
+                         "col": np.array(col, dtype=np.int64)})
+
+
 def _temperature(ch: Checker, column: str, v: np.ndarray, ok: np.ndarray) -> None:
     below0 = ok & (v < ABSOLUTE_ZERO_C)
     ch.report(below0, column, "temperature below absolute zero (-273.15 degC)")
@@ -392,10 +408,12 @@ def _text_ranks(values: pd.Series) -> np.ndarray:
 
 def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFrame | None,
                  catalysts: pd.DataFrame | None,
-                 conc_factor: float | None, volume_factor: float | None) -> tuple[pd.DataFrame, tuple[str, ...]]:
+                 conc_factor: float | None, volume_factor: float | None,
+                 well_names: dict | None = None) -> tuple[pd.DataFrame, tuple[str, ...]]:
     """Validate layout.csv against plates and catalysts; returns (wells frame, factor names).
 
-    ``plates`` / ``catalysts`` None (their file could not be read) skips the cross-checks with them.
+    ``plates`` / ``catalysts`` None (their file could not be read) skips the cross-checks with them;
+    ``well_names`` is a cache of parsed well names (see :func:`parse_names`).
 
     Text columns are handled as codes into their distinct values (:class:`Distinct`): every
     element-wise test, lookup and conversion runs once per distinct cell and is spread to the rows.
@@ -435,7 +453,7 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
         if check_plate_ids:
             ch.report(pd_.spread((pid_u != "").to_numpy()) & ~known_plate, "plate", "unknown plate (not in plates.csv)")
     wd = ch.distinct("well")
-    parsed_u = platelib.parse_wells(np.asarray(wd.values.fillna(""), dtype=object))
+    parsed_u = parse_names(wd.values, well_names)
     well_u = parsed_u["well"].astype("str")
     well_ok = wd.spread(well_u.notna().to_numpy())
     if "well" in f.columns:
@@ -607,7 +625,8 @@ def _index_of(index: pd.Index, values: pd.Series) -> np.ndarray:
 
 
 def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFrame | None,
-                   plates: pd.DataFrame | None, info: dict) -> tuple[pd.DataFrame, list[str]]:
+                   plates: pd.DataFrame | None, info: dict,
+                   well_names: dict | None = None) -> tuple[pd.DataFrame, list[str]]:
     """Validate readings.csv against the layout and the manifest (``info`` from parse_manifest).
 
     ``wells`` / ``plates`` None (their file could not be read) skips the cross-checks with them.
@@ -636,7 +655,7 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
         if check_plate_ids:
             ch.report(~p_blank & ~known_plate, "plate", "unknown plate (not in plates.csv)")
     wd = ch.distinct("well")
-    w_name = platelib.parse_wells(np.asarray(wd.values.fillna(""), dtype=object))["well"].astype("str")
+    w_name = parse_names(wd.values, well_names)["well"].astype("str")
     c_of_w, c_uniq = pd.factorize(w_name, use_na_sentinel=True)  # distinct raw name -> canonical name code
     c_codes = wd.spread(c_of_w)  # per row; -1: not a well name
     well_ok = c_codes >= 0
