@@ -20,6 +20,10 @@ Design
 * **Fingerprints.** Each plate's canonical content (plate row; layout rows and factor values
   sorted by well; readings sorted by well, analyte, time) is hashed with SHA-256 in three parts,
   so a re-import can tell "unchanged", "new" and "changed" apart and say *what* changed.
+* **Import speed.** Rows go to DuckDB as one Arrow table of one record batch per table (one
+  ``INSERT ... SELECT``). While the data is put in storage form, a worker thread opens the store;
+  while the rows are written, another computes the fingerprints (DuckDB runs without the GIL).
+  An import of at least :data:`CHECKPOINT_READINGS` readings commits straight into the file.
 
 Schema migrations live in ``screenlab/store/migrations/NNN_name.sql`` and are applied in order,
 each in one transaction, recorded in ``schema_migrations(version, name, applied_at)``.
@@ -873,8 +877,14 @@ class Store:
                     opened.result().close()
                 raise
             pending = pool.submit(plate_fingerprints, prep.plates, prep.wells, prep.factors, prep.readings)
-            report = self._import_connected(data, prep, files, replace=replace, dry_run=dry_run, source=source,
-                                            pending=pending, whole=whole, plate_names=plate_names, opened=opened)
+            try:
+                report = self._import_connected(data, prep, files, replace=replace, dry_run=dry_run, source=source,
+                                                pending=pending, whole=whole, plate_names=plate_names,
+                                                opened=opened)
+            except BaseException:  # e.g. interrupted while waiting for the store: close it (closing twice is harmless)
+                if opened.exception() is None:
+                    opened.result().close()
+                raise
         assert report.campaign == name and report.status in _STATUSES
         return report
 
