@@ -37,10 +37,13 @@ if widgets.need_campaign(ctx):
     with st.container(border=True):
         st.markdown("**From screen to shortlist**")
         steps = st.columns(4)
-        steps[0].page_link("app_pages/ranking.py", label="1. Ranking: who leads, and how sure", icon=":material/leaderboard:")
-        steps[1].page_link("app_pages/plate_map.py", label="2. Plate map: the wells behind a number", icon=":material/grid_on:")
-        steps[2].page_link("app_pages/quality.py", label="3. Plate quality: which plates to trust", icon=":material/verified:")
-        steps[3].page_link("app_pages/shortlist.py", label="4. Shortlist: pick, note, download", icon=":material/checklist:")
+        for col, (page, label, icon, what) in zip(steps, [
+                ("ranking", "1. Ranking", "leaderboard", "who leads, and how sure"),
+                ("plate_map", "2. Plate map", "grid_on", "the wells behind a number"),
+                ("quality", "3. Plate quality", "verified", "which plates to trust"),
+                ("shortlist", "4. Shortlist", "checklist", "pick, note, download")]):
+            col.page_link(f"app_pages/{page}.py", label=label, icon=f":material/{icon}:")
+            col.caption(what)
 
     left, right = st.columns([3, 2])
     with left:
