@@ -15,6 +15,7 @@ from screenlab import plates as platelib
 from screenlab import units
 from screenlab.errors import Problem
 from screenlab.ingest import validate as v
+from screenlab.ingest.validate import _to_float as v_to_float
 from screenlab.ingest.tables import RawTable, read_table
 from screenlab.ingest.validate import (ABS_MAX, ABS_MIN, CONC_TOL_REL, FRACTION_TOL, LAYOUT_COLUMNS, NA_WORDS,
                                        PERCENT_TOL, READING_COLUMNS, RESERVED_FACTORS, T_MAX_C, T_MIN_C,
@@ -76,7 +77,7 @@ class OldChecker:
         text = raw.str.replace(",", ".", regex=False) if self.t.decimal_comma else raw
         low = raw.str.lower()
         blank = low.isin(NA_WORDS).to_numpy()
-        v = _old_to_float(text, blank)
+        v = v_to_float(text, blank)      # cell -> float reading: unchanged by the rewrite, shared
         nanword = low.isin(_NAN_WORDS).to_numpy()
         notnum = ~blank & np.isnan(v) & ~nanword
         nonfinite = ~blank & (np.isinf(v) | nanword)
@@ -108,24 +109,6 @@ class OldChecker:
         msg[frame.index[dup.to_numpy()]] = [f"{what} (first on row {int(r)})" for r in first[dup].to_numpy()]
         self.report(mask, column, msg)
         return mask
-
-
-def _old_to_float(text: pd.Series, blank: np.ndarray) -> np.ndarray:
-    """Cells -> float64 (NaN where blank or not a number), vectorised.
-
-    The whole column is first cast by Arrow (one C pass; blanks as nulls); any cell Arrow cannot
-    read makes the whole column fall back to ``pandas.to_numeric(errors="coerce")``, whose reading
-    is the reference here. Both accept the same plain decimal / exponent / inf / nan spellings."""
-    arr = getattr(text.array, "_pa_array", None)
-    if arr is not None:
-        try:
-            cast = pc.cast(pc.if_else(pa.array(blank), None, arr), pa.float64())
-            return np.array(cast.to_numpy(zero_copy_only=False), dtype=np.float64)
-        except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
-            pass
-    v = np.array(pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan))
-    v[blank] = np.nan
-    return v
 
 
 

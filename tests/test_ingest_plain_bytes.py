@@ -6,11 +6,17 @@ delimiters, padding, tabs, formula guards and the characters that send a file do
 """
 from __future__ import annotations
 
+import sys
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
 
 from screenlab.ingest import tables
+
+sys.path.insert(0, str(Path(__file__).parent))
+from test_ingest_fastpath import _same  # noqa: E402  (same comparison of two read_table results)
 
 
 def _read(data: bytes, monkeypatch, *, plain: bool, arrow: bool):
@@ -22,19 +28,6 @@ def _read(data: bytes, monkeypatch, *, plain: bool, arrow: bool):
             m.setattr(tables, "_arrow_cells", lambda *a, **k: None)
         raw = tables.read_table("t.csv", data, problems)
     return raw, problems
-
-
-def _same(a, b):
-    ra, pa_ = a
-    rb, pb = b
-    assert pa_ == pb
-    if ra is None or rb is None:
-        assert ra is None and rb is None
-        return
-    assert list(ra.frame.columns) == list(rb.frame.columns)
-    pd.testing.assert_frame_equal(ra.frame, rb.frame)
-    np.testing.assert_array_equal(ra.rows, rb.rows)
-    assert ra.decimal_comma == rb.decimal_comma and ra.notes == rb.notes
 
 
 WORDS = ["P01", " a01 ", "1,5", "2.25", "", "  ", "\t", "'=SUM(A1)", "'-3", "'abc", "na", "x y"]
