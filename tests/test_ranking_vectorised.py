@@ -94,3 +94,20 @@ def test_point_dominance_matches_pairwise(monkeypatch, m):
     np.testing.assert_array_equal(cnt, dom.sum(axis=0))
     for j in range(k):
         assert by[j] == ";".join(names[dom[:, j]][:4])
+
+
+def test_order_desc_is_a_stable_argsort_of_the_negated_scores():
+    # reference: numpy's stable argsort (ties in column order), the definition _order_desc documents
+    rng = np.random.default_rng(11)
+    score = rng.standard_t(2.0, (300, 257)).astype(np.float32) * 50
+    score[:, 10:20] = score[:, [3]]                      # ties within rows
+    score[::7, 30] = 0.0
+    score[::7, 31] = -0.0                                 # signed zeros compare equal
+    score[1, :] = np.float32(3.5)                         # a row of equal scores
+    score[2, ::2] = -np.float32(np.finfo(np.float32).max)
+    score[3, 5] = np.float32(np.finfo(np.float32).tiny) * -1
+    score[3, 6] = np.float32(np.finfo(np.float32).tiny)
+    expected = np.argsort(-score, axis=1, kind="stable")
+    np.testing.assert_array_equal(R._order_desc(score), expected)
+    np.testing.assert_array_equal(R.rank_draws(score), R._ranks_from_order(expected))
+    np.testing.assert_array_equal(R.rank_draws(score.astype(np.float64)), R._ranks_from_order(expected))

@@ -1,7 +1,7 @@
 """Uncertainty-aware ranking of candidates and Pareto sets over several metrics.
 
 Every candidate's metric is an estimate with a sampling distribution. The ranking draws from
-each distribution (a draws x candidates matrix), ranks every draw once (one ``argsort``), and
+each distribution (a draws x candidates matrix), ranks every draw once (one sort per draw), and
 reports how often each candidate comes first (``p_best``), lands in the top k (``p_top``) and
 the 2.5 / 97.5 % points of its rank over the draws (``rank_low``, ``rank_high``; the
 ``(1 - confidence) / 2`` quantiles in general).
@@ -348,17 +348,53 @@ def draw_matrix(mu, sigma, df, draws: int, rng: np.random.Generator) -> np.ndarr
     return z
 
 
+def _order_desc(score: np.ndarray) -> np.ndarray:
+    """Per row of a float32 ``score`` matrix, the columns from the highest score to the lowest (ties
+    by column), as ``np.argsort(-score, axis=1, kind="stable")`` gives them; int32, possibly a
+    strided view.
+
+    One sort of 64-bit keys instead of an argsort: the high word of each key is the score's bit
+    pattern mapped to a signed integer of the same order as the negated score (IEEE 754 floats of
+    one sign order like their bit patterns; the negative ones are flipped), the low word the column.
+    Sorting plain integers uses numpy's SIMD sorts, about twice as fast as an argsort of the floats
+    on the same rows, and the low words then are the order. Signed zeros are made equal first, as
+    they compare equal.
+    """
+    d, k = score.shape
+    if k >= 2 ** 31:
+        return np.argsort(-score, axis=1, kind="stable")
+    neg = np.subtract(np.float32(0.0), score, dtype=np.float32)   # -score, and -0.0 -> +0.0
+    bits = neg.view(np.int32)
+    flip = np.right_shift(bits, 31)                   # -1 for negative values, 0 otherwise
+    np.bitwise_and(flip, np.int32(0x7FFFFFFF), out=flip)
+    key = np.empty((d, k), dtype=np.int64)
+    words = key.view(np.int32).reshape(d, k, 2)       # little- or big-endian: pick the words
+    hi, lo = (1, 0) if np.little_endian else (0, 1)
+    np.bitwise_xor(bits, flip, out=words[:, :, hi])   # order-preserving signed integer of -score
+    del neg, bits, flip
+    words[:, :, lo] = np.arange(k, dtype=np.int32)
+    key.sort(axis=1)
+    return words[:, :, lo]
+
+
 def _ranks_from_order(order: np.ndarray) -> np.ndarray:
+    """Inverse of each row of ``order``: ranks[r, order[r, p]] = p + 1."""
     d, k = order.shape
     dtype = np.int32 if k < 2 ** 31 - 1 else np.int64
-    ranks = np.empty((d, k), dtype=dtype)
-    np.put_along_axis(ranks, order, np.broadcast_to(np.arange(1, k + 1, dtype=dtype), (d, k)), axis=1)
-    return ranks
+    ranks = np.empty(d * k, dtype=dtype)
+    flat = order.astype(np.int64 if d * k >= 2 ** 31 else dtype, copy=True)
+    flat += (np.arange(d, dtype=flat.dtype) * k)[:, None]
+    ranks[flat] = np.arange(1, k + 1, dtype=dtype)    # one scatter into the flat matrix
+    return ranks.reshape(d, k)
 
 
 def rank_draws(score: np.ndarray) -> np.ndarray:
-    """Rank of each column within each row of ``score`` (1 = highest), one argsort per row."""
-    return _ranks_from_order(np.argsort(-score, axis=1, kind="stable"))
+    """Rank of each column within each row of ``score`` (1 = highest; ties by column, the first
+    column first), one integer-key sort per row."""
+    score = np.asarray(score)
+    if score.dtype != np.float32:
+        return _ranks_from_order(np.argsort(-score, axis=1, kind="stable"))
+    return _ranks_from_order(_order_desc(score))
 
 
 def _order_stat_index(n: int, q: float) -> int:
@@ -385,8 +421,23 @@ def _n_workers(n_tasks: int) -> int:
     return max(1, min(n_tasks, cpus, 4))
 
 
+class _Deferred:
+    """A future run in the calling thread when its result is first asked for."""
+
+    def __init__(self, fn, args):
+        self._fn, self._args, self._done, self._value = fn, args, False, None
+
+    def result(self):
+        if not self._done:
+            self._value, self._done = self._fn(*self._args), True
+            self._fn = self._args = None
+        return self._value
+
+
 class _Inline:
-    """Same interface as a thread pool, runs in the calling thread (one task or one CPU)."""
+    """Same interface as a thread pool, runs in the calling thread (one task or one CPU): ``map``
+    as the builtin, ``submit`` deferred until its result is asked for (so tasks run in the order
+    their results are read, as a pool's workers would let them finish)."""
 
     def __enter__(self):
         return self
@@ -397,6 +448,10 @@ class _Inline:
     @staticmethod
     def map(fn, items):
         return map(fn, items)
+
+    @staticmethod
+    def submit(fn, *args):
+        return _Deferred(fn, args)
 
 
 def _executor(n_tasks: int):
@@ -409,14 +464,15 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     """Monte Carlo rank statistics of candidates with ``mu + sigma * T_df`` scores (higher is better).
 
     The draws are made in chunks of at most :data:`CHUNK_CELLS` numbers; each chunk is ranked
-    (one argsort per draw) and folded into running counts, so memory does not grow with ``draws``:
+    (one integer-key sort per draw, :func:`_order_desc`) and folded into running counts, so memory
+    does not grow with ``draws``:
 
     * ``p_top`` = P(rank <= top_k), ``p_best`` = P(rank 1), ``p_beats`` = P(score > the score of
       column ``reference``) (NaN without a reference);
     * ``rank_low`` / ``rank_high``: the ``(1 -/+ confidence) / 2`` quantiles of each candidate's rank
       over the draws, the same order statistics as ``np.quantile(ranks, q, axis=0,
       method="inverted_cdf")`` on the full draws x k rank matrix. They come from a banded rank
-      histogram per candidate (a window of ranks placed around the quantile seen in the first
+      histogram per candidate (a window of ranks per side placed around the quantile seen in the first
       :data:`PILOT_DRAWS` draws); a candidate whose quantile falls outside its window is resolved
       exactly by drawing the chunks again (each chunk has its own seed) and keeping only that
       candidate's ranks.
@@ -438,114 +494,143 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     top = np.zeros(k, np.int64)
     best = np.zeros(k, np.int64)
     beats = np.zeros(k, np.int64)
-    start = hist = base = wid = lo_idx = hi_idx = key0 = col_blocks = None
+    win = hist = None                                # placed from the pilot draws
 
     pilot_rows = min(draws, max(PILOT_DRAWS, 1), max(1, FALLBACK_CELLS // k))
 
     def place_windows(ranks):
-        nonlocal start, hist, base, wid, lo_idx, hi_idx, key0, col_blocks
-        start, hist, base, wid, lo_idx, hi_idx, key0, col_blocks = {}, {}, {}, {}, {}, {}, {}, {}
+        """One banded rank histogram per candidate holding both rank windows.
+
+        Each side (low, high quantile) gets a window of ranks [start, start + w) around the pilot's
+        quantile. A candidate's cells are [below window 1, window 1, between, window 2, above]; the
+        cell of a rank r is ``clip(r, lo1, hi1) + clip(r, lo2, hi2) + key0``, a sum of two clipped
+        ramps that is strictly increasing over those classes, so one bincount counts both sides.
+        When the two windows overlap they are merged into one (window 2 empty: lo2 = hi2), which
+        both sides then read.
+        """
+        nonlocal win, hist
         spread = 4 * np.sqrt(alpha * (1 - alpha) / len(ranks))
+        by_col = np.sort(ranks.T, axis=1)             # each candidate's pilot ranks, sorted
+        first, wid = {}, {}
         for side, q in (("low", alpha), ("high", 1 - alpha)):
-            lo_q, hi_q = np.quantile(ranks, [max(0.0, q - spread), min(1.0, q + spread)], axis=0,
-                                     method="inverted_cdf").astype(np.int64)
+            # np.quantile(ranks, q -/+ spread, axis=0, method="inverted_cdf"), read off the sorted ranks
+            lo_q = by_col[:, _order_stat_index(len(ranks), max(0.0, q - spread))].astype(np.int64)
+            hi_q = by_col[:, _order_stat_index(len(ranks), min(1.0, q + spread))].astype(np.int64)
             margin = 8 + (hi_q - lo_q) // 4
-            first = np.clip(lo_q - margin, 1, k)
-            w = np.minimum(hi_q + margin, k) - first + 1
-            if w.sum() > WINDOW_CELLS:                   # keep the histograms bounded; misses go to the fallback
-                w = np.maximum(1, (w * (WINDOW_CELLS / w.sum())).astype(np.int64))
-            start[side], wid[side] = first, w
-            # cells per candidate: [below the window, w window ranks, above the window]
-            base[side] = np.concatenate([[0], np.cumsum(w + 2)[:-1]])
-            hist[side] = np.zeros(int((w + 2).sum()), np.int32)            # counts <= draws
-            ends = np.searchsorted(np.cumsum(w + 2), np.arange(1, 1 + hist[side].size // BLOCK_CELLS) * BLOCK_CELLS)
-            cuts = np.unique(np.concatenate([[0], np.minimum(ends + 1, k), [k]]))
-            col_blocks[side] = list(zip(cuts[:-1].tolist(), cuts[1:].tolist()))
-            lo_idx[side] = (start[side] - 1).astype(ranks.dtype)
-            hi_idx[side] = (start[side] + w).astype(ranks.dtype)
-            key0[side] = (base[side] + 1 - start[side]).astype(ranks.dtype)
+            first[side] = np.clip(lo_q - margin, 1, k)
+            wid[side] = np.minimum(hi_q + margin, k) - first[side] + 1
+        total = wid["low"].sum() + wid["high"].sum()
+        if total > WINDOW_CELLS:                      # keep the histogram bounded; misses go to the fallback
+            for side in wid:
+                wid[side] = np.maximum(1, (wid[side] * (WINDOW_CELLS / total)).astype(np.int64))
+        s1, e1 = first["low"], first["low"] + wid["low"]
+        s2, e2 = first["high"], first["high"] + wid["high"]
+        apart = s2 >= e1                              # window 2 starts after window 1 ends
+        u0, u1 = np.where(apart, s1, np.minimum(s1, s2)), np.where(apart, e1, np.maximum(e1, e2))
+        w1 = u1 - u0
+        lo1, hi1 = u0 - 1, u1                         # clip(r, lo1, hi1) - lo1: 0 below, 1..w1, w1 + 1 above
+        lo2 = np.where(apart, s2 - 1, 0)
+        hi2 = np.where(apart, e2, 0)                  # merged: clip(r, 0, 0) = 0, no cells of its own
+        size = (w1 + 2) + (hi2 - lo2)
+        base = np.concatenate([[0], np.cumsum(size)[:-1]])
+        hist = np.zeros(int(size.sum()), np.int32)    # counts <= draws
+        ends = np.searchsorted(np.cumsum(size), np.arange(1, 1 + hist.size // BLOCK_CELLS) * BLOCK_CELLS)
+        cuts = np.unique(np.concatenate([[0], np.minimum(ends + 1, k), [k]]))
+        dt = ranks.dtype
+        win = {"base": base, "size": size, "blocks": list(zip(cuts[:-1].tolist(), cuts[1:].tolist())),
+               "lo1": lo1.astype(dt), "hi1": hi1.astype(dt), "lo2": lo2.astype(dt), "hi2": hi2.astype(dt),
+               "key0": (base - lo1 - lo2).astype(dt),
+               # per side: first rank of its window, its width and its first cell in the segment
+               "start": {"low": u0, "high": np.where(apart, s2, u0)},
+               "wid": {"low": w1, "high": np.where(apart, e2 - s2, w1)},
+               "off": {"low": np.ones(k, np.int64), "high": np.where(apart, w1 + 2, 1)}}
 
     lock = threading.Lock()
 
     def count(ranks):
-        """Fold one chunk's ranks into the shared banded histograms (the bincounts run unlocked)."""
-        for side in ("low", "high"):
-            key = np.clip(ranks, lo_idx[side], hi_idx[side])
-            key += key0[side]
-            # column blocks: candidate c's cells are hist[base[c]:base[c] + w[c] + 2], so a block of
-            # columns has its own slice and the bincount temporary stays a block's size
-            for c0, c1 in col_blocks[side]:
-                h0, h1 = int(base[side][c0]), int(base[side][c1 - 1] + wid[side][c1 - 1] + 2)
-                add = np.bincount((key[:, c0:c1] - h0).ravel(), minlength=h1 - h0)
-                with lock:
-                    hist[side][h0:h1] += add
-            del key
+        """Fold one chunk's ranks into the shared histogram (the bincounts run unlocked)."""
+        key = np.clip(ranks, win["lo1"], win["hi1"])
+        key += np.clip(ranks, win["lo2"], win["hi2"])
+        key += win["key0"]
+        # column blocks: candidate c's cells are hist[base[c]:base[c] + size[c]], so a block of
+        # columns has its own slice and the bincount temporary stays a block's size
+        base, size = win["base"], win["size"]
+        for c0, c1 in win["blocks"]:
+            h0, h1 = int(base[c0]), int(base[c1 - 1] + size[c1 - 1])
+            add = np.bincount((key[:, c0:c1] - h0).ravel(), minlength=h1 - h0)
+            with lock:
+                hist[h0:h1] += add
+        del key
 
     def ranked_chunk(chunk):
         d, ss = chunk
         score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
-        order = np.argsort(-score, axis=1)            # ties between continuous draws have probability 0
+        order = _order_desc(score)                    # ties between continuous draws have probability 0
         ranks = _ranks_from_order(order)
-        top_c = np.count_nonzero(ranks <= top_k, axis=0)
+        top_c = np.bincount(order[:, :top_k].ravel(), minlength=k)
         best_c = np.bincount(order[:, 0], minlength=k)
         beats_c = (np.count_nonzero(score > score[:, [ref_pos]], axis=0) if ref_pos is not None
                    else np.zeros(k, np.int64))
         return ranks, top_c, best_c, beats_c
 
-    def run_share(my_chunks):
-        """Fold a share of the chunks into the counts (one share per worker thread)."""
-        acc = np.zeros((3, k), np.int64)
-        for chunk in my_chunks:
-            ranks, t_c, b_c, r_c = ranked_chunk(chunk)
-            acc[0] += t_c
-            acc[1] += b_c
-            acc[2] += r_c
-            count(ranks)
-            del ranks
-        return acc
+    windows_ready = threading.Event()
 
-    # the first chunks (at least pilot_rows draws) place the rank windows; the rest are folded in
-    # by worker threads (numpy's generators, sorts and ufuncs release the GIL), each chunk from its
-    # own seed, so the result does not depend on the number of threads
+    def task(chunk, pilot: bool):
+        """Draw, rank and count one chunk; a pilot chunk hands its ranks back for the windows, any
+        other waits until the windows are placed and folds its ranks into the histograms."""
+        ranks, t_c, b_c, r_c = ranked_chunk(chunk)
+        if not pilot:
+            windows_ready.wait()
+            if win is not None:                      # None: placing the windows failed (raised)
+                count(ranks)
+            ranks = None
+        return ranks, t_c, b_c, r_c
+
+    # the first chunks (at least pilot_rows draws) place the rank windows. Every chunk is a task of
+    # the worker threads (numpy's generators, sorts and ufuncs release the GIL), taken in order, so
+    # the workers draw and rank the next chunks while this thread places the windows and counts
+    # the pilot; each chunk has its own seed, so the result does not depend on the threads
     n_first = 0
     while n_first < len(chunks) and sum(c[0] for c in chunks[:n_first]) < pilot_rows:
         n_first += 1
-    with _executor(n_first) as pool:
-        firsts = list(pool.map(ranked_chunk, chunks[:n_first]))
-    kept = np.concatenate([f[0] for f in firsts])
-    for f in firsts:
-        top += f[1]
-        best += f[2]
-        beats += f[3]
-    place_windows(kept)
-    count(kept)
-    del kept, firsts
-    rest = chunks[n_first:]
-    n_workers = _n_workers(len(rest))
-    with _executor(n_workers) as pool:
-        for acc in pool.map(run_share, [rest[i::n_workers] for i in range(n_workers)]):
-            top += acc[0]
-            best += acc[1]
-            beats += acc[2]
+    with _executor(len(chunks)) as pool:
+        futures = [pool.submit(task, c, i < n_first) for i, c in enumerate(chunks)]
+        try:
+            firsts = [f.result() for f in futures[:n_first]]
+            kept = np.concatenate([f[0] for f in firsts])
+            place_windows(kept)
+        finally:
+            windows_ready.set()                      # never leave a worker waiting
+        count(kept)
+        del kept
+        for f in firsts + [f.result() for f in futures[n_first:]]:
+            top += f[1]
+            best += f[2]
+            beats += f[3]
+        del firsts, futures
 
     unresolved = np.zeros(k, bool)
-    for side in ("low", "high"):
-        short = np.zeros(k, np.int64)
-        for c0, c1 in col_blocks[side]:              # block by block: temporaries stay a block's size
-            w, b = wid[side][c0:c1], base[side][c0:c1]
-            h0 = int(b[0])
-            cells = hist[side][h0:int(b[-1] + w[-1] + 2)]
-            b = b - h0
-            seg = np.repeat(np.arange(c1 - c0), w + 2)   # candidate of each cell
-            pos = np.arange(cells.size) - b[seg]         # 0 = below the window, w + 1 = above it
-            cs = np.cumsum(cells)
-            within = cs - (cs[b] - cells[b])[seg]        # draws with rank <= this cell's rank
+    short = {"low": np.zeros(k, np.int64), "high": np.zeros(k, np.int64)}
+    below = {"low": np.zeros(k, np.int64), "high": np.zeros(k, np.int64)}
+    for c0, c1 in win["blocks"]:                     # block by block: temporaries stay a block's size
+        size, b = win["size"][c0:c1], win["base"][c0:c1]
+        h0 = int(b[0])
+        cells = hist[h0:int(b[-1] + size[-1])]
+        b = b - h0
+        seg = np.repeat(np.arange(c1 - c0), size)    # candidate of each cell
+        pos = np.arange(cells.size) - b[seg]         # cell within the candidate's segment
+        cs = np.cumsum(cells, dtype=np.int64)
+        within = cs - (cs[b] - cells[b])[seg]        # draws with rank <= this cell's rank
+        for side in ("low", "high"):
+            o, w = win["off"][side][c0:c1], win["wid"][side][c0:c1]
+            in_win = (pos >= o[seg]) & (pos < (o + w)[seg])
             # window ranks still below the order statistic
-            short[c0:c1] = np.bincount(seg, weights=((within < need[side]) & (pos >= 1) & (pos <= w[seg])),
-                                       minlength=c1 - c0).astype(np.int64)
-        first_cells = hist[side][base[side]]
-        ok = (first_cells < need[side]) & (short < wid[side])
-        out[f"rank_{side}"][perm] = np.where(ok, start[side] + short, 0)
+            short[side][c0:c1] = np.bincount(seg, weights=in_win & (within < need[side]),
+                                             minlength=c1 - c0).astype(np.int64)
+            below[side][c0:c1] = within[b + o - 1]   # draws ranked before the window
+    for side in ("low", "high"):
+        ok = (below[side] < need[side]) & (short[side] < win["wid"][side])
+        out[f"rank_{side}"][perm] = np.where(ok, win["start"][side] + short[side], 0)
         unresolved |= ~ok
     if unresolved.any():                             # exact fallback: ranks of those columns only
         todo = np.flatnonzero(unresolved)
@@ -556,7 +641,7 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
             row = 0
             for d, ss in chunks:
                 score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
-                kept[row:row + d] = _ranks_from_order(np.argsort(-score, axis=1))[:, sel]
+                kept[row:row + d] = _ranks_from_order(_order_desc(score))[:, sel]
                 row += d
             for side, q in (("low", alpha), ("high", 1 - alpha)):
                 out[f"rank_{side}"][perm[sel]] = np.quantile(kept, q, axis=0, method="inverted_cdf")
