@@ -292,8 +292,9 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
 CHUNK_CELLS = 1 << 21
 #: cells of the banded rank histograms (candidates x window, int32) used for the rank intervals
 WINDOW_CELLS = 1 << 24
-#: histogram cells updated per bincount (bounds its temporary)
-BLOCK_CELLS = 1 << 21
+#: histogram cells updated per bincount: bounds its temporary, and keeps it within a core's L2 cache
+#: (scattered increments into a larger one miss the cache: 25 % more CPU at 11,000 candidates)
+BLOCK_CELLS = 1 << 17
 #: ranks kept in memory at once when a rank quantile falls outside its window (draws x candidates)
 FALLBACK_CELLS = 1 << 24
 #: draws whose ranks place the rank-histogram windows (kept in memory up to FALLBACK_CELLS ranks)
