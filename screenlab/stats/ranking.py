@@ -610,28 +610,21 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
             beats += f[3]
         del firsts, futures
 
+    # read-out: within a candidate's segment the cumulative counts rise, so the window ranks still
+    # below the order statistic are a prefix of the window, found by one binary search in the
+    # cumulative counts of the whole histogram
     unresolved = np.zeros(k, bool)
-    short = {"low": np.zeros(k, np.int64), "high": np.zeros(k, np.int64)}
-    below = {"low": np.zeros(k, np.int64), "high": np.zeros(k, np.int64)}
-    for c0, c1 in win["blocks"]:                     # block by block: temporaries stay a block's size
-        size, b = win["size"][c0:c1], win["base"][c0:c1]
-        h0 = int(b[0])
-        cells = hist[h0:int(b[-1] + size[-1])]
-        b = b - h0
-        seg = np.repeat(np.arange(c1 - c0), size)    # candidate of each cell
-        pos = np.arange(cells.size) - b[seg]         # cell within the candidate's segment
-        cs = np.cumsum(cells, dtype=np.int64)
-        within = cs - (cs[b] - cells[b])[seg]        # draws with rank <= this cell's rank
-        for side in ("low", "high"):
-            o, w = win["off"][side][c0:c1], win["wid"][side][c0:c1]
-            in_win = (pos >= o[seg]) & (pos < (o + w)[seg])
-            # window ranks still below the order statistic
-            short[side][c0:c1] = np.bincount(seg, weights=in_win & (within < need[side]),
-                                             minlength=c1 - c0).astype(np.int64)
-            below[side][c0:c1] = within[b + o - 1]   # draws ranked before the window
+    cs = np.cumsum(hist, dtype=np.int64)
+    seg0 = win["base"]
+    before = cs[seg0] - hist[seg0]                   # draws counted in all earlier segments
     for side in ("low", "high"):
-        ok = (below[side] < need[side]) & (short[side] < win["wid"][side])
-        out[f"rank_{side}"][perm] = np.where(ok, win["start"][side] + short[side], 0)
+        first_cell = seg0 + win["off"][side]
+        w = win["wid"][side]
+        below = cs[first_cell - 1] - before          # draws ranked before the window
+        reach = np.searchsorted(cs, before + need[side], side="left")   # first cell reaching the count
+        short = np.clip(reach - first_cell, 0, w)    # window ranks still below the order statistic
+        ok = (below < need[side]) & (short < w)
+        out[f"rank_{side}"][perm] = np.where(ok, win["start"][side] + short, 0)
         unresolved |= ~ok
     if unresolved.any():                             # exact fallback: ranks of those columns only
         todo = np.flatnonzero(unresolved)
