@@ -1068,7 +1068,7 @@ class Store:
                 m.volume_unit, m.analyte_main, list(m.byproducts), None if m.enantiomers is None else list(m.enantiomers),
                 json.dumps(m.analysis, default=str), json.dumps(_manifest_dict(m)), m.source_toml,
                 list(factor_names), json.dumps(schema)])
-            _bulk_insert(con, "catalysts", _tagged(catalysts, **tag))
+            _bulk_insert(con, "catalysts", _Tagged(_arrow(catalysts), **tag))
         if changed:
             names = pd.DataFrame({"plate": pd.array(changed, dtype="string")})
             con.register("incoming_plate_names", names)
@@ -1077,11 +1077,11 @@ class Store:
             finally:
                 con.unregister("incoming_plate_names")
         for table in ("wells", "well_factors", "readings"):
-            _bulk_insert(con, table, _tag(out[table], **tag))
+            _bulk_insert(con, table, _Tagged(out[table], **tag))
         fps = fingerprints() if fps is None else fps
         plates = rows(prep.plates).merge(fps[["plate", "fp"]], on="plate", how="left").rename(
             columns={"fp": "fingerprint"})
-        _bulk_insert(con, "plates", _tagged(plates, **tag))
+        _bulk_insert(con, "plates", _Tagged(_arrow(plates), **tag))
         from screenlab import __version__
 
         lib = con.execute(Q.LIBRARY_VERSION).fetchall()[0][0]
@@ -1143,25 +1143,27 @@ def _arrow(frame: pd.DataFrame) -> pa.Table:
     return pa.table(cols) if cols else pa.Table.from_pandas(frame, preserve_index=False)
 
 
-def _tagged(frame: pd.DataFrame, *, campaign: str, import_id: int) -> pa.Table:
-    return _tag(_arrow(frame), campaign=campaign, import_id=import_id)
+@dataclass(frozen=True)
+class _Tagged:
+    """The rows of one table of an import and the campaign and import id they are stored under:
+    one value each for every row, given to the INSERT as parameters (no per-row column is built)."""
+
+    rows: pa.Table
+    campaign: str
+    import_id: int
 
 
-def _tag(table: pa.Table, *, campaign: str, import_id: int) -> pa.Table:
-    """``table`` plus the constant ``campaign`` and ``import_id`` columns (built in Arrow, not as
-    per-row Python values)."""
-    n = table.num_rows
-    return (table.append_column("campaign", pa.array([campaign], pa.large_string()).take(
-                pa.array(np.zeros(n, dtype=np.int32))))
-            .append_column("import_id", pa.array(np.full(n, import_id, dtype=np.int64))))
-
-
-def _bulk_insert(con, table: str, rows: pa.Table | pd.DataFrame) -> None:
+def _bulk_insert(con, table: str, rows: pa.Table | pd.DataFrame | _Tagged) -> None:
     """INSERT ... SELECT from the rows as one Arrow table of one record batch (one statement per
-    table, never row by row).
+    table, never row by row); :class:`_Tagged` rows give the statement its ``$campaign`` and
+    ``$import_id`` parameters.
 
     Arrow lets DuckDB scan the columns zero-copy; scanning pandas text columns directly costs
     several times more at campaign scale."""
+    params = None
+    if isinstance(rows, _Tagged):
+        params = {"campaign": rows.campaign, "import_id": rows.import_id}
+        rows = rows.rows
     data = rows if isinstance(rows, pa.Table) else pa.Table.from_pandas(rows, preserve_index=False)
     if data.num_rows == 0:
         return
@@ -1171,6 +1173,6 @@ def _bulk_insert(con, table: str, rows: pa.Table | pd.DataFrame) -> None:
     view = f"incoming_{table}"
     con.register(view, data)
     try:
-        con.execute(Q.BULK_INSERT[table])
+        con.execute(Q.BULK_INSERT[table], params)
     finally:
         con.unregister(view)

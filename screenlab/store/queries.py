@@ -136,7 +136,10 @@ INSERT_HEADER = """
 INSERT INTO campaigns VALUES (?, ?, NULL, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?::VARCHAR[], ?::VARCHAR[],
                               ?, ?, ?, ?::VARCHAR[], ?)"""
 
-#: bulk inserts: table name -> INSERT ... SELECT from the registered frame ``incoming_<table>``
+#: bulk inserts: table name -> INSERT ... SELECT from the registered frame ``incoming_<table>``.
+#: The campaign and import id, the same on every row of one import, are the parameters
+#: ``$campaign`` and ``$import_id`` (not columns of the frame, which would repeat them per row);
+#: import_files has no campaign column and takes its import id from the frame.
 BULK_INSERT = {
     "import_files": """
 INSERT INTO import_files (import_id, seq, name, sha256, n_rows)
@@ -144,22 +147,22 @@ SELECT import_id, seq, name, sha256, n_rows FROM incoming_import_files""",
     "catalysts": """
 INSERT INTO catalysts (campaign, import_id, seq, catalyst, name, family, molar_mass_g_mol, sites_per_unit,
                        metal_wt_pct, metal_molar_mass_g_mol, dispersion)
-SELECT campaign, import_id, seq, catalyst, name, family, molar_mass_g_mol, sites_per_unit,
+SELECT $campaign::VARCHAR, $import_id::BIGINT, seq, catalyst, name, family, molar_mass_g_mol, sites_per_unit,
        metal_wt_pct, metal_molar_mass_g_mol, dispersion FROM incoming_catalysts""",
     "plates": """
 INSERT INTO plates (campaign, plate, import_id, superseded_by, seq, fingerprint, format, n_rows, n_cols,
                     temperature_c, run_date, notes)
-SELECT campaign, plate, import_id, NULL, seq, fingerprint, format, n_rows, n_cols, temperature_c,
+SELECT $campaign::VARCHAR, plate, $import_id::BIGINT, NULL, seq, fingerprint, format, n_rows, n_cols, temperature_c,
        run_date, notes FROM incoming_plates""",
     "wells": """
 INSERT INTO wells (campaign, plate, import_id, seq, well, "row", col, role, catalyst, loading, loading_unit,
                    substrate_conc_mM, volume_uL, temperature_c)
-SELECT campaign, plate, import_id, seq, well, "row", col, role, catalyst, loading, loading_unit,
+SELECT $campaign::VARCHAR, plate, $import_id::BIGINT, seq, well, "row", col, role, catalyst, loading, loading_unit,
        substrate_conc_mM, volume_uL, temperature_c FROM incoming_wells""",
     "well_factors": """
 INSERT INTO well_factors (campaign, plate, import_id, seq, well, factor, value)
-SELECT campaign, plate, import_id, seq, well, factor, value FROM incoming_well_factors""",
+SELECT $campaign::VARCHAR, plate, $import_id::BIGINT, seq, well, factor, value FROM incoming_well_factors""",
     "readings": """
 INSERT INTO readings (campaign, plate, import_id, seq, well, analyte, time_h, value)
-SELECT campaign, plate, import_id, seq, well, analyte, time_h, value FROM incoming_readings""",
+SELECT $campaign::VARCHAR, plate, $import_id::BIGINT, seq, well, analyte, time_h, value FROM incoming_readings""",
 }
