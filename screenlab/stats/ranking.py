@@ -544,24 +544,40 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
                # per side: first rank of its window, its width and its first cell in the segment
                "start": {"low": u0, "high": np.where(apart, s2, u0)},
                "wid": {"low": w1, "high": np.where(apart, e2 - s2, w1)},
-               "off": {"low": np.ones(k, np.int64), "high": np.where(apart, w1 + 2, 1)}}
+               "off": {"low": np.ones(k, np.int64), "high": np.where(apart, w1 + 2, 1)},
+               "flush": -(-hist.size // k)}        # draws per count: at least the histogram's cells
 
     lock = threading.Lock()
+    pending: list[np.ndarray] = []                   # ranked chunks waiting to be counted
 
-    def count(ranks):
-        """Fold one chunk's ranks into the shared histogram (the bincounts run unlocked)."""
-        key = np.clip(ranks, win["lo1"], win["hi1"])
-        key += np.clip(ranks, win["lo2"], win["hi2"])
-        key += win["key0"]
-        # column blocks: candidate c's cells are hist[base[c]:base[c] + size[c]], so a block of
-        # columns has its own slice and the bincount temporary stays a block's size
+    def count(batch: list[np.ndarray]):
+        """Fold ranked chunks into the shared histogram, one block of columns at a time (the
+        bincounts run unlocked; candidate c's cells are hist[base[c]:base[c] + size[c]], so a block
+        of columns has its own slice and the bincount temporary stays a block's size)."""
         base, size = win["base"], win["size"]
         for c0, c1 in win["blocks"]:
             h0, h1 = int(base[c0]), int(base[c1 - 1] + size[c1 - 1])
-            add = np.bincount((key[:, c0:c1] - h0).ravel(), minlength=h1 - h0)
+            cols = batch[0][:, c0:c1] if len(batch) == 1 else np.concatenate([r[:, c0:c1] for r in batch])
+            key = np.clip(cols, win["lo1"][c0:c1], win["hi1"][c0:c1])
+            key += np.clip(cols, win["lo2"][c0:c1], win["hi2"][c0:c1])
+            key += win["key0"][c0:c1] - h0
+            add = np.bincount(key.ravel(), minlength=h1 - h0)
             with lock:
                 hist[h0:h1] += add
-        del key
+
+    def fold(ranks: np.ndarray):
+        """Queue a ranked chunk; count the queue once it holds at least ``win["flush"]`` draws.
+
+        Adding a bincount into the histogram touches every cell of it, so the draws are counted in
+        batches at least as large as the histogram: that work then grows with the draws x
+        candidates, not with the chunks x histogram (which grows as candidates^3)."""
+        with lock:
+            pending.append(ranks)
+            if sum(len(r) for r in pending) < win["flush"]:
+                return
+            batch = pending[:]
+            pending.clear()
+        count(batch)
 
     def ranked_chunk(chunk):
         d, ss = chunk
@@ -583,7 +599,7 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         if not pilot:
             windows_ready.wait()
             if win is not None:                      # None: placing the windows failed (raised)
-                count(ranks)
+                fold(ranks)
             ranks = None
         return ranks, t_c, b_c, r_c
 
@@ -602,19 +618,22 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
             place_windows(kept)
         finally:
             windows_ready.set()                      # never leave a worker waiting
-        count(kept)
+        count([kept])
         del kept
         for f in firsts + [f.result() for f in futures[n_first:]]:
             top += f[1]
             best += f[2]
             beats += f[3]
         del firsts, futures
+    if pending:                                      # the last, partial batch
+        count(pending)
+        pending.clear()
 
     # read-out: within a candidate's segment the cumulative counts rise, so the window ranks still
     # below the order statistic are a prefix of the window, found by one binary search in the
     # cumulative counts of the whole histogram
     unresolved = np.zeros(k, bool)
-    cs = np.cumsum(hist, dtype=np.int64)
+    cs = np.cumsum(hist.astype(np.int64))          # (cumsum with dtype= is ten times slower)
     seg0 = win["base"]
     before = cs[seg0] - hist[seg0]                   # draws counted in all earlier segments
     for side in ("low", "high"):
