@@ -124,14 +124,23 @@ def _tq(confidence: float, df) -> np.ndarray:
 
 
 def _merge_codes(*cols) -> list[str]:
-    """Element-wise union of ';'-joined flag strings, order kept, no repeats."""
+    """Element-wise union of ';'-joined flag strings, order kept, no repeats.
+
+    Columns are turned into Python lists once (iterating Arrow-backed text element by element is
+    slow); a row with one non-empty part that holds one code is that code, without splitting."""
+    lists = [c.tolist() if hasattr(c, "tolist") else list(c) for c in cols]
     out = []
-    for parts in zip(*cols):
-        codes = []
-        for p in parts:
-            if isinstance(p, str) and p:
+    for parts in zip(*lists):
+        filled = [p for p in parts if isinstance(p, str) and p]
+        if not filled:
+            out.append("")
+        elif len(filled) == 1 and ";" not in filled[0]:
+            out.append(filled[0])
+        else:
+            codes = []
+            for p in filled:
                 codes.extend(c for c in p.split(";") if c)
-        out.append(";".join(dict.fromkeys(codes)))
+            out.append(";".join(dict.fromkeys(codes)))
     return out
 
 
@@ -149,23 +158,33 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
 
     ``plates_used`` maps catalyst -> ';'-joined plates behind its estimate (the rates row's
     ``plates``); catalysts not in it use every plate they have wells on (Arrhenius-based metrics).
+    ``plate_flags`` is the union of the plates' flags (``failed`` left out) in the order of the
+    catalyst's plates, each code once.
     """
-    w = kin.wells
-    w = w[w["catalyst"].notna() & w["role"].astype(str).isin(["sample", "reference"])]
+    w = kin.wells[["catalyst", "plate", "role"]]    # the columns first: filtering every column is slow
+    role = w["role"].astype(str)
+    w = w[w["catalyst"].notna() & ((role == "sample") | (role == "reference"))]
     cp = w[["catalyst", "plate"]].astype(str).drop_duplicates()
     if plates_used is not None and len(plates_used):
         used = plates_used.dropna().astype(str).str.split(";").explode().rename("plate").reset_index()
         used.columns = ["catalyst", "plate"]
-        cp = pd.concat([cp[~cp["catalyst"].isin(used["catalyst"])], used], ignore_index=True)
+        not_used = pd.Index(used["catalyst"].unique()).get_indexer(cp["catalyst"]) < 0   # (isin is slower)
+        cp = pd.concat([cp[not_used], used], ignore_index=True)
     if quality is None or quality.empty:
         return pd.DataFrame({"catalyst": cp["catalyst"].unique(), "all_failed": False, "any_failed": False,
                              "plate_flags": ""})
-    q = quality.assign(plate=quality["plate"].astype(str)).set_index("plate")
+    q = quality.assign(plate=quality["plate"].astype(str)).drop_duplicates("plate").set_index("plate")
+    cp = cp.reset_index(drop=True)
     cp = cp.assign(failed=cp["plate"].map(q["status"]).eq("failed").to_numpy(),
                    pf=cp["plate"].map(q["flags"]).fillna("").astype(str).to_numpy())
     cp = cp.assign(pf=cp["pf"].str.replace(r"(^|;)failed(?=;|$)", r"\1", regex=True).str.strip(";"))
-    agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"),
-                                     plate_flags=("pf", lambda s: ";".join(_merge_codes(*[[x] for x in s]))))
+    agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"))
+    # flags: only the (few) rows that carry any, split into codes, first occurrence per catalyst
+    codes = cp.loc[cp["pf"] != "", ["catalyst", "pf"]]
+    codes = codes.assign(pf=codes["pf"].str.split(";")).explode("pf")
+    codes = codes[codes["pf"].notna() & (codes["pf"] != "")].drop_duplicates()
+    joined = codes.groupby("catalyst", sort=False)["pf"].agg(";".join)
+    agg["plate_flags"] = joined.reindex(agg.index).fillna("").astype(str)
     return agg.reset_index()
 
 
@@ -185,9 +204,9 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
         at_temperature_c = float(getattr(settings, "reference_temperature_c", 60.0))
     roles = _roles(kin)
     arr = kin.arrhenius if kin.arrhenius is not None else pd.DataFrame()
-    names = set(roles.index)
+    names = set(roles.index.tolist())             # (tolist: iterating Arrow text is slow)
     if len(arr):
-        names |= set(arr["catalyst"].astype(str)) - {UNCATALYSED}
+        names |= set(arr["catalyst"].astype(str).tolist()) - {UNCATALYSED}
     base = pd.DataFrame({"catalyst": sorted(names)})
     base["role"] = base["catalyst"].map(roles).fillna("sample")
     if catalysts is not None and "family" in catalysts:
@@ -213,7 +232,7 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
         if m.predict and len(arr):
             from screenlab.kinetics.arrhenius import predict_tof
 
-            missing = arr[arr["catalyst"].astype(str).isin(set(base["catalyst"]) - set(src["catalyst"]))]
+            missing = arr[arr["catalyst"].astype(str).isin(set(base["catalyst"].tolist()) - set(src["catalyst"].tolist()))]
             if len(missing):
                 p = predict_tof(missing, at_temperature_c, confidence)
                 mi = missing.reset_index(drop=True)
