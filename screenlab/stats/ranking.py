@@ -368,10 +368,10 @@ def draw_matrix(mu, sigma, df, draws: int, rng: np.random.Generator) -> np.ndarr
     return z
 
 
-def _order_desc(score: np.ndarray) -> np.ndarray:
+def _order_desc(score: np.ndarray, overwrite: bool = False) -> np.ndarray:
     """Per row of a float32 ``score`` matrix, the columns from the highest score to the lowest (ties
     by column), as ``np.argsort(-score, axis=1, kind="stable")`` gives them; int32, possibly a
-    strided view.
+    strided view. ``overwrite``: ``score`` may be used as scratch space (its values are lost).
 
     One sort of 64-bit keys instead of an argsort: the high word of each key is the score's bit
     pattern mapped to a signed integer of the same order as the negated score (IEEE 754 floats of
@@ -383,27 +383,31 @@ def _order_desc(score: np.ndarray) -> np.ndarray:
     d, k = score.shape
     if k >= 2 ** 31:
         return np.argsort(-score, axis=1, kind="stable")
-    neg = np.subtract(np.float32(0.0), score, dtype=np.float32)   # -score, and -0.0 -> +0.0
+    neg = score if overwrite else np.empty_like(score, dtype=np.float32)
+    np.subtract(np.float32(0.0), score, out=neg)     # -score, and -0.0 -> +0.0
     bits = neg.view(np.int32)
-    flip = np.right_shift(bits, 31)                   # -1 for negative values, 0 otherwise
-    np.bitwise_and(flip, np.int32(0x7FFFFFFF), out=flip)
     key = np.empty((d, k), dtype=np.int64)
     words = key.view(np.int32).reshape(d, k, 2)       # little- or big-endian: pick the words
     hi, lo = (1, 0) if np.little_endian else (0, 1)
-    np.bitwise_xor(bits, flip, out=words[:, :, hi])   # order-preserving signed integer of -score
-    del neg, bits, flip
+    high = words[:, :, hi]                            # built in place: no temporaries
+    np.right_shift(bits, 31, out=high)                # -1 for negative values, 0 otherwise
+    np.bitwise_and(high, np.int32(0x7FFFFFFF), out=high)
+    np.bitwise_xor(high, bits, out=high)              # order-preserving signed integer of -score
+    del neg, bits
     words[:, :, lo] = np.arange(k, dtype=np.int32)
     key.sort(axis=1)
     return words[:, :, lo]
 
 
-def _ranks_from_order(order: np.ndarray) -> np.ndarray:
-    """Inverse of each row of ``order``: ranks[r, order[r, p]] = p + 1."""
+def _ranks_from_order(order: np.ndarray, overwrite: bool = False) -> np.ndarray:
+    """Inverse of each row of ``order``: ranks[r, order[r, p]] = p + 1. ``overwrite``: ``order``
+    may be used as scratch space (its values are lost)."""
     d, k = order.shape
     dtype = np.int32 if k < 2 ** 31 - 1 else np.int64
     ranks = np.empty(d * k, dtype=dtype)
-    flat = order.astype(np.int64 if d * k >= 2 ** 31 else dtype, copy=True)
-    flat += (np.arange(d, dtype=flat.dtype) * k)[:, None]
+    idx = np.int64 if d * k >= 2 ** 31 else dtype
+    flat = order if overwrite and order.dtype == idx else order.astype(idx, copy=True)
+    flat += (np.arange(d, dtype=idx) * k)[:, None]
     ranks[flat] = np.arange(1, k + 1, dtype=dtype)    # one scatter into the flat matrix
     return ranks.reshape(d, k)
 
@@ -518,7 +522,7 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
 
     pilot_rows = min(draws, max(PILOT_DRAWS, 1), max(1, FALLBACK_CELLS // k))
 
-    def place_windows(ranks):
+    def place_windows(pilot: list[np.ndarray]):
         """One banded rank histogram per candidate holding both rank windows.
 
         Each side (low, high quantile) gets a window of ranks [start, start + w) around the pilot's
@@ -529,13 +533,15 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         both sides then read.
         """
         nonlocal win, hist
-        spread = 4 * np.sqrt(alpha * (1 - alpha) / len(ranks))
-        by_col = np.sort(ranks.T, axis=1)             # each candidate's pilot ranks, sorted
+        n_pilot = sum(len(r) for r in pilot)
+        spread = 4 * np.sqrt(alpha * (1 - alpha) / n_pilot)
+        by_col = np.concatenate([r.T for r in pilot], axis=1)     # each candidate's pilot ranks
+        by_col.sort(axis=1)
         first, wid = {}, {}
         for side, q in (("low", alpha), ("high", 1 - alpha)):
             # np.quantile(ranks, q -/+ spread, axis=0, method="inverted_cdf"), read off the sorted ranks
-            lo_q = by_col[:, _order_stat_index(len(ranks), max(0.0, q - spread))].astype(np.int64)
-            hi_q = by_col[:, _order_stat_index(len(ranks), min(1.0, q + spread))].astype(np.int64)
+            lo_q = by_col[:, _order_stat_index(n_pilot, max(0.0, q - spread))].astype(np.int64)
+            hi_q = by_col[:, _order_stat_index(n_pilot, min(1.0, q + spread))].astype(np.int64)
             margin = 8 + (hi_q - lo_q) // 4
             first[side] = np.clip(lo_q - margin, 1, k)
             wid[side] = np.minimum(hi_q + margin, k) - first[side] + 1
@@ -556,7 +562,8 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         hist = np.zeros(int(size.sum()), np.int32)    # counts <= draws
         ends = np.searchsorted(np.cumsum(size), np.arange(1, 1 + hist.size // BLOCK_CELLS) * BLOCK_CELLS)
         cuts = np.unique(np.concatenate([[0], np.minimum(ends + 1, k), [k]]))
-        dt = ranks.dtype
+        del by_col
+        dt = pilot[0].dtype
         win = {"base": base, "size": size, "blocks": list(zip(cuts[:-1].tolist(), cuts[1:].tolist())),
                "lo1": lo1.astype(dt), "hi1": hi1.astype(dt), "lo2": lo2.astype(dt), "hi2": hi2.astype(dt),
                "key0": (base - lo1 - lo2).astype(dt),
@@ -601,12 +608,13 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     def ranked_chunk(chunk):
         d, ss = chunk
         score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
-        order = _order_desc(score)                    # ties between continuous draws have probability 0
-        ranks = _ranks_from_order(order)
-        top_c = np.bincount(order[:, :top_k].ravel(), minlength=k)
-        best_c = np.bincount(order[:, 0], minlength=k)
         beats_c = (np.count_nonzero(score > score[:, [ref_pos]], axis=0) if ref_pos is not None
                    else np.zeros(k, np.int64))
+        order = _order_desc(score, overwrite=True)    # ties between continuous draws have probability 0
+        del score
+        top_c = np.bincount(order[:, :top_k].ravel(), minlength=k)
+        best_c = np.bincount(order[:, 0], minlength=k)
+        ranks = _ranks_from_order(order, overwrite=True)
         return ranks, top_c, best_c, beats_c
 
     windows_ready = threading.Event()
@@ -633,12 +641,10 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         futures = [pool.submit(task, c, i < n_first) for i, c in enumerate(chunks)]
         try:
             firsts = [f.result() for f in futures[:n_first]]
-            kept = np.concatenate([f[0] for f in firsts])
-            place_windows(kept)
+            place_windows([f[0] for f in firsts])
         finally:
             windows_ready.set()                      # never leave a worker waiting
-        count([kept])
-        del kept
+        count([f[0] for f in firsts])
         for f in firsts + [f.result() for f in futures[n_first:]]:
             top += f[1]
             best += f[2]
@@ -652,7 +658,9 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     # below the order statistic are a prefix of the window, found by one binary search in the
     # cumulative counts of the whole histogram
     unresolved = np.zeros(k, bool)
-    cs = np.cumsum(hist.astype(np.int64))          # (cumsum with dtype= is ten times slower)
+    # all cells hold k x draws counts in all; int32 when that fits (add.accumulate: np.cumsum with
+    # a dtype takes a far slower path)
+    cs = np.add.accumulate(hist, dtype=np.int32) if k * draws < 2 ** 31 else np.cumsum(hist.astype(np.int64))
     seg0 = win["base"]
     before = cs[seg0] - hist[seg0]                   # draws counted in all earlier segments
     for side in ("low", "high"):
