@@ -96,6 +96,26 @@ def test_point_dominance_matches_pairwise(monkeypatch, m):
         assert by[j] == ";".join(names[dom[:, j]][:4])
 
 
+@pytest.mark.parametrize("m", [2, 3])
+@pytest.mark.parametrize("k", [0, 1, 2, 17, 350])
+@pytest.mark.parametrize("cap", [1, 10])
+def test_point_dominance_matches_pairwise_continuous_and_mixed(monkeypatch, m, k, cap):
+    # the pairwise definition (R._dominance, checked against the plain loop elsewhere) as reference;
+    # continuous values, a block of exact duplicates, ties on one metric, several row blocks
+    rng = np.random.default_rng(k * 10 + m + cap)
+    monkeypatch.setattr(R, "CHUNK_CELLS", 2048)
+    pts = rng.normal(size=(k, m))
+    if k > 10:
+        pts[3:8] = pts[2]                                 # duplicates
+        pts[10:14, 0] = pts[9, 0]                         # ties on the first metric only
+        pts[rng.permutation(k)[:k // 3], 1] = 0.5         # ties on the second
+    names = np.array([f"N{i:04d}" for i in rng.permutation(k)], dtype=object)
+    cnt, by = R._point_dominance(pts, names, cap=cap)
+    dom = R._dominance(pts[None])[0] if k else np.zeros((0, 0), bool)
+    np.testing.assert_array_equal(cnt, dom.sum(axis=0))
+    assert list(by) == [";".join(names[dom[:, j]][:cap]) for j in range(k)]
+
+
 def test_order_desc_is_a_stable_argsort_of_the_negated_scores():
     # reference: numpy's stable argsort (ties in column order), the definition _order_desc documents
     rng = np.random.default_rng(11)
