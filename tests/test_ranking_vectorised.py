@@ -67,7 +67,7 @@ def _plain_front_share(params, draws, seed):
     return hits / draws
 
 
-@pytest.mark.parametrize("m", [2, 3])
+@pytest.mark.parametrize("m", [2, 3, 4])
 @pytest.mark.parametrize("case", range(3))
 def test_front_share_matches_pairwise(monkeypatch, m, case):
     rng = np.random.default_rng(200 + case)
@@ -76,7 +76,7 @@ def test_front_share_matches_pairwise(monkeypatch, m, case):
     base = rng.normal(0, 1, k)
     # correlated metrics (as TOF and enhancement are) give a small front and many prunable candidates
     params = [(base + rng.normal(0, s, k), rng.uniform(0.02, 0.5, k), rng.choice([2.5, 6.0, np.inf], k))
-              for s in (0.3, 1.0, 0.2)[:m]]
+              for s in (0.3, 1.0, 0.2, 0.6)[:m]]
     got = R.front_share(params, 400, seed=case)
     np.testing.assert_allclose(got, _plain_front_share(params, 400, case), rtol=0, atol=1e-12)
     assert (got * 400).sum() >= 400            # every draw has at least one candidate on its front
@@ -131,3 +131,13 @@ def test_order_desc_is_a_stable_argsort_of_the_negated_scores():
     np.testing.assert_array_equal(R._order_desc(score), expected)
     np.testing.assert_array_equal(R.rank_draws(score), R._ranks_from_order(expected))
     np.testing.assert_array_equal(R.rank_draws(score.astype(np.float64)), R._ranks_from_order(expected))
+
+
+@pytest.mark.parametrize("k", [1, 2, 63, 64, 65, 300])
+def test_front_3_matches_pairwise(k):
+    # heavy-tailed and correlated scores, k around the block size; reference: every pair (R._dominance)
+    rng = np.random.default_rng(k)
+    base = rng.standard_t(1.5, (40, k, 1))
+    cube = (base + rng.standard_t(2.0, (40, k, 3)) * [0.3, 1.0, 0.5]).astype(np.float32)
+    expected = ~R._dominance(cube).any(axis=1)
+    np.testing.assert_array_equal(R._front_3(cube), expected)
