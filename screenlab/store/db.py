@@ -21,8 +21,10 @@ Design
   sorted by well; readings sorted by well, analyte, time) is hashed with SHA-256 in three parts,
   so a re-import can tell "unchanged", "new" and "changed" apart and say *what* changed.
 * **Import speed.** Rows go to DuckDB as one Arrow table of one record batch per table (one
-  ``INSERT ... SELECT``). While the data is put in storage form, a worker thread opens the store;
-  while the rows are written, another computes the fingerprints (DuckDB runs without the GIL).
+  ``INSERT ... SELECT``); the campaign and import id, the same on every row, are parameters of
+  that statement, not columns of the table. While the data is put in storage form, a worker
+  thread opens the store; while the rows are written, another computes the fingerprints (DuckDB
+  runs without the GIL).
   An import of at least :data:`CHECKPOINT_READINGS` readings commits straight into the file.
 
 Schema migrations live in ``screenlab/store/migrations/NNN_name.sql`` and are applied in order,
