@@ -96,7 +96,7 @@ def test_point_dominance_matches_pairwise(monkeypatch, m):
         assert by[j] == ";".join(names[dom[:, j]][:4])
 
 
-@pytest.mark.parametrize("m", [2, 3])
+@pytest.mark.parametrize("m", [2, 3, 4])
 @pytest.mark.parametrize("k", [0, 1, 2, 17, 350])
 @pytest.mark.parametrize("cap", [1, 10])
 def test_point_dominance_matches_pairwise_continuous_and_mixed(monkeypatch, m, k, cap):

@@ -821,12 +821,13 @@ def _dominator_counts(pts: np.ndarray) -> np.ndarray:
     """Per row of ``pts`` (k x m, higher better): how many rows dominate it.
 
     Rows are sorted lexicographically, best first: a dominator (at least as good everywhere,
-    better somewhere) always sorts before the row it dominates, so only earlier rows are candidates.
-    Two metrics: the dominators of sorted row p are the earlier rows with metric 2 at least as
-    good, less the earlier exact duplicates (equal rows are neighbours); "earlier rows at least as
-    large" is counted in sqrt(k) blocks (binary searches against each earlier block's sorted
-    values, pairwise inside a block), O(k^1.5) in all. Three or more metrics: pairwise against the
-    earlier rows only, in blocks of :data:`CHUNK_CELLS`.
+    better somewhere) always sorts before the row it dominates, so the dominators of sorted row p
+    are the earlier rows at least as good on the other metrics, less the earlier exact duplicates
+    (equal rows are neighbours). Two or three metrics: "earlier rows at least as good on metrics
+    2 (and 3)" is counted in sqrt(k) blocks of rows - against each earlier block through a
+    table of counts over that block's ranks (one binary search per metric and row), pairwise
+    inside a block - O(k^1.5) in all. More metrics: pairwise against the earlier rows only, in
+    blocks of :data:`CHUNK_CELLS`.
     """
     k, m = pts.shape
     if k == 0:
@@ -834,23 +835,39 @@ def _dominator_counts(pts: np.ndarray) -> np.ndarray:
     order = np.lexsort(tuple(-pts[:, c] for c in reversed(range(m))))
     s = pts[order]
     n = np.zeros(k, np.int64)
-    if m == 2:
-        b = s[:, 1]
+    if m in (2, 3):
+        rest = s[:, 1:]                              # metrics 2 (and 3)
         B = max(1, int(np.sqrt(k)))
         nb = -(-k // B)
-        full = np.zeros((nb, k), np.int32)           # full[t, p]: rows of block t with b >= b_p
+        full = np.zeros((nb, k), np.int32)           # full[t, p]: rows of block t at least as good as p
         for t in range(nb):                          # a loop over sqrt(k) blocks, not over rows
-            blk = np.sort(b[t * B:(t + 1) * B])
-            full[t] = blk.size - np.searchsorted(blk, b, side="left")
+            blk = rest[t * B:(t + 1) * B]
+            srt = [np.sort(blk[:, j]) for j in range(m - 1)]
+            # q in the block is at least as good as p on metric j exactly when at least as many of
+            # the block's values lie below q as below p (counts from the block's sorted values)
+            at_p = [np.searchsorted(srt[j], rest[:, j], side="left") for j in range(m - 1)]
+            if m == 2:
+                full[t] = blk.shape[0] - at_p[0]
+            else:
+                size = blk.shape[0] + 1
+                below = [np.searchsorted(srt[j], blk[:, j], side="left") for j in range(2)]
+                grid = np.bincount(below[0] * size + below[1], minlength=size * size).reshape(size, size)
+                grid = grid[::-1, ::-1].cumsum(axis=0).cumsum(axis=1)[::-1, ::-1]   # rows >= (i, j)
+                full[t] = grid[at_p[0], at_p[1]]
         block_of = np.arange(k) // B
         before = np.cumsum(full, axis=0, dtype=np.int64)     # rows of blocks 0..t
         n += np.where(block_of > 0, before[np.maximum(block_of - 1, 0), np.arange(k)], 0)
-        pad = np.full(nb * B, -np.inf)
-        pad[:k] = b
-        pad = pad.reshape(nb, B)
-        tri = np.tri(B, B, -1, dtype=bool).T         # tri[q, p]: q < p
-        inside = ((pad[:, :, None] >= pad[:, None, :]) & tri).sum(axis=1).ravel()[:k]
-        n += inside
+        pad = np.full((nb * B, m - 1), -np.inf)
+        pad[:k] = rest
+        pad = pad.reshape(nb, B, m - 1)
+        inside = np.tri(B, B, -1, dtype=bool).T[None]        # [q, p]: q before p
+        for j in range(m - 1):
+            inside = inside & (pad[:, :, None, j] >= pad[:, None, :, j])
+        n += inside.sum(axis=1).ravel()[:k]
+        # equal rows never dominate each other, but were counted as "at least as good"
+        new_run = np.r_[True, (s[1:] != s[:-1]).any(axis=1)]
+        run_start = np.maximum.accumulate(np.where(new_run, np.arange(k), 0))
+        n -= np.arange(k) - run_start
     else:
         step = max(1, CHUNK_CELLS // max(1, k * m))
         for p0 in range(0, k, step):                 # blocks of rows against all rows before them
@@ -858,12 +875,6 @@ def _dominator_counts(pts: np.ndarray) -> np.ndarray:
             q, p = s[:p1, None, :], s[None, p0:p1, :]
             dom = (q >= p).all(axis=2) & (q > p).any(axis=2)
             n[p0:p1] = dom.sum(axis=0)
-    # equal rows never dominate each other: in the two-metric count they were counted as "at
-    # least as large" and are taken off here (in the pairwise count they never were)
-    if m == 2:
-        new_run = np.r_[True, (s[1:] != s[:-1]).any(axis=1)]
-        run_start = np.maximum.accumulate(np.where(new_run, np.arange(k), 0))
-        n -= np.arange(k) - run_start
     out = np.empty(k, np.int64)
     out[order] = n
     return out
