@@ -352,10 +352,12 @@ def report(rows: list[dict], startup: float) -> str:
                      f"-> {verdict(rps >= TARGETS['import_rps_400'])}")
         lines.append(f"  rates + Arrhenius + ranking at 400 plates <= {TARGETS['analysis_s_400']} s: "
                      f"{r['analysis_s']:.3f} s -> {verdict(r['analysis_s'] <= TARGETS['analysis_s_400'])}")
-    for r in r96:
+    if 400 in by:                                    # the target is set at 400 plates; other sizes are shown above
+        r = by[400]
         sp = r["baseline"]["baseline_s"] / r["analysis_s"]
-        lines.append(f"  >= {TARGETS['analysis_speedup']:.0f}x faster than the loop at {r['plates']} plates: "
-                     f"{sp:.1f}x -> {verdict(sp >= TARGETS['analysis_speedup'])}")
+        lines.append(f"  >= {TARGETS['analysis_speedup']:.0f}x faster than the loop at 400 plates "
+                     f"(loop {r['baseline']['baseline_s']:.1f} s here): {sp:.1f}x "
+                     f"-> {verdict(sp >= TARGETS['analysis_speedup'])}")
     for a, b in zip(r96, r96[1:]):
         if abs(b["readings"] / a["readings"] - 4) < 0.5 and a["analysis_s"] > 0:
             g = b["analysis_s"] / a["analysis_s"]
