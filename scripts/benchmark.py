@@ -20,7 +20,9 @@ baseline     the per-well loop: scipy.stats.linregress on the initial window of 
              catalyst for Arrhenius, all in Python loops. At large sizes it runs on a subsample
              of plates and is extrapolated linearly (the output says so).
 
-Each stage reports wall time and readings per second. Memory: ``peak_rss_mb`` is the process's
+Each stage reports wall time and readings per second; import, rates, Arrhenius and ranking are
+run :data:`REPEATS` times (each import into a new store) and report the median, with the first
+(cold) run printed below the table. Memory: ``peak_rss_mb`` is the process's
 ru_maxrss after all stages (each size runs in its own process), ``rss_fresh_mb`` the peak RSS of a
 fresh process that loads the stored campaign, analyses and ranks it (the 1 GB target at 1,600
 plates applies to this one: it is what the app and the CLI do), ``py_peak_mb`` the tracemalloc
@@ -124,10 +126,22 @@ def loop_baseline(data, settings, max_wells: int | None = BASELINE_MAX_WELLS) ->
 
 # ------------------------------------------------------------------------------ one size (worker)
 
-def _timed(results: dict, key: str, fn):
-    t0 = time.perf_counter()
-    value = fn()
-    results[key] = time.perf_counter() - t0
+#: timed repeats of the import and of each analysis stage: the figure is their median (a single
+#: run on a shared 2-core machine varies by +-30 %); the first run is kept as ``<stage>_first``
+REPEATS = 3
+
+
+def _timed(results: dict, key: str, fn, repeats: int = 1):
+    """Run ``fn`` ``repeats`` times (``fn(i)`` when repeated): ``results[key]`` = median wall time,
+    ``results[key + "_first"]`` = the first; returns the last value."""
+    times, value = [], None
+    for i in range(repeats):
+        t0 = time.perf_counter()
+        value = fn(i) if repeats > 1 else fn()
+        times.append(time.perf_counter() - t0)
+    results[key] = sorted(times)[len(times) // 2]
+    if repeats > 1:
+        results[key + "_first"] = times[0]
     return value
 
 
@@ -156,16 +170,18 @@ def run_size(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:
     with tempfile.TemporaryDirectory(prefix="screenlab-bench-") as tmp:
         folder = write_campaign_folder(Path(tmp) / "campaign", spec)
 
-        def do_import():
+        def do_import(i):
+            # each repeat into a new store (a second import into the same one would find it unchanged);
+            # the last one is the store the later stages read
             result = read_campaign(folder)
-            store = Store(Path(tmp) / "bench.duckdb")
+            store = Store(Path(tmp) / ("bench.duckdb" if i == REPEATS - 1 else f"repeat-{i}.duckdb"))
             try:
                 store.import_campaign(result)
             finally:
                 store.close()
             return result.data
 
-        data = _timed(res, "import_s", do_import)
+        data = _timed(res, "import_s", do_import, repeats=REPEATS)
         settings = settings_for(data)
         res["rss_fresh_mb"] = fresh_analysis_rss(Path(tmp) / "bench.duckdb", data.name)
 
@@ -177,13 +193,13 @@ def run_size(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:
             groups = group_rates(wells, settings, factor_names=data.factor_names)
             return am, wells, blanks, groups
 
-        am, wells, blanks, groups = _timed(res, "rates_s", do_rates)
-        arr = _timed(res, "arrhenius_s", lambda: arrhenius_table(groups, blanks, settings))
+        am, wells, blanks, groups = _timed(res, "rates_s", lambda i: do_rates(), repeats=REPEATS)
+        arr = _timed(res, "arrhenius_s", lambda i: arrhenius_table(groups, blanks, settings), repeats=REPEATS)
         orders = _timed(res, "orders_s", lambda: apparent_orders(wells, settings, factor_names=data.factor_names))
         kin = KineticsResult(amounts=am, wells=wells, blanks=blanks, rates=groups, arrhenius=arr, orders=orders,
                              settings=settings)
-        ranking = _timed(res, "ranking_s", lambda: rank_candidates(kin, None, metric="tof", draws=10_000,
-                                                                    catalysts=data.catalysts))
+        ranking = _timed(res, "ranking_s", lambda i: rank_candidates(kin, None, metric="tof", draws=10_000,
+                                                                      catalysts=data.catalysts), repeats=REPEATS)
 
         def do_shortlist():
             out = Path(tmp) / "shortlist"
@@ -327,6 +343,11 @@ def report(rows: list[dict], startup: float) -> str:
         f"{r['plates']}: {r['app_page_core_s']:.2f} s" for r in ok) + ") + its Pareto view, 2,000 draws (" + ", ".join(
         f"{r['plates']}: {r['pareto_s']:.2f} s" for r in ok) + ")")
     lines.append("orders (not in the sum): " + ", ".join(f"{r['plates']}: {r['orders_s']:.3f} s" for r in ok))
+    lines.append(f"stage times are medians of {REPEATS} runs in the same process; the first run of each (cold: "
+                 "first-touch memory, first DuckDB connection): " + "; ".join(
+                     f"{r['plates']}: import {r.get('import_s_first', float('nan')):.3f} s, analysis "
+                     f"{r.get('rates_s_first', float('nan')) + r.get('arrhenius_s_first', float('nan')) + r.get('ranking_s_first', float('nan')):.3f} s"
+                     for r in ok))
     # growth factors between consecutive 96-well sizes
     r96 = sorted([r for r in ok if r["format"] == 96], key=lambda r: r["plates"])
     lines.append("")
