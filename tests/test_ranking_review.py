@@ -273,22 +273,18 @@ def test_front_3_small_staircase_growth(monkeypatch):
     np.testing.assert_array_equal(R._front_3(cube), ~R._dominance(cube).any(axis=1))
 
 
-@pytest.mark.xfail(strict=True, reason="_front_3 assumes no ties on metric 1: equal points are marked "
-                                       "dominated by each other, and a dominator tied on metric 1 may sort after")
 @pytest.mark.parametrize("k", [2, 5, 70])
 def test_front_3_equal_scores(k):
     cube = np.ones((4, k, 3), np.float32)                      # all candidates identical: all on the front
     np.testing.assert_array_equal(R._front_3(cube), ~R._dominance(cube).any(axis=1))
 
 
-@pytest.mark.xfail(strict=True, reason="_front_3 assumes no ties on metric 1")
 def test_front_3_ties_on_metric_1():
     rng = np.random.default_rng(3)
     cube = rng.integers(0, 3, (30, 40, 3)).astype(np.float32)
     np.testing.assert_array_equal(R._front_3(cube), ~R._dominance(cube).any(axis=1))
 
 
-@pytest.mark.xfail(strict=True, reason="_front_2 assumes no ties on metric 1 (older code, same assumption)")
 def test_front_2_equal_scores():
     cube = np.ones((4, 5, 2), np.float32)
     np.testing.assert_array_equal(R._front_2(cube[:, :, 0], cube[:, :, 1]), ~R._dominance(cube).any(axis=1))
@@ -316,9 +312,6 @@ def test_front_share_small_draws_and_chunks(monkeypatch, m, draws):
                                rtol=0, atol=1e-12)
 
 
-@pytest.mark.xfail(strict=True, reason="front_share with three metrics: float32 draws that tie (sigma below "
-                                       "float32 resolution) go through _front_3, which assumes no ties on metric 1; "
-                                       "before this change the three-metric front was the exact _front_n")
 def test_front_share_three_metrics_tied_draws():
     k = 6
     params = [(np.ones(k), np.full(k, 1e-12), np.full(k, np.inf)) for _ in range(3)]   # draws == 1.0f
@@ -326,8 +319,6 @@ def test_front_share_three_metrics_tied_draws():
                                rtol=0, atol=1e-12)
 
 
-@pytest.mark.xfail(strict=True, reason="front_share with two metrics: tied float32 draws go through _front_2, "
-                                       "which assumes no ties on metric 1 (older code, same assumption)")
 def test_front_share_two_metrics_tied_draws():
     k = 6
     params = [(np.ones(k), np.full(k, 1e-12), np.full(k, np.inf)) for _ in range(2)]   # draws == 1.0f

@@ -141,3 +141,15 @@ def test_front_3_matches_pairwise(k):
     cube = (base + rng.standard_t(2.0, (40, k, 3)) * [0.3, 1.0, 0.5]).astype(np.float32)
     expected = ~R._dominance(cube).any(axis=1)
     np.testing.assert_array_equal(R._front_3(cube), expected)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_front_2_and_3_exact_with_ties_and_duplicates(dtype):
+    # coarse values: ties on every metric, exact duplicates; reference: every pair (R._dominance)
+    rng = np.random.default_rng(21)
+    cube = rng.integers(0, 4, (25, 90, 3)).astype(dtype)
+    cube[:, 10:15] = cube[:, [9]]                         # a block of duplicates in every draw
+    cube[:3, :, 0] = 1.0                                  # draws tied on the first metric throughout
+    for m, front in ((2, lambda c: R._front_2(c[:, :, 0], c[:, :, 1])), (3, R._front_3)):
+        c = np.ascontiguousarray(cube[:, :, :m])
+        np.testing.assert_array_equal(front(c), ~R._dominance(c).any(axis=1))

@@ -920,18 +920,55 @@ def _point_dominance(pts: np.ndarray, names: np.ndarray, cap: int) -> tuple[np.n
     return cnt, by
 
 
+def _desc_int32(x: np.ndarray) -> np.ndarray:
+    """float32 -> int32 whose ascending order is the descending order of ``x`` (signed zeros equal):
+    the bit pattern of -x, negative values flipped (IEEE 754 floats of one sign order like their
+    bits)."""
+    neg = np.subtract(np.float32(0.0), x, dtype=np.float32)
+    bits = neg.view(np.int32)
+    return bits ^ ((bits >> 31) & np.int32(0x7FFFFFFF))
+
+
+def _lex_order(p1: np.ndarray, p2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per row of two (draws, k) score matrices: the columns sorted by p1 then p2, both highest
+    first, and ``same`` (draws, k - 1): sorted neighbours equal on both.
+
+    float32: one argsort of 64-bit keys (p1's order-preserving integer in the high word, p2's in
+    the low word); otherwise two stable argsorts."""
+    if p1.dtype == np.float32 and p2.dtype == np.float32:
+        low = (_desc_int32(p2) ^ np.int32(-2 ** 31)).view(np.uint32).astype(np.int64)  # unsigned order
+        key = (_desc_int32(p1).astype(np.int64) << 32) | low
+        order = np.argsort(key, axis=1)
+        ks = np.take_along_axis(key, order, axis=1)
+        return order, ks[:, 1:] == ks[:, :-1]
+    o2 = np.argsort(-p2, axis=1, kind="stable")
+    order = np.take_along_axis(o2, np.argsort(-np.take_along_axis(p1, o2, axis=1), axis=1, kind="stable"), axis=1)
+    s1, s2 = np.take_along_axis(p1, order, axis=1), np.take_along_axis(p2, order, axis=1)
+    return order, (s1[:, 1:] == s1[:, :-1]) & (s2[:, 1:] == s2[:, :-1])
+
+
+def _run_start(same: np.ndarray) -> np.ndarray:
+    """(draws, k) index of the first member of each sorted position's run of equal neighbours."""
+    d, n = same.shape[0], same.shape[1] + 1
+    new_run = np.ones((d, n), bool)
+    new_run[:, 1:] = ~same
+    return np.maximum.accumulate(np.where(new_run, np.arange(n), 0), axis=1)
+
+
 def _front_2(p1: np.ndarray, p2: np.ndarray) -> np.ndarray:
     """(draws, k) on-front mask for two metrics (higher better), without pairwise comparisons.
 
-    Sorted on metric 1 (best first), a candidate is dominated exactly when some candidate before
-    it is at least as good on metric 2: a running maximum of metric 2 along each row. Ties on
-    metric 1 between continuous draws have probability 0.
+    Sorted on metric 1 then metric 2 (best first), every dominator of a candidate comes before it,
+    and so do its exact duplicates (which do not dominate it; they are its neighbours in the sort).
+    A candidate is on the front exactly when everything before its run of duplicates is worse on
+    metric 2: a running maximum of metric 2 along each row. Exact with ties.
     """
-    order = np.argsort(-p1, axis=1)
+    order, same = _lex_order(p1, p2)
     q = np.take_along_axis(p2, order, axis=1)
     before = np.maximum.accumulate(q, axis=1)
-    front_sorted = np.ones(q.shape, bool)
-    front_sorted[:, 1:] = q[:, 1:] > before[:, :-1]
+    start = _run_start(same)
+    prev = np.take_along_axis(before, np.maximum(start - 1, 0), axis=1)
+    front_sorted = (start == 0) | (prev < q)
     out = np.zeros(q.shape, bool)
     np.put_along_axis(out, order, front_sorted, axis=1)
     return out
@@ -955,10 +992,11 @@ def _front_n(pts: np.ndarray) -> np.ndarray:
     member, and front members always survive the first test, so the result is exact).
     """
     d, k, m = pts.shape
-    centre = pts.mean(axis=(0, 1))
-    scale = pts.std(axis=(0, 1))
-    scale[~(scale > 0)] = 1.0
-    wits = np.argmax(((pts - centre) / scale) @ _directions(m), axis=1)        # (d, n_dir) front members
+    with np.errstate(invalid="ignore", over="ignore"):   # infinite scores: any witness keeps it exact
+        centre = pts.mean(axis=(0, 1))
+        scale = pts.std(axis=(0, 1))
+        scale[~(scale > 0)] = 1.0
+        wits = np.argmax(((pts - centre) / scale) @ _directions(m), axis=1)    # (d, n_dir) front members
     dominated = np.zeros((d, k), bool)
     for w in range(wits.shape[1]):                   # a loop over a few weightings, not candidates
         a = np.take_along_axis(pts, wits[:, w, None, None], axis=1)           # (d, 1, m)
@@ -997,9 +1035,13 @@ FRONT_DRAWS = 256
 def _front_3(pts: np.ndarray) -> np.ndarray:
     """(draws, k) on-front mask for (draws, k, 3) scores (higher better), exact.
 
-    Sorted on metric 1 (best first), a candidate is dominated exactly when an earlier one is at
-    least as good on metrics 2 and 3 (ties on metric 1 between continuous draws have probability
-    0). The candidates are swept in blocks of :data:`FRONT_BLOCK`: each block is tested against
+    Sorted on metrics 1 then 2 (best first), every dominator of a candidate comes before it, so
+    a candidate is dominated exactly when an earlier one, other than its exact duplicates (its
+    neighbours in the sort, which take the status of the first of them), is at least as good on
+    metrics 2 and 3. Rows where two candidates tie on metrics 1 and 2 but not 3 (where the sort
+    does not settle their order) are done by the exact pairwise test (:func:`_front_n`); continuous
+    draws have them with probability 0. The candidates are swept in blocks of
+    :data:`FRONT_BLOCK`: each block is tested against
     the two-metric front ("staircase") of everything before it, which holds every earlier point
     that matters (one that is not on it is beaten on both metrics by one that is), and pairwise
     within itself; the staircase then becomes the two-metric front of itself and the block
@@ -1007,9 +1049,11 @@ def _front_3(pts: np.ndarray) -> np.ndarray:
     draws x k x (block + staircase) comparisons instead of draws x k^2.
     """
     d, k, _ = pts.shape
-    order = np.argsort(-pts[:, :, 0], axis=1)
+    order, same12 = _lex_order(pts[:, :, 0], pts[:, :, 1])
     b = np.take_along_axis(pts[:, :, 1], order, axis=1)
     c = np.take_along_axis(pts[:, :, 2], order, axis=1)
+    same = same12 & (c[:, 1:] == c[:, :-1])          # exact duplicates, neighbours in the sort
+    tied = np.flatnonzero((same12 & ~same).any(axis=1))  # equal on metrics 1, 2 but not 3: order unsure
     on = np.zeros((d, k), bool)
     sb = np.full((d, 0), -np.inf, dtype=b.dtype)
     sc = np.full((d, 0), -np.inf, dtype=c.dtype)
@@ -1029,8 +1073,11 @@ def _front_3(pts: np.ndarray) -> np.ndarray:
         pad = np.arange(top)[None, :] >= size[:, None]
         sb = np.where(pad, -np.inf, np.take_along_axis(ub, idx, axis=1))
         sc = np.where(pad, -np.inf, np.take_along_axis(uc, idx, axis=1))
+    on = np.take_along_axis(on, _run_start(same), axis=1)   # a duplicate shares its first member's status
     out = np.zeros((d, k), bool)
     np.put_along_axis(out, order, on, axis=1)
+    if tied.size:                                    # rare rows: the exact pairwise test
+        out[tied] = _front_n(pts[tied])
     return out
 
 
