@@ -10,6 +10,8 @@ import pandas as pd
 import pytest
 
 import screenlab.stats.ranking as R
+from test_ranking_tables_ref import _merge_codes_ref
+from test_ranking_vectorised import _plain_front_share
 
 
 # ---------------------------------------------------------------------------------------------
@@ -290,16 +292,6 @@ def test_front_2_equal_scores():
     np.testing.assert_array_equal(R._front_2(cube[:, :, 0], cube[:, :, 1]), ~R._dominance(cube).any(axis=1))
 
 
-def _plain_front_share(params, draws, seed):
-    k, m = len(params[0][0]), len(params)
-    hits = np.zeros(k)
-    for d, ss in R._chunks(draws, k, seed, per_cell=m):
-        rng = np.random.default_rng(ss)
-        cube = np.stack([R.draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params], axis=2)
-        hits += (~R._dominance(cube).any(axis=1)).sum(axis=0)
-    return hits / draws
-
-
 @pytest.mark.parametrize("m", [2, 3, 4])
 @pytest.mark.parametrize("draws", [1, 2, 7, 300])
 def test_front_share_small_draws_and_chunks(monkeypatch, m, draws):
@@ -335,17 +327,6 @@ def test_front_share_four_metrics_tied_draws_is_exact():
 
 # ---------------------------------------------------------------------------------------------
 # candidate-table helpers
-
-def _merge_codes_ref(*cols):
-    out = []
-    for parts in zip(*cols):
-        codes = []
-        for p in parts:
-            if isinstance(p, str) and p:
-                codes.extend(c for c in p.split(";") if c)
-        out.append(";".join(dict.fromkeys(codes)))
-    return out
-
 
 def test_merge_codes_edge_inputs():
     pool = ["", ";", ";;", "a", "a;a", ";a", "a;", "b;a;b", None, np.nan, pd.NA, "x"]
