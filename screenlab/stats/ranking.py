@@ -368,6 +368,21 @@ def draw_matrix(mu, sigma, df, draws: int, rng: np.random.Generator) -> np.ndarr
     return z
 
 
+def _desc_int32(x: np.ndarray, out: np.ndarray | None = None, overwrite: bool = False) -> np.ndarray:
+    """float32 -> int32 whose ascending order is the descending order of ``x`` (signed zeros equal):
+    the bit pattern of -x, negative values flipped (IEEE 754 floats of one sign order like their
+    bits). ``out``: an int32 array (or view) to write into; ``overwrite``: ``x`` may be used as
+    scratch space (its values are lost). With both, no temporary is made."""
+    neg = x if overwrite else np.empty_like(x, dtype=np.float32)
+    np.subtract(np.float32(0.0), x, out=neg)         # -x, and -0.0 -> +0.0
+    bits = neg.view(np.int32)
+    out = np.empty(x.shape, np.int32) if out is None else out
+    np.right_shift(bits, 31, out=out)                # -1 for negative values, 0 otherwise
+    np.bitwise_and(out, np.int32(0x7FFFFFFF), out=out)
+    np.bitwise_xor(out, bits, out=out)
+    return out
+
+
 def _order_desc(score: np.ndarray, overwrite: bool = False) -> np.ndarray:
     """Per row of a float32 ``score`` matrix, the columns from the highest score to the lowest (ties
     by column), as ``np.argsort(-score, axis=1, kind="stable")`` gives them; int32, possibly a
@@ -383,17 +398,10 @@ def _order_desc(score: np.ndarray, overwrite: bool = False) -> np.ndarray:
     d, k = score.shape
     if k >= 2 ** 31:
         return np.argsort(-score, axis=1, kind="stable")
-    neg = score if overwrite else np.empty_like(score, dtype=np.float32)
-    np.subtract(np.float32(0.0), score, out=neg)     # -score, and -0.0 -> +0.0
-    bits = neg.view(np.int32)
     key = np.empty((d, k), dtype=np.int64)
     words = key.view(np.int32).reshape(d, k, 2)       # little- or big-endian: pick the words
     hi, lo = (1, 0) if np.little_endian else (0, 1)
-    high = words[:, :, hi]                            # built in place: no temporaries
-    np.right_shift(bits, 31, out=high)                # -1 for negative values, 0 otherwise
-    np.bitwise_and(high, np.int32(0x7FFFFFFF), out=high)
-    np.bitwise_xor(high, bits, out=high)              # order-preserving signed integer of -score
-    del neg, bits
+    _desc_int32(score, out=words[:, :, hi], overwrite=overwrite)   # built in place
     words[:, :, lo] = np.arange(k, dtype=np.int32)
     key.sort(axis=1)
     return words[:, :, lo]
@@ -918,15 +926,6 @@ def _point_dominance(pts: np.ndarray, names: np.ndarray, cap: int) -> tuple[np.n
         joined = pd.Series(names[i[o]]).groupby(j[o], sort=True).agg(";".join)
         by[joined.index.to_numpy()] = joined.to_numpy()
     return cnt, by
-
-
-def _desc_int32(x: np.ndarray) -> np.ndarray:
-    """float32 -> int32 whose ascending order is the descending order of ``x`` (signed zeros equal):
-    the bit pattern of -x, negative values flipped (IEEE 754 floats of one sign order like their
-    bits)."""
-    neg = np.subtract(np.float32(0.0), x, dtype=np.float32)
-    bits = neg.view(np.int32)
-    return bits ^ ((bits >> 31) & np.int32(0x7FFFFFFF))
 
 
 def _lex_order(p1: np.ndarray, p2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
