@@ -935,8 +935,12 @@ def _lex_order(p1: np.ndarray, p2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     float32: one argsort of 64-bit keys (p1's order-preserving integer in the high word, p2's in
     the low word); otherwise two stable argsorts."""
     if p1.dtype == np.float32 and p2.dtype == np.float32:
-        low = (_desc_int32(p2) ^ np.int32(-2 ** 31)).view(np.uint32).astype(np.int64)  # unsigned order
-        key = (_desc_int32(p1).astype(np.int64) << 32) | low
+        key = np.empty(p1.shape, np.int64)
+        words = key.view(np.int32).reshape(*p1.shape, 2)
+        hi, lo = (1, 0) if np.little_endian else (0, 1)
+        _desc_int32(p1, out=words[..., hi])
+        low = _desc_int32(p2, out=words[..., lo])
+        low ^= np.int32(-2 ** 31)                    # the low word compares unsigned: shift its order
         order = np.argsort(key, axis=1)
         ks = np.take_along_axis(key, order, axis=1)
         return order, ks[:, 1:] == ks[:, :-1]
@@ -965,9 +969,13 @@ def _front_2(p1: np.ndarray, p2: np.ndarray) -> np.ndarray:
     order, same = _lex_order(p1, p2)
     q = np.take_along_axis(p2, order, axis=1)
     before = np.maximum.accumulate(q, axis=1)
-    start = _run_start(same)
-    prev = np.take_along_axis(before, np.maximum(start - 1, 0), axis=1)
-    front_sorted = (start == 0) | (prev < q)
+    if same.any():                                   # duplicates: compare with what precedes their run
+        start = _run_start(same)
+        prev = np.take_along_axis(before, np.maximum(start - 1, 0), axis=1)
+        front_sorted = (start == 0) | (prev < q)
+    else:
+        front_sorted = np.ones(q.shape, bool)
+        front_sorted[:, 1:] = q[:, 1:] > before[:, :-1]
     out = np.zeros(q.shape, bool)
     np.put_along_axis(out, order, front_sorted, axis=1)
     return out
