@@ -526,8 +526,9 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         ok_ci = usable & (rate > 0) & np.isfinite(ln_se)
         q = t_quantile(settings.confidence, np.where(ok_ci, enh_df, np.nan))   # used where ok_ci only
         ln_e = np.log(np.where(ok_ci, enh, 1.0))
-        e_lo = np.where(ok_ci, np.exp(ln_e - q * ln_se), np.nan)
-        e_hi = np.where(ok_ci, np.where(lower, np.inf, np.exp(ln_e + q * ln_se)), np.nan)
+        with np.errstate(over="ignore"):             # a log-scale bound beyond float range is inf
+            e_lo = np.where(ok_ci, np.exp(ln_e - q * ln_se), np.nan)
+            e_hi = np.where(ok_ci, np.where(lower, np.inf, np.exp(ln_e + q * ln_se)), np.nan)
 
     # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
     metric = np.where(np.isfinite(tof), tof, rate)
