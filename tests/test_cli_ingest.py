@@ -112,6 +112,22 @@ def test_usage_errors_exit_2(tmp_path, capsys):
     assert exc.value.code == 2
 
 
+def test_several_paths_in_one_call(tmp_path, capsys):
+    a = write_campaign(tmp_path / "a", name="alpha")
+    b = write_campaign(tmp_path / "b", name="beta", plates=("Q1",))
+    (tmp_path / "empty").mkdir()
+    db = str(tmp_path / "s.duckdb")
+    code, out, err = run(capsys, "ingest", str(a), str(tmp_path / "empty"), str(b), "--store", db)
+    assert code == 1                                         # the empty folder is a data error ...
+    assert "no campaign" in err
+    assert "alpha: new campaign" in out and "beta: new campaign" in out   # ... the others are imported
+    assert "3 campaigns: 2 done, 1 with errors" in out
+    assert Store(db).campaign_names() == ["alpha", "beta"]
+    code, _, err = run(capsys, "ingest", str(a), str(tmp_path / "nowhere"), "--store", str(tmp_path / "t.duckdb"))
+    assert code == 2 and "nowhere does not exist" in err   # a missing path: usage error, nothing read
+    assert not (tmp_path / "t.duckdb").exists()
+
+
 def test_folder_without_campaign_is_a_data_error(tmp_path, capsys):
     (tmp_path / "empty").mkdir()
     code, _, err = run(capsys, "ingest", str(tmp_path / "empty"), "--store", str(tmp_path / "s.duckdb"))

@@ -1,6 +1,7 @@
-"""``screenlab ingest PATH`` (import campaigns into the store) and ``screenlab campaigns`` (list them).
+"""``screenlab ingest PATH [PATH ...]`` (import campaigns into the store) and ``screenlab campaigns``
+(list them).
 
-ingest: PATH is a campaign folder, a folder of campaign folders / .zip files, or one .zip. Each
+ingest: each PATH is a campaign folder, a folder of campaign folders / .zip files, or one .zip. Each
 campaign is imported all or nothing; the command reports per campaign what happened, or every
 problem found (file, row, column, value, what was expected). Exit 0 when everything was imported
 or there was nothing to do, 1 when any campaign had data errors or was refused, 2 for usage errors.
@@ -18,11 +19,11 @@ from screenlab.cli.common import add_format_option, add_store_option, emit, reso
 def register(sub) -> None:
     p = sub.add_parser(
         "ingest", help="import campaign folders (or .zip files) into the store",
-        description="Import one campaign folder, a folder of campaign folders, or a .zip into the store. "
+        description="Import campaign folders, folders of campaign folders, or .zip files into the store. "
         "Each campaign is imported all or nothing. Importing unchanged data again adds nothing; new plates "
         "of a stored campaign are added; changed plates, catalysts or manifest are refused unless --replace.",
         formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("path", metavar="PATH", help="campaign folder, folder of campaigns, or .zip")
+    p.add_argument("paths", metavar="PATH", nargs="+", help="campaign folder, folder of campaigns, or .zip")
     p.add_argument("--replace", action="store_true",
                    help="store changed plates / catalysts / manifest as the new current version "
                    "(the old version stays in the store as history)")
@@ -47,21 +48,26 @@ def run_ingest(args) -> int:
     from screenlab.ingest import find_campaigns, read_campaign
     from screenlab.store import ImportRefusedError, Store
 
-    path = Path(args.path)
-    if not path.exists():
-        raise UsageError(f"{path} does not exist (give a campaign folder, a folder of campaigns or a .zip)")
+    paths = [Path(p) for p in args.paths]
+    for path in paths:
+        if not path.exists():
+            raise UsageError(f"{path} does not exist (give a campaign folder, a folder of campaigns or a .zip)")
     store_path = resolve_store_path(args.store)
     if store_path.is_dir():
         raise UsageError(f"--store {store_path} is a folder; give the path of a .duckdb file")
     if not store_path.parent.exists():
         raise UsageError(f"--store {store_path}: folder {store_path.parent} does not exist")
-    try:
-        sources = find_campaigns(path)
-    except ValidationError as exc:
-        _print_problems(str(path), exc)
-        return 1
-    store = Store(store_path)
     done = {"ok": 0, "failed": 0}
+    sources = []
+    for path in paths:                               # each PATH in the order given
+        try:
+            sources.extend(find_campaigns(path))
+        except ValidationError as exc:
+            _print_problems(str(path), exc)
+            done["failed"] += 1
+    if not sources:
+        return 1 if done["failed"] else 0
+    store = Store(store_path)
     for src in sources:
         try:
             with warnings.catch_warnings():
@@ -89,8 +95,8 @@ def run_ingest(args) -> int:
             continue
         print(report.message)
         done["ok"] += 1
-    if len(sources) > 1:
-        print(f"{len(sources)} campaigns: {done['ok']} {'checked' if args.dry_run else 'done'}, "
+    if done["ok"] + done["failed"] > 1:
+        print(f"{done['ok'] + done['failed']} campaigns: {done['ok']} {'checked' if args.dry_run else 'done'}, "
               f"{done['failed']} with errors (nothing written for those)")
     return 1 if done["failed"] else 0
 
