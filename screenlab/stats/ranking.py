@@ -467,19 +467,15 @@ class _Deferred:
 
 
 class _Inline:
-    """Same interface as a thread pool, runs in the calling thread (one task or one CPU): ``map``
-    as the builtin, ``submit`` deferred until its result is asked for (so tasks run in the order
-    their results are read, as a pool's workers would let them finish)."""
+    """The part of a thread pool's interface used here, run in the calling thread (one task or one
+    CPU): ``submit`` is deferred until its result is asked for, so tasks run in the order their
+    results are read, as a pool's workers would let them finish."""
 
     def __enter__(self):
         return self
 
     def __exit__(self, *exc):
         return False
-
-    @staticmethod
-    def map(fn, items):
-        return map(fn, items)
 
     @staticmethod
     def submit(fn, *args):
