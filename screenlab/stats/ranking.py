@@ -264,7 +264,7 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
 
     est, se, df = t["estimate"].to_numpy(float), t["se"].to_numpy(float), t["df"].to_numpy(float)
     q = _tq(confidence, df)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):   # a bound beyond float range: inf
         if m.lognormal:
             mu = np.where(est > 0, np.log(np.where(est > 0, est, 1.0)), np.nan)
             sig = t["ln_se"].to_numpy(float)
