@@ -614,7 +614,7 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
         beats_c = (np.count_nonzero(score > score[:, [ref_pos]], axis=0) if ref_pos is not None
                    else np.zeros(k, np.int64))
-        order = _order_desc(score, overwrite=True)    # ties between continuous draws have probability 0
+        order = _order_desc(score, overwrite=True)    # equal scores: the earlier column first
         del score
         top_c = np.bincount(order[:, :top_k].ravel(), minlength=k)
         best_c = np.bincount(order[:, 0], minlength=k)
@@ -869,9 +869,7 @@ def _dominator_counts(pts: np.ndarray) -> np.ndarray:
             inside = inside & (pad[:, :, None, j] >= pad[:, None, :, j])
         n += inside.sum(axis=1).ravel()[:k]
         # equal rows never dominate each other, but were counted as "at least as good"
-        new_run = np.r_[True, (s[1:] != s[:-1]).any(axis=1)]
-        run_start = np.maximum.accumulate(np.where(new_run, np.arange(k), 0))
-        n -= np.arange(k) - run_start
+        n -= np.arange(k) - _run_start((s[1:] == s[:-1]).all(axis=1)[None])[0]
     else:
         step = max(1, CHUNK_CELLS // max(1, k * m))
         for p0 in range(0, k, step):                 # blocks of rows against all rows before them
@@ -1096,19 +1094,22 @@ def front_share(params, draws: int, seed=0) -> np.ndarray:
     k, m = len(params[0][0]), len(params)
     hits = np.zeros(k, np.int64)
     chunks = _chunks(draws, k, seed, per_cell=m)
-    if m == 3:
-        # the block sweep costs Python steps per block of candidates: chunks are drawn as always
-        # (same numbers) and swept together, a few hundred draws at a time
-        group = max(1, FRONT_DRAWS // max(1, chunks[0][0]) if chunks else 1)
-        for g0 in range(0, len(chunks), group):
-            cube = np.concatenate([np.stack([draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params], axis=2)
-                                   for d, rng in ((d, np.random.default_rng(ss)) for d, ss in chunks[g0:g0 + group])])
-            hits += _front_3(cube).sum(axis=0)
-        return hits / draws
-    for d, ss in chunks:
+
+    def drawn(d, ss):
         rng = np.random.default_rng(ss)
-        cube = [draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params]
-        front = _front_2(cube[0], cube[1]) if m == 2 else _front_n(np.stack(cube, axis=2))
+        return [draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params]
+
+    # the three-metric sweep costs Python steps per block of candidates: its chunks are drawn as
+    # always (same numbers) and swept together, a few hundred draws at a time
+    group = max(1, FRONT_DRAWS // max(1, chunks[0][0])) if m == 3 and chunks else 1
+    for g0 in range(0, len(chunks), group):
+        cols = [c[0] if len(c) == 1 else np.concatenate(c)
+                for c in zip(*(drawn(d, ss) for d, ss in chunks[g0:g0 + group]))]
+        if m == 2:
+            front = _front_2(cols[0], cols[1])
+        else:
+            cube = np.stack(cols, axis=2)
+            front = _front_3(cube) if m == 3 else _front_n(cube)
         hits += front.sum(axis=0)
     return hits / draws
 
