@@ -373,8 +373,7 @@ def report(rows: list[dict], startup: float) -> str:
                      f"-> {verdict(rps >= TARGETS['import_rps_400'])}")
         lines.append(f"  rates + Arrhenius + ranking at 400 plates <= {TARGETS['analysis_s_400']} s: "
                      f"{r['analysis_s']:.3f} s -> {verdict(r['analysis_s'] <= TARGETS['analysis_s_400'])}")
-    if 400 in by:                                    # the target is set at 400 plates; other sizes are shown above
-        r = by[400]
+        # the speed-up target is set at 400 plates; the other sizes' ratios are in the table
         sp = r["baseline"]["baseline_s"] / r["analysis_s"]
         lines.append(f"  >= {TARGETS['analysis_speedup']:.0f}x faster than the loop at 400 plates "
                      f"(loop {r['baseline']['baseline_s']:.1f} s here): {sp:.1f}x "
