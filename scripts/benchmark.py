@@ -282,7 +282,7 @@ def fresh_analysis_rss(store_path: Path, campaign: str) -> float:
 
 def startup_seconds(repeats: int = 3) -> float:
     """Best of ``repeats`` wall times of ``screenlab --help`` in a fresh process."""
-    exe = [sys.executable, "-m", "screenlab.cli"] if not _has_console_script() else ["screenlab"]
+    exe = _screenlab_command()
     best = float("inf")
     for _ in range(repeats):
         t0 = time.perf_counter()
@@ -291,9 +291,13 @@ def startup_seconds(repeats: int = 3) -> float:
     return best
 
 
-def _has_console_script() -> bool:
-    from shutil import which
-    return which("screenlab") is not None
+def _screenlab_command() -> list[str]:
+    """The ``screenlab`` console script beside this interpreter (a venv's bin/, whether or not it is
+    on PATH), else ``python -m screenlab``."""
+    from pathlib import Path
+
+    script = Path(sys.executable).with_name("screenlab")
+    return [str(script)] if script.exists() else [sys.executable, "-m", "screenlab"]
 
 
 def _worker(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:

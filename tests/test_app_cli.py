@@ -103,3 +103,12 @@ def test_package_data_ships_the_app_files():
     project = tomllib.loads((ROOT / "pyproject.toml").read_text())
     patterns = project["tool"]["setuptools"]["package-data"]["screenlab"]
     assert "app/.streamlit/*.toml" in patterns and "app/app_pages/*.py" in patterns and "app/*.py" in patterns
+
+
+@pytest.mark.parametrize("module", ["screenlab", "screenlab.cli"])
+def test_python_dash_m_runs_the_command_line_without_path(module):
+    # a venv's interpreter called by its full path, with no venv bin/ on PATH (the README's commands)
+    out = subprocess.run([sys.executable, "-m", module, "--help"], capture_output=True, text=True,
+                         timeout=60, cwd=ROOT, env={"PATH": "/usr/bin:/bin"})
+    assert out.returncode == 0, out.stderr
+    assert "usage: screenlab" in out.stdout and "ingest" in out.stdout
