@@ -2,7 +2,7 @@
 
 Everything here is invented for demonstration and synthetic testing; no number is a measurement.
 :func:`generate_demo` writes a folder of three campaign folders in the import format of
-``/work/shared/campaign-format.md`` plus, outside the campaign folders, the true values the data
+``docs/campaign-format.md`` plus, outside the campaign folders, the true values the data
 were generated from (``_truth/<campaign>/truth.csv``; the reader ignores that folder because it
 holds no ``campaign.toml``) and a ``README.md`` describing the scenario and its planted flaws.
 

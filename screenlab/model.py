@@ -15,6 +15,9 @@ READOUT_KINDS = ("conversion", "yield", "product_conc", "absorbance")
 ROLES = ("sample", "blank", "reference", "empty")
 #: analyte name used when a campaign has no [analytes] table and no analyte column
 DEFAULT_ANALYTE = "product"
+#: absorbance above which a plate reader is usually no longer linear (Beer-Lambert deviations and
+#: stray light; common practice, no source); ``[readout].linear_range_max`` overrides it
+DEFAULT_LINEAR_RANGE_MAX = 3.0
 
 
 @dataclass(frozen=True)
@@ -31,6 +34,8 @@ class Manifest:
     product_per_substrate: float = 1.0
     epsilon_M_cm: float | None = None      # absorbance only, L mol-1 cm-1
     path_length_cm: float | None = None    # absorbance only
+    #: absorbance only: top of the detector's linear range (A units); None = DEFAULT_LINEAR_RANGE_MAX
+    linear_range_max: float | None = None
     description: str = ""
     reaction: str = ""
     time_unit: str = "min"
@@ -41,6 +46,11 @@ class Manifest:
     byproducts: tuple[str, ...] = ()                       # [analytes].byproducts
     enantiomers: tuple[str, str] | None = None             # [analytes].enantiomers
     source_toml: str = ""                                  # the manifest text as imported
+
+    @property
+    def absorbance_linear_max(self) -> float:
+        """Absorbance above which readings are outside the linear range (``[readout].linear_range_max``)."""
+        return float(self.linear_range_max) if self.linear_range_max is not None else DEFAULT_LINEAR_RANGE_MAX
 
     @property
     def has_analytes(self) -> bool:

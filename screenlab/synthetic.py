@@ -2,7 +2,7 @@
 
 Everything here is invented; no number is a measurement. :func:`synthetic_campaign` builds a
 :class:`~screenlab.model.CampaignData` directly in canonical units, :func:`write_campaign_folder`
-writes the same campaign as a folder in the import format (``/work/shared/campaign-format.md``),
+writes the same campaign as a folder in the import format (``docs/campaign-format.md``),
 and reading that folder back with :func:`screenlab.ingest.read_campaign` gives the same frames
 (the values are rounded to what the CSV files hold before either is made). Both are vectorised
 over wells and readings; nothing loops over wells.

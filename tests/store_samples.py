@@ -1,7 +1,7 @@
 """Synthetic campaigns for the store and ingest-CLI tests (invented data, tests only).
 
 ``write_campaign(folder, ...)`` writes a campaign folder in the import contract of
-/work/shared/campaign-format.md; ``make_data(...)`` builds a CampaignData directly in code.
+docs/campaign-format.md; ``make_data(...)`` builds a CampaignData directly in code.
 Readings follow a first-order approach to full conversion, value = 100 (1 - exp(-k t)) percent.
 """
 from __future__ import annotations

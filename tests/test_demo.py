@@ -1,7 +1,7 @@
 """The demo campaigns: determinism, the import contract, the scenario and its planted flaws.
 
 Outside references are named beside each check (scipy.integrate, scipy.stats, scipy.constants,
-IUPAC/CIAAW atomic weights and textbook worked examples from /work/shared/check-values.md).
+IUPAC/CIAAW atomic weights and textbook worked examples from docs/check-values.md).
 """
 from __future__ import annotations
 

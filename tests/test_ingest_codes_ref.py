@@ -17,8 +17,8 @@ from screenlab.errors import Problem
 from screenlab.ingest import validate as v
 from screenlab.ingest.validate import _to_float as v_to_float
 from screenlab.ingest.tables import RawTable, read_table
-from screenlab.ingest.validate import (ABS_MAX, ABS_MIN, CONC_TOL_REL, FRACTION_TOL, LAYOUT_COLUMNS, NA_WORDS,
-                                       PERCENT_TOL, READING_COLUMNS, RESERVED_FACTORS, T_MAX_C, T_MIN_C,
+from screenlab.ingest.validate import (ABS_MAX, ABS_MIN, CONC_TOL_REL, FRACTION_MAX, FRACTION_TOL, LAYOUT_COLUMNS, NA_WORDS,
+                                       PERCENT_MAX, PERCENT_TOL, READING_COLUMNS, RESERVED_FACTORS, T_MAX_C, T_MIN_C,
                                        ABSOLUTE_ZERO_C, _NAN_WORDS, _empty_catalysts, _empty_plates, _empty_wells,
                                        extra_columns_note, parse_wells_fast)
 from screenlab.model import DEFAULT_ANALYTE, ROLES
@@ -318,12 +318,14 @@ def old_check_readings(table: RawTable, problems: list[Problem], *, wells: pd.Da
         v, vok = ch.number("value", required=True, what="a value is required")
         kind, scale = info.get("kind"), info.get("scale")
         if kind in ("conversion", "yield") and scale == "percent":
-            ch.report(vok & ((v < -PERCENT_TOL) | (v > 100 + PERCENT_TOL)), "value",
-                      f"a percent {kind} must lie in 0..100 (+/- {PERCENT_TOL:g} for instrument noise)")
+            ch.report(vok & ((v < -PERCENT_TOL) | (v > PERCENT_MAX)), "value",
+                      f"a percent {kind} must lie in -{PERCENT_TOL:g}..{PERCENT_MAX:g} (values up to "
+                      f"{PERCENT_MAX:g} % of full scale are taken as measured and flagged; beyond that, or "
+                      "clearly below zero, the value cannot be right)")
         elif kind in ("conversion", "yield") and scale == "fraction":
-            ch.report(vok & ((v < -FRACTION_TOL) | (v > 1 + FRACTION_TOL)), "value",
-                      f"a fractional {kind} must lie in 0..1 (+/- {FRACTION_TOL:g} for instrument noise); "
-                      "is it in percent?")
+            ch.report(vok & ((v < -FRACTION_TOL) | (v > FRACTION_MAX)), "value",
+                      f"a fractional {kind} must lie in -{FRACTION_TOL:g}..{FRACTION_MAX:g} (values up to "
+                      f"{FRACTION_MAX:g} are taken as measured and flagged); is it in percent?")
         elif kind == "product_conc":
             top = np.nanmax(wells["substrate_conc_mM"].to_numpy(dtype=float), initial=0.0) if len(wells) else 0.0
             cf = info.get("conc_factor") or np.nan

@@ -317,7 +317,7 @@ def test_find_campaigns(tmp_path):
 
 
 # ----------------------------------------------------------------------------------- plate formats
-# ANSI/SLAS 4-2004 (Well Positions) and the plate configs listed in /work/shared/check-values.md §9:
+# ANSI/SLAS 4-2004 (Well Positions) and the plate configs listed in docs/check-values.md §9:
 # 24 = 4 x 6 (A-D, 1-6), 48 = 6 x 8 (A-F, 1-8; from memory there), 96 = 8 x 12 (A-H, 1-12),
 # 384 = 16 x 24 (A-P, 1-24).
 @pytest.mark.parametrize("fmt,rows,cols", [(24, 4, 6), (48, 6, 8), (96, 8, 12), (384, 16, 24)])

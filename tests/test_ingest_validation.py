@@ -362,17 +362,21 @@ def test_duplicate_readings():
     find(problems(**R("P1,a01,10.0,3")), "readings.csv", r"duplicate reading .* \(first on row 3\)", row=30)
 
 
-def test_percent_out_of_range_with_tolerance():
-    probs = problems(**R("P1,A1,50,101.5", "P1,A1,60,103", "P1,A1,70,-3"))
-    rows = {p.row for p in probs if re.search(r"must lie in 0..100", p.message)}
-    assert rows == {31, 32}  # 101.5 is inside the stated +/- 2 tolerance
+def test_percent_over_full_scale_is_taken_as_measured_up_to_110():
+    # GC / HPLC yields overshoot 100 % near full conversion (integration noise): up to 110 % of full
+    # scale is a measurement (flagged by the kinetics), beyond it or clearly below zero it cannot be
+    # right (common practice, no source)
+    probs = problems(**R("P1,A1,50,102.2", "P1,A1,60,109.9", "P1,A1,70,-3", "P1,A1,80,110.5",
+                         "P1,A1,90,-7"))
+    rows = {p.row for p in probs if re.search(r"must lie in -5..110", p.message)}
+    assert rows == {33, 34}
 
 
 def test_fraction_out_of_range():
     t = toml_with('scale = "percent"', 'scale = "fraction"')
     probs = problems(campaign_toml=t)  # the good readings go up to 40 %, i.e. 40 as a fraction
-    hits = find(probs, "readings.csv", r"fractional conversion must lie in 0..1")
-    assert all(float(p.value) > 1.02 for p in hits)
+    hits = find(probs, "readings.csv", r"fractional conversion must lie in -0.05..1.1")
+    assert all(float(p.value) > 1.10 for p in hits)
 
 
 def test_negative_product_concentration_beyond_noise():
@@ -388,6 +392,23 @@ def test_absorbance_out_of_range():
     rd = "plate,well,time,value\nP1,A1,0,0.02\nP1,A1,10,-0.5\nP1,A1,20,12\nP1,A1,30,-0.05\n"
     hits = find(problems(campaign_toml=t, readings_csv=rd), "readings.csv", r"absorbance outside -0.1..10")
     assert [p.row for p in hits] == [3, 4]
+
+
+def test_absorbance_linear_range_key():
+    base = toml_with('kind = "conversion"\nscale = "percent"',
+                     'kind = "absorbance"\nepsilon_M_cm = 18000\npath_length_cm = 0.5')
+    rd = "plate,well,time,value\nP1,A1,0,0.02\nP1,A1,10,3.4\n"
+    # above the linear range is still a measurement: imported (the kinetics flag and skip it)
+    res = read_campaign(files(campaign_toml=base.replace("path_length_cm = 0.5",
+                                                         "path_length_cm = 0.5\nlinear_range_max = 2.5"),
+                              readings_csv=rd))
+    assert res.data.manifest.linear_range_max == 2.5 and res.data.manifest.absorbance_linear_max == 2.5
+    assert read_campaign(files(campaign_toml=base, readings_csv=rd)).data.manifest.absorbance_linear_max == 3.0
+    bad = base.replace("path_length_cm = 0.5", "path_length_cm = 0.5\nlinear_range_max = -1")
+    find(problems(campaign_toml=bad, readings_csv=rd), "campaign.toml", "'linear_range_max' must be an absorbance > 0",
+         column="readout.linear_range_max")
+    other = toml_with('scale = "percent"', 'scale = "percent"\nlinear_range_max = 2')
+    find(problems(campaign_toml=other), "campaign.toml", "applies to an absorbance readout only")
 
 
 def test_missing_value():

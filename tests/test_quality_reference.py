@@ -14,7 +14,7 @@ NEG = [10, 12, 8, 11, 9]
 
 
 def test_zprime_worked_example_ddof1():
-    # /work/shared/check-values.md section 4 (computed from the Zhang, Chung & Oldenburg 1999 /
+    # docs/check-values.md section 4 (computed from the Zhang, Chung & Oldenburg 1999 /
     # IUPAC Gold Book 'Z' factor' definition): sample SD -> 0.894590744661054
     assert zprime(POS, NEG) == pytest.approx(0.894590744661054, rel=1e-12)
 

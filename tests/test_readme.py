@@ -29,3 +29,22 @@ def test_ci_runs_the_readme_test_command_verbatim():
     test_cmd = _code_blocks(readme)[1]
     assert test_cmd in ci.splitlines()
     assert "chromium" in ci
+
+
+def test_the_import_contract_lives_in_the_repository_and_nothing_points_outside_it():
+    contract = (ROOT / "docs" / "campaign-format.md").read_text(encoding="utf-8")
+    for heading in ("## campaign.toml", "## catalysts.csv", "## plates.csv", "## layout.csv", "## readings.csv",
+                    "## What a bad file gets"):
+        assert heading in contract
+    assert (ROOT / "docs" / "check-values.md").is_file()
+    shared = ROOT.parent / "shared" / "campaign-format.md"   # the team's master copy, where present
+    if shared.is_file():
+        missing = [ln for ln in shared.read_text(encoding="utf-8").splitlines() if ln.strip() and ln not in contract]
+        assert not missing, f"docs/campaign-format.md lacks {len(missing)} lines of the contract, e.g. {missing[:3]}"
+    outside = []
+    for path in [*ROOT.glob("screenlab/**/*.py"), *ROOT.glob("tests/*.py"), *ROOT.glob("*.md"), *ROOT.glob("docs/*.md")]:
+        if path.name == "test_readme.py":
+            continue
+        if "/work/shared" in path.read_text(encoding="utf-8"):
+            outside.append(str(path.relative_to(ROOT)))
+    assert not outside, f"files pointing outside the repository: {outside}"

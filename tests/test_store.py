@@ -9,7 +9,7 @@ Outside references used here:
   Conflicting lock is held in ... (PID n)"; and (https://duckdb.org/docs/2.0/sql/statements/transactions)
   a multi-statement string auto-commits each statement in 2.0.
 * Built-in extensions of the Python wheel: core_functions, json, parquet, icu (duckdb/duckdb-python
-  pyproject.toml BUILD_EXTENSIONS, per /work/shared/ecosystem-notes.md 1.5).
+  pyproject.toml BUILD_EXTENSIONS).
 """
 from __future__ import annotations
 

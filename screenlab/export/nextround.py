@@ -68,7 +68,8 @@ def _manifest(data, name: str, description: str) -> str:
         except tomllib.TOMLDecodeError:
             src = {}
     readout = {"kind": m.readout_kind, "scale": m.readout_scale, "product_per_substrate": m.product_per_substrate,
-               "epsilon_M_cm": m.epsilon_M_cm, "path_length_cm": m.path_length_cm}
+               "epsilon_M_cm": m.epsilon_M_cm, "path_length_cm": m.path_length_cm,
+               "linear_range_max": m.linear_range_max}
     doc = {"campaign": {"name": name, "description": description, "reaction": m.reaction or None},
            "units": {"time": m.time_unit, "concentration": "mM", "volume": "uL"},
            "readout": readout}

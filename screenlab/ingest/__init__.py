@@ -1,6 +1,6 @@
 """Import of campaign folders: read, validate, convert to canonical units.
 
-The contract is /work/shared/campaign-format.md (also summarised in the README). Public API:
+The contract is docs/campaign-format.md (also summarised in the README). Public API:
 
 * :func:`read_campaign` (folder, .zip, campaign.toml path or ``dict`` of uploaded files) ->
   :class:`ReadResult` (``data`` a :class:`~screenlab.model.CampaignData`, ``files`` one

@@ -168,6 +168,18 @@ def parse_manifest(data: bytes | None, problems: list[Problem]) -> tuple[Manifes
                 eps = v
             else:
                 path = v
+    linear_max = None
+    if "linear_range_max" in ro:
+        v = _num(ro["linear_range_max"])
+        if info.get("kind") not in (None, "absorbance"):
+            bad("readout", "linear_range_max", ro["linear_range_max"],
+                "'linear_range_max' (the detector's linear range) applies to an absorbance readout only")
+        elif v is None or v <= 0:
+            bad("readout", "linear_range_max", ro["linear_range_max"],
+                "'linear_range_max' must be an absorbance > 0 (the top of the detector's linear range)")
+        else:
+            linear_max = v
+    info["linear_range_max"] = linear_max
 
     # analysis settings
     an = table("analysis", False)
@@ -225,7 +237,7 @@ def parse_manifest(data: bytes | None, problems: list[Problem]) -> tuple[Manifes
         return None, info
     manifest = Manifest(
         name=name or "", readout_kind=info["kind"], readout_scale=scale, product_per_substrate=pps,
-        epsilon_M_cm=eps, path_length_cm=path, description=description, reaction=reaction,
+        epsilon_M_cm=eps, path_length_cm=path, linear_range_max=linear_max, description=description, reaction=reaction,
         time_unit=info["time_unit"], concentration_unit=info["conc_unit"], volume_unit=info["volume_unit"],
         analysis=dict(an), analyte_main=main, byproducts=byproducts, enantiomers=enantiomers,
         source_toml=text,

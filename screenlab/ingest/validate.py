@@ -8,8 +8,11 @@ Ranges used (stated in the messages too):
 * temperatures: :data:`T_MIN_C` .. :data:`T_MAX_C` degC for well plates and vial blocks (a dry-ice
   bath to a hot aluminium block; common practice, no source), and never below absolute zero
   (-273.15 degC, exact by definition of the kelvin scale);
-* readout values: percent -:data:`PERCENT_TOL` .. 100 + PERCENT_TOL, fraction
-  -:data:`FRACTION_TOL` .. 1 + FRACTION_TOL (instrument noise around 0 and full conversion);
+* readout values: percent -:data:`PERCENT_TOL` .. :data:`PERCENT_MAX`, fraction
+  -:data:`FRACTION_TOL` .. :data:`FRACTION_MAX`: chromatography and plate-reader values overshoot
+  full scale near full conversion (integration and calibration noise), so values up to 110 % of
+  full scale are imported as measured and flagged per well by the kinetics (``above_full_scale``);
+  beyond that, or clearly below zero, the value cannot be right (common practice, no source);
   product concentrations down to -:data:`CONC_TOL_REL` x the largest theoretical product
   concentration of the campaign; absorbance :data:`ABS_MIN` .. :data:`ABS_MAX` (plate readers
   saturate near 4; common practice, no source);
@@ -33,8 +36,11 @@ from .tables import RawTable
 T_MIN_C = -100.0
 T_MAX_C = 300.0
 ABSOLUTE_ZERO_C = -273.15
-PERCENT_TOL = 2.0
-FRACTION_TOL = 0.02
+PERCENT_TOL = 5.0
+FRACTION_TOL = 0.05
+#: highest percent / fraction value imported (110 % of full scale; above 100 the well is flagged)
+PERCENT_MAX = 110.0
+FRACTION_MAX = 1.10
 CONC_TOL_REL = 0.02
 ABS_MIN = -0.1
 ABS_MAX = 10.0
@@ -700,12 +706,14 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
         v, vok = ch.number("value", required=True, what="a value is required")
         kind, scale = info.get("kind"), info.get("scale")
         if kind in ("conversion", "yield") and scale == "percent":
-            ch.report(vok & ((v < -PERCENT_TOL) | (v > 100 + PERCENT_TOL)), "value",
-                      f"a percent {kind} must lie in 0..100 (+/- {PERCENT_TOL:g} for instrument noise)")
+            ch.report(vok & ((v < -PERCENT_TOL) | (v > PERCENT_MAX)), "value",
+                      f"a percent {kind} must lie in -{PERCENT_TOL:g}..{PERCENT_MAX:g} (values up to "
+                      f"{PERCENT_MAX:g} % of full scale are taken as measured and flagged; beyond that, or "
+                      "clearly below zero, the value cannot be right)")
         elif kind in ("conversion", "yield") and scale == "fraction":
-            ch.report(vok & ((v < -FRACTION_TOL) | (v > 1 + FRACTION_TOL)), "value",
-                      f"a fractional {kind} must lie in 0..1 (+/- {FRACTION_TOL:g} for instrument noise); "
-                      "is it in percent?")
+            ch.report(vok & ((v < -FRACTION_TOL) | (v > FRACTION_MAX)), "value",
+                      f"a fractional {kind} must lie in -{FRACTION_TOL:g}..{FRACTION_MAX:g} (values up to "
+                      f"{FRACTION_MAX:g} are taken as measured and flagged); is it in percent?")
         elif kind == "product_conc":
             top = np.nanmax(wells["substrate_conc_mM"].to_numpy(dtype=float), initial=0.0) if len(wells) else 0.0
             cf = info.get("conc_factor") or np.nan

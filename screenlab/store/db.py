@@ -393,8 +393,16 @@ def plate_fingerprints(plates: pd.DataFrame, wells: pd.DataFrame, factors: pd.Da
                          "fp_readings": fp_readings}, columns=["plate", "fp_plate", "fp_layout", "fp_readings"])
 
 
+#: Manifest fields added after stores were first written: left out of the stored dict (and so of
+#: the fingerprint) while they hold their default None, so an unchanged campaign stays unchanged
+_LATER_MANIFEST_FIELDS = ("linear_range_max",)
+
+
 def _manifest_dict(m: Manifest) -> dict:
     d = dataclasses.asdict(m)
+    for key in _LATER_MANIFEST_FIELDS:
+        if d.get(key) is None:
+            d.pop(key, None)
     return json.loads(json.dumps(d, default=str))
 
 
