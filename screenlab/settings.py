@@ -17,11 +17,11 @@ class Setting:
 
 
 SETTINGS: tuple[Setting, ...] = (
-    Setting("conversion_window_pct", 20.0,
-            "Initial-rate window: readings at or below this conversion (percent of the "
-            "theoretical product) are used for the initial slope. 10-20 % is the usual "
-            "initial-rate window (common practice, no source)."),
-    Setting("min_window_points", 3, "Fewest readings inside the window for a straight-line initial slope."),
+    Setting("conversion_window_pct", 50.0,
+            "Early window of the generic rate law (a quadratic through the origin, used where a course "
+            "is not initial-rate kinetics): readings up to the first one at or above this percent of the "
+            "course's largest product."),
+    Setting("min_window_points", 3, "Fewest readings in the early window of the generic rate law."),
     Setting("reference_temperature_c", 60.0, "Temperature at which TOF is compared across candidates, degC."),
     Setting("confidence", 0.95, "Confidence level of every interval."),
     Setting("outlier_z", 3.5,
@@ -30,6 +30,9 @@ SETTINGS: tuple[Setting, ...] = (
             "Apparent Ea below this suggests transport (diffusion) control (common practice, no source)."),
     Setting("zprime_min", 0.5,
             "Plates with Z' below this are flagged (Zhang, Chung & Oldenburg 1999; IUPAC Gold Book 'Z' factor')."),
+    Setting("include_irregular_courses", False,
+            "Fit the Arrhenius line through temperatures whose courses show induction, product decline or "
+            "deactivation (left out by default: their initial rate is not the catalyst's working rate)."),
 )
 
 _DEFAULTS = {s.name: s.default for s in SETTINGS}
@@ -44,6 +47,7 @@ class AnalysisSettings:
     outlier_z: float = _DEFAULTS["outlier_z"]
     low_ea_kj_mol: float = _DEFAULTS["low_ea_kj_mol"]
     zprime_min: float = _DEFAULTS["zprime_min"]
+    include_irregular_courses: bool = _DEFAULTS["include_irregular_courses"]
 
     @classmethod
     def from_mapping(cls, mapping: dict[str, Any] | None, **overrides: Any) -> "AnalysisSettings":

@@ -326,4 +326,310 @@ def write_campaign_folder(out_dir, spec: SyntheticSpec | None = None, **kwargs) 
     return out
 
 
-__all__ = ["REFERENCE_CATALYST", "SyntheticSpec", "synthetic_campaign", "truth_table", "write_campaign_folder"]
+# ------------------------------------------------------------------------------------------------
+# Campaigns of mixed rate laws with known truth (for the truth-recovery study of the rate step)
+# ------------------------------------------------------------------------------------------------
+
+#: time-course shapes :func:`kinetics_campaign` can give a candidate; ``*`` marks those whose
+#: initial rate is measurable (a point estimate is expected), the others test bounds and flags
+BEHAVIOURS: dict[str, str] = {
+    "first_order": "* r = k S",
+    "near_zero_order": "* saturation with Km = 0.02 S0: straight until the substrate runs out",
+    "saturation": "* r = V S / (Km + S), Km between 0.3 and 3 S0",
+    "deactivation": "* r = k S exp(-kd t): the catalyst decays at first order",
+    "induction": "r = k S (1 - exp(-t / tau)): the catalyst needs activating; initial rate 0",
+    "too_fast": "r = k S with the course complete before the first reading",
+    "inactive": "no catalysed reaction: only the background",
+    "consecutive": "* S -> P -> Q: the product is consumed later (k2 = k1)",
+}
+MEASURABLE = tuple(b for b, d in BEHAVIOURS.items() if d.startswith("*"))
+
+
+@dataclass(frozen=True)
+class KineticsSpec:
+    """A small campaign of candidates with known rate laws (all invented).
+
+    One plate per temperature; every plate holds ``n_blanks`` blanks, ``n_reference`` wells of the
+    first-order benchmark :data:`REFERENCE_CATALYST` and ``replicates`` wells of every candidate.
+    Candidates take the ``behaviours`` in turn (see :data:`BEHAVIOURS`), TOFs at the reference
+    temperature log-normal about ``tof_median_per_h``, Ea normal about ``ea_mean_kj_mol``.
+    Every well's catalyst amount scatters by ``replicate_cv`` (dispensing) and every plate's rate
+    constants, background included, by a log-normal factor of SD ``plate_sd`` (block temperature,
+    evaporation); the truth is the nominal value, without either. Readings are yields in percent
+    with Gaussian noise of ``noise_pct`` points, exported as measured (values above 100 % stay),
+    rounded to two decimals. The background is first order in substrate (``blank_k_per_h``) and
+    runs beside the catalysed reaction on the substrate left.
+    """
+
+    behaviours: tuple[str, ...] = tuple(BEHAVIOURS)
+    n_candidates: int = 24
+    temperatures_c: tuple[float, ...] = (40.0, 50.0, 60.0, 70.0)
+    replicates: int = 3
+    n_blanks: int = 4
+    n_reference: int = 4
+    fmt: int = 96
+    times_min: tuple[float, ...] = (0.0, 15.0, 30.0, 60.0, 120.0, 180.0, 240.0, 360.0)
+    noise_pct: float = 0.5
+    replicate_cv: float = 0.03
+    plate_sd: float = 0.03
+    substrate_mM: float = 200.0
+    volume_uL: float = 500.0
+    loading_umol: float = 0.5
+    tof_median_per_h: float = 30.0
+    tof_log_sd: float = 0.5
+    ea_mean_kj_mol: float = 65.0
+    ea_sd_kj_mol: float = 10.0
+    reference_tof_per_h: float = 40.0
+    reference_ea_kj_mol: float = 60.0
+    blank_k_per_h: float = 0.002
+    blank_ea_kj_mol: float = 85.0
+    near_zero_km_ratio: float = 0.02
+    saturation_km_ratio: tuple[float, float] = (0.3, 3.0)
+    kd_ref_per_h: float = 0.4
+    kd_ea_kj_mol: float = 90.0
+    induction_tau_ref_h: float = 0.6
+    induction_ea_kj_mol: float = 70.0
+    consecutive_k2_ratio: float = 1.0
+    too_fast_tof_per_h: float = 30000.0
+    reference_temperature_c: float = 60.0
+    seed: int = 0
+    name: str | None = None
+
+    def __post_init__(self) -> None:
+        unknown = set(self.behaviours) - set(BEHAVIOURS)
+        if unknown or not self.behaviours:
+            raise ValueError(f"unknown behaviours {sorted(unknown)}; known: {', '.join(BEHAVIOURS)}")
+        if self.fmt not in FORMATS:
+            raise ValueError(f"plate format {self.fmt} is not one of {', '.join(map(str, FORMATS))}")
+        need = self.n_blanks + self.n_reference + self.n_candidates * self.replicates
+        if need > self.fmt or self.n_candidates < 1 or self.replicates < 1:
+            raise ValueError(f"{need} filled wells do not fit a {self.fmt}-well plate")
+        if not self.times_min or min(self.times_min) < 0:
+            raise ValueError("times_min must be non-empty and >= 0")
+
+    @property
+    def campaign_name(self) -> str:
+        return self.name or f"kinetics-mix-s{self.seed}"
+
+
+@dataclass(frozen=True)
+class KineticsCampaign:
+    """What :func:`kinetics_campaign` gives: the campaign as read by the importer, its files, and
+    the truth.
+
+    ``truth`` one row per catalyst x temperature: ``catalyst, behaviour, role, temperature_c,
+    tof_per_h`` (nominal initial TOF of the catalysed pathway, h-1; 0 for induction and inactive),
+    ``tof_max_per_h`` (largest TOF over the course), ``ton`` (catalysed product per site at the
+    last reading; NaN for consecutive courses, where the product is consumed), ``final_conversion_pct``
+    (nominal), ``ea_kj_mol``, ``measurable`` (a point estimate of the initial TOF is expected),
+    ``expected_censored`` (``lower`` too fast, ``upper`` inactive, else ""); plus rows for
+    ``(uncatalysed)`` with the background's initial rate in ``tof_per_h`` as mM/h.
+    """
+
+    data: CampaignData
+    files: dict[str, bytes]
+    truth: pd.DataFrame
+    spec: KineticsSpec
+
+
+def _rate_constants(spec: KineticsSpec, rng) -> pd.DataFrame:
+    n = spec.n_candidates
+    beh = np.array([spec.behaviours[i % len(spec.behaviours)] for i in range(n)], dtype=object)
+    tof = spec.tof_median_per_h * np.exp(spec.tof_log_sd * rng.standard_normal(n))
+    tof = np.where(beh == "too_fast", spec.too_fast_tof_per_h, tof)
+    tof = np.where(beh == "inactive", 0.0, tof)
+    ea = np.clip(spec.ea_mean_kj_mol + spec.ea_sd_kj_mol * rng.standard_normal(n), 30.0, 110.0)
+    lo, hi = np.log(spec.saturation_km_ratio[0]), np.log(spec.saturation_km_ratio[1])
+    km = np.where(beh == "saturation", np.exp(rng.uniform(lo, hi, n)),
+                  np.where(beh == "near_zero_order", spec.near_zero_km_ratio, np.nan))
+    return pd.DataFrame({
+        "catalyst": np.concatenate([_catalyst_ids(n), [REFERENCE_CATALYST]]),
+        "behaviour": np.concatenate([beh, ["first_order"]]),
+        "role": np.concatenate([np.full(n, "sample"), ["reference"]]),
+        "tof_ref_per_h": np.concatenate([tof, [spec.reference_tof_per_h]]),
+        "ea_kj_mol": np.concatenate([ea, [spec.reference_ea_kj_mol]]),
+        "km_ratio": np.concatenate([km, [np.nan]]),
+    })
+
+
+def _integrate_courses(beh, r0, km, kd, tau, k_bg, t_h, k2_ratio=1.0) -> dict[str, np.ndarray]:
+    """Integrate every well's course by RK4 between the reading times (vectorised over wells).
+
+    State: substrate s and product p as fractions of the initial substrate, and the product q of
+    the catalysed pathway alone (for the TON). ``r0`` is the initial catalysed rate (fraction/h).
+    Returns s, p, q at every reading (wells x times) and the largest catalysed rate seen.
+    """
+    n = len(beh)
+    fast = beh == "too_fast"
+    if fast.any():
+        # plain first order (closed form): s = exp(-(k + kb) t), the catalysed share k / (k + kb);
+        # kept out of the step-size choice of the others
+        slow = {key: None for key in ("s", "p", "q", "rmax")}
+        rest = np.flatnonzero(~fast)
+        if rest.size:
+            sub = _integrate_courses(beh[rest], r0[rest], km[rest], kd[rest], tau[rest], k_bg[rest], t_h, k2_ratio)
+        kt = (r0[fast] + k_bg[fast])[:, None] * np.asarray(t_h, dtype=float)[None, :]
+        s_f = np.exp(-kt)
+        share = (r0[fast] / (r0[fast] + k_bg[fast]))[:, None]
+        for key in slow:
+            slow[key] = np.zeros((n, len(t_h))) if key != "rmax" else np.zeros(n)
+        slow["s"][fast], slow["p"][fast], slow["q"][fast] = s_f, 1.0 - s_f, share * (1.0 - s_f)
+        slow["rmax"][fast] = r0[fast]
+        if rest.size:
+            for key in slow:
+                slow[key][rest] = sub[key]
+        return slow
+    sat = np.isin(beh, ["near_zero_order", "saturation"])
+    vs = np.where(sat, r0 * (1.0 + np.nan_to_num(km)), 0.0)          # V / S0, fraction/h
+    k = np.where(sat, 0.0, r0)
+    k2 = np.where(beh == "consecutive", k2_ratio * r0, 0.0)
+    kdd = np.where(beh == "deactivation", kd, 0.0)
+    tau_ = np.where(beh == "induction", tau, 0.0)
+    km_ = np.where(sat, km, 1.0)
+
+    def cat_rate(s, t):
+        act = np.exp(-kdd * t) * np.where(tau_ > 0, -np.expm1(-t / np.where(tau_ > 0, tau_, 1.0)), 1.0)
+        return (k * s + np.where(sat, vs * s / (km_ + s), 0.0)) * act
+
+    def deriv(state, t):
+        s, p, q = state
+        rc = cat_rate(s, t)
+        rb = k_bg * s
+        return np.stack([-(rc + rb), rc + rb - k2 * p, rc])
+
+    times = np.asarray(t_h, dtype=float)
+    state = np.stack([np.ones(n), np.zeros(n), np.zeros(n)])
+    out = np.zeros((3, n, len(times)))
+    rmax = cat_rate(np.ones(n), 0.0)
+    k_top = float(np.nanmax(np.concatenate([k, vs / km_, k_bg, k2, kdd, 1.0 / np.where(tau_ > 0, tau_, np.inf), [1.0]])))
+    t_prev = 0.0
+    for j, t_next in enumerate(times):          # a loop over reading times, vectorised over wells
+        span = t_next - t_prev
+        steps = max(50, int(np.ceil(span * k_top / 0.25)))
+        h = span / steps if steps else 0.0
+        t = t_prev
+        for _ in range(steps if span > 0 else 0):
+            a = deriv(state, t)
+            b = deriv(state + 0.5 * h * a, t + 0.5 * h)
+            c = deriv(state + 0.5 * h * b, t + 0.5 * h)
+            d = deriv(state + h * c, t + h)
+            state = state + h / 6.0 * (a + 2 * b + 2 * c + d)
+            t += h
+            rmax = np.maximum(rmax, cat_rate(state[0], t))
+        out[:, :, j] = state
+        t_prev = t_next
+    return {"s": out[0], "p": out[1], "q": out[2], "rmax": rmax}
+
+
+def kinetics_campaign(spec: KineticsSpec | None = None, **kwargs) -> KineticsCampaign:
+    """Build the campaign of ``spec`` (or ``KineticsSpec(**kwargs)``) as files, read them with the
+    importer (so the data pass every import check, over-range yields included) and return the
+    campaign with its truth (see :class:`KineticsCampaign`)."""
+    from screenlab.ingest import read_campaign
+
+    spec = spec if spec is not None else KineticsSpec(**kwargs)
+    rng = np.random.default_rng([spec.seed, 11])
+    cats = _rate_constants(spec, rng)
+    n_t = len(spec.temperatures_c)
+    F = spec.fmt
+    plate_ids = np.array([f"T{int(round(t)):d}" if float(t).is_integer() else f"T{t:g}"
+                          for t in spec.temperatures_c], dtype=object)
+    if len(set(plate_ids)) != n_t:
+        plate_ids = np.array([f"P{i + 1}" for i in range(n_t)], dtype=object)
+    nc, reps = spec.n_candidates, spec.replicates
+    slot_role = np.concatenate([np.full(spec.n_blanks, "blank"), np.full(spec.n_reference, "reference"),
+                                np.full(nc * reps, "sample")])
+    slot_cat = np.concatenate([np.full(spec.n_blanks, -1), np.full(spec.n_reference, nc),
+                               np.repeat(np.arange(nc), reps)])
+    n_slot = len(slot_role)
+    grid = all_wells(F)
+    pos = np.stack([rng.permutation(F)[:n_slot] for _ in range(n_t)])    # slot -> position, per plate
+    plate_of = np.repeat(np.arange(n_t), n_slot)
+    role = np.tile(slot_role, n_t)
+    cat_idx = np.tile(slot_cat, n_t)
+    well = grid["well"].to_numpy()[pos.ravel()]
+    temp = np.asarray(spec.temperatures_c, dtype=float)[plate_of]
+    has_cat = cat_idx >= 0
+    ci = np.maximum(cat_idx, 0)
+    tref = spec.reference_temperature_c
+    site_mM = spec.loading_umol / spec.volume_uL * 1e3
+    # per-plate and per-well scatter (truth is nominal, without them)
+    plate_f = np.exp(spec.plate_sd * rng.standard_normal(n_t))[plate_of]
+    well_f = np.maximum(1.0 + spec.replicate_cv * rng.standard_normal(len(role)), 0.05)
+    tof_t = np.where(has_cat, _arrhenius(cats["tof_ref_per_h"].to_numpy()[ci], cats["ea_kj_mol"].to_numpy()[ci],
+                                         temp, tref), 0.0)
+    r0 = tof_t * site_mM / spec.substrate_mM * plate_f * np.where(has_cat, well_f, 1.0)   # fraction / h
+    beh = np.where(has_cat, cats["behaviour"].to_numpy()[ci], "none").astype(object)
+    km = np.where(has_cat, cats["km_ratio"].to_numpy()[ci], np.nan)
+    kd = spec.kd_ref_per_h * _arrhenius(1.0, spec.kd_ea_kj_mol, temp, tref)
+    tau = spec.induction_tau_ref_h / _arrhenius(1.0, spec.induction_ea_kj_mol, temp, tref)
+    k_bg = _arrhenius(spec.blank_k_per_h, spec.blank_ea_kj_mol, temp, tref) * plate_f
+    t_min = np.asarray(spec.times_min, dtype=float)
+    t_h = t_min * time_factor_to_h("min")
+    course = _integrate_courses(beh, r0, km, kd, tau, k_bg, t_h, spec.consecutive_k2_ratio)
+    y = 100.0 * course["p"] + spec.noise_pct * rng.standard_normal(course["p"].shape)
+    y = np.round(np.clip(y, -4.9, 109.9), 2) + 0.0
+
+    cat_ids = cats["catalyst"].to_numpy()
+    layout = pd.DataFrame({
+        "plate": plate_ids[plate_of], "well": well, "role": role,
+        "catalyst": np.where(has_cat, cat_ids[ci], ""),
+        "loading": np.where(has_cat, spec.loading_umol, np.nan),
+        "loading_unit": np.where(has_cat, "umol", ""),
+        "substrate_conc": spec.substrate_mM, "volume": spec.volume_uL,
+    })
+    readings = pd.DataFrame({"plate": np.repeat(layout["plate"].to_numpy(), len(t_min)),
+                             "well": np.repeat(well, len(t_min)), "time": np.tile(t_min, len(role)),
+                             "value": y.ravel()})
+    catalysts = pd.DataFrame({"catalyst": cat_ids, "name": np.char.add("invented ", cat_ids.astype(str)),
+                              "family": cats["behaviour"].to_numpy(), "sites_per_unit": 1.0})
+    plates = pd.DataFrame({"plate": plate_ids, "format": F, "temperature_c": np.asarray(spec.temperatures_c)})
+    toml = ("[campaign]\n"
+            f"name = {json.dumps(spec.campaign_name)}\n"
+            f'description = "Invented truth-recovery campaign: {nc} candidates of mixed rate laws, seed {spec.seed}"\n'
+            'reaction = "S -> P (synthetic)"\n\n'
+            '[units]\ntime = "min"\nconcentration = "mM"\nvolume = "uL"\n\n'
+            '[readout]\nkind = "yield"\nscale = "percent"\nproduct_per_substrate = 1.0\n\n'
+            f"[analysis]\nreference_temperature_c = {_toml_number(tref)}\n")
+
+    def csv(frame):
+        return frame.to_csv(index=False, lineterminator="\n").encode()
+
+    files = {"campaign.toml": toml.encode(), "catalysts.csv": csv(catalysts), "plates.csv": csv(plates),
+             "layout.csv": csv(layout), "readings.csv": csv(readings)}
+    data = read_campaign(dict(files)).data
+
+    # truth per catalyst x temperature from the nominal courses (no plate or well scatter)
+    T = np.asarray(spec.temperatures_c, dtype=float)
+    cat_rep = np.repeat(np.arange(len(cats)), n_t)
+    t_rep = np.tile(T, len(cats))
+    b_rep = cats["behaviour"].to_numpy()[cat_rep]
+    tof_nom = _arrhenius(cats["tof_ref_per_h"].to_numpy()[cat_rep], cats["ea_kj_mol"].to_numpy()[cat_rep], t_rep, tref)
+    r0n = tof_nom * site_mM / spec.substrate_mM
+    kdn = spec.kd_ref_per_h * _arrhenius(1.0, spec.kd_ea_kj_mol, t_rep, tref)
+    taun = spec.induction_tau_ref_h / _arrhenius(1.0, spec.induction_ea_kj_mol, t_rep, tref)
+    kbn = _arrhenius(spec.blank_k_per_h, spec.blank_ea_kj_mol, t_rep, tref)
+    nom = _integrate_courses(b_rep, r0n, cats["km_ratio"].to_numpy()[cat_rep], kdn, taun, kbn, t_h,
+                             spec.consecutive_k2_ratio)
+    init = np.where(np.isin(b_rep, ["induction", "inactive"]), 0.0, tof_nom)
+    ton = nom["q"][:, -1] * spec.substrate_mM / site_mM
+    truth = pd.DataFrame({
+        "catalyst": cats["catalyst"].to_numpy()[cat_rep], "behaviour": b_rep,
+        "role": cats["role"].to_numpy()[cat_rep], "temperature_c": t_rep, "tof_per_h": init,
+        "tof_max_per_h": nom["rmax"] * spec.substrate_mM / site_mM,
+        "ton": np.where(b_rep == "consecutive", np.nan, ton),
+        "final_conversion_pct": 100.0 * nom["p"][:, -1],
+        "ea_kj_mol": cats["ea_kj_mol"].to_numpy()[cat_rep],
+        "measurable": np.isin(b_rep, MEASURABLE),
+        "expected_censored": np.where(b_rep == "too_fast", "lower", np.where(b_rep == "inactive", "upper", "")),
+    })
+    bg = pd.DataFrame({"catalyst": UNCATALYSED, "behaviour": "background", "role": "blank", "temperature_c": T,
+                       "tof_per_h": _arrhenius(spec.blank_k_per_h, spec.blank_ea_kj_mol, T, tref) * spec.substrate_mM,
+                       "tof_max_per_h": np.nan, "ton": np.nan, "final_conversion_pct": np.nan,
+                       "ea_kj_mol": spec.blank_ea_kj_mol, "measurable": True, "expected_censored": ""})
+    truth = pd.concat([truth, bg], ignore_index=True)
+    return KineticsCampaign(data=data, files=files, truth=truth, spec=spec)
+
+
+__all__ = ["BEHAVIOURS", "KineticsCampaign", "KineticsSpec", "MEASURABLE", "REFERENCE_CATALYST", "SyntheticSpec",
+           "kinetics_campaign", "synthetic_campaign", "truth_table", "write_campaign_folder"]

@@ -187,6 +187,9 @@ def parse_manifest(data: bytes | None, problems: list[Problem]) -> tuple[Manifes
     for key, v in an.items():
         if key not in known:
             bad("analysis", key, v, f"unknown analysis setting; known: {', '.join(sorted(known))}")
+        elif isinstance(known[key].default, bool):
+            if not isinstance(v, bool):
+                bad("analysis", key, v, f"'{key}' must be true or false")
         elif _num(v) is None:
             bad("analysis", key, v, "analysis settings must be numbers")
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
 from screenlab.settings import AnalysisSettings
@@ -64,9 +65,50 @@ def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> Kinetics
     selectivity = well_selectivity(data, amounts, settings)
     groups = group_rates(wells, settings, factor_names=data.factor_names, selectivity=selectivity)
     arr = arrhenius_table(groups, blanks, settings)
+    groups = with_plate_scatter(groups, arr, settings)
     orders = apparent_orders(wells, settings, factor_names=data.factor_names)
     return KineticsResult(amounts=amounts, wells=wells, blanks=blanks, rates=groups, arrhenius=arr,
                           orders=orders, settings=settings, selectivity=selectivity)
 
 
-__all__ = ["KineticsResult", "analyse_kinetics"]
+def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: AnalysisSettings) -> pd.DataFrame:
+    """The rates table with the Arrhenius step's verdict per row (``in_arrhenius_fit``,
+    ``arrhenius_left_out``) and TOF intervals that hold across plates.
+
+    ``tof_rep_se_per_h`` is the SE from the replicates, their fit errors and the blank; the
+    campaign's plate-to-plate scatter (a relative SD on ln TOF, ``arr.attrs["plate_scatter_ln"]``,
+    see :func:`screenlab.kinetics.arrhenius.plate_scatter`) is added in quadrature,
+    ``tof_se_per_h = sqrt(rep_se^2 + (tau x TOF)^2)``, with Welch-Satterthwaite df, and the
+    interval is recomputed; bounds (``censored``) keep theirs.
+    """
+    from screenlab.kinetics.arrhenius import arrhenius_points
+    from screenlab.kinetics.turnover import t_quantile, welch_df
+
+    if not len(groups):
+        return groups.assign(in_arrhenius_fit=pd.Series(dtype=bool), arrhenius_left_out=pd.Series(dtype=object),
+                             plate_scatter_ln=pd.Series(dtype=float))
+    in_fit, reason = arrhenius_points(groups, settings)
+    tau = float(arr.attrs.get("plate_scatter_ln", 0.0) or 0.0)
+    tau_df = float(arr.attrs.get("plate_scatter_df", np.inf))
+    tof = pd.to_numeric(groups["tof_per_h"], errors="coerce").to_numpy(float)
+    se = pd.to_numeric(groups["tof_rep_se_per_h"], errors="coerce").to_numpy(float)
+    df = pd.to_numeric(groups["tof_df"], errors="coerce").to_numpy(float)
+    cens = groups["censored"].astype("string").fillna("").to_numpy(dtype=object)
+    measured = (cens == "") & np.isfinite(tof) & np.isfinite(se)
+    with np.errstate(invalid="ignore"):
+        v_plate = (tau * tof) ** 2
+        se_tot = np.sqrt(se ** 2 + v_plate)
+        df_tot = welch_df(se ** 2, df, v_plate, tau_df)
+        q = t_quantile(settings.confidence, df_tot)
+    out = groups.copy()
+    out["tof_se_per_h"] = np.where(measured, se_tot, out["tof_se_per_h"].to_numpy(float))
+    out["tof_df"] = np.where(measured, df_tot, df)
+    out["tof_ci_low"] = np.where(measured, tof - q * se_tot, out["tof_ci_low"].to_numpy(float))
+    out["tof_ci_high"] = np.where(measured, tof + q * se_tot, out["tof_ci_high"].to_numpy(float))
+    out["in_arrhenius_fit"] = in_fit
+    out["arrhenius_left_out"] = reason
+    out["plate_scatter_ln"] = tau
+    return out
+
+
+__all__ = ["KineticsResult", "analyse_kinetics", "with_plate_scatter"]

@@ -31,7 +31,12 @@ from screenlab.model import CampaignData
 from screenlab.units import conc_factor_to_mM
 
 #: columns of :func:`product_amounts`, in order
-AMOUNT_COLUMNS = ("plate", "well", "analyte", "time_h", "product_mM", "conversion_pct", "baseline")
+AMOUNT_COLUMNS = ("plate", "well", "analyte", "time_h", "product_mM", "conversion_pct", "baseline", "range_code")
+#: ``range_code`` values: the reading is within its instrument's range, above full scale (a percent
+#: or fractional readout past 100 %: kept, the well flagged ``above_full_scale``) or above the
+#: detector's linear range (absorbance past ``[readout].linear_range_max``: flagged
+#: ``above_linear_range`` and left out of the rate fit)
+IN_RANGE, ABOVE_FULL_SCALE, ABOVE_LINEAR_RANGE = 0, 1, 2
 
 #: time (h) at or below which a reading counts as taken at t = 0 (about 4 ms)
 T0_TOLERANCE_H = 1.0e-6
@@ -181,7 +186,8 @@ def _missing_strings(n: int):
 
 
 def product_amounts(data: CampaignData) -> pd.DataFrame:
-    """One row per reading: ``plate, well, analyte, time_h, product_mM, conversion_pct, baseline``.
+    """One row per reading: ``plate, well, analyte, time_h, product_mM, conversion_pct, baseline,
+    range_code`` (int8, see :data:`IN_RANGE`).
 
     ``baseline`` is ``t0`` or ``first_reading`` for absorbance readouts (which reading was taken
     as zero product) and NA for the other kinds. Rows keep the order of ``data.readings`` (sorted
@@ -205,8 +211,12 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
     # the baseline column (string dtype) by one take from its few words, not one conversion per row
     baseline = _missing_strings(n)
 
+    range_code = np.zeros(n, dtype=np.int8)
     if kind in ("conversion", "yield"):
-        product = value * _fraction_scale(m) * theo
+        frac = value * _fraction_scale(m)
+        product = frac * theo
+        with np.errstate(invalid="ignore"):
+            range_code[frac > 1.0 + 1e-12] = ABOVE_FULL_SCALE
     elif kind == "product_conc":
         product = value * conc_factor_to_mM(m.concentration_unit)
     elif kind == "absorbance":
@@ -219,15 +229,20 @@ def product_amounts(data: CampaignData) -> pd.DataFrame:
         rd["value"] = value
         base, is_t0 = _absorbance_baseline(rd)
         product = (value - base) / (float(eps) * float(path)) * 1000.0   # mol/L -> mM
+        with np.errstate(invalid="ignore"):
+            range_code[value > m.absorbance_linear_max] = ABOVE_LINEAR_RANGE
         baseline = pd.array(["first_reading", "t0"], dtype="string").take(is_t0.astype(np.intp))
     else:
         raise UsageError(f"campaign.toml: unknown [readout].kind {m.readout_kind!r}")
 
     with np.errstate(divide="ignore", invalid="ignore"):
         conv = np.where(theo > 0, product / theo * 100.0, np.nan)
+        if kind == "product_conc":         # more product than the substrate allows: over full scale
+            range_code[conv > 100.0 + 1e-9] = ABOVE_FULL_SCALE
     # string columns are passed on as they are (converting Arrow strings to numpy is slow)
     out = pd.DataFrame({"plate": src["plate"].array, "well": src["well"].array, "analyte": src["analyte"].array,
-                        "time_h": time_h, "product_mM": product, "conversion_pct": conv, "baseline": baseline})
+                        "time_h": time_h, "product_mM": product, "conversion_pct": conv, "baseline": baseline,
+                        "range_code": range_code})
 
     if m.enantiomers:
         w = wells[["plate", "well", "substrate_conc_mM"]].drop_duplicates(["plate", "well"])
@@ -255,6 +270,7 @@ def _add_enantiomer_sum(out: pd.DataFrame, pair, main: str, wells: pd.DataFrame,
         "analyte": main, "time_h": summed["time_h"].to_numpy(),
         "product_mM": summed["product_mM"].to_numpy(dtype=float), "conversion_pct": conv,
         "baseline": pd.array([pd.NA] * len(summed), dtype="string"),
+        "range_code": np.zeros(len(summed), dtype=np.int8),
     })
     rest = out[out["analyte"] != main]
     return pd.concat([rest, main_rows], ignore_index=True)

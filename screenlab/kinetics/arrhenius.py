@@ -52,6 +52,14 @@ FLAGS: dict[str, str] = {
     "curvature": "A 1/T^2 term is significant (p < 0.05): the Arrhenius plot is curved (changing mechanism "
                  "or transport limits).",
     "no_activity": "At some temperature the net TOF is not above the blank; those points are left out of the fit.",
+    "left_out_irregular": "Some temperatures have courses that are not initial-rate kinetics (induction, product "
+                          "decline, deactivation); they are left out of the fit (see left_out).",
+    "left_out_bound": "At some temperature the catalyst was faster than the first reading allows (a lower bound); "
+                      "that point is left out of the fit.",
+    "left_out_below_lod": "At some temperature the blank is below its detection limit; that point is left out of "
+                          "the uncatalysed fit.",
+    "arrhenius_scatter": "The points scatter about the line more than their replicate errors and the campaign's "
+                         "plate-to-plate scatter explain (chi-square p < 0.01).",
     "low_ea": "The apparent Ea is below the low-Ea limit: transport (diffusion) control is likely.",
     "unweighted": "Some points had no standard error, so the Arrhenius fit is unweighted.",
 }
@@ -60,7 +68,8 @@ COLUMNS = ["catalyst", "role", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mo
            "ea_ci_high", "ln_a", "ln_a_se", "dh_kj_mol", "dh_se", "ds_j_mol_k", "ds_se", "dg_ref_kj_mol",
            "tof_ref_per_h", "tof_ref_ci_low", "tof_ref_ci_high", "delta_ea_kj_mol", "delta_ea_ci_low",
            "delta_ea_ci_high", "curvature_p", "fit_intercept", "fit_slope_k", "cov_ii", "cov_is", "cov_ss",
-           "fit_df", "flags", "dg_ref_se", "fit_weighted", "reference_temperature_c"]
+           "fit_df", "flags", "dg_ref_se", "fit_weighted", "reference_temperature_c", "chi2_per_df",
+           "plate_scatter_ln", "left_out"]
 
 LN_KB_OVER_H = float(np.log(units.KB_J_K / units.H_J_S))
 
@@ -123,7 +132,8 @@ def _group_sum(codes, n_groups, values) -> np.ndarray:
 
 
 def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h, se_per_h=None, *,
-                          confidence=0.95, reference_temperature_c=60.0, low_ea_kj_mol=None) -> dict:
+                          confidence=0.95, reference_temperature_c=60.0, low_ea_kj_mol=None,
+                          tau2: float | None = None, tau2_df: float = np.inf) -> dict:
     """Arrhenius + Eyring fits of many series at once: point i belongs to series ``group_codes[i]``.
 
     The same definitions as :func:`fit_temperature_series` (module docstring), computed for all
@@ -134,6 +144,12 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
     series is weighted when every one of its points has a finite positive SE, else unweighted with
     flag ``unweighted``. Returns a dict of arrays of length ``n_groups`` keyed like :data:`COLUMNS`
     (except catalyst/role/delta_ea*); ``flags`` is an object array of str.
+
+    ``tau2`` (the campaign's plate-to-plate variance of ln value, see :func:`plate_scatter`): when
+    given, every point's variance is ``(se/value)^2 + tau2``, the covariance is (X'WX)^-1 as it
+    stands (the error scale is known, not re-estimated from the series' own few residuals) and
+    intervals use Student t on ``tau2_df`` (the pooled df of that estimate). ``chi2_per_df`` is
+    the series' weighted residual sum of squares over n - 2 either way.
     """
     g = np.asarray(group_codes, dtype=np.int64)
     t_c = np.asarray(temperature_c, float)
@@ -176,7 +192,13 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
         weighted = np.bincount(g, weights=~ok, minlength=G) == 0
         unweighted_flag = ~weighted
         with np.errstate(invalid="ignore", divide="ignore"):
-            w = np.where(weighted[g], (v / np.where(ok, se, 1.0)) ** 2, 1.0)
+            if tau2 is not None:
+                var_ln = np.where(ok, (se / v) ** 2, 0.0) + float(tau2)
+                weighted = np.bincount(g, weights=~(var_ln > 0), minlength=G) == 0
+                unweighted_flag = ~weighted
+                w = np.where(weighted[g], 1.0 / np.where(var_ln > 0, var_ln, 1.0), 1.0)
+            else:
+                w = np.where(weighted[g], (v / np.where(ok, se, 1.0)) ** 2, 1.0)
     weighted &= fit
     unweighted_flag &= fit
     out["fit_weighted"] = weighted
@@ -204,12 +226,20 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
         pos = fit & (df > 0)
         s2 = np.where(pos, rss / np.where(pos, df, 1.0), np.nan)
         s2e = np.where(pos, rss_e / np.where(pos, df, 1.0), np.nan)
-        # covariance scale floored at 1 for weighted fits (then the error scale is the replicates'
-        # and the df infinite); the Eyring line's own scale is floored the same way
-        floor = pos & weighted & (s2 < 1.0)
-        s2 = np.where(floor, 1.0, s2)
-        df = np.where(floor, np.inf, df)
-        s2e = np.where(pos & weighted & (s2e < 1.0), 1.0, s2e)
+        out["chi2_per_df"] = np.where(pos & weighted, s2, np.nan)
+        if tau2 is not None:
+            # known error scale (replicate SEs plus the campaign's plate scatter): no rescaling
+            known = pos & weighted
+            s2 = np.where(known, 1.0, s2)
+            s2e = np.where(known, 1.0, s2e)
+            df = np.where(known, float(tau2_df), df)
+        else:
+            # covariance scale floored at 1 for weighted fits (then the error scale is the
+            # replicates' and the df infinite); the Eyring line's own scale is floored the same way
+            floor = pos & weighted & (s2 < 1.0)
+            s2 = np.where(floor, 1.0, s2)
+            df = np.where(floor, np.inf, df)
+            s2e = np.where(pos & weighted & (s2e < 1.0), 1.0, s2e)
         # (X'WX)^-1 for X = [1, x]: var b1 = 1/Sxx, var b0 = 1/S0 + xbar^2/Sxx, cov = -xbar/Sxx
         inv_ss = 1.0 / sxx
         inv_ii = 1.0 / s0 + xbar ** 2 / sxx
@@ -252,9 +282,16 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
     curv = _curvature_batch(g, G, x, y, w, n_pts, nt >= 4)
     out["curvature_p"] = curv
     low = np.zeros(G, bool) if low_ea_kj_mol is None else fit & (ea < float(low_ea_kj_mol))
+    scatter = np.zeros(G, bool)
+    if tau2 is not None:
+        from scipy import special as _special
+        with np.errstate(invalid="ignore"):
+            dfc = (n_pts - 2).astype(float)
+            p_chi = np.where(pos & weighted, _special.chdtrc(np.where(dfc > 0, dfc, 1.0), np.nan_to_num(rss)), np.nan)
+        scatter = np.nan_to_num(p_chi, nan=1.0) < 0.01
     out["flags"] = _flag_text(G, [("one_temperature", nt == 1), ("unweighted", unweighted_flag),
                                   ("two_temperatures", fit & ~pos), ("curvature", (nt >= 4) & (curv < 0.05)),
-                                  ("low_ea", low)])
+                                  ("low_ea", low), ("arrhenius_scatter", scatter)])
     return out
 
 
@@ -311,7 +348,8 @@ def _flag_text(n: int, codes) -> np.ndarray:
 
 
 def fit_temperature_series(temperature_c, value_per_h, se_per_h=None, *, confidence=0.95,
-                           reference_temperature_c=60.0, low_ea_kj_mol=None) -> dict:
+                           reference_temperature_c=60.0, low_ea_kj_mol=None, tau2: float | None = None,
+                           tau2_df: float = np.inf) -> dict:
     """Arrhenius + Eyring fit of one series of positive rates (TOF in h-1, or mM/h for blanks).
 
     Returns a dict with the keys of :data:`COLUMNS` (except catalyst/role/delta_ea*). The single-
@@ -319,72 +357,174 @@ def fit_temperature_series(temperature_c, value_per_h, se_per_h=None, *, confide
     """
     t_c = np.asarray(temperature_c, float).ravel()
     r = fit_temperature_batch(np.zeros(len(t_c), np.int64), 1, t_c, value_per_h, se_per_h, confidence=confidence,
-                              reference_temperature_c=reference_temperature_c, low_ea_kj_mol=low_ea_kj_mol)
-    out = {k: float(a[0]) for k, a in r.items() if k not in ("n_temperatures", "flags", "fit_weighted")}
+                              reference_temperature_c=reference_temperature_c, low_ea_kj_mol=low_ea_kj_mol,
+                              tau2=tau2, tau2_df=tau2_df)
+    out = {k: float(a[0]) for k, a in r.items() if k not in ("n_temperatures", "flags", "fit_weighted", "left_out")}
     out.update(n_temperatures=int(r["n_temperatures"][0]), flags=str(r["flags"][0]),
                fit_weighted=bool(r["fit_weighted"][0]))
     return out
 
 
+def plate_scatter(group_codes, n_groups: int, temperature_c, value, se) -> tuple[float, float]:
+    """The campaign's plate-to-plate (temperature-block) variance of ln TOF, from every series'
+    scatter about its own Arrhenius line beyond what its replicate SEs explain.
+
+    Method-of-moments estimator of the between-point variance of a weighted regression
+    (DerSimonian & Laird 1986, extended to meta-regression: Thompson & Sharp, Stat. Med. 1999, 18,
+    2693), pooled over series with three or more temperatures: with weights w = 1/v,
+    v = (se/value)^2, ``Q = sum of w r^2`` about each series' WLS line,
+    ``tau^2 = max(0, (sum Q - sum (n - 2)) / sum (S0 - tr(M^-1 N)))`` where M = X'WX and N = X'W^2X.
+    Returns (tau^2, its df = sum (n - 2)); (0, inf) when no series has three temperatures.
+    """
+    g = np.asarray(group_codes, dtype=np.int64)
+    v_val = np.asarray(value, dtype=float)
+    se = np.asarray(se, dtype=float)
+    x = 1.0 / units.c_to_k(np.asarray(temperature_c, dtype=float))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        y = np.log(v_val)
+        v = (se / v_val) ** 2
+    ok = np.isfinite(y) & np.isfinite(v) & (v > 0)
+    g, x, y, v = g[ok], x[ok], y[ok], v[ok]
+    G = int(n_groups)
+    n = np.bincount(g, minlength=G)
+    use = n >= 3
+    keep = use[g]
+    g, x, y, v = g[keep], x[keep], y[keep], v[keep]
+    if not g.size:
+        return 0.0, np.inf
+    w = 1.0 / v
+    s0 = _group_sum(g, G, w)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        xbar = _group_sum(g, G, w * x) / s0
+        ybar = _group_sum(g, G, w * y) / s0
+        dx = x - xbar[g]
+        sxx = _group_sum(g, G, w * dx * dx)
+        b1 = _group_sum(g, G, w * dx * (y - ybar[g])) / sxx
+        r = y - ybar[g] - b1[g] * dx
+        q = _group_sum(g, G, w * r * r)
+        # tr(M^-1 N) in centred coordinates: M = diag(S0, Sxx), N = [[sum w^2, sum w^2 dx], [., sum w^2 dx^2]]
+        tr = _group_sum(g, G, w * w) / s0 + _group_sum(g, G, w * w * dx * dx) / sxx
+    good = use & np.isfinite(q) & np.isfinite(tr)
+    df = float(np.sum(n[good] - 2))
+    denom = float(np.sum((s0 - tr)[good]))
+    if df <= 0 or not denom > 0:
+        return 0.0, np.inf
+    return max(0.0, (float(np.sum(q[good])) - df) / denom), df
+
+
 def _uncatalysed_points(blanks: pd.DataFrame) -> pd.DataFrame:
+    """One point per plate x temperature at the blanks' most used substrate level: the blank mean
+    and its SE, ``active`` where the blank is above its detection limit. Levels scaled from another
+    level (flag ``blank_scaled``) are not points of their own."""
     b = blanks[blanks["n_blanks"] > 0].copy()
+    if "flags" in b.columns:
+        b = b[~has_flag(b["flags"], "blank_scaled")]
     if b.empty:
-        return pd.DataFrame(columns=["temperature_c", "rate", "se", "active"])
+        return pd.DataFrame(columns=["temperature_c", "rate", "se", "active", "plate"])
+    if "substrate_conc_mM" in b.columns:
+        conc = pd.to_numeric(b["substrate_conc_mM"], errors="coerce")
+        counts = b.assign(_c=conc).groupby("_c", dropna=False)["n_blanks"].sum()
+        level = counts.idxmax() if len(counts) else np.nan
+        b = b[(conc == level) | (conc.isna() & pd.isna(level))]
     det = b["blank_detected"].to_numpy(bool) if "blank_detected" in b else np.ones(len(b), bool)
-    b["active"] = det & (b["blank_rate_mM_per_h"].to_numpy(float) > 0)
-    b["tkey"] = np.round(b["temperature_c"].to_numpy(float), 6)
-    b["n"] = b["n_blanks"].astype(float)
-    b["nm"] = b["n"] * b["blank_rate_mM_per_h"]
-    b["n2se2"] = (b["n"] * b["blank_se_mM_per_h"]) ** 2
-    g = b[b["active"]].groupby("tkey")
-    agg = g.agg(n=("n", "sum"), nm=("nm", "sum"), n2se2=("n2se2", "sum"), temperature_c=("temperature_c", "mean"))
-    pts = pd.DataFrame({"temperature_c": agg["temperature_c"].to_numpy(float),
-                        "rate": (agg["nm"] / agg["n"]).to_numpy(float),
-                        "se": (np.sqrt(agg["n2se2"]) / agg["n"]).to_numpy(float), "active": True})
-    inactive = sorted(set(b.loc[~b["active"], "tkey"]) - set(agg.index))
-    if inactive:
-        pts = pd.concat([pts, pd.DataFrame({"temperature_c": inactive, "rate": np.nan, "se": np.nan,
-                                            "active": False})], ignore_index=True)
-    return pts
+    rate = b["blank_rate_mM_per_h"].to_numpy(float)
+    return pd.DataFrame({"temperature_c": b["temperature_c"].to_numpy(float), "rate": rate,
+                         "se": b["blank_se_mM_per_h"].to_numpy(float), "active": det & (rate > 0),
+                         "plate": b["plate"].to_numpy(dtype=object)})
+
+
+#: group flags of the rates table whose courses are not initial-rate kinetics: kept out of the
+#: Arrhenius fit unless settings.include_irregular_courses
+IRREGULAR = ("induction", "product_decline", "deactivation")
+
+
+def arrhenius_points(groups: pd.DataFrame, settings: AnalysisSettings | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Which rates rows enter their catalyst's Arrhenius fit, and why the others do not.
+
+    Returns ``(in_fit, reason)`` per row of ``groups``: a row enters when it is at its catalyst's
+    standard condition, catalysed, with sites, a measured (not censored) TOF above the blank, and a
+    regular course (no group flag of :data:`IRREGULAR`, unless
+    ``settings.include_irregular_courses``). ``reason`` names the first rule a left-out row breaks
+    ("" for the others and for rows that are not at the standard condition)."""
+    settings = settings or AnalysisSettings()
+    n = len(groups)
+    if not n:
+        return np.zeros(0, dtype=bool), np.zeros(0, dtype=object)
+    std = groups["is_standard"].astype(bool).to_numpy()
+    tof = pd.to_numeric(groups["tof_per_h"], errors="coerce").to_numpy(float)
+    lo = pd.to_numeric(groups["tof_ci_low"], errors="coerce").to_numpy(float)
+    cens = (groups["censored"].astype("string").fillna("").to_numpy(dtype=object) if "censored" in groups
+            else np.full(n, "", dtype=object))
+    flags = groups["flags"] if "flags" in groups else pd.Series([""] * n)
+    rules = [
+        ("no sites", has_flag(flags, "no_sites")),
+        ("faster than the first reading (lower bound)", cens == "lower"),
+        ("not above the blank (upper bound)", (cens == "upper") | ~(np.isfinite(tof) & (tof > 0))
+         | (np.isfinite(lo) & (lo <= 0))),
+    ]
+    if not getattr(settings, "include_irregular_courses", False):
+        rules += [(code.replace("_", " "), has_flag(flags, code)) for code in IRREGULAR]
+    reason = np.full(n, "", dtype=object)
+    for text, mask in rules:                      # a loop over a few rules
+        reason = np.where((reason == "") & std & np.asarray(mask, bool), text, reason)
+    return std & (reason == ""), np.where(std, reason, "")
+
+
+def _left_out_text(codes, k: int, temps, reasons) -> np.ndarray:
+    """Per series: "40 C: <reason>; 70 C: <reason>" over its left-out points (a loop over left-out
+    points only)."""
+    out = np.full(k, "", dtype=object)
+    order = np.lexsort((temps, codes))
+    for i in order:
+        text = f"{temps[i]:g} C: {reasons[i]}"
+        out[codes[i]] = text if out[codes[i]] == "" else out[codes[i]] + "; " + text
+    return out
 
 
 def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
                     settings: AnalysisSettings | None = None) -> pd.DataFrame:
     """One row per catalyst (at its standard condition) plus the ``(uncatalysed)`` row.
 
-    Columns: see :data:`COLUMNS` (the contract's, plus ``dg_ref_se``, ``fit_weighted`` and
-    ``reference_temperature_c``). TOF in h-1; the uncatalysed row is in mM/h.
+    Columns: see :data:`COLUMNS` (the contract's, plus ``dg_ref_se``, ``fit_weighted``,
+    ``reference_temperature_c``, ``chi2_per_df``, ``plate_scatter_ln`` and ``left_out``). TOF in
+    h-1; the uncatalysed row is in mM/h. ``t_min_c`` / ``t_max_c`` and ``n_temperatures`` count the
+    temperatures actually fitted; ``left_out`` says which were left out and why
+    (:func:`arrhenius_points`). Every point's variance is its replicate variance plus the
+    campaign's plate-to-plate variance (:func:`plate_scatter`), the same for the uncatalysed line.
     """
     settings = settings or AnalysisSettings()
     conf = settings.confidence
-    std = groups[groups["is_standard"].astype(bool).to_numpy()] if len(groups) else groups
+    in_fit, reason = arrhenius_points(groups, settings)
+    std_mask = groups["is_standard"].astype(bool).to_numpy() if len(groups) else np.zeros(0, bool)
+    std = groups[std_mask] if len(groups) else groups
     parts = []
+    tau2, tau2_df = 0.0, np.inf
     if len(std):
-        # one batched fit over all catalysts: integer codes, no per-catalyst frames
         codes, cats = pd.factorize(std["catalyst"], sort=True)
         keep = codes >= 0                                   # rows without a catalyst name are not fitted
         codes = codes[keep]
         t_c = pd.to_numeric(std["temperature_c"], errors="coerce").to_numpy(float)[keep]
         tof = pd.to_numeric(std["tof_per_h"], errors="coerce").to_numpy(float)[keep]
-        lo = pd.to_numeric(std["tof_ci_low"], errors="coerce").to_numpy(float)[keep]
-        se = pd.to_numeric(std["tof_se_per_h"], errors="coerce").to_numpy(float)[keep]
-        no_sites = has_flag(std["flags"], "no_sites")[keep]     # one pass over the whole frame
-        with np.errstate(invalid="ignore"):
-            active = np.isfinite(tof) & (tof > 0) & ~(np.isfinite(lo) & (lo <= 0)) & ~no_sites
+        se_col = "tof_rep_se_per_h" if "tof_rep_se_per_h" in std.columns else "tof_se_per_h"
+        se = pd.to_numeric(std[se_col], errors="coerce").to_numpy(float)[keep]
+        active = in_fit[std_mask][keep]
+        why = reason[std_mask][keep]
         k = len(cats)
+        tau2, tau2_df = plate_scatter(codes[active], k, t_c[active], tof[active], se[active])
         r = fit_temperature_batch(codes[active], k, t_c[active], tof[active], se[active], confidence=conf,
                                   reference_temperature_c=settings.reference_temperature_c,
-                                  low_ea_kj_mol=settings.low_ea_kj_mol)
-        # the temperature range covers every standard-condition row, active or not
-        t_min = np.full(k, np.inf)
-        t_max = np.full(k, -np.inf)
-        np.fmin.at(t_min, codes, t_c)
-        np.fmax.at(t_max, codes, t_c)
-        r["t_min_c"] = np.where(np.isfinite(t_min), t_min, np.nan)
-        r["t_max_c"] = np.where(np.isfinite(t_max), t_max, np.nan)
-        inactive = np.bincount(codes, weights=~active, minlength=k) > 0
+                                  low_ea_kj_mol=settings.low_ea_kj_mol, tau2=tau2, tau2_df=tau2_df)
+        left = ~active
         fl = r["flags"]
-        r["flags"] = np.where(inactive, np.where(fl == "", "no_activity", "no_activity;" + fl), fl)
+        no_act = np.bincount(codes[left & np.char.startswith(why.astype(str), "not above")], minlength=k) > 0
+        irregular = np.bincount(codes[left & np.isin(why, [c.replace("_", " ") for c in IRREGULAR])],
+                                minlength=k) > 0
+        bound = np.bincount(codes[left & np.char.startswith(why.astype(str), "faster")], minlength=k) > 0
+        for code, mask in (("no_activity", no_act), ("left_out_irregular", irregular), ("left_out_bound", bound)):
+            fl = np.where(mask, np.where(fl == "", code, fl + ";" + code), fl)
+        r["flags"] = fl
+        r["left_out"] = _left_out_text(codes[left], k, t_c[left], why[left])
+        r["plate_scatter_ln"] = np.full(k, np.sqrt(tau2))
         first = np.unique(codes, return_index=True)[1]
         r["catalyst"] = np.asarray(cats, dtype=object)
         r["role"] = std["role"].to_numpy(dtype=object)[keep][first].astype(str)
@@ -394,11 +534,14 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
         act = pts["active"].to_numpy(bool)
         r = fit_temperature_series(pts["temperature_c"].to_numpy(float)[act], pts["rate"].to_numpy(float)[act],
                                    pts["se"].to_numpy(float)[act], confidence=conf,
-                                   reference_temperature_c=settings.reference_temperature_c, low_ea_kj_mol=None)
+                                   reference_temperature_c=settings.reference_temperature_c, low_ea_kj_mol=None,
+                                   tau2=tau2, tau2_df=tau2_df)
+        t_out = pts["temperature_c"].to_numpy(float)[~act]
+        r["left_out"] = "; ".join(f"{t:g} C: blank below its detection limit"
+                                  for t in sorted(set(np.round(t_out, 6)))) if (~act).any() else ""
         if (~act).any():
-            r["flags"] = ";".join([c for c in ["no_activity", *r["flags"].split(";")] if c])
-        r["t_min_c"] = float(pts["temperature_c"].min())
-        r["t_max_c"] = float(pts["temperature_c"].max())
+            r["flags"] = ";".join([c for c in [*r["flags"].split(";"), "left_out_below_lod"] if c])
+        r["plate_scatter_ln"] = float(np.sqrt(tau2))
         r.update(catalyst=UNCATALYSED, role="blank")
         parts.append(pd.DataFrame([r], columns=COLUMNS))
     out = pd.concat(parts, ignore_index=True) if len(parts) > 1 else (parts[0] if parts else
@@ -423,7 +566,11 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
         out["delta_ea_ci_high"] = np.where(cat_rows, d + q * sd, np.nan)
     out["n_temperatures"] = out["n_temperatures"].astype(np.int64) if len(out) else out["n_temperatures"]
     out["flags"] = join_flags(out["flags"], {}, index=out.index).to_numpy(dtype=object) if len(out) else out["flags"]
-    return out.reset_index(drop=True)
+    out["left_out"] = out["left_out"].fillna("").astype(str) if len(out) else out["left_out"]
+    out = out.reset_index(drop=True)
+    out.attrs["plate_scatter_ln"] = float(np.sqrt(tau2))
+    out.attrs["plate_scatter_df"] = float(tau2_df)
+    return out
 
 
 def predict_tof(arr: pd.DataFrame, temperature_c, confidence: float = 0.95) -> pd.DataFrame:

@@ -1,47 +1,77 @@
-"""One initial rate per well, from its product-amount time course (main analyte).
+"""One initial rate per well, from a fitted integrated rate law: the slope of the course at t = 0.
 
-:func:`well_rates` picks a method per well, all wells at once (vectorised; no loop over wells):
+:func:`well_rates` works on all wells at once (vectorised; no loop over wells):
 
-``initial_slope``
-    at least ``settings.min_window_points`` readings (t = 0 included when present) from the
-    start of the course up to the first reading above ``settings.conversion_window_pct``
-    conversion: ordinary least-squares slope with intercept, SE from the fit, df = n - 2.
-    The 20 % default is the usual initial-rate window (common practice, no source); within it
-    a first-order course bends only a little (ln(1/(1-X))/X = 1.116 at X = 0.2).
-``first_order``
-    otherwise, with at least 3 readings: first-order saturation fit ``P = b1 (1 - exp(-k t))`` of
-    the whole course; rate = b1 k (the fitted initial slope), SE by the delta method from the
-    fit covariance, df = n - 2. When b1 is poorly determined - b1 above 1.5 x the theoretical
-    maximum product (substrate x product_per_substrate), relative SE of b1 above 50 %, fewer
-    than 4 readings, or a doubtful free fit - the plateau is fixed at the theoretical maximum
-    (one-parameter fit in k, rate = k x [S]0 x product_per_substrate, df = n - 1) and the well
-    is flagged ``fixed_plateau``.
-``end_point``
-    a single reading after t = 0 (or t = 0 plus one reading; with two readings after t = 0 and
-    none at t = 0 the earlier one): rate = (product - product at t = 0, when read) / time;
-    rate_se NaN, rate_df 0.
-``no_data``
-    no usable reading after t = 0.
+1. **Courses.** Each non-empty well's main-analyte readings (product in mM) as the fraction X of
+   its theoretical maximum (substrate x stoichiometry), or in mM where the well has no substrate
+   concentration. Absorbance readings above the detector's linear range are left out of the fit
+   (flag ``above_linear_range``); values above full scale stay in, as measured (flag
+   ``above_full_scale``).
+2. **Every rate law fitted to every well** (:mod:`screenlab.kinetics.ratelaws`): zero order with
+   substrate run-out, first order, saturation (integrated Michaelis-Menten), first order to a
+   plateau, first order with catalyst decay, and the generic quadratic over the early window.
+3. **Done before the first reading.** A well whose first reading after t = 0 is already at 80 %
+   or more of its largest value (a single reading: of full conversion), and clearly above noise,
+   has no measurable initial rate: the rate is only known to exceed the chord to that reading,
+   ``X1 / t1`` (a lower bound for any course that slows down). It gets ``censored = lower``, that
+   bound as its rate, no SE and flag ``done_at_first_reading``.
+4. **One law per group.** The replicate wells of one catalyst x temperature x condition (blanks:
+   temperature x condition) share one law: the integrated law with the smallest AICc summed over
+   the group's wells (Hurvich & Tsai 1989; all integrated laws are fitted to the same readings,
+   so their AICc compare). The generic early-window quadratic is used instead where most of the
+   group's courses are not initial-rate kinetics (product falling after a maximum, or induction)
+   or where the chosen law misses the data (its residual variance over the group's wells more
+   than :data:`MISFIT_RATIO` times the campaign's noise variance; flag ``law_misfit``).
+5. **Per well** the chosen law's ``r0`` (x the theoretical maximum for mM/h), its SE from the fit
+   covariance (delta method), df = n - parameters; residual SD and its ratio to the campaign's
+   noise level are kept as diagnostics. A well where the group's law cannot be fitted takes its
+   own best law (flag ``own_rate_law``). Wells with one reading after t = 0 get the chord
+   (``end_point``: an average rate, no SE).
+
+The campaign's noise level is the median residual SD of each well's own best law (conversion
+units; mM for wells without substrate), over wells with at least 3 residual df.
+
+Shape checks per well (kept in ``flags``; :func:`screenlab.kinetics.turnover.group_rates` carries
+them to the group row when most replicates have them):
+
+``induction``   lines through the first and the second half of the rise (up to the course's
+                maximum): the early slope below half the late one by more than 3 SE; or the
+                early-window quadratic bends upwards (t^2 term above 3 SE); or its steepest
+                three-reading slope (after the first readings, above 5 noise SEs) is more than
+                twice its early-window rate; or first order with an activating catalyst,
+                ``1 - exp(-k (t - tau (1 - exp(-t/tau))))``, fits with an AICc lower than every
+                integrated law's by more than :data:`INDUCTION_AICC`;
+``product_decline``  the last reading below the course's maximum by more than 3 x sqrt(2) noise
+                SDs and 5 % of that maximum (a consecutive reaction, or product lost);
+``deactivation`` the last reading short of what first-order depletion from the fitted initial
+                rate gives, ``1 - exp(-r0 t_last)``, by more than 3 x sqrt(2) noise SDs and 10 %
+                (the rate falls faster than any law of order <= 1 in substrate allows).
 
 Columns (one row per non-empty well, in the order of ``data.wells``): the well's
 ``plate, well, row, col, role, catalyst, temperature_c, loading, loading_unit,
 substrate_conc_mM, volume_uL, <factor columns>``, then ``n_points`` (usable readings of the main
-analyte), ``method``, ``rate_mM_per_h``, ``rate_se_mM_per_h``, ``rate_df``, ``k_per_h``
-(first_order: the fitted k; otherwise rate / theoretical maximum product, the pseudo-first-order
-constant the initial rate implies; NaN without substrate), ``last_time_h``, ``last_product_mM``,
-``last_conversion_pct``, ``flags``; and in addition ``rate_ci_low_mM_per_h``,
-``rate_ci_high_mM_per_h`` (Student t at ``settings.confidence``), ``window_points``,
-``intercept_mM`` (initial_slope), ``plateau_mM`` (first_order), ``resid_sd_mM``, ``has_t0``,
-``first_time_h`` and ``first_conversion_pct`` (first reading after t = 0).
+analyte), ``method`` (the law, or ``end_point``, ``first_reading`` for a censored well,
+``no_data``), ``rate_mM_per_h``, ``rate_se_mM_per_h``, ``rate_df``, ``k_per_h`` (rate / theoretical
+maximum: the pseudo-first-order constant the initial rate implies; NaN without substrate),
+``last_time_h``, ``last_product_mM``, ``last_conversion_pct``, ``flags``, ``censored`` (``lower``
+or ""); and in addition ``rate_ci_low_mM_per_h``, ``rate_ci_high_mM_per_h`` (Student t at
+``settings.confidence``; a censored well: the bound and NaN), ``window_points`` (readings the law
+used), ``law_p1``, ``law_p2`` (its parameters, see :class:`~screenlab.kinetics.ratelaws.LawFit`),
+``law_capped`` (parameters in conversion units), ``plateau_mM``, ``resid_sd_mM``, ``noise_ratio``
+(residual SD / campaign noise), ``max_rate_mM_per_h`` (steepest local slope: least-squares lines
+through every three consecutive readings), ``has_t0``, ``first_time_h`` and
+``first_conversion_pct`` (first reading after t = 0), ``fit_points`` (readings in the fits),
+``substrate_integral_h`` (integral of the substrate fraction left over the course, for the
+background's share of the product).
 """
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
-from screenlab.kinetics import fit, models
-from screenlab.kinetics.amounts import T0_TOLERANCE_H, product_amounts, well_index
+from screenlab.kinetics import fit, ratelaws
+from screenlab.kinetics.amounts import ABOVE_FULL_SCALE, ABOVE_LINEAR_RANGE, T0_TOLERANCE_H, product_amounts, well_index
 from screenlab.kinetics.sites import frame_of, text_array
 from screenlab.model import CampaignData
 from screenlab.settings import AnalysisSettings
@@ -49,51 +79,66 @@ from screenlab.settings import AnalysisSettings
 #: flag code -> one plain sentence (gathered by screenlab.flags)
 FLAGS: dict[str, str] = {
     "end_point_only": "Only one reading after t = 0: the rate is product / time (an average, no standard error).",
-    "above_window": "The first reading after t = 0 is already above the conversion window, so the initial "
-                    "rate is underestimated.",
-    "induction": "Induction period: a line through the first half of the fitted readings is less than half "
-                 "as steep as one through the second half, by more than 3 standard errors.",
-    "deactivation": "Deactivation (or an equilibrium limit): the product gained after the initial segment is "
-                    "less than half of what the initial rate slowed only by substrate depletion would give, "
-                    "by more than 3 residual SDs.",
-    "fixed_plateau": "The plateau was not determined by the data; it was fixed at the theoretical maximum "
-                     "product (substrate x stoichiometry) and only k was fitted.",
-    "fit_failed": "No rate could be fitted (readings at one time only, or k at the end of the searchable range).",
+    "done_at_first_reading": "The well was at 80 % or more of its final product at its first reading: the initial "
+                             "rate is faster than the readings can show and is reported as a lower bound "
+                             "(rerun at lower loading or temperature, or read earlier).",
+    "induction": "Induction period: the course starts slower than it later runs (a line through the first half "
+                 "of the rise is less than half as steep as one through the second half, by more than 3 "
+                 "standard errors). The rate at t = 0 is not the catalyst's working rate; see max_rate.",
+    "deactivation": "Deactivation (or an equilibrium limit): the course falls short of what first-order "
+                    "depletion from its initial rate gives, so the rate falls faster than any rate law of "
+                    "order <= 1 in substrate allows.",
+    "product_decline": "The product falls after a maximum (a consecutive reaction consumes it, or it is lost): "
+                       "the course is not initial-rate kinetics; the rate comes from the early window.",
+    "law_misfit": "The rate law chosen for this group leaves residuals much larger than the campaign's noise; "
+                  "the rate comes from the early-window quadratic.",
+    "own_rate_law": "The group's rate law could not be fitted to this well; its own best law was used.",
+    "fit_failed": "No rate law could be fitted to this well.",
     "few_points": "Fewer than 4 readings carry the rate, so its standard error is rough.",
     "no_readings": "No usable reading after t = 0 for the main product.",
     "negative_rate": "The rate is negative (product decreases); usually noise around zero, or a drifting baseline.",
     "baseline_first_reading": "Absorbance without a reading at t = 0: the first reading was taken as zero product, "
                               "so product formed before it is missed.",
-    "no_substrate": "No substrate concentration: conversion is unknown, so the conversion window was not applied.",
+    "no_substrate": "No substrate concentration: conversion is unknown, so only the laws that need no maximum "
+                    "product apply.",
+    "above_full_scale": "At least one reading lies above full scale (more than 100 % of the theoretical product, "
+                        "within the 110 % accepted as instrument overshoot); taken as measured.",
+    "above_linear_range": "At least one absorbance lies above the detector's linear range "
+                          "([readout].linear_range_max); those readings are left out of the rate fit.",
 }
 
-#: first-order fits whose plateau exceeds this multiple of the theoretical maximum are refitted
-#: with the plateau fixed (common practice, no source)
-PLATEAU_MAX_RATIO = 1.5
-#: ... and so are those whose plateau has a relative standard error above this
-PLATEAU_MAX_REL_SE = 0.5
-#: induction / deactivation need a difference of this many standard errors (common practice, no source)
+#: a well at this fraction of its largest reading at its first reading is done (common practice,
+#: no source: the issue's "past, say, 80 % of its plateau")
+DONE_FRACTION = 0.8
+#: ... and clearly above noise: its first reading above this many noise SDs
+DONE_NOISE_SDS = 5.0
+#: induction / deactivation / decline need a difference of this many standard errors (common
+#: practice, no source)
 FLAG_SIGMAS = 3.0
+#: a group's law misses its data when its residual variance exceeds this multiple of the noise
+#: variance (residuals twice the noise SD; common practice, no source)
+MISFIT_RATIO = 4.0
+#: AICc advantage of the induction course over every integrated law that flags induction (a
+#: difference above 4 is "considerably less support" for the others: Burnham & Anderson 2002)
+INDUCTION_AICC = 4.0
+#: the early-window quadratic's window, as a fraction of the course's largest value, is
+#: settings.conversion_window_pct / 100
 
 _WELL_COLUMNS = ["plate", "well", "row", "col", "role", "catalyst", "temperature_c", "loading",
                  "loading_unit", "substrate_conc_mM", "volume_uL"]
 
 
-#: method names; position = internal method code
-_METHODS = ("no_data", "initial_slope", "first_order", "end_point")
-
-
 def _flag_text(flags: dict[str, np.ndarray], n: int) -> np.ndarray:
-    """Object array of str: the codes whose mask is true, in the order of ``flags``, joined with ``;``.
-
-    The masks are packed into one integer per row; each distinct combination (a few) is joined once.
-    """
+    """Object array of str: the codes whose mask is true, in the order of ``flags``, joined with ``;``."""
     words, codes = _flag_codes(flags, n)
     return words[codes] if n else np.zeros(0, dtype=object)
 
 
 def _flag_codes(flags: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`_flag_text` as distinct texts (object array of str) and one code per row into them."""
+    """:func:`_flag_text` as distinct texts (object array of str) and one code per row into them.
+
+    The masks are packed into one integer per row; each distinct combination (a few) is joined once.
+    """
     bits = np.zeros(n, dtype=np.int64)
     names = list(flags)
     for i, name in enumerate(names):        # a loop over flag codes, not wells
@@ -102,41 +147,6 @@ def _flag_codes(flags: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.nd
     text = np.array([";".join(nm for i, nm in enumerate(names) if int(c) >> i & 1) for c in combos]
                     + [""], dtype=object)   # the trailing "" keeps the array 1-d of str when empty
     return text, inv.ravel()
-
-
-def _group_starts(g: np.ndarray, n_groups: int) -> np.ndarray:
-    return np.searchsorted(g, np.arange(n_groups), side="left")
-
-
-def _take(values: np.ndarray, idx: np.ndarray) -> np.ndarray:
-    safe = np.where(idx >= 0, idx, 0)
-    got = values[safe] if values.size else np.zeros(idx.shape)
-    return np.where(idx >= 0, got, np.nan)
-
-
-def _first_order_fit(wells: np.ndarray, t, y, g, G: int, plateau=None, k_start=None) -> fit.FirstOrderFit:
-    """:func:`screenlab.kinetics.fit.fit_first_order` of the readings of ``wells`` (the sorted
-    well codes in ``g``, every one with readings), fitted with those wells numbered 0..n-1 (what
-    the fitter does itself for groups without points) and spread back to all G wells: wells not
-    fitted get NaN estimates, 0 df and status TOO_FEW. ``plateau`` / ``k_start``: per well (G)."""
-    local = np.full(G, -1, dtype=np.int64)
-    local[wells] = np.arange(wells.size)
-    sub = fit.fit_first_order(t, y, local[g], int(wells.size),
-                              plateau=None if plateau is None else np.asarray(plateau, dtype=float)[wells],
-                              k_start=None if k_start is None else np.asarray(k_start, dtype=float)[wells])
-    full = {}
-    for name, v in vars(sub).items():
-        if v.dtype == bool:
-            arr = np.zeros(G, dtype=bool)
-        elif name == "status":
-            arr = np.full(G, fit.TOO_FEW, dtype=v.dtype)
-        elif np.issubdtype(v.dtype, np.integer):
-            arr = np.zeros(G, dtype=v.dtype)
-        else:
-            arr = np.full(G, np.nan)
-        arr[wells] = v
-        full[name] = arr
-    return fit.FirstOrderFit(**full)
 
 
 def _order_by_well(code: np.ndarray, t: np.ndarray) -> np.ndarray | None:
@@ -172,267 +182,358 @@ def _equals(values: pd.Series, word: str) -> np.ndarray:
     return (values.astype("string") == word).fillna(False).to_numpy(dtype=bool)
 
 
+def _t_quantile(confidence: float, df) -> np.ndarray:
+    """Two-sided Student t quantile (scipy.special.stdtrit); NaN for df <= 0."""
+    df = np.asarray(df, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.where(df > 0, special.stdtrit(np.where(df > 0, df, 1.0), 0.5 + confidence / 2.0), np.nan)
+
+
+def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, temperature: bool = True) -> np.ndarray:
+    """Replicate group of each kept well: catalyst x role x temperature x condition (the keys of the
+    rates table; without the temperature when ``temperature`` is False), numbered 0.. in order of
+    first appearance."""
+    from screenlab.kinetics.turnover import _codes, _key_codes, _tkey
+
+    keys = ["catalyst", "role", *(["temperature_c"] if temperature else []), "loading", "loading_unit",
+            "substrate_conc_mM", *[f for f in factor_names if f in wells.columns]]
+    cols = [_codes(_tkey(pd.to_numeric(wells[k], errors="coerce").to_numpy(dtype=float))) if k == "temperature_c"
+            else _codes(wells[k]) for k in keys]
+    return _key_codes(cols, rows)
+
+
+def _noise_level(fits: dict, c: ratelaws.Courses, rss_floor: np.ndarray) -> tuple[float, float]:
+    """Median residual SD of every well's own best integrated law (AICc), over wells with >= 3
+    residual df: one value for capped courses (fraction units), one for the others (mM)."""
+    aicc = np.stack([fits[law].aicc(rss_floor) for law in ratelaws.INTEGRATED], axis=1)
+    best = np.argmin(aicc, axis=1)
+    has = np.isfinite(aicc.min(axis=1))
+    sd = np.stack([fits[law].resid_sd for law in ratelaws.INTEGRATED], axis=1)[np.arange(len(best)), best]
+    df = np.stack([fits[law].df for law in ratelaws.INTEGRATED], axis=1)[np.arange(len(best)), best]
+    use = has & (df >= 3) & np.isfinite(sd) & (sd > 0)
+    out = []
+    for capped in (True, False):
+        v = sd[use & (c.capped == capped)]
+        out.append(float(np.median(v)) if v.size else float("nan"))
+    return out[0], out[1]
+
+
+def _local_max_slope(c: ratelaws.Courses) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Steepest least-squares slope through three consecutive fitted readings of each well (y units
+    per h), the sum of squared time deviations of that triple (for its SE) and the slot where it
+    starts; NaN / -1 for fewer than three readings."""
+    G, m = c.shape
+    best = np.full(G, -np.inf)
+    best_sxx = np.full(G, np.nan)
+    at = np.full(G, -1, dtype=np.int64)
+    T, Y, W = c.t, c.y, c.w
+    for i in range(max(m - 2, 0)):          # a loop over reading slots, vectorised over wells
+        tt, yy, ww = T[:, i:i + 3], Y[:, i:i + 3], W[:, i:i + 3]
+        full = ww.sum(axis=1) == 3
+        tm = tt.mean(axis=1, keepdims=True)
+        ym = yy.mean(axis=1, keepdims=True)
+        sxx = ((tt - tm) ** 2).sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            slope = ((tt - tm) * (yy - ym)).sum(axis=1) / sxx
+        take = full & (sxx > 0) & (slope > best)
+        best = np.where(take, slope, best)
+        best_sxx = np.where(take, sxx, best_sxx)
+        at = np.where(take, i, at)
+    return np.where(np.isfinite(best), best, np.nan), best_sxx, at
+
+
+def _induction(t, y, w, n_rise) -> np.ndarray:
+    """Induction test on dense courses: lines through the first and the second half of each well's
+    first ``n_rise`` fitted readings (sharing the middle one); flagged when the early slope is
+    below half the late slope and the difference exceeds FLAG_SIGMAS standard errors (pooled
+    residual SD of the two lines)."""
+    G, m = t.shape
+    if not m:
+        return np.zeros(G, dtype=bool)
+    order = np.cumsum(w > 0, axis=1) - 1                   # place among the fitted readings
+    half = (n_rise // 2)[:, None]
+    fitted = (w > 0) & (order < n_rise[:, None])
+    one = fitted & (order <= half)
+    two = fitted & (order >= half)
+    g = np.repeat(np.arange(G), m).reshape(G, m)
+    early = fit.fit_lines(t[one], y[one], g[one], G)
+    late = fit.fit_lines(t[two], y[two], g[two], G)
+    df = (early.n - 2) + (late.n - 2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rss = np.nan_to_num(early.rss) + np.nan_to_num(late.rss)
+        s2 = rss / df
+        se = np.sqrt(s2 / early.sxx + s2 / late.sxx)
+        hit = ((n_rise >= 4) & (df > 0) & (late.slope > 0) & (early.slope < 0.5 * late.slope)
+               & ((late.slope - early.slope) > FLAG_SIGMAS * se))
+    return np.asarray(hit, dtype=bool)
+
+
+def _pick(per_law: np.ndarray, law_index: np.ndarray) -> np.ndarray:
+    """``per_law[i, law_index[i]]`` (law_index -1 -> NaN)."""
+    G = per_law.shape[0]
+    got = per_law[np.arange(G), np.maximum(law_index, 0)]
+    return np.where(law_index >= 0, got, np.nan)
+
+
 def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
                amounts: pd.DataFrame | None = None) -> pd.DataFrame:
-    """Initial rate of every non-empty well; see the module docstring for methods and columns."""
+    """Initial rate of every non-empty well; see the module docstring for the method and columns."""
     if settings is None:
         settings = AnalysisSettings.from_mapping(data.manifest.analysis)
     if amounts is None:
         amounts = product_amounts(data)
-    window = float(settings.conversion_window_pct)
-    min_pts = max(int(settings.min_window_points), 2)
+    window_frac = float(settings.conversion_window_pct) / 100.0
+    min_pts = max(int(settings.min_window_points), 3)
     pps = float(data.manifest.product_per_substrate)
 
     wells = data.wells
-    # non-empty wells by position (no copy of the wide wells frame until the end)
     role_codes, role_words = pd.factorize(wells["role"])
     not_empty = np.array([str(w) != "empty" for w in role_words] + [True], dtype=bool)
     rows = np.flatnonzero(not_empty[np.asarray(role_codes, dtype=np.int64)])
-    cols = _WELL_COLUMNS + [f for f in data.factor_names if f in wells.columns and f not in _WELL_COLUMNS]
+    factors = [f for f in data.factor_names if f in wells.columns and f not in _WELL_COLUMNS]
+    cols = _WELL_COLUMNS + factors
     G = len(rows)
     theo = wells["substrate_conc_mM"].to_numpy(dtype=float)[rows] * pps
     theo = np.where(np.isfinite(theo) & (theo > 0), theo, np.nan)
+    capped = np.isfinite(theo)
 
     # --- the main analyte's usable readings, each well's in one run sorted by time ------------
-    # integer well codes once, on whole columns (no string group-by, merge or frame filter)
     is_main = _equals(amounts["analyte"], data.manifest.analyte_main)
     code = np.where(is_main, well_index(amounts["plate"], amounts["well"], wells["plate"].iloc[rows],
                                         wells["well"].iloc[rows]), -1)
     t_all = amounts["time_h"].to_numpy(dtype=float)
     p_all = amounts["product_mM"].to_numpy(dtype=float)
+    rc_all = (amounts["range_code"].to_numpy(dtype=np.int8) if "range_code" in amounts.columns
+              else np.zeros(len(amounts), dtype=np.int8))
     use = (code >= 0) & np.isfinite(t_all) & np.isfinite(p_all)
     first_reading_base = np.zeros(G, dtype=bool)
     if "baseline" in amounts.columns and not _all_missing(amounts["baseline"]):
         fr = _equals(amounts["baseline"], "first_reading")
         first_reading_base[code[fr & (code >= 0)]] = True
-    if use.all():
-        t, prod = t_all, p_all
-    else:
-        code, t, prod = code[use], t_all[use], p_all[use]
-    # readings arrive sorted by plate, well, analyte and time (CampaignData contract), so each
-    # well's readings are one time-sorted run already; otherwise a stable sort by (well, time).
-    # Only the order within a well matters below (every group sum runs over a well's readings
-    # in time order), not the order of the wells.
+    code, t, prod, rc = code[use], t_all[use], p_all[use], rc_all[use]
     order = _order_by_well(code, t)
     if order is not None:
-        code, t, prod = code[order], t[order], prod[order]
+        code, t, prod, rc = code[order], t[order], prod[order], rc[order]
     g = code
-    conv = prod / theo[g] * 100.0
+    n_points = np.bincount(g, minlength=G).astype(np.int64)
+    above_full = np.bincount(g[rc == ABOVE_FULL_SCALE], minlength=G) > 0
+    above_lin = np.bincount(g[rc == ABOVE_LINEAR_RANGE], minlength=G) > 0
+    has_t0 = np.bincount(g[t <= T0_TOLERANCE_H], minlength=G) > 0
 
-    n_points = np.bincount(g, minlength=G)
-    run_start = np.ones(g.size, dtype=bool)
-    run_start[1:] = g[1:] != g[:-1]
-    starts = np.zeros(G, dtype=np.int64)                  # first reading of each well (0 for none)
-    starts[g[run_start]] = np.flatnonzero(run_start)
-    pos = np.arange(g.size) - starts[g]                   # place of each reading in its well
-    is_t0 = t <= T0_TOLERANCE_H
-    g_t0 = g[is_t0]
-    n_t0_int = np.bincount(g_t0, minlength=G)
-    n_t0 = n_t0_int.astype(float)
-    has_t0 = n_t0 > 0
     with np.errstate(invalid="ignore", divide="ignore"):
-        p_t0 = np.where(has_t0, np.bincount(g_t0, weights=prod[is_t0], minlength=G) / n_t0, np.nan)
+        y = np.where(capped[g], prod / theo[g], prod)
+    substrate_h = _substrate_integral(t, y, g, G, capped)
+    c = ratelaws.dense_courses(t, y, g, G, capped, keep=rc != ABOVE_LINEAR_RANGE)
+    del t, prod, rc, y, g, code, t_all, p_all, rc_all, use
+    T, Y, W = c.t, c.y, c.w
+    Gi = np.arange(G)
+    fitted = W > 0
+    after0 = fitted & (T > T0_TOLERANCE_H)
+    n_fit = c.n
+    n_pos = after0.sum(axis=1)
+    m = c.shape[1]
+    i_first = np.argmax(after0, axis=1) if m else np.zeros(G, np.int64)
+    y1 = np.where(n_pos > 0, Y[Gi, i_first] if m else np.nan, np.nan)
+    t1 = np.where(n_pos > 0, T[Gi, i_first] if m else np.nan, np.nan)
+    last_slot = (m - 1 - np.argmax(fitted[:, ::-1], axis=1)) if m else np.zeros(G, np.int64)
+    at0 = fitted & (T <= T0_TOLERANCE_H)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        y0 = np.where(at0.any(axis=1), (np.where(at0, Y, 0.0)).sum(axis=1) / at0.sum(axis=1), 0.0) if m \
+            else np.zeros(G)
+    y_last = np.where(n_fit > 0, Y[Gi, last_slot] if c.shape[1] else np.nan, np.nan)
+    t_last = np.where(n_fit > 0, T[Gi, last_slot] if c.shape[1] else np.nan, np.nan)
+    y_top = np.where(n_fit > 0, np.max(np.where(fitted, Y, -np.inf), axis=1) if c.shape[1] else np.nan, np.nan)
+    i_top = np.argmax(np.where(fitted, Y, -np.inf), axis=1) if c.shape[1] else np.zeros(G, np.int64)
 
-    # leading run of readings at or below the window (unknown conversion counts as inside)
+    # --- every law on every well ----------------------------------------------------------------
+    fits = ratelaws.fit_all(c, window_frac=window_frac, min_points=min_pts)
+    scale = np.where(capped, 1.0, np.maximum(np.nan_to_num(np.abs(y_top)), 1e-12))
+    rss_floor = n_fit * (1e-6 * scale) ** 2
+    noise_c, noise_u = _noise_level(fits, c, rss_floor)
+    noise = np.where(capped, noise_c if np.isfinite(noise_c) else 0.005,
+                     noise_u if np.isfinite(noise_u) else 0.01 * scale)
+
+    # --- done before the first reading: a lower bound, not a fit ------------------------------
+    with np.errstate(invalid="ignore", divide="ignore"):
+        single_done = capped & (n_pos == 1) & (y1 >= DONE_FRACTION)
+        course_done = (n_pos >= 2) & (y1 >= DONE_FRACTION * y_top) & (y1 > DONE_NOISE_SDS * noise)
+    done = single_done | course_done
+    end_point = ~done & (n_pos >= 1) & (n_fit <= 2)
+    fittable = ~done & (n_pos >= 1) & (n_fit >= 3)
+
+    # --- one law per catalyst x condition, over all its temperatures -------------------------
+    group = _group_codes(wells, rows, factors)                    # replicates: one temperature
+    n_groups = int(group.max()) + 1 if G else 0
+    law_group = _group_codes(wells, rows, factors, temperature=False)
+    n_law_groups = int(law_group.max()) + 1 if G else 0
+    laws = list(ratelaws.INTEGRATED)
+    aicc = np.stack([fits[law].aicc(rss_floor) for law in laws], axis=1)       # (G, L)
+    own_best = np.where(np.isfinite(aicc.min(axis=1)), np.argmin(aicc, axis=1), -1)
+    eligible = fittable & (own_best >= 0)
+    pooled = np.stack([np.bincount(law_group[eligible], weights=aicc[eligible, j], minlength=n_law_groups)
+                       for j in range(len(laws))], axis=1) if G else np.zeros((0, len(laws)))
+    n_law = np.bincount(law_group[eligible], minlength=n_law_groups)
+    chosen_law = np.where(np.isfinite(pooled.min(axis=1)) & (n_law > 0), np.argmin(pooled, axis=1), -1)
+    n_elig = np.bincount(group[eligible], minlength=n_groups)
+    # each replicate group's law: its catalyst x condition's (the same for all its wells)
+    first_of = np.full(n_groups, -1, dtype=np.int64)
+    first_of[group[::-1]] = law_group[::-1]
+    chosen = np.where(first_of >= 0, chosen_law[np.maximum(first_of, 0)], -1)
+
+    # shapes that are not initial-rate kinetics, per well
+    decline = (fittable & (i_top < last_slot) & ((y_top - y_last) > FLAG_SIGMAS * np.sqrt(2.0) * noise)
+               & ((y_top - y_last) > 0.05 * np.abs(y_top)))
+    rise = np.cumsum(fitted, axis=1)[Gi, i_top] if c.shape[1] else np.zeros(G, np.int64)
+    # induction: a slow first half of the rise, or an early window that bends upwards (the
+    # quadratic's t^2 term positive by more than 3 SE: the course accelerates from t = 0)
+    poly = fits[ratelaws.GENERIC]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        convex = poly.ok & (poly.n_window >= 4) & (poly.p2 > FLAG_SIGMAS * poly.p2_se)
+    # ... or a course that runs much faster later than at its start: the steepest three-reading
+    # slope (clearly above noise, after the first readings) more than twice the early rate
+    max_slope, max_sxx, max_at = _local_max_slope(c)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        late_fast = ((max_at >= 1) & (max_slope > 5.0 * noise / np.sqrt(max_sxx))
+                     & (poly.r0 < 0.5 * max_slope) & poly.ok)
+    # ... or a first-order course with an activating catalyst fits clearly better (AICc lower by
+    # more than INDUCTION_AICC) than every integrated law
+    ind = ratelaws.fit_first_order_induction(c, max_slope)
+    lagged = fittable & (ind.aicc(rss_floor) < aicc.min(axis=1) - INDUCTION_AICC)
+    induction = fittable & (_induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast | lagged)
+
+    def majority(mask):
+        hits = np.bincount(group[eligible & mask], minlength=n_groups)
+        return hits * 2 > n_elig
+
+    generic_group = majority(decline) | majority(induction)
+    # misfit: pooled residual variance of the chosen law against the campaign's noise
+    law_w = np.where(eligible, chosen[group], -1)
+    rss_w = _pick(np.stack([fits[law].rss for law in laws], axis=1), law_w)
+    df_w = _pick(np.stack([fits[law].df for law in laws], axis=1).astype(float), law_w)
+    inside = eligible & np.isfinite(rss_w) & (law_w >= 0)
+    chi = np.bincount(group[inside], weights=(rss_w / noise ** 2)[inside], minlength=n_groups)
+    dfs = np.bincount(group[inside], weights=df_w[inside], minlength=n_groups)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        misfit = (dfs > 0) & (chi / dfs > MISFIT_RATIO)
+    generic_group |= misfit & (chosen >= 0)
+
+    # --- per-well estimate from the group's law ---------------------------------------------
+    all_laws = laws + [ratelaws.GENERIC]
+    gen = len(laws)
+    per = {k: np.stack([getattr(fits[law], k) for law in all_laws], axis=1)
+           for k in ("r0", "r0_se", "rss", "ok", "p1", "p2", "n_window")}
+    per["df"] = np.stack([fits[law].df for law in all_laws], axis=1)
+    per["resid_sd"] = np.stack([fits[law].resid_sd for law in all_laws], axis=1)
+    grp_law = np.where(generic_group, gen, chosen)
+    want = np.where(fittable & (grp_law[group] >= 0), grp_law[group], np.where(fittable, own_best, -1))
+    usable = per["ok"] & np.isfinite(per["r0"])
+    got = _pick(usable.astype(float), want) > 0
+    # a well the group's law cannot fit: its own best integrated law, else the generic form
+    fallback = np.where(own_best >= 0, own_best, np.where(_pick(usable.astype(float), np.full(G, gen)) > 0, gen, -1))
+    own = fittable & ~got & (want >= 0)
+    law_i = np.where(fittable, np.where(got, want, fallback), -1)
+    own &= law_i >= 0
+    failed = fittable & (law_i < 0)
+
+    r0 = _pick(per["r0"], law_i)
+    r0_se = _pick(per["r0_se"], law_i)
+    df = _pick(per["df"].astype(float), law_i)
+    resid = _pick(per["resid_sd"], law_i)
+    p1, p2 = _pick(per["p1"], law_i), _pick(per["p2"], law_i)
+    n_used = _pick(per["n_window"].astype(float), law_i)
+    scale_mM = np.where(capped, theo, 1.0)
+    rate = r0 * scale_mM
+    rate_se = r0_se * scale_mM
+    # end points and censored wells: the chord to the first reading after t = 0 (net of the
+    # t = 0 reading when there is one)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        chord = (y1 - y0) / t1 * scale_mM
+    rate = np.where(done | end_point, chord, rate)
+    rate_se = np.where(done | end_point | failed, np.nan, rate_se)
+    df = np.where(done | end_point | failed | ~np.isfinite(df), 0, df).astype(np.int64)
+    n_used = np.where(done | end_point, np.minimum(n_fit, 2), np.nan_to_num(n_used)).astype(np.int64)
+
+    # deactivation: short of first-order depletion from the fitted initial rate
+    with np.errstate(invalid="ignore", over="ignore"):
+        fo_last = -np.expm1(-np.maximum(r0, 0.0) * t_last)
+        deact = (fittable & capped & np.isfinite(r0) & (r0 > 0) & (t_last > t1)
+                 & ((fo_last - y_last) > np.maximum(FLAG_SIGMAS * np.sqrt(2.0) * noise, 0.1 * fo_last)))
+    max_slope = max_slope * scale_mM
+
+    method_words = np.array(all_laws + ["end_point", "first_reading", "no_data"], dtype=object)
+    m_code = np.where(law_i >= 0, law_i, len(all_laws) + 2)
+    m_code = np.where(end_point, len(all_laws), np.where(done, len(all_laws) + 1, m_code))
+    q = _t_quantile(settings.confidence, df)
     with np.errstate(invalid="ignore"):
-        above = conv > window                             # NaN (no substrate) is not above
-    # the window ends at each well's first reading above it (wells are contiguous, time-sorted)
-    first_above = starts + n_points
-    ia = np.flatnonzero(above)
-    if ia.size:
-        ga = g[ia]
-        lead = np.ones(ia.size, dtype=bool)
-        lead[1:] = ga[1:] != ga[:-1]
-        first_above[ga[lead]] = ia[lead]
-    n_win = (first_above - starts).astype(np.int64)
-    in_win = pos < n_win[g]
-
-    # first reading after t = 0: each well's readings are time-sorted, so its t = 0 readings lead
-    i_first = np.where(n_t0_int < n_points, starts + n_t0_int, -1)
-    first_time = _take(t, i_first)
-    first_prod = _take(prod, i_first)
-    first_conv = _take(conv, i_first)
-    n_pos = n_points - n_t0_int                          # readings after t = 0
-    i_last = np.where(n_points > 0, starts + n_points - 1, -1)
-    last_time = _take(t, i_last)
-    last_prod = _take(prod, i_last)
-    last_conv = _take(conv, i_last)
-    # the per-reading temporaries are done with: free them before the fits (a smaller working set)
-    del conv, above, ia, is_t0, g_t0, use
-
-    # --- method per well -------------------------------------------------------------------
-    m_slope = (n_win >= min_pts) & (n_pos >= 1)
-    m_first = ~m_slope & (n_points >= 3) & (n_pos >= 2)
-    m_end = ~m_slope & ~m_first & (n_pos >= 1)
-    m_fit = m_slope | m_first
-    method_code = np.select([m_slope, m_first, m_end], [1, 2, 3], default=0)   # into _METHODS
-
-    rate = np.full(G, np.nan)
-    rate_se = np.full(G, np.nan)
-    rate_df = np.zeros(G, dtype=np.int64)
-    k_fit = np.full(G, np.nan)
-    intercept = np.full(G, np.nan)
-    plateau = np.full(G, np.nan)
-    resid_sd = np.full(G, np.nan)
-    failed = np.zeros(G, dtype=bool)
-    fixed_flag = np.zeros(G, dtype=bool)
-    used_pts = np.zeros(G, dtype=np.int64)
-    # end of the initial segment (for the deactivation check) and the fitted set (induction)
-    t_end_seg = np.full(G, np.nan)
-    n_fit = np.zeros(G, dtype=np.int64)         # fitted readings per well: a leading run of each
-
-    # initial slope
-    sel = np.flatnonzero(in_win & m_slope[g])
-    del in_win
-    if sel.size:
-        lf = fit.fit_lines(t[sel], prod[sel], g[sel], G)
-        ok = m_slope & np.isfinite(lf.slope)
-        rate[ok], rate_se[ok], rate_df[ok] = lf.slope[ok], lf.slope_se[ok], lf.df[ok]
-        intercept[ok], resid_sd[ok] = lf.intercept[ok], lf.resid_sd[ok]
-        used_pts[m_slope] = n_win[m_slope]
-        failed |= m_slope & ~ok
-        # the window is a leading run of the time-sorted course: its end is its last reading
-        t_end_seg[ok] = t[starts[ok] + n_win[ok] - 1]
-        n_fit[m_slope] = n_win[m_slope]
-
-    # first-order fit of the whole course
-    sel = np.flatnonzero(m_first[g])
-    if sel.size:
-        t_s, p_s, g_s = t[sel], prod[sel], g[sel]
-        b1_start, k_start = models.start_guess(t_s, p_s, g_s, G)
-        free = _first_order_fit(np.flatnonzero(m_first), t_s, p_s, g_s, G, k_start=k_start)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            poor = ((n_points < 4) | (free.status != fit.OK)
-                    | ~(free.b1 <= PLATEAU_MAX_RATIO * theo) | ~(free.b1_se <= PLATEAU_MAX_REL_SE * np.abs(free.b1)))
-        refit = m_first & poor & np.isfinite(theo)
-        keep_free = m_first & ~refit & (free.status == fit.OK)
-        rate[keep_free], rate_se[keep_free] = free.rate[keep_free], free.rate_se[keep_free]
-        rate_df[keep_free], k_fit[keep_free] = free.df[keep_free], free.k[keep_free]
-        plateau[keep_free], resid_sd[keep_free] = free.b1[keep_free], free.resid_sd[keep_free]
-        failed |= m_first & ~refit & ~keep_free
-        if refit.any():
-            sel2 = refit[g_s]
-            fx = _first_order_fit(np.flatnonzero(refit), t_s[sel2], p_s[sel2], g_s[sel2], G, plateau=theo)
-            good = refit & (fx.status == fit.OK)
-            rate[good], rate_se[good], rate_df[good] = fx.rate[good], fx.rate_se[good], fx.df[good]
-            k_fit[good], plateau[good], resid_sd[good] = fx.k[good], fx.b1[good], fx.resid_sd[good]
-            fixed_flag |= good
-            failed |= refit & ~good
-        used_pts[m_first] = n_points[m_first]
-        t_end_seg[m_first] = first_time[m_first]
-        n_fit[m_first] = n_points[m_first]
-
-    # end point: earliest reading after t = 0, net of the t = 0 reading when there is one
-    if m_end.any():
-        net = first_prod - np.where(has_t0, p_t0, 0.0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            rate[m_end] = (net / first_time)[m_end]
-        used_pts[m_end] = 1
-    rate[failed] = np.nan
-    rate_se[failed] = np.nan
-    rate_df[failed] = 0
-
-    with np.errstate(invalid="ignore", divide="ignore"):
-        k_out = np.where(m_first, k_fit, rate / theo)
-        k_out = np.where(failed, np.nan, k_out)
-        # one t quantile per distinct df (a handful), not per well
-        df_u, df_inv = np.unique(np.where(rate_df > 0, rate_df, 1), return_inverse=True)
-        tq = stats.t.ppf(0.5 + settings.confidence / 2.0, df_u)[df_inv.ravel()]
-        half = np.where((rate_df > 0) & np.isfinite(rate_se), tq * rate_se, np.nan)
-
-    induction = _induction(g, t, prod, None, G, pos, n_fit=n_fit)
-    deactivation = _deactivation(rate, intercept, theo, t_end_seg, last_time, last_prod,
-                                 resid_sd, m_fit)
-
+        half = np.where((df > 0) & np.isfinite(rate_se), q * rate_se, np.nan)
+        ci_low = np.where(done, rate, rate - half)
+        ci_high = np.where(done, np.nan, rate + half)
+        k_out = rate / theo
+        plateau = np.where(law_i == laws.index("first_order_plateau"), p1 * scale_mM,
+                           np.where(capped, theo, np.nan))
+        noise_ratio = resid / noise
+    last_prod = y_last * scale_mM
     flags = {
-        "no_readings": ~(m_fit | m_end),
-        "end_point_only": m_end,
-        "above_window": np.nan_to_num(first_conv, nan=-np.inf) > window,
+        "no_readings": ~(fittable | end_point | done),
+        "end_point_only": end_point,
+        "done_at_first_reading": done,
         "induction": induction,
-        "deactivation": deactivation,
-        "fixed_plateau": fixed_flag,
+        "deactivation": deact,
+        "product_decline": decline,
+        "law_misfit": fittable & generic_group[group] & misfit[group] & (law_i == gen),
+        "own_rate_law": own,
         "fit_failed": failed,
-        "few_points": m_fit & (used_pts < 4) & ~failed,
+        "few_points": fittable & (n_used < 4) & ~failed,
         "negative_rate": np.nan_to_num(rate, nan=0.0) < 0,
         "baseline_first_reading": first_reading_base,
-        "no_substrate": ~np.isfinite(theo) & (n_points > 0),
+        "no_substrate": ~capped & (n_points > 0),
+        "above_full_scale": above_full,
+        "above_linear_range": above_lin,
     }
-
     flag_words, flag_codes = _flag_codes(flags, G)
+    censored = np.where(done, "lower", "")
     return frame_of(wells, cols, None if G == len(wells) else rows, {
-        "n_points": n_points.astype(np.int64),
-        "method": pd.array(np.array(_METHODS, dtype=object), dtype="string").take(method_code),
+        "n_points": n_points,
+        "method": pd.array(method_words.astype(str), dtype="string").take(m_code),
         "rate_mM_per_h": rate,
         "rate_se_mM_per_h": rate_se,
-        "rate_df": rate_df,
+        "rate_df": df,
         "k_per_h": k_out,
-        "last_time_h": last_time,
+        "last_time_h": t_last,
         "last_product_mM": last_prod,
-        "last_conversion_pct": last_conv,
+        "last_conversion_pct": np.where(capped, y_last * 100.0, np.nan),
         "flags": text_array(flag_words, flag_codes),
-        "rate_ci_low_mM_per_h": rate - half,
-        "rate_ci_high_mM_per_h": rate + half,
-        "window_points": np.where(m_slope, n_win, 0),
-        "intercept_mM": intercept,
+        "censored": pd.array(censored.astype(str), dtype="string"),
+        "rate_ci_low_mM_per_h": ci_low,
+        "rate_ci_high_mM_per_h": ci_high,
+        "window_points": n_used,
+        "law_p1": p1,
+        "law_p2": p2,
+        "law_capped": capped,
         "plateau_mM": plateau,
-        "resid_sd_mM": resid_sd,
+        "resid_sd_mM": resid * scale_mM,
+        "noise_ratio": noise_ratio,
+        "max_rate_mM_per_h": max_slope,
         "has_t0": has_t0,
-        "first_time_h": first_time,
-        "first_conversion_pct": first_conv,
+        "first_time_h": t1,
+        "first_conversion_pct": np.where(capped, y1 * 100.0, np.nan),
+        "fit_points": n_fit,
+        "substrate_integral_h": substrate_h,
     })
 
 
-def _induction(g, t, prod, in_fit, G, pos=None, n_fit=None) -> np.ndarray:
-    """Straight lines through the first and the second half of the fitted readings (sharing the
-    middle reading): flagged when the early slope is below half the late slope and the
-    difference exceeds FLAG_SIGMAS standard errors (pooled residual SD of the two lines).
-
-    Each well's readings are contiguous and time-sorted in ``g`` and its fitted ones a leading
-    run of them: either the mask ``in_fit`` (``pos``, each reading's place in its well, from
-    sorted ``g`` when not given) or, with ``pos``, the number ``n_fit`` of fitted readings per well."""
-    if n_fit is None:
-        if not in_fit.any():
-            return np.zeros(G, dtype=bool)
-        if pos is None:
-            gi = g[in_fit]
-            pos = np.zeros(g.shape, dtype=np.int64)
-            pos[in_fit] = np.arange(gi.size) - _group_starts(gi, G)[gi]
-        n = np.bincount(g, weights=in_fit, minlength=G).astype(np.int64)
-        mid = (n // 2)[g]
-        one, two = np.flatnonzero(in_fit & (pos <= mid)), np.flatnonzero(in_fit & (pos >= mid))
-    else:
-        n = np.asarray(n_fit, dtype=np.int64)
-        if not (n > 0).any():
-            return np.zeros(G, dtype=bool)
-        half = n // 2
-        # first half: places 0..mid of a leading run; second half: places mid..n-1
-        one = np.flatnonzero(pos <= np.where(n > 0, half, -1)[g])
-        two = np.flatnonzero((pos >= half[g]) & (pos < n[g]))
-    # the two halves fitted separately (each group's sums in the same order as one joint fit)
-    early_fit = fit.fit_lines(t[one], prod[one], g[one], G)
-    late_fit = fit.fit_lines(t[two], prod[two], g[two], G)
-    early, late = early_fit.slope, late_fit.slope
-    df = (early_fit.n - 2) + (late_fit.n - 2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rss = np.nan_to_num(early_fit.rss) + np.nan_to_num(late_fit.rss)
-        s2 = rss / df
-        se = np.sqrt(s2 / early_fit.sxx + s2 / late_fit.sxx)
-        hit = (n >= 4) & (df > 0) & (late > 0) & (early < 0.5 * late) & ((late - early) > FLAG_SIGMAS * se)
-    return np.asarray(hit, dtype=bool)
-
-
-def _deactivation(rate, intercept, theo, t_end, last_time, last_prod, resid_sd, fitted) -> np.ndarray:
-    """Product gained from the end of the initial segment to the last reading < 0.5 x the gain that
-    the initial rate, slowed only by substrate depletion (first order, plateau = theoretical
-    maximum; a straight line when that is unknown), predicts - and short of it by more than
-    FLAG_SIGMAS x sqrt(2) residual SDs."""
-    a0 = np.where(np.isfinite(intercept), intercept, 0.0)
-    with np.errstate(invalid="ignore", over="ignore"):
-        pred_end = models.depletion_course(t_end, a0, rate, theo)
-        pred_last = models.depletion_course(last_time, a0, rate, theo)
-        pred_gain = pred_last - pred_end
-        obs_gain = last_prod - pred_end
-        hit = (fitted & (last_time > t_end) & (rate > 0)
-               & (pred_gain > 0) & (obs_gain < 0.5 * pred_gain)
-               & ((pred_gain - obs_gain) > FLAG_SIGMAS * np.sqrt(2.0) * resid_sd))
-    return np.asarray(np.nan_to_num(hit, nan=0) > 0, dtype=bool)
+def _substrate_integral(t, y, g, G: int, capped: np.ndarray) -> np.ndarray:
+    """Per well: the integral from 0 to its last reading of the substrate left, ``1 - X(t)`` (X
+    clipped to 0..1), by the trapezoid rule over its readings (from X = 0 at t = 0 when there is
+    no reading at t = 0), in h. The background's product in a catalysed well is its pseudo-first-
+    order constant times this (times the initial substrate). NaN without substrate."""
+    if not g.size:
+        return np.full(G, np.nan)
+    s = 1.0 - np.clip(np.nan_to_num(y, nan=0.0), 0.0, 1.0)
+    same = g[1:] == g[:-1]
+    area = np.where(same, (t[1:] - t[:-1]) * (s[1:] + s[:-1]) / 2.0, 0.0)
+    out = np.bincount(g[1:], weights=area, minlength=G)
+    first = np.concatenate(([True], ~same))
+    head = np.where(t[first] > 0, t[first] * (1.0 + s[first]) / 2.0, 0.0)
+    out += np.bincount(g[first], weights=head, minlength=G)
+    return np.where(capped, out, np.nan)

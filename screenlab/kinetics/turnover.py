@@ -61,13 +61,20 @@ FLAGS: dict[str, str] = {
     "single_well": "Only one well in this group: its SE is the well's own fit SE.",
     "not_above_blank": "The group's net TOF confidence interval reaches zero or below: no activity shown over "
                        "the blank.",
+    "blank_scaled": "No blank at this substrate level on the plate: the blank of another level was scaled to it "
+                    "as a background first order in substrate.",
+    "blank_outlier_excluded": "A blank well that is a replicate outlier of its level was left out of the blank mean.",
+    "ton_capped": "The well (group: most wells) reached full conversion, so its TON is the substrate / site "
+                  "ratio: a lower bound of what the catalyst can turn over.",
+    "censored_replicate": "Some replicates (fewer than half) were done before their first reading; they are left "
+                          "out of the group's estimate, which rests on the others.",
     **_sites.FLAGS,
     **_selectivity.FLAGS,
 }
 
 #: extra columns of the per-well turnover frame beyond the contract
 TURNOVER_EXTRA = ("site_basis", "blank_lod_mM_per_h", "blank_df", "tof_per_s", "ln_enhancement_se",
-                  "enhancement_df")
+                  "enhancement_df", "censored", "tof_bound_per_h", "tof_max_per_h")
 
 # columns that are never factor columns (used when factor names are not given)
 _KNOWN = {
@@ -77,7 +84,10 @@ _KNOWN = {
     "blank_rate_mM_per_h", "blank_se_mM_per_h", "blank_lod_mM_per_h", "blank_df", "net_rate_mM_per_h",
     "net_rate_se_mM_per_h", "tof_per_h", "tof_se_per_h", "tof_per_s", "ton", "enhancement", "enhancement_ci_low",
     "enhancement_ci_high", "ln_enhancement_se", "enhancement_df", "outlier", "analyte", "format", "n_rows",
-    "n_cols", "run_date", "notes", "plate_temperature_c",
+    "n_cols", "run_date", "notes", "plate_temperature_c", "censored", "tof_bound_per_h", "tof_max_per_h",
+    "rate_ci_low_mM_per_h", "rate_ci_high_mM_per_h", "window_points", "law_p1", "law_p2", "law_capped",
+    "plateau_mM", "resid_sd_mM", "noise_ratio", "max_rate_mM_per_h", "has_t0", "first_time_h",
+    "first_conversion_pct", "fit_points", "substrate_integral_h", "rate_law", "in_arrhenius_fit",
 }
 
 
@@ -116,6 +126,23 @@ def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
         den = ta + tb
         out = np.where(den > 0, (va + vb) ** 2 / den, np.inf)
     return out
+
+
+#: last conversion at or above which a well counts as fully converted: its TON is then capped by
+#: the substrate / site ratio (flag ton_capped; common practice, no source)
+TON_FULL_CONVERSION_PCT = 95.0
+
+
+def _text(frame: pd.DataFrame, col: str) -> np.ndarray:
+    """Object array of str of a text column ("" where missing or absent)."""
+    if col not in frame.columns:
+        return np.full(len(frame), "", dtype=object)
+    return frame[col].astype("string").fillna("").to_numpy(dtype=object)
+
+
+def _product_per_substrate(data) -> float:
+    manifest = getattr(data, "manifest", None)
+    return float(getattr(manifest, "product_per_substrate", 1.0) or 1.0)
 
 
 def _f(frame: pd.DataFrame, col: str) -> np.ndarray:
@@ -228,66 +255,125 @@ _FlagIndex = FlagIndex
 
 
 def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -> pd.DataFrame:
-    """One row per plate x temperature that has any non-empty well.
+    """One row per plate x temperature x substrate level that has any non-empty well.
 
-    Columns: ``plate, temperature_c, n_blanks, blank_rate_mM_per_h, blank_sd_mM_per_h,
-    blank_se_mM_per_h, blank_lod_mM_per_h, flags`` plus ``blank_df`` (df of the blank SE: n - 1,
-    or the single blank's fit df) and ``blank_detected`` (mean >= LOD). Plates x temperatures
-    without blanks get NaN and flag ``no_blank``. Blank wells without a finite rate are ignored.
+    Columns: ``plate, temperature_c, substrate_conc_mM, n_blanks, blank_rate_mM_per_h,
+    blank_sd_mM_per_h, blank_se_mM_per_h, blank_lod_mM_per_h, flags`` plus ``blank_df`` (df of the
+    blank SE: n - 1, or the single blank's fit df), ``blank_detected`` (mean >= LOD),
+    ``blank_conc_mM`` (the substrate level the blank wells had) and ``n_blank_outliers``.
+
+    * A level with its own blank wells uses them (a concentration series then has a blank per
+      level, so apparent orders are not biased by one level's background).
+    * A level without blanks on a plate x temperature that has blanks at other levels takes the
+      level with the most blank wells (then the nearest concentration), scaled to this level's
+      substrate as a background first order in substrate, ``r_b x S/S_b`` (flag ``blank_scaled``;
+      SE and LOD scaled alike).
+    * Blank wells that are replicate outliers of their level (robust z above
+      ``settings.outlier_z``, see :func:`_robust_z`, three or more blanks) are left out of the
+      mean (flag ``blank_outlier_excluded``; the wells keep flag ``outlier``), and so are blanks
+      without a finite rate or done at their first reading.
+    * No blank on the plate x temperature at all: NaN and flag ``no_blank``.
     """
-    del settings  # the definition has no tunable part; kept for a uniform signature
+    settings = settings or AnalysisSettings()
     roles = _Roles(wells)
     keep = np.flatnonzero(~roles.is_("empty"))
-    temp = _f(wells, "temperature_c")[keep]
-    tkey = _tkey(temp)
-    # plate x temperature key per kept well, numbered in order of first appearance
-    kcode = _key_codes([_codes(wells["plate"]), _codes(_tkey(_f(wells, "temperature_c")))], keep)
+    temp_all = _f(wells, "temperature_c")
+    conc_all = _f(wells, "substrate_conc_mM")
+    plate_c = _codes(wells["plate"])
+    t_c = _codes(_tkey(temp_all))
+    c_c = _codes(_ckey(conc_all))
+    kcode = _key_codes([plate_c, t_c, c_c], keep)            # plate x temperature x level, per kept well
+    pt_code = _key_codes([plate_c, t_c], keep)               # plate x temperature
     K = int(kcode.max()) + 1 if kcode.size else 0
-    first = _first_rows(kcode)                               # first kept well of each key
+    first = _first_rows(kcode)
     rate = _f(wells, "rate_mM_per_h")[keep]
-    blank = roles.is_("blank")[keep] & np.isfinite(rate)
-    bk = kcode[blank]
+    se_w = _f(wells, "rate_se_mM_per_h")[keep]
+    cens = (wells["censored"].astype("string").fillna("").to_numpy(dtype=object)[keep] != ""
+            if "censored" in wells.columns else np.zeros(len(keep), dtype=bool))
+    blank = roles.is_("blank")[keep] & np.isfinite(rate) & ~cens
+    z = _robust_z(np.where(blank, rate, np.nan), np.where(blank, kcode, -1), se_w)
+    out_b = blank & ~np.isnan(z) & (z > float(settings.outlier_z))
+    used = blank & ~out_b
+    bk = kcode[used]
     n = np.bincount(bk, minlength=K).astype(float)
+    n_out = np.bincount(kcode[out_b], minlength=K)
     mean = np.full(K, np.nan)
     sd = np.full(K, np.nan)
     one_se = np.full(K, np.nan)
     one_df = np.full(K, np.nan)
     if bk.size:
-        # mean and SD by a pandas group-by (its compensated sums), the first SE / df by position
-        gb = pd.Series(rate[blank]).groupby(bk, sort=True)
+        gb = pd.Series(rate[used]).groupby(bk, sort=True)
         present = np.unique(bk)
         mean[present] = gb.mean().to_numpy(dtype=float)
         sd[present] = gb.std().to_numpy(dtype=float)
         order = np.argsort(bk, kind="stable")
         sorted_codes = bk[order]
-        one_se = _group_first(_f(wells, "rate_se_mM_per_h")[keep][blank], order, sorted_codes, K)
-        one_df = _group_first(_f(wells, "rate_df")[keep][blank], order, sorted_codes, K)
+        one_se = _group_first(se_w[used], order, sorted_codes, K)
+        one_df = _group_first(_f(wells, "rate_df")[keep][used], order, sorted_codes, K)
     with np.errstate(invalid="ignore", divide="ignore"):
         se = np.where(n >= 2, sd / np.sqrt(n), np.where(n == 1, one_se, np.nan))
-        lod = 3.0 * se
     dfb = np.where(n >= 2, n - 1, np.where(n == 1, one_df, np.nan))
-    detected = np.isfinite(mean) & (~np.isfinite(lod) | (mean >= lod))
+    sd = np.where(n >= 2, sd, np.nan)
+    conc_k = conc_all[keep][first]
+    pt_k = pt_code[first]
+    # levels without blanks: the plate x temperature's best-provided level, scaled by substrate
+    src = np.arange(K)
+    missing = n == 0
+    if missing.any() and (n > 0).any():
+        have = np.flatnonzero(n > 0)
+        # per plate x temperature: the level with most blanks (then the lowest code: first seen)
+        best_of_pt = np.full(int(pt_k.max()) + 1, -1, dtype=np.int64)
+        order = np.lexsort((have, -n[have], pt_k[have]))
+        lead = np.ones(order.size, dtype=bool)
+        lead[1:] = pt_k[have][order][1:] != pt_k[have][order][:-1]
+        best_of_pt[pt_k[have][order][lead]] = have[order][lead]
+        cand = best_of_pt[pt_k]
+        fill = missing & (cand >= 0)
+        src = np.where(fill, cand, src)
+    scaled = missing & (src != np.arange(K))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        factor = np.where(scaled, conc_k / conc_k[src], 1.0)
+        factor = np.where(np.isfinite(factor), factor, np.nan)
+        mean_o, sd_o, se_o = mean[src] * factor, sd[src] * factor, se[src] * factor
+    n_o, dfb_o = n[src], dfb[src]
+    lod = 3.0 * se_o
+    detected = np.isfinite(mean_o) & (~np.isfinite(lod) | (mean_o >= lod))
     flag_words, flag_codes = _FlagIndex(None, n=K).join_codes({
-        "no_blank": n == 0,
-        "single_blank": n == 1,
-        "blank_below_lod": (n >= 1) & np.isfinite(lod) & (mean < lod),
+        "no_blank": n_o == 0,
+        "single_blank": n_o == 1,
+        "blank_below_lod": (n_o >= 1) & np.isfinite(lod) & (mean_o < lod),
+        "blank_scaled": scaled & (n_o >= 1),
+        "blank_outlier_excluded": n_out > 0,
     })
     plate = wells["plate"].iloc[keep[first]].to_numpy(dtype=object)
-    temperature = temp[first]
-    by = _sort_order([plate, temperature])
-    res = pd.DataFrame({
+    temperature = temp_all[keep][first]
+    by = _sort_order([plate, temperature, conc_k])
+    return pd.DataFrame({
         "plate": plate[by],
         "temperature_c": temperature[by],
-        "n_blanks": n.astype(np.int64)[by],
-        "blank_rate_mM_per_h": mean[by],
-        "blank_sd_mM_per_h": np.where(n >= 2, sd, np.nan)[by],
-        "blank_se_mM_per_h": se[by],
+        "substrate_conc_mM": conc_k[by],
+        "n_blanks": n_o.astype(np.int64)[by],
+        "blank_rate_mM_per_h": mean_o[by],
+        "blank_sd_mM_per_h": sd_o[by],
+        "blank_se_mM_per_h": se_o[by],
         "blank_lod_mM_per_h": lod[by],
         "flags": _sites.text_array(flag_words, flag_codes[by]),
-        "blank_df": dfb[by],
-        "blank_detected": (detected & (n >= 1))[by],
+        "blank_df": dfb_o[by],
+        "blank_detected": (detected & (n_o >= 1))[by],
+        "blank_conc_mM": conc_k[src][by],
+        "n_blank_outliers": n_out.astype(np.int64)[by],
     })
-    return res
+
+
+def _ckey(conc) -> np.ndarray:
+    """Substrate-level key for matching wells to their level's blank: the concentration to 9
+    significant digits (one format per distinct value, a handful)."""
+    c = np.asarray(conc, dtype=float)
+    if not c.size:
+        return c
+    u, inv = np.unique(c, return_inverse=True)          # NaN values sort last and stay NaN
+    key = np.array([float(f"{v:.9g}") if np.isfinite(v) else v for v in u])
+    return key[inv.ravel()]
 
 
 # ----------------------------------------------------------------------------------------- per well
@@ -478,11 +564,12 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     site_umol, site_basis, (site_words, site_codes) = _sites.site_arrays(wells, catalysts, factorized=parts)
     sites = np.where(catalysed, site_umol, np.nan)
 
-    # each well's blank row (same plate and temperature key) by position: no merge
+    # each well's blank row (same plate, temperature and substrate level) by position
     tkey = _tkey(_f(wells, "temperature_c"))
+    ckey = _ckey(_f(wells, "substrate_conc_mM"))
     plate_parts = _factorize(wells["plate"])
-    pt_code = _key_codes([_key_of(*plate_parts), _codes(tkey)])          # plate x temperature, per well
-    brow = _blank_rows(plate_parts, tkey, blanks)
+    pt_code = _key_codes([_key_of(*plate_parts), _codes(tkey), _codes(ckey)])   # blank groups, per well
+    brow = _blank_rows(plate_parts, tkey, ckey, blanks)
     found = brow >= 0
 
     def from_blank(col: str, fill=np.nan) -> np.ndarray:
@@ -503,32 +590,54 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     se_w = _f(wells, "rate_se_mM_per_h")
     df_w = _f(wells, "rate_df")
     vol = _f(wells, "volume_uL")
+    lower_w = _text(wells, "censored") == "lower"
     with np.errstate(invalid="ignore", divide="ignore"):
         b_rate_c = np.where(has_blank, b_rate, 0.0)
         b_se_c = np.where(has_blank, np.nan_to_num(b_se, nan=0.0), 0.0)
         net = np.where(catalysed, rate - b_rate_c, np.nan)
-        net_se = np.where(catalysed, np.sqrt(se_w ** 2 + b_se_c ** 2), np.nan)
+        net_se = np.where(catalysed & ~lower_w, np.sqrt(se_w ** 2 + b_se_c ** 2), np.nan)
         amount_per_mM = units.amount_umol(1.0, vol)          # umol per mM in this well
         tof = net * amount_per_mM / sites
         tof_se = net_se * amount_per_mM / sites
-        blank_product = b_rate_c * _f(wells, "last_time_h")
+        tof_max = (_f(wells, "max_rate_mM_per_h") - b_rate_c) * amount_per_mM / sites
+        # TON: the background in a catalysed well runs on the substrate that well had left
+        # (parallel pathways, the background first order in substrate): its product is the
+        # blank's pseudo-first-order constant r_b / S0 times S0 x integral of (1 - X) dt
+        theo = _f(wells, "substrate_conc_mM") * _product_per_substrate(data)
+        s_int = _f(wells, "substrate_integral_h")
+        k_b = b_rate_c / _f(wells, "substrate_conc_mM")
+        blank_product = np.where(np.isfinite(s_int), k_b * _f(wells, "substrate_conc_mM") * s_int
+                                 * _product_per_substrate(data), b_rate_c * _f(wells, "last_time_h"))
         ton = (_f(wells, "last_product_mM") - blank_product) * amount_per_mM / sites
+        ton_capped = catalysed & (_f(wells, "last_conversion_pct") >= TON_FULL_CONVERSION_PCT)
+        del theo
 
-        # enhancement: measured blank, or the LOD as denominator (lower bound)
-        lower = catalysed & has_blank & ~b_det & np.isfinite(b_lod) & (b_lod > 0)
-        denom = np.where(lower, b_lod, b_rate)
+        # not distinguishable from the blank: the net rate's interval reaches zero
+        q_w = t_quantile(settings.confidence, np.where(catalysed & np.isfinite(net_se), welch_df(
+            se_w ** 2, df_w, b_se_c ** 2, b_df), np.nan))
+        upper_w = catalysed & ~lower_w & np.isfinite(net) & np.isfinite(q_w) & (net - q_w * net_se <= 0)
+
+        # enhancement: over a measured blank; over the blank's upper confidence limit when the
+        # blank is below its detection limit (a lower bound: the blank may be anywhere below it)
+        q_b = t_quantile(settings.confidence, np.where(has_blank, b_df, np.nan))
+        blank_hi = np.maximum(b_rate, 0.0) + np.where(np.isfinite(q_b), q_b, 3.0) * b_se
+        lower = catalysed & has_blank & ~b_det & np.isfinite(blank_hi) & (blank_hi > 0)
+        denom = np.where(lower, blank_hi, b_rate)
         usable = catalysed & has_blank & np.isfinite(denom) & (denom > 0) & np.isfinite(rate)
         enh = np.where(usable, rate / denom, np.nan)
         rel_w = (se_w / rate) ** 2
         rel_b = np.where(lower, 0.0, (b_se / b_rate) ** 2)
         ln_se = np.sqrt(rel_w + rel_b)
         enh_df = welch_df(rel_w, df_w, rel_b, b_df)
-        ok_ci = usable & (rate > 0) & np.isfinite(ln_se)
+        ok_ci = usable & (rate > 0) & np.isfinite(ln_se) & ~lower_w
         q = t_quantile(settings.confidence, np.where(ok_ci, enh_df, np.nan))   # used where ok_ci only
         ln_e = np.log(np.where(ok_ci, enh, 1.0))
         with np.errstate(over="ignore"):             # a log-scale bound beyond float range is inf
             e_lo = np.where(ok_ci, np.exp(ln_e - q * ln_se), np.nan)
             e_hi = np.where(ok_ci, np.where(lower, np.inf, np.exp(ln_e + q * ln_se)), np.nan)
+        # a well done before its first reading: its rate and enhancement are lower bounds
+        e_lo = np.where(usable & lower_w, enh, e_lo)
+        e_hi = np.where(usable & lower_w, np.inf, e_hi)
 
     # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
     metric = np.where(np.isfinite(tof), tof, rate)
@@ -537,10 +646,13 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     key_cols = [known[k] if k in known else wells[k] for k in keys]
     codes_cat = np.where(catalysed, _key_codes(key_cols), -1)
     codes_bl = np.where(is_blank, pt_code, -1)
-    # each well's own measurement error (the shared blank's error is common to its replicates)
+    # each well's own measurement error (the shared blank's error is common to its replicates);
+    # bounds (wells done before their first reading) are not measurements and take no part
     with np.errstate(invalid="ignore", divide="ignore"):
         own_se = np.where(np.isfinite(tof), se_w * amount_per_mM / sites, se_w)
-    z = np.where(catalysed, _robust_z(metric, codes_cat, own_se), _robust_z(rate, codes_bl, se_w))
+    metric = np.where(lower_w, np.nan, metric)
+    z = np.where(catalysed, _robust_z(metric, codes_cat, own_se),
+                 _robust_z(np.where(lower_w, np.nan, rate), codes_bl, se_w))
     outlier = ~np.isnan(z) & (z > float(settings.outlier_z))   # z = inf: a dead well among active ones
 
     # flag columns are factorised: each distinct flag string is parsed once (no regex per row);
@@ -557,11 +669,15 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         "no_blank": (catalysed | is_blank) & ~has_blank,
         "no_sites": catalysed & ~np.isfinite(sites),
         "below_blank": catalysed & has_blank & np.isfinite(net) & (net <= 0),
-        "enhancement_lower_bound": lower & np.isfinite(enh),
+        "enhancement_lower_bound": (lower | lower_w) & np.isfinite(enh),
         "outlier": outlier,
         # an outlier with no net activity among active replicates: a failed well, not chemistry
         "failed_well": catalysed & outlier & ~(metric > 0),
+        "ton_capped": ton_capped & np.isfinite(ton),
     })
+    censored = np.where(catalysed & lower_w, "lower", np.where(upper_w, "upper", ""))
+    with np.errstate(invalid="ignore"):
+        tof_bound = np.where(upper_w, np.maximum(net, 0.0) + q_w * net_se, net) * amount_per_mM / sites
 
     new = {
         "sites_umol": sites,
@@ -583,16 +699,20 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         "enhancement_df": np.where(ok_ci, enh_df, np.nan),
         "outlier": outlier,
         "flags": _sites.text_array(flag_words, flag_codes),
+        "censored": pd.array(censored.astype(str), dtype="string"),
+        "tof_bound_per_h": np.where(censored != "", tof_bound, np.nan),
+        "tof_max_per_h": np.where(catalysed, tof_max, np.nan),
     }
     out = _sites.with_columns(wells, new)
     out.attrs["factor_names"] = factor_names
     return out
 
 
-def _blank_rows(plate_parts, tkey: np.ndarray, blanks: pd.DataFrame) -> np.ndarray:
-    """For each well (plate, temperature key): its row in ``blanks`` (the first one with that plate
-    and key, as a left merge on the deduplicated blanks gives), -1 when there is none.
-    ``plate_parts`` is :func:`_factorize` of the wells' plates (a missing plate matches one)."""
+def _blank_rows(plate_parts, tkey: np.ndarray, ckey: np.ndarray, blanks: pd.DataFrame) -> np.ndarray:
+    """For each well (plate, temperature key, substrate-level key): its row in ``blanks`` (the
+    first one with that plate and keys), -1 when there is none. ``plate_parts`` is
+    :func:`_factorize` of the wells' plates (a missing plate matches one). A blanks table without
+    a substrate column (one row per plate x temperature) is matched on plate and temperature."""
     n = len(tkey)
     if not len(blanks) or not n:
         return np.full(n, -1, dtype=np.int64)
@@ -602,9 +722,15 @@ def _blank_rows(plate_parts, tkey: np.ndarray, blanks: pd.DataFrame) -> np.ndarr
     bp = np.where(pd.isna(blanks["plate"]).to_numpy(dtype=bool), len(names), bp)
     t_codes, t_u = pd.factorize(np.concatenate([tkey, _tkey(blanks["temperature_c"])]), use_na_sentinel=False)
     nt = len(t_u)
-    w_key = w_plate * nt + t_codes[:n]
+    if "substrate_conc_mM" in blanks.columns:
+        c_codes, c_u = pd.factorize(np.concatenate([ckey, _ckey(_f(blanks, "substrate_conc_mM"))]),
+                                    use_na_sentinel=False)
+    else:
+        c_codes, c_u = np.zeros(n + len(blanks), dtype=np.int64), [0]
+    nc = len(c_u)
+    w_key = (w_plate * nt + t_codes[:n]) * nc + c_codes[:n]
     b_ok = np.flatnonzero(bp >= 0)
-    b_key = bp[b_ok] * nt + t_codes[n:][b_ok]
+    b_key = (bp[b_ok] * nt + t_codes[n:][b_ok]) * nc + c_codes[n:][b_ok]
     uniq, first = np.unique(b_key, return_index=True)        # the first blank row of each key
     at = np.minimum(np.searchsorted(uniq, w_key), len(uniq) - 1)
     hit = uniq[at] == w_key
@@ -722,7 +848,8 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         cols = [*keys, "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_sd_per_h",
                 "tof_se_per_h", "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement",
                 "enhancement_ci_low", "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s",
-                "n_plates", "n_outliers", "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS]
+                "n_plates", "n_outliers", "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS, "censored", "rate_law",
+                "tof_max_per_h", "tof_rep_se_per_h"]
         return pd.DataFrame(columns=cols)
 
     def col(name):
@@ -748,6 +875,14 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         rel_b = (col("blank_se_mM_per_h") / col("blank_rate_mM_per_h")) ** 2
     lb_flag = has("enhancement_lower_bound")
     tof = np.where(np.isfinite(tof), tof, np.nan)
+    # wells done before their first reading carry lower bounds: the group is a bound when at least
+    # half of its wells are; otherwise those wells are left out and the others carry the estimate
+    lower_w = _text(turnover, "censored")[rows] == "lower"
+    n_with = np.bincount(gcode[~failed], minlength=n_groups)
+    n_low = np.bincount(gcode[lower_w & ~failed], minlength=n_groups)
+    grp_lower = (n_low > 0) & (2 * n_low >= n_with)
+    part_lower = (n_low > 0) & ~grp_lower
+    tof_se_w = col("tof_se_per_h")
     stat = {
         "rate": rate_all[rows],
         "tof": tof,
@@ -755,14 +890,18 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "ln_e": ln_enh,
         "b_tof2": np.where(np.isfinite(tof), b_tof ** 2, np.nan),
         "rel_b": np.where(np.isfinite(ln_enh) & ~lb_flag, rel_b, np.nan),
-        "tof_se1": col("tof_se_per_h"),
+        "fit_se2": np.where(np.isfinite(tof), tof_se_w ** 2 - b_tof ** 2, np.nan),
+        "tof_max": col("tof_max_per_h"),
+        "tof_se1": tof_se_w,
         "rate_df1": col("rate_df"),
         "e_lo1": e_lo1,
         "e_hi1": col("enhancement_ci_high"),
     }
-    # failed wells (flag failed_well) are shown per well but left out of every group statistic
+    # failed wells (flag failed_well) are shown per well but left out of every group statistic,
+    # and so are the bounds of a group that is not itself a bound
+    skip = failed | (lower_w & ~grp_lower[gcode])
     for v in stat.values():
-        v[failed] = np.nan
+        v[skip] = np.nan
     blank_df = col("blank_df")
     outlier = (turnover["outlier"].to_numpy(dtype=bool)[rows] if "outlier" in turnover
                else np.zeros(len(rows), bool))
@@ -770,7 +909,8 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     # group statistics: means and SDs by one pandas group-by over a float block (the same cython
     # kernels as a per-column agg, so the same numbers); counts, first values, min, any / all by
     # bincount over the group codes
-    moments = pd.DataFrame({c: stat[c] for c in ("rate", "tof", "ton", "ln_e", "b_tof2", "rel_b")})
+    moments = pd.DataFrame({c: stat[c] for c in ("rate", "tof", "ton", "ln_e", "b_tof2", "rel_b", "fit_se2",
+                                                  "tof_max")})
     gb = moments.groupby(gcode, sort=True)                 # one grouping, shared by both reductions
     mean = {c: v.to_numpy(dtype=float) for c, v in gb.mean().items()}
     sdev = {c: v.to_numpy(dtype=float) for c, v in gb[["rate", "tof", "ton", "ln_e"]].std().items()}
@@ -802,8 +942,11 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     k = n_plates.astype(float)
     sd = sdev["tof"]
     b2 = np.nan_to_num(mean["b_tof2"], nan=0.0)
+    fit2 = np.nan_to_num(mean["fit_se2"], nan=0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
-        v_rep = np.where(n >= 2, sd ** 2 / n, np.nan)
+        # replicate scatter, never below what the wells' own fit errors imply (three replicates
+        # that agree by chance would otherwise claim too much); the shared blank's error on top
+        v_rep = np.where(n >= 2, np.maximum(sd ** 2, np.maximum(fit2, 0.0)) / n, np.nan)
         v_blank = np.where(n >= 2, b2 / k, 0.0)
         se = np.where(n >= 2, np.sqrt(v_rep + v_blank), np.where(n == 1, tof_se1, np.nan))
         df = np.where(n >= 2, welch_df(v_rep, n - 1, v_blank, bdf), np.where(n == 1, rate_df1, np.nan))
@@ -829,14 +972,53 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     conc = _f(turnover, "substrate_conc_mM")[first_row]
     is_standard = _standard_flags(col_codes["catalyst"][0][first_row], cond_code, n_wells.astype(float),
                                   loading, conc)
+    # bounds: a group of wells done before their first reading (lower), or not above its blank
+    not_above = (n >= 1) & ~nb & ~grp_lower & ((tof_mean <= 0) | (np.isfinite(lo) & (lo <= 0)))
+    censored = np.where(grp_lower & np.isfinite(tof_mean), "lower", np.where(not_above, "upper", ""))
+    with np.errstate(invalid="ignore"):
+        upper_bound = np.maximum(tof_mean, 0.0) + np.where(np.isfinite(q * se), q * se, 0.0)
+    is_up = censored == "upper"
+    is_low = censored == "lower"
+    tof_out = np.where(is_up, upper_bound, tof_mean)
+    lo = np.where(is_up, np.nan, np.where(is_low, tof_mean, lo))
+    hi = np.where(is_up, upper_bound, np.where(is_low, np.nan, hi))
+    se = np.where(is_low, np.nan, se)
+    e_hi = np.where(is_low, np.inf, e_hi)
+    # the law of each group (the most used among its measured wells) and shapes most wells show
+    m_codes, m_words = pd.factorize(turnover["method"].iloc[rows].astype("string").fillna("no_data"))
+    m_codes = np.asarray(m_codes, dtype=np.int64)
+    measured = ~skip & ~lower_w
+    M = max(len(m_words), 1)
+    pair = np.bincount(gcode[measured] * M + m_codes[measured], minlength=n_groups * M).reshape(n_groups, M)
+    law_words = np.array([str(w) for w in m_words] + [""], dtype=object)
+    rate_law = np.where(pair.sum(axis=1) > 0, pair.argmax(axis=1), M if len(m_words) else 0)
+    rate_law = np.where(is_low, -1, rate_law)
+    law_text = np.where(rate_law >= 0, law_words[np.clip(rate_law, 0, len(law_words) - 1)], "first_reading")
+    base = np.maximum(n_with, 1)
+
+    def most(code):
+        return 2 * np.bincount(gcode[has(code) & ~failed], minlength=n_groups) > base
+
+    def any_of(code):
+        return np.bincount(gcode[has(code) & ~failed], minlength=n_groups) > 0
+
     flag_words, flag_codes = _FlagIndex(None, n=n_groups).join_codes({
         "single_well": n == 1,
         "has_outlier": n_out > 0,
         "excluded_failed_well": n_failed > 0,
         "no_blank": nb,
         "no_sites": ns,
-        "enhancement_lower_bound": lb & np.isfinite(e_mean),
-        "not_above_blank": (n >= 1) & ~nb & ((tof_mean <= 0) | (np.isfinite(lo) & (lo <= 0))),
+        "enhancement_lower_bound": (lb | is_low) & np.isfinite(e_mean),
+        "not_above_blank": not_above,
+        "done_at_first_reading": is_low,
+        "censored_replicate": part_lower,
+        "induction": most("induction"),
+        "deactivation": most("deactivation"),
+        "product_decline": most("product_decline"),
+        "law_misfit": most("law_misfit"),
+        "ton_capped": most("ton_capped"),
+        "above_full_scale": any_of("above_full_scale"),
+        "above_linear_range": any_of("above_linear_range"),
     })
     if selectivity is not None and len(selectivity):
         sel_cols = [c for c in selectivity.columns if c not in ("role", "catalyst", "temperature_c")]
@@ -865,7 +1047,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "n_wells": n_wells,
         "rate_mM_per_h": mean["rate"],
         "rate_sd_mM_per_h": sdev["rate"],
-        "tof_per_h": tof_mean,
+        "tof_per_h": tof_out,
         "tof_sd_per_h": np.where(n >= 2, sd, np.nan),
         "tof_se_per_h": se,
         "tof_df": df,
@@ -879,14 +1061,20 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "is_standard": is_standard,
         "plates": plates,
         "flags": flag_codes,
-        "tof_per_s": tof_per_s(tof_mean),
+        "tof_per_s": tof_per_s(tof_out),
         "n_plates": n_plates,
         "n_outliers": n_out,
         "rate_se_mM_per_h": rate_se,
         **{c: sel[c].to_numpy(dtype=float) for c in _selectivity.GROUP_COLUMNS},
+        "censored": censored.astype(object),
+        "rate_law": law_text.astype(object),
+        "tof_max_per_h": mean["tof_max"],
+        "tof_rep_se_per_h": se,
     }
     new = {c: v[by] for c, v in new.items()}
     new["flags"] = _sites.text_array(flag_words, new["flags"])
+    new["censored"] = pd.array(new["censored"].astype(str), dtype="string")
+    new["rate_law"] = pd.array(new["rate_law"].astype(str), dtype="string")
     res = _sites.frame_of(turnover, keys, first_row[by], new)
     res.attrs["factor_names"] = factors
     return res

@@ -1,0 +1,611 @@
+"""Integrated rate laws of a well's product course, and their batched least-squares fits.
+
+Every law describes the product course ``y(t)`` of one well from ``y(0) = 0`` and gives its
+initial rate ``r0 = dy/dt`` at t = 0, with a standard error from the fit. For a well whose
+theoretical maximum product is known (substrate x stoichiometry), ``y`` is the fraction ``X`` of
+that maximum (``capped`` courses: they cannot pass 1); otherwise ``y`` is the product in mM and
+only the laws that do not need the maximum apply.
+
+=========================  =============================================  ==========  ======
+law                        integrated form                                 r0          params
+=========================  =============================================  ==========  ======
+``zero_order``             X = min(r t, 1): constant rate until the        r           1
+                           substrate runs out (uncapped: y = r t)
+``first_order``            X = 1 - exp(-k t)                               k           1
+``saturation``             r = V S / (Km + S), integrated:                 V/(S0+Km)   2
+                           K ln(1/(1 - X)) + X = (V/S0) t, K = Km/S0
+``first_order_plateau``    y = b (1 - exp(-k t)): a plateau below full      b k         2
+                           conversion (equilibrium, or a zero-order
+                           catalyst that decays at first order)
+``first_order_deactivating``  X = 1 - exp(-(k/kd)(1 - exp(-kd t))):        k           2
+                           first order in substrate, the catalyst
+                           decaying at first order (rate constant kd)
+``early_polynomial``       y = b t + c t^2 over the early part of the      b           2
+                           course only (the generic smooth form)
+=========================  =============================================  ==========  ======
+
+The integrated forms are the textbook ones (zero and first order: e.g. Atkins' Physical
+Chemistry, table of integrated rate laws; saturation: the integrated Michaelis-Menten equation,
+e.g. Cornish-Bowden, Fundamentals of Enzyme Kinetics); ``saturation`` holds the two others as its
+limits (Km -> 0: zero order; Km -> infinity at fixed V/Km: first order), and
+``first_order_deactivating`` holds ``first_order`` (kd -> 0).
+
+Fits work on all wells at once in a dense ``(wells x readings)`` layout padded with weight 0
+(:func:`dense_courses`); nothing loops over wells. One-parameter laws: ``zero_order`` by the
+exact least-squares rate for every possible run-out point then a self-consistent polish;
+``first_order`` and ``first_order_plateau`` by the variable-projection fitter of
+:mod:`screenlab.kinetics.fit` (NIST StRD Misra1a / BoxBOD checked). Two-parameter laws by a
+Levenberg-Marquardt iteration on log parameters (:func:`_levenberg_marquardt`), started from
+the best of a few data-driven candidates; the saturation law's implicit X(t) is solved by
+Newton's method on ``K u + 1 - exp(-u) = (V/S0) t`` with ``X = 1 - exp(-u)``, a concave
+equation whose Newton iterates approach the root monotonically from below. Standard errors
+from ``s^2 (J^T J)^-1`` with ``s^2 = RSS / (n - p)``; ``r0_se`` by the delta method.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from screenlab.kinetics import fit as _fit
+
+#: the integrated laws compared by AICc (same data for all)
+INTEGRATED = ("zero_order", "first_order", "saturation", "first_order_plateau", "first_order_deactivating")
+#: the generic smooth form over the early window (not comparable by AICc: other data)
+GENERIC = "early_polynomial"
+N_PARAMS = {"zero_order": 1, "first_order": 1, "saturation": 2, "first_order_plateau": 2,
+            "first_order_deactivating": 2, "early_polynomial": 2, "first_order_induction": 2}
+#: laws that need the theoretical maximum product (capped courses)
+NEEDS_MAXIMUM = ("first_order", "saturation", "first_order_deactivating")
+DESCRIPTION = {
+    "zero_order": "zero order until the substrate runs out, X = min(r t, 1)",
+    "first_order": "first order, X = 1 - exp(-k t)",
+    "saturation": "saturation r = V S/(Km + S), integrated",
+    "first_order_plateau": "first order to a plateau below full conversion, y = b (1 - exp(-k t))",
+    "first_order_deactivating": "first order with the catalyst decaying, X = 1 - exp(-(k/kd)(1 - exp(-kd t)))",
+    "early_polynomial": "quadratic y = b t + c t^2 over the early window (generic form)",
+}
+
+#: bounds of the Michaelis constant relative to S0 searched by the saturation law
+K_RATIO_BOUNDS = (1.0e-3, 1.0e3)
+#: rates searched, as multiples of 1 / t_max (low) and 1 / t_first (high)
+RATE_LOW_TIMES_TMAX = 1.0e-4
+RATE_HIGH_TIMES_TFIRST = 50.0
+#: a capped first_order_plateau above this plateau is not a plateau (common practice, no source)
+PLATEAU_MAX = 1.5
+
+
+@dataclass(frozen=True)
+class Courses:
+    """Time courses of G wells, dense: ``t``, ``y``, ``w`` are (G, m), padded with w = 0.
+
+    ``y`` is the fraction of the theoretical maximum where ``capped`` (else mM); each row is sorted
+    by time; ``n`` readings per well (w = 1), ``t_first`` the first time > 0 and ``t_max`` the last.
+    """
+
+    t: np.ndarray
+    y: np.ndarray
+    w: np.ndarray
+    n: np.ndarray
+    capped: np.ndarray
+    t_first: np.ndarray
+    t_max: np.ndarray
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.t.shape
+
+    def rowsum(self, v: np.ndarray) -> np.ndarray:
+        return v @ np.ones(v.shape[1]) if v.shape[1] else np.zeros(v.shape[0])
+
+    def flat(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The fitted readings as flat (t, y, well) arrays, wells in order."""
+        idx = np.nonzero(self.w > 0)
+        return self.t[idx], self.y[idx], idx[0].astype(np.int64)
+
+
+def dense_courses(t, y, g, n_wells: int, capped, keep=None) -> Courses:
+    """Dense layout of flat readings ``(t, y, g)`` sorted by (well code g, time). ``keep``: which
+    readings enter the fits (default all finite ones); the others stay in place with weight 0."""
+    t = np.asarray(t, dtype=float)
+    y = np.asarray(y, dtype=float)
+    g = np.asarray(g, dtype=np.int64)
+    G = int(n_wells)
+    ok = np.isfinite(t) & np.isfinite(y)
+    if keep is not None:
+        ok &= np.asarray(keep, dtype=bool)
+    if g.size > 1 and np.any(g[1:] < g[:-1]):          # wells in runs of any order: sort by well, stably
+        order = np.argsort(g, kind="stable")
+        t, y, g, ok = t[order], y[order], g[order], ok[order]
+    cnt = np.bincount(g, minlength=G)
+    m = int(cnt.max()) if G and cnt.size else 0
+    starts = np.concatenate(([0], np.cumsum(cnt)[:-1])) if G else np.zeros(0, np.int64)
+    pos = np.arange(g.size) - starts[g]
+    T = np.zeros((G, m))
+    Y = np.zeros((G, m))
+    W = np.zeros((G, m))
+    T[g, pos] = np.where(ok, t, 0.0)
+    Y[g, pos] = np.where(ok, y, 0.0)
+    W[g, pos] = ok
+    n = np.bincount(g[ok], minlength=G).astype(np.int64)
+    pos_t = ok & (t > 0)
+    t_first = np.full(G, np.inf)
+    np.minimum.at(t_first, g[pos_t], t[pos_t])
+    t_max = np.zeros(G)
+    np.maximum.at(t_max, g[ok], t[ok])
+    return Courses(t=T, y=Y, w=W, n=n, capped=np.asarray(capped, dtype=bool), t_first=t_first, t_max=t_max)
+
+
+@dataclass(frozen=True)
+class LawFit:
+    """One law fitted to every well (arrays of length G).
+
+    ``r0`` / ``r0_se`` the initial rate (y units per h) and its SE; ``rss``; ``n`` readings;
+    ``ok`` whether the fit is usable (converged, finite, inside its domain); ``p1``, ``p2`` the
+    law's parameters (zero_order: r; first_order: k; saturation: r0, K = Km/S0;
+    first_order_plateau: b, k; first_order_deactivating: k, kd; early_polynomial: b, c) and
+    ``n_window`` the readings used (early_polynomial: the window, else n).
+    """
+
+    law: str
+    r0: np.ndarray
+    r0_se: np.ndarray
+    rss: np.ndarray
+    n: np.ndarray
+    ok: np.ndarray
+    p1: np.ndarray
+    p2: np.ndarray
+    n_window: np.ndarray
+    p2_se: np.ndarray | None = None
+
+    @property
+    def n_params(self) -> int:
+        return N_PARAMS[self.law]
+
+    @property
+    def df(self) -> np.ndarray:
+        return np.maximum(self.n_window - self.n_params, 0)
+
+    @property
+    def resid_sd(self) -> np.ndarray:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(self.df > 0, np.sqrt(self.rss / np.maximum(self.df, 1)), np.nan)
+
+    def aicc(self, rss_floor: np.ndarray) -> np.ndarray:
+        """Small-sample Akaike criterion per well (Hurvich & Tsai 1989):
+        ``n ln(RSS/n) + 2p + 2p(p + 1)/(n - p - 1)``; +inf where not ok or n <= p + 1. The RSS is
+        floored at ``rss_floor`` (data resolution) so that exact fits do not reach -inf."""
+        p = self.n_params
+        n = self.n.astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rss = np.maximum(self.rss, rss_floor)
+            val = n * np.log(rss / n) + 2 * p + 2 * p * (p + 1) / (n - p - 1)
+        good = self.ok & (n > p + 1) & np.isfinite(val)
+        return np.where(good, val, np.inf)
+
+
+def _nan(G: int) -> np.ndarray:
+    return np.full(G, np.nan)
+
+
+def _rate_bounds(c: Courses) -> tuple[np.ndarray, np.ndarray]:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lo = RATE_LOW_TIMES_TMAX / np.where(c.t_max > 0, c.t_max, np.nan)
+        hi = RATE_HIGH_TIMES_TFIRST / np.where(np.isfinite(c.t_first), c.t_first, np.nan)
+    return lo, np.maximum(hi, lo * 10.0)
+
+
+# ------------------------------------------------------------------------------------- zero order
+def fit_zero_order(c: Courses) -> LawFit:
+    """``X = min(r t, 1)`` (capped) or ``y = r t``: the least-squares r of every split of the
+    course into a straight part and a run-out part (readings from the split on predicted at
+    X = 1), the best kept, then polished until the straight part is the set r t < 1 it implies.
+    ``r0_se = s / sqrt(sum t^2)`` over the straight part, s^2 = RSS / (n - 1)."""
+    T, Y, W = c.t, c.y, c.w
+    G, m = c.shape
+    cap = c.capped[:, None]
+    tw = W * T
+    cty = np.cumsum(tw * Y, axis=1)
+    ctt = np.cumsum(tw * T, axis=1)
+
+    def rss_of(r):
+        pred = r[:, None] * T
+        pred = np.where(cap, np.minimum(pred, 1.0), pred)
+        res = Y - pred
+        return c.rowsum(W * res * res)
+
+    best = np.full(G, np.inf)
+    r = _nan(G)
+    for j in range(m):                      # a loop over reading slots, vectorised over wells
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rj = np.where(ctt[:, j] > 0, cty[:, j] / ctt[:, j], np.nan)
+        if j < m - 1:                       # uncapped courses have no run-out: the whole course only
+            rj = np.where(c.capped, rj, np.nan)
+        rs = rss_of(np.nan_to_num(rj))
+        better = np.isfinite(rj) & (rs < best)
+        best = np.where(better, rs, best)
+        r = np.where(better, rj, r)
+    for _ in range(3):                      # self-consistent straight part
+        lin = (W > 0) & ((r[:, None] * T < 1.0) | ~cap)
+        stt = c.rowsum(np.where(lin, tw * T, 0.0))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rn = np.where(stt > 0, c.rowsum(np.where(lin, tw * Y, 0.0)) / stt, np.nan)
+        rs = rss_of(np.nan_to_num(rn))
+        better = np.isfinite(rn) & (rs < best)
+        best = np.where(better, rs, best)
+        r = np.where(better, rn, r)
+    lin = (W > 0) & ((r[:, None] * T < 1.0) | ~cap)
+    stt = c.rowsum(np.where(lin, tw * T, 0.0))
+    df = c.n - 1
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s2 = np.where(df > 0, best / np.maximum(df, 1), np.nan)
+        se = np.sqrt(s2 / stt)
+    # at least one reading after t = 0 on the straight part, or the rate is only a bound
+    ok = np.isfinite(r) & np.isfinite(se) & (stt > 0)
+    return LawFit("zero_order", r0=r, r0_se=np.where(ok, se, np.nan), rss=best, n=c.n, ok=ok, p1=r,
+                  p2=_nan(G), n_window=c.n)
+
+
+# ------------------------------------------------------------------------------------- first order
+def _first_order(c: Courses, fixed: bool) -> _fit.FirstOrderFit:
+    G = c.shape[0]
+    t, y, g = c.flat()
+    plateau = np.where(c.capped, 1.0, np.nan) if fixed else None
+    return _fit.fit_first_order(t, y, g, G, plateau=plateau)
+
+
+def fit_first_order(c: Courses) -> LawFit:
+    """``X = 1 - exp(-k t)``, the plateau fixed at full conversion (capped wells only)."""
+    G = c.shape[0]
+    f = _first_order(c, fixed=True)
+    ok = c.capped & (f.status == _fit.OK) & np.isfinite(f.rate_se)
+    return LawFit("first_order", r0=np.where(c.capped, f.rate, np.nan), r0_se=np.where(ok, f.rate_se, np.nan),
+                  rss=f.rss, n=c.n, ok=ok, p1=f.k, p2=_nan(G), n_window=c.n)
+
+
+def fit_first_order_plateau(c: Courses) -> LawFit:
+    """``y = b (1 - exp(-k t))`` with the plateau b fitted (any well)."""
+    f = _first_order(c, fixed=False)
+    with np.errstate(invalid="ignore"):
+        inside = ~c.capped | (f.b1 <= PLATEAU_MAX)
+        ok = (f.status == _fit.OK) & np.isfinite(f.rate_se) & (f.b1 > 0) & inside
+    return LawFit("first_order_plateau", r0=f.rate, r0_se=np.where(ok, f.rate_se, np.nan), rss=f.rss, n=c.n,
+                  ok=ok, p1=f.b1, p2=f.k, n_window=c.n)
+
+
+# ---------------------------------------------------------------------------- two-parameter engine
+def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
+    """Levenberg-Marquardt on two parameters per well (Marquardt 1963), all wells at once.
+
+    ``model(th1, th2, state) -> (pred, d pred/d th1, d pred/d th2, state)`` on the (G, m) grid;
+    ``bounds`` = (lo1, hi1, lo2, hi2) per-well arrays. A step is kept only where it lowers the
+    RSS (damping down by 3), else the damping goes up by 8. Returns th1, th2, rss, the 2 x 2
+    unscaled inverse (J^T J)^-1 as (i11, i12, i22), a singular mask and at-bound masks.
+    """
+    Y, W = c.y, c.w
+    lo1, hi1, lo2, hi2 = bounds
+    th1 = np.clip(th1, lo1, hi1)
+    th2 = np.clip(th2, lo2, hi2)
+    pred, j1, j2, state = model(th1, th2, None)
+
+    def rss_of(p):
+        r = Y - p
+        v = c.rowsum(W * r * r)
+        return np.where(np.isfinite(v), v, np.inf)
+
+    rss = rss_of(pred)
+    lam = np.full(c.shape[0], 1e-3)
+    active = np.isfinite(rss)
+    for _ in range(n_iter):
+        res = Y - pred
+        a11 = c.rowsum(W * j1 * j1)
+        a12 = c.rowsum(W * j1 * j2)
+        a22 = c.rowsum(W * j2 * j2)
+        g1 = c.rowsum(W * j1 * res)
+        g2 = c.rowsum(W * j2 * res)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            d1 = a11 * (1.0 + lam) + 1e-300
+            d2 = a22 * (1.0 + lam) + 1e-300
+            det = d1 * d2 - a12 * a12
+            s1 = np.nan_to_num((d2 * g1 - a12 * g2) / det)
+            s2 = np.nan_to_num((d1 * g2 - a12 * g1) / det)
+        s1 = np.clip(s1, -3.0, 3.0)               # at most a factor e^3 per step on log parameters
+        s2 = np.clip(s2, -3.0, 3.0)
+        n1 = np.clip(th1 + np.where(active, s1, 0.0), lo1, hi1)
+        n2 = np.clip(th2 + np.where(active, s2, 0.0), lo2, hi2)
+        pn, j1n, j2n, st_n = model(n1, n2, state)
+        rn = rss_of(pn)
+        better = active & (rn < rss)
+        keep = better[:, None]
+        pred = np.where(keep, pn, pred)
+        j1 = np.where(keep, j1n, j1)
+        j2 = np.where(keep, j2n, j2)
+        if state is not None:
+            state = np.where(keep, st_n, state)
+        gain = np.where(better, (rss - rn) / np.maximum(rss, 1e-300), 0.0)
+        th1 = np.where(better, n1, th1)
+        th2 = np.where(better, n2, th2)
+        rss = np.where(better, rn, rss)
+        lam = np.where(better, np.maximum(lam / 3.0, 1e-9), np.minimum(lam * 8.0, 1e9))
+        settled = (better & (gain < 1e-10) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (lam >= 1e9)
+        active &= ~settled
+        if not active.any():
+            break
+    a11 = c.rowsum(W * j1 * j1)
+    a12 = c.rowsum(W * j1 * j2)
+    a22 = c.rowsum(W * j2 * j2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        det = a11 * a22 - a12 * a12
+        singular = ~(det > 1e-10 * a11 * a22)
+        i11, i12, i22 = a22 / det, -a12 / det, a11 / det
+    span1 = np.maximum(hi1 - lo1, 1e-12)
+    span2 = np.maximum(hi2 - lo2, 1e-12)
+    at1 = (th1 <= lo1 + 1e-6 * span1) | (th1 >= hi1 - 1e-6 * span1)
+    at2 = (th2 <= lo2 + 1e-6 * span2) | (th2 >= hi2 - 1e-6 * span2)
+    # the second parameter at an end of its range: the law is at its nested limit (saturation ->
+    # zero or first order, deactivation -> first order); the rate's SE is then the one-parameter
+    # fit's, with the second parameter held there
+    with np.errstate(invalid="ignore", divide="ignore"):
+        i11 = np.where(at2, 1.0 / a11, i11)
+    singular = np.where(at2, ~(a11 > 0), singular)
+    return th1, th2, rss, (i11, i12, i22), singular, at1, at2
+
+
+def _best_start(c: Courses, model, candidates) -> tuple[np.ndarray, np.ndarray]:
+    """The candidate (th1, th2) pair with the lowest RSS per well."""
+    best = np.full(c.shape[0], np.inf)
+    b1 = b2 = None
+    for t1, t2 in candidates:               # a handful of candidates, each vectorised over wells
+        t1 = np.nan_to_num(t1, nan=0.0)
+        t2 = np.nan_to_num(t2, nan=0.0)
+        pred = model(t1, t2, None)[0]
+        r = c.rowsum(c.w * (c.y - pred) ** 2)
+        r = np.where(np.isfinite(r), r, np.inf)
+        if b1 is None:
+            b1, b2, best = t1.copy(), t2.copy(), r
+            continue
+        take = r < best
+        b1, b2, best = np.where(take, t1, b1), np.where(take, t2, b2), np.where(take, r, best)
+    return b1, b2
+
+
+# -------------------------------------------------------------------------------------- saturation
+def solve_saturation_u(K, tau, u_start=None, n_max: int = 80) -> np.ndarray:
+    """Root u >= 0 of ``K u + 1 - exp(-u) = tau`` (X = 1 - exp(-u) is the integrated saturation
+    course at tau = (V/S0) t). g(u) is increasing and concave, so every Newton iterate lies below
+    the root and they rise monotonically to it; the start is the larger of two lower bounds,
+    ``tau / (1 + K)`` and ``(tau - 1) / K`` (and of one Newton step from ``u_start``)."""
+    K = np.asarray(K, dtype=float)
+    tau = np.asarray(tau, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        u = np.maximum(np.maximum(tau / (1.0 + K), (tau - 1.0) / K), 0.0)
+        if u_start is not None:
+            us = np.maximum(u_start, 0.0)
+            e = np.exp(-us)
+            step = (K * us + 1.0 - e - tau) / (K + e)
+            u = np.maximum(u, us - step)
+        for _ in range(n_max):
+            e = np.exp(-u)
+            step = (K * u + 1.0 - e - tau) / (K + e)
+            u = u - step
+            if not np.any(np.abs(step) > 1e-13 * (1.0 + u)):
+                break
+    return np.maximum(u, 0.0)
+
+
+def saturation_course(t, r0, K):
+    """X(t) of the saturation law with initial rate ``r0`` (fraction/h) and K = Km/S0."""
+    K = np.asarray(K, dtype=float)
+    u = solve_saturation_u(K, np.asarray(r0, dtype=float) * (1.0 + K) * np.asarray(t, dtype=float))
+    return -np.expm1(-u)
+
+
+def fit_saturation(c: Courses, zero: LawFit, first: LawFit) -> LawFit:
+    """Saturation law on (ln r0, ln K), r0 = V/(S0 + Km) in fraction/h, capped wells only."""
+    G = c.shape[0]
+    T = c.t
+    r_lo, r_hi = _rate_bounds(c)
+    lo1, hi1 = np.log(r_lo), np.log(r_hi)
+    lo2 = np.full(G, np.log(K_RATIO_BOUNDS[0]))
+    hi2 = np.full(G, np.log(K_RATIO_BOUNDS[1]))
+
+    def model(lr, lk, u_prev):
+        r = np.exp(lr)[:, None]
+        K = np.exp(lk)[:, None]
+        tau = r * (1.0 + K) * T
+        u = solve_saturation_u(K, tau, u_prev)
+        e = np.exp(-u)
+        D = K + e
+        return -np.expm1(-u), e * tau / D, e * K * (r * T - u) / D, u
+
+    rz = np.where(np.isfinite(zero.r0) & (zero.r0 > 0), zero.r0, np.nan)
+    rf = np.where(np.isfinite(first.r0) & (first.r0 > 0), first.r0, np.nan)
+    rz = np.where(np.isfinite(rz), rz, rf)
+    rf = np.where(np.isfinite(rf), rf, rz)
+    mid = np.sqrt(rz * rf)
+    starts = [(np.log(rz), np.log(0.02)), (np.log(mid), np.log(0.5)), (np.log(rf), np.log(5.0)),
+              (np.log(rf * 1.5), np.log(1.5))]
+    s1, s2 = _best_start(c, model, [(a, np.full(G, b)) for a, b in starts])
+    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2))
+    df = c.n - 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s2v = np.where(df > 0, rss / np.maximum(df, 1), np.nan)
+        r0 = np.exp(th1)
+        se = r0 * np.sqrt(s2v * i11)
+    ok = c.capped & np.isfinite(rz) & ~singular & ~at1 & np.isfinite(se)
+    return LawFit("saturation", r0=np.where(c.capped, r0, np.nan), r0_se=np.where(ok, se, np.nan), rss=rss, n=c.n,
+                  ok=ok, p1=r0, p2=np.exp(th2), n_window=c.n)
+
+
+# ------------------------------------------------------------------------------------ deactivation
+def deactivating_course(t, k, kd):
+    """X(t) = 1 - exp(-(k/kd)(1 - exp(-kd t))) (-> first order as kd -> 0)."""
+    t = np.asarray(t, dtype=float)
+    kd = np.asarray(kd, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        E = np.where(kd > 0, -np.expm1(-kd * t) / np.where(kd > 0, kd, 1.0), t)
+    return -np.expm1(-np.asarray(k, dtype=float) * E)
+
+
+def fit_first_order_deactivating(c: Courses, first: LawFit, zero: LawFit) -> LawFit:
+    """First order with first-order decay of the catalyst, on (ln k, ln kd), capped wells only."""
+    G = c.shape[0]
+    T = c.t
+    r_lo, r_hi = _rate_bounds(c)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        kd_lo = 1.0e-2 / np.where(c.t_max > 0, c.t_max, np.nan)
+        kd_hi = 30.0 / np.where(np.isfinite(c.t_first), c.t_first, np.nan)
+    bounds = (np.log(r_lo), np.log(r_hi), np.log(kd_lo), np.log(np.maximum(kd_hi, kd_lo * 10)))
+
+    def model(lk, lkd, _state):
+        k = np.exp(lk)[:, None]
+        kd = np.exp(lkd)[:, None]
+        em = np.exp(-kd * T)
+        E = -np.expm1(-kd * T) / kd
+        z = k * E
+        left = np.exp(-z)
+        return -np.expm1(-z), left * z, left * k * (T * em - E), None
+
+    kf = np.where(np.isfinite(first.r0) & (first.r0 > 0), first.r0, np.nan)
+    kz = np.where(np.isfinite(zero.r0) & (zero.r0 > 0), zero.r0, kf)
+    kf = np.where(np.isfinite(kf), kf, kz)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inv_t = 1.0 / np.where(c.t_max > 0, c.t_max, np.nan)
+    cands = [(np.log(k0), np.log(f * inv_t)) for k0 in (kf, np.maximum(kf, kz) * 1.5) for f in (0.3, 1.0, 3.0)]
+    s1, s2 = _best_start(c, model, cands)
+    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds)
+    df = c.n - 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s2v = np.where(df > 0, rss / np.maximum(df, 1), np.nan)
+        k = np.exp(th1)
+        se = k * np.sqrt(s2v * i11)
+    ok = c.capped & np.isfinite(kf) & ~singular & ~at1 & np.isfinite(se)
+    return LawFit("first_order_deactivating", r0=np.where(c.capped, k, np.nan), r0_se=np.where(ok, se, np.nan),
+                  rss=rss, n=c.n, ok=ok, p1=k, p2=np.exp(th2), n_window=c.n)
+
+
+# ------------------------------------------------------------------------------------- induction
+def induction_course(t, k, tau):
+    """X(t) = 1 - exp(-k (t - tau (1 - exp(-t / tau)))): first order with a catalyst that activates
+    at first order (activity 1 - exp(-t / tau)); the rate at t = 0 is 0, later k (1 - X)."""
+    t = np.asarray(t, dtype=float)
+    tau = np.asarray(tau, dtype=float)
+    return -np.expm1(-np.asarray(k, dtype=float) * (t + tau * np.expm1(-t / tau)))
+
+
+def fit_first_order_induction(c: Courses, max_slope: np.ndarray) -> LawFit:
+    """The induction course above on (ln k, ln tau), capped wells only. Not a law for the initial
+    rate (that is 0 by construction): its AICc against the integrated laws is the induction test.
+    ``r0`` holds k, the working rate once active (fraction/h)."""
+    G = c.shape[0]
+    T = c.t
+    r_lo, r_hi = _rate_bounds(c)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tau_lo = 0.05 * np.where(np.isfinite(c.t_first), c.t_first, np.nan)
+        tau_hi = 2.0 * np.where(c.t_max > 0, c.t_max, np.nan)
+    bounds = (np.log(r_lo), np.log(r_hi), np.log(tau_lo), np.log(np.maximum(tau_hi, tau_lo * 10)))
+
+    def model(lk, ltau, _state):
+        k = np.exp(lk)[:, None]
+        tau = np.exp(ltau)[:, None]
+        e = np.exp(-T / tau)
+        A = T + tau * (e - 1.0)
+        left = np.exp(-k * A)
+        dA = tau * (-1.0 + e * (1.0 + T / tau))
+        return -np.expm1(-k * A), left * k * A, left * k * dA, None
+
+    k0 = np.where(np.isfinite(max_slope) & (max_slope > 0), max_slope, np.nan)
+    cands = [(np.log(k0 * f), np.log(tau)) for f in (1.0, 1.5)
+             for tau in (c.t_first, 3.0 * c.t_first, 0.3 * c.t_max)]
+    s1, s2 = _best_start(c, model, cands)
+    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds)
+    ok = c.capped & np.isfinite(k0) & ~singular & ~at1 & ~at2 & np.isfinite(rss)
+    return LawFit("first_order_induction", r0=np.exp(th1), r0_se=_nan(G), rss=rss, n=c.n, ok=ok,
+                  p1=np.exp(th1), p2=np.exp(th2), n_window=c.n)
+
+
+# ------------------------------------------------------------------------------ early polynomial
+def early_window(c: Courses, window_frac: float, min_points: int) -> np.ndarray:
+    """(G, m) mask of each well's early window: its fitted readings up to and including the first
+    one at or above ``window_frac`` of the course's largest value, and at least ``min_points``
+    readings (the first ones) when the course is that steep."""
+    Y, W = c.y, c.w
+    G, m = c.shape
+    top = np.max(np.where(W > 0, Y, -np.inf), axis=1) if m else np.zeros(G)
+    reach = (W > 0) & (Y >= window_frac * top[:, None]) & (c.t > 0)
+    first = np.where(reach.any(axis=1), np.argmax(reach, axis=1), m - 1) if m else np.zeros(G, np.int64)
+    order = np.cumsum(W > 0, axis=1)                          # fitted readings so far
+    upto = order <= np.maximum(order[np.arange(G), first] if m else 0, min_points)[:, None]
+    return (W > 0) & upto
+
+
+def fit_early_polynomial(c: Courses, window: np.ndarray) -> LawFit:
+    """``y = b t + c t^2`` (through the origin) over ``window``; r0 = b, SE from the 2 x 2 normal
+    equations (time scaled by the window's last time for conditioning), df = n_window - 2."""
+    G = c.shape[0]
+    Wp = window.astype(float)
+    scale = np.max(np.where(window, c.t, 0.0), axis=1) if c.shape[1] else np.zeros(G)
+    scale = np.where(scale > 0, scale, 1.0)
+    s = c.t / scale[:, None]
+    s2 = s * s
+    a11 = c.rowsum(Wp * s2)
+    a12 = c.rowsum(Wp * s2 * s)
+    a22 = c.rowsum(Wp * s2 * s2)
+    g1 = c.rowsum(Wp * s * c.y)
+    g2 = c.rowsum(Wp * s2 * c.y)
+    nw = window.sum(axis=1).astype(np.int64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        det = a11 * a22 - a12 * a12
+        b = (a22 * g1 - a12 * g2) / det
+        cc = (a11 * g2 - a12 * g1) / det
+        res = c.y - b[:, None] * s - cc[:, None] * s2
+        rss = c.rowsum(Wp * res * res)
+        df = nw - 2
+        s2v = np.where(df > 0, rss / np.maximum(df, 1), np.nan)
+        se_b = np.sqrt(s2v * a22 / det)
+        se_c = np.sqrt(s2v * a11 / det)
+    ok = (df > 0) & (det > 1e-12 * a11 * a22) & np.isfinite(b) & np.isfinite(se_b)
+    return LawFit(GENERIC, r0=b / scale, r0_se=np.where(ok, se_b / scale, np.nan), rss=rss, n=c.n, ok=ok,
+                  p1=b / scale, p2=cc / scale ** 2, n_window=nw, p2_se=np.where(ok, se_c / scale ** 2, np.nan))
+
+
+def fit_all(c: Courses, window_frac: float = 0.5, min_points: int = 3) -> dict[str, LawFit]:
+    """Every law fitted to every well: ``{law: LawFit}`` (integrated laws and the early polynomial)."""
+    zero = fit_zero_order(c)
+    first = fit_first_order(c)
+    out = {"zero_order": zero, "first_order": first}
+    out["saturation"] = fit_saturation(c, zero, first)
+    out["first_order_plateau"] = fit_first_order_plateau(c)
+    out["first_order_deactivating"] = fit_first_order_deactivating(c, first, zero)
+    out[GENERIC] = fit_early_polynomial(c, early_window(c, window_frac, min_points))
+    return out
+
+
+def predict(law: str, p1, p2, t):
+    """The course of ``law`` with parameters (p1, p2) at times ``t`` (y units: fraction of the
+    maximum for the capped laws), for plots and residuals."""
+    t = np.asarray(t, dtype=float)
+    p1 = np.asarray(p1, dtype=float)
+    p2 = np.asarray(p2, dtype=float)
+    if law == "zero_order":
+        return np.minimum(p1 * t, 1.0)
+    if law == "first_order":
+        return -np.expm1(-p1 * t)
+    if law == "saturation":
+        return saturation_course(t, p1, p2)
+    if law == "first_order_plateau":
+        return p1 * -np.expm1(-p2 * t)
+    if law == "first_order_deactivating":
+        return deactivating_course(t, p1, p2)
+    if law == GENERIC:
+        return p1 * t + p2 * t * t
+    if law == "first_order_induction":
+        return induction_course(t, p1, p2)
+    raise ValueError(f"unknown rate law {law!r}")
+
+
+__all__ = ["Courses", "DESCRIPTION", "GENERIC", "INTEGRATED", "LawFit", "NEEDS_MAXIMUM", "N_PARAMS",
+           "deactivating_course", "dense_courses", "early_window", "fit_all", "fit_early_polynomial",
+           "fit_first_order", "fit_first_order_deactivating", "fit_first_order_plateau", "fit_saturation",
+           "fit_first_order_induction", "fit_zero_order", "induction_course", "predict", "saturation_course",
+           "solve_saturation_u"]
