@@ -5,8 +5,8 @@ import pytest
 import statsmodels.api as sm
 from scipy import constants, stats
 
-from screenlab.kinetics.arrhenius import (LN_KB_OVER_H, UNCATALYSED, arrhenius_table, fit_temperature_series,
-                                          predict_tof)
+from screenlab.kinetics.arrhenius import (LN_KB_OVER_H, UNCATALYSED, arrhenius_points, arrhenius_table,
+                                          fit_temperature_series, plate_scatter, predict_tof)
 from screenlab.settings import AnalysisSettings
 
 R = constants.R   # CODATA (exact since 2019 SI), via scipy.constants
@@ -99,43 +99,103 @@ def _blanks(temps, rates, se, n=3):
                          "blank_lod_mM_per_h": 0.0, "flags": "", "blank_df": n - 1, "blank_detected": True})
 
 
-def test_weighted_fit_matches_statsmodels_wls_and_prediction():
+def _dl_tau2(x, y, v):
+    """DerSimonian-Laird moment estimate of the between-point variance of one weighted line,
+    written out plainly (Thompson & Sharp, Stat. Med. 1999, 18, 2693): w = 1/v, Q the weighted
+    RSS, tau^2 = max(0, (Q - (n - 2)) / (sum w - tr((X'WX)^-1 X'W^2X)))."""
+    X = np.column_stack([np.ones_like(x), x])
+    W = np.diag(1 / v)
+    beta = np.linalg.solve(X.T @ W @ X, X.T @ W @ y)
+    r = y - X @ beta
+    q = r @ W @ r
+    tr = np.trace(np.linalg.solve(X.T @ W @ X, X.T @ W @ W @ X))
+    return max(0.0, (q - (len(x) - 2)) / (np.sum(1 / v) - tr))
+
+
+def test_weighted_fit_matches_statsmodels_wls_with_the_plate_scatter_added():
     temps = np.array([30.0, 40.0, 50.0, 60.0, 70.0])
     tof = np.array([12.0, 30.0, 60.0, 150.0, 290.0])
-    se = np.array([1.0, 2.0, 6.0, 9.0, 40.0])
+    se = np.array([0.3, 0.9, 1.5, 4.0, 9.0])            # replicate SEs of 2.5-3 %: the points scatter more
     s = AnalysisSettings(reference_temperature_c=55.0)
     arr = arrhenius_table(_groups("C1", temps, tof, se), _blanks(temps, [0.1, 0.2, 0.4, 0.9, 1.6], 0.01), s)
     row = arr[arr.catalyst == "C1"].iloc[0]
     x = 1 / (temps + 273.15)
+    v = (se / tof) ** 2
+    tau2 = _dl_tau2(x, np.log(tof), v)
+    assert tau2 > 0 and row.plate_scatter_ln == pytest.approx(np.sqrt(tau2), rel=1e-9)
+    assert arr.attrs["plate_scatter_ln"] == pytest.approx(np.sqrt(tau2), rel=1e-9)
+    # statsmodels reference: WLS with weights 1 / (v + tau^2) and the error scale known (1), t on the
+    # pooled df of the tau^2 estimate (n - 2 = 3 here)
     X = sm.add_constant(x)
-    # statsmodels reference; covariance scale max(1, chi^2/df), as the module docstring states
-    scale = sm.WLS(np.log(tof), X, weights=1 / (se / tof) ** 2).fit().scale
-    fit = sm.WLS(np.log(tof), X, weights=1 / (se / tof) ** 2).fit(
-        cov_type="fixed scale", cov_kwds={"scale": max(1.0, scale)}, use_t=scale > 1.0)
+    fit = sm.WLS(np.log(tof), X, weights=1 / (v + tau2)).fit(cov_type="fixed scale", cov_kwds={"scale": 1.0},
+                                                              use_t=True, df_correction=True)
     assert row.fit_intercept == pytest.approx(fit.params[0], rel=1e-10)
     assert row.fit_slope_k == pytest.approx(fit.params[1], rel=1e-10)
     assert row.ea_se == pytest.approx(fit.bse[1] * R / 1000, rel=1e-8)
-    lo, hi = fit.conf_int(alpha=0.05)[1]
-    assert sorted([row.ea_ci_low, row.ea_ci_high]) == pytest.approx(sorted([-hi * R / 1000, -lo * R / 1000]))
-    assert row.fit_df == (3 if scale > 1.0 else np.inf) and row.fit_weighted
-    pr = fit.get_prediction(np.array([[1.0, 1 / (55 + 273.15)]])).summary_frame(alpha=0.05)
-    assert row.tof_ref_per_h == pytest.approx(np.exp(pr["mean"].iloc[0]), rel=1e-9)
-    assert row.tof_ref_ci_low == pytest.approx(np.exp(pr["mean_ci_lower"].iloc[0]), rel=1e-9)
+    q = stats.t.ppf(0.975, 3)
+    assert row.ea_ci_high - row.ea_kj_mol == pytest.approx(q * fit.bse[1] * R / 1000, rel=1e-8)
+    assert row.fit_df == 3 and row.fit_weighted
+    # chi^2 / df of the line with those weights: statsmodels' scale of the plain WLS fit
+    assert row.chi2_per_df == pytest.approx(sm.WLS(np.log(tof), X, weights=1 / (v + tau2)).fit().scale, rel=1e-8)
+    ln_ref = fit.params[0] + fit.params[1] / (55 + 273.15)
+    se_ref = np.sqrt(np.array([1.0, 1 / (55 + 273.15)]) @ fit.cov_params() @ np.array([1.0, 1 / (55 + 273.15)]))
+    assert row.tof_ref_per_h == pytest.approx(np.exp(ln_ref), rel=1e-9)
+    assert row.tof_ref_ci_low == pytest.approx(np.exp(ln_ref - q * se_ref), rel=1e-9)
     p = predict_tof(arr, [55.0, 80.0], 0.95)
     assert len(p) == 2 * len(arr)
     c1 = p[p.catalyst == "C1"].set_index("temperature_c")
-    assert c1.loc[55.0, "tof_ci_high"] == pytest.approx(np.exp(pr["mean_ci_upper"].iloc[0]), rel=1e-9)
-    pr80 = fit.get_prediction(np.array([[1.0, 1 / (80 + 273.15)]])).summary_frame(alpha=0.05)
-    assert c1.loc[80.0, "tof_per_h"] == pytest.approx(np.exp(pr80["mean"].iloc[0]), rel=1e-9)
-    assert c1.loc[80.0, "ln_tof_se"] == pytest.approx(pr80["mean_se"].iloc[0], rel=1e-8)
+    assert c1.loc[55.0, "tof_ci_high"] == pytest.approx(np.exp(ln_ref + q * se_ref), rel=1e-9)
+    x80 = np.array([1.0, 1 / (80 + 273.15)])
+    assert c1.loc[80.0, "tof_per_h"] == pytest.approx(np.exp(x80 @ fit.params), rel=1e-9)
+    assert c1.loc[80.0, "ln_tof_se"] == pytest.approx(np.sqrt(x80 @ fit.cov_params() @ x80), rel=1e-8)
     # curvature: p-value of the 1/T^2 term, statsmodels WLS with the same weights
-    fit2 = sm.WLS(np.log(tof), np.column_stack([np.ones(5), x, x ** 2]), weights=1 / (se / tof) ** 2).fit()
+    fit2 = sm.WLS(np.log(tof), np.column_stack([np.ones(5), x, x ** 2]), weights=1 / (v + tau2)).fit()
     assert row.curvature_p == pytest.approx(fit2.pvalues[2], rel=1e-5)
 
 
+def test_plate_scatter_recovers_a_known_between_plate_variance():
+    # 400 invented catalysts at 4 temperatures, replicate SE 4 % and an extra plate scatter of 6 %
+    # per point: the moment estimator is unbiased for tau^2 (DerSimonian & Laird 1986), so its
+    # estimate lands within a few percent of 0.06^2 on this many series
+    rng = np.random.default_rng(11)
+    temps = np.array([40.0, 50.0, 60.0, 70.0])
+    n = 400
+    ea = rng.normal(65e3, 10e3, n)
+    true = np.exp(25.0 - ea[:, None] / (R * (temps + 273.15)))
+    tof = true * np.exp(rng.normal(0, 0.04, true.shape) + rng.normal(0, 0.06, true.shape))
+    codes = np.repeat(np.arange(n), 4)
+    tau2, df = plate_scatter(codes, n, np.tile(temps, n), tof.ravel(), 0.04 * tof.ravel())
+    assert df == n * 2
+    assert np.sqrt(tau2) == pytest.approx(0.06, rel=0.08)
+    # one series alone: the same number as the plain-lines estimator above
+    one, _ = plate_scatter(np.zeros(4, int), 1, temps, tof[0], 0.04 * tof[0])
+    assert one == pytest.approx(_dl_tau2(1 / (temps + 273.15), np.log(tof[0]), np.full(4, 0.04 ** 2)), rel=1e-9)
+    # and no scatter beyond the replicates: tau^2 = 0, never negative
+    clean = true * np.exp(rng.normal(0, 0.01, true.shape))
+    assert plate_scatter(codes, n, np.tile(temps, n), clean.ravel(), 0.04 * clean.ravel())[0] == 0.0
+
+
+def test_plate_scatter_makes_ea_intervals_hold_where_replicates_alone_do_not():
+    # the situation the variance component is for: replicates agree within 3 %, the blocks scatter
+    # by 8 %; with the replicates' SE alone the interval is too narrow (coverage far below 95 %)
+    rng = np.random.default_rng(12)
+    temps = np.array([40.0, 50.0, 60.0, 70.0])
+    n = 300
+    true = np.exp(26.0 - 70e3 / (R * (temps + 273.15)))
+    tof = true * np.exp(rng.normal(0, 0.03, (n, 4)) + rng.normal(0, 0.08, (n, 4)))
+    g = pd.concat([_groups(f"C{i}", temps, tof[i], 0.03 * tof[i]) for i in range(n)], ignore_index=True)
+    arr = arrhenius_table(g, _blanks(temps, [0.1, 0.2, 0.4, 0.9], 0.01), AnalysisSettings())
+    cat = arr[arr.catalyst != UNCATALYSED]
+    cover = np.mean((cat.ea_ci_low <= 70.0) & (70.0 <= cat.ea_ci_high))
+    assert 0.92 <= cover <= 0.98
+    naive = [fit_temperature_series(temps, tof[i], 0.03 * tof[i], tau2=0.0, tau2_df=np.inf) for i in range(n)]
+    naive_cover = np.mean([(r["ea_ci_low"] <= 70.0 <= r["ea_ci_high"]) for r in naive])
+    assert naive_cover < 0.6
+
+
 def test_weighted_fit_never_claims_less_scatter_than_the_replicates():
-    # Points lying almost exactly on a line (chi^2/df << 1): the covariance is floored at the
-    # replicate-SE level, i.e. statsmodels WLS cov_params(scale=1) (Birge-ratio / PDG scale-factor rule).
+    # Points lying almost exactly on a line: no plate scatter is found (tau^2 = 0) and the covariance
+    # is the replicate SEs' own, statsmodels WLS cov_params(scale=1), not the spuriously tiny scaled one
     temps = np.array([50.0, 60.0, 70.0])
     x = 1 / (temps + 273.15)
     tof = 1e12 * np.exp(-80e3 / (R * (temps + 273.15))) * np.array([1.0, 1.0001, 1.0])
@@ -144,11 +204,12 @@ def test_weighted_fit_never_claims_less_scatter_than_the_replicates():
     row = arr[arr.catalyst == "C1"].iloc[0]
     fit = sm.WLS(np.log(tof), sm.add_constant(x), weights=1 / (se / tof) ** 2).fit()
     assert fit.scale < 1e-3                                   # the line passes through the points
+    assert row.plate_scatter_ln == 0.0
     assert row.ea_se == pytest.approx(np.sqrt(fit.cov_params(scale=1.0)[1, 1]) * R / 1000, rel=1e-8)
-    assert row.ea_se > 100 * fit.bse[1] * R / 1000            # not the spuriously tiny scaled SE
+    assert row.ea_se > 100 * fit.bse[1] * R / 1000
 
 
-def test_uncatalysed_row_delta_ea_no_activity_and_low_ea():
+def test_uncatalysed_row_delta_ea_left_out_points_and_low_ea():
     temps = np.array([40.0, 50.0, 60.0, 70.0])
     x = 1 / (temps + 273.15)
     blank = 1e10 * np.exp(-90e3 / (R * (temps + 273.15)))
@@ -160,28 +221,53 @@ def test_uncatalysed_row_delta_ea_no_activity_and_low_ea():
         _groups("LOW", temps, low, low * 0.02),
         _groups("C1", temps, cat * 3, cat * 0.05, standard=False),              # a loading series: ignored
     ], ignore_index=True)
-    arr = arrhenius_table(g, _blanks(temps, blank, blank * 0.03), AnalysisSettings())
+    bl = _blanks(temps, blank, blank * 0.03)
+    bl.loc[0, "blank_detected"] = False                                          # 40 C: below its LOD
+    arr = arrhenius_table(g, bl, AnalysisSettings())
     a = arr.set_index("catalyst")
     assert list(arr.catalyst) == ["C1", "DEAD", "LOW", UNCATALYSED]
+    # the uncatalysed row: fitted on the temperatures it really has, and says which it left out
     assert a.loc[UNCATALYSED, "ea_kj_mol"] == pytest.approx(90.0, rel=1e-9)
+    assert a.loc[UNCATALYSED, "n_temperatures"] == 3 and a.loc[UNCATALYSED, "t_min_c"] == 50.0
+    assert "no_activity" not in a.loc[UNCATALYSED, "flags"]
+    assert a.loc[UNCATALYSED, "left_out"] == "40 C: blank below its detection limit"
     assert a.loc["C1", "ea_kj_mol"] == pytest.approx(50.0, abs=3)
     d = a.loc["C1", "delta_ea_kj_mol"]
     assert d == pytest.approx(a.loc[UNCATALYSED, "ea_kj_mol"] - a.loc["C1", "ea_kj_mol"])
     se_c, se_b = a.loc["C1", "ea_se"], a.loc[UNCATALYSED, "ea_se"]
-    assert se_b > 0                      # floored at the blanks' replicate SEs although the line is exact
-    # Welch-Satterthwaite df for the difference of two independent estimates (each fit's own df:
-    # 2, or inf where its scale was floored at the replicate SEs)
+    assert se_b > 0                      # the blanks' replicate SEs although the line is exact
+    # Welch-Satterthwaite df for the difference of two independent estimates (Welch, Biometrika 1947)
     df_b, df_c = a.loc[UNCATALYSED, "fit_df"], a.loc["C1", "fit_df"]
-    assert df_b == np.inf
+    assert df_b == df_c == 4             # the pooled df of the plate-scatter estimate: C1 and LOW, 2 each
     df = (se_b ** 2 + se_c ** 2) ** 2 / (se_b ** 4 / df_b + se_c ** 4 / df_c)
     half = stats.t.ppf(0.975, df) * np.hypot(se_b, se_c)
     assert a.loc["C1", "delta_ea_ci_high"] - d == pytest.approx(half, rel=1e-6)
     assert "no_activity" in a.loc["DEAD", "flags"] and "one_temperature" in a.loc["DEAD", "flags"]
+    assert a.loc["DEAD", "left_out"].count("not above the blank") == 3
     assert np.isnan(a.loc["DEAD", "ea_kj_mol"])
     assert "low_ea" in a.loc["LOW", "flags"] and "low_ea" not in a.loc["C1", "flags"]
     assert a.loc["C1", "n_temperatures"] == 4 and a.loc["C1", "t_min_c"] == 40.0
-    ols = stats.linregress(x, np.log(blank))
+    ols = stats.linregress(x[1:], np.log(blank[1:]))
     assert a.loc[UNCATALYSED, "fit_slope_k"] == pytest.approx(ols.slope, rel=1e-9)
+
+
+def test_bounds_and_irregular_courses_stay_out_of_the_fit():
+    temps = np.array([40.0, 50.0, 60.0, 70.0])
+    tof = 1e9 * np.exp(-60e3 / (R * (temps + 273.15)))
+    g = _groups("C1", temps, tof, 0.05 * tof)
+    g["censored"] = ["", "", "", "lower"]                       # too fast at 70 C: a bound
+    g.loc[0, "flags"] = "induction"                             # an irregular course at 40 C
+    arr = arrhenius_table(g, _blanks(temps, [0.1, 0.2, 0.4, 0.9], 0.01), AnalysisSettings())
+    row = arr.set_index("catalyst").loc["C1"]
+    assert row.n_temperatures == 2 and (row.t_min_c, row.t_max_c) == (50.0, 60.0)
+    assert "left_out_bound" in row["flags"] and "left_out_irregular" in row["flags"]
+    assert row.left_out == "40 C: induction; 70 C: faster than the first reading (lower bound)"
+    # unless the user says otherwise
+    arr2 = arrhenius_table(g, _blanks(temps, [0.1, 0.2, 0.4, 0.9], 0.01),
+                           AnalysisSettings(include_irregular_courses=True))
+    assert arr2.set_index("catalyst").loc["C1", "n_temperatures"] == 3
+    in_fit, why = arrhenius_points(g, AnalysisSettings())
+    assert in_fit.tolist() == [False, True, True, False] and why[0] == "induction"
 
 
 def test_curvature_flag_on_a_curved_plot():

@@ -144,7 +144,7 @@ def test_blank_rows_equal_the_left_merge(seed):
     tkey = turnover._tkey(t)
     blanks = pd.DataFrame({"plate": pd.Series(["P1", "P1", "P2", "P2", "P3", "Z"], dtype="str"),
                            "temperature_c": [40.0, 50.0, 40.0, 40.0, np.nan, 40.0]})
-    got = turnover._blank_rows(turnover._factorize(plates), tkey, blanks)
+    got = turnover._blank_rows(turnover._factorize(plates), tkey, np.full(len(t), 200.0), blanks)
     bl = blanks.assign(tkey=turnover._tkey(blanks["temperature_c"]), row=np.arange(len(blanks)))
     bl = bl.drop_duplicates(["plate", "tkey"])
     ref = pd.DataFrame({"plate": plates.astype(object), "tkey": tkey}).merge(
@@ -252,39 +252,6 @@ def test_well_index_arrow_path_with_missing_values_and_chunks(chunks):
 
 # ------------------------------------------------------------------------------- fits
 
-def test_first_order_fit_of_some_wells_equals_the_fitter_on_all():
-    rng = np.random.default_rng(2)
-    G = 60
-    t = np.tile(np.array([0.0, 0.5, 1.0, 2.0, 3.0, 4.0]), G)
-    g = np.repeat(np.arange(G), 6)
-    y = 10.0 * (1.0 - np.exp(-rng.uniform(0.2, 2.0, G)[g] * t)) + rng.normal(0, 0.1, t.size)
-    wells = np.flatnonzero(rng.random(G) < 0.5)
-    sel = np.isin(g, wells)
-    plateau = np.where(rng.random(G) < 0.5, 10.0, np.nan)
-    got = rates._first_order_fit(wells, t[sel], y[sel], g[sel], G, plateau=plateau)
-    ref = fit.fit_first_order(t[sel], y[sel], g[sel], G, plateau=np.where(np.isin(np.arange(G), wells), plateau, np.nan))
-    for name in ("b1", "k", "b1_se", "rate", "rate_se", "resid_sd", "df", "status", "n"):
-        np.testing.assert_array_equal(getattr(got, name), getattr(ref, name), err_msg=name)
-
-
-def test_induction_with_positions_equals_without():
-    d = synthetic_campaign(SyntheticSpec(n_plates=2, seed=5))
-    am = amounts.product_amounts(d)
-    code = amounts.well_index(am["plate"], am["well"], d.wells["plate"], d.wells["well"])
-    o = np.lexsort((am["time_h"].to_numpy(), code))
-    g, t, p = code[o], am["time_h"].to_numpy()[o], am["product_mM"].to_numpy()[o]
-    G = len(d.wells)
-    rng = np.random.default_rng(0)
-    starts = np.searchsorted(g, np.arange(G))
-    pos = np.arange(g.size) - starts[g]
-    n_fit = rng.integers(0, 9, G)
-    in_fit = pos < n_fit[g]                                      # a leading run of each well
-    ref = rates._induction(g, t, p, in_fit, G)
-    np.testing.assert_array_equal(rates._induction(g, t, p, in_fit, G, pos), ref)
-    np.testing.assert_array_equal(rates._induction(g, t, p, None, G, pos, n_fit=np.bincount(g[in_fit], minlength=G)), ref)
-    assert ref.any()                                             # the flag is reached at all
-
-
 # ------------------------------------------------------------------------------- group summaries
 
 def _summarise_groups_pandas(rows, codes, n_groups, confidence=0.95):
@@ -384,8 +351,10 @@ def test_group_rates_statistics_equal_a_pandas_aggregation():
                           na_position="last").reset_index(drop=True)
     pd.testing.assert_frame_equal(got[keys].reset_index(drop=True), ref[keys])
     np.testing.assert_array_equal(got["n_wells"].to_numpy(), ref["n_wells"].to_numpy())
+    measured = (got["censored"].astype(str) == "").to_numpy()        # bounds report their bound, not the mean
+    assert measured.mean() > 0.8
     for a, b in (("rate_mM_per_h", "rate"), ("rate_sd_mM_per_h", "rate_sd"), ("tof_per_h", "tof"), ("ton", "ton")):
-        np.testing.assert_array_equal(got[a].to_numpy(), ref[b].to_numpy(), err_msg=a)
+        np.testing.assert_array_equal(got[a].to_numpy()[measured], ref[b].to_numpy()[measured], err_msg=a)
 
 
 def test_first_rows_equal_unique_return_index():

@@ -79,7 +79,7 @@ def test_edge_ring():
 def test_settings_override_order():
     s = AnalysisSettings.from_mapping({"reference_temperature_c": 50, "unknown": 1}, confidence=0.9)
     assert s.reference_temperature_c == 50.0 and s.confidence == 0.9
-    assert s.conversion_window_pct == 20.0
+    assert s.conversion_window_pct == 50.0          # the default: the generic law's early window
     assert {x.name for x in SETTINGS} == set(AnalysisSettings().to_dict())
 
 

@@ -37,7 +37,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
 from screenlab import units
 from screenlab.kinetics.sites import has_flag, join_flags
@@ -72,58 +72,6 @@ COLUMNS = ["catalyst", "role", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mo
            "plate_scatter_ln", "left_out"]
 
 LN_KB_OVER_H = float(np.log(units.KB_J_K / units.H_J_S))
-
-
-def wls_line(x, y, var=None, *, floor_scale: bool = True):
-    """Weighted least squares of y on x (weights 1/var; None = unweighted).
-
-    Returns (intercept, slope, cov 2x2, df). The covariance is (X'WX)^-1 times chi^2/df, floored
-    at 1 when ``var`` is given and ``floor_scale`` (see the module docstring) — then the returned
-    df is ``inf`` (normal quantiles: the error scale comes from the replicates, not the residuals);
-    unweighted, it is the OLS covariance. With df = 0 the covariance is NaN. With ``floor_scale=False`` it matches
-    statsmodels ``WLS(y, [1, x], weights=1/var).fit().cov_params()``.
-    """
-    x = np.asarray(x, float)
-    y = np.asarray(y, float)
-    w = np.ones_like(x) if var is None else 1.0 / np.asarray(var, float)
-    X = np.column_stack([np.ones_like(x), x])
-    sw = np.sqrt(w)
-    Xw, yw = X * sw[:, None], y * sw
-    beta, *_ = np.linalg.lstsq(Xw, yw, rcond=None)
-    df = len(x) - 2
-    if df > 0:
-        res = yw - Xw @ beta
-        s2 = float(res @ res) / df
-        if var is not None and floor_scale and s2 < 1.0:
-            # the replicate SEs set the error scale: treated as known, so the effective df is infinite
-            s2, df = 1.0, np.inf
-        cov = np.linalg.inv(Xw.T @ Xw) * s2
-    else:
-        cov = np.full((2, 2), np.nan)
-    return float(beta[0]), float(beta[1]), cov, df
-
-
-def curvature_p(x, y, var=None) -> float:
-    """Two-sided p-value of the 1/T^2 term in y = b0 + b1 x + b2 x^2 (weights 1/var); NaN if n < 4."""
-    x = np.asarray(x, float)
-    y = np.asarray(y, float)
-    n = len(x)
-    if n < 4:
-        return float("nan")
-    w = np.ones_like(x) if var is None else 1.0 / np.asarray(var, float)
-    xc = (x - x.mean()) / (x.std() or 1.0)          # centred and scaled: same p-value, better conditioning
-    X = np.column_stack([np.ones(n), xc, xc ** 2])
-    sw = np.sqrt(w)
-    Xw, yw = X * sw[:, None], y * sw
-    beta, *_ = np.linalg.lstsq(Xw, yw, rcond=None)
-    df = n - 3
-    res = yw - Xw @ beta
-    s2 = float(res @ res) / df
-    cov = np.linalg.inv(Xw.T @ Xw) * s2
-    se = np.sqrt(cov[2, 2])
-    if not np.isfinite(se) or se == 0:
-        return 0.0 if beta[2] != 0 else 1.0
-    return float(2 * stats.t.sf(abs(beta[2] / se), df))
 
 
 def _group_sum(codes, n_groups, values) -> np.ndarray:
@@ -193,10 +141,9 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
         unweighted_flag = ~weighted
         with np.errstate(invalid="ignore", divide="ignore"):
             if tau2 is not None:
-                var_ln = np.where(ok, (se / v) ** 2, 0.0) + float(tau2)
-                weighted = np.bincount(g, weights=~(var_ln > 0), minlength=G) == 0
-                unweighted_flag = ~weighted
-                w = np.where(weighted[g], 1.0 / np.where(var_ln > 0, var_ln, 1.0), 1.0)
+                # a series with a point of unknown SE is fitted unweighted (flag unweighted)
+                var_ln = np.where(ok, (se / v) ** 2, np.nan) + float(tau2)
+                w = np.where(weighted[g], 1.0 / np.where(ok, var_ln, 1.0), 1.0)
             else:
                 w = np.where(weighted[g], (v / np.where(ok, se, 1.0)) ** 2, 1.0)
     weighted &= fit
@@ -284,10 +231,9 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
     low = np.zeros(G, bool) if low_ea_kj_mol is None else fit & (ea < float(low_ea_kj_mol))
     scatter = np.zeros(G, bool)
     if tau2 is not None:
-        from scipy import special as _special
         with np.errstate(invalid="ignore"):
             dfc = (n_pts - 2).astype(float)
-            p_chi = np.where(pos & weighted, _special.chdtrc(np.where(dfc > 0, dfc, 1.0), np.nan_to_num(rss)), np.nan)
+            p_chi = np.where(pos & weighted, special.chdtrc(np.where(dfc > 0, dfc, 1.0), np.nan_to_num(rss)), np.nan)
         scatter = np.nan_to_num(p_chi, nan=1.0) < 0.01
     out["flags"] = _flag_text(G, [("one_temperature", nt == 1), ("unweighted", unweighted_flag),
                                   ("two_temperatures", fit & ~pos), ("curvature", (nt >= 4) & (curv < 0.05)),
@@ -296,7 +242,8 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
 
 
 def _curvature_batch(g, G, x, y, w, n_pts, mask) -> np.ndarray:
-    """Two-sided p-value of the 1/T^2 term per series (see :func:`curvature_p`); NaN where not ``mask``.
+    """Two-sided p-value of the 1/T^2 term per series (``y = b0 + b1 x + b2 x^2``, same weights, the
+    series' own residual scale, Student t on n - 3 df); NaN where not ``mask``.
 
     Per series, x is centred on its (unweighted) mean and scaled by its SD, then the weighted 3x3
     normal equations of [1, xc, xc^2] are solved for all series at once.
@@ -332,7 +279,7 @@ def _curvature_batch(g, G, x, y, w, n_pts, mask) -> np.ndarray:
         se = np.sqrt(inv[:, 2, 2] * s2)
         b2 = beta[:, 2]
         tstat = np.abs(b2 / np.where(np.isfinite(se) & (se > 0), se, 1.0))
-        pv = 2 * stats.t.sf(tstat, np.where(mask, df, 1.0))
+        pv = 2 * special.stdtr(np.where(mask, df, 1.0), -tstat)          # two-sided Student t tail
         pv = np.where(np.isfinite(se) & (se > 0), pv, np.where(b2 != 0, 0.0, 1.0))
     return np.where(good, pv, np.nan)
 
@@ -467,6 +414,18 @@ def arrhenius_points(groups: pd.DataFrame, settings: AnalysisSettings | None = N
     reason = np.full(n, "", dtype=object)
     for text, mask in rules:                      # a loop over a few rules
         reason = np.where((reason == "") & std & np.asarray(mask, bool), text, reason)
+    if not getattr(settings, "include_irregular_courses", False):
+        # a catalyst whose courses are irregular at half or more of its temperatures is irregular at the
+        # others too, only less visibly (slower there): all its points are left out
+        irregular = np.isin(reason, [c.replace("_", " ") for c in IRREGULAR])
+        cat, _ = pd.factorize(groups["catalyst"])
+        cat = np.asarray(cat, dtype=np.int64)
+        ok_cat = (cat >= 0) & std
+        k = int(cat.max()) + 1 if n else 0
+        n_std = np.bincount(cat[ok_cat], minlength=k)
+        n_irr = np.bincount(cat[ok_cat & irregular], minlength=k)
+        most = ((2 * n_irr >= n_std) & (n_irr > 0))[np.maximum(cat, 0)] & ok_cat if k else np.zeros(n, bool)
+        reason = np.where(most & (reason == ""), "irregular courses at half or more of the temperatures", reason)
     return std & (reason == ""), np.where(std, reason, "")
 
 
@@ -517,7 +476,8 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
         left = ~active
         fl = r["flags"]
         no_act = np.bincount(codes[left & np.char.startswith(why.astype(str), "not above")], minlength=k) > 0
-        irregular = np.bincount(codes[left & np.isin(why, [c.replace("_", " ") for c in IRREGULAR])],
+        irregular = np.bincount(codes[left & np.isin(why, [c.replace("_", " ") for c in IRREGULAR]
+                                                      + ["irregular courses at half or more of the temperatures"])],
                                 minlength=k) > 0
         bound = np.bincount(codes[left & np.char.startswith(why.astype(str), "faster")], minlength=k) > 0
         for code, mask in (("no_activity", no_act), ("left_out_irregular", irregular), ("left_out_bound", bound)):

@@ -309,6 +309,13 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
             det = d1 * d2 - a12 * a12
             s1 = np.nan_to_num((d2 * g1 - a12 * g2) / det)
             s2 = np.nan_to_num((d1 * g2 - a12 * g1) / det)
+        # a parameter held at an end of its range by a step that would leave it: the other one
+        # alone takes the step (a projected step, so the bound is a proper constrained optimum)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out2 = ((th2 <= lo2) & (s2 < 0)) | ((th2 >= hi2) & (s2 > 0))
+            out1 = ((th1 <= lo1) & (s1 < 0)) | ((th1 >= hi1) & (s1 > 0))
+            s1 = np.where(out2 & ~out1, np.nan_to_num(g1 / d1), np.where(out1, 0.0, s1))
+            s2 = np.where(out1 & ~out2, np.nan_to_num(g2 / d2), np.where(out2, 0.0, s2))
         s1 = np.clip(s1, -3.0, 3.0)               # at most a factor e^3 per step on log parameters
         s2 = np.clip(s2, -3.0, 3.0)
         n1 = np.clip(th1 + np.where(active, s1, 0.0), lo1, hi1)
@@ -327,7 +334,7 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
         th2 = np.where(better, n2, th2)
         rss = np.where(better, rn, rss)
         lam = np.where(better, np.maximum(lam / 3.0, 1e-9), np.minimum(lam * 8.0, 1e9))
-        settled = (better & (gain < 1e-10) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (lam >= 1e9)
+        settled = (better & (gain < 1e-12) & (np.abs(s1) < 1e-7) & (np.abs(s2) < 1e-7)) | (lam >= 1e9)
         active &= ~settled
         if not active.any():
             break

@@ -28,24 +28,28 @@
    own best law (flag ``own_rate_law``). Wells with one reading after t = 0 get the chord
    (``end_point``: an average rate, no SE).
 
-The campaign's noise level is the median residual SD of each well's own best law (conversion
-units; mM for wells without substrate), over wells with at least 3 residual df.
+The campaign's noise level at each well's signal level comes from the residual SDs of every
+well's own best law (:func:`_noise_level`: binned by signal level, so noise that grows with the
+signal is not mistaken for a misfit).
 
 Shape checks per well (kept in ``flags``; :func:`screenlab.kinetics.turnover.group_rates` carries
 them to the group row when most replicates have them):
 
 ``induction``   lines through the first and the second half of the rise (up to the course's
                 maximum): the early slope below half the late one by more than 3 SE; or the
-                early-window quadratic bends upwards (t^2 term above 3 SE); or its steepest
+                early-window quadratic bends upwards (t^2 term above 3 SE, and its slope at the
+                window's end at least 1.5 times its slope at t = 0); or its steepest
                 three-reading slope (after the first readings, above 5 noise SEs) is more than
                 twice its early-window rate; or first order with an activating catalyst,
                 ``1 - exp(-k (t - tau (1 - exp(-t/tau))))``, fits with an AICc lower than every
                 integrated law's by more than :data:`INDUCTION_AICC`;
 ``product_decline``  the last reading below the course's maximum by more than 3 x sqrt(2) noise
-                SDs and 5 % of that maximum (a consecutive reaction, or product lost);
+                SDs and 5 % of that maximum, or by a fifth of a maximum of at least 2 %
+                conversion over two or more readings (a consecutive reaction, or product lost);
 ``deactivation`` the last reading short of what first-order depletion from the fitted initial
-                rate gives, ``1 - exp(-r0 t_last)``, by more than 3 x sqrt(2) noise SDs and 10 %
-                (the rate falls faster than any law of order <= 1 in substrate allows).
+                rate gives, ``s (1 - exp(-r0 t_last / s))``, by more than 3 x sqrt(2) noise SDs
+                and 10 % (the rate falls faster than any law of order <= 1 in substrate allows;
+                s is the main product's share of all products where by-products are declared).
 
 Columns (one row per non-empty well, in the order of ``data.wells``): the well's
 ``plate, well, row, col, role, catalyst, temperature_c, loading, loading_unit,
@@ -202,20 +206,46 @@ def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, tempera
     return _key_codes(cols, rows)
 
 
-def _noise_level(fits: dict, c: ratelaws.Courses, rss_floor: np.ndarray) -> tuple[float, float]:
-    """Median residual SD of every well's own best integrated law (AICc), over wells with >= 3
-    residual df: one value for capped courses (fraction units), one for the others (mM)."""
+def _noise_level(fits: dict, c: ratelaws.Courses, rss_floor: np.ndarray) -> np.ndarray:
+    """Per well: the measurement noise (SD, y units) expected at its signal level.
+
+    Every well's own best integrated law (AICc) gives a residual SD; over wells with >= 3 residual
+    df, split into up to 8 bins of equal count by the well's mean |y|, the median SD of each bin
+    at the bin's median level, made non-decreasing with level and interpolated (flat beyond the
+    ends). Chromatography and plate-reader noise often grows with the signal; a campaign whose
+    noise does not gives one flat level. Capped courses (conversion units) and the others (mM) are
+    treated apart; without enough wells, 0.5 % conversion (or 1 % of the well's largest value)."""
+    G, m = c.shape
     aicc = np.stack([fits[law].aicc(rss_floor) for law in ratelaws.INTEGRATED], axis=1)
     best = np.argmin(aicc, axis=1)
     has = np.isfinite(aicc.min(axis=1))
-    sd = np.stack([fits[law].resid_sd for law in ratelaws.INTEGRATED], axis=1)[np.arange(len(best)), best]
-    df = np.stack([fits[law].df for law in ratelaws.INTEGRATED], axis=1)[np.arange(len(best)), best]
-    use = has & (df >= 3) & np.isfinite(sd) & (sd > 0)
-    out = []
+    sd = np.stack([fits[law].resid_sd for law in ratelaws.INTEGRATED], axis=1)[np.arange(G), best]
+    df = np.stack([fits[law].df for law in ratelaws.INTEGRATED], axis=1)[np.arange(G), best]
+    # a course no integrated law describes (a product that falls, say) would inflate its own
+    # noise: the early-window quadratic's residual SD caps it where that fit has >= 2 df
+    poly = fits[ratelaws.GENERIC]
+    with np.errstate(invalid="ignore"):
+        capped_sd = np.where(poly.ok & (poly.df >= 2) & (poly.resid_sd < sd), poly.resid_sd, sd)
+    sd = np.where(has, capped_sd, sd)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        level = (c.w * np.abs(c.y)).sum(axis=1) / c.n if m else np.zeros(G)
+        top = np.max(np.where(c.w > 0, np.abs(c.y), 0.0), axis=1) if m else np.zeros(G)
+    use = has & (df >= 3) & np.isfinite(sd) & (sd > 0) & np.isfinite(level)
+    out = np.where(c.capped, 0.005, 0.01 * np.maximum(top, 1e-12))
     for capped in (True, False):
-        v = sd[use & (c.capped == capped)]
-        out.append(float(np.median(v)) if v.size else float("nan"))
-    return out[0], out[1]
+        sel = use & (c.capped == capped)
+        k = int(sel.sum())
+        if k < 3:
+            continue
+        order = np.argsort(level[sel], kind="stable")
+        lv, sv = level[sel][order], sd[sel][order]
+        n_bins = int(min(8, max(1, k // 30)))
+        edges = np.linspace(0, k, n_bins + 1).astype(int)
+        centre = np.array([np.median(lv[a:b]) for a, b in zip(edges[:-1], edges[1:])])   # a few bins
+        med = np.maximum.accumulate(np.array([np.median(sv[a:b]) for a, b in zip(edges[:-1], edges[1:])]))
+        here = c.capped == capped
+        out = np.where(here, np.interp(np.nan_to_num(level), centre, med), out)
+    return out
 
 
 def _local_max_slope(c: ratelaws.Courses) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -322,7 +352,9 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
 
     with np.errstate(invalid="ignore", divide="ignore"):
         y = np.where(capped[g], prod / theo[g], prod)
-    substrate_h = _substrate_integral(t, y, g, G, capped)
+    share = _main_share(data, amounts, rows, g, t, prod, G)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        substrate_h = _substrate_integral(t, y / share[g], g, G, capped)
     c = ratelaws.dense_courses(t, y, g, G, capped, keep=rc != ABOVE_LINEAR_RANGE)
     del t, prod, rc, y, g, code, t_all, p_all, rc_all, use
     T, Y, W = c.t, c.y, c.w
@@ -349,9 +381,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     fits = ratelaws.fit_all(c, window_frac=window_frac, min_points=min_pts)
     scale = np.where(capped, 1.0, np.maximum(np.nan_to_num(np.abs(y_top)), 1e-12))
     rss_floor = n_fit * (1e-6 * scale) ** 2
-    noise_c, noise_u = _noise_level(fits, c, rss_floor)
-    noise = np.where(capped, noise_c if np.isfinite(noise_c) else 0.005,
-                     noise_u if np.isfinite(noise_u) else 0.01 * scale)
+    noise = _noise_level(fits, c, rss_floor)
 
     # --- done before the first reading: a lower bound, not a fit ------------------------------
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -369,9 +399,25 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     laws = list(ratelaws.INTEGRATED)
     aicc = np.stack([fits[law].aicc(rss_floor) for law in laws], axis=1)       # (G, L)
     own_best = np.where(np.isfinite(aicc.min(axis=1)), np.argmin(aicc, axis=1), -1)
+    # wells that carry information on the law: a course clearly above noise (a flat course, such
+    # as a dispensing failure or an inactive catalyst, fits every law alike)
+    signal = np.nan_to_num(y_top) > 3.0 * noise
     eligible = fittable & (own_best >= 0)
-    pooled = np.stack([np.bincount(law_group[eligible], weights=aicc[eligible, j], minlength=n_law_groups)
+    voting = eligible & signal
+    # a law that cannot be fitted to one well counts as 10 AICc units worse than that well's worst
+    # fitted law, so one odd well does not veto a law for the whole catalyst
+    with np.errstate(invalid="ignore"):
+        worst = np.max(np.where(np.isfinite(aicc), aicc, -np.inf), axis=1)
+    votes = np.where(np.isfinite(aicc), aicc, (worst + 10.0)[:, None])
+    pooled = np.stack([np.bincount(law_group[voting], weights=votes[voting, j], minlength=n_law_groups)
                        for j in range(len(laws))], axis=1) if G else np.zeros((0, len(laws)))
+    pooled = pooled.astype(float)
+    if G:
+        # catalysts without any informative well (inactive ones): vote with all their wells
+        quiet = np.bincount(law_group[voting], minlength=n_law_groups) == 0
+        rest = eligible & quiet[law_group]
+        pooled += np.stack([np.bincount(law_group[rest], weights=votes[rest, j], minlength=n_law_groups)
+                            for j in range(len(laws))], axis=1)
     n_law = np.bincount(law_group[eligible], minlength=n_law_groups)
     chosen_law = np.where(np.isfinite(pooled.min(axis=1)) & (n_law > 0), np.argmin(pooled, axis=1), -1)
     n_elig = np.bincount(group[eligible], minlength=n_groups)
@@ -381,14 +427,22 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     chosen = np.where(first_of >= 0, chosen_law[np.maximum(first_of, 0)], -1)
 
     # shapes that are not initial-rate kinetics, per well
-    decline = (fittable & (i_top < last_slot) & ((y_top - y_last) > FLAG_SIGMAS * np.sqrt(2.0) * noise)
-               & ((y_top - y_last) > 0.05 * np.abs(y_top)))
+    drop = y_top - y_last
+    after_top = np.sum(fitted & (np.arange(m)[None, :] > i_top[:, None]), axis=1) if m else np.zeros(G, np.int64)
+    with np.errstate(invalid="ignore"):
+        # below the maximum by more than the noise allows, or a large fall (a fifth of a maximum of
+        # at least 2 % conversion) over two or more readings, whatever the noise estimate says
+        decline = fittable & (i_top < last_slot) & (
+            ((drop > FLAG_SIGMAS * np.sqrt(2.0) * noise) & (drop > 0.05 * np.abs(y_top)))
+            | ((after_top >= 2) & (drop > 0.2 * y_top) & (y_top > np.where(capped, 0.02, 0.0))))
     rise = np.cumsum(fitted, axis=1)[Gi, i_top] if c.shape[1] else np.zeros(G, np.int64)
     # induction: a slow first half of the rise, or an early window that bends upwards (the
     # quadratic's t^2 term positive by more than 3 SE: the course accelerates from t = 0)
     poly = fits[ratelaws.GENERIC]
     with np.errstate(invalid="ignore", divide="ignore"):
-        convex = poly.ok & (poly.n_window >= 4) & (poly.p2 > FLAG_SIGMAS * poly.p2_se)
+        t_win = np.max(np.where(ratelaws.early_window(c, window_frac, min_pts), T, 0.0), axis=1) if m else np.zeros(G)
+        speeds_up = (poly.p1 + 2.0 * poly.p2 * t_win) > 1.5 * np.maximum(poly.p1, 0.0)   # by half, at least
+        convex = poly.ok & (poly.n_window >= 4) & (poly.p2 > FLAG_SIGMAS * poly.p2_se) & speeds_up
     # ... or a course that runs much faster later than at its start: the steepest three-reading
     # slope (clearly above noise, after the first readings) more than twice the early rate
     max_slope, max_sxx, max_at = _local_max_slope(c)
@@ -399,7 +453,8 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     # more than INDUCTION_AICC) than every integrated law
     ind = ratelaws.fit_first_order_induction(c, max_slope)
     lagged = fittable & (ind.aicc(rss_floor) < aicc.min(axis=1) - INDUCTION_AICC)
-    induction = fittable & (_induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast | lagged)
+    induction = fittable & signal & (np.nan_to_num(y_top) > 10.0 * noise) & (
+        _induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast | lagged)
 
     def majority(mask):
         hits = np.bincount(group[eligible & mask], minlength=n_groups)
@@ -453,9 +508,10 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     df = np.where(done | end_point | failed | ~np.isfinite(df), 0, df).astype(np.int64)
     n_used = np.where(done | end_point, np.minimum(n_fit, 2), np.nan_to_num(n_used)).astype(np.int64)
 
-    # deactivation: short of first-order depletion from the fitted initial rate
-    with np.errstate(invalid="ignore", over="ignore"):
-        fo_last = -np.expm1(-np.maximum(r0, 0.0) * t_last)
+    # deactivation: short of first-order depletion from the fitted initial rate (towards the main
+    # product's share of the substrate when by-products take the rest)
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        fo_last = share * -np.expm1(-np.maximum(r0, 0.0) / share * t_last)
         deact = (fittable & capped & np.isfinite(r0) & (r0 > 0) & (t_last > t1)
                  & ((fo_last - y_last) > np.maximum(FLAG_SIGMAS * np.sqrt(2.0) * noise, 0.1 * fo_last)))
     max_slope = max_slope * scale_mM
@@ -520,6 +576,40 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         "fit_points": n_fit,
         "substrate_integral_h": substrate_h,
     })
+
+
+def _main_share(data, amounts: pd.DataFrame, rows: np.ndarray, g: np.ndarray, t: np.ndarray, prod: np.ndarray,
+                G: int) -> np.ndarray:
+    """Per well: the main product's share of all products at its last reading, main / (main +
+    by-products), from the campaign's declared by-products (1 without them, or where unknown).
+    Parallel pathways keep this share through the course, so the substrate converted is the main
+    product over its share."""
+    byp = tuple(getattr(data.manifest, "byproducts", ()) or ())
+    share = np.ones(G)
+    if not byp or not g.size:
+        return share
+    wells = data.wells
+    code = well_index(amounts["plate"], amounts["well"], wells["plate"].iloc[rows], wells["well"].iloc[rows])
+    tb = amounts["time_h"].to_numpy(dtype=float)
+    pb = amounts["product_mM"].to_numpy(dtype=float)
+    total = np.zeros(G)
+    for j, name in enumerate(byp):                 # a loop over the declared by-products (a few)
+        on = _equals(amounts["analyte"], name) & (code >= 0) & np.isfinite(tb) & np.isfinite(pb)
+        cb, tt, pp = code[on], tb[on], pb[on]
+        if not cb.size:
+            continue
+        order = np.lexsort((tt, cb))
+        cb, pp = cb[order], pp[order]
+        last = np.ones(cb.size, dtype=bool)
+        last[:-1] = cb[1:] != cb[:-1]
+        total += np.bincount(cb[last], weights=np.maximum(pp[last], 0.0), minlength=G)
+    last_main = np.zeros(G)
+    lm = np.ones(g.size, dtype=bool)
+    lm[:-1] = g[1:] != g[:-1]
+    np.put(last_main, g[lm], np.maximum(prod[lm], 0.0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sh = last_main / (last_main + total)
+    return np.where(np.isfinite(sh) & (sh > 0.05) & (total > 0), np.minimum(sh, 1.0), 1.0)
 
 
 def _substrate_integral(t, y, g, G: int, capped: np.ndarray) -> np.ndarray:
