@@ -10,8 +10,9 @@ whose initial rate is measurable, the coverage of the TOF intervals, the TON err
 induction and consecutive courses get their bound or flag. ``scripts/truth_recovery.py`` prints
 the table; ``tests/test_truth_recovery.py`` asserts it. Everything here is invented data.
 
-The plain per-well reference (:func:`plain_first_order_ea`) is what a spreadsheet user would do:
-each well's first-order fit ``P = b (1 - exp(-k t))`` (rate b k, the NIST StRD-checked fitter of
+The plain per-well reference (:func:`plain_first_order_ea`) is the textbook route for a
+first-order campaign: each well's first-order fit ``P = P_max (1 - exp(-k t))`` with the plateau
+at the theoretical maximum (rate P_max k, the NIST StRD-checked fitter of
 :mod:`screenlab.kinetics.fit`), minus the plate's mean blank rate, averaged per catalyst and
 temperature, and an unweighted least-squares line of ln TOF on 1/T.
 """
@@ -61,8 +62,9 @@ def plain_first_order_ea(data) -> pd.DataFrame:
     key = wells["plate"].astype(str) + "|" + wells["well"].astype(str)
     code = pd.Index(key).get_indexer(am["plate"].astype(str) + "|" + am["well"].astype(str))
     keep = code >= 0
+    theo = wells["substrate_conc_mM"].to_numpy(float) * float(data.manifest.product_per_substrate)
     f = fit.fit_first_order(am["time_h"].to_numpy(float)[keep], am["product_mM"].to_numpy(float)[keep],
-                            code[keep], len(wells))
+                            code[keep], len(wells), plateau=theo)
     w = wells.assign(rate=np.where(f.status == fit.OK, f.rate, np.nan))
     blank = w[w["role"] == "blank"].groupby("plate")["rate"].mean()
     w["net"] = w["rate"] - w["plate"].map(blank).to_numpy(float)
@@ -113,8 +115,10 @@ def run_study(seeds, spec: KineticsSpec | None = None, settings=None, *, plain: 
         row = {"seed": int(seed), "plate_scatter_ln": res.arrhenius.attrs.get("plate_scatter_ln", np.nan)}
         if plain:
             p = plain_first_order_ea(kc.data).set_index("catalyst")["ea_kj_mol"]
-            err = (p - ea_true["ea_true"].reindex(p.index)).abs()
-            ours = a.set_index("catalyst")["ea_err_kj_mol"].abs().reindex(p.index)
+            ours = a[a["catalyst"] != UNCATALYSED].set_index("catalyst")["ea_err_kj_mol"].abs()
+            both = p.index.intersection(ours.dropna().index)
+            err = (p.reindex(both) - ea_true["ea_true"].reindex(both)).abs()
+            ours = ours.reindex(both)
             row.update(plain_ea_median_abs_err=float(err.median()), ours_ea_median_abs_err=float(ours.median()))
         camp.append(row)
     return Study(rates=pd.concat(rate_parts, ignore_index=True), arrhenius=pd.concat(arr_parts, ignore_index=True),

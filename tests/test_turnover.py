@@ -239,3 +239,92 @@ def test_failed_well_is_flagged_and_left_out_of_the_group():
     kept = t.loc[t.well.isin(["B1", "B2"]), "tof_per_h"]
     assert g.loc["C1", "n_wells"] == 2 and g.loc["C1", "tof_per_h"] == pytest.approx(kept.mean())
     assert "excluded_failed_well" in g.loc["C1", "flags"] and "excluded_failed_well" not in g.loc["C2", "flags"]
+
+
+# ------------------------------------------------------------------ substrate left, levels, bounds
+
+def test_ton_counts_the_background_on_the_substrate_the_well_had_left():
+    # parallel first-order pathways, invented numbers: S0 = 100 mM, the catalysed well converts with
+    # k_cat = 1 h-1 and the blank with k_b = 0.05 h-1; at t the catalysed product is
+    # k_cat/(k_cat + k_b) of all product (two parallel first-order paths share one exponential)
+    k_cat, k_b, s0 = 1.0, 0.05, 100.0
+    t = np.array([0, 0.5, 1, 2, 3, 4, 6, 8.0])
+    x = -np.expm1(-(k_cat + k_b) * t)
+    # the rate step's integral of the substrate left, by the trapezoid rule over these readings
+    s_int = np.trapezoid(1 - x, t)
+    rows = [well("P1", f"A{i}", "blank", None, k_b * s0, se=0.01, conc=s0) for i in range(3)]
+    rows += [well("P1", "B1", "sample", "C1", (k_cat + k_b) * s0, last_t=8.0, last_p=s0 * x[-1], conc=s0,
+                  loading=1.0, unit="umol")]
+    w = frame(rows).assign(substrate_integral_h=s_int, last_conversion_pct=np.r_[np.nan, np.nan, np.nan, 100 * x[-1]])
+    r = well_turnover(CATS, w, blank_rates(w, S), S).set_index("well").loc["B1"]
+    true_ton = s0 * x[-1] * k_cat / (k_cat + k_b) * 1.0 / 1.0          # mM x 1 mL / 1 umol
+    assert r.ton == pytest.approx(true_ton, rel=0.01)
+    # the old rule (blank rate x time, as if the well kept its substrate) is 28 % low here
+    assert (s0 * x[-1] - k_b * s0 * 8.0) / true_ton < 0.75
+    assert "ton_capped" in r["flags"].split(";")                      # 100 % converted: TON = S / sites
+
+
+def test_blank_per_substrate_level_and_scaled_where_a_level_has_none():
+    rows = [well("P1", f"A{i}", "blank", None, 0.5 + 0.01 * i, conc=50.0) for i in range(3)]
+    rows += [well("P1", f"B{i}", "blank", None, 2.0 + 0.01 * i, conc=200.0) for i in range(4)]
+    rows += [well("P1", "C1", "sample", "C1", 10.0, conc=50.0), well("P1", "C2", "sample", "C1", 20.0, conc=200.0),
+             well("P1", "C3", "sample", "C1", 30.0, conc=400.0)]
+    b = blank_rates(frame(rows), S)
+    lv = b.set_index("substrate_conc_mM")
+    assert lv.loc[50.0, "blank_rate_mM_per_h"] == pytest.approx(0.51)
+    assert lv.loc[200.0, "blank_rate_mM_per_h"] == pytest.approx(2.015)
+    # 400 mM has no blank: the level with most blanks (200 mM), scaled as a first-order background
+    assert lv.loc[400.0, "blank_rate_mM_per_h"] == pytest.approx(2.015 * 2)
+    assert "blank_scaled" in lv.loc[400.0, "flags"] and lv.loc[400.0, "blank_conc_mM"] == 200.0
+    t = well_turnover(CATS, frame(rows), b, S).set_index("well")
+    assert t.loc["C1", "net_rate_mM_per_h"] == pytest.approx(10.0 - 0.51)
+    assert t.loc["C2", "net_rate_mM_per_h"] == pytest.approx(20.0 - 2.015)
+
+
+def test_a_blank_outlier_does_not_pull_the_blank_mean():
+    rates = [1.0, 1.05, 0.95, 1.02, 3.0]                   # one blank on an evaporating edge reads 3x
+    rows = [well("P1", f"A{i}", "blank", None, r, se=0.02) for i, r in enumerate(rates)]
+    b = blank_rates(frame(rows), S).iloc[0]
+    assert b.blank_rate_mM_per_h == pytest.approx(np.mean(rates[:4]))
+    assert b.n_blanks == 4 and b.n_blank_outliers == 1 and "blank_outlier_excluded" in b["flags"]
+
+
+def _group(rows):
+    w = frame(rows)
+    t = well_turnover(CATS, w, blank_rates(w, S), S)
+    return group_rates(t, S, factor_names=("solvent",)).set_index("catalyst")
+
+
+def test_a_group_of_wells_done_before_their_first_reading_is_a_lower_bound():
+    blanks = [well("P1", f"A{i}", "blank", None, 0.1, se=0.01) for i in range(3)]
+    fast = [dict(well("P1", f"B{i}", "sample", "C1", 190.0 + i), censored="lower", rate_se_mM_per_h=np.nan)
+            for i in range(3)]
+    two_of_three = [dict(well("P1", "C1", "sample", "C2", 50.0), censored="lower", rate_se_mM_per_h=np.nan),
+                    well("P1", "C2", "sample", "C2", 20.0, se=0.5), well("P1", "C3", "sample", "C2", 22.0, se=0.5)]
+    g = _group(blanks + fast + two_of_three)
+    c1 = g.loc["C1"]
+    assert c1.censored == "lower" and np.isnan(c1.tof_ci_high) and c1.tof_ci_low == pytest.approx(c1.tof_per_h)
+    assert "done_at_first_reading" in c1["flags"]
+    # a minority of bounds: left out, the estimate rests on the measured replicates (and says so)
+    c2 = g.loc["C2"]
+    assert c2.censored == "" and "censored_replicate" in c2["flags"]
+    assert c2.rate_mM_per_h == pytest.approx(21.0)
+
+
+def test_a_group_not_above_its_blank_reports_an_upper_bound():
+    blanks = [well("P1", f"A{i}", "blank", None, r, se=0.05) for i, r in enumerate([1.0, 1.1, 0.9])]
+    dead = [well("P1", f"B{i}", "sample", "C1", r, se=0.05) for i, r in enumerate([1.05, 0.95, 1.1])]
+    c1 = _group(blanks + dead).loc["C1"]
+    assert c1.censored == "upper" and np.isnan(c1.tof_ci_low)
+    assert c1.tof_per_h == pytest.approx(c1.tof_ci_high) and c1.tof_per_h > 0
+    assert "not_above_blank" in c1["flags"]
+
+
+def test_group_se_never_below_the_wells_own_fit_errors():
+    # three replicates that agree to 0.1 % by chance, each with a 5 % fit SE: the interval rests on
+    # the fit errors (SE of the mean = 5 % / sqrt 3), not on the chance agreement
+    blanks = [well("P1", f"A{i}", "blank", None, 0.0, se=0.0) for i in range(2)]
+    reps = [well("P1", f"B{i}", "sample", "C1", 10.0 + 0.01 * i, se=0.5) for i in range(3)]
+    c1 = _group(blanks + reps).loc["C1"]
+    tof_per_rate = 1.0 / 0.5          # 1000 uL x 1e-3 / (0.5 mol% of 100 umol = 0.5 umol)
+    assert c1.tof_rep_se_per_h == pytest.approx(0.5 / np.sqrt(3) * tof_per_rate, rel=1e-6)
