@@ -168,11 +168,13 @@ def by_behaviour(study: Study) -> pd.DataFrame:
 
     def one(x):
         pt = x[x["censored"].astype(str) == ""]
+        err = pt["tof_rel_err"].abs()
+        err = err[np.isfinite(err)]                      # rows whose true initial rate is 0 have none
         return pd.Series({
             "rows": len(x),
             "point_estimates": len(pt),
-            "tof_median_abs_err": pt["tof_rel_err"].abs().median(),
-            "tof_p90_abs_err": pt["tof_rel_err"].abs().quantile(0.9),
+            "tof_median_abs_err": err.median() if len(err) else np.nan,
+            "tof_p90_abs_err": err.quantile(0.9) if len(err) else np.nan,
             "tof_coverage": pt["tof_covered"].mean(),
             "censored_lower": (x["censored"].astype(str) == "lower").mean(),
             "censored_upper": (x["censored"].astype(str) == "upper").mean(),

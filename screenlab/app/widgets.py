@@ -22,7 +22,7 @@ _SETTING_HELP = {s.name: s.help for s in SETTINGS}
 _SETTING_LABEL = {
     "reference_temperature_c": "Reference temperature / °C",
     "confidence": "Confidence level",
-    "conversion_window_pct": "Initial-rate window / % conversion",
+    "conversion_window_pct": "Early window of the generic rate law / % of the course's maximum",
     "outlier_z": "Outlier robust z",
     "zprime_min": "Minimum Z'",
 }

@@ -13,16 +13,19 @@ from __future__ import annotations
 from screenlab.cli.common import add_format_option, add_store_option, emit
 
 RATES_COLUMNS = ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", "n_wells",
-                 "rate_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton", "enhancement",
-                 "enhancement_ci_low", "enhancement_ci_high", "selectivity_pct", "selectivity_ci_low",
-                 "selectivity_ci_high", "ee_pct", "ee_ci_low", "ee_ci_high", "is_standard", "flags"]
+                 "rate_law", "censored", "rate_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "tof_max_per_h",
+                 "ton", "enhancement", "enhancement_ci_low", "enhancement_ci_high", "selectivity_pct",
+                 "selectivity_ci_low", "selectivity_ci_high", "ee_pct", "ee_ci_low", "ee_ci_high", "is_standard",
+                 "in_arrhenius_fit", "flags"]
 WELL_COLUMNS = ["plate", "well", "role", "catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
-                "method", "rate_mM_per_h", "rate_se_mM_per_h", "blank_rate_mM_per_h", "net_rate_mM_per_h",
-                "sites_umol", "tof_per_h", "tof_se_per_h", "ton", "enhancement", "enhancement_ci_low",
-                "enhancement_ci_high", "selectivity_pct", "selectivity_se", "ee_pct", "ee_se", "outlier", "flags"]
-ARRHENIUS_COLUMNS = ["catalyst", "n_temperatures", "ea_kj_mol", "ea_se", "ea_ci_low", "ea_ci_high", "ln_a",
-                     "dh_kj_mol", "ds_j_mol_k", "dg_ref_kj_mol", "tof_ref_per_h", "tof_ref_ci_low",
-                     "tof_ref_ci_high", "delta_ea_kj_mol", "delta_ea_ci_low", "delta_ea_ci_high", "flags"]
+                "method", "censored", "rate_mM_per_h", "rate_se_mM_per_h", "blank_rate_mM_per_h", "net_rate_mM_per_h",
+                "sites_umol", "tof_per_h", "tof_se_per_h", "tof_max_per_h", "ton", "enhancement",
+                "enhancement_ci_low", "enhancement_ci_high", "selectivity_pct", "selectivity_se", "ee_pct", "ee_se",
+                "noise_ratio", "outlier", "flags"]
+ARRHENIUS_COLUMNS = ["catalyst", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mol", "ea_se", "ea_ci_low",
+                     "ea_ci_high", "ln_a", "dh_kj_mol", "ds_j_mol_k", "dg_ref_kj_mol", "tof_ref_per_h",
+                     "tof_ref_ci_low", "tof_ref_ci_high", "delta_ea_kj_mol", "delta_ea_ci_low", "delta_ea_ci_high",
+                     "fit_df", "chi2_per_df", "curvature_p", "plate_scatter_ln", "left_out", "flags"]
 ORDERS_COLUMNS = ["catalyst", "temperature_c", "variable", "n_levels", "order", "order_se", "order_ci_low",
                   "order_ci_high", "fixed", "tof_slope", "flags"]
 
@@ -32,7 +35,8 @@ def _common(p) -> None:
     add_format_option(p)
     add_store_option(p)
     p.add_argument("--window", metavar="PCT", type=float, default=None,
-                   help="initial-rate conversion window, percent (default: campaign setting, else 20)")
+                   help="early window of the generic rate law (used for courses that are not initial-rate "
+                        "kinetics): percent of the course's largest product (default: campaign setting, else 50)")
     p.add_argument("--confidence", metavar="C", type=float, default=None,
                    help="confidence level of every interval, e.g. 0.95")
 
@@ -107,14 +111,32 @@ def _wells_with_selectivity(kin):
     return out.drop(columns="_sel_flags")
 
 
+def bounds_as_text(frame, value: str = "tof_per_h"):
+    """For the aligned table only: a censored row's ``value`` written as the bound it is, ">= 800"
+    (lower: faster than the readings can show) or "<= 0.32" (upper: not above the blank); CSV and
+    JSON keep the number and the ``censored`` column."""
+    import numpy as np
+
+    if "censored" not in frame.columns or value not in frame.columns:
+        return frame
+    cens = frame["censored"].astype("string").fillna("").to_numpy(dtype=object)
+    if not (cens != "").any():
+        return frame
+    v = frame[value].to_numpy(dtype=float)
+    text = np.array([f"{x:.4g}" if np.isfinite(x) else "" for x in v], dtype=object)
+    text = np.where(cens == "lower", ">= " + text, np.where(cens == "upper", "<= " + text, text))
+    return frame.assign(**{value: text})
+
+
 def run_rates(args) -> int:
     data, kin = _kinetics(args)
     if args.per_well:
         cols = WELL_COLUMNS[:8] + list(data.factor_names) + WELL_COLUMNS[8:]
-        emit(_pick(_wells_with_selectivity(kin), cols), args.format)
+        out = _pick(_wells_with_selectivity(kin), cols)
     else:
         cols = RATES_COLUMNS[:6] + list(data.factor_names) + RATES_COLUMNS[6:]
-        emit(_pick(kin.rates, cols), args.format)
+        out = _pick(kin.rates, cols)
+    emit(bounds_as_text(out) if args.format == "table" else out, args.format)
     return 0
 
 
