@@ -391,6 +391,47 @@ def catalyst_campaigns(store: "Store", catalyst: str) -> pd.DataFrame:
     return out.sort_values(["imported_at", "campaign"], kind="stable").reset_index(drop=True)
 
 
+def chosen_in(store: "Store") -> pd.DataFrame:
+    """``decision, campaign, catalyst, position, status`` for every catalyst chosen in a decision
+    (status ``current`` or ``superseded by N``)."""
+    d = decisions(store, current_versions=False)
+    c = decision_catalysts(store)
+    c = c[c["position"].notna()]
+    if d.empty or c.empty:
+        return pd.DataFrame(columns=["decision", "campaign", "catalyst", "position", "status"])
+    out = c.merge(d[["decision", "campaign", "status"]], on="decision", how="left")
+    return out[["decision", "campaign", "catalyst", "position", "status"]].reset_index(drop=True)
+
+
+def history_sources(store: "Store", catalyst: str, analysis_of, ranking_of=None):
+    """The campaigns holding ``catalyst`` (:func:`catalyst_campaigns`) as
+    :class:`screenlab.stats.history.HistorySource` records, first import first.
+
+    ``analysis_of(campaign)`` gives the campaign's :class:`~screenlab.pipeline.Analysis` (the
+    caller decides on settings and caching); ``ranking_of(campaign)``, when given, its TOF ranking.
+    Each source says in which recorded decisions the catalyst was chosen ("decision 2 (pick 1)")."""
+    from screenlab.stats.history import HistorySource
+
+    camps = catalyst_campaigns(store, catalyst)
+    picks = chosen_in(store)
+    out = []
+    for row in camps.itertuples(index=False):  # one per campaign holding the catalyst
+        mine = picks[(picks["campaign"] == row.campaign) & (picks["catalyst"].astype(str) == str(row.catalyst))]
+        text = "; ".join(f"decision {int(p.decision)} (pick {int(p.position)}"
+                         + ("" if p.status == "current" else f", {p.status}") + ")"
+                         for p in mine.itertuples(index=False))
+        parent = None if _missing(row.parent) else str(row.parent)
+        out.append(HistorySource(campaign=str(row.campaign), catalyst=str(row.catalyst),
+                                 analysis=analysis_of(str(row.campaign)), parent=parent,
+                                 ranking=None if ranking_of is None else ranking_of(str(row.campaign)),
+                                 decisions=text))
+    return camps, out
+
+
+def _missing(v) -> bool:
+    return v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
+
+
 __all__ = ["CATALYST_FIELDS", "LIST_COLUMNS", "RecordedDecision", "all_catalysts", "campaign_version",
-           "catalyst_campaigns", "check_round_link", "decision_catalysts", "decisions", "get_decision",
+           "catalyst_campaigns", "check_round_link", "chosen_in", "history_sources", "decision_catalysts", "decisions", "get_decision",
            "record_decision", "round_links", "same_catalyst"]
