@@ -247,5 +247,39 @@ def catalyst_history(sources: list[HistorySource], *, top_k: int = 3, draws: int
     return frame
 
 
-__all__ = ["HISTORY_COLUMNS", "REFERENCE_TOF_COLUMNS", "HistorySource", "benchmark_ratio", "campaign_benchmark",
-           "catalyst_history", "history_row", "reference_tofs"]
+DISPLAY_COLUMNS = ["campaign", "parent", "catalyst", "tof_at_ref", "enhancement", "ea", "rank", "p_top",
+                   "vs_benchmark", "benchmark", "decisions", "status"]
+
+
+def display_table(hist: pd.DataFrame) -> pd.DataFrame:
+    """The history as short text columns (intervals and bounds written out) for a table view."""
+    from screenlab.stats.bounds import estimate_text
+
+    rows = []
+    for r in hist.to_dict(orient="records"):  # one per campaign
+        tof = estimate_text(r["tof_per_h"], r["tof_ci_low"], r["tof_ci_high"], r["tof_censored"])
+        if tof != "–":
+            tof += f" h-1 at {r['reference_temperature_c']:g} C" + (" (Arrhenius)" if r["tof_basis"] == "arrhenius"
+                                                                     else "")
+        rank = "–"
+        if pd.notna(r["rank"]):
+            rank = f"{int(r['rank'])} of {int(r['n_ranked'])} ({int(r['rank_low'])}-{int(r['rank_high'])})"
+        elif r["rank_reason"]:
+            rank = f"not ranked: {r['rank_reason']}"
+        if r["role"] == "reference" and r["catalyst"] == r["benchmark"]:
+            ratio = "1 (the benchmark)"
+        else:
+            ratio = estimate_text(r["vs_benchmark"], r["vs_benchmark_ci_low"], r["vs_benchmark_ci_high"],
+                                  r["vs_benchmark_censored"])
+        rows.append({"campaign": r["campaign"], "parent": r["parent"], "catalyst": r["catalyst"], "tof_at_ref": tof,
+                     "enhancement": estimate_text(r["enhancement"], r["enhancement_ci_low"], r["enhancement_ci_high"]),
+                     "ea": estimate_text(r["ea_kj_mol"], r["ea_ci_low"], r["ea_ci_high"]),
+                     "rank": rank,
+                     "p_top": "–" if pd.isna(r["p_top"]) else f"{float(r['p_top']):.2f} (K={int(r['top_k'])})",
+                     "vs_benchmark": ratio, "benchmark": r["benchmark"], "decisions": r["decisions"],
+                     "status": r["status"]})
+    return pd.DataFrame(rows, columns=DISPLAY_COLUMNS)
+
+
+__all__ = ["DISPLAY_COLUMNS", "HISTORY_COLUMNS", "REFERENCE_TOF_COLUMNS", "HistorySource", "benchmark_ratio",
+           "campaign_benchmark", "catalyst_history", "display_table", "history_row", "reference_tofs"]

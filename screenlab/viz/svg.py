@@ -54,8 +54,8 @@ def log_ticks(lo: float, hi: float) -> list[float]:
     a, b = math.floor(math.log10(lo)), math.ceil(math.log10(hi))
     mult = (1,) if b - a > 3 else (1, 2, 5)
     out = [m * 10.0 ** e for e in range(a, b + 1) for m in mult if lo * (1 - 1e-9) <= m * 10.0 ** e <= hi * (1 + 1e-9)]
-    if len(out) < 2:
-        out = [t for t in nice_ticks(lo, hi, 4) if t > 0]
+    if len(out) < 3:  # less than a factor of about 5: round linear steps read better
+        out = [t for t in nice_ticks(lo, hi, 5) if t > 0]
     return out
 
 
