@@ -217,8 +217,8 @@ def _decision(rec: dict | None, rows: pd.DataFrame | None, help_: dict, current_
                    f"{_e(current_version[:16])}</span>). The table below keeps the numbers the decision was made "
                    "on; the ranking further down is of the current data.</div>")
     if rows is not None and len(rows):
-        hdr = ["#", "catalyst", "name", f"{_e(label)}{(' / ' + _e(unit)) if unit else ''} (interval)", "rank (interval)",
-               f"P(top {_e(rec.get('top_k'))})", "P(beats benchmark)", "basis", "flags"]
+        hdr = ["#", "catalyst", "name", f"{_e(label)}{(' / ' + _e(unit)) if unit else ''} (interval)",
+               "rank (interval)", f"P(top {_e(rec.get('top_k'))})", "P(beats benchmark)", "basis", "flags"]
         body, cls = [], []
         cens = censored_of(rows).tolist()
         for (_, r), c in zip(rows.iterrows(), cens):  # the chosen few and the benchmark
@@ -257,7 +257,8 @@ def _ranking(ranking: pd.DataFrame, metric: str, temperature_c, top_k: int, chos
     ranked = r[r["rank"].notna()].sort_values("rank", kind="stable")
     unranked = r[r["rank"].isna()]
     role = ranked["role"].astype(str)
-    keep = (np.arange(len(ranked)) < MAX_RANKED_ROWS) | ranked["catalyst"].isin(chosen).to_numpy() | (role == "reference").to_numpy()
+    keep = ((np.arange(len(ranked)) < MAX_RANKED_ROWS) | ranked["catalyst"].isin(chosen).to_numpy()
+            | (role == "reference").to_numpy())
     shown = ranked[keep]
     out = [f"<h2>Ranking: {_e(m.label if m else metric)}{_e(at)}</h2>"]
     if ranked.empty:
@@ -395,7 +396,8 @@ def _flag_section(analysis, ranking: pd.DataFrame, chosen: list[str], help_: dic
         for code, n in codes.value_counts().items():
             counts.append([_e(level), f"<code>{_e(code)}</code>", str(int(n)), _e(help_.get(code, "no description"))])
     out.append("<h3>Whole campaign</h3>")
-    out.append(_table(["level", "flag", "rows", "meaning"], counts, numeric={2}) if counts else "<p>No flag raised.</p>")
+    out.append(_table(["level", "flag", "rows", "meaning"], counts, numeric={2}) if counts
+               else "<p>No flag raised.</p>")
     return "\n".join(out)
 
 

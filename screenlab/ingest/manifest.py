@@ -110,7 +110,8 @@ def parse_manifest(data: bytes | None, problems: list[Problem]) -> tuple[Manifes
     # round links (keys of our own): the campaign this round follows and the decision it came from
     parent = text_key(camp, "campaign", "parent", False) or None
     if parent is not None and name and parent == name:
-        bad("campaign", "parent", parent, "'parent' names the campaign before this one; it cannot be the campaign itself")
+        bad("campaign", "parent", parent,
+            "'parent' names the campaign before this one; it cannot be the campaign itself")
     decision = None
     if "decision" in camp:
         v = camp["decision"]

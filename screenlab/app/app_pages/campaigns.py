@@ -55,8 +55,9 @@ if widgets.need_campaign(ctx):
                 st.markdown(text + ".")
                 if rec is not None:
                     when = pd.Timestamp(rec["created_at"]).strftime("%Y-%m-%d %H:%M UTC")
+                    by = _common.metric_choices().get(rec["metric"], {}).get("label", rec["metric"])
                     st.markdown(f"Decided there by **{rec['author']}** on {when}: chose **{rec['catalysts']}** "
-                                f"(ranked by {rec['metric']}"
+                                f"(ranked by {by}"
                                 + (f" at {rec['temperature_c']:g} °C" if pd.notna(rec["temperature_c"]) else "")
                                 + f"; {rec['status']}).")
                     st.info(rec["note"], icon=":material/sticky_note_2:")

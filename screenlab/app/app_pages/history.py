@@ -60,6 +60,8 @@ with left:
                            "ci_high": measured["vs_benchmark_ci_high"]})
         fig = figures.forest_plot(fr, label="TOF / TOF(benchmark)", log_x=True)
         fig.update_yaxes(title="campaign (first import at top)")
+        fig.add_vline(x=1.0, line_dash="dot", line_color="#e69f00", annotation_text="as active as the benchmark",
+                      annotation_position="top")
         widgets.chart(fig, key="hist_ratio", filename=f"history-{catalyst}-ratio")
 with right:
     st.subheader("TOF at the reference temperature")

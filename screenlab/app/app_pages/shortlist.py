@@ -59,7 +59,13 @@ with st.container(border=True):
                               else f"decision {d}: {sup_text.get(d, '')}",
                               help="A changed mind is a new decision naming the one it replaces; the old one "
                                    "stays as it was.")
-    can = not ctx.read_only and bool(note.strip()) and bool(author.strip())
+    def _recorded() -> int | None:
+        """The decision these picks and this note were recorded as in this session, if any."""
+        state = st.session_state.get(recorded_key) or {}
+        same = state.get("picked") == list(picked) and state.get("note") == note.strip()
+        return state.get("decision") if same else None
+
+    can = not ctx.read_only and bool(note.strip()) and bool(author.strip()) and _recorded() is None
     why = ("This store is open read-only: record decisions with `screenlab shortlist ... --note TEXT`."
            if ctx.read_only else "Write a note first (why these catalysts)." if not note.strip() else "")
     if st.button("Record this decision", key="short_record", disabled=not can, icon=":material/gavel:",
@@ -83,8 +89,7 @@ with st.container(border=True):
     if why:
         st.caption(why)
     rec_state = st.session_state.get(recorded_key) or {}
-    decision_id = rec_state.get("decision") if (rec_state.get("picked") == list(picked)
-                                                and rec_state.get("note") == note.strip()) else None
+    decision_id = _recorded()
     if decision_id is not None:
         st.success(f"Recorded as decision {decision_id}. The next-round folder below names it in its "
                    f"campaign.toml ([campaign] parent = \"{ctx.campaign}\", decision = {decision_id}).",
