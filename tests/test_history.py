@@ -120,6 +120,7 @@ def test_history_follows_an_alias(two_rounds):
     assert r2["vs_benchmark"] == pytest.approx(K_PER_H["RU-04-B2"] / K_PER_H["REF-RU"], rel=0.10)
 
 
+@pytest.mark.filterwarnings("ignore:no readings.csv")
 def test_the_benchmark_compares_to_itself_and_a_planned_round_says_so(th, tmp_path):
     from screenlab.export.nextround import design_next_round
     from screenlab.ingest import read_campaign

@@ -240,7 +240,10 @@ def decision_detail(path: str, read_only: bool, decision: int) -> tuple[dict, pd
 
 def decisions_token(path: str, read_only: bool) -> tuple:
     """Changes whenever a decision is recorded (a cache key part for what shows decisions)."""
-    d = decisions(path, read_only)
+    from screenlab.store import decisions as D
+
+    with open_store(path, read_only) as s:
+        d = D.decisions(s, current_versions=False)
     return (len(d), int(d["decision"].max()) if len(d) else 0)
 
 

@@ -62,10 +62,11 @@ if widgets.need_campaign(ctx):
                                 + f"; {rec['status']}).")
                     st.info(rec["note"], icon=":material/sticky_note_2:")
                     chosen = rec_rows[rec_rows["position"].notna()].copy()
-                    chosen["estimate_text"] = estimate_texts(chosen, "estimate", "ci_low", "ci_high")
-                    widgets.table(chosen, key="campaigns_parent_decision",
-                                  columns=["position", "catalyst", "name", "estimate_text", "unit", "rank",
-                                           "rank_low", "rank_high", "p_top", "basis", "flags"])
+                    chosen["estimate (interval)"] = estimate_texts(chosen, "estimate", "ci_low", "ci_high")
+                    ptop = f"P(top {int(rec['top_k'])})" if pd.notna(rec["top_k"]) else "P(top K)"
+                    widgets.table(chosen.rename(columns={"p_top": ptop}), key="campaigns_parent_decision",
+                                  columns=["position", "catalyst", "name", "estimate (interval)", "unit", "rank",
+                                           "rank_low", "rank_high", ptop, "basis", "flags"])
                 _common.campaign_button(m.parent, key="campaigns_go_parent", label=f"Open {m.parent} (round before)")
             if later:
                 st.markdown("Rounds after this one: " + ", ".join(f"**{c}**" for c in later))
@@ -109,6 +110,9 @@ if widgets.need_campaign(ctx):
         widgets.table(show, key="campaigns_decisions",
                       columns=["decision", "created_at", "author", "metric", "temperature_c", "catalysts", "note",
                                "supersedes", "status", "on_current_data"])
+        for d in listed[listed["status"] == "current"].itertuples():  # the standing decisions, note in full
+            st.markdown(f"**Decision {d.decision}** ({d.author}): {d.catalysts}")
+            st.info(d.note, icon=":material/sticky_note_2:")
         stale = listed[~listed["on_current_data"].astype(bool)]
         if len(stale):
             st.caption("on current data = False: the campaign's data changed after that decision (a later import).")

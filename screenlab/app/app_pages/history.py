@@ -60,8 +60,10 @@ with left:
                            "ci_high": measured["vs_benchmark_ci_high"]})
         fig = figures.forest_plot(fr, label="TOF / TOF(benchmark)", log_x=True)
         fig.update_yaxes(title="campaign (first import at top)")
-        fig.add_vline(x=1.0, line_dash="dot", line_color="#e69f00", annotation_text="as active as the benchmark",
-                      annotation_position="top")
+        # ratio 1: as active as the benchmark (a trace, not a shape: shapes on a log axis take log units)
+        ends = [fr["catalyst"].iloc[0], fr["catalyst"].iloc[-1]]
+        fig.add_scatter(x=[1.0, 1.0], y=ends, mode="lines", name="as active as the benchmark", hoverinfo="skip",
+                        line=dict(color="#e69f00", dash="dot", width=2))
         widgets.chart(fig, key="hist_ratio", filename=f"history-{catalyst}-ratio")
 with right:
     st.subheader("TOF at the reference temperature")
