@@ -137,13 +137,13 @@ def _dump(obj) -> None:
     sys.stdout.write("\n")
 
 
-def record_shortlist(args, analysis, ranking, picks, version: str):
+def record_shortlist(args, analysis, ranking, picks, version: str, *, next_round_temperatures=None):
     """Record ``picks`` of ``ranking`` as a decision (``screenlab shortlist --note``); returns the
     :class:`~screenlab.store.decisions.RecordedDecision`."""
     from screenlab.export.decision import draft_decision
     from screenlab.store import decisions as D
 
-    temps = getattr(args, "_next_round_temperatures", None)
+    temps = next_round_temperatures
     draft = draft_decision(ranking, picks, campaign=args.campaign, note=args.note, author=args.author,
                            settings=analysis.settings, top_k=args.top, draws=args.draws, seed=args.seed,
                            catalysts=analysis.data.catalysts, supersedes=args.supersedes, campaign_version=version,

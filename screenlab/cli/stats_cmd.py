@@ -64,7 +64,9 @@ def register(sub) -> None:
                        description="Writes shortlist.csv, shortlist.xlsx (kinetics per temperature, provenance, "
                        "safety), shortlist.parquet and SAFETY.txt in --out, and a next-round campaign folder in "
                        "--out/next-round (candidates in replicate over a temperature series, a loading series, "
-                       "benchmark and blanks on every plate, outer ring left empty).")
+                       "benchmark and blanks on every plate, outer ring left empty). With --note the shortlist is "
+                       "also recorded in the store as a decision (screenlab decisions lists it) and the next "
+                       "round's campaign.toml names it.")
     _campaign(s)
     s.add_argument("--by", metavar="METRIC", choices=METRIC_CHOICES, default="tof", help="ranking metric (default tof)")
     _ranking_options(s, top_required=True)
@@ -189,8 +191,7 @@ def run_shortlist(args) -> int:
     if record:
         from screenlab.cli.decisions_cmd import record_shortlist
 
-        args._next_round_temperatures = temps
-        recorded = record_shortlist(args, a, r, picks, version)
+        recorded = record_shortlist(args, a, r, picks, version, next_round_temperatures=temps)
     options = {"at_temperature_c": t_rank, "draws": args.draws, "seed": args.seed}
     if recorded is not None:
         options.update({"decision": recorded.decision, "note": args.note.strip(),
