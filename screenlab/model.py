@@ -46,6 +46,10 @@ class Manifest:
     byproducts: tuple[str, ...] = ()                       # [analytes].byproducts
     enantiomers: tuple[str, str] | None = None             # [analytes].enantiomers
     source_toml: str = ""                                  # the manifest text as imported
+    #: [campaign].parent: the campaign this round follows (a key of our own; None for a first round)
+    parent: str | None = None
+    #: [campaign].decision: the recorded decision of ``parent`` this round was laid out from
+    decision: int | None = None
 
     @property
     def absorbance_linear_max(self) -> float:

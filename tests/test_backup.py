@@ -95,7 +95,7 @@ def test_manifest_hashes_counts_and_versions(filled, tmp_path):
     B.backup_store(filled, tmp_path / "bk")
     m = json.loads((tmp_path / "bk" / "manifest.json").read_text())
     assert m["format"] == B.BACKUP_FORMAT and m["screenlab_version"] == __version__
-    assert m["schema_version"] == 1 and m["duckdb_version"].lstrip("v") == duckdb.__version__
+    assert m["schema_version"] == Store.migrations()[-1][0] and m["duckdb_version"].lstrip("v") == duckdb.__version__
     on_disk = {str(p.relative_to(tmp_path / "bk")) for p in (tmp_path / "bk").rglob("*") if p.is_file()}
     assert on_disk == set(m["files"]) | {"manifest.json"}
     for rel, info in m["files"].items():

@@ -35,7 +35,8 @@ PAGES = {
     "temperature": ["Temperature series", "Activation parameters", "Activation-energy lowering"],
     "ranking": ["Ranking", "Pareto view"],
     "quality": ["Plate quality", "Benchmark control chart", "Edge map"],
-    "shortlist": ["Shortlist", "scale-up"],
+    "shortlist": ["Shortlist", "scale-up", "Record the decision"],
+    "history": ["Catalyst history", "Side by side", "Relative to the benchmark"],
 }
 
 
@@ -72,6 +73,10 @@ def server(demo_store, tmp_path_factory):
     _need_chromium()
     store = tmp_path_factory.mktemp("browser-store") / "store.duckdb"
     shutil.copy2(demo_store, store)  # a private copy: the server process holds its own file
+    sys.path.insert(0, str(Path(__file__).parent))
+    from rounds import add_second_round
+
+    add_second_round(store, store.parent)  # a decision on th-screen-2026 and its next round, run and imported
     port = _free_port()
     code = "import sys; from screenlab.cli import main; sys.exit(main(sys.argv[1:]))"
     log = tmp_path_factory.mktemp("browser-log") / "server.log"
@@ -206,3 +211,71 @@ def test_upload_check_and_commit_in_chromium(server, tmp_path):
     assert name in Store(server.store, read_only=True).campaign_names()
     stored = Store(server.store, read_only=True).load_campaign(name)
     assert len(stored.readings) == SyntheticSpec(n_plates=2, seed=5, name=name).n_readings
+
+
+def test_two_rounds_in_chromium(server, tmp_path):
+    """A team lead records a decision on the Shortlist page, downloads the report and opens it
+    offline; the next round's page links back to the round before; the history page compares a
+    renamed catalyst across both rounds."""
+    from playwright.sync_api import expect, sync_playwright
+
+    from rounds import ROUND1, ROUND2
+    from screenlab.store import Store
+    from screenlab.store.decisions import decisions
+
+    SHOTS.mkdir(parents=True, exist_ok=True)
+    with sync_playwright() as p:
+        browser = _browser(p)
+        try:
+            page = browser.new_page(viewport={"width": 1440, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(f"{server.url}/shortlist?campaign={ROUND1}", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            main.get_by_label("Note (kept with the shortlist)").fill("Browser check: top three, confirm RU-02.")
+            main.get_by_label("Note (kept with the shortlist)").press("Control+Enter")
+            wait_for_app_run(page)
+            main.get_by_role("button", name="Record this decision").click()
+            wait_for_app_run(page)
+            expect(main.get_by_text("Recorded as decision 2", exact=False).first).to_be_visible(timeout=60_000)
+            page.screenshot(path=str(SHOTS / "shortlist-recorded.png"), full_page=True)
+            with page.expect_download(timeout=60_000) as dl:
+                main.get_by_role("button", name="Report (.html)").click()
+            report = tmp_path / "report.html"
+            dl.value.save_as(str(report))
+            # the report opens with nothing fetched, shows the decision and prints to PDF
+            rpage = browser.new_page(viewport={"width": 1100, "height": 900})
+            fetched: list[str] = []
+            rpage.on("request", lambda r: fetched.append(r.url))
+            rpage.goto(report.as_uri(), wait_until="load")
+            expect(rpage.get_by_text("Decision 2: RU-01, RU-02, RU-04").first).to_be_visible()
+            expect(rpage.get_by_text("Browser check: top three, confirm RU-02.").first).to_be_visible()
+            assert rpage.locator("svg").count() >= 2
+            assert [u for u in fetched if not u.startswith("file:")] == []
+            rpage.screenshot(path=str(SHOTS / "report.png"), full_page=True)
+            rpage.pdf(path=str(SHOTS.parent / "report.pdf"), format="A4")
+            assert (SHOTS.parent / "report.pdf").stat().st_size > 20_000
+            # the next round links back to the round before and says what was decided there
+            page.goto(f"{server.url}/?campaign={ROUND2}", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            expect(main.get_by_text("This round follows", exact=False).first).to_be_visible(timeout=60_000)
+            expect(main.get_by_text("chose RU-01, RU-02, RU-04", exact=False).first).to_be_visible()
+            page.screenshot(path=str(SHOTS / "campaigns-round2.png"), full_page=True)
+            main.get_by_role("button", name=f"Open {ROUND1} (round before)").click()
+            wait_for_app_run(page)
+            expect(main.get_by_text("Rounds after this one", exact=False).first).to_be_visible(timeout=60_000)
+            # the history of a renamed catalyst, reached from a link
+            page.goto(f"{server.url}/history?catalyst=RU-04", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            expect(main.get_by_text(f"{ROUND2} (RU-04-B2)", exact=False).first).to_be_visible(timeout=60_000)
+            expect(page.get_by_test_id("stPlotlyChart").first).to_be_visible(timeout=60_000)
+            expect(page.get_by_test_id("stException")).to_have_count(0)
+            page.screenshot(path=str(SHOTS / "history-RU-04.png"), full_page=True)
+            assert not errors, errors
+        finally:
+            browser.close()
+    notes = decisions(Store(server.store, read_only=True))["note"].tolist()
+    assert notes[-1] == "Browser check: top three, confirm RU-02."

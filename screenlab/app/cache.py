@@ -168,9 +168,12 @@ class ShortlistFiles:
 
 @st.cache_data(show_spinner="Writing the shortlist and the next-round plates ...", max_entries=16)
 def shortlist_files(path: str, read_only: bool, version: Any, campaign: str, skey: tuple, metric: str,
-                    temperature_c: float | None, k: int, picked: tuple[str, ...], note: str) -> ShortlistFiles:
+                    temperature_c: float | None, k: int, picked: tuple[str, ...], note: str,
+                    decision: int | None = None) -> ShortlistFiles:
     """``export.shortlist.write_shortlist`` and ``export.nextround.design_next_round`` for the picked
-    candidates (in ranking order, the benchmark added for comparison), read back as bytes."""
+    candidates (in ranking order, the benchmark added for comparison), read back as bytes.
+    ``decision``: the recorded decision these picks are (its number goes into the next round's
+    campaign.toml and the provenance)."""
     import io
     import tempfile
     import zipfile
@@ -190,12 +193,13 @@ def shortlist_files(path: str, read_only: bool, version: Any, campaign: str, ske
         out = write_shortlist(Path(tmp) / "shortlist", chosen, a.kinetics, campaign=campaign, top_k=max(1, n_picked),
                               catalysts=a.data.catalysts, quality=a.quality, imports=hist, import_files=hist_files,
                               options={"metric": metric, "temperature_c": temperature_c, "top_k": k,
-                                       "note": note, "picked": ";".join(picked)})
+                                       "note": note, "picked": ";".join(picked), "decision": decision})
         table = pd.read_csv(out["csv"]) if "csv" in out else pd.DataFrame()
         csv = Path(out["csv"]).read_bytes()
         xlsx = Path(out["xlsx"]).read_bytes()
         nr_name = f"{campaign}-next-round"
-        folder = design_next_round(Path(tmp) / nr_name, a.data, [c for c in picked], name=nr_name)
+        folder = design_next_round(Path(tmp) / nr_name, a.data, [c for c in picked], name=nr_name,
+                                   decision=decision)
         buf = io.BytesIO()
         files = sorted(p for p in Path(folder).rglob("*") if p.is_file())
         with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
@@ -212,3 +216,127 @@ def shortlist_files(path: str, read_only: bool, version: Any, campaign: str, ske
                        + ", ".join(f"{int(n)} {role}" for role, n in roles.items())
                        + f" wells; files: {', '.join(p.name for p in files)}.")
     return ShortlistFiles(table=table, csv=csv, xlsx=xlsx, next_round_zip=buf.getvalue(), next_round_summary=summary)
+
+
+# --------------------------------------------------------------------------------------------
+# decisions, round links, catalyst history, report (store schema 2)
+# --------------------------------------------------------------------------------------------
+
+def decisions(path: str, read_only: bool, campaign: str | None = None) -> pd.DataFrame:
+    """The recorded decisions (of ``campaign``), read fresh on every call: recording a decision
+    does not change the store's data version (no analysis goes stale), and the table is small."""
+    from screenlab.store import decisions as D
+
+    with open_store(path, read_only) as s:
+        return D.decisions(s, campaign)
+
+
+def decision_detail(path: str, read_only: bool, decision: int) -> tuple[dict, pd.DataFrame]:
+    from screenlab.store import decisions as D
+
+    with open_store(path, read_only) as s:
+        return D.get_decision(s, int(decision))
+
+
+def decisions_token(path: str, read_only: bool) -> tuple:
+    """Changes whenever a decision is recorded (a cache key part for what shows decisions)."""
+    from screenlab.store import decisions as D
+
+    with open_store(path, read_only) as s:
+        d = D.decisions(s, current_versions=False)
+    return (len(d), int(d["decision"].max()) if len(d) else 0)
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def round_links(path: str, read_only: bool, version: Any) -> pd.DataFrame:
+    """``campaign, parent, decision, imported_at`` of every campaign (links change only on import)."""
+    from screenlab.store import decisions as D
+
+    with open_store(path, read_only) as s:
+        return D.round_links(s)
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def all_catalysts(path: str, read_only: bool, version: Any) -> pd.DataFrame:
+    """``campaign, catalyst, alias, name, family`` over every stored campaign."""
+    from screenlab.store import decisions as D
+
+    with open_store(path, read_only) as s:
+        return D.all_catalysts(s)
+
+
+@st.cache_data(show_spinner=False, max_entries=32)
+def campaign_version(path: str, read_only: bool, version: Any, campaign: str) -> str:
+    """The campaign's version hash at data version ``version`` (what a decision is recorded against)."""
+    from screenlab.store import decisions as D
+
+    with open_store(path, read_only) as s:
+        return D.campaign_version(s, campaign)
+
+
+def own_settings_key(path: str, read_only: bool, version: Any, campaign: str) -> tuple:
+    """The settings key of a campaign's own settings (its [analysis] table over the defaults)."""
+    from screenlab.pipeline import settings_for
+
+    return settings_key(settings_for(campaign_data(path, read_only, version, campaign)))
+
+
+@st.cache_data(show_spinner="Gathering the catalyst's history ...", max_entries=32)
+def history(path: str, read_only: bool, version: Any, token: tuple, catalyst: str, k: int) -> pd.DataFrame:
+    """:func:`screenlab.stats.history.catalyst_history` of ``catalyst`` over every stored campaign,
+    each analysed and ranked (TOF at its reference temperature) with its own settings."""
+    from screenlab.stats.history import catalyst_history
+    from screenlab.store import decisions as D
+
+    def analysis_of(name):
+        return analysis(path, read_only, version, name, own_settings_key(path, read_only, version, name))
+
+    def ranking_of(name):
+        return ranking(path, read_only, version, name, own_settings_key(path, read_only, version, name), "tof",
+                       None, int(k))
+
+    with open_store(path, read_only) as s:
+        _, sources = D.history_sources(s, catalyst, analysis_of, ranking_of)
+    return catalyst_history(sources, top_k=int(k))
+
+
+@st.cache_data(show_spinner="Writing the report ...", max_entries=16)
+def report_html(path: str, read_only: bool, version: Any, token: tuple, campaign: str, skey: tuple, metric: str,
+                temperature_c: float | None, k: int, picked: tuple[str, ...], note: str, author: str,
+                decision: int | None) -> bytes:
+    """The campaign report (:func:`screenlab.export.report.campaign_report`) of the Shortlist page's
+    choice: the recorded ``decision`` when given, else the picks as a draft (not recorded)."""
+    from screenlab.export.decision import draft_decision
+    from screenlab.errors import NotFoundError
+    from screenlab.export.report import campaign_report, decision_from_draft
+    from screenlab.store import decisions as D
+
+    a = analysis(path, read_only, version, campaign, skey)
+    r = ranking(path, read_only, version, campaign, skey, metric, temperature_c, k)
+    with open_store(path, read_only) as s:
+        if decision is not None:
+            rec, rows = D.get_decision(s, int(decision))
+        else:
+            draft = draft_decision(r, list(picked), campaign=campaign, note=note, author=author, settings=a.settings,
+                                   top_k=k, draws=10000, seed=0, catalysts=a.data.catalysts,
+                                   campaign_version=campaign_version(path, read_only, version, campaign))
+            rec, rows = decision_from_draft(draft)
+        imports_, files = s.imports(campaign), s.import_files(campaign)
+        links = D.round_links(s)
+        m = a.data.manifest
+        parent = None
+        if m.parent:
+            parent = {"campaign": m.parent, "decision": m.decision, "record": None}
+            if m.decision is not None:
+                try:
+                    parent["record"] = D.get_decision(s, m.decision)[0]
+                except NotFoundError:  # a decision of another store: shown as "not in this store"
+                    pass
+        version_now = D.campaign_version(s, campaign)
+    children = links.loc[links["parent"].astype(object) == campaign, "campaign"].astype(str).tolist()
+    t = temperature_c if temperature_c is not None else (a.settings.reference_temperature_c
+                                                          if metric not in ("ea",) else None)
+    html = campaign_report(a, r, campaign=campaign, metric=metric, temperature_c=t, top_k=k, decision=rec,
+                           decision_rows=rows, imports=imports_, files=files, campaign_version=version_now,
+                           parent=parent, children=children)
+    return html.encode("utf-8")

@@ -24,6 +24,7 @@ def pages(read_only: bool) -> dict[str, list]:
     campaign = [p("campaigns", "Campaigns", "dashboard", default=True)]
     if not read_only:
         campaign.append(p("import_data", "Import", "upload"))
+    campaign.append(p("history", "Catalyst history", "history"))
     return {
         "Campaign": campaign,
         "Kinetics": [p("plate_map", "Plate map", "grid_on"), p("rates", "Rates", "table_chart"),

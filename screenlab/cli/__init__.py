@@ -18,6 +18,9 @@ COMMAND_MODULES = [
     "screenlab.cli.app_cmd",
     "screenlab.cli.kinetics_cmd",
     "screenlab.cli.stats_cmd",
+    "screenlab.cli.decisions_cmd",
+    "screenlab.cli.history_cmd",
+    "screenlab.cli.report_cmd",
     "screenlab.cli.backup_cmd",
     "screenlab.cli.flags_cmd",
 ]

@@ -77,6 +77,12 @@ def _aligned(frame) -> str:
             text = s.astype(object).where(s.notna(), "").astype(str)
             width = max([len(str(col))] + [len(t) for t in text])
             formatters[col] = (lambda w: lambda x: f"{'' if x is None or x is pd.NA or (isinstance(x, float) and x != x) else x!s:<{w}}")(width)
+        elif isinstance(s.dtype, pd.api.extensions.ExtensionDtype) and s.isna().any():
+            # nullable integers: a missing cell is blank (as na_rep makes it for floats), not "<NA>";
+            # to_string passes missing cells by the formatters, so the column goes in as padded text
+            text = s.astype(object).where(s.notna(), "").astype(str)
+            width = max([len(str(col))] + [len(t) for t in text])
+            frame = frame.assign(**{col: text.str.rjust(width)})
     return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", formatters=formatters,
                            justify="left")
 

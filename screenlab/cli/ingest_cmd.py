@@ -94,6 +94,9 @@ def run_ingest(args) -> int:
             done["failed"] += 1
             continue
         print(report.message)
+        m = result.data.manifest
+        if m.parent and report.status != "unchanged":  # the round link kept with the manifest
+            print(f"{m.name}: next round of {m.parent}" + (f", decision {m.decision}" if m.decision else ""))
         done["ok"] += 1
     if done["ok"] + done["failed"] > 1:
         print(f"{done['ok'] + done['failed']} campaigns: {done['ok']} {'checked' if args.dry_run else 'done'}, "

@@ -3,7 +3,8 @@
 quality    one row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status
 rank       candidates ranked by TOF, enhancement, Ea or TON with rank intervals and P(best)
            (``--pareto``: the Pareto set over TOF, enhancement and Ea instead)
-shortlist  the top K as CSV / XLSX / Parquet plus a next-round campaign folder
+shortlist  the top K as CSV / XLSX / Parquet plus a next-round campaign folder; with ``--note`` the
+           shortlist is also recorded in the store as a decision (see ``screenlab decisions``)
 """
 from __future__ import annotations
 
@@ -63,7 +64,9 @@ def register(sub) -> None:
                        description="Writes shortlist.csv, shortlist.xlsx (kinetics per temperature, provenance, "
                        "safety), shortlist.parquet and SAFETY.txt in --out, and a next-round campaign folder in "
                        "--out/next-round (candidates in replicate over a temperature series, a loading series, "
-                       "benchmark and blanks on every plate, outer ring left empty).")
+                       "benchmark and blanks on every plate, outer ring left empty). With --note the shortlist is "
+                       "also recorded in the store as a decision (screenlab decisions lists it) and the next "
+                       "round's campaign.toml names it.")
     _campaign(s)
     s.add_argument("--by", metavar="METRIC", choices=METRIC_CHOICES, default="tof", help="ranking metric (default tof)")
     _ranking_options(s, top_required=True)
@@ -73,6 +76,9 @@ def register(sub) -> None:
     s.add_argument("--replicates", metavar="N", type=int, default=3, help="wells per candidate and condition (default 3)")
     s.add_argument("--format-wells", dest="plate_format", metavar="N", type=int, default=96,
                    choices=(24, 48, 96, 384), help="next-round plate format (default 96)")
+    from screenlab.cli.decisions_cmd import add_record_options
+
+    add_record_options(s)
     s.set_defaults(func=run_shortlist)
 
 
@@ -157,6 +163,17 @@ def run_shortlist(args) -> int:
     temps = _temperatures(args.temperatures)
     if args.replicates < 1:
         raise UsageError(f"--replicates {args.replicates}: give at least 1")
+    record = args.note is not None
+    if not record and (args.author is not None or args.supersedes is not None):
+        raise UsageError("--author and --supersedes go with --note (recording the decision)")
+    if record and not args.note.strip():
+        raise UsageError("--note: give a note saying why these catalysts (it is kept with the decision)")
+    version = None
+    if record:  # the version the analysis is made on: the store refuses to record if it changes meanwhile
+        from screenlab.cli.decisions_cmd import _store
+        from screenlab.store.decisions import campaign_version
+
+        version = campaign_version(_store(args, read_only=False), args.campaign)
     a, imports, files = _load(args, history=True)
     r = _rank(a, args.by, args)
     picks = r[r["rank"].notna() & (r["role"] != "reference")]["catalyst"].head(args.top).tolist()
@@ -165,15 +182,31 @@ def run_shortlist(args) -> int:
     front = pareto(a.kinetics, a.quality, at_temperature_c=args.at_temperature, draws=min(args.draws, 2000),
                    seed=args.seed, confidence=a.settings.confidence, catalysts=a.data.catalysts)
     out = Path(args.out)
+    try:  # before anything is recorded: a folder that cannot be written stops here
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"--out {out}: cannot write there ({exc.strerror or exc})") from None
     t_rank = args.at_temperature if args.at_temperature is not None else a.settings.reference_temperature_c
+    recorded = None
+    if record:
+        from screenlab.cli.decisions_cmd import record_shortlist
+
+        recorded = record_shortlist(args, a, r, picks, version, next_round_temperatures=temps)
+    options = {"at_temperature_c": t_rank, "draws": args.draws, "seed": args.seed}
+    if recorded is not None:
+        options.update({"decision": recorded.decision, "note": args.note.strip(),
+                        "campaign_version": recorded.campaign_version})
     paths = write_shortlist(out, r, a.kinetics, campaign=args.campaign, top_k=args.top, catalysts=a.data.catalysts,
-                            quality=a.quality, pareto=front, imports=imports, import_files=files,
-                            options={"at_temperature_c": t_rank, "draws": args.draws, "seed": args.seed})
+                            quality=a.quality, pareto=front, imports=imports, import_files=files, options=options)
     folder = design_next_round(out / "next-round", a.data, picks, temperatures_c=temps, replicates=args.replicates,
-                               fmt=args.plate_format, seed=args.seed)
+                               fmt=args.plate_format, seed=args.seed,
+                               decision=None if recorded is None else recorded.decision)
     for p in paths.values():
         print(p)
     print(folder)
+    if recorded is not None:
+        print(recorded.message + f"; the next round names it in campaign.toml ([campaign] decision = "
+              f"{recorded.decision})")
     if len(picks) < args.top:
         print(f"note: only {len(picks)} candidates could be ranked (asked for {args.top})", file=sys.stderr)
     return 0

@@ -59,7 +59,7 @@ def _toml(doc: dict) -> str:
     return "\n".join(lines)
 
 
-def _manifest(data, name: str, description: str) -> str:
+def _manifest(data, name: str, description: str, decision: int | None = None) -> str:
     m = data.manifest
     src = {}
     if m.source_toml:
@@ -70,7 +70,9 @@ def _manifest(data, name: str, description: str) -> str:
     readout = {"kind": m.readout_kind, "scale": m.readout_scale, "product_per_substrate": m.product_per_substrate,
                "epsilon_M_cm": m.epsilon_M_cm, "path_length_cm": m.path_length_cm,
                "linear_range_max": m.linear_range_max}
-    doc = {"campaign": {"name": name, "description": description, "reaction": m.reaction or None},
+    # the round link (keys of our own): this round follows data's campaign, from decision N when recorded
+    doc = {"campaign": {"name": name, "description": description, "reaction": m.reaction or None,
+                        "parent": data.name, "decision": None if decision is None else int(decision)},
            "units": {"time": m.time_unit, "concentration": "mM", "volume": "uL"},
            "readout": readout}
     analysis = dict(m.analysis or src.get("analysis", {}))
@@ -94,13 +96,15 @@ def _standard_conditions(data, catalysts: list[str], factors: list[str]) -> pd.D
 def design_next_round(out_dir, data, candidates, *, reference: str | None = None, temperatures_c=None,
                       replicates: int = 3, n_reference: int = 4, n_blanks: int = 4,
                       loading_factors=(0.5, 2.0), loading_temperature_c: float | None = None,
-                      fmt: int = 96, seed: int = 0, name: str | None = None) -> Path:
+                      fmt: int = 96, seed: int = 0, name: str | None = None, decision: int | None = None) -> Path:
     """Write the next-round campaign folder for ``candidates`` (catalyst ids) into ``out_dir``.
 
     ``data`` is the source :class:`~screenlab.model.CampaignData` (standard conditions, catalyst
     rows, manifest). ``reference`` defaults to the source campaign's most-used benchmark;
     ``temperatures_c`` to its plate temperatures. ``loading_factors=()`` drops the loading
-    series. Returns the folder path. See the module docstring for the design.
+    series. ``[campaign] parent`` of the new manifest names ``data``'s campaign, and ``decision``
+    (the recorded decision the candidates come from, when given) goes in ``[campaign] decision``.
+    Returns the folder path. See the module docstring for the design.
     """
     cands = [str(c) for c in dict.fromkeys(candidates)]
     if not cands:
@@ -180,13 +184,15 @@ def design_next_round(out_dir, data, candidates, *, reference: str | None = None
 
     cats = data.catalysts[data.catalysts["catalyst"].astype(str).isin(cands + ([reference] if reference else []))]
     name = name or f"{data.name}-next"
+    if name == data.name:
+        raise UsageError(f"the next round needs a name of its own (not {data.name!r}, the campaign it follows)")
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     desc = (f"Next round of {data.name}: {len(cands)} shortlisted candidates x {replicates} wells at "
             f"{', '.join(f'{t:g}' for t in temps)} degC" + (f", loading x{', x'.join(f'{f:g}' for f in loading_factors)}"
                                                           f" at {t_load:g} degC" if series else "")
             + f"; benchmark {reference} and blanks on every plate; outer ring empty; positions seed {seed}")
-    (out / "campaign.toml").write_text(_manifest(data, name, desc), encoding="utf-8")
+    (out / "campaign.toml").write_text(_manifest(data, name, desc, decision), encoding="utf-8")
     neutralise_frame(cats).to_csv(out / "catalysts.csv", index=False)
     neutralise_frame(pd.DataFrame(plates)).to_csv(out / "plates.csv", index=False)
     neutralise_frame(layout).to_csv(out / "layout.csv", index=False)

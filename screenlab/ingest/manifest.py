@@ -107,6 +107,21 @@ def parse_manifest(data: bytes | None, problems: list[Problem]) -> tuple[Manifes
         bad("campaign", "name", "", "the campaign name must not be empty")
     description = text_key(camp, "campaign", "description", False) or ""
     reaction = text_key(camp, "campaign", "reaction", False) or ""
+    # round links (keys of our own): the campaign this round follows and the decision it came from
+    parent = text_key(camp, "campaign", "parent", False) or None
+    if parent is not None and name and parent == name:
+        bad("campaign", "parent", parent,
+            "'parent' names the campaign before this one; it cannot be the campaign itself")
+    decision = None
+    if "decision" in camp:
+        v = camp["decision"]
+        if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+            bad("campaign", "decision", v, "'decision' must be the number of a recorded decision (an integer >= 1, "
+                                           "as 'screenlab decisions' lists it)")
+        elif parent is None:
+            bad("campaign", "decision", v, "'decision' names a decision of the parent campaign; give 'parent' too")
+        else:
+            decision = int(v)
 
     # units
     ut = table("units", True)
@@ -243,6 +258,6 @@ def parse_manifest(data: bytes | None, problems: list[Problem]) -> tuple[Manifes
         epsilon_M_cm=eps, path_length_cm=path, linear_range_max=linear_max, description=description, reaction=reaction,
         time_unit=info["time_unit"], concentration_unit=info["conc_unit"], volume_unit=info["volume_unit"],
         analysis=dict(an), analyte_main=main, byproducts=byproducts, enantiomers=enantiomers,
-        source_toml=text,
+        source_toml=text, parent=parent, decision=decision,
     )
     return manifest, info

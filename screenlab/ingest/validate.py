@@ -51,6 +51,8 @@ _NAN_WORDS = ("nan", "+nan", "-nan")
 
 CATALYST_COLUMNS = ("catalyst", "name", "family", "molar_mass_g_mol", "sites_per_unit", "metal_wt_pct",
                     "metal_molar_mass_g_mol", "dispersion")
+#: optional catalysts.csv column (a key of our own): the id the catalyst had in an earlier campaign
+ALIAS_COLUMN = "alias"
 PLATE_COLUMNS = ("plate", "format", "temperature_c", "run_date", "notes")
 LAYOUT_COLUMNS = ("plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc", "volume",
                   "temperature_c")
@@ -311,7 +313,7 @@ def extra_columns_note(ch: Checker, known) -> list[str]:
 # --------------------------------------------------------------------------- catalysts
 def check_catalysts(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFrame, list[str]]:
     ch = Checker(table, problems)
-    notes = extra_columns_note(ch, CATALYST_COLUMNS)
+    notes = extra_columns_note(ch, CATALYST_COLUMNS + (ALIAS_COLUMN,))
     if not ch.require_columns(["catalyst"]):
         return _empty_catalysts(), notes
     cid = ch.text("catalyst")
@@ -341,6 +343,15 @@ def check_catalysts(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFr
     out["metal_wt_pct"] = wt
     out["metal_molar_mass_g_mol"] = mmm
     out["dispersion"] = np.where(np.isnan(disp), 1.0, disp)
+    if ALIAS_COLUMN in ch.f.columns:  # only when the file has it, so older campaigns keep their frame
+        alias = ch.text(ALIAS_COLUMN)
+        given = (alias != "").to_numpy()
+        ch.report(given & (alias == cid).to_numpy(), ALIAS_COLUMN,
+                  "the alias (the id this catalyst had before) is the catalyst's own id")
+        ch.report(given & (alias != cid).to_numpy() & alias.isin(set(cid[~missing])).to_numpy(), ALIAS_COLUMN,
+                  "the alias is the id of another catalyst in this file; an alias names the id this catalyst "
+                  "had in an earlier campaign")
+        out[ALIAS_COLUMN] = _str_or_na(alias)
     return pd.DataFrame(out).reset_index(drop=True), notes
 
 

@@ -1,4 +1,5 @@
-"""The DuckDB store (the only package that imports duckdb). See :mod:`screenlab.store.db`."""
+"""The DuckDB store (the only package that imports duckdb). See :mod:`screenlab.store.db`;
+recorded decisions, round links and cross-campaign catalyst look-ups: :mod:`screenlab.store.decisions`."""
 from __future__ import annotations
 
 from screenlab.store.db import (

@@ -70,7 +70,8 @@ _LOCK_WORDS = ("could not set lock", "conflicting lock")
 # Canonical columns of the CampaignData frames (see screenlab.model.CampaignData), with the kind
 # each is stored as: "s" text, "f" float, "i" integer.
 CATALYST_COLS = {"catalyst": "s", "name": "s", "family": "s", "molar_mass_g_mol": "f", "sites_per_unit": "f",
-                 "metal_wt_pct": "f", "metal_molar_mass_g_mol": "f", "dispersion": "f"}
+                 "metal_wt_pct": "f", "metal_molar_mass_g_mol": "f", "dispersion": "f",
+                 "alias": "s"}  # alias: schema 2 (catalysts.csv column of our own; absent from older frames)
 PLATE_COLS = {"plate": "s", "format": "i", "n_rows": "i", "n_cols": "i", "temperature_c": "f",
               "run_date": "s", "notes": "s"}
 WELL_COLS = {"plate": "s", "well": "s", "row": "i", "col": "i", "role": "s", "catalyst": "s", "loading": "f",
@@ -395,7 +396,7 @@ def plate_fingerprints(plates: pd.DataFrame, wells: pd.DataFrame, factors: pd.Da
 
 #: Manifest fields added after stores were first written: left out of the stored dict (and so of
 #: the fingerprint) while they hold their default None, so an unchanged campaign stays unchanged
-_LATER_MANIFEST_FIELDS = ("linear_range_max",)
+_LATER_MANIFEST_FIELDS = ("linear_range_max", "parent", "decision")
 
 
 def _manifest_dict(m: Manifest) -> dict:
@@ -784,12 +785,14 @@ class Store:
             return [r[0] for r in con.execute(Q.CAMPAIGN_NAMES).fetchall()]
 
     def campaigns(self) -> pd.DataFrame:
-        """One row per campaign (current data only): ``campaign, description, readout_kind, plates,
-        wells, readings, catalysts, analytes, imported_at, updated_at, imports`` (times UTC)."""
+        """One row per campaign (current data only): ``campaign, description, readout_kind, parent,
+        parent_decision, plates, wells, readings, catalysts, analytes, imported_at, updated_at, imports``
+        (times UTC; ``parent`` / ``parent_decision``: the round link of the manifest, else missing)."""
         with self._connect() as con:
             frame = con.execute(Q.CAMPAIGNS_SUMMARY).df()
         for c in ("plates", "wells", "readings", "catalysts", "analytes", "imports"):
             frame[c] = frame[c].astype("int64")
+        frame["parent_decision"] = frame["parent_decision"].astype("Int64")
         return frame
 
     def imports(self, campaign: str | None = None) -> pd.DataFrame:
@@ -809,7 +812,8 @@ class Store:
 
     def table_counts(self) -> dict[str, int]:
         """Row counts of every data table, current and superseded (diagnostics, tests)."""
-        names = ("campaigns", "catalysts", "plates", "wells", "well_factors", "readings", "imports", "import_files")
+        names = ("campaigns", "catalysts", "plates", "wells", "well_factors", "readings", "imports", "import_files",
+                 "decisions", "decision_catalysts")
         with self._connect() as con:
             return dict(zip(names, (int(v) for v in con.execute(Q.TABLE_COUNTS).fetchall()[0])))
 
@@ -940,6 +944,9 @@ class Store:
         stored plates, else after the wells and readings are written. ``whole`` holds the
         prepared wells, factors and readings as Arrow tables, written when every plate is."""
         name = data.manifest.name
+        from screenlab.store.decisions import check_round_link
+
+        check_round_link(con, data.manifest)  # a [campaign] decision the store holds for another campaign
         head = con.execute(Q.CURRENT_HEADER, [name]).df()
         new_campaign = head.empty
         manifest_fp = _manifest_fingerprint(data.manifest)

@@ -49,7 +49,7 @@ CAMPAIGN_NAMES = "SELECT campaign FROM current_campaigns ORDER BY campaign"
 CURRENT_HEADER = "SELECT * FROM current_campaigns WHERE campaign = ?"
 CURRENT_CATALYSTS = """
 SELECT catalyst, name, family, molar_mass_g_mol, sites_per_unit, metal_wt_pct,
-       metal_molar_mass_g_mol, dispersion
+       metal_molar_mass_g_mol, dispersion, alias
 FROM current_catalysts WHERE campaign = ? ORDER BY seq"""
 CURRENT_PLATE_FINGERPRINTS = "SELECT plate, fingerprint, import_id FROM current_plates WHERE campaign = ?"
 CURRENT_PLATES = """
@@ -77,6 +77,8 @@ WITH pl AS (SELECT campaign, count(*) AS plates FROM current_plates GROUP BY cam
                    count(*) AS imports
             FROM imports GROUP BY campaign)
 SELECT h.campaign, h.description, h.readout_kind,
+       json_extract_string(h.manifest_json, '$.parent') AS parent,
+       TRY_CAST(json_extract_string(h.manifest_json, '$.decision') AS BIGINT) AS parent_decision,
        coalesce(pl.plates, 0) AS plates, coalesce(we.wells, 0) AS wells,
        coalesce(re.readings, 0) AS readings, coalesce(ca.catalysts, 0) AS catalysts,
        coalesce(re.analytes, 0) AS analytes,
@@ -103,7 +105,8 @@ NEXT_IMPORT_ID = "SELECT coalesce(max(import_id), 0) + 1 FROM imports"
 TABLE_COUNTS = """
 SELECT (SELECT count(*) FROM campaigns), (SELECT count(*) FROM catalysts), (SELECT count(*) FROM plates),
        (SELECT count(*) FROM wells), (SELECT count(*) FROM well_factors), (SELECT count(*) FROM readings),
-       (SELECT count(*) FROM imports), (SELECT count(*) FROM import_files)"""
+       (SELECT count(*) FROM imports), (SELECT count(*) FROM import_files),
+       (SELECT count(*) FROM decisions), (SELECT count(*) FROM decision_catalysts)"""
 
 # --- fingerprint upgrade: every stored plate version (current and superseded), keyed by
 # (campaign, plate, import_id); see Store._refresh_fingerprints -------------------------------
@@ -146,9 +149,9 @@ INSERT INTO import_files (import_id, seq, name, sha256, n_rows)
 SELECT import_id, seq, name, sha256, n_rows FROM incoming_import_files""",
     "catalysts": """
 INSERT INTO catalysts (campaign, import_id, seq, catalyst, name, family, molar_mass_g_mol, sites_per_unit,
-                       metal_wt_pct, metal_molar_mass_g_mol, dispersion)
+                       metal_wt_pct, metal_molar_mass_g_mol, dispersion, alias)
 SELECT $campaign::VARCHAR, $import_id::BIGINT, seq, catalyst, name, family, molar_mass_g_mol, sites_per_unit,
-       metal_wt_pct, metal_molar_mass_g_mol, dispersion FROM incoming_catalysts""",
+       metal_wt_pct, metal_molar_mass_g_mol, dispersion, alias FROM incoming_catalysts""",
     "plates": """
 INSERT INTO plates (campaign, plate, import_id, superseded_by, seq, fingerprint, format, n_rows, n_cols,
                     temperature_c, run_date, notes)

@@ -85,3 +85,40 @@ def pareto_section(ctx, analysis, temperature) -> None:
                    "(point estimates). P(front): share of joint draws from the estimates' uncertainty in which the "
                    "candidate is on the front." + (" The plot shows the first two metrics." if len(chosen) == 3 else ""))
     widgets.table(front, key="rank_pareto_table")
+
+
+#: catalysts linked one by one; more get a picker and one link
+HISTORY_LINKS_MAX = 8
+
+
+def history_links(catalysts, key: str, *, label: str = "Catalyst history across campaigns") -> None:
+    """Links from catalyst names to the Catalyst history page (``?catalyst=ID``)."""
+    ids = [str(c) for c in dict.fromkeys(catalysts) if c is not None and str(c)]
+    if not ids:
+        return
+    st.markdown(f"**{label}**")
+    if len(ids) <= HISTORY_LINKS_MAX:
+        cols = st.columns(len(ids))
+        for col, cid in zip(cols, ids):
+            col.page_link("app_pages/history.py", label=cid, icon=":material/history:",
+                          query_params={"catalyst": cid})
+        return
+    c1, c2 = st.columns([2, 3])
+    pick = c1.selectbox("Catalyst", ids, key=f"{key}_pick", label_visibility="collapsed")
+    c2.page_link("app_pages/history.py", label=f"History of {pick}", icon=":material/history:",
+                 query_params={"catalyst": pick})
+
+
+def _choose_campaign(name: str) -> None:
+    st.session_state["sl_campaign"] = name  # a callback: runs before the sidebar's picker is drawn
+
+
+def campaign_button(name: str, key: str, *, label: str | None = None, icon: str = ":material/arrow_back:",
+                    page: str = "app_pages/campaigns.py") -> None:
+    """A button that makes ``name`` the sidebar's campaign and opens ``page`` (the campaign's page)."""
+    names = set(st.session_state.get(widgets.CTX_KEY).campaign_names) if widgets.CTX_KEY in st.session_state else set()
+    if name not in names:
+        st.caption(f"{name} (not in this store)")
+        return
+    if st.button(label or name, key=key, icon=icon, on_click=_choose_campaign, args=(name,)):
+        st.switch_page(page)

@@ -84,3 +84,4 @@ widgets.table(r.rename(columns={"estimate": col, "ci_low": lo, "ci_high": hi}), 
                        "p_beats_reference", "n", "temperature_c", "basis", "reason", "flags"])
 st.session_state["rank_last"] = {"metric": metric, "temperature": temperature, "k": k}
 widgets.flag_glossary(r["flags"])
+_common.history_links(r["catalyst"].astype(str).tolist(), key="rank_history")

@@ -6,6 +6,7 @@ import pandas as pd
 import streamlit as st
 
 from screenlab.app import widgets
+from screenlab.app.app_pages import _common
 from screenlab.viz import figures
 
 ctx = widgets.context()
@@ -61,6 +62,7 @@ show = ["catalyst", "family", "role", "temperature_c", "loading", "loading_unit"
 sel = widgets.table(view.reset_index(drop=True), key="rates_table", columns=show, on_select="rerun",
                     selection_mode="single-row", height=420)
 widgets.flag_glossary(view["flags"])
+_common.history_links(view["catalyst"].dropna().astype(str).tolist(), key="rates_history")
 
 st.subheader("Replicate time courses")
 rows = sel.selection.rows if sel is not None and hasattr(sel, "selection") else []

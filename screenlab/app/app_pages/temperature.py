@@ -6,6 +6,7 @@ import pandas as pd
 import streamlit as st
 
 from screenlab.app import cache, widgets
+from screenlab.app.app_pages import _common
 from screenlab.viz import figures
 
 UNCAT = "(uncatalysed)"
@@ -60,6 +61,7 @@ cols = ["catalyst", "role", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mol",
         "tof_ref_ci_high", "curvature_p", "flags"]
 tab = arr[arr["catalyst"].astype(str).isin([*chosen, UNCAT])]
 widgets.table(tab, key="arrh_table", columns=cols)
+_common.history_links(chosen, key="arrh_history")
 st.caption(f"Ea from ln TOF = ln A - Ea/RT; ΔH‡, ΔS‡ from the Eyring equation ln(TOF/T) = ln(k_B/h) + ΔS‡/R - "
            f"ΔH‡/RT; ΔG‡ and TOF at the reference temperature {ctx.settings.reference_temperature_c:g} °C. "
            "curvature p: test of a quadratic term in 1/T (small p: the plot bends; a change of mechanism or "
