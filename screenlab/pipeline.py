@@ -38,9 +38,13 @@ def settings_for(data: CampaignData, **overrides: Any) -> AnalysisSettings:
 def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **overrides: Any) -> Analysis:
     """Run kinetics and plate quality for ``data``.
 
+    Where plate quality finds an edge effect on a plate that also has interior blanks, its ring
+    blanks are left out of the blank means and everything from the blank step on is done again
+    (:func:`edge_blanks`; flag ``blank_left_out``).
+
     ``settings`` defaults to :func:`settings_for` (``overrides`` are applied on top of it).
     """
-    from screenlab.kinetics import analyse_kinetics
+    from screenlab.kinetics import analyse_kinetics, without_blank_wells
     from screenlab.stats.quality import control_chart, plate_quality
 
     if settings is None:
@@ -49,5 +53,37 @@ def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **over
         settings = AnalysisSettings.from_mapping(settings.to_dict(), **overrides)
     kin = analyse_kinetics(data, settings)
     quality = plate_quality(data, kin, settings)
+    drop = edge_blanks(kin, data, quality)
+    if drop is not None:
+        # a plate's ring reads differently from its interior: its ring blanks would misstate the
+        # background of the interior wells and pull the uncatalysed Arrhenius line; leave them out
+        kin = without_blank_wells(kin, data, drop)
+        quality = plate_quality(data, kin, settings)
     control = control_chart(kin, data)
     return Analysis(data=data, settings=settings, kinetics=kin, quality=quality, control=control)
+
+
+def edge_blanks(kin, data: CampaignData, quality: pd.DataFrame):
+    """One bool per row of ``kin.per_well``: the blank wells on the outer ring of a plate flagged
+    ``edge_effect`` that has blanks in its interior too (else None: nothing to leave out)."""
+    import numpy as np
+
+    from screenlab.plates import is_edge
+
+    if quality is None or not len(quality) or not len(kin.per_well):
+        return None
+    flagged = quality.loc[quality["flags"].astype(str).str.split(";").apply(lambda f: "edge_effect" in f), "plate"]
+    if not len(flagged):
+        return None
+    w = kin.per_well
+    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy()
+    ring = np.zeros(len(w), dtype=bool)
+    known = ~pd.isna(fmt)
+    ring[known] = is_edge(w["row"].to_numpy()[known], w["col"].to_numpy()[known], fmt[known].astype(np.int64))
+    blank = (w["role"].astype(str) == "blank").to_numpy()
+    on_plate = w["plate"].isin(set(flagged.astype(str))).to_numpy()
+    drop = blank & ring & on_plate
+    # keep a plate's ring blanks when it has no interior blank to take their place
+    interior = pd.Series(blank & ~ring & on_plate).groupby(w["plate"].to_numpy()).any()
+    drop &= w["plate"].map(interior).fillna(False).to_numpy(dtype=bool)
+    return drop if drop.any() else None

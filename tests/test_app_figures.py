@@ -77,14 +77,26 @@ def test_forest_plot_orders_by_rank_and_draws_the_interval():
 
 
 def test_fitted_course_follows_the_core_parameters():
-    line, label = figures.fitted_course(pd.Series({"method": "initial_slope", "rate_mM_per_h": 2.0,
-                                                   "intercept_mM": 0.5, "window_end_h": 3.0}), t_end_h=10.0)
-    assert np.allclose(line["time_h"], [0, 3]) and np.allclose(line["product_mM"], [0.5, 6.5])
-    curve, label = figures.fitted_course(pd.Series({"method": "first_order", "rate_mM_per_h": 20.0,
-                                                    "plateau_mM": 100.0, "k_per_h": 0.2}), t_end_h=10.0)
-    # P = P_inf (1 - exp(-k t)); at t = 10 h: 100 (1 - e^-2) = 86.466 mM
+    # first order, plateau at the theoretical maximum: P = S0 (1 - exp(-k t)); at t = 10 h with
+    # k = 0.2 h-1: 100 (1 - e^-2) = 86.466 mM (the integrated first-order law)
+    curve, label = figures.fitted_course(pd.Series({"method": "first_order", "rate_mM_per_h": 20.0, "law_p1": 0.2,
+                                                    "law_p2": np.nan, "law_capped": True,
+                                                    "substrate_conc_mM": 100.0}), t_end_h=10.0)
     assert np.isclose(curve["product_mM"].iloc[-1], 100.0 * (1 - np.exp(-2.0)))
-    assert "first-order" in label
+    assert "first order" in label
+    # zero order runs out at t = 1/r: 0.25 h-1 -> flat at 100 mM from 4 h
+    curve, _ = figures.fitted_course(pd.Series({"method": "zero_order", "rate_mM_per_h": 25.0, "law_p1": 0.25,
+                                                "law_capped": True, "substrate_conc_mM": 100.0}), t_end_h=10.0)
+    assert np.isclose(curve["product_mM"].max(), 100.0) and np.isclose(curve["product_mM"].iloc[-1], 100.0)
+    # the early quadratic stops at the end of its window
+    curve, _ = figures.fitted_course(pd.Series({"method": "early_polynomial", "rate_mM_per_h": 2.0, "law_p1": 2.0,
+                                                "law_p2": -0.1, "law_capped": False, "window_end_h": 3.0}),
+                                     t_end_h=10.0)
+    assert np.isclose(curve["time_h"].max(), 3.0) and np.isclose(curve["product_mM"].iloc[-1], 2.0 * 3 - 0.1 * 9)
+    # a bound: the chord to the first reading, labelled as a bound
+    line, label = figures.fitted_course(pd.Series({"method": "first_reading", "rate_mM_per_h": 180.0,
+                                                   "first_time_h": 0.5}), t_end_h=10.0)
+    assert np.allclose(line["product_mM"], [0.0, 90.0]) and "≥" in label
 
 
 def test_arrhenius_axes_share_their_span_so_slopes_compare():

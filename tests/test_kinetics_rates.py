@@ -213,3 +213,10 @@ def test_the_early_window_setting_is_honoured():
     wide = well_rates(make([t] * 3, y), AnalysisSettings(conversion_window_pct=90.0))
     assert (narrow["method"] == "early_polynomial").all()
     assert (narrow["window_points"] < wide["window_points"]).all()
+
+
+def test_a_planned_campaign_without_readings_gets_no_rates_and_no_errors():
+    d = make([np.zeros(0), np.zeros(0)], [np.zeros(0), np.zeros(0)], catalysts=["A", "B"])
+    out = well_rates(d)
+    assert out["method"].tolist() == ["no_data", "no_data"] and out["rate_mM_per_h"].isna().all()
+    assert all("no_readings" in flags_of(out, i) for i in range(2))

@@ -42,6 +42,9 @@ class KineticsResult:
     orders: pd.DataFrame
     settings: AnalysisSettings
     selectivity: pd.DataFrame = field(default_factory=pd.DataFrame)
+    #: the rate step's per-well frame (screenlab.kinetics.rates.well_rates), kept so the stages
+    #: after it can be run again (see :func:`without_blank_wells`)
+    per_well: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
 
 
 def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> KineticsResult:
@@ -51,24 +54,38 @@ def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> Kinetics
     """
     from screenlab.kinetics import amounts as _amounts
     from screenlab.kinetics import rates as _rates
-    from screenlab.kinetics.arrhenius import arrhenius_table
-    from screenlab.kinetics.orders import apparent_orders
     from screenlab.kinetics.selectivity import well_selectivity
-    from screenlab.kinetics.turnover import blank_rates, group_rates, well_turnover
 
     if settings is None:
         settings = AnalysisSettings.from_mapping(data.manifest.analysis)
     amounts = _amounts.product_amounts(data)
     per_well = _rates.well_rates(data, settings, amounts=amounts)
-    blanks = blank_rates(per_well, settings)
-    wells = well_turnover(data, per_well, blanks, settings)
     selectivity = well_selectivity(data, amounts, settings)
+    return _after_rates(data, settings, amounts, per_well, selectivity)
+
+
+def _after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None) -> KineticsResult:
+    """Blanks, turnover, groups, Arrhenius and orders on top of the per-well rates."""
+    from screenlab.kinetics.arrhenius import arrhenius_table
+    from screenlab.kinetics.orders import apparent_orders
+    from screenlab.kinetics.turnover import blank_rates, group_rates, well_turnover
+
+    blanks = blank_rates(per_well, settings, exclude=drop_blank)
+    wells = well_turnover(data, per_well, blanks, settings, excluded_blanks=drop_blank)
     groups = group_rates(wells, settings, factor_names=data.factor_names, selectivity=selectivity)
     arr = arrhenius_table(groups, blanks, settings)
     groups = with_plate_scatter(groups, arr, settings)
     orders = apparent_orders(wells, settings, factor_names=data.factor_names)
     return KineticsResult(amounts=amounts, wells=wells, blanks=blanks, rates=groups, arrhenius=arr,
-                          orders=orders, settings=settings, selectivity=selectivity)
+                          orders=orders, settings=settings, selectivity=selectivity, per_well=per_well)
+
+
+def without_blank_wells(kin: KineticsResult, data, drop) -> KineticsResult:
+    """The same analysis with some blank wells left out of the blank means (``drop``: one bool per
+    row of ``kin.per_well``), from the blank step on; the rate fits are not repeated. The dropped
+    wells keep their rows, flagged ``blank_left_out``."""
+    return _after_rates(data, kin.settings, kin.amounts, kin.per_well, kin.selectivity,
+                        drop_blank=np.asarray(drop, dtype=bool))
 
 
 def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: AnalysisSettings) -> pd.DataFrame:
@@ -111,4 +128,4 @@ def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: Analys
     return out
 
 
-__all__ = ["KineticsResult", "analyse_kinetics", "with_plate_scatter"]
+__all__ = ["KineticsResult", "analyse_kinetics", "with_plate_scatter", "without_blank_wells"]

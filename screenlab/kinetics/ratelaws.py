@@ -98,6 +98,11 @@ class Courses:
     def rowsum(self, v: np.ndarray) -> np.ndarray:
         return v @ np.ones(v.shape[1]) if v.shape[1] else np.zeros(v.shape[0])
 
+    def subset(self, rows: np.ndarray) -> "Courses":
+        """The courses of the wells ``rows`` (an index array), in that order."""
+        return Courses(t=self.t[rows], y=self.y[rows], w=self.w[rows], n=self.n[rows], capped=self.capped[rows],
+                       t_first=self.t_first[rows], t_max=self.t_max[rows])
+
     def flat(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """The fitted readings as flat (t, y, well) arrays, wells in order."""
         idx = np.nonzero(self.w > 0)
@@ -118,7 +123,8 @@ def dense_courses(t, y, g, n_wells: int, capped, keep=None) -> Courses:
         order = np.argsort(g, kind="stable")
         t, y, g, ok = t[order], y[order], g[order], ok[order]
     cnt = np.bincount(g, minlength=G)
-    m = int(cnt.max()) if G and cnt.size else 0
+    # at least one slot (weight 0 when there is no reading at all: a planned campaign)
+    m = max(int(cnt.max()) if G and cnt.size else 0, 1)
     starts = np.concatenate(([0], np.cumsum(cnt)[:-1])) if G else np.zeros(0, np.int64)
     pos = np.arange(g.size) - starts[g]
     T = np.zeros((G, m))
@@ -251,7 +257,7 @@ def _first_order(c: Courses, fixed: bool) -> _fit.FirstOrderFit:
     G = c.shape[0]
     t, y, g = c.flat()
     plateau = np.where(c.capped, 1.0, np.nan) if fixed else None
-    return _fit.fit_first_order(t, y, g, G, plateau=plateau)
+    return _fit.fit_first_order(t, y, g, G, plateau=plateau, n_grid=8, n_golden=4)
 
 
 def fit_first_order(c: Courses) -> LawFit:
@@ -277,67 +283,70 @@ def fit_first_order_plateau(c: Courses) -> LawFit:
 def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
     """Levenberg-Marquardt on two parameters per well (Marquardt 1963), all wells at once.
 
-    ``model(th1, th2, state) -> (pred, d pred/d th1, d pred/d th2, state)`` on the (G, m) grid;
-    ``bounds`` = (lo1, hi1, lo2, hi2) per-well arrays. A step is kept only where it lowers the
-    RSS (damping down by 3), else the damping goes up by 8. Returns th1, th2, rss, the 2 x 2
-    unscaled inverse (J^T J)^-1 as (i11, i12, i22), a singular mask and at-bound masks.
+    ``model(th1, th2, state, rows) -> (pred, d pred/d th1, d pred/d th2, state)`` on the wells
+    ``rows`` (index array) of the (G, m) grid; ``bounds`` = (lo1, hi1, lo2, hi2) per-well arrays.
+    A step is kept only where it lowers the RSS (damping down by 3), else the damping goes up by
+    8; a parameter at an end of its range that the step would push out stays there and the other
+    one takes a one-parameter step (a projected step). Each iteration works on the wells not yet
+    settled only. Returns th1, th2, rss, the 2 x 2 unscaled inverse (J^T J)^-1 as (i11, i12, i22),
+    a singular mask and at-bound masks.
     """
     Y, W = c.y, c.w
-    lo1, hi1, lo2, hi2 = bounds
+    G = c.shape[0]
+    lo1, hi1, lo2, hi2 = (np.broadcast_to(np.asarray(v, dtype=float), (G,)) for v in bounds)
     th1 = np.clip(th1, lo1, hi1)
     th2 = np.clip(th2, lo2, hi2)
-    pred, j1, j2, state = model(th1, th2, None)
+    every = np.arange(G)
+    pred, j1, j2, state = model(th1, th2, None, every)
+    pred, j1, j2 = np.array(pred), np.array(j1), np.array(j2)
+    state = None if state is None else np.array(state)
 
-    def rss_of(p):
-        r = Y - p
-        v = c.rowsum(W * r * r)
+    def rss_of(y, w, p):
+        r = y - p
+        v = c.rowsum(w * r * r)
         return np.where(np.isfinite(v), v, np.inf)
 
-    rss = rss_of(pred)
-    lam = np.full(c.shape[0], 1e-3)
+    rss = rss_of(Y, W, pred)
+    lam = np.full(G, 1e-3)
     active = np.isfinite(rss)
     for _ in range(n_iter):
-        res = Y - pred
-        a11 = c.rowsum(W * j1 * j1)
-        a12 = c.rowsum(W * j1 * j2)
-        a22 = c.rowsum(W * j2 * j2)
-        g1 = c.rowsum(W * j1 * res)
-        g2 = c.rowsum(W * j2 * res)
+        a = np.flatnonzero(active)
+        if not a.size:
+            break
+        ya, wa, pa, j1a, j2a = Y[a], W[a], pred[a], j1[a], j2[a]
+        t1, t2, la = th1[a], th2[a], lam[a]
+        res = ya - pa
+        a11 = c.rowsum(wa * j1a * j1a)
+        a12 = c.rowsum(wa * j1a * j2a)
+        a22 = c.rowsum(wa * j2a * j2a)
+        g1 = c.rowsum(wa * j1a * res)
+        g2 = c.rowsum(wa * j2a * res)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            d1 = a11 * (1.0 + lam) + 1e-300
-            d2 = a22 * (1.0 + lam) + 1e-300
+            d1 = a11 * (1.0 + la) + 1e-300
+            d2 = a22 * (1.0 + la) + 1e-300
             det = d1 * d2 - a12 * a12
             s1 = np.nan_to_num((d2 * g1 - a12 * g2) / det)
             s2 = np.nan_to_num((d1 * g2 - a12 * g1) / det)
-        # a parameter held at an end of its range by a step that would leave it: the other one
-        # alone takes the step (a projected step, so the bound is a proper constrained optimum)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            out2 = ((th2 <= lo2) & (s2 < 0)) | ((th2 >= hi2) & (s2 > 0))
-            out1 = ((th1 <= lo1) & (s1 < 0)) | ((th1 >= hi1) & (s1 > 0))
+            out2 = ((t2 <= lo2[a]) & (s2 < 0)) | ((t2 >= hi2[a]) & (s2 > 0))
+            out1 = ((t1 <= lo1[a]) & (s1 < 0)) | ((t1 >= hi1[a]) & (s1 > 0))
             s1 = np.where(out2 & ~out1, np.nan_to_num(g1 / d1), np.where(out1, 0.0, s1))
             s2 = np.where(out1 & ~out2, np.nan_to_num(g2 / d2), np.where(out2, 0.0, s2))
         s1 = np.clip(s1, -3.0, 3.0)               # at most a factor e^3 per step on log parameters
         s2 = np.clip(s2, -3.0, 3.0)
-        n1 = np.clip(th1 + np.where(active, s1, 0.0), lo1, hi1)
-        n2 = np.clip(th2 + np.where(active, s2, 0.0), lo2, hi2)
-        pn, j1n, j2n, st_n = model(n1, n2, state)
-        rn = rss_of(pn)
-        better = active & (rn < rss)
-        keep = better[:, None]
-        pred = np.where(keep, pn, pred)
-        j1 = np.where(keep, j1n, j1)
-        j2 = np.where(keep, j2n, j2)
+        n1 = np.clip(t1 + s1, lo1[a], hi1[a])
+        n2 = np.clip(t2 + s2, lo2[a], hi2[a])
+        pn, j1n, j2n, st_n = model(n1, n2, None if state is None else state[a], a)
+        rn = rss_of(ya, wa, pn)
+        better = rn < rss[a]
+        b = a[better]
+        pred[b], j1[b], j2[b] = pn[better], j1n[better], j2n[better]
         if state is not None:
-            state = np.where(keep, st_n, state)
-        gain = np.where(better, (rss - rn) / np.maximum(rss, 1e-300), 0.0)
-        th1 = np.where(better, n1, th1)
-        th2 = np.where(better, n2, th2)
-        rss = np.where(better, rn, rss)
-        lam = np.where(better, np.maximum(lam / 3.0, 1e-9), np.minimum(lam * 8.0, 1e9))
-        settled = (better & (gain < 1e-12) & (np.abs(s1) < 1e-7) & (np.abs(s2) < 1e-7)) | (lam >= 1e9)
-        active &= ~settled
-        if not active.any():
-            break
+            state[b] = st_n[better]
+        gain = np.where(better, (rss[a] - rn) / np.maximum(rss[a], 1e-300), 0.0)
+        th1[b], th2[b], rss[b] = n1[better], n2[better], rn[better]
+        lam[a] = np.where(better, np.maximum(la / 3.0, 1e-9), np.minimum(la * 8.0, 1e9))
+        settled = (better & (gain < 1e-11) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (lam[a] >= 1e9)
+        active[a[settled]] = False
     a11 = c.rowsum(W * j1 * j1)
     a12 = c.rowsum(W * j1 * j2)
     a22 = c.rowsum(W * j2 * j2)
@@ -362,10 +371,11 @@ def _best_start(c: Courses, model, candidates) -> tuple[np.ndarray, np.ndarray]:
     """The candidate (th1, th2) pair with the lowest RSS per well."""
     best = np.full(c.shape[0], np.inf)
     b1 = b2 = None
+    every = np.arange(c.shape[0])
     for t1, t2 in candidates:               # a handful of candidates, each vectorised over wells
         t1 = np.nan_to_num(t1, nan=0.0)
         t2 = np.nan_to_num(t2, nan=0.0)
-        pred = model(t1, t2, None)[0]
+        pred = model(t1, t2, None, every)[0]
         r = c.rowsum(c.w * (c.y - pred) ** 2)
         r = np.where(np.isfinite(r), r, np.inf)
         if b1 is None:
@@ -381,23 +391,30 @@ def solve_saturation_u(K, tau, u_start=None, n_max: int = 80) -> np.ndarray:
     """Root u >= 0 of ``K u + 1 - exp(-u) = tau`` (X = 1 - exp(-u) is the integrated saturation
     course at tau = (V/S0) t). g(u) is increasing and concave, so every Newton iterate lies below
     the root and they rise monotonically to it; the start is the larger of two lower bounds,
-    ``tau / (1 + K)`` and ``(tau - 1) / K`` (and of one Newton step from ``u_start``)."""
-    K = np.asarray(K, dtype=float)
+    ``tau / (1 + K)`` and ``(tau - 1) / K`` (and of one Newton step from ``u_start``). Each
+    iteration works on the cells not yet converged only."""
     tau = np.asarray(tau, dtype=float)
+    K = np.broadcast_to(np.asarray(K, dtype=float), tau.shape)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         u = np.maximum(np.maximum(tau / (1.0 + K), (tau - 1.0) / K), 0.0)
         if u_start is not None:
-            us = np.maximum(u_start, 0.0)
+            us = np.maximum(np.broadcast_to(u_start, tau.shape), 0.0)
             e = np.exp(-us)
             step = (K * us + 1.0 - e - tau) / (K + e)
             u = np.maximum(u, us - step)
+        u = np.array(u, dtype=float).ravel()
+        kf, tf = K.ravel(), tau.ravel()
+        idx = np.arange(u.size)
         for _ in range(n_max):
-            e = np.exp(-u)
-            step = (K * u + 1.0 - e - tau) / (K + e)
-            u = u - step
-            if not np.any(np.abs(step) > 1e-13 * (1.0 + u)):
+            uu, kk = u[idx], kf[idx]
+            e = np.exp(-uu)
+            step = (kk * uu + 1.0 - e - tf[idx]) / (kk + e)
+            uu = uu - step
+            u[idx] = uu
+            idx = idx[np.abs(step) > 1e-13 * (1.0 + np.abs(uu))]
+            if not idx.size:
                 break
-    return np.maximum(u, 0.0)
+    return np.maximum(u, 0.0).reshape(tau.shape)
 
 
 def saturation_course(t, r0, K):
@@ -416,22 +433,22 @@ def fit_saturation(c: Courses, zero: LawFit, first: LawFit) -> LawFit:
     lo2 = np.full(G, np.log(K_RATIO_BOUNDS[0]))
     hi2 = np.full(G, np.log(K_RATIO_BOUNDS[1]))
 
-    def model(lr, lk, u_prev):
+    def model(lr, lk, u_prev, rows):
         r = np.exp(lr)[:, None]
         K = np.exp(lk)[:, None]
-        tau = r * (1.0 + K) * T
+        tt = T[rows]
+        tau = r * (1.0 + K) * tt
         u = solve_saturation_u(K, tau, u_prev)
         e = np.exp(-u)
         D = K + e
-        return -np.expm1(-u), e * tau / D, e * K * (r * T - u) / D, u
+        return -np.expm1(-u), e * tau / D, e * K * (r * tt - u) / D, u
 
     rz = np.where(np.isfinite(zero.r0) & (zero.r0 > 0), zero.r0, np.nan)
     rf = np.where(np.isfinite(first.r0) & (first.r0 > 0), first.r0, np.nan)
     rz = np.where(np.isfinite(rz), rz, rf)
     rf = np.where(np.isfinite(rf), rf, rz)
     mid = np.sqrt(rz * rf)
-    starts = [(np.log(rz), np.log(0.02)), (np.log(mid), np.log(0.5)), (np.log(rf), np.log(5.0)),
-              (np.log(rf * 1.5), np.log(1.5))]
+    starts = [(np.log(rz), np.log(0.02)), (np.log(mid), np.log(0.5)), (np.log(rf * 1.2), np.log(3.0))]
     s1, s2 = _best_start(c, model, [(a, np.full(G, b)) for a, b in starts])
     th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2))
     df = c.n - 2
@@ -464,21 +481,23 @@ def fit_first_order_deactivating(c: Courses, first: LawFit, zero: LawFit) -> Law
         kd_hi = 30.0 / np.where(np.isfinite(c.t_first), c.t_first, np.nan)
     bounds = (np.log(r_lo), np.log(r_hi), np.log(kd_lo), np.log(np.maximum(kd_hi, kd_lo * 10)))
 
-    def model(lk, lkd, _state):
+    def model(lk, lkd, _state, rows):
         k = np.exp(lk)[:, None]
         kd = np.exp(lkd)[:, None]
-        em = np.exp(-kd * T)
-        E = -np.expm1(-kd * T) / kd
+        tt = T[rows]
+        em = np.exp(-kd * tt)
+        E = -np.expm1(-kd * tt) / kd
         z = k * E
         left = np.exp(-z)
-        return -np.expm1(-z), left * z, left * k * (T * em - E), None
+        return -np.expm1(-z), left * z, left * k * (tt * em - E), None
 
     kf = np.where(np.isfinite(first.r0) & (first.r0 > 0), first.r0, np.nan)
     kz = np.where(np.isfinite(zero.r0) & (zero.r0 > 0), zero.r0, kf)
     kf = np.where(np.isfinite(kf), kf, kz)
     with np.errstate(divide="ignore", invalid="ignore"):
         inv_t = 1.0 / np.where(c.t_max > 0, c.t_max, np.nan)
-    cands = [(np.log(k0), np.log(f * inv_t)) for k0 in (kf, np.maximum(kf, kz) * 1.5) for f in (0.3, 1.0, 3.0)]
+    cands = [(np.log(kf), np.log(0.3 * inv_t)), (np.log(kf * 1.3), np.log(1.0 * inv_t)),
+             (np.log(np.maximum(kf, kz) * 1.5), np.log(3.0 * inv_t))]
     s1, s2 = _best_start(c, model, cands)
     th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds)
     df = c.n - 2
@@ -512,18 +531,19 @@ def fit_first_order_induction(c: Courses, max_slope: np.ndarray) -> LawFit:
         tau_hi = 2.0 * np.where(c.t_max > 0, c.t_max, np.nan)
     bounds = (np.log(r_lo), np.log(r_hi), np.log(tau_lo), np.log(np.maximum(tau_hi, tau_lo * 10)))
 
-    def model(lk, ltau, _state):
+    def model(lk, ltau, _state, rows):
         k = np.exp(lk)[:, None]
         tau = np.exp(ltau)[:, None]
-        e = np.exp(-T / tau)
-        A = T + tau * (e - 1.0)
+        tt = T[rows]
+        e = np.exp(-tt / tau)
+        A = tt + tau * (e - 1.0)
         left = np.exp(-k * A)
-        dA = tau * (-1.0 + e * (1.0 + T / tau))
+        dA = tau * (-1.0 + e * (1.0 + tt / tau))
         return -np.expm1(-k * A), left * k * A, left * k * dA, None
 
     k0 = np.where(np.isfinite(max_slope) & (max_slope > 0), max_slope, np.nan)
-    cands = [(np.log(k0 * f), np.log(tau)) for f in (1.0, 1.5)
-             for tau in (c.t_first, 3.0 * c.t_first, 0.3 * c.t_max)]
+    cands = [(np.log(k0), np.log(c.t_first)), (np.log(k0 * 1.5), np.log(3.0 * c.t_first)),
+             (np.log(k0 * 1.5), np.log(0.3 * c.t_max))]
     s1, s2 = _best_start(c, model, cands)
     th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds)
     ok = c.capped & np.isfinite(k0) & ~singular & ~at1 & ~at2 & np.isfinite(rss)
@@ -576,16 +596,71 @@ def fit_early_polynomial(c: Courses, window: np.ndarray) -> LawFit:
                   p1=b / scale, p2=cc / scale ** 2, n_window=nw, p2_se=np.where(ok, se_c / scale ** 2, np.nan))
 
 
-def fit_all(c: Courses, window_frac: float = 0.5, min_points: int = 3) -> dict[str, LawFit]:
-    """Every law fitted to every well: ``{law: LawFit}`` (integrated laws and the early polynomial)."""
+#: the two-parameter integrated laws (the costly fits), fitted first to the wells that tell the
+#: laws apart and to the others only where their catalyst chose one of them
+ITERATIVE = ("saturation", "first_order_deactivating", "first_order_plateau")
+
+
+def _take(f: LawFit, rows: np.ndarray) -> LawFit:
+    return LawFit(f.law, **{k: getattr(f, k)[rows] for k in ("r0", "r0_se", "rss", "n", "ok", "p1", "p2", "n_window")},
+                  p2_se=None if f.p2_se is None else f.p2_se[rows])
+
+
+def scatter(fit: LawFit, rows: np.ndarray, into: LawFit | None, n: np.ndarray) -> LawFit:
+    """``fit`` (of the wells ``rows``) written into ``into`` (or into an empty fit of all wells:
+    not ok, NaN), as one LawFit of every well."""
+    G = len(n)
+    if into is None:
+        nan = np.full(G, np.nan)
+        into = LawFit(fit.law, r0=nan, r0_se=nan.copy(), rss=np.full(G, np.inf), n=np.asarray(n), ok=np.zeros(G, bool),
+                      p1=nan.copy(), p2=nan.copy(), n_window=np.asarray(n).copy(),
+                      p2_se=None if fit.p2_se is None else nan.copy())
+    vals = {}
+    for k in ("r0", "r0_se", "rss", "ok", "p1", "p2", "n_window"):
+        v = np.array(getattr(into, k), copy=True)
+        v[rows] = getattr(fit, k)
+        vals[k] = v
+    p2_se = None
+    if into.p2_se is not None and fit.p2_se is not None:
+        p2_se = np.array(into.p2_se, copy=True)
+        p2_se[rows] = fit.p2_se
+    return LawFit(into.law, n=np.asarray(n), p2_se=p2_se, **vals)
+
+
+def fit_iterative(law: str, c: Courses, rows: np.ndarray, fits: dict[str, LawFit]) -> LawFit:
+    """One of the :data:`ITERATIVE` laws fitted to the wells ``rows`` only and written into
+    ``fits[law]`` (other wells keep what they had)."""
+    if not len(rows):
+        if fits.get(law) is not None:
+            return fits[law]
+        G = c.shape[0]
+        nan = np.full(G, np.nan)
+        return LawFit(law, r0=nan, r0_se=nan.copy(), rss=np.full(G, np.inf), n=c.n, ok=np.zeros(G, bool),
+                      p1=nan.copy(), p2=nan.copy(), n_window=c.n.copy())
+    sub = c.subset(rows)
+    zero, first = _take(fits["zero_order"], rows), _take(fits["first_order"], rows)
+    if law == "saturation":
+        f = fit_saturation(sub, zero, first)
+    elif law == "first_order_deactivating":
+        f = fit_first_order_deactivating(sub, first, zero)
+    else:
+        f = fit_first_order_plateau(sub)
+    return scatter(f, rows, fits.get(law), c.n)
+
+
+def fit_all(c: Courses, window_frac: float = 0.5, min_points: int = 3, iterative_rows=None) -> dict[str, LawFit]:
+    """Every law fitted to every well: ``{law: LawFit}`` (integrated laws and the early polynomial).
+
+    ``iterative_rows``: fit the :data:`ITERATIVE` laws to these wells only (index array; the
+    others get a not-ok fit, to be completed by :func:`fit_iterative`); default all wells."""
     zero = fit_zero_order(c)
     first = fit_first_order(c)
     out = {"zero_order": zero, "first_order": first}
-    out["saturation"] = fit_saturation(c, zero, first)
-    out["first_order_plateau"] = fit_first_order_plateau(c)
-    out["first_order_deactivating"] = fit_first_order_deactivating(c, first, zero)
+    rows = np.arange(c.shape[0]) if iterative_rows is None else np.asarray(iterative_rows, dtype=np.int64)
+    for law in ITERATIVE:
+        out[law] = fit_iterative(law, c, rows, out)
     out[GENERIC] = fit_early_polynomial(c, early_window(c, window_frac, min_points))
-    return out
+    return {law: out[law] for law in (*INTEGRATED, GENERIC)}
 
 
 def predict(law: str, p1, p2, t):
@@ -611,7 +686,7 @@ def predict(law: str, p1, p2, t):
     raise ValueError(f"unknown rate law {law!r}")
 
 
-__all__ = ["Courses", "DESCRIPTION", "GENERIC", "INTEGRATED", "LawFit", "NEEDS_MAXIMUM", "N_PARAMS",
+__all__ = ["Courses", "DESCRIPTION", "GENERIC", "INTEGRATED", "ITERATIVE", "LawFit", "fit_iterative", "scatter", "NEEDS_MAXIMUM", "N_PARAMS",
            "deactivating_course", "dense_courses", "early_window", "fit_all", "fit_early_polynomial",
            "fit_first_order", "fit_first_order_deactivating", "fit_first_order_plateau", "fit_saturation",
            "fit_first_order_induction", "fit_zero_order", "induction_course", "predict", "saturation_course",

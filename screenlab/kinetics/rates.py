@@ -15,10 +15,11 @@
    has no measurable initial rate: the rate is only known to exceed the chord to that reading,
    ``X1 / t1`` (a lower bound for any course that slows down). It gets ``censored = lower``, that
    bound as its rate, no SE and flag ``done_at_first_reading``.
-4. **One law per group.** The replicate wells of one catalyst x temperature x condition (blanks:
-   temperature x condition) share one law: the integrated law with the smallest AICc summed over
-   the group's wells (Hurvich & Tsai 1989; all integrated laws are fitted to the same readings,
-   so their AICc compare). The generic early-window quadratic is used instead where most of the
+4. **One law per catalyst x condition.** All wells of one catalyst and condition, at every
+   temperature (blanks: per condition), share one law: the integrated law with the smallest AICc
+   summed over its :data:`PROBE_WELLS` wells with the largest product (Hurvich & Tsai 1989; all
+   integrated laws are fitted to the same readings, so their AICc compare; the wells that got
+   furthest tell the laws apart, and a flat course, such as a dispensing failure, takes no part). The generic early-window quadratic is used instead where most of the
    group's courses are not initial-rate kinetics (product falling after a maximum, or induction)
    or where the chosen law misses the data (its residual variance over the group's wells more
    than :data:`MISFIT_RATIO` times the campaign's noise variance; flag ``law_misfit``).
@@ -122,6 +123,8 @@ FLAG_SIGMAS = 3.0
 #: a group's law misses its data when its residual variance exceeds this multiple of the noise
 #: variance (residuals twice the noise SD; common practice, no source)
 MISFIT_RATIO = 4.0
+#: wells of each catalyst x condition (those with the largest product) on which the law is chosen
+PROBE_WELLS = 3
 #: AICc advantage of the induction course over every integrated law that flags induction (a
 #: difference above 4 is "considerably less support" for the others: Burnham & Anderson 2002)
 INDUCTION_AICC = 4.0
@@ -377,8 +380,21 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     y_top = np.where(n_fit > 0, np.max(np.where(fitted, Y, -np.inf), axis=1) if c.shape[1] else np.nan, np.nan)
     i_top = np.argmax(np.where(fitted, Y, -np.inf), axis=1) if c.shape[1] else np.zeros(G, np.int64)
 
-    # --- every law on every well ----------------------------------------------------------------
-    fits = ratelaws.fit_all(c, window_frac=window_frac, min_points=min_pts)
+    # --- every law on every well (the iterative ones, first, on the most informative wells) ------
+    # The law of a catalyst x condition is told apart on its wells that got furthest (curvature
+    # grows with conversion): the two-parameter iterative laws are fitted first to the three wells
+    # of each catalyst x condition with the largest product, and to the others only where their
+    # catalyst's choice falls on them.
+    law_group = _group_codes(wells, rows, factors, temperature=False)
+    n_law_groups = int(law_group.max()) + 1 if G else 0
+    can_fit = (n_pos >= 1) & (n_fit >= 3)
+    order = np.lexsort((-np.nan_to_num(y_top, nan=-np.inf), ~can_fit, law_group))
+    lg_sorted = law_group[order]
+    start = np.searchsorted(lg_sorted, lg_sorted, side="left")
+    probe = np.zeros(G, dtype=bool)
+    probe[order[(np.arange(G) - start) < PROBE_WELLS]] = True
+    probe &= can_fit
+    fits = ratelaws.fit_all(c, window_frac=window_frac, min_points=min_pts, iterative_rows=np.flatnonzero(probe))
     scale = np.where(capped, 1.0, np.maximum(np.nan_to_num(np.abs(y_top)), 1e-12))
     rss_floor = n_fit * (1e-6 * scale) ** 2
     noise = _noise_level(fits, c, rss_floor)
@@ -394,8 +410,6 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     # --- one law per catalyst x condition, over all its temperatures -------------------------
     group = _group_codes(wells, rows, factors)                    # replicates: one temperature
     n_groups = int(group.max()) + 1 if G else 0
-    law_group = _group_codes(wells, rows, factors, temperature=False)
-    n_law_groups = int(law_group.max()) + 1 if G else 0
     laws = list(ratelaws.INTEGRATED)
     aicc = np.stack([fits[law].aicc(rss_floor) for law in laws], axis=1)       # (G, L)
     own_best = np.where(np.isfinite(aicc.min(axis=1)), np.argmin(aicc, axis=1), -1)
@@ -403,7 +417,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     # as a dispensing failure or an inactive catalyst, fits every law alike)
     signal = np.nan_to_num(y_top) > 3.0 * noise
     eligible = fittable & (own_best >= 0)
-    voting = eligible & signal
+    voting = eligible & signal & probe
     # a law that cannot be fitted to one well counts as 10 AICc units worse than that well's worst
     # fitted law, so one odd well does not veto a law for the whole catalyst
     with np.errstate(invalid="ignore"):
@@ -425,6 +439,14 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     first_of = np.full(n_groups, -1, dtype=np.int64)
     first_of[group[::-1]] = law_group[::-1]
     chosen = np.where(first_of >= 0, chosen_law[np.maximum(first_of, 0)], -1)
+    # the iterative laws on the remaining wells of the catalysts that chose them
+    for law in ratelaws.ITERATIVE:
+        need = fittable & ~probe & (chosen_law[law_group] == laws.index(law))
+        if need.any():
+            fits[law] = ratelaws.fit_iterative(law, c, np.flatnonzero(need), fits)
+    aicc = np.stack([fits[law].aicc(rss_floor) for law in laws], axis=1)
+    own_best = np.where(np.isfinite(aicc.min(axis=1)), np.argmin(aicc, axis=1), -1)
+    eligible = fittable & (own_best >= 0)
 
     # shapes that are not initial-rate kinetics, per well
     drop = y_top - y_last
@@ -450,9 +472,14 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         late_fast = ((max_at >= 1) & (max_slope > 5.0 * noise / np.sqrt(max_sxx))
                      & (poly.r0 < 0.5 * max_slope) & poly.ok)
     # ... or a first-order course with an activating catalyst fits clearly better (AICc lower by
-    # more than INDUCTION_AICC) than every integrated law
-    ind = ratelaws.fit_first_order_induction(c, max_slope)
-    lagged = fittable & (ind.aicc(rss_floor) < aicc.min(axis=1) - INDUCTION_AICC)
+    # more than INDUCTION_AICC) than every integrated law (tried where the steepest part of the
+    # course is not its start: a course that slows from t = 0 has no lag to find)
+    with np.errstate(invalid="ignore"):
+        lag_rows = np.flatnonzero(fittable & (max_at >= 1) & ~(poly.r0 >= 0.9 * max_slope))
+    lagged = np.zeros(G, dtype=bool)
+    if lag_rows.size:
+        ind = ratelaws.fit_first_order_induction(c.subset(lag_rows), max_slope[lag_rows])
+        lagged[lag_rows] = ind.aicc(rss_floor[lag_rows]) < aicc[lag_rows].min(axis=1) - INDUCTION_AICC
     induction = fittable & signal & (np.nan_to_num(y_top) > 10.0 * noise) & (
         _induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast | lagged)
 

@@ -2,8 +2,9 @@
 
 Definitions used here (all rates in mM/h, amounts in umol, TOF in h-1):
 
-* **Blank rate** per plate x temperature (a well's own temperature_c, which may override the
-  plate's): mean, SD (ddof = 1), SE = SD/sqrt(n) of the blank wells' rates. With a single blank
+* **Blank rate** per plate x temperature x substrate level (a well's own temperature_c, which may
+  override the plate's): mean, SD (ddof = 1) and SE = max(SD, RMS of the wells' fit SEs)/sqrt(n)
+  of the blank wells' rates (the fit errors are a floor under a chance agreement of few blanks). With a single blank
   the SE is that well's own fit SE (no scatter to estimate). **Detection limit** of the blank
   mean: ``blank_lod_mM_per_h = 3 x SD / sqrt(n) = 3 x SE`` (the 3-sigma criterion, Long &
   Winefordner, Anal. Chem. 1983, 55, 712A, applied to the mean of the n blank wells that serves
@@ -64,6 +65,8 @@ FLAGS: dict[str, str] = {
     "blank_scaled": "No blank at this substrate level on the plate: the blank of another level was scaled to it "
                     "as a background first order in substrate.",
     "blank_outlier_excluded": "A blank well that is a replicate outlier of its level was left out of the blank mean.",
+    "blank_left_out": "Blank wells on the outer ring of a plate with an edge effect were left out of the blank mean "
+                      "(the ring reads differently from the interior).",
     "ton_capped": "The well (group: most wells) reached full conversion, so its TON is the substrate / site "
                   "ratio: a lower bound of what the catalyst can turn over.",
     "censored_replicate": "Some replicates (fewer than half) were done before their first reading; they are left "
@@ -254,7 +257,7 @@ def _group_first(values: np.ndarray, order: np.ndarray, sorted_codes: np.ndarray
 _FlagIndex = FlagIndex
 
 
-def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -> pd.DataFrame:
+def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None, exclude=None) -> pd.DataFrame:
     """One row per plate x temperature x substrate level that has any non-empty well.
 
     Columns: ``plate, temperature_c, substrate_conc_mM, n_blanks, blank_rate_mM_per_h,
@@ -273,6 +276,9 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -
       mean (flag ``blank_outlier_excluded``; the wells keep flag ``outlier``), and so are blanks
       without a finite rate or done at their first reading.
     * No blank on the plate x temperature at all: NaN and flag ``no_blank``.
+    * ``exclude`` (one bool per row of ``wells``): blank wells left out on purpose (the pipeline
+      leaves out the blanks on the outer ring of a plate with an edge effect); flag
+      ``blank_left_out`` on their level's row.
     """
     settings = settings or AnalysisSettings()
     roles = _Roles(wells)
@@ -290,7 +296,9 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -
     se_w = _f(wells, "rate_se_mM_per_h")[keep]
     cens = (wells["censored"].astype("string").fillna("").to_numpy(dtype=object)[keep] != ""
             if "censored" in wells.columns else np.zeros(len(keep), dtype=bool))
-    blank = roles.is_("blank")[keep] & np.isfinite(rate) & ~cens
+    dropped = np.zeros(len(keep), dtype=bool) if exclude is None else np.asarray(exclude, dtype=bool)[keep]
+    blank = roles.is_("blank")[keep] & np.isfinite(rate) & ~cens & ~dropped
+    n_dropped = np.bincount(kcode[dropped & roles.is_("blank")[keep]], minlength=K)
     z = _robust_z(np.where(blank, rate, np.nan), np.where(blank, kcode, -1), se_w)
     out_b = blank & ~np.isnan(z) & (z > float(settings.outlier_z))
     used = blank & ~out_b
@@ -301,17 +309,21 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -
     sd = np.full(K, np.nan)
     one_se = np.full(K, np.nan)
     one_df = np.full(K, np.nan)
+    fit_sd = np.full(K, np.nan)
     if bk.size:
         gb = pd.Series(rate[used]).groupby(bk, sort=True)
         present = np.unique(bk)
         mean[present] = gb.mean().to_numpy(dtype=float)
         sd[present] = gb.std().to_numpy(dtype=float)
+        # the blanks' own fit errors (RMS): a floor under their scatter, as for catalysed replicates
+        fit_sd[present] = np.sqrt(pd.Series(se_w[used] ** 2).groupby(bk, sort=True).mean().to_numpy(dtype=float))
         order = np.argsort(bk, kind="stable")
         sorted_codes = bk[order]
         one_se = _group_first(se_w[used], order, sorted_codes, K)
         one_df = _group_first(_f(wells, "rate_df")[keep][used], order, sorted_codes, K)
     with np.errstate(invalid="ignore", divide="ignore"):
-        se = np.where(n >= 2, sd / np.sqrt(n), np.where(n == 1, one_se, np.nan))
+        scatter = np.fmax(sd, fit_sd)
+        se = np.where(n >= 2, scatter / np.sqrt(n), np.where(n == 1, one_se, np.nan))
     dfb = np.where(n >= 2, n - 1, np.where(n == 1, one_df, np.nan))
     sd = np.where(n >= 2, sd, np.nan)
     conc_k = conc_all[keep][first]
@@ -344,6 +356,7 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None) -
         "blank_below_lod": (n_o >= 1) & np.isfinite(lod) & (mean_o < lod),
         "blank_scaled": scaled & (n_o >= 1),
         "blank_outlier_excluded": n_out > 0,
+        "blank_left_out": n_dropped > 0,
     })
     plate = wells["plate"].iloc[keep[first]].to_numpy(dtype=object)
     temperature = temp_all[keep][first]
@@ -541,7 +554,7 @@ class _Medians:
 
 
 def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
-                  settings: AnalysisSettings | None = None) -> pd.DataFrame:
+                  settings: AnalysisSettings | None = None, excluded_blanks=None) -> pd.DataFrame:
     """The well_rates columns plus sites, blank correction, TOF, TON, enhancement and outliers.
 
     ``data`` is the :class:`CampaignData` (its ``catalysts`` give the site counts; a bare
@@ -674,6 +687,8 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         # an outlier with no net activity among active replicates: a failed well, not chemistry
         "failed_well": catalysed & outlier & ~(metric > 0),
         "ton_capped": ton_capped & np.isfinite(ton),
+        "blank_left_out": (is_blank & np.asarray(excluded_blanks, dtype=bool)) if excluded_blanks is not None
+        else np.zeros(n_wells, dtype=bool),
     })
     censored = np.where(catalysed & lower_w, "lower", np.where(upper_w, "upper", ""))
     with np.errstate(invalid="ignore"):

@@ -418,31 +418,34 @@ def control_chart(points: pd.DataFrame, *, x: str, y: str, y_label: str, centre:
 
 
 def fitted_course(well: pd.Series, *, t_end_h: float, n: int = 60) -> tuple[pd.DataFrame, str]:
-    """The fitted curve of one well from its ``well_rates`` parameters, and a label for it.
+    """The fitted curve of one well from its ``well_rates`` row, and a label for it.
 
-    ``initial_slope``: intercept + rate x t over the fitted window (``window_end_h`` when given,
-    else the whole course); ``first_order``: plateau x (1 - exp(-k t)); ``end_point``: the
-    straight line from the origin to the end-point reading. Only evaluates the core's fit.
+    An integrated rate law (``method`` one of :data:`screenlab.kinetics.ratelaws.INTEGRATED`):
+    the law with the well's parameters (``law_p1``, ``law_p2``; in conversion units times the
+    theoretical maximum when ``law_capped``) over the whole course; ``early_polynomial``: its
+    quadratic over the early window (``window_end_h`` when given); ``end_point`` and
+    ``first_reading`` (a bound): the chord from the origin to the reading. Only evaluates the core's fit.
     """
-    from screenlab.kinetics import models
+    from screenlab.kinetics import ratelaws
 
     method = str(well.get("method", ""))
     rate = float(well.get("rate_mM_per_h", np.nan))
-    if method == "initial_slope":
-        t1 = float(well.get("window_end_h", np.nan))
-        t1 = t1 if np.isfinite(t1) and t1 > 0 else t_end_h
-        t = np.linspace(0.0, t1, 2)
-        b0 = float(well.get("intercept_mM", np.nan))
-        y = (b0 if np.isfinite(b0) else 0.0) + rate * t
-        return pd.DataFrame({"time_h": t, "product_mM": y}), f"initial slope: {_fmt(rate)} mM h⁻¹"
-    if method == "first_order":
-        b1 = float(well.get("plateau_mM", np.nan))
-        k = float(well.get("k_per_h", np.nan))
-        t = np.linspace(0.0, t_end_h, n)
-        y = np.asarray(models.first_order(t, b1, k), dtype=float)
-        return (pd.DataFrame({"time_h": t, "product_mM": y}),
-                f"first-order fit: P∞ = {_fmt(b1)} mM, k = {_fmt(k)} h⁻¹, initial rate {_fmt(rate)} mM h⁻¹")
+    p1, p2 = float(well.get("law_p1", np.nan)), float(well.get("law_p2", np.nan))
+    scale = float(well.get("substrate_conc_mM", np.nan)) if bool(well.get("law_capped", False)) else 1.0
+    if method == "first_reading":
+        t = np.array([0.0, float(well.get("first_time_h", np.nan))])
+        return pd.DataFrame({"time_h": t, "product_mM": rate * t}), f"done by the first reading: rate ≥ {_fmt(rate)} mM h⁻¹"
     if method == "end_point":
         t = np.array([0.0, float(well.get("last_time_h", t_end_h))])
         return pd.DataFrame({"time_h": t, "product_mM": rate * t}), f"end-point average rate: {_fmt(rate)} mM h⁻¹"
+    if method in ratelaws.N_PARAMS and np.isfinite(p1):
+        t_stop = float(well.get("window_end_h", np.nan)) if method == ratelaws.GENERIC else t_end_h
+        t_stop = t_stop if np.isfinite(t_stop) and t_stop > 0 else t_end_h
+        t = np.linspace(0.0, t_stop, n)
+        if method == "zero_order" and scale == 1.0:
+            y = p1 * t                                        # no maximum known: no run-out
+        else:
+            y = np.asarray(ratelaws.predict(method, p1, p2, t), dtype=float) * scale
+        return (pd.DataFrame({"time_h": t, "product_mM": y}),
+                f"{method.replace('_', ' ')}: rate at t = 0 {_fmt(rate)} mM h⁻¹")
     return pd.DataFrame(columns=["time_h", "product_mM"]), "no rate"

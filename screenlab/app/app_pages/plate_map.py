@@ -6,6 +6,7 @@ import pandas as pd
 import streamlit as st
 
 from screenlab.app import cache, widgets
+from screenlab.kinetics import ratelaws
 from screenlab.viz import figures
 
 QUANTITIES = {
@@ -17,8 +18,9 @@ QUANTITIES = {
     "residual": "median-polish residual of the rate / mM h⁻¹",
 }
 METHOD_TEXT = {
-    "initial_slope": "straight-line initial slope over the readings inside the conversion window",
-    "first_order": "first-order fit P = P∞(1 - e^(-kt)) of the whole course; rate = P∞·k",
+    **{law: f"{text}; the rate is its slope at t = 0 (the law is chosen per catalyst by AICc)"
+       for law, text in ratelaws.DESCRIPTION.items()},
+    "first_reading": "done before its first reading: the rate is only known to exceed the chord to it",
     "end_point": "single end point: product / time (an average rate, no standard error)",
     "no_data": "no usable reading after t = 0",
 }
@@ -88,7 +90,8 @@ with right:
     method = str(row.get("method", "no_data"))
     st.markdown(f"**Method:** `{method}`: {METHOD_TEXT.get(method, method)}")
     m = st.columns(2)
-    m[0].metric("Initial rate / mM h⁻¹", widgets.fmt(row.get("rate_mM_per_h")),
+    bound = {"lower": "≥ ", "upper": "≤ "}.get(str(row.get("censored", "") or ""), "")
+    m[0].metric("Initial rate / mM h⁻¹", bound + widgets.fmt(row.get("rate_mM_per_h")),
                 help="± standard error: " + widgets.fmt(row.get("rate_se_mM_per_h"), 2))
     m[1].metric("TOF / h⁻¹", widgets.fmt(row.get("tof_per_h")), help="± " + widgets.fmt(row.get("tof_se_per_h"), 2))
     m = st.columns(2)
@@ -96,7 +99,7 @@ with right:
                 help=f"interval {widgets.fmt(row.get('enhancement_ci_low'))} – {widgets.fmt(row.get('enhancement_ci_high'))}")
     m[1].metric("Final conversion / %", widgets.fmt(row.get("last_conversion_pct")))
     st.markdown(f"TON at the last reading: {widgets.fmt(row.get('ton'))} · readings used: "
-                f"{int(row['window_points']) if method == 'initial_slope' and pd.notna(row.get('window_points')) else int(row['n_points']) if pd.notna(row.get('n_points')) else 0}"
+                f"{int(row['window_points']) if pd.notna(row.get('window_points')) else 0}"
                 f" · blank rate {widgets.fmt(row.get('blank_rate_mM_per_h'))} mM h⁻¹")
     if isinstance(row.get("flags"), str) and row["flags"]:
         helptext = cache.flag_help()
@@ -110,16 +113,19 @@ with left:
     if course.empty:
         st.info("No readings for this well.")
     else:
-        if method == "initial_slope" and pd.notna(row.get("window_points")):
-            in_fit = course.index < int(row["window_points"])
-        elif method in ("first_order", "end_point"):
-            in_fit = np.ones(len(course), bool)
+        usable = (course["range_code"].to_numpy() != 2) if "range_code" in course else np.ones(len(course), bool)
+        if method == ratelaws.GENERIC and pd.notna(row.get("window_points")):
+            in_fit = usable & (np.cumsum(usable) <= int(row["window_points"]))
+        elif method in ratelaws.N_PARAMS or method == "end_point":
+            in_fit = usable
+        elif method == "first_reading":
+            in_fit = course["time_h"].to_numpy() <= float(row.get("first_time_h", 0.0))
         else:
             in_fit = np.zeros(len(course), bool)
         course = course.assign(in_fit=in_fit)
         t_end = float(course["time_h"].max())
         params = row.copy()
-        if method == "initial_slope" and in_fit.any():
+        if method == ratelaws.GENERIC and in_fit.any():
             params["window_end_h"] = float(course.loc[in_fit, "time_h"].max())
         fit, fit_label = figures.fitted_course(params, t_end_h=t_end)
         widgets.chart(figures.time_course(course, fit=fit, fit_label=fit_label, title=f"{plate} {well}"),
