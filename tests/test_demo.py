@@ -122,7 +122,8 @@ def test_campaign_follows_the_format(fresh, name):
     for role in ("blank", "reference"):
         assert set(lay.loc[lay["role"] == role, "plate"]) == set(pl["plate"])
     if man["readout"]["kind"] in ("conversion", "yield"):
-        assert man["readout"]["scale"] == "percent" and rd["value"].between(0, 100).all()
+        # exported as measured: noise around 0 and full conversion stays, inside the import's -5..110 %
+        assert man["readout"]["scale"] == "percent" and rd["value"].between(-5, 110).all()
 
 
 def test_truth_is_outside_the_campaign_folders(fresh):
@@ -227,16 +228,14 @@ def test_edge_plate_reads_high(main):
 
 
 def test_start_readings_follow_the_noise_model(main):
-    """t = 0 readings are N(0, 0.8 %) clipped at 0: about half are 0, the rest half-normal.
-
-    Reference: scipy.stats.halfnorm and scipy.stats.binomtest.
-    """
+    """t = 0 readings are N(0, 0.8 %) as exported (not clipped at 0), and some yields near full
+    conversion read above 100 % (instrument overshoot). Reference: scipy.stats.kstest / norm."""
     _, f, _ = main
-    v = f["readings"].loc[f["readings"]["time"] == 0, "value"].to_numpy()
-    zeros = int((v == 0).sum())
-    assert stats.binomtest(zeros, len(v), 0.5).pvalue > 0.001
-    pos = v[v > 0]
-    assert stats.kstest(pos, stats.halfnorm(scale=0.8).cdf).pvalue > 0.001
+    rd = f["readings"]
+    v = rd.loc[rd["time"] == 0, "value"].to_numpy()
+    assert (v < 0).any()
+    assert stats.kstest(v, stats.norm(scale=0.8).cdf).pvalue > 0.001
+    assert (rd["value"] > 100).sum() >= 3
 
 
 def test_slow_wells_have_three_points_in_the_initial_window(main):
