@@ -73,13 +73,12 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import special
-
 from screenlab.kinetics import fit, ratelaws
 from screenlab.kinetics.amounts import ABOVE_FULL_SCALE, ABOVE_LINEAR_RANGE, T0_TOLERANCE_H, product_amounts, well_index
 from screenlab.kinetics.sites import frame_of, text_array
 from screenlab.model import CampaignData
 from screenlab.settings import AnalysisSettings
+from screenlab.uncertainty import t_quantile
 
 #: flag code -> one plain sentence (gathered by screenlab.flags)
 FLAGS: dict[str, str] = {
@@ -187,13 +186,6 @@ def _equals(values: pd.Series, word: str) -> np.ndarray:
             eq = pc.fill_null(pc.equal(pa_arr, pa.scalar(word, pa_arr.type)), False)
             return eq.to_numpy(zero_copy_only=False).astype(bool, copy=False)
     return (values.astype("string") == word).fillna(False).to_numpy(dtype=bool)
-
-
-def _t_quantile(confidence: float, df) -> np.ndarray:
-    """Two-sided Student t quantile (scipy.special.stdtrit); NaN for df <= 0."""
-    df = np.asarray(df, dtype=float)
-    with np.errstate(invalid="ignore"):
-        return np.where(df > 0, special.stdtrit(np.where(df > 0, df, 1.0), 0.5 + confidence / 2.0), np.nan)
 
 
 def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, temperature: bool = True) -> np.ndarray:
@@ -546,7 +538,7 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     method_words = np.array(all_laws + ["end_point", "first_reading", "no_data"], dtype=object)
     m_code = np.where(law_i >= 0, law_i, len(all_laws) + 2)
     m_code = np.where(end_point, len(all_laws), np.where(done, len(all_laws) + 1, m_code))
-    q = _t_quantile(settings.confidence, df)
+    q = t_quantile(settings.confidence, df)
     with np.errstate(invalid="ignore"):
         half = np.where((df > 0) & np.isfinite(rate_se), q * rate_se, np.nan)
         ci_low = np.where(done, rate, rate - half)

@@ -68,10 +68,11 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
 from screenlab.kinetics.sites import FlagIndex, join_flags, text_array
 from screenlab.settings import AnalysisSettings
+from screenlab.uncertainty import t_quantile, welch_df
 
 #: flag codes set here (code -> one plain sentence)
 FLAGS: dict[str, str] = {
@@ -111,13 +112,7 @@ GROUP_COLUMNS = ("selectivity_pct", "selectivity_se", "selectivity_df", "selecti
 
 
 def _t_quantile(confidence: float, df) -> np.ndarray:
-    df = np.asarray(df, dtype=float)
-    ok = np.isfinite(df) & (df > 0)
-    out = np.full(df.shape, np.nan)
-    if ok.any():                     # one quantile per distinct df (the same numbers, fewer of them)
-        u, inv = np.unique(df[ok], return_inverse=True)
-        out[ok] = stats.t.ppf(0.5 + float(confidence) / 2.0, u)[inv.ravel()]
-    return out
+    return t_quantile(confidence, df)
 
 
 def origin_fit(code: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int) -> dict[str, np.ndarray]:
@@ -169,7 +164,7 @@ def origin_fit(code: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int) ->
         var_k = np.where(good & (df_q >= 1), rss_q / np.where(df_q >= 1, df_q, 1.0) * s2 / np.where(good, det, 1.0),
                          np.nan)
         tk = k / np.sqrt(var_k)
-        p = np.where(np.isfinite(tk), 2.0 * stats.t.sf(np.abs(tk), np.where(df_q >= 1, df_q, 1.0)),
+        p = np.where(np.isfinite(tk), 2.0 * special.stdtr(np.where(df_q >= 1, df_q, 1.0), -np.abs(tk)),
                      np.where(good & (df_q >= 1) & (var_k == 0) & (k != 0), 0.0, np.nan))
     return {"n": n, "slope": b, "se": se, "df": np.where(n >= 1, df, np.nan), "resid_sd": resid_sd,
             "x_max": x_max, "curv_change": 2.0 * k, "curv_p": p}
@@ -391,11 +386,7 @@ def _blank_variance(w, x, y, E, b, G, terms, has_bg, var_kb_w, df_kb_w):
 
 
 def _welch(v1, d1, v2, d2):
-    with np.errstate(invalid="ignore", divide="ignore"):
-        t1 = np.where(v1 > 0, v1 ** 2 / d1, 0.0)
-        t2 = np.where(v2 > 0, v2 ** 2 / d2, 0.0)
-        den = t1 + t2
-        return np.where(den > 0, (v1 + v2) ** 2 / den, np.inf)
+    return welch_df(v1, d1, v2, d2)
 
 
 def _combine(se_fit, df_fit, var_blank, df_blank):

@@ -33,7 +33,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from screenlab import units
 from screenlab.kinetics import selectivity as _selectivity
@@ -41,6 +40,7 @@ from screenlab.kinetics import sites as _sites
 from screenlab.kinetics.amounts import well_index
 from screenlab.kinetics.sites import FlagIndex
 from screenlab.settings import AnalysisSettings
+from screenlab.uncertainty import t_quantile, welch_df  # noqa: F401  (re-exported for the kinetics modules)
 
 #: flag codes set here (code -> one plain sentence); the site codes of screenlab.kinetics.sites included
 FLAGS: dict[str, str] = {
@@ -102,33 +102,6 @@ def tof_per_s(tof_per_h):
 def _tkey(t) -> np.ndarray:
     """Temperature key for matching wells to blanks (rounded to 1e-6 degC)."""
     return np.round(np.asarray(t, dtype=float), 6)
-
-
-def t_quantile(confidence: float, df) -> np.ndarray:
-    """Two-sided Student-t quantile; df = inf gives the normal quantile, df <= 0 or NaN gives NaN."""
-    df = np.asarray(df, dtype=float)
-    q = 0.5 + float(confidence) / 2.0
-    ok = np.isfinite(df) & (df > 0)
-    out = np.full(df.shape, np.nan)
-    with np.errstate(invalid="ignore"):
-        if ok.any():
-            # one quantile per distinct df (the same numbers as one per element, fewer of them)
-            inv, u = pd.factorize(df[ok])
-            out[ok] = stats.t.ppf(q, np.asarray(u, dtype=float))[inv]
-        out = np.where(np.isposinf(df), stats.norm.ppf(q), out)
-    return out
-
-
-def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
-    """Welch-Satterthwaite df of var_a + var_b (a term with zero variance contributes nothing)."""
-    va, vb = np.asarray(var_a, float), np.asarray(var_b, float)
-    da, db = np.asarray(df_a, float), np.asarray(df_b, float)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ta = np.where(va > 0, va ** 2 / da, 0.0)
-        tb = np.where(vb > 0, vb ** 2 / db, 0.0)
-        den = ta + tb
-        out = np.where(den > 0, (va + vb) ** 2 / den, np.inf)
-    return out
 
 
 #: last conversion at or above which a well counts as fully converted: its TON is then capped by

@@ -1,0 +1,38 @@
+"""The few rules of interval arithmetic every module shares, written once.
+
+* :func:`t_quantile`: two-sided Student t quantile at ``confidence`` for ``df`` degrees of freedom
+  (``scipy.special.stdtrit``, so no module needs ``scipy.stats``); ``df = inf`` gives the normal
+  quantile (``scipy.special.ndtri``); ``df <= 0`` or NaN gives NaN.
+* :func:`welch_df`: the Welch-Satterthwaite degrees of freedom of a sum of two independent
+  variance terms (Welch, Biometrika 1947, 34, 28; Satterthwaite, Biometrics Bull. 1946, 2, 110):
+  ``(va + vb)^2 / (va^2 / da + vb^2 / db)``, a term with zero variance contributing nothing and
+  the result ``inf`` when both are zero.
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy import special
+
+
+def t_quantile(confidence: float, df) -> np.ndarray:
+    """Two-sided Student t quantile; df = inf gives the normal quantile, df <= 0 or NaN gives NaN."""
+    df = np.asarray(df, dtype=float)
+    p = 0.5 + float(confidence) / 2.0
+    finite = np.isfinite(df) & (df > 0)
+    with np.errstate(invalid="ignore"):
+        out = np.where(finite, special.stdtrit(np.where(finite, df, 1.0), p), np.nan)
+    return np.where(np.isposinf(df), special.ndtri(p), out)
+
+
+def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
+    """Welch-Satterthwaite df of var_a + var_b (a term with zero variance contributes nothing)."""
+    va, vb = np.asarray(var_a, float), np.asarray(var_b, float)
+    da, db = np.asarray(df_a, float), np.asarray(df_b, float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ta = np.where(va > 0, va ** 2 / da, 0.0)
+        tb = np.where(vb > 0, vb ** 2 / db, 0.0)
+        den = ta + tb
+        return np.where(den > 0, (va + vb) ** 2 / den, np.inf)
+
+
+__all__ = ["t_quantile", "welch_df"]
