@@ -113,6 +113,10 @@ def test_analysis_settings_are_checked():
     probs = problems(campaign_toml=GOOD_TOML + "confidense = 0.9\nconfidence = \"high\"\n")
     find(probs, "campaign.toml", "unknown analysis setting", column="analysis.confidense")
     find(probs, "campaign.toml", "analysis settings must be numbers", column="analysis.confidence")
+    # the ranges are the settings' own (screenlab.settings.setting_problem), with the line
+    probs = problems(campaign_toml=GOOD_TOML + "confidence = 7\nconversion_window_pct = -5\n")
+    find(probs, "campaign.toml", r"confidence = 7 is out of range", column="analysis.confidence")
+    find(probs, "campaign.toml", r"conversion_window_pct = -5 is out of range", column="analysis.conversion_window_pct")
 
 
 def test_table_that_is_not_a_table():

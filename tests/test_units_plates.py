@@ -99,3 +99,17 @@ def test_neutralise_frame_keeps_numbers_and_input():
     out = neutralise_frame(df)
     assert out["name"].tolist() == ["'=1+1", "ok"] and df["name"].iloc[0] == "=1+1"
     assert np.isnan(out["x"].iloc[1])
+
+
+def test_settings_out_of_range_are_refused_by_the_settings_themselves():
+    from screenlab.errors import UsageError
+
+    with pytest.raises(UsageError, match=r"confidence = 7 is out of range.*conversion_window_pct = -5"):
+        AnalysisSettings.from_mapping({"confidence": 7, "conversion_window_pct": -5})
+    with pytest.raises(UsageError, match="confidence"):
+        AnalysisSettings(confidence=1.0)
+    with pytest.raises(UsageError, match="reference_temperature_c"):
+        AnalysisSettings(reference_temperature_c=-300.0)
+    with pytest.raises(UsageError, match="min_window_points"):
+        AnalysisSettings.from_mapping({"min_window_points": 2.5})
+    assert AnalysisSettings.from_mapping({"confidence": 0.5, "zprime_min": -2}).confidence == 0.5

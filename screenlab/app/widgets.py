@@ -97,8 +97,15 @@ def _setting_input(name: str, default, campaign: str):
             options = sorted({*options, float(default)})
         return st.select_slider(label, options=options, value=float(default), key=key, help=helptext,
                                 format_func=lambda v: f"{v * 100:g} %")
+    from screenlab.settings import SETTINGS
+
     step = {"reference_temperature_c": 5.0, "conversion_window_pct": 5.0, "outlier_z": 0.5, "zprime_min": 0.1}[name]
-    return st.number_input(label, value=float(default), step=step, key=key, help=helptext)
+    # the widget's range is the setting's own (the rule AnalysisSettings checks)
+    lo, hi, lo_in, hi_in = next(s for s in SETTINGS if s.name == name).bounds
+    lo = lo if lo_in else lo + (1e-6 if abs(lo) < 1 else 0.01)
+    hi = hi if hi_in else hi - 1e-6
+    return st.number_input(label, value=float(default), step=step, key=key, help=helptext,
+                           min_value=float(lo), max_value=float(hi))
 
 
 def context() -> Context:

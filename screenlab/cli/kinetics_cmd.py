@@ -67,13 +67,14 @@ def register(sub) -> None:
 def _check(args) -> None:
     from screenlab.errors import UsageError
 
-    if args.confidence is not None and not 0.5 <= args.confidence < 1.0:
-        raise UsageError(f"--confidence {args.confidence}: give a level between 0.5 and 1, e.g. 0.95")
-    if args.window is not None and not 0.0 < args.window <= 100.0:
-        raise UsageError(f"--window {args.window}: give a conversion percentage above 0 and at most 100")
-    ref = getattr(args, "reference_temperature", None)
-    if ref is not None and ref <= -273.15:
-        raise UsageError(f"--reference-temperature {ref}: below absolute zero")
+    from screenlab.settings import setting_problem
+
+    for flag, name, value in (("--confidence", "confidence", args.confidence),
+                              ("--window", "conversion_window_pct", args.window),
+                              ("--reference-temperature", "reference_temperature_c",
+                               getattr(args, "reference_temperature", None))):
+        if value is not None and (why := setting_problem(name, value)):
+            raise UsageError(f"{flag} {value:g}: {why}")
 
 
 def _kinetics(args):

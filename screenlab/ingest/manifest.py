@@ -9,7 +9,7 @@ from typing import Any
 from screenlab import units
 from screenlab.errors import Problem
 from screenlab.model import DEFAULT_ANALYTE, READOUT_KINDS, Manifest
-from screenlab.settings import SETTINGS
+from screenlab.settings import SETTINGS, setting_problem
 
 FILE = "campaign.toml"
 SCALES = ("percent", "fraction")
@@ -207,6 +207,8 @@ def parse_manifest(data: bytes | None, problems: list[Problem]) -> tuple[Manifes
                 bad("analysis", key, v, f"'{key}' must be true or false")
         elif _num(v) is None:
             bad("analysis", key, v, "analysis settings must be numbers")
+        elif (why := setting_problem(key, v)):
+            bad("analysis", key, v, why)
 
     # analytes
     main = DEFAULT_ANALYTE
