@@ -33,12 +33,38 @@ _PARSER_SAW = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
 _PARSER_EOF = re.compile(r"EOF inside string starting at row (\d+)")
 
 
+@dataclass(frozen=True)
+class Origin:
+    """Where the cells of a reshaped table came from (readings given as plate grids or by sample
+    code, turned into the long readings table before they are checked).
+
+    ``files`` holds each row's file label (for a grid, the file and sheet); ``cells`` maps a
+    column of the reshaped table to, per row, the spreadsheet row (0: none) and the column label
+    of the cell that column's value was read from. A column not in ``cells`` is reported with the
+    row's own spreadsheet row and its own name.
+    """
+
+    files: np.ndarray
+    cells: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
+
+    def locate(self, column: str | None, idx: np.ndarray, rows: np.ndarray
+               ) -> tuple[np.ndarray, np.ndarray, list]:
+        """(file labels, spreadsheet rows, column labels) of the rows ``idx`` for ``column``."""
+        files = self.files[idx]
+        if column in self.cells:
+            r, c = self.cells[column]
+            return files, r[idx], list(c[idx])
+        return files, rows[idx], [column] * len(idx)
+
+
 @dataclass
 class RawTable:
     """One table as text.
 
     ``frame`` has one column per (normalised) header name, all cells stripped strings ('' when
-    blank); ``rows`` holds each frame row's spreadsheet row number (header = 1).
+    blank); ``rows`` holds each frame row's spreadsheet row number (header = 1). ``origin`` is
+    set for a table reshaped from another form (see :class:`Origin`): problems are then reported
+    where the cell came from.
     """
 
     name: str
@@ -46,6 +72,7 @@ class RawTable:
     rows: np.ndarray
     decimal_comma: bool = False
     notes: list[str] = field(default_factory=list)
+    origin: Origin | None = None
 
     @property
     def n_rows(self) -> int:
@@ -240,17 +267,25 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     return cells.fillna(""), lead, delim, None, None
 
 
-def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.DataFrame | None:
-    try:
-        cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=0, header=None, dtype=str)
-    except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
-        problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
-        return None
+def _xlsx_frame(cells: pd.DataFrame) -> pd.DataFrame:
     cells = cells.fillna("").astype(str)
     # date cells arrive as 'YYYY-MM-DD 00:00:00'; keep the ISO date
     for c in cells.columns:
         cells[c] = cells[c].str.replace(r"^(\d{4}-\d{2}-\d{2})[ T]00:00:00$", r"\1", regex=True)
     return cells
+
+
+def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem], sheet=0):
+    """The first sheet (``sheet=0``) as a frame of text, or every sheet (``sheet=None``) as
+    ``{sheet name: frame}``; None (problem recorded) when the workbook cannot be read."""
+    try:
+        cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=sheet, header=None, dtype=str)
+    except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
+        problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
+        return None
+    if isinstance(cells, dict):
+        return {str(k): _xlsx_frame(v) for k, v in cells.items()}
+    return _xlsx_frame(cells)
 
 
 def _nonblank(cells: pd.DataFrame) -> np.ndarray:
@@ -265,28 +300,23 @@ def _nonblank(cells: pd.DataFrame) -> np.ndarray:
     return total > 0
 
 
-def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | None:
-    """Read one CSV/XLSX file into a :class:`RawTable`; problems are appended, never raised.
+@dataclass
+class Cells:
+    """The cells of one CSV file or one sheet, before a header is taken: every cell stripped text
+    ('' when blank, the formula guard removed), ``rows`` the spreadsheet row of each frame row
+    (1-based) and ``nonblank`` the rows with at least one non-empty cell."""
 
-    Returns None when the file has no usable header (the problem is recorded).
-    """
-    notes: list[str] = []
-    decimal_comma = False
-    offset = 0
-    records = nonblank = None
-    if name.lower().endswith(".xlsx"):
-        cells = _read_xlsx_cells(name, data, problems)
-        if cells is None:
-            return None
-    else:
-        got = _read_plain_csv(data)
-        if got is None:
-            text = decode_text(name, data, notes)
-            got = _read_csv_cells(name, text, problems)
-        if got is None:
-            return None
-        cells, offset, delim, records, nonblank = got
-        decimal_comma = delim in (";", "\t")
+    name: str
+    frame: pd.DataFrame
+    rows: np.ndarray
+    nonblank: np.ndarray
+    decimal_comma: bool = False
+    notes: list[str] = field(default_factory=list)
+
+
+def _finish_cells(name: str, cells: pd.DataFrame, problems: list[Problem], *, offset: int = 0,
+                  records: np.ndarray | None = None, nonblank: np.ndarray | None = None,
+                  decimal_comma: bool = False, notes: list[str] | None = None) -> Cells | None:
     # strip padding; a leading apostrophe before = + - @ is the formula guard our own exports add
     # (screenlab.export.safe), so such cells read back as the text that was exported
     if records is None and len(cells.columns):
@@ -294,14 +324,56 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
     if cells.empty:
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
-    # drop blank rows but keep the spreadsheet row numbers of the others
+    # the spreadsheet row numbers of every row (blank rows are dropped later)
     rownum = (np.arange(len(cells), dtype=np.int64) if records is None else records.astype(np.int64)) + 1 + offset
     nonblank = _nonblank(cells) if nonblank is None else nonblank
-    first = int(np.argmax(nonblank)) if nonblank.any() else -1
-    if first < 0:
+    if not nonblank.any():
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
+    return Cells(name=name, frame=cells, rows=rownum, nonblank=nonblank, decimal_comma=decimal_comma,
+                 notes=list(notes or ()))
+
+
+def read_cells(name: str, data: bytes, problems: list[Problem]) -> Cells | None:
+    """Read one CSV file (or the first sheet of an XLSX file) into :class:`Cells`; problems are
+    appended, never raised. None when the file cannot be read or is empty (the problem recorded)."""
+    notes: list[str] = []
+    if name.lower().endswith(".xlsx"):
+        cells = _read_xlsx_cells(name, data, problems)
+        if cells is None:
+            return None
+        return _finish_cells(name, cells, problems, notes=notes)
+    got = _read_plain_csv(data)
+    if got is None:
+        text = decode_text(name, data, notes)
+        got = _read_csv_cells(name, text, problems)
+    if got is None:
+        return None
+    cells, offset, delim, records, nonblank = got
+    return _finish_cells(name, cells, problems, offset=offset, records=records, nonblank=nonblank,
+                         decimal_comma=delim in (";", "\t"), notes=notes)
+
+
+def read_sheets(name: str, data: bytes, problems: list[Problem]) -> dict[str, Cells | None] | None:
+    """Every sheet of an XLSX workbook as :class:`Cells` (None for an empty sheet, nothing
+    recorded for it); None when the workbook cannot be read (the problem recorded)."""
+    sheets = _read_xlsx_cells(name, data, problems, sheet=None)
+    if sheets is None:
+        return None
+    out: dict[str, Cells | None] = {}
+    for sheet, cells in sheets.items():  # sheets of one workbook (one per plate), not rows
+        quiet: list[Problem] = []
+        out[sheet] = _finish_cells(f"{name} [sheet {sheet}]", cells, quiet)
+    return out
+
+
+def table_from_cells(c: Cells, problems: list[Problem]) -> RawTable | None:
+    """The first non-blank row of ``c`` as the header, the rows below it as the data rows (blank
+    rows dropped, spreadsheet row numbers kept). None when the header is unusable (recorded)."""
+    name, cells, rownum, nonblank = c.name, c.frame, c.rows, c.nonblank
+    first = int(np.argmax(nonblank))
     header = [normalise_header(v) for v in cells.iloc[first].tolist()]
+    header_row = int(rownum[first])
     body = cells.iloc[first + 1:]
     body_rows = rownum[first + 1:]
     keep = nonblank[first + 1:]
@@ -322,7 +394,7 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
                 ok = False
             continue  # empty trailing (or padding) column
         if h in used:
-            problems.append(Problem(name, 1 + offset, h, None,
+            problems.append(Problem(name, header_row, h, None,
                                     f"duplicate header name: columns {used[h] + 1} and {j + 1} are both '{h}'"))
             ok = False
             continue
@@ -335,4 +407,13 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
     frame.columns = columns
     frame = frame.reset_index(drop=True)
     return RawTable(name=name, frame=frame, rows=np.asarray(body_rows, dtype=np.int64),
-                    decimal_comma=decimal_comma, notes=notes)
+                    decimal_comma=c.decimal_comma, notes=list(c.notes))
+
+
+def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | None:
+    """Read one CSV/XLSX file into a :class:`RawTable`; problems are appended, never raised.
+
+    Returns None when the file has no usable header (the problem is recorded).
+    """
+    c = read_cells(name, data, problems)
+    return None if c is None else table_from_cells(c, problems)

@@ -1,6 +1,7 @@
 """The DuckDB store (the only package that imports duckdb). See :mod:`screenlab.store.db`."""
 from __future__ import annotations
 
+from screenlab.store.addreadings import add_readings, campaigns_awaiting_readings, plate_readings
 from screenlab.store.db import (
     BUILTIN_EXTENSIONS,
     ImportRefusedError,
@@ -9,4 +10,5 @@ from screenlab.store.db import (
     plate_fingerprints,
 )
 
-__all__ = ["BUILTIN_EXTENSIONS", "ImportRefusedError", "ImportReport", "Store", "plate_fingerprints"]
+__all__ = ["BUILTIN_EXTENSIONS", "ImportRefusedError", "ImportReport", "Store", "add_readings",
+           "campaigns_awaiting_readings", "plate_fingerprints", "plate_readings"]

@@ -1,0 +1,592 @@
+"""Readings as instruments write them: plate grids and sample-named tables.
+
+Both forms are reshaped into the long readings table of text cells (``plate, well, time, value[,
+analyte]``) that :func:`screenlab.ingest.validate.check_readings` then checks exactly as it checks
+a long ``readings.csv``: the same number parsing, ranges, layout cross-checks, duplicate test and
+sort. That is what makes every form give the same stored readings. The reshaped table carries an
+:class:`~screenlab.ingest.tables.Origin`, so a problem those checks find names the file (and
+sheet), row and column of the cell the value came from.
+
+Plate grids (docs/campaign-format.md, "Other forms of readings")
+----------------------------------------------------------------
+One file per plate (``<plate>.csv`` / ``<plate>.xlsx``, first sheet) or one workbook with one sheet
+per plate (sheet name = plate id). Each holds one block per time point (and analyte):
+
+* a label row: first cell ``time``, second cell the time in the manifest's time unit, optionally
+  ``analyte`` and the analyte's name in the next two cells;
+* the header row: an empty first cell, then the column numbers 1..C of the plate's format;
+* one row per plate row: its letter (A.., any case) first, then one value per column. An empty
+  cell (or ``NA``, ``n/a``, ``null``, ``none``) is no reading.
+
+Blank rows may separate blocks (and rows of a block). Lines above the first label row (an
+instrument's own header) are skipped and reported in a note. A plate reader reads every position:
+values on positions that layout.csv marks ``empty`` or does not list are not imported and are
+reported in a note (and as "extra" in the app's preview). Every other irregularity is a problem
+naming file (and sheet), row and column: a missing or repeated row letter, a letter outside the
+format, a column number missing, repeated or out of range, a value beside the header, text in a
+value cell, a block without a time, two blocks for the same time (and analyte), a file for an
+unknown plate. For a grid, the column of a problem is the grid's column number (``time`` or
+``analyte`` for the label row).
+
+Sample-named readings
+---------------------
+A readings table with a ``sample`` column and neither ``plate`` nor ``well`` names each well by
+the code of layout.csv's ``sample`` column (unique within the campaign). An unknown code is refused
+with its row and value; a code read twice at one time is the long form's duplicate reading.
+
+Which form a file is (used for campaign folders, ``screenlab add-readings`` and the app): a CSV or
+XLSX whose first non-blank row (first sheet) names the columns ``time`` and ``value`` is a table
+(long, or sample-named); otherwise a CSV is the grid of the plate its file name names, and an XLSX
+is that plate's grid when its file name is a plate id, else a workbook with one sheet per plate.
+
+Everything is vectorised over cells; the loops run over files, sheets and blocks.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import PurePosixPath
+
+import numpy as np
+import pandas as pd
+
+from screenlab import plates as platelib
+from screenlab.errors import Problem
+
+from .tables import Cells, Origin, RawTable, normalise_header, read_cells, read_sheets, table_from_cells
+from .validate import NA_WORDS, READING_COLUMNS, SAMPLE_COLUMN, parse_names
+
+#: the columns of the reshaped long table
+LONG_COLUMNS = ("plate", "well", "time", "value", "analyte")
+READINGS_EXTENSIONS = (".csv", ".xlsx")
+
+
+@dataclass
+class _Piece:
+    """Part of the reshaped long table: text columns and where each cell came from."""
+
+    frame: pd.DataFrame                                  # LONG_COLUMNS as text ('' when not given)
+    files: np.ndarray                                    # per row: file (and sheet) label
+    rows: np.ndarray                                     # per row: spreadsheet row of the value
+    cells: dict[str, tuple[np.ndarray, np.ndarray]]      # column -> (rows, column labels)
+    has_analyte: bool
+    form: str                                            # long | sample | grid
+
+
+@dataclass
+class GatheredReadings:
+    """The readings of one or more files, reshaped to the long table (not yet checked).
+
+    ``table`` is None when nothing usable arrived (the problems say why). ``reshaped`` is True
+    when ``table`` was built from grids, sample codes or several files (it then carries an
+    :class:`Origin`, and the problems of its checks should be de-duplicated: one bad time cell of a
+    grid is the time of every cell of its block). ``forms`` names the forms that arrived,
+    ``records`` the files read as ``(label, n_rows)``, ``outside`` the grid values left out
+    because the layout leaves their position empty (``plate, well, n``).
+    """
+
+    table: RawTable | None
+    reshaped: bool
+    forms: tuple[str, ...]
+    records: list[tuple[str, int]] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    outside: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(
+        {"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"), "n": pd.Series(dtype="int64")}))
+
+
+# ----------------------------------------------------------------------------------- helpers
+
+def _text(values) -> pd.Series:
+    return pd.Series(np.asarray(values, dtype=object), dtype="str")
+
+
+def _repeat(value, n: int) -> np.ndarray:
+    return np.full(n, value, dtype=object)
+
+
+def is_table_header(c: Cells) -> bool:
+    """Does the first non-blank row name the columns ``time`` and ``value`` (a readings table)?"""
+    first = int(np.argmax(c.nonblank))
+    names = {normalise_header(v) for v in c.frame.iloc[first].tolist()}
+    return "time" in names and "value" in names
+
+
+def is_sample_table(t: RawTable) -> bool:
+    """A readings table naming wells by sample code: a ``sample`` column, no ``plate``, no ``well``."""
+    return t.has(SAMPLE_COLUMN) and not t.has("plate") and not t.has("well")
+
+
+def _plate_for(name: str, plate_ids: list[str]) -> str | None:
+    """The plate id a file or sheet name stands for: exact, else the one id equal ignoring case."""
+    if name in plate_ids:
+        return name
+    low = [p for p in plate_ids if p.lower() == name.lower()]
+    return low[0] if len(low) == 1 else None
+
+
+def _decimal_point(s: pd.Series | np.ndarray, decimal_comma: bool):
+    if not decimal_comma:
+        return s
+    return pd.Series(np.asarray(s, dtype=object), dtype="str").str.replace(",", ".", regex=False).to_numpy(dtype=object)
+
+
+# ----------------------------------------------------------------------------------- long and sample tables
+
+def _require(t: RawTable, required, problems: list[Problem]) -> bool:
+    missing = [c for c in required if not t.has(c)]
+    if missing:
+        found = ", ".join(t.frame.columns) or "none"
+        problems.append(Problem(t.name, 1, ", ".join(missing), None,
+                                f"missing required column{'s' if len(missing) > 1 else ''}: "
+                                f"{', '.join(missing)} (found: {found})"))
+    return not missing
+
+
+def _unused_note(t: RawTable, known) -> list[str]:
+    extra = [c for c in t.frame.columns if c not in known]
+    if extra:
+        return [f"{t.name}: column{'s' if len(extra) > 1 else ''} {', '.join(extra)} not used"]
+    return []
+
+
+def _table_piece(t: RawTable, problems: list[Problem], notes: list[str]) -> _Piece | None:
+    """A long readings table as a piece (for combining it with other files)."""
+    if not _require(t, ["plate", "well", "time", "value"], problems):
+        return None
+    notes.extend(_unused_note(t, READING_COLUMNS))
+    n = len(t.frame)
+    frame = pd.DataFrame({c: (t.frame[c].to_numpy(dtype=object) if t.has(c) else _repeat("", n))
+                          for c in LONG_COLUMNS})
+    for c in ("time", "value"):
+        frame[c] = _decimal_point(frame[c], t.decimal_comma)
+    files = _repeat(t.name, n)
+    cells = {c: (t.rows, _repeat(c, n)) for c in LONG_COLUMNS}
+    return _Piece(frame, files, t.rows, cells, t.has("analyte"), "long")
+
+
+def _sample_piece(t: RawTable, wells: pd.DataFrame | None, problems: list[Problem],
+                  notes: list[str]) -> _Piece | None:
+    """A sample-named readings table (``sample, time, value[, analyte]``) as a long piece: each
+    code looked up in the layout's sample column; unknown or blank codes are problems (their rows
+    are left out)."""
+    if not _require(t, [SAMPLE_COLUMN, "time", "value"], problems):
+        return None
+    notes.extend(_unused_note(t, (SAMPLE_COLUMN, "time", "value", "analyte")))
+    if wells is None:  # the layout could not be read: its problems say so
+        return None
+    if SAMPLE_COLUMN not in wells.columns:
+        problems.append(Problem(t.name, 1, SAMPLE_COLUMN, None,
+                                "the readings name their wells by sample code, but layout.csv has no 'sample' "
+                                "column; add one (a code unique within the campaign for each well read)"))
+        return None
+    code = t.frame[SAMPLE_COLUMN]
+    known = wells[wells[SAMPLE_COLUMN].notna()]
+    index = pd.Index(known[SAMPLE_COLUMN].astype(str).to_numpy())
+    codes, uniques = pd.factorize(code, use_na_sentinel=True)
+    pos_u = index.get_indexer(pd.Index(np.asarray(uniques, dtype=object)))  # once per distinct code
+    pos = np.append(pos_u, -1)[codes]
+    blank = (code == "").to_numpy(dtype=bool)
+    unknown = ~blank & (pos < 0)
+    rows = t.rows
+    for mask, message in ((blank, "a sample code is required"),
+                          (unknown, "unknown sample code (not in the 'sample' column of layout.csv)")):
+        for i in np.flatnonzero(mask):  # the failing rows only
+            problems.append(Problem(t.name, int(rows[i]), SAMPLE_COLUMN, None if blank[i] else str(code.iloc[i]),
+                                    message))
+    keep = pos >= 0
+    idx = np.flatnonzero(keep)
+    hit = pos[keep]
+    n = len(idx)
+    frame = pd.DataFrame({
+        "plate": known["plate"].astype(str).to_numpy(dtype=object)[hit],
+        "well": known["well"].astype(str).to_numpy(dtype=object)[hit],
+        "time": _decimal_point(t.frame["time"].to_numpy(dtype=object)[idx], t.decimal_comma),
+        "value": _decimal_point(t.frame["value"].to_numpy(dtype=object)[idx], t.decimal_comma),
+        "analyte": t.frame["analyte"].to_numpy(dtype=object)[idx] if t.has("analyte") else _repeat("", n),
+    })
+    r = rows[idx]
+    # plate and well came from the sample code: report them at the code's cell
+    cells = {c: (r, _repeat(SAMPLE_COLUMN if c in ("plate", "well") else c, n)) for c in LONG_COLUMNS}
+    return _Piece(frame, _repeat(t.name, n), r, cells, t.has("analyte"), "sample")
+
+
+# ----------------------------------------------------------------------------------- grids
+
+def _grid_piece(c: Cells, label: str, plate: str, fmt: int, problems: list[Problem],
+                notes: list[str]) -> _Piece | None:
+    """The blocks of one grid file or sheet as a long piece (see the module docstring)."""
+    n_rows, n_cols = platelib.FORMATS[fmt]
+    letters_ok = platelib.ROW_LETTERS[:n_rows]
+    last = letters_ok[-1]
+    raw = c.frame.to_numpy(dtype=object)
+    F = np.full((raw.shape[0], max(raw.shape[1], 4)), "", dtype=object)
+    F[:, :raw.shape[1]] = raw
+    rows, nonblank = c.rows, c.nonblank
+    first_cell = pd.Series(F[:, 0], dtype="str").str.lower().to_numpy(dtype=object)
+    labels = np.flatnonzero(nonblank & (first_cell == "time"))
+    n0 = len(problems)
+
+    def bad(row, column, value, message):
+        problems.append(Problem(label, None if row is None else int(row), column,
+                                None if value is None else str(value), message))
+
+    if not len(labels):
+        bad(None, None, None, "no block found: each block starts with a row whose first cell is 'time' and whose "
+                              "second cell is the time; then the header row (empty first cell, column numbers "
+                              f"1..{n_cols}) and one row per plate row A-{last}")
+        return None
+    skipped = np.flatnonzero(nonblank[:labels[0]])
+    if len(skipped):
+        notes.append(f"{label}: skipped {len(skipped)} line{'s' if len(skipped) != 1 else ''} above the first "
+                     f"block (rows {rows[skipped[0]]}-{rows[skipped[-1]]}, an instrument header)")
+    parts = []
+    seen: dict[tuple, int] = {}
+    for b, li in enumerate(labels):  # one pass per block (time point / analyte), not per cell
+        end = labels[b + 1] if b + 1 < len(labels) else len(F)
+        lrow = int(rows[li])
+        t_text, a_word, a_name = str(F[li, 1]), str(F[li, 2]), str(F[li, 3])
+        block_ok = True
+        if a_word and a_word.lower() != "analyte":
+            bad(lrow, None, a_word, "unexpected cell in the 'time' row: after the time only 'analyte' and the "
+                                    "analyte's name may follow")
+            block_ok = False
+        elif a_word and not a_name:
+            bad(lrow, "analyte", None, "'analyte' must be followed by the analyte's name")
+            block_ok = False
+        rest = [x for x in F[li, 4:] if x != ""]
+        if rest:
+            bad(lrow, None, rest[0], "unexpected cell in the 'time' row: it holds 'time', the time and optionally "
+                                     "'analyte' and the analyte's name")
+            block_ok = False
+        if not t_text:
+            bad(lrow, "time", None, "a block without a time: the 'time' row needs the time (in the manifest's time "
+                                    "unit) in its second cell")
+            block_ok = False
+        seg = li + 1 + np.flatnonzero(nonblank[li + 1:end])
+        if not len(seg) or F[seg[0], 0] != "":
+            bad(rows[seg[0]] if len(seg) else lrow, None, F[seg[0], 0] if len(seg) else None,
+                f"the 'time' row must be followed by the header row: an empty first cell, then the column numbers "
+                f"1..{n_cols}")
+            continue
+        hdr, data = seg[0], seg[1:]
+        hrow = int(rows[hdr])
+        if len(data) and (first_cell[data] == "").any():
+            j = data[np.flatnonzero(first_cell[data] == "")[0]]
+            bad(rows[j], None, None, "a second header row in one block: each block starts with its own 'time' row "
+                                     "(a block without a time)")
+            continue
+        # header: the column numbers
+        hcells = F[hdr, 1:]
+        filled = np.flatnonzero(hcells != "")
+        nums = pd.to_numeric(pd.Series(hcells[filled], dtype=object), errors="coerce").to_numpy(dtype=float)
+        is_int = np.isfinite(nums) & (nums == np.round(nums))
+        for k in np.flatnonzero(~is_int):  # the bad header cells only
+            bad(hrow, None, hcells[filled[k]], f"not a column number (the header row holds the column numbers "
+                                               f"1..{n_cols} after an empty first cell)")
+        outside = is_int & ((nums < 1) | (nums > n_cols))
+        for k in np.flatnonzero(outside):
+            bad(hrow, str(int(nums[k])), hcells[filled[k]],
+                f"column number {int(nums[k])} is outside the plate's {fmt}-well format (columns 1-{n_cols})")
+        good = is_int & ~outside
+        vals, counts = np.unique(nums[good].astype(int), return_counts=True)
+        for k in vals[counts > 1]:
+            bad(hrow, str(k), str(k), f"column number {k} appears more than once in the header row")
+        missing = sorted(set(range(1, n_cols + 1)) - set(vals.tolist()))
+        if missing:
+            bad(hrow, None, ", ".join(map(str, missing)),
+                f"the header row lacks column{'s' if len(missing) > 1 else ''} {', '.join(map(str, missing))} "
+                f"(a {fmt}-well plate has columns 1-{n_cols})")
+        header_ok = bool(is_int.all() and not outside.any() and (counts == 1).all() and not missing)
+        # the plate rows: their letters
+        letter = pd.Series(F[data, 0], dtype="str").str.upper().to_numpy(dtype=object)
+        uniq = pd.unique(letter)
+        pos_u = np.array([letters_ok.find(x) if len(x) == 1 else -1 for x in uniq], dtype=np.int64)  # distinct
+        ridx = pos_u[pd.Index(uniq).get_indexer(letter)] if len(letter) else np.zeros(0, np.int64)
+        for k in np.flatnonzero(ridx < 0):  # the bad rows only
+            bad(rows[data[k]], None, F[data[k], 0],
+                f"not a row letter of the plate's {fmt}-well format (A-{last}); after the header row a block holds "
+                "one row per plate row, its letter first")
+        ok_rows = ridx >= 0
+        dup = ok_rows & pd.Series(np.where(ok_rows, ridx, -1 - np.arange(len(ridx)))).duplicated().to_numpy()
+        for k in np.flatnonzero(dup):
+            first = data[np.flatnonzero(ridx == ridx[k])[0]]
+            bad(rows[data[k]], None, letter[k], f"row {letter[k]} appears twice in this block (first on row "
+                                                f"{rows[first]})")
+        absent = [letters_ok[i] for i in range(n_rows) if i not in set(ridx[ok_rows].tolist())]
+        if absent:
+            bad(lrow, None, ", ".join(absent),
+                f"the block for time {t_text or '(none)'}{f' and analyte {a_name}' if a_name else ''} has no row "
+                f"{', '.join(absent)} (a {fmt}-well plate has rows A-{last}, each once)")
+        # values beside the header (under an empty header cell or right of the last number)
+        spare = np.ones(F.shape[1], dtype=bool)
+        spare[0] = False
+        spare[1 + filled] = False
+        if len(data) and spare.any():
+            side = F[np.ix_(data, np.flatnonzero(spare))]
+            hit = (side != "").any(axis=1)
+            for k in np.flatnonzero(hit):
+                j = np.flatnonzero(spare)[np.flatnonzero(side[k] != "")[0]]
+                bad(rows[data[k]], None, F[data[k], j], "a value in a column without a column number in the "
+                                                        "header row")
+        if not (block_ok and header_ok) or len(problems) > n0:
+            continue  # nothing is written anyway; the other blocks are still checked
+        t_num = pd.to_numeric(pd.Series([t_text.replace(",", ".") if c.decimal_comma else t_text]),
+                              errors="coerce").iloc[0]
+        key = (float(t_num) if np.isfinite(t_num) else t_text, a_name)
+        if key in seen:
+            bad(lrow, "time", t_text, f"a second block for time {t_text}{f' and analyte {a_name}' if a_name else ''} "
+                                      f"on this plate (first on row {seen[key]})")
+            continue
+        seen[key] = lrow
+        colnum = np.array([str(int(x)) for x in nums], dtype=object)       # per header cell (<= 24)
+        V = F[np.ix_(data, 1 + filled)]
+        flat = pd.Series(V.ravel(), dtype="str")
+        present = ~flat.str.lower().isin(NA_WORDS).to_numpy(dtype=bool)
+        ri, cj = np.divmod(np.flatnonzero(present), V.shape[1])
+        n = len(ri)
+        row_letter = np.array(list(letters_ok), dtype=object)[ridx]
+        value_rows = rows[data][ri]
+        value = V[ri, cj]
+        parts.append({
+            "plate": _repeat(plate, n), "well": row_letter[ri] + colnum[cj],
+            "time": _repeat(t_text, n), "value": _decimal_point(value, c.decimal_comma),
+            "analyte": _repeat(a_name, n), "_row": value_rows, "_col": colnum[cj], "_lrow": _repeat(lrow, n),
+        })
+    if len(problems) > n0:
+        return None
+    if not parts:
+        return _Piece(pd.DataFrame({col: _repeat("", 0) for col in LONG_COLUMNS}), _repeat(label, 0),
+                      np.zeros(0, np.int64), {}, False, "grid")
+    cat = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    n = len(cat["plate"])
+    frame = pd.DataFrame({col: cat[col] for col in LONG_COLUMNS})
+    time_time = (cat["_lrow"].astype(np.int64), _repeat("time", n))
+    where = (cat["_row"].astype(np.int64), cat["_col"])
+    cells = {"plate": (np.zeros(n, np.int64), _repeat(None, n)), "well": where, "value": where,
+             "time": time_time, "analyte": (cat["_lrow"].astype(np.int64), _repeat("analyte", n))}
+    named = bool((frame["analyte"].astype(str) != "").any())
+    return _Piece(frame, _repeat(label, n), where[0], cells, named, "grid")
+
+
+def _drop_outside_layout(piece: _Piece, wells: pd.DataFrame | None) -> tuple[_Piece, pd.DataFrame]:
+    """Grid values on positions the layout leaves empty (role empty, or not listed): a reader reads
+    the whole plate. Returns the piece without them and their ``plate, well, n``."""
+    none = pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
+                         "n": pd.Series(dtype="int64")})
+    if wells is None or not len(piece.frame):
+        return piece, none
+    used = wells[wells["role"].astype(str) != "empty"]
+    layout_keys = pd.Index((used["plate"].astype(str) + "\x1f" + used["well"].astype(str)).to_numpy())
+    keys = piece.frame["plate"].astype(str) + "\x1f" + piece.frame["well"].astype(str)
+    inside = layout_keys.get_indexer(pd.Index(keys.to_numpy())) >= 0
+    if inside.all():
+        return piece, none
+    out = piece.frame.loc[~inside, ["plate", "well"]]
+    extra = out.groupby(["plate", "well"], sort=False).size().rename("n").reset_index()
+    keep = np.flatnonzero(inside)
+    kept = _Piece(piece.frame.iloc[keep].reset_index(drop=True), piece.files[keep], piece.rows[keep],
+                  {k: (r[keep], c[keep]) for k, (r, c) in piece.cells.items()}, piece.has_analyte, piece.form)
+    return kept, extra.astype({"plate": "str", "well": "str", "n": "int64"})
+
+
+def _combine(pieces: list[_Piece], label: str) -> RawTable:
+    """One long table (text) from the pieces, with the origin of every cell."""
+    with_analyte = any(p.has_analyte for p in pieces)
+    cols = list(LONG_COLUMNS if with_analyte else LONG_COLUMNS[:-1])
+    frame = pd.DataFrame({c: _text(np.concatenate([p.frame[c].to_numpy(dtype=object) for p in pieces]))
+                          for c in cols})
+    files = np.concatenate([p.files for p in pieces])
+    rows = np.concatenate([p.rows for p in pieces]).astype(np.int64)
+    n = len(frame)
+    cells = {}
+    for c in cols:
+        r = [p.cells[c][0] if c in p.cells else p.rows for p in pieces]
+        lab = [p.cells[c][1] if c in p.cells else _repeat(c, len(p.rows)) for p in pieces]
+        cells[c] = (np.concatenate(r).astype(np.int64) if n else np.zeros(0, np.int64),
+                    np.concatenate(lab) if n else _repeat(None, 0))
+    return RawTable(name=label, frame=frame, rows=rows, origin=Origin(files=files, cells=cells))
+
+
+# ----------------------------------------------------------------------------------- the files of one delivery
+
+def gather_readings(files: dict[str, bytes], *, plates: pd.DataFrame | None, wells: pd.DataFrame | None,
+                    problems: list[Problem], label: str = "readings") -> GatheredReadings:
+    """Read the readings files of one delivery (any mix of forms) into one long table.
+
+    ``files`` maps a label (a file name or path, e.g. ``readings/UV-25.csv``) to its bytes; each is
+    classified by its content (module docstring). ``plates`` / ``wells`` are the campaign's checked
+    plates and layout (None when their files could not be read: the grid and sample checks that
+    need them are skipped). Problems are appended; nothing is raised. ``label`` names the whole
+    delivery in problems about it.
+    """
+    notes: list[str] = []
+    records: list[tuple[str, int]] = []
+    tables: list[RawTable] = []
+    grids: list[tuple[Cells, str, str]] = []           # (cells, label, plate id)
+    plate_ids = [] if plates is None else plates["plate"].astype(str).tolist()
+    fmt_of = {} if plates is None else dict(zip(plates["plate"].astype(str), plates["format"].astype(int)))
+    for name, data in files.items():  # a handful of files
+        base = PurePosixPath(name.replace("\\", "/")).name
+        stem, ext = (base.rsplit(".", 1) + [""])[:2]
+        ext = "." + ext.lower()
+        if ext not in READINGS_EXTENSIONS:
+            problems.append(Problem(name, None, None, None, "not a readings file: expected .csv or .xlsx"))
+            continue
+        if ext == ".csv":
+            c = read_cells(name, data, problems)
+            if c is None:
+                continue
+            notes.extend(c.notes)
+            if is_table_header(c):
+                t = table_from_cells(c, problems)
+                if t is not None:
+                    tables.append(t)
+                    records.append((name, t.n_rows))
+            else:
+                grids.append((c, name, stem))
+                records.append((name, int(c.nonblank.sum())))
+            continue
+        sheets = read_sheets(name, data, problems)
+        if sheets is None:
+            continue
+        first = next(iter(sheets.values()), None)
+        if first is not None and is_table_header(first):
+            t = table_from_cells(Cells(name, first.frame, first.rows, first.nonblank), problems)
+            if t is not None:
+                tables.append(t)
+                records.append((name, t.n_rows))
+            continue
+        if plates is not None and _plate_for(stem, plate_ids) is not None:  # one plate's grid: its first sheet
+            if first is None:
+                problems.append(Problem(name, None, None, None, "the file is empty"))
+                continue
+            grids.append((Cells(name, first.frame, first.rows, first.nonblank), name, stem))
+            records.append((name, int(first.nonblank.sum())))
+            continue
+        n_lines = 0
+        for sheet, c in sheets.items():  # a workbook: one sheet per plate
+            if c is None:
+                problems.append(Problem(f"{name} [sheet {sheet}]", None, None, None, "the sheet is empty"))
+                continue
+            grids.append((c, c.name, sheet))
+            n_lines += int(c.nonblank.sum())
+        records.append((name, n_lines))
+
+    pieces: list[_Piece] = []
+    forms: list[str] = []
+    outside_parts = []
+    single_long = len(tables) == 1 and not grids and not is_sample_table(tables[0])
+    for t in tables:
+        if is_sample_table(t):
+            p = _sample_piece(t, wells, problems, notes)
+            forms.append("sample")
+        else:
+            p = None if single_long else _table_piece(t, problems, notes)
+            forms.append("long")
+        if p is not None:
+            pieces.append(p)
+    done: dict[str, str] = {}
+    for c, glabel, name in grids:  # one per plate
+        forms.append("grid")
+        if plates is None:
+            continue
+        plate = _plate_for(name, plate_ids)
+        if plate is None:
+            where = "sheet" if "[sheet " in glabel else "file"
+            problems.append(Problem(glabel, None, None, name,
+                                    f"a grid {where} for an unknown plate: its name must be a plate id of plates.csv "
+                                    f"({', '.join(plate_ids[:8])}{' ...' if len(plate_ids) > 8 else ''})"))
+            continue
+        if plate in done:
+            problems.append(Problem(glabel, None, None, plate, f"a second grid for plate {plate} (the first is "
+                                                               f"{done[plate]})"))
+            continue
+        done[plate] = glabel
+        if fmt_of.get(plate, 0) not in platelib.FORMATS:  # its plates.csv row is wrong: reported there
+            continue
+        p = _grid_piece(c, glabel, plate, fmt_of[plate], problems, notes)
+        if p is None:
+            continue
+        p, extra = _drop_outside_layout(p, wells)
+        if len(extra):
+            shown = ", ".join(extra["well"].astype(str).tolist()[:12])
+            more = f" and {len(extra) - 12} more" if len(extra) > 12 else ""
+            notes.append(f"{glabel}: {int(extra['n'].sum())} value{'s' if int(extra['n'].sum()) != 1 else ''} on "
+                         f"{len(extra)} position{'s' if len(extra) != 1 else ''} that layout.csv marks empty or does "
+                         f"not list {'were' if int(extra['n'].sum()) != 1 else 'was'} not imported ({shown}{more})")
+            outside_parts.append(extra)
+        pieces.append(p)
+    outside = (pd.concat(outside_parts, ignore_index=True) if outside_parts
+               else GatheredReadings(None, False, ()).outside)
+    if single_long:
+        return GatheredReadings(tables[0], False, ("long",), records, notes, outside)
+    if not pieces:
+        return GatheredReadings(None, True, tuple(dict.fromkeys(forms)), records, notes, outside)
+    return GatheredReadings(_combine(pieces, label), True, tuple(dict.fromkeys(forms)), records, notes, outside)
+
+
+def reshape_sample_table(t: RawTable, wells: pd.DataFrame | None, problems: list[Problem],
+                         notes: list[str]) -> RawTable | None:
+    """A sample-named readings table as the long table (with the origin of its cells)."""
+    p = _sample_piece(t, wells, problems, notes)
+    return None if p is None else _combine([p], t.name)
+
+
+def unique_problems(problems: list[Problem]) -> list[Problem]:
+    """The problems without repeats, first occurrence first (a grid's bad time cell is reported by
+    every cell of its block)."""
+    return list(dict.fromkeys(problems))
+
+
+# ----------------------------------------------------------------------------------- what arrived
+
+#: statuses of a position in :func:`arrival_map`
+ARRIVAL_STATUSES = {
+    "read": "has readings",
+    "missing": "expected (in the layout, not empty) but no reading arrived",
+    "extra": "a reading arrived for a position the layout leaves empty or does not list",
+    "empty": "empty in the layout, nothing arrived",
+}
+
+
+def arrival_map(table: RawTable | None, outside: pd.DataFrame, plates: pd.DataFrame, wells: pd.DataFrame,
+                only_plates=None) -> pd.DataFrame:
+    """Every position of the plates (``only_plates``: these only) with what arrived for it.
+
+    Columns: ``plate, well, row, col, role, catalyst, n_readings, status`` (status one of
+    :data:`ARRIVAL_STATUSES`). Readings come from the reshaped, not yet checked ``table`` (wells
+    that do not parse are left out) and from the grid values left out (``outside``).
+    """
+    plates = plates if only_plates is None else plates[plates["plate"].astype(str).isin(list(only_plates))]
+    grid = []
+    for p in plates.itertuples():  # one per plate
+        if int(p.format) not in platelib.FORMATS:
+            continue
+        allw = platelib.all_wells(int(p.format))
+        grid.append(allw.assign(plate=str(p.plate)))
+    cols = ["plate", "well", "row", "col", "role", "catalyst", "n_readings", "status"]
+    if not grid:
+        return pd.DataFrame(columns=cols)
+    pos = pd.concat(grid, ignore_index=True)
+    lay = wells[["plate", "well", "role", "catalyst"]].astype({"plate": str, "well": str})
+    pos = pos.merge(lay, on=["plate", "well"], how="left")
+    counts = []
+    if table is not None and len(table.frame) and table.has("plate") and table.has("well"):
+        parsed = parse_names(table.frame["well"])
+        ok = parsed["well"].notna().to_numpy()
+        got = pd.DataFrame({"plate": table.frame["plate"].astype(str).to_numpy()[ok],
+                            "well": parsed["well"].astype(str).to_numpy()[ok]})
+        counts.append(got.groupby(["plate", "well"]).size().rename("n").reset_index())
+    if len(outside):
+        counts.append(outside[["plate", "well", "n"]].astype({"plate": str, "well": str}))
+    if counts:
+        n = pd.concat(counts, ignore_index=True).groupby(["plate", "well"])["n"].sum().reset_index()
+        pos = pos.merge(n, on=["plate", "well"], how="left")
+    else:
+        pos["n"] = 0
+    pos["n_readings"] = pos.pop("n").fillna(0).astype("int64")
+    used = pos["role"].notna() & (pos["role"].astype(str) != "empty")
+    has = pos["n_readings"] > 0
+    pos["status"] = np.select([used & has, used & ~has, ~used & has], ["read", "missing", "extra"], "empty")
+    pos["role"] = pos["role"].astype("str")
+    pos["catalyst"] = pos["catalyst"].astype("str")
+    return pos[cols]
