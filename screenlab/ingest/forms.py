@@ -43,6 +43,7 @@ Everything is vectorised over cells; the loops run over files, sheets and blocks
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from pathlib import PurePosixPath
 
@@ -52,7 +53,8 @@ import pandas as pd
 from screenlab import plates as platelib
 from screenlab.errors import Problem
 
-from .tables import Cells, Origin, RawTable, normalise_header, read_cells, read_sheets, table_from_cells
+from .tables import (Cells, Origin, RawTable, decode_text, normalise_header, read_cells, read_sheets,
+                     table_from_cells)
 from .validate import NA_WORDS, READING_COLUMNS, SAMPLE_COLUMN, parse_names
 
 #: the columns of the reshaped long table
@@ -123,6 +125,16 @@ def _plate_for(name: str, plate_ids: list[str]) -> str | None:
     return low[0] if len(low) == 1 else None
 
 
+_LABEL = re.compile(r"^[ \t]*[\"']?time[\"']?[ \t]*([,;\t])", re.IGNORECASE | re.MULTILINE)
+
+
+def _grid_delimiter(data: bytes) -> str | None:
+    """The delimiter of a grid file: the character after the first label row's ``time`` (the lines
+    above it are an instrument's own and may hold no delimiter, or another one)."""
+    m = _LABEL.search(decode_text("", data, []))
+    return m.group(1) if m else None
+
+
 def _decimal_point(s: pd.Series | np.ndarray, decimal_comma: bool):
     if not decimal_comma:
         return s
@@ -180,6 +192,7 @@ def _sample_piece(t: RawTable, wells: pd.DataFrame | None, problems: list[Proble
         return None
     code = t.frame[SAMPLE_COLUMN]
     known = wells[wells[SAMPLE_COLUMN].notna()]
+    known = known[~known[SAMPLE_COLUMN].duplicated(keep="first")]  # a repeated code is the layout's problem
     index = pd.Index(known[SAMPLE_COLUMN].astype(str).to_numpy())
     codes, uniques = pd.factorize(code, use_na_sentinel=True)
     pos_u = index.get_indexer(pd.Index(np.asarray(uniques, dtype=object)))  # once per distinct code
@@ -348,7 +361,8 @@ def _grid_piece(c: Cells, label: str, plate: str, fmt: int, problems: list[Probl
         value = V[ri, cj]
         parts.append({
             "plate": _repeat(plate, n), "well": row_letter[ri] + colnum[cj],
-            "time": _repeat(t_text, n), "value": _decimal_point(value, c.decimal_comma),
+            "time": _repeat(t_text.replace(",", ".") if c.decimal_comma else t_text, n),
+            "value": _decimal_point(value, c.decimal_comma),
             "analyte": _repeat(a_name, n), "_row": value_rows, "_col": colnum[cj], "_lrow": _repeat(lrow, n),
         })
     if len(problems) > n0:
@@ -442,6 +456,11 @@ def gather_readings(files: dict[str, bytes], *, plates: pd.DataFrame | None, wel
                     tables.append(t)
                     records.append((name, t.n_rows))
             else:
+                delim = _grid_delimiter(data)
+                if delim is not None and delim != c.delimiter:  # an instrument header chose another
+                    c = read_cells(name, data, problems, delimiter=delim)
+                    if c is None:
+                        continue
                 grids.append((c, name, stem))
                 records.append((name, int(c.nonblank.sum())))
             continue

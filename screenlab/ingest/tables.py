@@ -183,7 +183,8 @@ _OTHER_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e")
 _BLANK = b" \t\x1f"
 
 
-def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray, np.ndarray | None] | None:
+def _read_plain_csv(data: bytes, delimiter: str | None = None
+                    ) -> tuple[pd.DataFrame, int, str, np.ndarray, np.ndarray | None] | None:
     """The fast path straight from the file's bytes, skipping the decode / splitlines / join /
     encode of :func:`_read_csv_cells` (which it equals): taken for ASCII files without a quote and
     without the rarer line-break characters (VT, FF, FS, GS, RS), else None. Returns what
@@ -206,7 +207,7 @@ def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray, np
             return None  # no header at all: the text path says so
         lead, start = lead + 1, end + 1
     header = line.decode("ascii")
-    delim = _pick_delimiter(header)
+    delim = delimiter or _pick_delimiter(header)
     body = data[start:]
     if body.endswith(b"\n"):  # as "\n".join(text.splitlines()) has it: no final line end
         body = body[:-1]
@@ -216,7 +217,7 @@ def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray, np
     return fast[0], lead, delim, fast[1], fast[2]
 
 
-def _read_csv_cells(name: str, text: str, problems: list[Problem]
+def _read_csv_cells(name: str, text: str, problems: list[Problem], delimiter: str | None = None
                     ) -> tuple[pd.DataFrame, int, str, np.ndarray | None, np.ndarray | None] | None:
     """Text -> (cells frame with header row first, row offset, delimiter, record index of each
     cells row or None when every record is a row, non-blank row mask when known) or None when
@@ -232,7 +233,7 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
     body = "\n".join(lines[lead:])
-    delim = _pick_delimiter(lines[lead])
+    delim = delimiter or _pick_delimiter(lines[lead])
     fast = _arrow_cells(body, delim, lines[lead].count(delim) + 1)
     if fast is not None:
         return fast[0], lead, delim, fast[1], fast[2]
@@ -312,11 +313,13 @@ class Cells:
     nonblank: np.ndarray
     decimal_comma: bool = False
     notes: list[str] = field(default_factory=list)
+    delimiter: str | None = None   # of a CSV file
 
 
 def _finish_cells(name: str, cells: pd.DataFrame, problems: list[Problem], *, offset: int = 0,
                   records: np.ndarray | None = None, nonblank: np.ndarray | None = None,
-                  decimal_comma: bool = False, notes: list[str] | None = None) -> Cells | None:
+                  decimal_comma: bool = False, notes: list[str] | None = None,
+                  delimiter: str | None = None) -> Cells | None:
     # strip padding; a leading apostrophe before = + - @ is the formula guard our own exports add
     # (screenlab.export.safe), so such cells read back as the text that was exported
     if records is None and len(cells.columns):
@@ -331,27 +334,30 @@ def _finish_cells(name: str, cells: pd.DataFrame, problems: list[Problem], *, of
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
     return Cells(name=name, frame=cells, rows=rownum, nonblank=nonblank, decimal_comma=decimal_comma,
-                 notes=list(notes or ()))
+                 notes=list(notes or ()), delimiter=delimiter)
 
 
-def read_cells(name: str, data: bytes, problems: list[Problem]) -> Cells | None:
+def read_cells(name: str, data: bytes, problems: list[Problem], delimiter: str | None = None) -> Cells | None:
     """Read one CSV file (or the first sheet of an XLSX file) into :class:`Cells`; problems are
-    appended, never raised. None when the file cannot be read or is empty (the problem recorded)."""
+    appended, never raised. None when the file cannot be read or is empty (the problem recorded).
+
+    The delimiter of a CSV file is the one its first non-blank line holds most often, unless
+    ``delimiter`` is given."""
     notes: list[str] = []
     if name.lower().endswith(".xlsx"):
         cells = _read_xlsx_cells(name, data, problems)
         if cells is None:
             return None
         return _finish_cells(name, cells, problems, notes=notes)
-    got = _read_plain_csv(data)
+    got = _read_plain_csv(data, delimiter)
     if got is None:
         text = decode_text(name, data, notes)
-        got = _read_csv_cells(name, text, problems)
+        got = _read_csv_cells(name, text, problems, delimiter)
     if got is None:
         return None
     cells, offset, delim, records, nonblank = got
     return _finish_cells(name, cells, problems, offset=offset, records=records, nonblank=nonblank,
-                         decimal_comma=delim in (";", "\t"), notes=notes)
+                         decimal_comma=delim in (";", "\t"), notes=notes, delimiter=delim)
 
 
 def read_sheets(name: str, data: bytes, problems: list[Problem]) -> dict[str, Cells | None] | None:
