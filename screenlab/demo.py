@@ -45,12 +45,14 @@ import os
 import re
 import shutil
 import tempfile
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from screenlab.errors import DataQualityWarning
 from screenlab.plates import FORMATS, ROW_LETTERS, all_wells, is_edge, parse_wells
 from screenlab.units import R_J_MOL_K, ZERO_C_IN_K
 
@@ -825,7 +827,9 @@ def build_demo_store(path, folder=None) -> list:
     base = Path(folder) if folder is not None else demo_folder()
     store = Store(path)
     try:
-        return [store.import_campaign(read_campaign(f)) for f in find_campaigns(base)]
+        with warnings.catch_warnings():  # the demo's notes (the grid campaign's skipped lines) are expected
+            warnings.simplefilter("ignore", DataQualityWarning)
+            return [store.import_campaign(read_campaign(f)) for f in find_campaigns(base)]
     finally:
         close = getattr(store, "close", None)
         if callable(close):

@@ -142,15 +142,35 @@ def _file_of(table, plate: str) -> str:
 def _pick(files: dict[str, bytes]) -> dict[str, bytes]:
     """The readings files among the files of a folder or archive (relative posix paths): a
     campaign folder's readings.csv / readings.xlsx / readings/ grids when it has them, else every
-    .csv and .xlsx file that is not one of the campaign's other tables."""
+    .csv and .xlsx file at its top level that is not one of the campaign's other tables."""
     top = {k: b for k, b in files.items() if "/" not in k}
     own = {k: b for k, b in top.items() if k.lower() in ("readings.csv", "readings.xlsx")}
     own.update({k: b for k, b in files.items()
                 if k.count("/") == 1 and k.split("/")[0].lower() == READINGS_DIR and k.lower().endswith(_EXTENSIONS)})
     if own:
         return own
-    return {k: b for k, b in files.items() if k.lower().endswith(_EXTENSIONS)
-            and Path(k).name.lower() not in _OTHER_TABLES and not Path(k).name.startswith((".", "~$"))}
+    return {k: b for k, b in top.items() if k.lower().endswith(_EXTENSIONS)
+            and k.lower() not in _OTHER_TABLES and not k.startswith((".", "~$"))}
+
+
+def readings_files_from_upload(files: dict[str, bytes]) -> dict[str, bytes]:
+    """The readings files of an upload (``{name: bytes}``): the files themselves, and for a .zip
+    its readings files (see :func:`_pick`) as ``<zip name>/<path>``. Raises ValidationError for an
+    unsafe or unreadable archive."""
+    out: dict[str, bytes] = {}
+    for name, data in files.items():  # a handful of uploads
+        if not name.lower().endswith(".zip"):
+            out[name] = bytes(data)
+            continue
+        inner = extract_zip(bytes(data), name)
+        heads = {k.split("/", 1)[0] for k in inner if "/" in k}
+        prefix = f"{name}/"
+        if len(heads) == 1 and not any("/" not in k for k in inner):
+            head = heads.pop()
+            inner = {k.split("/", 1)[1]: b for k, b in inner.items()}
+            prefix = f"{name}/{head}/"
+        out.update({prefix + k: b for k, b in _pick(inner).items()})
+    return out
 
 
 def readings_files(paths) -> dict[str, bytes]:
@@ -172,21 +192,13 @@ def readings_files(paths) -> dict[str, bytes]:
                 out[str(found[k])] = found[k].read_bytes()
         elif path.suffix.lower() == ".zip":
             try:
-                inner = extract_zip(path, path.name)
+                picked = readings_files_from_upload({str(path): path.read_bytes()})
             except ValidationError as exc:
                 problems.extend(exc.problems)
                 continue
-            heads = {k.split("/", 1)[0] for k in inner if "/" in k}
-            if len(heads) == 1 and not any("/" not in k for k in inner):  # one top folder
-                head = heads.pop()
-                inner = {k.split("/", 1)[1]: b for k, b in inner.items()}
-                prefix = f"{path.name}/{head}/"
-            else:
-                prefix = f"{path.name}/"
-            picked = _pick(inner)
             if not picked:
                 problems.append(Problem(str(path), None, None, None, "holds no readings file (.csv or .xlsx)"))
-            out.update({prefix + k: b for k, b in picked.items()})
+            out.update(picked)
         else:
             out[str(path)] = path.read_bytes()
     if problems:

@@ -183,8 +183,8 @@ def read_campaign(source) -> ReadResult:
                                         well_names=well_names)
         notes.extend(nt)
     elif other_readings:
-        label = f"{READINGS_DIR}/" if grid_names else next(iter(other_readings))
-        got = forms.gather_readings(other_readings, plates=plates, wells=wells, problems=problems, label=label)
+        where = f"{READINGS_DIR}/" if grid_names else next(iter(other_readings))
+        got = forms.gather_readings(other_readings, plates=plates, wells=wells, problems=problems, label=where)
         notes.extend(got.notes)
         for fname, n_rows in got.records:
             record(fname, n_rows)
@@ -196,7 +196,7 @@ def read_campaign(source) -> ReadResult:
             notes.extend(nt)
         elif got.table is not None:
             if got.table.n_rows == 0 and "grid" in got.forms:
-                problems.append(Problem(label, None, None, None, "the grids hold no values"))
+                problems.append(Problem(where, None, None, None, "the grids hold no values"))
             readings = _check_reshaped(got.table, problems, wells, plates, info, well_names, notes)
 
     if problems or manifest is None:
