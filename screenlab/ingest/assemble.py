@@ -20,7 +20,7 @@ from screenlab.errors import Problem
 
 from . import forms
 from .sources import MANIFEST, READINGS_DIR
-from .tables import read_cells, read_sheets, read_table
+from .tables import decode_text, read_table
 
 #: the tables a builder asks for, in order
 PIECES = ("catalysts", "plates", "layout")
@@ -79,16 +79,16 @@ def classify_readings(name: str, data: bytes, plate_ids: list[str]) -> str:
     low = name.lower()
     stem = PurePosixPath(name).stem
     if low.endswith(".csv"):
-        c = read_cells(name, data, [])
-        if c is None:
+        first = forms._first_record(decode_text(name, data, []))
+        if first is None:
             return "unknown"
-        return "table" if forms.is_table_header(c) else "grid"
+        return "table" if forms._names_table(first) else "grid"
     if low.endswith(".xlsx"):
-        sheets = read_sheets(name, data, [])
+        sheets = forms._xlsx_sheets(name, data, [])
         if not sheets:
             return "unknown"
-        first = next(iter(sheets.values()))
-        if first is not None and forms.is_table_header(first):
+        s0 = forms._sheet(name, stem, next(iter(sheets.values())))
+        if s0.nonblank.any() and forms._names_table(list(s0.cells[int(s0.nonblank.argmax())])):
             return "table"
         return "grid" if forms._plate_for(stem, plate_ids) is not None else "workbook"
     return "unknown"

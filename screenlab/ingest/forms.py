@@ -43,6 +43,8 @@ Everything is vectorised over cells; the loops run over files, sheets and blocks
 """
 from __future__ import annotations
 
+import csv
+import io
 import re
 from dataclasses import dataclass, field
 from pathlib import PurePosixPath
@@ -53,8 +55,7 @@ import pandas as pd
 from screenlab import plates as platelib
 from screenlab.errors import Problem
 
-from .tables import (Cells, Origin, RawTable, decode_text, normalise_header, read_cells, read_sheets,
-                     table_from_cells)
+from .tables import Origin, RawTable, decode_text, normalise_header, read_table
 from .validate import NA_WORDS, READING_COLUMNS, SAMPLE_COLUMN, parse_names
 
 #: the columns of the reshaped long table
@@ -66,12 +67,13 @@ READINGS_EXTENSIONS = (".csv", ".xlsx")
 class _Piece:
     """Part of the reshaped long table: text columns and where each cell came from."""
 
-    frame: pd.DataFrame                                  # LONG_COLUMNS as text ('' when not given)
+    frame: dict[str, np.ndarray]                         # LONG_COLUMNS as text arrays ('' when not given)
     files: np.ndarray                                    # per row: file (and sheet) label
     rows: np.ndarray                                     # per row: spreadsheet row of the value
     cells: dict[str, tuple[np.ndarray, np.ndarray]]      # column -> (rows, column labels)
     has_analyte: bool
     form: str                                            # long | sample | grid
+    pos: tuple[np.ndarray, np.ndarray] | None = None     # grids: plate row and column of each cell (0-based)
 
 
 @dataclass
@@ -105,13 +107,6 @@ def _repeat(value, n: int) -> np.ndarray:
     return np.full(n, value, dtype=object)
 
 
-def is_table_header(c: Cells) -> bool:
-    """Does the first non-blank row name the columns ``time`` and ``value`` (a readings table)?"""
-    first = int(np.argmax(c.nonblank))
-    names = {normalise_header(v) for v in c.frame.iloc[first].tolist()}
-    return "time" in names and "value" in names
-
-
 def is_sample_table(t: RawTable) -> bool:
     """A readings table naming wells by sample code: a ``sample`` column, no ``plate``, no ``well``."""
     return t.has(SAMPLE_COLUMN) and not t.has("plate") and not t.has("well")
@@ -128,10 +123,10 @@ def _plate_for(name: str, plate_ids: list[str]) -> str | None:
 _LABEL = re.compile(r"^[ \t]*[\"']?time[\"']?[ \t]*([,;\t])", re.IGNORECASE | re.MULTILINE)
 
 
-def _grid_delimiter(data: bytes) -> str | None:
+def _grid_delimiter_text(text: str) -> str | None:
     """The delimiter of a grid file: the character after the first label row's ``time`` (the lines
     above it are an instrument's own and may hold no delimiter, or another one)."""
-    m = _LABEL.search(decode_text("", data, []))
+    m = _LABEL.search(text)
     return m.group(1) if m else None
 
 
@@ -166,10 +161,9 @@ def _table_piece(t: RawTable, problems: list[Problem], notes: list[str]) -> _Pie
         return None
     notes.extend(_unused_note(t, READING_COLUMNS))
     n = len(t.frame)
-    frame = pd.DataFrame({c: (t.frame[c].to_numpy(dtype=object) if t.has(c) else _repeat("", n))
-                          for c in LONG_COLUMNS})
+    frame = {c: (t.frame[c].to_numpy(dtype=object) if t.has(c) else _repeat("", n)) for c in LONG_COLUMNS}
     for c in ("time", "value"):
-        frame[c] = _decimal_point(frame[c], t.decimal_comma)
+        frame[c] = np.asarray(_decimal_point(frame[c], t.decimal_comma), dtype=object)
     files = _repeat(t.name, n)
     cells = {c: (t.rows, _repeat(c, n)) for c in LONG_COLUMNS}
     return _Piece(frame, files, t.rows, cells, t.has("analyte"), "long")
@@ -209,13 +203,13 @@ def _sample_piece(t: RawTable, wells: pd.DataFrame | None, problems: list[Proble
     idx = np.flatnonzero(keep)
     hit = pos[keep]
     n = len(idx)
-    frame = pd.DataFrame({
+    frame = {
         "plate": known["plate"].astype(str).to_numpy(dtype=object)[hit],
         "well": known["well"].astype(str).to_numpy(dtype=object)[hit],
-        "time": _decimal_point(t.frame["time"].to_numpy(dtype=object)[idx], t.decimal_comma),
-        "value": _decimal_point(t.frame["value"].to_numpy(dtype=object)[idx], t.decimal_comma),
+        "time": np.asarray(_decimal_point(t.frame["time"].to_numpy(dtype=object)[idx], t.decimal_comma), dtype=object),
+        "value": np.asarray(_decimal_point(t.frame["value"].to_numpy(dtype=object)[idx], t.decimal_comma), dtype=object),
         "analyte": t.frame["analyte"].to_numpy(dtype=object)[idx] if t.has("analyte") else _repeat("", n),
-    })
+    }
     r = rows[idx]
     # plate and well came from the sample code: report them at the code's cell
     cells = {c: (r, _repeat(SAMPLE_COLUMN if c in ("plate", "well") else c, n)) for c in LONG_COLUMNS}
@@ -224,17 +218,69 @@ def _sample_piece(t: RawTable, wells: pd.DataFrame | None, problems: list[Proble
 
 # ----------------------------------------------------------------------------------- grids
 
-def _grid_piece(c: Cells, label: str, plate: str, fmt: int, problems: list[Problem],
-                notes: list[str]) -> _Piece | None:
-    """The blocks of one grid file or sheet as a long piece (see the module docstring)."""
+@dataclass
+class _Sheet:
+    """One grid file or sheet as a rectangle of stripped text cells (numpy), with the spreadsheet
+    row of each row and which rows hold anything."""
+
+    label: str              # file (and sheet) for problems
+    name: str               # the plate id it should stand for (file stem or sheet name)
+    cells: np.ndarray       # 2-D numpy str array, at least 4 columns
+    rows: np.ndarray        # int64, 1-based
+    nonblank: np.ndarray    # bool
+    decimal_comma: bool = False
+
+
+def _sheet(label: str, name: str, cells: np.ndarray, decimal_comma: bool = False) -> _Sheet:
+    """Cells (any 2-D array of text, '' or NaN for blank) as a :class:`_Sheet`: stripped, padded."""
+    raw = np.asarray(cells, dtype=object)
+    if raw.ndim != 2:
+        raw = raw.reshape(len(raw), -1)
+    blank = pd.isna(raw)
+    text = np.where(blank, "", raw).astype(str)
+    text = np.strings.strip(text)
+    if text.shape[1] < 4:
+        text = np.concatenate([text, np.full((text.shape[0], 4 - text.shape[1]), "", dtype=text.dtype)], axis=1)
+    nonblank = (np.strings.str_len(text) > 0).any(axis=1) if text.size else np.zeros(len(text), dtype=bool)
+    return _Sheet(label, name, text, np.arange(1, len(text) + 1, dtype=np.int64), nonblank, decimal_comma)
+
+
+def _csv_records(text: str, delimiter: str) -> list[list[str]]:
+    """The records of a CSV text (csv module; quotes honoured), blank lines kept as empty records."""
+    return list(csv.reader(io.StringIO(text), delimiter=delimiter))
+
+
+def _rectangle(records: list[list[str]]) -> np.ndarray:
+    width = max([len(r) for r in records] + [1])
+    pad = [""] * width
+    return np.array([r + pad[len(r):] for r in records], dtype=object)  # one list per line, not per cell
+
+
+def _first_record(text: str) -> list[str] | None:
+    """The first non-blank line of a CSV text as cells (delimiter picked as for a table)."""
+    for line in text.splitlines():
+        if line.strip():
+            delim = max((",", ";", "\t"), key=lambda d: (line.count(d), d == ","))
+            return next(csv.reader([line], delimiter=delim if line.count(delim) else ","), [])
+    return None
+
+
+def _names_table(cells) -> bool:
+    names = {normalise_header(v) for v in cells}
+    return "time" in names and "value" in names
+
+
+def _grid_piece(s: _Sheet, plate: str, fmt: int, problems: list[Problem], notes: list[str]) -> _Piece | None:
+    """The blocks of one grid file or sheet as a long piece (see the module docstring).
+
+    Whole-sheet work (lower / upper case, the missing-value words, the numbers of every cell, the
+    row letters) is done once per sheet on numpy arrays; the loop runs over the blocks and only
+    slices them. The long rows are built at the end from index arrays, vectorised."""
     n_rows, n_cols = platelib.FORMATS[fmt]
     letters_ok = platelib.ROW_LETTERS[:n_rows]
     last = letters_ok[-1]
-    raw = c.frame.to_numpy(dtype=object)
-    F = np.full((raw.shape[0], max(raw.shape[1], 4)), "", dtype=object)
-    F[:, :raw.shape[1]] = raw
-    rows, nonblank = c.rows, c.nonblank
-    first_cell = pd.Series(F[:, 0], dtype="str").str.lower().to_numpy(dtype=object)
+    F, rows, nonblank, label = s.cells, s.rows, s.nonblank, s.label
+    first_cell = np.strings.lower(F[:, 0])
     labels = np.flatnonzero(nonblank & (first_cell == "time"))
     n0 = len(problems)
 
@@ -251,7 +297,14 @@ def _grid_piece(c: Cells, label: str, plate: str, fmt: int, problems: list[Probl
     if len(skipped):
         notes.append(f"{label}: skipped {len(skipped)} line{'s' if len(skipped) != 1 else ''} above the first "
                      f"block (rows {rows[skipped[0]]}-{rows[skipped[-1]]}, an instrument header)")
-    parts = []
+    empty = np.strings.str_len(F) == 0
+    no_value = np.isin(np.strings.lower(F), NA_WORDS)
+    upper = np.strings.upper(F[:, 0])
+    ridx = np.full(len(F), -1, dtype=np.int64)                  # row letter -> plate row (-1: not one)
+    for i, letter in enumerate(letters_ok):  # at most 16 letters
+        ridx[upper == letter] = i
+    digits = np.strings.isdigit(F)                              # column numbers are whole numbers
+    blocks = []                           # (data rows, header columns, their numbers, time text, analyte, label row)
     seen: dict[tuple, int] = {}
     for b, li in enumerate(labels):  # one pass per block (time point / analyte), not per cell
         end = labels[b + 1] if b + 1 < len(labels) else len(F)
@@ -265,10 +318,10 @@ def _grid_piece(c: Cells, label: str, plate: str, fmt: int, problems: list[Probl
         elif a_word and not a_name:
             bad(lrow, "analyte", None, "'analyte' must be followed by the analyte's name")
             block_ok = False
-        rest = [x for x in F[li, 4:] if x != ""]
-        if rest:
-            bad(lrow, None, rest[0], "unexpected cell in the 'time' row: it holds 'time', the time and optionally "
-                                     "'analyte' and the analyte's name")
+        rest = np.flatnonzero(~empty[li, 4:])
+        if len(rest):
+            bad(lrow, None, F[li, 4 + rest[0]], "unexpected cell in the 'time' row: it holds 'time', the time and "
+                                                "optionally 'analyte' and the analyte's name")
             block_ok = False
         if not t_text:
             bad(lrow, "time", None, "a block without a time: the 'time' row needs the time (in the manifest's time "
@@ -282,49 +335,46 @@ def _grid_piece(c: Cells, label: str, plate: str, fmt: int, problems: list[Probl
             continue
         hdr, data = seg[0], seg[1:]
         hrow = int(rows[hdr])
-        if len(data) and (first_cell[data] == "").any():
-            j = data[np.flatnonzero(first_cell[data] == "")[0]]
+        if len(data) and empty[data, 0].any():
+            j = data[np.flatnonzero(empty[data, 0])[0]]
             bad(rows[j], None, None, "a second header row in one block: each block starts with its own 'time' row "
                                      "(a block without a time)")
             continue
         # header: the column numbers
-        hcells = F[hdr, 1:]
-        filled = np.flatnonzero(hcells != "")
-        nums = pd.to_numeric(pd.Series(hcells[filled], dtype=object), errors="coerce").to_numpy(dtype=float)
-        is_int = np.isfinite(nums) & (nums == np.round(nums))
+        filled = np.flatnonzero(~empty[hdr, 1:])
+        is_int = digits[hdr, 1 + filled]
+        cells = F[hdr, 1 + filled]
+        nums = np.where(is_int & (np.strings.str_len(cells) <= 6), cells, "999999").astype(np.int64)
         for k in np.flatnonzero(~is_int):  # the bad header cells only
-            bad(hrow, None, hcells[filled[k]], f"not a column number (the header row holds the column numbers "
-                                               f"1..{n_cols} after an empty first cell)")
+            bad(hrow, None, F[hdr, 1 + filled[k]], f"not a column number (the header row holds the column numbers "
+                                                   f"1..{n_cols} after an empty first cell)")
         outside = is_int & ((nums < 1) | (nums > n_cols))
         for k in np.flatnonzero(outside):
-            bad(hrow, str(int(nums[k])), hcells[filled[k]],
+            bad(hrow, str(int(nums[k])), F[hdr, 1 + filled[k]],
                 f"column number {int(nums[k])} is outside the plate's {fmt}-well format (columns 1-{n_cols})")
         good = is_int & ~outside
-        vals, counts = np.unique(nums[good].astype(int), return_counts=True)
-        for k in vals[counts > 1]:
-            bad(hrow, str(k), str(k), f"column number {k} appears more than once in the header row")
-        missing = sorted(set(range(1, n_cols + 1)) - set(vals.tolist()))
-        if missing:
-            bad(hrow, None, ", ".join(map(str, missing)),
-                f"the header row lacks column{'s' if len(missing) > 1 else ''} {', '.join(map(str, missing))} "
-                f"(a {fmt}-well plate has columns 1-{n_cols})")
-        header_ok = bool(is_int.all() and not outside.any() and (counts == 1).all() and not missing)
+        counts = np.bincount(nums[good].astype(np.int64), minlength=n_cols + 1)[1:]
+        for k in np.flatnonzero(counts > 1):
+            bad(hrow, str(k + 1), str(k + 1), f"column number {k + 1} appears more than once in the header row")
+        missing = np.flatnonzero(counts == 0) + 1
+        if len(missing):
+            txt = ", ".join(map(str, missing))
+            bad(hrow, None, txt, f"the header row lacks column{'s' if len(missing) > 1 else ''} {txt} (a {fmt}-well "
+                                 f"plate has columns 1-{n_cols})")
+        header_ok = bool(is_int.all() and not outside.any() and (counts == 1).all())
         # the plate rows: their letters
-        letter = pd.Series(F[data, 0], dtype="str").str.upper().to_numpy(dtype=object)
-        uniq = pd.unique(letter)
-        pos_u = np.array([letters_ok.find(x) if len(x) == 1 else -1 for x in uniq], dtype=np.int64)  # distinct
-        ridx = pos_u[pd.Index(uniq).get_indexer(letter)] if len(letter) else np.zeros(0, np.int64)
-        for k in np.flatnonzero(ridx < 0):  # the bad rows only
+        rb = ridx[data]
+        for k in np.flatnonzero(rb < 0):  # the bad rows only
             bad(rows[data[k]], None, F[data[k], 0],
                 f"not a row letter of the plate's {fmt}-well format (A-{last}); after the header row a block holds "
                 "one row per plate row, its letter first")
-        ok_rows = ridx >= 0
-        dup = ok_rows & pd.Series(np.where(ok_rows, ridx, -1 - np.arange(len(ridx)))).duplicated().to_numpy()
-        for k in np.flatnonzero(dup):
-            first = data[np.flatnonzero(ridx == ridx[k])[0]]
-            bad(rows[data[k]], None, letter[k], f"row {letter[k]} appears twice in this block (first on row "
-                                                f"{rows[first]})")
-        absent = [letters_ok[i] for i in range(n_rows) if i not in set(ridx[ok_rows].tolist())]
+        per_row = np.bincount(rb[rb >= 0], minlength=n_rows)
+        for i in np.flatnonzero(per_row > 1):
+            at = data[rb == i]
+            for j in at[1:]:
+                bad(rows[j], None, F[j, 0], f"row {letters_ok[i]} appears twice in this block (first on row "
+                                           f"{rows[at[0]]})")
+        absent = [letters_ok[i] for i in np.flatnonzero(per_row == 0)]
         if absent:
             bad(lrow, None, ", ".join(absent),
                 f"the block for time {t_text or '(none)'}{f' and analyte {a_name}' if a_name else ''} has no row "
@@ -334,80 +384,105 @@ def _grid_piece(c: Cells, label: str, plate: str, fmt: int, problems: list[Probl
         spare[0] = False
         spare[1 + filled] = False
         if len(data) and spare.any():
-            side = F[np.ix_(data, np.flatnonzero(spare))]
-            hit = (side != "").any(axis=1)
-            for k in np.flatnonzero(hit):
-                j = np.flatnonzero(spare)[np.flatnonzero(side[k] != "")[0]]
+            side = ~empty[np.ix_(data, np.flatnonzero(spare))]
+            for k in np.flatnonzero(side.any(axis=1)):
+                j = np.flatnonzero(spare)[np.flatnonzero(side[k])[0]]
                 bad(rows[data[k]], None, F[data[k], j], "a value in a column without a column number in the "
                                                         "header row")
         if not (block_ok and header_ok) or len(problems) > n0:
             continue  # nothing is written anyway; the other blocks are still checked
-        t_num = pd.to_numeric(pd.Series([t_text.replace(",", ".") if c.decimal_comma else t_text]),
-                              errors="coerce").iloc[0]
-        key = (float(t_num) if np.isfinite(t_num) else t_text, a_name)
+        try:
+            key = (float(t_text.replace(",", ".") if s.decimal_comma else t_text), a_name)
+        except ValueError:  # not a number: the readings check says so
+            key = (t_text, a_name)
         if key in seen:
             bad(lrow, "time", t_text, f"a second block for time {t_text}{f' and analyte {a_name}' if a_name else ''} "
                                       f"on this plate (first on row {seen[key]})")
             continue
         seen[key] = lrow
-        colnum = np.array([str(int(x)) for x in nums], dtype=object)       # per header cell (<= 24)
-        V = F[np.ix_(data, 1 + filled)]
-        flat = pd.Series(V.ravel(), dtype="str")
-        present = ~flat.str.lower().isin(NA_WORDS).to_numpy(dtype=bool)
-        ri, cj = np.divmod(np.flatnonzero(present), V.shape[1])
-        n = len(ri)
-        row_letter = np.array(list(letters_ok), dtype=object)[ridx]
-        value_rows = rows[data][ri]
-        value = V[ri, cj]
-        parts.append({
-            "plate": _repeat(plate, n), "well": row_letter[ri] + colnum[cj],
-            "time": _repeat(t_text.replace(",", ".") if c.decimal_comma else t_text, n),
-            "value": _decimal_point(value, c.decimal_comma),
-            "analyte": _repeat(a_name, n), "_row": value_rows, "_col": colnum[cj], "_lrow": _repeat(lrow, n),
-        })
+        blocks.append((data, 1 + filled, nums.astype(np.int64), t_text, a_name, lrow))
     if len(problems) > n0:
         return None
-    if not parts:
-        return _Piece(pd.DataFrame({col: _repeat("", 0) for col in LONG_COLUMNS}), _repeat(label, 0),
-                      np.zeros(0, np.int64), {}, False, "grid")
-    cat = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
-    n = len(cat["plate"])
-    frame = pd.DataFrame({col: cat[col] for col in LONG_COLUMNS})
-    time_time = (cat["_lrow"].astype(np.int64), _repeat("time", n))
-    where = (cat["_row"].astype(np.int64), cat["_col"])
+    # the long rows of every block at once, from index arrays
+    r_idx, c_idx, colno, blk = [], [], [], []
+    for k, (data, cols, nums, *_ignored) in enumerate(blocks):  # blocks, not cells
+        present = ~no_value[np.ix_(data, cols)]
+        ri, cj = np.nonzero(present)
+        r_idx.append(data[ri])
+        c_idx.append(cols[cj])
+        colno.append(nums[cj])
+        blk.append(np.full(len(ri), k, dtype=np.int64))
+    if not blocks:
+        return _Piece({col: _repeat("", 0) for col in LONG_COLUMNS}, _repeat(label, 0),
+                      np.zeros(0, np.int64), {}, False, "grid", (np.zeros(0, np.int64), np.zeros(0, np.int64)))
+    r_idx, c_idx, colno, blk = (np.concatenate(x) for x in (r_idx, c_idx, colno, blk))
+    n = len(r_idx)
+    t_text = np.array([b[3] for b in blocks], dtype=object)
+    if s.decimal_comma:
+        t_text = np.array([t.replace(",", ".") for t in t_text], dtype=object)  # one per block
+    a_text = np.array([b[4] for b in blocks], dtype=object)
+    l_rows = np.array([b[5] for b in blocks], dtype=np.int64)
+    letters = np.array(list(letters_ok), dtype=object)
+    col_text = colno.astype(str).astype(object)
+    value = F[r_idx, c_idx].astype(object)
+    if s.decimal_comma:
+        value = np.strings.replace(value.astype(str), ",", ".").astype(object)
+    frame = {"plate": _repeat(plate, n), "well": letters[ridx[r_idx]] + col_text,
+             "time": t_text[blk], "value": value, "analyte": a_text[blk]}
+    where = (rows[r_idx], col_text)
     cells = {"plate": (np.zeros(n, np.int64), _repeat(None, n)), "well": where, "value": where,
-             "time": time_time, "analyte": (cat["_lrow"].astype(np.int64), _repeat("analyte", n))}
-    named = bool((frame["analyte"].astype(str) != "").any())
-    return _Piece(frame, _repeat(label, n), where[0], cells, named, "grid")
+             "time": (l_rows[blk], _repeat("time", n)), "analyte": (l_rows[blk], _repeat("analyte", n))}
+    return _Piece(frame, _repeat(label, n), where[0], cells, bool((a_text != "").any()), "grid",
+                  (ridx[r_idx], colno - 1))
 
 
-def _drop_outside_layout(piece: _Piece, wells: pd.DataFrame | None) -> tuple[_Piece, pd.DataFrame]:
+def _drop_outside_layout(piece: _Piece, plate: str, used: dict[str, np.ndarray]) -> tuple[_Piece, pd.DataFrame]:
     """Grid values on positions the layout leaves empty (role empty, or not listed): a reader reads
-    the whole plate. Returns the piece without them and their ``plate, well, n``."""
+    the whole plate. Returns the piece without them and their ``plate, well, n``. ``used`` holds,
+    per plate, a rows x columns array: True where the layout has a well that is not empty."""
     none = pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
                          "n": pd.Series(dtype="int64")})
-    if wells is None or not len(piece.frame):
+    if plate not in used or not len(piece.rows):
         return piece, none
-    used = wells[wells["role"].astype(str) != "empty"]
-    layout_keys = pd.Index((used["plate"].astype(str) + "\x1f" + used["well"].astype(str)).to_numpy())
-    keys = piece.frame["plate"].astype(str) + "\x1f" + piece.frame["well"].astype(str)
-    inside = layout_keys.get_indexer(pd.Index(keys.to_numpy())) >= 0
+    r, c = piece.pos
+    inside = used[plate][r, c]
     if inside.all():
         return piece, none
-    out = piece.frame.loc[~inside, ["plate", "well"]]
+    out = pd.DataFrame({"plate": piece.frame["plate"][~inside], "well": piece.frame["well"][~inside]})
     extra = out.groupby(["plate", "well"], sort=False).size().rename("n").reset_index()
     keep = np.flatnonzero(inside)
-    kept = _Piece(piece.frame.iloc[keep].reset_index(drop=True), piece.files[keep], piece.rows[keep],
-                  {k: (r[keep], c[keep]) for k, (r, c) in piece.cells.items()}, piece.has_analyte, piece.form)
+    kept = _Piece({k: v[keep] for k, v in piece.frame.items()}, piece.files[keep], piece.rows[keep],
+                  {k: (rr[keep], cc[keep]) for k, (rr, cc) in piece.cells.items()}, piece.has_analyte, piece.form,
+                  (r[keep], c[keep]))
     return kept, extra.astype({"plate": "str", "well": "str", "n": "int64"})
+
+
+def _layout_positions(plates: pd.DataFrame | None, wells: pd.DataFrame | None) -> dict[str, np.ndarray]:
+    """Per plate, a rows x columns mask of the positions the layout fills (role not empty)."""
+    if plates is None or wells is None:
+        return {}
+    out = {}
+    for p in plates.itertuples():  # one per plate
+        if int(p.format) in platelib.FORMATS:
+            out[str(p.plate)] = np.zeros(platelib.FORMATS[int(p.format)], dtype=bool)
+    w = wells[(wells["role"].astype(str) != "empty")]
+    codes, uniques = pd.factorize(w["plate"].astype(str))
+    r = w["row"].to_numpy(dtype=np.int64)
+    c = w["col"].to_numpy(dtype=np.int64)
+    for k, plate in enumerate(uniques):  # one per plate
+        if plate in out:
+            m = codes == k
+            shape = out[plate].shape
+            ok = m & (r >= 0) & (r < shape[0]) & (c >= 0) & (c < shape[1])
+            out[plate][r[ok], c[ok]] = True
+    return out
 
 
 def _combine(pieces: list[_Piece], label: str) -> RawTable:
     """One long table (text) from the pieces, with the origin of every cell."""
     with_analyte = any(p.has_analyte for p in pieces)
     cols = list(LONG_COLUMNS if with_analyte else LONG_COLUMNS[:-1])
-    frame = pd.DataFrame({c: _text(np.concatenate([p.frame[c].to_numpy(dtype=object) for p in pieces]))
-                          for c in cols})
+    frame = pd.DataFrame({c: _text(np.concatenate([p.frame[c] for p in pieces])) for c in cols})
     files = np.concatenate([p.files for p in pieces])
     rows = np.concatenate([p.rows for p in pieces]).astype(np.int64)
     n = len(frame)
@@ -422,6 +497,21 @@ def _combine(pieces: list[_Piece], label: str) -> RawTable:
 
 # ----------------------------------------------------------------------------------- the files of one delivery
 
+def _read_csv_grid(name: str, stem: str, text: str) -> _Sheet:
+    delim = _grid_delimiter_text(text) or ","
+    return _sheet(name, stem, _rectangle(_csv_records(text, delim)), decimal_comma=delim in (";", "\t"))
+
+
+def _xlsx_sheets(name: str, data: bytes, problems: list[Problem]) -> dict[str, np.ndarray] | None:
+    """Every sheet of a workbook as a 2-D object array of cells (NaN blank); None when unreadable."""
+    try:
+        book = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=None, header=None, dtype=str)
+    except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
+        problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
+        return None
+    return {str(k): v.to_numpy(dtype=object) for k, v in book.items()}
+
+
 def gather_readings(files: dict[str, bytes], *, plates: pd.DataFrame | None, wells: pd.DataFrame | None,
                     problems: list[Problem], label: str = "readings") -> GatheredReadings:
     """Read the readings files of one delivery (any mix of forms) into one long table.
@@ -435,10 +525,10 @@ def gather_readings(files: dict[str, bytes], *, plates: pd.DataFrame | None, wel
     notes: list[str] = []
     records: list[tuple[str, int]] = []
     tables: list[RawTable] = []
-    grids: list[tuple[Cells, str, str]] = []           # (cells, label, plate id)
+    grids: list[_Sheet] = []
     plate_ids = [] if plates is None else plates["plate"].astype(str).tolist()
     fmt_of = {} if plates is None else dict(zip(plates["plate"].astype(str), plates["format"].astype(int)))
-    for name, data in files.items():  # a handful of files
+    for name, data in files.items():  # a handful of files (one per plate at most)
         base = PurePosixPath(name.replace("\\", "/")).name
         stem, ext = (base.rsplit(".", 1) + [""])[:2]
         ext = "." + ext.lower()
@@ -446,48 +536,50 @@ def gather_readings(files: dict[str, bytes], *, plates: pd.DataFrame | None, wel
             problems.append(Problem(name, None, None, None, "not a readings file: expected .csv or .xlsx"))
             continue
         if ext == ".csv":
-            c = read_cells(name, data, problems)
-            if c is None:
+            text = decode_text(name, data, notes)
+            first = _first_record(text)
+            if first is None:
+                problems.append(Problem(name, None, None, None, "the file is empty"))
                 continue
-            notes.extend(c.notes)
-            if is_table_header(c):
-                t = table_from_cells(c, problems)
+            if _names_table(first):
+                t = read_table(name, data, problems)
                 if t is not None:
                     tables.append(t)
                     records.append((name, t.n_rows))
             else:
-                delim = _grid_delimiter(data)
-                if delim is not None and delim != c.delimiter:  # an instrument header chose another
-                    c = read_cells(name, data, problems, delimiter=delim)
-                    if c is None:
-                        continue
-                grids.append((c, name, stem))
-                records.append((name, int(c.nonblank.sum())))
+                g = _read_csv_grid(name, stem, text)
+                grids.append(g)
+                records.append((name, int(g.nonblank.sum())))
             continue
-        sheets = read_sheets(name, data, problems)
+        sheets = _xlsx_sheets(name, data, problems)
         if sheets is None:
             continue
-        first = next(iter(sheets.values()), None)
-        if first is not None and is_table_header(first):
-            t = table_from_cells(Cells(name, first.frame, first.rows, first.nonblank), problems)
-            if t is not None:
-                tables.append(t)
-                records.append((name, t.n_rows))
-            continue
+        first_sheet = next(iter(sheets.values()), None)
+        if first_sheet is not None and len(first_sheet):
+            s0 = _sheet(name, stem, first_sheet)
+            head = s0.cells[int(np.argmax(s0.nonblank))] if s0.nonblank.any() else []
+            if _names_table(list(head)):
+                t = read_table(name, data, problems)
+                if t is not None:
+                    tables.append(t)
+                    records.append((name, t.n_rows))
+                continue
         if plates is not None and _plate_for(stem, plate_ids) is not None:  # one plate's grid: its first sheet
-            if first is None:
+            if first_sheet is None or not len(first_sheet):
                 problems.append(Problem(name, None, None, None, "the file is empty"))
                 continue
-            grids.append((Cells(name, first.frame, first.rows, first.nonblank), name, stem))
-            records.append((name, int(first.nonblank.sum())))
+            g = _sheet(name, stem, first_sheet)
+            grids.append(g)
+            records.append((name, int(g.nonblank.sum())))
             continue
         n_lines = 0
-        for sheet, c in sheets.items():  # a workbook: one sheet per plate
-            if c is None:
+        for sheet, cells in sheets.items():  # a workbook: one sheet per plate
+            g = _sheet(f"{name} [sheet {sheet}]", sheet, cells) if len(cells) else None
+            if g is None or not g.nonblank.any():
                 problems.append(Problem(f"{name} [sheet {sheet}]", None, None, None, "the sheet is empty"))
                 continue
-            grids.append((c, c.name, sheet))
-            n_lines += int(c.nonblank.sum())
+            grids.append(g)
+            n_lines += int(g.nonblank.sum())
         records.append((name, n_lines))
 
     pieces: list[_Piece] = []
@@ -503,36 +595,39 @@ def gather_readings(files: dict[str, bytes], *, plates: pd.DataFrame | None, wel
             forms.append("long")
         if p is not None:
             pieces.append(p)
+    used = _layout_positions(plates, wells)
     done: dict[str, str] = {}
-    for c, glabel, name in grids:  # one per plate
+    for g in grids:  # one per plate
         forms.append("grid")
         if plates is None:
             continue
-        plate = _plate_for(name, plate_ids)
+        plate = _plate_for(g.name, plate_ids)
         if plate is None:
-            where = "sheet" if "[sheet " in glabel else "file"
-            problems.append(Problem(glabel, None, None, name,
+            where = "sheet" if "[sheet " in g.label else "file"
+            problems.append(Problem(g.label, None, None, g.name,
                                     f"a grid {where} for an unknown plate: its name must be a plate id of plates.csv "
                                     f"({', '.join(plate_ids[:8])}{' ...' if len(plate_ids) > 8 else ''})"))
             continue
         if plate in done:
-            problems.append(Problem(glabel, None, None, plate, f"a second grid for plate {plate} (the first is "
-                                                               f"{done[plate]})"))
+            problems.append(Problem(g.label, None, None, plate, f"a second grid for plate {plate} (the first is "
+                                                                f"{done[plate]})"))
             continue
-        done[plate] = glabel
+        done[plate] = g.label
         if fmt_of.get(plate, 0) not in platelib.FORMATS:  # its plates.csv row is wrong: reported there
             continue
-        p = _grid_piece(c, glabel, plate, fmt_of[plate], problems, notes)
+        p = _grid_piece(g, plate, fmt_of[plate], problems, notes)
         if p is None:
             continue
-        p, extra = _drop_outside_layout(p, wells)
-        if len(extra):
-            shown = ", ".join(extra["well"].astype(str).tolist()[:12])
-            more = f" and {len(extra) - 12} more" if len(extra) > 12 else ""
-            notes.append(f"{glabel}: {int(extra['n'].sum())} value{'s' if int(extra['n'].sum()) != 1 else ''} on "
-                         f"{len(extra)} position{'s' if len(extra) != 1 else ''} that layout.csv marks empty or does "
-                         f"not list {'were' if int(extra['n'].sum()) != 1 else 'was'} not imported ({shown}{more})")
-            outside_parts.append(extra)
+        if wells is not None:
+            p, extra = _drop_outside_layout(p, plate, used)
+            if len(extra):
+                n_val = int(extra["n"].sum())
+                shown = ", ".join(extra["well"].astype(str).tolist()[:12])
+                more = f" and {len(extra) - 12} more" if len(extra) > 12 else ""
+                notes.append(f"{g.label}: {n_val} value{'s' if n_val != 1 else ''} on {len(extra)} "
+                             f"position{'s' if len(extra) != 1 else ''} that layout.csv marks empty or does not list "
+                             f"{'were' if n_val != 1 else 'was'} not imported ({shown}{more})")
+                outside_parts.append(extra)
         pieces.append(p)
     outside = (pd.concat(outside_parts, ignore_index=True) if outside_parts
                else GatheredReadings(None, False, ()).outside)

@@ -360,19 +360,6 @@ def read_cells(name: str, data: bytes, problems: list[Problem], delimiter: str |
                          decimal_comma=delim in (";", "\t"), notes=notes, delimiter=delim)
 
 
-def read_sheets(name: str, data: bytes, problems: list[Problem]) -> dict[str, Cells | None] | None:
-    """Every sheet of an XLSX workbook as :class:`Cells` (None for an empty sheet, nothing
-    recorded for it); None when the workbook cannot be read (the problem recorded)."""
-    sheets = _read_xlsx_cells(name, data, problems, sheet=None)
-    if sheets is None:
-        return None
-    out: dict[str, Cells | None] = {}
-    for sheet, cells in sheets.items():  # sheets of one workbook (one per plate), not rows
-        quiet: list[Problem] = []
-        out[sheet] = _finish_cells(f"{name} [sheet {sheet}]", cells, quiet)
-    return out
-
-
 def table_from_cells(c: Cells, problems: list[Problem]) -> RawTable | None:
     """The first non-blank row of ``c`` as the header, the rows below it as the data rows (blank
     rows dropped, spreadsheet row numbers kept). None when the header is unusable (recorded)."""
