@@ -104,7 +104,9 @@ def _text(values) -> pd.Series:
 
 
 def _repeat(value, n: int) -> np.ndarray:
-    return np.full(n, value, dtype=object)
+    one = np.empty(1, dtype=object)
+    one[0] = value
+    return np.repeat(one, n)
 
 
 def is_sample_table(t: RawTable) -> bool:
@@ -436,18 +438,17 @@ def _grid_piece(s: _Sheet, plate: str, fmt: int, problems: list[Problem], notes:
                   (ridx[r_idx], colno - 1))
 
 
-def _drop_outside_layout(piece: _Piece, plate: str, used: dict[str, np.ndarray]) -> tuple[_Piece, pd.DataFrame]:
+def _drop_outside_layout(piece: _Piece, plate: str, used: dict[str, np.ndarray]) -> tuple[_Piece, pd.DataFrame | None]:
     """Grid values on positions the layout leaves empty (role empty, or not listed): a reader reads
-    the whole plate. Returns the piece without them and their ``plate, well, n``. ``used`` holds,
+    the whole plate. Returns the piece without them and their ``plate, well, n`` (None: there are
+    none). ``used`` holds,
     per plate, a rows x columns array: True where the layout has a well that is not empty."""
-    none = pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
-                         "n": pd.Series(dtype="int64")})
     if plate not in used or not len(piece.rows):
-        return piece, none
+        return piece, None
     r, c = piece.pos
     inside = used[plate][r, c]
     if inside.all():
-        return piece, none
+        return piece, None
     out = pd.DataFrame({"plate": piece.frame["plate"][~inside], "well": piece.frame["well"][~inside]})
     extra = out.groupby(["plate", "well"], sort=False).size().rename("n").reset_index()
     keep = np.flatnonzero(inside)
@@ -620,7 +621,7 @@ def gather_readings(files: dict[str, bytes], *, plates: pd.DataFrame | None, wel
             continue
         if wells is not None:
             p, extra = _drop_outside_layout(p, plate, used)
-            if len(extra):
+            if extra is not None:
                 n_val = int(extra["n"].sum())
                 shown = ", ".join(extra["well"].astype(str).tolist()[:12])
                 more = f" and {len(extra) - 12} more" if len(extra) > 12 else ""
