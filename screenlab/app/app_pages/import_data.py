@@ -167,13 +167,15 @@ def _arrival_section(arrival: pd.DataFrame, plates: pd.DataFrame, key: str, defa
         return
     counts = (arrival.groupby(["plate", "status"]).size().unstack(fill_value=0)
               .reindex(columns=["read", "missing", "extra"], fill_value=0))
-    n_read = arrival.groupby("plate")["n_readings"].sum()
+    n_read = arrival[arrival["status"] == "read"].groupby("plate")["n_readings"].sum()
+    n_extra = arrival[arrival["status"] == "extra"].groupby("plate")["n_readings"].sum()
     order = [p for p in plates["plate"].astype(str) if p in counts.index]
     summary = pd.DataFrame({"plate": order,
                             "wells_with_readings": counts.loc[order, "read"].to_numpy(),
                             "expected_but_missing": counts.loc[order, "missing"].to_numpy(),
                             "extra_positions": counts.loc[order, "extra"].to_numpy(),
-                            "readings": n_read.reindex(order).to_numpy()})
+                            "readings": n_read.reindex(order).fillna(0).astype("int64").to_numpy(),
+                            "values_on_extra_positions": n_extra.reindex(order).fillna(0).astype("int64").to_numpy()})
     widgets.table(summary, key=f"{key}_summary")
     st.caption("Extra positions: values where the layout has no well (empty, or not listed). From plate grids they "
                "are left out and said so in the notes; in a table they are refused.")
@@ -265,14 +267,15 @@ def readings_flow() -> None:
                 status.update(label="Readings added", state="complete")
                 st.session_state["addr_done"] = content
                 st.session_state["addr_report"] = _report_lines(report)
-                st.markdown(_report_lines(report))
-                st.success("Readings added. The other pages now show them.")
             except StoreBusyError as exc:
                 status.update(label="The store is busy", state="error")
                 st.error(f"{exc} Try again once the other program has finished.")
+                return
             except ScreenlabError as exc:
                 status.update(label="Nothing was written", state="error")
                 st.error(str(exc))
+                return
+        st.rerun()  # every table on the page (and the sidebar) from the new store version
 
 
 # ----------------------------------------------------------------------------------- 3. build
