@@ -183,8 +183,7 @@ _OTHER_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e")
 _BLANK = b" \t\x1f"
 
 
-def _read_plain_csv(data: bytes, delimiter: str | None = None
-                    ) -> tuple[pd.DataFrame, int, str, np.ndarray, np.ndarray | None] | None:
+def _read_plain_csv(data: bytes) -> tuple[pd.DataFrame, int, str, np.ndarray, np.ndarray | None] | None:
     """The fast path straight from the file's bytes, skipping the decode / splitlines / join /
     encode of :func:`_read_csv_cells` (which it equals): taken for ASCII files without a quote and
     without the rarer line-break characters (VT, FF, FS, GS, RS), else None. Returns what
@@ -207,7 +206,7 @@ def _read_plain_csv(data: bytes, delimiter: str | None = None
             return None  # no header at all: the text path says so
         lead, start = lead + 1, end + 1
     header = line.decode("ascii")
-    delim = delimiter or _pick_delimiter(header)
+    delim = _pick_delimiter(header)
     body = data[start:]
     if body.endswith(b"\n"):  # as "\n".join(text.splitlines()) has it: no final line end
         body = body[:-1]
@@ -217,7 +216,7 @@ def _read_plain_csv(data: bytes, delimiter: str | None = None
     return fast[0], lead, delim, fast[1], fast[2]
 
 
-def _read_csv_cells(name: str, text: str, problems: list[Problem], delimiter: str | None = None
+def _read_csv_cells(name: str, text: str, problems: list[Problem]
                     ) -> tuple[pd.DataFrame, int, str, np.ndarray | None, np.ndarray | None] | None:
     """Text -> (cells frame with header row first, row offset, delimiter, record index of each
     cells row or None when every record is a row, non-blank row mask when known) or None when
@@ -233,7 +232,7 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem], delimiter: st
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
     body = "\n".join(lines[lead:])
-    delim = delimiter or _pick_delimiter(lines[lead])
+    delim = _pick_delimiter(lines[lead])
     fast = _arrow_cells(body, delim, lines[lead].count(delim) + 1)
     if fast is not None:
         return fast[0], lead, delim, fast[1], fast[2]
@@ -268,25 +267,17 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem], delimiter: st
     return cells.fillna(""), lead, delim, None, None
 
 
-def _xlsx_frame(cells: pd.DataFrame) -> pd.DataFrame:
+def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.DataFrame | None:
+    try:
+        cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=0, header=None, dtype=str)
+    except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
+        problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
+        return None
     cells = cells.fillna("").astype(str)
     # date cells arrive as 'YYYY-MM-DD 00:00:00'; keep the ISO date
     for c in cells.columns:
         cells[c] = cells[c].str.replace(r"^(\d{4}-\d{2}-\d{2})[ T]00:00:00$", r"\1", regex=True)
     return cells
-
-
-def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem], sheet=0):
-    """The first sheet (``sheet=0``) as a frame of text, or every sheet (``sheet=None``) as
-    ``{sheet name: frame}``; None (problem recorded) when the workbook cannot be read."""
-    try:
-        cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=sheet, header=None, dtype=str)
-    except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
-        problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
-        return None
-    if isinstance(cells, dict):
-        return {str(k): _xlsx_frame(v) for k, v in cells.items()}
-    return _xlsx_frame(cells)
 
 
 def _nonblank(cells: pd.DataFrame) -> np.ndarray:
@@ -301,25 +292,28 @@ def _nonblank(cells: pd.DataFrame) -> np.ndarray:
     return total > 0
 
 
-@dataclass
-class Cells:
-    """The cells of one CSV file or one sheet, before a header is taken: every cell stripped text
-    ('' when blank, the formula guard removed), ``rows`` the spreadsheet row of each frame row
-    (1-based) and ``nonblank`` the rows with at least one non-empty cell."""
+def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | None:
+    """Read one CSV/XLSX file into a :class:`RawTable`; problems are appended, never raised.
 
-    name: str
-    frame: pd.DataFrame
-    rows: np.ndarray
-    nonblank: np.ndarray
-    decimal_comma: bool = False
-    notes: list[str] = field(default_factory=list)
-    delimiter: str | None = None   # of a CSV file
-
-
-def _finish_cells(name: str, cells: pd.DataFrame, problems: list[Problem], *, offset: int = 0,
-                  records: np.ndarray | None = None, nonblank: np.ndarray | None = None,
-                  decimal_comma: bool = False, notes: list[str] | None = None,
-                  delimiter: str | None = None) -> Cells | None:
+    Returns None when the file has no usable header (the problem is recorded).
+    """
+    notes: list[str] = []
+    decimal_comma = False
+    offset = 0
+    records = nonblank = None
+    if name.lower().endswith(".xlsx"):
+        cells = _read_xlsx_cells(name, data, problems)
+        if cells is None:
+            return None
+    else:
+        got = _read_plain_csv(data)
+        if got is None:
+            text = decode_text(name, data, notes)
+            got = _read_csv_cells(name, text, problems)
+        if got is None:
+            return None
+        cells, offset, delim, records, nonblank = got
+        decimal_comma = delim in (";", "\t")
     # strip padding; a leading apostrophe before = + - @ is the formula guard our own exports add
     # (screenlab.export.safe), so such cells read back as the text that was exported
     if records is None and len(cells.columns):
@@ -327,46 +321,14 @@ def _finish_cells(name: str, cells: pd.DataFrame, problems: list[Problem], *, of
     if cells.empty:
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
-    # the spreadsheet row numbers of every row (blank rows are dropped later)
+    # drop blank rows but keep the spreadsheet row numbers of the others
     rownum = (np.arange(len(cells), dtype=np.int64) if records is None else records.astype(np.int64)) + 1 + offset
     nonblank = _nonblank(cells) if nonblank is None else nonblank
-    if not nonblank.any():
+    first = int(np.argmax(nonblank)) if nonblank.any() else -1
+    if first < 0:
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
-    return Cells(name=name, frame=cells, rows=rownum, nonblank=nonblank, decimal_comma=decimal_comma,
-                 notes=list(notes or ()), delimiter=delimiter)
-
-
-def read_cells(name: str, data: bytes, problems: list[Problem], delimiter: str | None = None) -> Cells | None:
-    """Read one CSV file (or the first sheet of an XLSX file) into :class:`Cells`; problems are
-    appended, never raised. None when the file cannot be read or is empty (the problem recorded).
-
-    The delimiter of a CSV file is the one its first non-blank line holds most often, unless
-    ``delimiter`` is given."""
-    notes: list[str] = []
-    if name.lower().endswith(".xlsx"):
-        cells = _read_xlsx_cells(name, data, problems)
-        if cells is None:
-            return None
-        return _finish_cells(name, cells, problems, notes=notes)
-    got = _read_plain_csv(data, delimiter)
-    if got is None:
-        text = decode_text(name, data, notes)
-        got = _read_csv_cells(name, text, problems, delimiter)
-    if got is None:
-        return None
-    cells, offset, delim, records, nonblank = got
-    return _finish_cells(name, cells, problems, offset=offset, records=records, nonblank=nonblank,
-                         decimal_comma=delim in (";", "\t"), notes=notes, delimiter=delim)
-
-
-def table_from_cells(c: Cells, problems: list[Problem]) -> RawTable | None:
-    """The first non-blank row of ``c`` as the header, the rows below it as the data rows (blank
-    rows dropped, spreadsheet row numbers kept). None when the header is unusable (recorded)."""
-    name, cells, rownum, nonblank = c.name, c.frame, c.rows, c.nonblank
-    first = int(np.argmax(nonblank))
     header = [normalise_header(v) for v in cells.iloc[first].tolist()]
-    header_row = int(rownum[first])
     body = cells.iloc[first + 1:]
     body_rows = rownum[first + 1:]
     keep = nonblank[first + 1:]
@@ -387,7 +349,7 @@ def table_from_cells(c: Cells, problems: list[Problem]) -> RawTable | None:
                 ok = False
             continue  # empty trailing (or padding) column
         if h in used:
-            problems.append(Problem(name, header_row, h, None,
+            problems.append(Problem(name, 1 + offset, h, None,
                                     f"duplicate header name: columns {used[h] + 1} and {j + 1} are both '{h}'"))
             ok = False
             continue
@@ -400,13 +362,4 @@ def table_from_cells(c: Cells, problems: list[Problem]) -> RawTable | None:
     frame.columns = columns
     frame = frame.reset_index(drop=True)
     return RawTable(name=name, frame=frame, rows=np.asarray(body_rows, dtype=np.int64),
-                    decimal_comma=c.decimal_comma, notes=list(c.notes))
-
-
-def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | None:
-    """Read one CSV/XLSX file into a :class:`RawTable`; problems are appended, never raised.
-
-    Returns None when the file has no usable header (the problem is recorded).
-    """
-    c = read_cells(name, data, problems)
-    return None if c is None else table_from_cells(c, problems)
+                    decimal_comma=decimal_comma, notes=notes)
