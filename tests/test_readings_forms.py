@@ -578,3 +578,25 @@ def test_arrival_map_says_what_arrived(campaigns, tmp_path):
     assert (a.loc[plates[1]] == "missing").sum() == int((other["role"] != "empty").sum())
     assert new.plates == (plates[0],)
     assert set(np.unique(new.readings["plate"])) == {plates[0]}
+
+
+def test_add_readings_takes_a_campaign_folder_or_a_zip(campaigns, tmp_path, capsys):
+    """PATH may be the completed campaign folder (its readings/ grids are used) or a .zip of it."""
+    src = campaigns["syn96"]
+    name = _quiet_read(src).data.name
+    g = to_grid_folder(src, tmp_path / "g")
+    blob = tmp_path / "delivery.zip"
+    with zipfile.ZipFile(blob, "w") as zf:
+        for p in sorted(g.rglob("*")):
+            if p.is_file():
+                zf.write(p, f"round/{p.relative_to(g).as_posix()}")
+    long_store = tmp_path / "long.duckdb"
+    _ingest(src, long_store, capsys)
+    for k, path in enumerate((g, blob)):
+        store = tmp_path / f"s{k}.duckdb"
+        _ingest(to_planned(src, tmp_path / f"planned{k}"), store, capsys)
+        assert main(["add-readings", "--campaign", name, str(path), "--store", str(store)]) == 0
+        files = Store(store).import_files(name)
+        files = files[files["import_id"] == files["import_id"].max()]     # the files of the added readings
+        assert sorted(files["name"].str.rsplit("/", n=1).str[-1]) == sorted(p.name for p in (g / "readings").iterdir())
+        _assert_same_store(long_store, store, name, capsys)
