@@ -398,6 +398,7 @@ def test_sites_follow_the_contract_formulas(main):
 # ---------------------------------------------------------------------------------------------
 # with the project's reader, store and kinetics
 
+@pytest.mark.filterwarnings("ignore::screenlab.errors.DataQualityWarning")  # the grid demo's notes
 def test_every_demo_campaign_reads_without_error():
     ingest = pytest.importorskip("screenlab.ingest")
     found = ingest.find_campaigns(COMMITTED)
@@ -442,6 +443,7 @@ def test_build_demo_store(tmp_path):
 
 
 @pytest.mark.slow
+@pytest.mark.filterwarnings("ignore::screenlab.errors.DataQualityWarning")  # the grid demo's notes
 def test_analysis_recovers_the_main_truth():
     """The analysis of the main campaign comes back close to the generating values."""
     ingest = pytest.importorskip("screenlab.ingest")
@@ -467,6 +469,7 @@ def test_analysis_recovers_the_main_truth():
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", ["ester-hydrolysis-uv", "henry-chiral-2026"])
+@pytest.mark.filterwarnings("ignore::screenlab.errors.DataQualityWarning")  # the grid demo's notes
 def test_analysis_recovers_the_small_campaigns(name):
     """Absorbance (Beer-Lambert) and several-analyte campaigns: TOF and Ea close to the truth."""
     ingest = pytest.importorskip("screenlab.ingest")
