@@ -205,12 +205,15 @@ def _sample_piece(t: RawTable, wells: pd.DataFrame | None, problems: list[Proble
     idx = np.flatnonzero(keep)
     hit = pos[keep]
     n = len(idx)
+    def taken(column: pd.Series, at: np.ndarray, point: bool = False):
+        """Cells ``at`` of a text column, kept as (Arrow) text: no per-cell Python objects."""
+        out = pd.Series(column.astype("str").array.take(at), copy=False)
+        return (out.str.replace(",", ".", regex=False) if point else out).array
+
     frame = {
-        "plate": known["plate"].astype(str).to_numpy(dtype=object)[hit],
-        "well": known["well"].astype(str).to_numpy(dtype=object)[hit],
-        "time": np.asarray(_decimal_point(t.frame["time"].to_numpy(dtype=object)[idx], t.decimal_comma), dtype=object),
-        "value": np.asarray(_decimal_point(t.frame["value"].to_numpy(dtype=object)[idx], t.decimal_comma), dtype=object),
-        "analyte": t.frame["analyte"].to_numpy(dtype=object)[idx] if t.has("analyte") else _repeat("", n),
+        "plate": taken(known["plate"], hit), "well": taken(known["well"], hit),
+        "time": taken(t.frame["time"], idx, t.decimal_comma), "value": taken(t.frame["value"], idx, t.decimal_comma),
+        "analyte": taken(t.frame["analyte"], idx) if t.has("analyte") else _repeat("", n),
     }
     r = rows[idx]
     # plate and well came from the sample code: report them at the code's cell
@@ -479,11 +482,20 @@ def _layout_positions(plates: pd.DataFrame | None, wells: pd.DataFrame | None) -
     return out
 
 
+def _joined(parts) -> pd.Series:
+    """Text column parts (numpy object arrays or pandas text arrays) as one ``str`` column."""
+    if all(isinstance(x, pd.api.extensions.ExtensionArray) for x in parts):
+        if len(parts) == 1:
+            return pd.Series(parts[0], copy=False)
+        return pd.concat([pd.Series(x, copy=False) for x in parts], ignore_index=True)
+    return _text(np.concatenate([np.asarray(x, dtype=object) for x in parts]))
+
+
 def _combine(pieces: list[_Piece], label: str) -> RawTable:
     """One long table (text) from the pieces, with the origin of every cell."""
     with_analyte = any(p.has_analyte for p in pieces)
     cols = list(LONG_COLUMNS if with_analyte else LONG_COLUMNS[:-1])
-    frame = pd.DataFrame({c: _text(np.concatenate([p.frame[c] for p in pieces])) for c in cols})
+    frame = pd.DataFrame({c: _joined([p.frame[c] for p in pieces]) for c in cols})
     files = np.concatenate([p.files for p in pieces])
     rows = np.concatenate([p.rows for p in pieces]).astype(np.int64)
     n = len(frame)
