@@ -45,19 +45,22 @@ import os
 import re
 import shutil
 import tempfile
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from screenlab.plates import FORMATS, all_wells, is_edge
+from screenlab.errors import DataQualityWarning
+from screenlab.plates import FORMATS, ROW_LETTERS, all_wells, is_edge, parse_wells
 from screenlab.units import R_J_MOL_K, ZERO_C_IN_K
 
 DEFAULT_SEED = 20260
 #: campaign folder names, in the order they are generated
 CAMPAIGNS = ("th-screen-2026", "ester-hydrolysis-uv", "henry-chiral-2026")
 TRUTH_DIR = "_truth"
+READINGS_DIR = "readings"
 UNCATALYSED = "(uncatalysed)"
 
 #: Standard atomic weights, g/mol (CIAAW/IUPAC; conventional values where the table gives an
@@ -707,11 +710,55 @@ def _truth_frame(c: _Campaign) -> pd.DataFrame:
     return t
 
 
+#: demo campaigns whose readings are delivered as plate grids (``readings/<plate>.csv``), the way a
+#: plate reader exports a kinetic read: one block per time point, every position of the plate read
+GRID_CAMPAIGNS = ("ester-hydrolysis-uv",)
+#: scatter of the blank-subtracted absorbance of an empty position (invented, AU)
+_EMPTY_POSITION_SD = 0.0015
+
+
+def _grid_files(c: _Campaign, seed: int) -> dict[str, bytes]:
+    """One grid file per plate (docs/campaign-format.md, "Other forms of readings"): a few lines of
+    the (invented) instrument header, then per time point the label row, the header row of column
+    numbers and one row per plate row. The values are the text of the long readings.csv, so the
+    grids import to exactly the same readings; the empty positions, which the reader measures
+    too, hold small values around zero that the import leaves out (the layout marks them empty)."""
+    rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(len(CAMPAIGNS),)))
+    r = c.readings
+    value_text = _fixed(r["value"], 6).to_numpy(dtype=object)
+    time_text = _fixed(r["time"], 6).to_numpy(dtype=object)
+    out: dict[str, bytes] = {}
+    for plate in c.plates.itertuples():  # one file per plate
+        fmt = int(plate.format)
+        nr, nc = FORMATS[fmt]
+        on = (r["plate"] == plate.plate).to_numpy()
+        pos = parse_wells(r.loc[on, "well"].to_numpy())
+        lay = c.layout[(c.layout["plate"] == plate.plate) & (c.layout["role"] == "empty")]
+        epos = parse_wells(lay["well"].to_numpy())
+        times = list(dict.fromkeys(time_text[on].tolist()))
+        noise = np.round(rng.normal(0.0, _EMPTY_POSITION_SD, (len(times), len(lay))), 4)
+        lines = ["Absorbance kinetic read (invented demo data)", f"Plate,{plate.plate}", "Wavelength,405 nm",
+                 f"Read interval,{_UV_TIMES_S[1] - _UV_TIMES_S[0]} s", f"Block temperature,{plate.temperature_c:g} C",
+                 "Values,absorbance after subtraction of the empty-plate reading", ""]
+        for k, t in enumerate(times):  # one block per time point
+            grid = np.full((nr, nc), "", dtype=object)
+            at = time_text[on] == t
+            grid[pos["row"].to_numpy()[at], pos["col"].to_numpy()[at]] = value_text[on][at]
+            grid[epos["row"].to_numpy(), epos["col"].to_numpy()] = _fixed(noise[k], 6).to_numpy(dtype=object)
+            lines.append(f"time,{t}")
+            lines.append("," + ",".join(str(j) for j in range(1, nc + 1)))
+            lines.extend(ROW_LETTERS[i] + "," + ",".join(grid[i]) for i in range(nr))
+            lines.append("")
+        out[f"{READINGS_DIR}/{plate.plate}.csv"] = ("\n".join(lines) + "\n").encode("utf-8")
+    return out
+
+
 def generate_demo(out_dir, seed: int = DEFAULT_SEED) -> list[Path]:
     """Write the demo campaigns, their truth tables and README.md into ``out_dir``.
 
     Writes ``out_dir/<campaign>/{campaign.toml, catalysts.csv, plates.csv, layout.csv,
-    readings.csv}`` for each name in :data:`CAMPAIGNS`, ``out_dir/_truth/<campaign>/truth.csv``
+    readings.csv}`` for each name in :data:`CAMPAIGNS` (for :data:`GRID_CAMPAIGNS` the readings as
+    plate grids, ``readings/<plate>.csv``, in place of readings.csv), ``out_dir/_truth/<campaign>/truth.csv``
     and ``out_dir/README.md``. Those folders are replaced; nothing else in ``out_dir`` is touched.
     The same seed gives the same bytes. Returns the paths written.
     """
@@ -725,7 +772,12 @@ def generate_demo(out_dir, seed: int = DEFAULT_SEED) -> list[Path]:
             shutil.rmtree(folder)
         folder.mkdir()
         files = {"campaign.toml": c.toml.encode("utf-8"), "catalysts.csv": _csv(c.catalysts),
-                 "plates.csv": _csv(c.plates), "layout.csv": _csv(c.layout), "readings.csv": _csv(c.readings)}
+                 "plates.csv": _csv(c.plates), "layout.csv": _csv(c.layout)}
+        if c.name in GRID_CAMPAIGNS:
+            files.update(_grid_files(c, seed))
+            (folder / READINGS_DIR).mkdir()
+        else:
+            files["readings.csv"] = _csv(c.readings)
         for fname, data in files.items():
             (folder / fname).write_bytes(data)
             written.append(folder / fname)
@@ -777,7 +829,9 @@ def build_demo_store(path, folder=None) -> list:
     base = Path(folder) if folder is not None else demo_folder()
     store = Store(path)
     try:
-        return [store.import_campaign(read_campaign(f)) for f in find_campaigns(base)]
+        with warnings.catch_warnings():  # the demo's notes (the grid campaign's skipped lines) are expected
+            warnings.simplefilter("ignore", DataQualityWarning)
+            return [store.import_campaign(read_campaign(f)) for f in find_campaigns(base)]
     finally:
         close = getattr(store, "close", None)
         if callable(close):
@@ -824,15 +878,20 @@ or pyrophoric materials (dry supported metals, alkylzinc reagents, nitroalkanes,
 ```
 demo_campaign/
   th-screen-2026/        main campaign: GC yield, 4 temperatures, series      ({n_read['th-screen-2026']} readings)
-  ester-hydrolysis-uv/   plate-reader absorbance (Beer-Lambert)               ({n_read['ester-hydrolysis-uv']} readings)
+  ester-hydrolysis-uv/   plate-reader absorbance (Beer-Lambert), as plate grids ({n_read['ester-hydrolysis-uv']} readings)
   henry-chiral-2026/     several analytes per well: enantiomers + by-products ({n_read['henry-chiral-2026']} readings)
   _truth/<campaign>/truth.csv   the values the data were generated from (not a campaign;
                                 `screenlab ingest demo_campaign` imports the three campaigns only)
 ```
 
 Each campaign folder follows the campaign format (campaign.toml, catalysts.csv, plates.csv,
-layout.csv, readings.csv). Well positions on every plate are randomised (seeded), so a catalyst's
-replicates sit in different rows and columns; empty positions are listed with role `empty`.
+layout.csv, readings.csv). `ester-hydrolysis-uv` delivers its readings as the plate reader exports
+them: a folder `readings/` with one grid file per plate (a few header lines of the instrument, then
+one block per time point: `time,<s>`, the column numbers 1-12, rows A-H). The reader reads every
+position, so the empty ones hold small values around zero; the import leaves them out (the layout
+marks those positions empty) and says so. Well positions on every plate are randomised (seeded), so
+a catalyst's replicates sit in different rows and columns; empty positions are listed with role
+`empty`.
 
 ## Kinetic model
 

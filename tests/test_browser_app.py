@@ -279,3 +279,79 @@ def test_two_rounds_in_chromium(server, tmp_path):
             browser.close()
     notes = decisions(Store(server.store, read_only=True))["note"].tolist()
     assert notes[-1] == "Browser check: top three, confirm RU-02."
+
+
+def test_add_readings_to_a_planned_campaign_in_chromium(server, tmp_path):
+    """A planned round is in the store; the chemist drops the plate-reader grids on the Import page,
+    reads the plate map of what arrived (and a refusal of a grid with a row missing), commits, and
+    the store holds the readings the long form would have given."""
+    import warnings
+
+    from playwright.sync_api import expect, sync_playwright
+    from test_readings_forms import to_grid_folder, to_planned
+
+    from screenlab.ingest import read_campaign
+    from screenlab.store import Store
+    from screenlab.synthetic import SyntheticSpec, write_campaign_folder
+
+    name = "round-2-planned"
+    src = write_campaign_folder(tmp_path / "src", SyntheticSpec(n_plates=2, seed=8, name=name))
+    planned = to_planned(src, tmp_path / "planned")
+    grids = sorted((to_grid_folder(src, tmp_path / "grids") / "readings").iterdir())
+    broken = tmp_path / "broken"
+    broken.mkdir()
+    lines = grids[0].read_text().splitlines()
+    d_row = next(i for i, ln in enumerate(lines) if ln.startswith("D,"))
+    (broken / grids[0].name).write_text("\n".join(lines[:d_row] + lines[d_row + 1:]) + "\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        Store(server.store).import_campaign(read_campaign(planned))
+        expected = read_campaign(src).data.readings
+    with sync_playwright() as p:
+        browser = _browser(p)
+        try:
+            page = browser.new_page(viewport={"width": 1440, "height": 2400})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(f"{server.url}/import_data", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            main.get_by_text("Readings for a planned campaign", exact=True).click()
+            wait_for_app_run(page)
+            page.screenshot(path=str(SHOTS / "add-readings-start.png"), full_page=True)
+            expect(main.get_by_text("Planned campaign", exact=True).first).to_be_visible(timeout=60_000)
+            upload = page.locator("[data-testid='stFileUploader'] input[type='file']").first
+            # a grid with row D missing: refused, the problem named, no commit button
+            upload.set_input_files([str(broken / grids[0].name)])
+            wait_for_app_run(page)
+            expect(main.get_by_text("nothing was written", exact=False).first).to_be_visible(timeout=60_000)
+            expect(main.get_by_role("button", name="Add the readings to the store")).to_have_count(0)
+            page.screenshot(path=str(SHOTS / "add-readings-refused.png"), full_page=True)
+            # the good grids: the preview, then the commit
+            page.goto(f"{server.url}/import_data", wait_until="domcontentloaded")
+            wait_for_app_run(page)
+            main = page.get_by_test_id("stMain")
+            main.get_by_text("Readings for a planned campaign", exact=True).click()
+            wait_for_app_run(page)
+            upload = page.locator("[data-testid='stFileUploader'] input[type='file']").first
+            upload.set_input_files([str(g) for g in grids])
+            wait_for_app_run(page)
+            expect(main.get_by_text("No problems found", exact=False).first).to_be_visible(timeout=60_000)
+            expect(main.get_by_text("what arrived", exact=False).first).to_be_visible()
+            expect(page.get_by_test_id("stPlotlyChart").first).to_be_visible(timeout=60_000)
+            page.screenshot(path=str(SHOTS / "add-readings-preview.png"), full_page=True)
+            assert len(Store(server.store, read_only=True).load_campaign(name).readings) == 0
+            main.get_by_role("button", name="Add the readings to the store").click()
+            wait_for_app_run(page)
+            expect(main.get_by_text("Readings added", exact=False).first).to_be_visible(timeout=60_000)
+            expect(page.get_by_test_id("stException")).to_have_count(0)
+            page.screenshot(path=str(SHOTS / "add-readings-committed.png"), full_page=True)
+            assert not errors, errors
+        finally:
+            browser.close()
+    store = Store(server.store, read_only=True)
+    import pandas as pd
+
+    pd.testing.assert_frame_equal(store.load_campaign(name).readings, expected)
+    hist = store.imports(name)
+    assert list(hist["status"]) == ["imported", "readings_added"]

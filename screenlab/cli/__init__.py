@@ -15,6 +15,7 @@ import sys
 #: sub-command modules, in the order ``--help`` lists them
 COMMAND_MODULES = [
     "screenlab.cli.ingest_cmd",
+    "screenlab.cli.readings_cmd",
     "screenlab.cli.app_cmd",
     "screenlab.cli.kinetics_cmd",
     "screenlab.cli.stats_cmd",

@@ -16,9 +16,10 @@ from screenlab import units
 from screenlab.errors import DataQualityWarning, Problem, ValidationError
 from screenlab.model import CampaignData
 
+from . import forms
 from . import validate as v
 from .manifest import parse_manifest
-from .sources import (MANIFEST, TABLES, campaign_files_from_folder, campaign_files_from_upload,
+from .sources import (MANIFEST, READINGS_DIR, TABLES, campaign_files_from_folder, campaign_files_from_upload,
                       campaign_files_from_zip)
 from .tables import RawTable, read_table
 
@@ -74,6 +75,16 @@ def _gather(source) -> tuple[dict[str, bytes], str]:
                                    "is neither a campaign folder nor a .zip of one")], source=label)
 
 
+def _check_reshaped(table: RawTable, problems: list[Problem], wells, plates, info, well_names,
+                    notes: list[str]) -> pd.DataFrame:
+    """check_readings of a reshaped table (grids, sample codes), each problem once."""
+    local: list[Problem] = []
+    readings, nt = v.check_readings(table, local, wells=wells, plates=plates, info=info, well_names=well_names)
+    problems.extend(forms.unique_problems(local))
+    notes.extend(nt)
+    return readings
+
+
 def read_campaign(source) -> ReadResult:
     """Read and validate one campaign.
 
@@ -103,6 +114,8 @@ def read_campaign(source) -> ReadResult:
             info[slot.replace("_unit", "_factor")] = fn(info[slot])
 
     tables: dict[str, RawTable | None] = {}
+    grid_names = sorted(k for k in files if k.lower().startswith(READINGS_DIR + "/"))
+    other_readings: dict[str, bytes] = {}  # readings.xlsx or the readings/ folder: read once the layout is known
     for t in TABLES:
         csv_name, xlsx_name = by_lower.get(f"{t}.csv"), by_lower.get(f"{t}.xlsx")
         if csv_name and xlsx_name:
@@ -111,6 +124,18 @@ def read_campaign(source) -> ReadResult:
             tables[t] = None
             continue
         name = csv_name or xlsx_name
+        if t == "readings" and grid_names:
+            if name is not None:
+                problems.append(Problem(name, None, None, None,
+                                        f"both {name} and a {READINGS_DIR}/ folder are present; keep only one of them"))
+            else:
+                other_readings = {k: files[k] for k in grid_names}
+            tables[t] = None
+            continue
+        if t == "readings" and name is not None and name == xlsx_name:
+            other_readings = {name: files[name]}  # a long table or a workbook of plate grids
+            tables[t] = None
+            continue
         if name is None and t == "readings":
             # a planned campaign (e.g. the next round written by `screenlab shortlist`): layout only
             notes.append("no readings.csv: a planned campaign (layout only); nothing to analyse until readings arrive")
@@ -148,10 +173,31 @@ def read_campaign(source) -> ReadResult:
     readings = pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
                              "analyte": pd.Series(dtype="str"), "time_h": pd.Series(dtype=float),
                              "value": pd.Series(dtype=float)})
-    if tables["readings"] is not None:
-        readings, nt = v.check_readings(tables["readings"], problems, wells=wells, plates=plates, info=info,
+    raw = tables["readings"]
+    if raw is not None and forms.is_sample_table(raw):  # readings.csv naming wells by sample code
+        reshaped = forms.reshape_sample_table(raw, wells, problems, notes)
+        if reshaped is not None:
+            readings = _check_reshaped(reshaped, problems, wells, plates, info, well_names, notes)
+    elif raw is not None:
+        readings, nt = v.check_readings(raw, problems, wells=wells, plates=plates, info=info,
                                         well_names=well_names)
         notes.extend(nt)
+    elif other_readings:
+        where = f"{READINGS_DIR}/" if grid_names else next(iter(other_readings))
+        got = forms.gather_readings(other_readings, plates=plates, wells=wells, problems=problems, label=where)
+        notes.extend(got.notes)
+        for fname, n_rows in got.records:
+            record(fname, n_rows)
+        if got.table is not None and not got.reshaped:
+            if got.table.n_rows == 0:
+                problems.append(Problem(got.table.name, None, None, None, "has a header but no data rows"))
+            readings, nt = v.check_readings(got.table, problems, wells=wells, plates=plates, info=info,
+                                            well_names=well_names)
+            notes.extend(nt)
+        elif got.table is not None:
+            if got.table.n_rows == 0 and "grid" in got.forms:
+                problems.append(Problem(where, None, None, None, "the grids hold no values"))
+            readings = _check_reshaped(got.table, problems, wells, plates, info, well_names, notes)
 
     if problems or manifest is None:
         raise ValidationError(problems, source=label)

@@ -24,6 +24,14 @@ RATIO_FLOOR_BYTES = 1024 * 1024
 #: the tables of a campaign, by base name (each .csv or .xlsx)
 TABLES = ("catalysts", "plates", "layout", "readings")
 MANIFEST = "campaign.toml"
+#: the folder of plate grids that may take the place of readings.csv (one .csv or .xlsx per plate)
+READINGS_DIR = "readings"
+_GRID_EXTENSIONS = (".csv", ".xlsx")
+
+
+def _is_grid_file(name: str) -> bool:
+    low = name.lower()
+    return low.endswith(_GRID_EXTENSIONS) and not low.startswith((".", "~$"))  # no hidden or Office lock files
 _IGNORED_PREFIXES = ("__macosx/",)
 _IGNORED_NAMES = (".ds_store", "thumbs.db", "desktop.ini")
 
@@ -89,17 +97,30 @@ def extract_zip(data: bytes | str | Path, label: str = "archive.zip") -> dict[st
     return out
 
 
+def _campaign_level(files: dict[str, bytes]) -> dict[str, bytes]:
+    """The files of a campaign folder's own level (base names) and of its readings/ folder
+    (``readings/<name>``, grid files only)."""
+    out = {k: v for k, v in files.items() if "/" not in k}
+    for k, v in files.items():
+        parts = k.split("/")
+        if len(parts) == 2 and parts[0].lower() == READINGS_DIR and _is_grid_file(parts[1]):
+            out[f"{READINGS_DIR}/{parts[1]}"] = v
+    return out
+
+
 def _strip_top_folder(files: dict[str, bytes]) -> dict[str, bytes]:
-    """Files at the top level, or inside one common top-level folder, keyed by base name."""
+    """Files at the top level, or inside one common top-level folder, keyed by base name (and the
+    grid files of its readings/ folder as ``readings/<name>``)."""
     top = {k: v for k, v in files.items() if "/" not in k}
     if any(k.lower() == MANIFEST for k in top):
-        return top
+        return _campaign_level(files)
     heads = {k.split("/", 1)[0] for k in files if "/" in k}
     if len(heads) == 1:
         head = heads.pop()
-        inner = {k.split("/", 1)[1]: v for k, v in files.items() if k.startswith(head + "/")}
-        return {k: v for k, v in inner.items() if "/" not in k}
-    return top
+        if head.lower() != READINGS_DIR:  # one folder holding the campaign
+            inner = {k.split("/", 1)[1]: v for k, v in files.items() if k.startswith(head + "/")}
+            return _campaign_level(inner)
+    return _campaign_level(files)
 
 
 def campaign_files_from_zip(data: bytes | str | Path, label: str) -> dict[str, bytes]:
@@ -113,6 +134,10 @@ def campaign_files_from_folder(folder: Path) -> dict[str, bytes]:
     for p in sorted(folder.iterdir()):
         if p.name.lower() in wanted and p.is_file():
             out[p.name] = p.read_bytes()
+        elif p.name.lower() == READINGS_DIR and p.is_dir():  # plate grids, one file per plate
+            for g in sorted(p.iterdir()):
+                if g.is_file() and _is_grid_file(g.name):
+                    out[f"{READINGS_DIR}/{g.name}"] = g.read_bytes()
     return out
 
 
@@ -128,7 +153,10 @@ def campaign_files_from_upload(files: dict[str, bytes], label: str = "upload") -
         return campaign_files_from_zip(bytes(files[zips[0]]), zips[0])
     flat: dict[str, bytes] = {}
     for k, v in files.items():
-        base = PurePosixPath(k.replace("\\", "/")).name
+        path = PurePosixPath(k.replace("\\", "/"))
+        base = path.name
+        if len(path.parts) > 1 and path.parts[-2].lower() == READINGS_DIR and _is_grid_file(base):
+            base = f"{READINGS_DIR}/{base}"  # a plate grid of the readings/ folder
         if base in flat:
             raise _fail(label, f"two uploaded files are both named {base!r}")
         flat[base] = bytes(v)

@@ -33,12 +33,38 @@ _PARSER_SAW = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
 _PARSER_EOF = re.compile(r"EOF inside string starting at row (\d+)")
 
 
+@dataclass(frozen=True)
+class Origin:
+    """Where the cells of a reshaped table came from (readings given as plate grids or by sample
+    code, turned into the long readings table before they are checked).
+
+    ``files`` holds each row's file label (for a grid, the file and sheet); ``cells`` maps a
+    column of the reshaped table to, per row, the spreadsheet row (0: none) and the column label
+    of the cell that column's value was read from. A column not in ``cells`` is reported with the
+    row's own spreadsheet row and its own name.
+    """
+
+    files: np.ndarray
+    cells: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
+
+    def locate(self, column: str | None, idx: np.ndarray, rows: np.ndarray
+               ) -> tuple[np.ndarray, np.ndarray, list]:
+        """(file labels, spreadsheet rows, column labels) of the rows ``idx`` for ``column``."""
+        files = self.files[idx]
+        if column in self.cells:
+            r, c = self.cells[column]
+            return files, r[idx], list(c[idx])
+        return files, rows[idx], [column] * len(idx)
+
+
 @dataclass
 class RawTable:
     """One table as text.
 
     ``frame`` has one column per (normalised) header name, all cells stripped strings ('' when
-    blank); ``rows`` holds each frame row's spreadsheet row number (header = 1).
+    blank); ``rows`` holds each frame row's spreadsheet row number (header = 1). ``origin`` is
+    set for a table reshaped from another form (see :class:`Origin`): problems are then reported
+    where the cell came from.
     """
 
     name: str
@@ -46,6 +72,7 @@ class RawTable:
     rows: np.ndarray
     decimal_comma: bool = False
     notes: list[str] = field(default_factory=list)
+    origin: Origin | None = None
 
     @property
     def n_rows(self) -> int:

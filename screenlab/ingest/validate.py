@@ -59,6 +59,9 @@ LAYOUT_COLUMNS = ("plate", "well", "role", "catalyst", "loading", "loading_unit"
 #: names a factor column may not take (they are columns of the wells frame)
 RESERVED_FACTORS = ("row", "col", "substrate_conc_mm", "volume_ul", "analyte", "time", "value")
 READING_COLUMNS = ("plate", "well", "time", "value", "analyte")
+#: optional layout column: a code unique within the campaign (a vial or injection name), by which
+#: readings may name their wells instead of plate + well; a label of the well, not a factor
+SAMPLE_COLUMN = "sample"
 
 
 class Distinct:
@@ -156,6 +159,11 @@ class Checker:
             values = np.asarray(values, dtype=object)[idx]
         vals = [None] * len(idx) if values is None else [str(v) for v in values]
         msgs = [message] * len(idx) if isinstance(message, str) else list(np.asarray(message, dtype=object)[idx])
+        if self.t.origin is not None:  # a reshaped table: where each cell came from
+            files, rows, cols = self.t.origin.locate(column, idx, self.rows)
+            self.problems.extend(Problem(str(f), int(r) if r else None, c, v, m)
+                                 for f, r, c, v, m in zip(files, rows, cols, vals, msgs))
+            return
         rows = self.rows[idx]
         self.problems.extend(Problem(self.name, int(r), column, v, m) for r, v, m in zip(rows, vals, msgs))
 
@@ -554,8 +562,14 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     plate_t = pd_.spread(np.array([plate_temp.get(p, np.nan) if not pd.isna(p) else np.nan for p in pid_u.tolist()],
                                   dtype=float))
     temp = np.where(np.isfinite(tw), tw, plate_t)
+    # sample codes (optional): one code names one well of the campaign
+    has_sample = SAMPLE_COLUMN in f.columns
+    if has_sample:
+        code = ch.text(SAMPLE_COLUMN)
+        ch.duplicated(code, (code != "").to_numpy(), SAMPLE_COLUMN,
+                      "duplicate sample code (a code names one well of the campaign)")
     # factors
-    factors = [c for c in f.columns if c not in LAYOUT_COLUMNS]
+    factors = [c for c in f.columns if c not in LAYOUT_COLUMNS and c != SAMPLE_COLUMN]
     for c in factors:
         if c in RESERVED_FACTORS:
             ch.whole(c, f"'{c}' cannot be a factor column name (it is a reserved column of the wells table); rename it")
@@ -588,6 +602,8 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     })
     for c in factors:
         out[c] = ordered(f[c].astype("str").to_numpy())
+    if has_sample:  # not a factor: a label of the well (kept, shown, used to match sample-named readings)
+        out[SAMPLE_COLUMN] = pd.array(ordered(_str_or_na(f[SAMPLE_COLUMN]).to_numpy(dtype=object)), dtype="str")
     return out, tuple(factors)
 
 

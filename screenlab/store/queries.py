@@ -108,6 +108,21 @@ SELECT (SELECT count(*) FROM campaigns), (SELECT count(*) FROM catalysts), (SELE
        (SELECT count(*) FROM imports), (SELECT count(*) FROM import_files),
        (SELECT count(*) FROM decisions), (SELECT count(*) FROM decision_catalysts)"""
 
+# --- readings added to stored plates (screenlab.store.addreadings) -------------------------------
+
+#: every current plate of every campaign with its stored readings and its non-empty wells
+PLATE_READING_COUNTS = """
+WITH re AS (SELECT campaign, plate, count(*) AS n FROM current_readings GROUP BY campaign, plate),
+     we AS (SELECT campaign, plate, count(*) FILTER (WHERE role IS DISTINCT FROM 'empty') AS n
+            FROM current_wells GROUP BY campaign, plate)
+SELECT p.campaign, p.plate, p.format, p.temperature_c, coalesce(we.n, 0) AS wells,
+       coalesce(re.n, 0) AS readings, p.seq, p.import_id
+FROM current_plates p
+LEFT JOIN re ON re.campaign = p.campaign AND re.plate = p.plate
+LEFT JOIN we ON we.campaign = p.campaign AND we.plate = p.plate
+WHERE ? IS NULL OR p.campaign = ?
+ORDER BY p.campaign, p.import_id, p.seq"""
+
 # --- fingerprint upgrade: every stored plate version (current and superseded), keyed by
 # (campaign, plate, import_id); see Store._refresh_fingerprints -------------------------------
 

@@ -449,3 +449,45 @@ def fitted_course(well: pd.Series, *, t_end_h: float, n: int = 60) -> tuple[pd.D
         return (pd.DataFrame({"time_h": t, "product_mM": y}),
                 f"{method.replace('_', ' ')}: rate at t = 0 {_fmt(rate)} mM h⁻¹")
     return pd.DataFrame(columns=["time_h", "product_mM"]), "no rate"
+
+
+# --------------------------------------------------------------------------- readings that arrived
+#: status of a position (screenlab.ingest.forms.ARRIVAL_STATUSES) -> (marker symbol, colour, label);
+#: Okabe-Ito colours and distinct shapes, so the statuses differ without colour too
+ARRIVAL_STYLE: dict[str, tuple[str, str, str]] = {
+    "read": ("circle", "#0072b2", "readings arrived"),
+    "missing": ("circle-open", "#e69f00", "expected, nothing arrived"),
+    "extra": ("diamond", "#d55e00", "values where the layout has no well"),
+    "empty": ("x-thin-open", "#bbbbbb", "empty"),
+}
+
+
+def arrival_map(positions: pd.DataFrame, *, n_rows: int, n_cols: int, title: str | None = None) -> go.Figure:
+    """One plate: what arrived for each position (``screenlab.ingest.forms.arrival_map`` rows of
+    one plate: ``well, row, col, role, catalyst, n_readings, status``). Row A on top, column 1 on
+    the left; one trace per status, marker shape and colour both telling them apart."""
+    x_labels = [str(i + 1) for i in range(n_cols)]
+    y_labels = list(ROW_LETTERS[:n_rows])
+    fig = go.Figure()
+    size = 16 if n_rows <= 8 else 8
+    for status, (symbol, colour, label) in ARRIVAL_STYLE.items():
+        sub = positions[positions["status"].astype(str) == status]
+        n = len(sub)
+        name = f"{label} ({n})"
+        cat = sub["catalyst"].astype("string").fillna("").astype(str)
+        role = sub["role"].astype("string").fillna("not in the layout").astype(str)
+        hover = (sub["well"].astype(str) + " · " + role + np.where(cat != "", " · " + cat, "")
+                 + "<br>" + sub["n_readings"].astype(int).astype(str) + " readings")
+        fig.add_trace(go.Scatter(
+            x=[x_labels[i] for i in sub["col"].astype(int)], y=[y_labels[i] for i in sub["row"].astype(int)],
+            mode="markers", name=name, customdata=sub["well"].astype(str).to_numpy(), text=hover.to_numpy(),
+            hovertemplate="%{text}<extra>" + label + "</extra>", visible=True if n else "legendonly",
+            marker=dict(symbol=symbol, size=size, color=colour, line=dict(width=1.5, color=colour if status != "read" else "#333333")),
+        ))
+    fig.update_yaxes(autorange="reversed", title="row", type="category", categoryorder="array",
+                     categoryarray=y_labels, scaleanchor="x", constrain="domain")
+    fig.update_xaxes(title="column", type="category", categoryorder="array", categoryarray=x_labels, side="top",
+                     constrain="domain")
+    fig = _layout(fig, title, height=max(320, 40 * n_rows + 140) if n_rows <= 8 else 640)
+    fig.update_layout(legend=dict(orientation="h", yanchor="top", y=-0.04, x=0))
+    return fig
