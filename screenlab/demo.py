@@ -61,7 +61,7 @@ DEFAULT_SEED = 20260
 CAMPAIGNS = ("th-screen-2026", "ester-hydrolysis-uv", "henry-chiral-2026")
 TRUTH_DIR = "_truth"
 READINGS_DIR = "readings"
-UNCATALYSED = "(uncatalysed)"
+from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
 
 #: Standard atomic weights, g/mol (CIAAW/IUPAC; conventional values where the table gives an
 #: interval). H, C, N, O, P, Cl, Fe, Co, Ni, Cu, Ru, Rh, Pd, Ir, Pt from the project's check-values

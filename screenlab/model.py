@@ -15,6 +15,9 @@ READOUT_KINDS = ("conversion", "yield", "product_conc", "absorbance")
 ROLES = ("sample", "blank", "reference", "empty")
 #: analyte name used when a campaign has no [analytes] table and no analyte column
 DEFAULT_ANALYTE = "product"
+#: the catalyst name of the background (blank) rows in the analysis tables; reserved, so no
+#: catalyst of a campaign may take it (refused at import)
+UNCATALYSED = "(uncatalysed)"
 #: absorbance above which a plate reader is usually no longer linear (Beer-Lambert deviations and
 #: stray light; common practice, no source); ``[readout].linear_range_max`` overrides it
 DEFAULT_LINEAR_RANGE_MAX = 3.0

@@ -45,7 +45,7 @@ from screenlab.plates import FORMATS, all_wells
 from screenlab.units import R_J_MOL_K, ZERO_C_IN_K, time_factor_to_h
 
 REFERENCE_CATALYST = "REF-1"
-UNCATALYSED = "(uncatalysed)"
+from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
 _SUBSTRATE_MM = 200.0
 _VOLUME_UL = 500.0
 _LOADING_UMOL = 0.5

@@ -201,6 +201,14 @@ def test_catalyst_ids_missing_and_duplicate():
     find(probs, "catalysts.csv", "a catalyst id is required", row=6)
 
 
+def test_the_background_row_name_is_reserved():
+    # "(uncatalysed)" names the blanks' rows of the analysis tables; a catalyst of that id would
+    # collide with them, so it is refused with file, row and column
+    probs = problems(catalysts_csv=add_lines(GOOD_CATALYSTS, "(Uncatalysed),a clash,,100,,,,"))
+    (p,) = find(probs, "catalysts.csv", r"'\(uncatalysed\)' is reserved", row=5, column="catalyst")
+    assert p.value == "(Uncatalysed)"
+
+
 def test_non_numeric_and_non_finite_numbers():
     probs = problems(catalysts_csv=replace_line(GOOD_CATALYSTS, 2, "C1,Proline,amino acid,abc,inf,,,"))
     find(probs, "catalysts.csv", "is not a number", row=2, column="molar_mass_g_mol")

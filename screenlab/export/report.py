@@ -26,7 +26,7 @@ import pandas as pd
 from screenlab.export.shortlist import SAFETY_NOTE
 from screenlab.stats.bounds import censored_of, estimate_text, number_text
 
-UNCATALYSED = "(uncatalysed)"
+from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
 #: ranked candidates listed in the report's ranking table and forest plot (the chosen ones and the
 #: benchmark always); the rest are counted
 MAX_RANKED_ROWS = 40

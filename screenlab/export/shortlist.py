@@ -6,6 +6,8 @@ so that a catalyst called ``=HYPERLINK(...)`` stays text. Parquet keeps the valu
 """
 from __future__ import annotations
 
+from screenlab.model import UNCATALYSED
+
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -100,7 +102,7 @@ def write_shortlist(out_dir, ranking: pd.DataFrame, kin, *, campaign: str, top_k
     sort_cols = [c for c in ("catalyst", "temperature_c", "loading", "substrate_conc_mM") if c in rates]
     rates = rates.sort_values(sort_cols).reset_index(drop=True)
     arr = kin.arrhenius
-    arr = arr[arr["catalyst"].astype(str).isin(keep | {"(uncatalysed)"})].reset_index(drop=True) if len(arr) else arr
+    arr = arr[arr["catalyst"].astype(str).isin(keep | {UNCATALYSED})].reset_index(drop=True) if len(arr) else arr
     prov = _provenance(campaign, ranking, getattr(kin, "settings", None), {"top_k": top_k, **(options or {})},
                        import_files)
 

@@ -29,7 +29,7 @@ import pyarrow.compute as pc
 from screenlab import plates as platelib
 from screenlab import units
 from screenlab.errors import Problem
-from screenlab.model import DEFAULT_ANALYTE, ROLES
+from screenlab.model import DEFAULT_ANALYTE, ROLES, UNCATALYSED
 
 from .tables import RawTable
 
@@ -328,6 +328,9 @@ def check_catalysts(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFr
     missing = (cid == "").to_numpy()
     ch.report(missing, "catalyst", "a catalyst id is required")
     ch.duplicated(cid, ~missing, "catalyst", "duplicate catalyst id")
+    ch.report((cid.str.strip().str.lower() == UNCATALYSED).to_numpy(), "catalyst",
+              f"'{UNCATALYSED}' is reserved for the background (blank) rows of the analysis; give the catalyst "
+              "another id")
     out = {"catalyst": cid.astype("str")}
     name = ch.text("name")
     out["name"] = name.where(name != "", cid).astype("str")

@@ -44,7 +44,7 @@ from screenlab.kinetics.sites import has_flag, join_flags
 from screenlab.kinetics.turnover import t_quantile, welch_df
 from screenlab.settings import AnalysisSettings
 
-UNCATALYSED = "(uncatalysed)"
+from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
 
 FLAGS: dict[str, str] = {
     "two_temperatures": "Only two temperatures: Ea is estimated but has no standard error or interval.",

@@ -30,7 +30,7 @@ import pandas as pd
 
 from screenlab.stats.bounds import censored_of
 
-UNCATALYSED = "(uncatalysed)"
+from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
 #: tolerance when matching a measured temperature to the reference temperature, degC (as the ranking)
 T_MATCH_C = 0.05
 

@@ -9,7 +9,7 @@ from screenlab.app import cache, widgets
 from screenlab.app.app_pages import _common
 from screenlab.viz import figures
 
-UNCAT = "(uncatalysed)"
+from screenlab.model import UNCATALYSED as UNCAT  # noqa: E402
 
 ctx = widgets.context()
 st.title("Temperature series")
