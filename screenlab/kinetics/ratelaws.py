@@ -450,14 +450,22 @@ def fit_saturation(c: Courses, zero: LawFit, first: LawFit) -> LawFit:
     mid = np.sqrt(rz * rf)
     starts = [(np.log(rz), np.log(0.02)), (np.log(mid), np.log(0.5)), (np.log(rf * 1.2), np.log(3.0))]
     s1, s2 = _best_start(c, model, [(a, np.full(G, b)) for a, b in starts])
-    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2))
+    return _rate_law_fit("saturation", c, _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2)),
+                         np.isfinite(rz))
+
+
+def _rate_law_fit(law: str, c: Courses, lm, started: np.ndarray) -> LawFit:
+    """A two-parameter law on (ln r0, ln p2) as a LawFit: r0 = exp(th1) with the delta-method SE
+    r0 sqrt(s^2 i11), s^2 = RSS / (n - 2); usable where it started, is not singular and r0 is not
+    at an end of its range (capped wells only)."""
+    th1, th2, rss, (i11, _, _), singular, at1, _ = lm
     df = c.n - 2
     with np.errstate(invalid="ignore", divide="ignore"):
         s2v = np.where(df > 0, rss / np.maximum(df, 1), np.nan)
         r0 = np.exp(th1)
         se = r0 * np.sqrt(s2v * i11)
-    ok = c.capped & np.isfinite(rz) & ~singular & ~at1 & np.isfinite(se)
-    return LawFit("saturation", r0=np.where(c.capped, r0, np.nan), r0_se=np.where(ok, se, np.nan), rss=rss, n=c.n,
+    ok = c.capped & started & ~singular & ~at1 & np.isfinite(se)
+    return LawFit(law, r0=np.where(c.capped, r0, np.nan), r0_se=np.where(ok, se, np.nan), rss=rss, n=c.n,
                   ok=ok, p1=r0, p2=np.exp(th2), n_window=c.n)
 
 
@@ -499,15 +507,8 @@ def fit_first_order_deactivating(c: Courses, first: LawFit, zero: LawFit) -> Law
     cands = [(np.log(kf), np.log(0.3 * inv_t)), (np.log(kf * 1.3), np.log(1.0 * inv_t)),
              (np.log(np.maximum(kf, kz) * 1.5), np.log(3.0 * inv_t))]
     s1, s2 = _best_start(c, model, cands)
-    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds)
-    df = c.n - 2
-    with np.errstate(invalid="ignore", divide="ignore"):
-        s2v = np.where(df > 0, rss / np.maximum(df, 1), np.nan)
-        k = np.exp(th1)
-        se = k * np.sqrt(s2v * i11)
-    ok = c.capped & np.isfinite(kf) & ~singular & ~at1 & np.isfinite(se)
-    return LawFit("first_order_deactivating", r0=np.where(c.capped, k, np.nan), r0_se=np.where(ok, se, np.nan),
-                  rss=rss, n=c.n, ok=ok, p1=k, p2=np.exp(th2), n_window=c.n)
+    return _rate_law_fit("first_order_deactivating", c, _levenberg_marquardt(c, model, s1, s2, bounds),
+                         np.isfinite(kf))
 
 
 # ------------------------------------------------------------------------------------- induction
