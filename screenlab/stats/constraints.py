@@ -58,13 +58,19 @@ class Requirement:
         return f"{self.column}{self.op}{self.value:g}"
 
 
+def check_syntax(expr: str) -> None:
+    """UsageError unless ``expr`` has the form COLUMN>=VALUE or COLUMN<=VALUE (the column is checked
+    later, against the rates table)."""
+    if not _EXPR.match(str(expr)):
+        raise UsageError(f"--require {expr!r}: write COLUMN>=VALUE or COLUMN<=VALUE, e.g. selectivity_pct>=90 "
+                         "(only >= and <= with a number)")
+
+
 def parse_requirement(expr: str, columns) -> Requirement:
     """One ``column>=value`` / ``column<=value`` expression; UsageError for anything else or a column
     that is not a numeric measurement of the rates table (``columns``: that table's columns)."""
+    check_syntax(expr)
     m = _EXPR.match(str(expr))
-    if not m:
-        raise UsageError(f"--require {expr!r}: write COLUMN>=VALUE or COLUMN<=VALUE, e.g. selectivity_pct>=90 "
-                         "(only >= and <= with a number)")
     col, op, val = m.group(1), m.group(2), float(m.group(3))
     allowed = requirement_columns(columns)
     if col not in allowed:
@@ -209,5 +215,5 @@ def check_candidates(kin, names, requirements, *, at_temperature_c: float, confi
     return out
 
 
-__all__ = ["Requirement", "parse_requirement", "parse_requirements", "requirement_columns", "interval", "judge",
+__all__ = ["Requirement", "check_syntax", "parse_requirement", "parse_requirements", "requirement_columns", "interval", "judge",
            "check_candidates", "CENSORED_COLUMNS"]

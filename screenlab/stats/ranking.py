@@ -224,34 +224,38 @@ def _count_words(n) -> str:
 def _fit_reasons(names: np.ndarray, arr: pd.DataFrame, measured_t: pd.Series, *, purpose: str) -> np.ndarray:
     """Why a catalyst has no usable Arrhenius result, in words: how many temperatures it was measured
     at and how many showed activity. ``purpose`` ends the sentence ("no Ea", "no Arrhenius line to
-    predict from"). '' where the fit exists with an uncertainty."""
+    predict from"). '' where the fit exists with an uncertainty. Vectorised (texts per distinct count)."""
     a = arr[arr["catalyst"].astype(str) != UNCATALYSED] if len(arr) else arr
     info = pd.DataFrame({"catalyst": a["catalyst"].astype(str).to_numpy() if len(a) else [],
                          "n_fit": _num(a, "n_temperatures"), "ea": _num(a, "ea_kj_mol"), "se": _num(a, "ea_se"),
                          "flags": a["flags"].fillna("").astype(str).to_numpy() if len(a) else []}
                         ).drop_duplicates("catalyst").set_index("catalyst")
-    out = []
-    for name in names.tolist():                      # a loop over candidates' reason texts (no numbers)
-        n_meas = int(measured_t.get(name, 0))
-        if name not in info.index:
-            out.append(f"measured at {_count_words(n_meas)} temperature{'s' if n_meas != 1 else ''}: {purpose}"
-                       if n_meas else f"no rates at its standard condition: {purpose}")
-            continue
-        row = info.loc[name]
-        n_fit = int(row["n_fit"]) if np.isfinite(row["n_fit"]) else 0
-        inactive_some = "no_activity" in str(row["flags"]).split(";")
-        if n_fit == 0:
-            out.append("no activity over the blank at any temperature")
-        elif n_fit == 1 or not np.isfinite(row["ea"]):
-            where = (f"active over the blank at one of {n_meas} temperatures" if inactive_some and n_meas > 1
-                     else "measured at one temperature only")
-            out.append(f"{where}: {purpose}")
-        elif n_fit == 2 or not np.isfinite(row["se"]):
-            where = (f"active over the blank at two of {n_meas} temperatures" if inactive_some and n_meas > 2
-                     else "measured at two temperatures only")
-            out.append(f"{where}: the Arrhenius line has no uncertainty (needs three)")
-        else:
-            out.append("")
+    names = np.asarray(names, dtype=object)
+    idx = info.index.get_indexer(pd.Index(names.astype(str))) if len(info) else np.full(len(names), -1)
+    has = idx >= 0
+    j = np.maximum(idx, 0)
+
+    def col(c, fill):
+        v = info[c].to_numpy()[j] if len(info) else np.full(len(names), fill)
+        return np.where(has, v, fill)
+
+    n_fit = np.nan_to_num(col("n_fit", 0.0).astype(float)).astype(int)
+    ea_ok = np.isfinite(col("ea", np.nan).astype(float))
+    se_ok = np.isfinite(col("se", np.nan).astype(float))
+    inactive_some = pd.Series(col("flags", ""), dtype=object).astype(str).str.contains(
+        r"(?:^|;)no_activity(?:;|$)", regex=True).to_numpy(bool)
+    n_meas = measured_t.reindex(pd.Index(names.astype(str))).fillna(0).to_numpy(int) if len(measured_t) \
+        else np.zeros(len(names), int)
+    meas_txt = pd.Series(n_meas).map(
+        lambda n: f"measured at {_count_words(n)} temperature{'s' if n != 1 else ''}: {purpose}" if n else
+        f"no rates at its standard condition: {purpose}").to_numpy(dtype=object)
+    of_txt = pd.Series(n_meas).map(lambda n: f"of {n}").to_numpy(dtype=object)
+    one = np.where(inactive_some & (n_meas > 1), "active over the blank at one " + of_txt + " temperatures",
+                   "measured at one temperature only") + f": {purpose}"
+    two = np.where(inactive_some & (n_meas > 2), "active over the blank at two " + of_txt + " temperatures",
+                   "measured at two temperatures only") + ": the Arrhenius line has no uncertainty (needs three)"
+    out = np.select([~has, n_fit == 0, (n_fit == 1) | ~ea_ok, (n_fit == 2) | ~se_ok],
+                    [meas_txt, "no activity over the blank at any temperature", one, two], default="")
     return np.asarray(out, dtype=object)
 
 
