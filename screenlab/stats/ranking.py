@@ -21,7 +21,18 @@ one candidate (TOF and Ea come from the same wells) are drawn independently in :
 which ignores their correlation.
 
 Selectivity and ee (campaigns with an [analytes] table) are drawn from t distributions on the
-percent scale; the ee is signed, the first enantiomer named being the wanted one.
+percent scale. The rates table's ee is signed (positive: the first enantiomer named in
+[analytes].enantiomers in excess). Ranked by ee, candidates are ordered by the magnitude of the
+excess of either enantiomer (draws folded: |ee + se T|), with the favoured one in ``favours``; with
+``enantiomer=`` by the signed excess of that enantiomer.
+
+Ea is ranked lower first (the lower apparent barrier); candidates flagged ``low_ea`` (likely
+transport-controlled, whose low apparent Ea says nothing about the catalyst's own barrier) are
+listed after the others unless ``include_transport_limited``. Requirements on the rates table
+(``require``, :mod:`screenlab.stats.constraints`) remove the candidates clearly outside them from the
+draws. A censored rate (the rates table's ``censored``: ``lower`` / ``upper`` bounds) is reported as
+its bound, never drawn. The number of draws adapts to what the numbers need
+(:mod:`screenlab.stats.montecarlo`); ``draws=N`` fixes it.
 
 How to add a metric: add a :class:`Metric` to :data:`METRICS` naming its
 source frame (``rates`` for per-temperature group rows, ``arrhenius`` for per-catalyst fits), the
