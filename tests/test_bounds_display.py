@@ -94,7 +94,8 @@ def test_arrhenius_plot_marks_points_left_out_and_bounds():
     out = by_name["A (left out of the fit)"]
     assert out.marker.symbol.endswith("-open") and len(out.x) == 1
     bound = by_name["A (bound: faster than the first reading)"]
-    assert bound.marker.symbol == "triangle-up" and bound.error_y.array is None
+    assert bound.marker.symbol == "arrow-bar-up" and bound.error_y.array is None
+    assert bound.marker.symbol not in figures.SYMBOLS                # never mistaken for a series
     # without the columns every point is a fitted, measured one
     plain = figures.arrhenius_plot(pts.drop(columns=["in_arrhenius_fit", "censored"]))
     assert [t.name for t in plain.data] == ["A"] and len(plain.data[0].x) == 4
@@ -105,7 +106,7 @@ def test_forest_plot_draws_bounds_apart():
     fig = figures.forest_plot(r, label="TOF / h⁻¹", log_x=True)
     est, bounds = fig.data
     assert list(est.y) == ["K1", "K2"]
-    assert list(bounds.y) == ["K0", "K3"] and list(bounds.marker.symbol) == ["triangle-right", "triangle-left-open"]
+    assert list(bounds.y) == ["K0", "K3"] and list(bounds.marker.symbol) == ["arrow-bar-right", "arrow-bar-left"]
 
 
 # ------------------------------------------------------------------------------------------- the CLI

@@ -206,8 +206,8 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
     points: ``catalyst, temperature_c, tof_per_h`` (+ ``tof_ci_low, tof_ci_high`` for error bars;
     ``in_arrhenius_fit``, missing = True: points the fit left out are drawn open, in their own legend
     entry "left out of the fit"; ``censored``: a bound (lower: the rate only known to exceed it,
-    upper: not distinguishable from the blank) is drawn as a triangle pointing the way the value
-    can lie (up for >=, down for <=), without error bars).
+    upper: not distinguishable from the blank) is drawn as a barred arrow pointing the way the
+    value can lie (up for >=, down for <=; no series symbol looks like it), without error bars).
     prediction: the output of ``kinetics.arrhenius.predict_tof`` over a temperature grid
     (``catalyst, temperature_c, tof_per_h, tof_ci_low, tof_ci_high``): the fitted line and band.
     blank_points (``temperature_c, blank_rate_mM_per_h``) and blank_prediction (predict_tof rows of
@@ -257,9 +257,9 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
             name, sym, fill, what = {
                 "fit": (cat, symbol, col, "ln(TOF / h⁻¹) = %{y:.3f}"),
                 "out": (f"{cat} (left out of the fit)", f"{symbol}-open", col, "ln(TOF / h⁻¹) = %{y:.3f}, not fitted"),
-                "lower": (f"{cat} (bound: faster than the first reading)", "triangle-up", col,
+                "lower": (f"{cat} (bound: faster than the first reading)", "arrow-bar-up", col,
                           "ln(TOF / h⁻¹) >= %{y:.3f} (a lower bound)"),
-                "upper": (f"{cat} (bound: not above the blank)", "triangle-down-open", col,
+                "upper": (f"{cat} (bound: not above the blank)", "arrow-bar-down", col,
                           "ln(TOF / h⁻¹) <= %{y:.3f} (an upper bound)"),
             }[kind]
             fig.add_trace(go.Scatter(
@@ -310,8 +310,8 @@ def forest_plot(ranking: pd.DataFrame, *, label: str, log_x: bool = False, title
                 highlight: list[str] | None = None) -> go.Figure:
     """Estimate and interval per candidate, best at the top (``rank, catalyst, estimate, ci_low, ci_high``).
 
-    Rows with a ``censored`` bound are drawn as a triangle pointing the way the value can lie (right
-    for >=, left for <=), without an interval, after the ranked ones, in their own legend entry."""
+    Rows with a ``censored`` bound are drawn as a barred arrow pointing the way the value can lie
+    (right for >=, left for <=), without an interval, after the ranked ones, in their own legend entry."""
     r = ranking[np.isfinite(pd.to_numeric(ranking["estimate"], errors="coerce").to_numpy(dtype=float))]
     r = r.sort_values("rank", na_position="last")
     cens = (r["censored"].astype(object).where(r["censored"].notna(), "").astype(str).str.lower()
@@ -336,14 +336,18 @@ def forest_plot(ranking: pd.DataFrame, *, label: str, log_x: bool = False, title
         bc = bounds["censored"].astype(str).str.lower()
         fig.add_trace(go.Scatter(
             x=bounds["estimate"].to_numpy(dtype=float), y=bounds["catalyst"].astype(str).tolist(), mode="markers",
-            name="bound (not ranked)", marker=dict(symbol=np.where(bc == "lower", "triangle-right", "triangle-left-open"
-                                                                    ).tolist(), size=12, color="#555555"),
+            name="bound (not ranked)", marker=dict(symbol=np.where(bc == "lower", "arrow-bar-right", "arrow-bar-left"
+                                                                    ).tolist(), size=13, color="#555555"),
             customdata=np.where(bc == "lower", ">=", "<=").tolist(),
             hovertemplate="%{y}<br>" + label + " %{customdata} %{x:.3g} (a bound, not ranked)<extra></extra>"))
     fig.update_yaxes(autorange="reversed", title="candidate (best at top)", type="category",
                      categoryorder="array", categoryarray=cats + bounds["catalyst"].astype(str).tolist())
     fig.update_xaxes(title=label, type="log" if log_x else "linear")
-    return _layout(fig, title, height=max(300, 26 * (len(cats) + len(bounds)) + 120))
+    fig = _layout(fig, title, height=max(300, 26 * (len(cats) + len(bounds)) + 120))
+    if not bounds.empty:                             # two legend entries: keep them clear of the title
+        fig.update_layout(margin=dict(t=90), title=dict(y=0.99, yanchor="top"),
+                          legend=dict(orientation="h", yanchor="bottom", y=1.0, x=0))
+    return fig
 
 
 def rank_intervals(ranking: pd.DataFrame, *, title: str | None = None) -> go.Figure:
@@ -421,9 +425,10 @@ def zprime_bars(quality: pd.DataFrame, *, threshold: float, title: str | None = 
     z = pd.to_numeric(quality["z_prime"], errors="coerce")
     plates = quality["plate"].astype(str)
     low = (z < threshold).to_numpy()
+    has = z.notna().to_numpy()                       # plates without a benchmark have no bar
     fig = go.Figure()
     # two traces (not a pattern per bar): one hatch pattern for the whole low set keeps the SVG small
-    for mask, name, colour, hatch in ((~low, f"Z' >= {threshold:g}", series_colours(1)[0], ""),
+    for mask, name, colour, hatch in ((has & ~low, f"Z' >= {threshold:g}", series_colours(1)[0], ""),
                                       (low, f"Z' < {threshold:g}", "#e69f00", "/")):
         if mask.any():
             fig.add_trace(go.Bar(x=plates[mask], y=z[mask], name=name,
@@ -434,6 +439,7 @@ def zprime_bars(quality: pd.DataFrame, *, threshold: float, title: str | None = 
         has = rz.notna().to_numpy()
         if has.any():
             fig.add_trace(go.Scatter(x=plates[has], y=rz[has], mode="markers", name="robust Z' (samples vs blanks)",
+                                     showlegend=True,
                                      marker=dict(symbol="diamond", size=11, color="#000000",
                                                  line=dict(width=1, color="#ffffff")),
                                      hovertemplate="%{x}: robust Z' = %{y:.2f}<extra></extra>"))

@@ -62,6 +62,7 @@ def metric_choices() -> dict[str, dict]:
             "log": bool(m.lognormal),
             "column": m.column,
             "higher_is_better": m.higher_is_better,
+            "predict": bool(m.predict),
         }
     return out
 

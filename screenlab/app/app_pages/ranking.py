@@ -31,7 +31,8 @@ if needs_t:
     t_opts = [None, *temps]
     temperature = c2.selectbox(
         "Temperature / °C", t_opts, key="rank_temperature",
-        format_func=lambda t: f"reference {ctx.settings.reference_temperature_c:g} (from the Arrhenius fit)"
+        format_func=lambda t: (f"reference {ctx.settings.reference_temperature_c:g}"
+                               + (" (the Arrhenius fit where not measured)" if metrics[metric]["predict"] else ""))
         if t is None else f"{t:g} (measured)")
 else:
     c2.caption("This metric does not depend on a temperature.")
@@ -93,8 +94,10 @@ label = metrics[metric]["axis"]
 if metric == "ee" and enantiomer:
     label = f"excess of {enantiomer} / %"
 direction = r.attrs.get("direction", "")
-st.caption(f"Order: **{direction}**. Intervals at {ctx.settings.confidence * 100:g} %; the benchmark in orange. "
-           f"Rank interval and P(top {k}) from the estimates' uncertainty; 1 = best. " + metrics[metric].get("help", ""))
+has_ref = bool((ranked["role"].astype(str) == "reference").any())
+st.caption(f"Order: **{direction}**. Intervals at {ctx.settings.confidence * 100:g} %"
+           + ("; the benchmark in orange" if has_ref else "") + f". Rank interval and P(top {k}) from the estimates' "
+           "uncertainty; 1 = best. " + metrics[metric].get("help", ""))
 if require:
     n_out = int((r["reason"].astype(str).str.contains("--require", regex=False)).sum())
     st.caption(f"Required: {', '.join(r.attrs.get('requirements', require))}: {n_out} candidate(s) clearly outside, "
@@ -124,7 +127,8 @@ else:
     by_rank = ranked.sort_values("rank", kind="stable")
     shown = by_rank[(np.arange(n_ranked) < n_show) | (by_rank["role"].astype(str) == "reference").to_numpy()]
     if n_show < n_ranked:
-        st.caption(f"Charts: the best {n_show} of {n_ranked} ranked candidates, and the benchmark.")
+        st.caption(f"Charts: the best {n_show} of {n_ranked} ranked candidates" + (", and the benchmark." if has_ref
+                                                                                   else "."))
     left, right = st.columns([3, 2])
     with left:
         fast_rows = bounds[bounds["censored"] == "lower"].head(10)

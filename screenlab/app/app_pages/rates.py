@@ -70,9 +70,9 @@ if has_bounds:
     n_low, n_up = int((cens == "lower").sum()), int((cens == "upper").sum())
     st.caption(f"Bounds: {n_low} row(s) faster than the first reading allows (≥, rerun at lower loading or "
                f"temperature), {n_up} not distinguishable from the blank (≤); their intervals are left empty.")
-show = ["catalyst", "family", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", *factors,
-        "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "TOF", "tof_per_h", "tof_ci_low", "tof_ci_high",
-        *(["censored", "bound_reason"] if has_bounds else []), "ton",
+show = ["catalyst", "family", "role", "temperature_c", "TOF", *(["censored", "bound_reason"] if has_bounds else []),
+        "loading", "loading_unit", "substrate_conc_mM", *factors,
+        "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton",
         "enhancement", "enhancement_ci_low", "enhancement_ci_high", "is_standard", "plates", "flags"]
 sel = widgets.table(shown_view.reset_index(drop=True), key="rates_table", columns=show, on_select="rerun",
                     selection_mode="single-row", height=420)

@@ -53,8 +53,8 @@ fig = figures.arrhenius_plot(pts[point_cols], cat_pred, blank_points=blank_pts, 
 widgets.chart(fig, key="arrh_plot", filename="arrhenius")
 st.caption(f"Points: mean initial TOF per temperature at each catalyst's standard condition with its "
            f"{conf * 100:g} % interval; lines: weighted Arrhenius fit with its {conf * 100:g} % confidence band. "
-           "Open symbols: points left out of the fit; triangles: bounds, not measured values (▲ faster than the "
-           "first reading allows, ▽ not distinguishable from the blank), without intervals. "
+           "Open symbols: points left out of the fit; barred arrows: bounds, not measured values (pointing up: "
+           "faster than the first reading allows; down: not distinguishable from the blank), without intervals. "
            "The uncatalysed reaction (blank wells) has no sites, so it is drawn as ln(rate / mM h⁻¹) on the right "
            "axis: compare its slope, not its height.")
 from screenlab.export.display import censored_values, show_bounds  # noqa: E402
