@@ -48,6 +48,6 @@ def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **over
     elif overrides:
         settings = AnalysisSettings.from_mapping(settings.to_dict(), **overrides)
     kin = analyse_kinetics(data, settings)
-    quality = plate_quality(data, kin, settings)
     control = control_chart(kin, data)
+    quality = plate_quality(data, kin, settings, control=control)   # the chart made once
     return Analysis(data=data, settings=settings, kinetics=kin, quality=quality, control=control)

@@ -163,3 +163,17 @@ def test_ranking_flags_a_mix_of_plates():
     assert r50["rank"].notna().sum() >= 20
     assert r50.loc[r50["rank"].notna(), "flags"].str.contains("on_unchecked_plate").all()
     pd.testing.assert_frame_equal(q.drop(columns=["status", "flags"]), a.quality.drop(columns=["status", "flags"]))
+
+
+def test_pipeline_passes_its_control_chart_to_plate_quality(no_benchmark, demo_store):
+    # pipeline.analyse makes the control chart once and hands it to plate_quality: same table
+    from screenlab.store import Store
+
+    store = Store(demo_store, read_only=True)
+    try:
+        a = analyse(store.load_campaign("th-screen-2026"))
+    finally:
+        store.close()
+    pd.testing.assert_frame_equal(plate_quality(a.data, a.kinetics, a.settings), a.quality)
+    _, data, b = no_benchmark
+    pd.testing.assert_frame_equal(plate_quality(data, b.kinetics, b.settings), b.quality)

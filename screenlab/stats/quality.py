@@ -547,7 +547,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
 
 
 # --------------------------------------------------------------------------- per-plate summary
-def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd.DataFrame:
+def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
     """One row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status.
 
     Columns:
@@ -566,7 +566,8 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     ``upper_n, upper_median_mM_per_h, upper_cv_pct, separation_basis`` (the upper-quartile sample
     wells), ``robust_zprime``,
     ``ssmd`` (between those and the blanks; see the module docstring), ``status`` (ok | flagged |
-    unchecked | failed) and ``flags`` (see :data:`FLAGS`).
+    unchecked | failed) and ``flags`` (see :data:`FLAGS`). ``control``: the benchmark's control
+    chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``).
     """
     from screenlab.settings import AnalysisSettings
 
@@ -708,7 +709,7 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     mad_zero = pd.Series(mad_zero, index=out.index)
 
     # control chart of the benchmark
-    cc = control_chart(kin, data)
+    cc = control if control is not None else control_chart(kin, data)
     if len(cc):
         worst = cc.assign(_a=(cc["loo_t"].abs() / cc["loo_limit"]).fillna(-1), plate=cc["plate"].astype(str))
         worst = worst.sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")

@@ -175,8 +175,9 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
 
     ``plates_used`` maps catalyst -> ';'-joined plates behind its estimate (the rates row's
     ``plates``); catalysts not in it use every plate they have wells on (Arrhenius-based metrics).
-    ``plate_flags`` is the union of the plates' flags (``failed`` left out) in the order of the
-    catalyst's plates, each code once.
+    ``plate_flags`` is the union of the plates' flags (``failed`` and ``no_benchmark`` left out: the
+    candidate's ``on_failed_plate`` / ``on_unchecked_plate`` say them) in the order of the catalyst's
+    plates, each code once.
     """
     w = kin.wells[["catalyst", "plate", "role"]]    # the columns first: filtering every column is slow
     role = w["role"].astype(str)
@@ -191,11 +192,13 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
         return pd.DataFrame({"catalyst": cp["catalyst"].unique(), "all_failed": False, "any_failed": False,
                              "any_unchecked": False, "plate_flags": ""})
     q = quality.assign(plate=quality["plate"].astype(str)).drop_duplicates("plate").set_index("plate")
+    # each plate's flags without the status ones (said by on_failed_plate / on_unchecked_plate), once per plate
+    pf = (q["flags"].fillna("").astype(str).str.replace(r"(^|;)(?:failed|no_benchmark)(?=;|$)", r"\1", regex=True)
+          .str.replace(r";{2,}", ";", regex=True).str.strip(";"))
     cp = cp.reset_index(drop=True)
     status = cp["plate"].map(q["status"])
     cp = cp.assign(failed=status.eq("failed").to_numpy(), unchecked=status.eq("unchecked").to_numpy(),
-                   pf=cp["plate"].map(q["flags"]).fillna("").astype(str).to_numpy())
-    cp = cp.assign(pf=cp["pf"].str.replace(r"(^|;)failed(?=;|$)", r"\1", regex=True).str.strip(";"))
+                   pf=cp["plate"].map(pf).fillna("").astype(str).to_numpy())
     agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"),
                                      any_unchecked=("unchecked", "any"))
     # flags: only the (few) rows that carry any, split into codes, first occurrence per catalyst
