@@ -18,8 +18,9 @@ doubt for the few that can get there. :func:`adaptive_rank_summary` therefore wo
    a share x/n is sqrt(p (1 - p) / n), with p = (x + 1/2) / (n + 1) so that a share of 0 or 1 is not
    taken as exact). Only the candidates that matter are drawn in every draw: the *contenders*,
    which have a real chance of scoring above a threshold T placed so that at least K candidates
-   are almost surely above it, the benchmark, and the candidates whose P(beats the benchmark) is
-   still uncertain. The others ("resolved") are not ignored, which would bias the result, but
+   are almost surely above it. (P(beats the benchmark) is pairwise: the candidates whose value is
+   still uncertain are drawn further together with the benchmark alone, no ranking needed.) The
+   others ("resolved") are not ignored, which would bias the result, but
    drawn exactly in distribution at a fraction of the cost: for each one the number of draws in
    which it scores above T is Binomial(n, P(X > T)) (P from the t distribution:
    ``scipy.special.stdtr``), those draws are chosen at random, and its score there is drawn from
@@ -151,14 +152,13 @@ def _distinct_rows(cols: np.ndarray, d: int, rng: np.random.Generator) -> np.nda
         rows[dup] = rng.integers(0, d, int(dup.sum()))
 
 
-def _phase_b(mu, sigma, df, absolute, pos, D, R, p_R, thr, draws, seq, top_k, reference):
-    """Counts over ``draws`` new draws: P(top K) and P(best) counts for every candidate, and the
-    "beats the benchmark" counts of the D columns (returned in the order of the returned D; the
-    benchmark ``reference`` must be in D)."""
+def _phase_b(mu, sigma, df, absolute, pos, D, R, p_R, thr, draws, seq, top_k):
+    """P(top K) and P(best) counts of every candidate over ``draws`` new draws: the D columns drawn
+    in every draw, the R ones only where they score above ``thr`` (and in full in the draws where
+    fewer than K scores reach it)."""
     k = mu.size
     perm = np.argsort(pos)                           # position -> candidate
     D = D[np.argsort(pos[D], kind="stable")]         # drawn in every draw, in point-estimate order (ties)
-    ref_d = None if reference is None else int(np.flatnonzero(D == reference)[0])
     mu_d, sig_d, df_d = mu[D], sigma[D], df[D]
     thr32 = np.float32(thr)
     expected = float(np.sum(p_R)) if R.size else 0.0
@@ -180,7 +180,6 @@ def _phase_b(mu, sigma, df, absolute, pos, D, R, p_R, thr, draws, seq, top_k, re
         s = draw_matrix(mu_d, sig_d, df_d, d, rng)
         if absolute:
             np.abs(s, out=s)
-        beats = (np.count_nonzero(s > s[:, [ref_d]], axis=0) if ref_d is not None else np.zeros(D.size, np.int64))
         # the resolved candidates above the threshold: how many draws each, which, and their scores
         m = rng.binomial(d, p_R) if R.size else np.zeros(0, np.int64)
         cols = np.repeat(R, m)
@@ -222,18 +221,16 @@ def _phase_b(mu, sigma, df, absolute, pos, D, R, p_R, thr, draws, seq, top_k, re
             sel = where[rows] >= 0
             full[where[rows[sel]], pos[cols[sel]]] = vals[sel]
             tally(top, best, full, perm)
-        return top, best, beats
+        return top, best
 
     top = np.zeros(k, np.int64)
     best = np.zeros(k, np.int64)
-    beats = np.zeros(D.size, np.int64)
     with _executor(len(sizes)) as pool:
         for f in [pool.submit(one, d, ss) for d, ss in zip(sizes, seeds)]:
-            t_c, b_c, r_c = f.result()
+            t_c, b_c = f.result()
             top += t_c
             best += b_c
-            beats += r_c
-    return top, best, D, beats
+    return top, best
 
 
 def _threshold(mu, sigma, df, top_k: int, absolute: bool) -> float:
@@ -310,41 +307,45 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
     p_exc = tail_probability(mu, sigma, df, thr, absolute)
     # resolved: those that rarely exceed the threshold (their few draws above it are drawn alone)
     resolved = p_exc <= TAIL_EACH
-    if has_ref:
-        resolved[reference] = False
     pos = np.empty(k, np.int64)
     pos[np.argsort(-(np.abs(mu) if absolute else mu), kind="stable")] = np.arange(k)
     root = np.random.SeedSequence(seed)
     it = 0
+    D = np.flatnonzero(~resolved)
+    R = np.flatnonzero(resolved)
+    n_beats_draws = n                                # draws behind the p_beats of the still uncertain ones
+
+    def needed(count, nn):
+        p = (count + 0.5) / (nn + 1.0)
+        return p * (1 - p) / mc_se ** 2
+
     while True:                                      # a loop over a few rounds of more draws
         se_top, se_best = share_se(top, n), share_se(best, n)
         se_beats = share_se(beats, n_beats) if has_ref else np.zeros(k)
         if has_ref:
             se_beats[reference] = 0.0
         worst = max(float(se_top.max()), float(se_best.max()), float(se_beats.max()))
-        if worst <= mc_se or n >= max_draws:
+        if worst <= mc_se or max(n, n_beats_draws) >= max_draws:
             break
-        # draws still needed for the worst share, with 10 % to spare
-        def needed(count, nn):
-            p = (count + 0.5) / (nn + 1.0)
-            return p * (1 - p) / mc_se ** 2
-
+        seq = np.random.SeedSequence(root.entropy, spawn_key=(1 << 30, it))
+        # the top K and the best: the contenders drawn, the others' draws above the threshold sampled
         want = max(float(needed(top, n).max()), float(needed(best, n).max()))
+        if want > n:
+            add = int(min(max_draws - n, max(1000, np.ceil(1.1 * want) - n)))
+            t_c, b_c = _phase_b(mu, sigma, df, absolute, pos, D, R, p_exc[R], thr, add, seq, kk)
+            top += t_c
+            best += b_c
+            n += add
+        # P(beats the benchmark), pairwise: only the still uncertain ones, against the benchmark's own draws
         unsure = se_beats > mc_se
         if unsure.any():
-            want = max(want, float((needed(beats, n_beats)[unsure]).max()))
-        add = int(min(max_draws - n, max(1000, np.ceil(1.1 * want) - n)))
-        D = np.flatnonzero(~resolved | unsure)
-        R = np.flatnonzero(resolved & ~unsure)
-        seq = np.random.SeedSequence(root.entropy, spawn_key=(1 << 30, it))
-        t_c, b_c, D_sorted, r_c = _phase_b(mu, sigma, df, absolute, pos, D, R, p_exc[R], thr, add, seq, kk,
-                                           reference if has_ref else None)
-        top += t_c
-        best += b_c
-        if has_ref:
-            beats[D_sorted] += r_c
-            n_beats[D_sorted] += add
-        n += add
+            want_b = float((needed(beats, n_beats)[unsure]).max())
+            U = np.flatnonzero(unsure)
+            add_b = int(min(max_draws - int(n_beats[U].min()), max(1000, np.ceil(1.1 * want_b) - n_beats[U].min())))
+            beats[U] += _beats_counts(mu, sigma, df, absolute, U, reference, add_b,
+                                      np.random.SeedSequence(root.entropy, spawn_key=(1 << 30, it, 1)))
+            n_beats[U] += add_b
+            n_beats_draws = max(n_beats_draws, int(n_beats[U].max()))
         it += 1
     out["p_top"] = top / n
     out["p_best"] = best / n
@@ -352,7 +353,27 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
         pb = beats / n_beats
         pb[reference] = np.nan
         out["p_beats"] = pb
-    out.update(draws=int(n), mc_se=worst, n_contenders=int((~resolved).sum()), threshold=thr)
+    out.update(draws=int(max(n, n_beats_draws)), mc_se=worst, n_contenders=int(D.size), threshold=thr)
+    return out
+
+
+def _beats_counts(mu, sigma, df, absolute, U, reference, draws, seq) -> np.ndarray:
+    """How often each candidate of U scores above the benchmark over ``draws`` new draws (pairs drawn
+    together; no ranking needed)."""
+    cols = np.append(U, reference)
+    rows_per = max(1, CHUNK_CELLS // cols.size)
+    sizes = [min(rows_per, draws - s) for s in range(0, draws, rows_per)]
+    out = np.zeros(U.size, np.int64)
+
+    def one(d, ss):
+        sc = draw_matrix(mu[cols], sigma[cols], df[cols], d, np.random.default_rng(ss))
+        if absolute:
+            np.abs(sc, out=sc)
+        return np.count_nonzero(sc[:, :-1] > sc[:, -1:], axis=0)
+
+    with _executor(len(sizes)) as pool:
+        for f in [pool.submit(one, d, ss) for d, ss in zip(sizes, seq.spawn(len(sizes)))]:
+            out += f.result()
     return out
 
 
