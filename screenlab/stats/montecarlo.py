@@ -261,7 +261,7 @@ def _plan(confidence: float):
             b = by_col[:, _order_stat_index(n, min(1.0, q + h))].astype(float)
             need = np.maximum(need, n * (np.maximum(r - a, b - r) / tol) ** 2)
         want = float(np.quantile(need, RANK_STABLE_SHARE)) if need.size else 0.0
-        return int(np.clip(1.25 * want, MIN_RANK_DRAWS, MAX_RANK_DRAWS))
+        return int(np.clip(want, MIN_RANK_DRAWS, MAX_RANK_DRAWS))
 
     return plan
 
