@@ -35,7 +35,8 @@ Conventions (each chosen once, here):
 * **Plates without a benchmark** (fewer than two usable reference wells) have no Z'. Their quality
   comes from what they do have: the blank wells' scatter and detection limit
   (``blank_lod_mM_per_h``, the kinetics' 3 x SE of the blank mean), the share of sample wells
-  detectably above the blank (``sample_active_pct``: net rate above 3 x the blank wells' SD, the
+  detectably above the blank (``sample_active_pct``: net rate above 3 x the blank wells' SD and 4 x
+  its own SE, the
   3-sigma criterion of Long & Winefordner 1983 applied to a single well), the replicate CVs, the
   blank trend and the edge test, and a separation statistic between the blanks and the plate's
   *upper quartile* of sample wells (the wells at or above the 75th percentile of the plate's
@@ -785,8 +786,12 @@ def _separation(w, role, rate, p_i, n_pl: int, blanks, plate_index, is_samp, gid
     else:
         net = s_rate - b_med[s_p]
     n_s = np.bincount(s_p, minlength=n_pl)
+    # ... and above its own error by 4 SE: with ~90 sample wells on a plate, 3 x a four-blank SD
+    # alone lets a few dead wells through by chance (the SD of four values is itself uncertain)
+    net_se = (pd.to_numeric(w["net_rate_se_mM_per_h"], errors="coerce").to_numpy(float)[is_samp][s_ok]
+              if "net_rate_se_mM_per_h" in w else np.full(len(net), np.nan))
     with np.errstate(invalid="ignore", divide="ignore"):
-        active = np.isfinite(net) & (net > 3 * b_sd[s_p])
+        active = np.isfinite(net) & (net > 3 * b_sd[s_p]) & ~(net <= 4 * net_se)
         active_pct = np.where((n_s > 0) & np.isfinite(b_sd), 100.0 * np.bincount(s_p[active], minlength=n_pl) / n_s,
                               np.nan)
     # the upper quartile of each plate's sample rates: its median, and its spread as the replicate
@@ -807,7 +812,8 @@ def _separation(w, role, rate, p_i, n_pl: int, blanks, plate_index, is_samp, gid
     by_rep = (wells_rep >= SEP_MIN_UPPER) & np.isfinite(cv)
     s_u = np.where(by_rep, cv * u_med, u_mad)
     with np.errstate(invalid="ignore"):
-        makes_sense = (b_n >= SEP_MIN_BLANKS) & (u_n >= SEP_MIN_UPPER) & (u_med - b_med > lod)
+        makes_sense = ((b_n >= SEP_MIN_BLANKS) & (u_n >= SEP_MIN_UPPER) & (u_med - b_med > lod)
+                       & (np.nan_to_num(active_pct) > 0))          # something on the plate is active
     rz = np.where(makes_sense, _zprime_from_moments(u_med, s_u, b_med, b_mad), np.nan)
     sd = np.where(makes_sense, _ssmd_from_moments(u_med, s_u, b_med, b_mad), np.nan)
     basis = np.where(makes_sense, np.where(by_rep, "replicates", "upper_quartile"), "")
