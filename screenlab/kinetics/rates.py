@@ -303,6 +303,14 @@ def _pick(per_law: np.ndarray, law_index: np.ndarray) -> np.ndarray:
 def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
                amounts: pd.DataFrame | None = None) -> pd.DataFrame:
     """Initial rate of every non-empty well; see the module docstring for the method and columns."""
+    # the fits meet NaN, infinities and overflow in wells that cannot carry a law (bounds, flat or
+    # single-reading courses); every such case is handled by value below, so numpy's floating-point
+    # warnings would only reach the user as noise
+    with np.errstate(all="ignore"):
+        return _well_rates(data, settings, amounts)
+
+
+def _well_rates(data, settings, amounts) -> pd.DataFrame:
     if settings is None:
         settings = AnalysisSettings.from_mapping(data.manifest.analysis)
     if amounts is None:
