@@ -483,7 +483,7 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     # more than INDUCTION_AICC) than every integrated law (tried where the steepest part of the
     # course is not its start: a course that slows from t = 0 has no lag to find)
     with np.errstate(invalid="ignore"):
-        lag_rows = np.flatnonzero(fittable & (max_at >= 1) & ~(poly.r0 >= 0.9 * max_slope))
+        lag_rows = np.flatnonzero(fittable & (max_at >= 1) & ~(poly.r0 >= 0.75 * max_slope))
     lagged = np.zeros(G, dtype=bool)
     if lag_rows.size:
         ind = ratelaws.fit_first_order_induction(c.subset(lag_rows), max_slope[lag_rows])
