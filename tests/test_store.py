@@ -31,7 +31,7 @@ from store_samples import make_data, write_campaign  # noqa: E402
 
 from screenlab.errors import NotFoundError, ScreenlabError, StoreBusyError, ValidationError  # noqa: E402
 from screenlab.store import BUILTIN_EXTENSIONS, ImportRefusedError, Store  # noqa: E402
-from screenlab.store import db as store_db  # noqa: E402
+from screenlab.store import connection, writer  # noqa: E402
 
 FRAMES = ("catalysts", "plates", "wells", "readings")
 
@@ -81,10 +81,10 @@ def test_a_failing_migration_step_leaves_the_previous_schema(tmp_path, monkeypat
     Store(path).campaign_names()
     good = Store.migrations()
     bad = good + [(good[-1][0] + 1, "broken", "CREATE TABLE half_done (a INTEGER);\nSELECT * FROM no_such_table;")]
-    monkeypatch.setattr(Store, "migrations", staticmethod(lambda: bad))
+    monkeypatch.setattr(connection, "migrations", lambda: bad)
     with pytest.raises(ScreenlabError):
         Store(path).campaign_names()
-    monkeypatch.setattr(Store, "migrations", staticmethod(lambda: good))
+    monkeypatch.setattr(connection, "migrations", lambda: good)
     s = Store(path)
     assert s.schema_versions() == [v for v, _, _ in good]
     with s._connect() as con:
@@ -94,7 +94,7 @@ def test_a_failing_migration_step_leaves_the_previous_schema(tmp_path, monkeypat
 def test_newer_schema_is_refused(tmp_path, monkeypatch):
     path = tmp_path / "n.duckdb"
     Store(path).campaign_names()
-    monkeypatch.setattr(Store, "migrations", staticmethod(lambda: [(0, "old", "")]))
+    monkeypatch.setattr(connection, "migrations", lambda: [(0, "old", "")])
     with pytest.raises(ScreenlabError, match="newer than this"):
         Store(path).campaign_names()
 
@@ -311,7 +311,7 @@ def test_failure_while_writing_the_last_table_leaves_nothing(tmp_path, monkeypat
     store.import_campaign(first)
     before = store.table_counts()
     version = store.data_version()
-    real = store_db._bulk_insert
+    real = writer.bulk_insert
     seen = []
 
     def failing(con, table, frame):
@@ -321,22 +321,22 @@ def test_failure_while_writing_the_last_table_leaves_nothing(tmp_path, monkeypat
             raise RuntimeError("disk full (injected)")
         real(con, table, frame)
 
-    monkeypatch.setattr(store_db, "_bulk_insert", failing)
+    monkeypatch.setattr(writer, "bulk_insert", failing)
     second = read_campaign(write_campaign(tmp_path / "c2", name="atom", plates=("P1", "P2")))
     with pytest.raises(RuntimeError, match="injected"):
         store.import_campaign(second)
     assert last in seen
     if last == "import_files":
         assert seen[-1] == "import_files"      # it really is the last table written
-    monkeypatch.setattr(store_db, "_bulk_insert", real)
+    monkeypatch.setattr(writer, "bulk_insert", real)
     assert store.table_counts() == before and store.data_version() == version
     assert_same(first.data, store.load_campaign("atom"))
     # and a fresh store stays empty
     fresh = Store(tmp_path / "b.duckdb")
-    monkeypatch.setattr(store_db, "_bulk_insert", failing)
+    monkeypatch.setattr(writer, "bulk_insert", failing)
     with pytest.raises(RuntimeError):
         fresh.import_campaign(first)
-    monkeypatch.setattr(store_db, "_bulk_insert", real)
+    monkeypatch.setattr(writer, "bulk_insert", real)
     assert set(fresh.table_counts().values()) == {0} and fresh.campaign_names() == []
 
 
@@ -448,7 +448,7 @@ def test_busy_timeout_from_the_environment(monkeypatch, tmp_path):
     monkeypatch.setenv("SCREENLAB_BUSY_TIMEOUT_S", "1.5")
     assert Store(tmp_path / "x.duckdb").busy_timeout_s == 1.5
     monkeypatch.delenv("SCREENLAB_BUSY_TIMEOUT_S")
-    assert Store(tmp_path / "x.duckdb").busy_timeout_s == store_db.DEFAULT_BUSY_TIMEOUT_S
+    assert Store(tmp_path / "x.duckdb").busy_timeout_s == connection.DEFAULT_BUSY_TIMEOUT_S
 
 
 def test_a_file_that_is_not_a_store_gives_a_message(tmp_path):
