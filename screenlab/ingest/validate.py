@@ -27,7 +27,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from screenlab import plates as platelib
-from screenlab import units
+from screenlab import schema, units
 from screenlab.errors import Problem
 from screenlab.model import DEFAULT_ANALYTE, ROLES, UNCATALYSED
 
@@ -367,20 +367,15 @@ def check_catalysts(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFr
 
 
 def _empty_catalysts() -> pd.DataFrame:
-    return pd.DataFrame({c: pd.Series(dtype="str" if c in ("catalyst", "name", "family") else float)
-                         for c in CATALYST_COLUMNS})
+    return schema.empty_frame(schema.CATALYSTS)
 
 
 def _empty_plates() -> pd.DataFrame:
-    return pd.DataFrame({"plate": pd.Series(dtype="str"), "format": pd.Series(dtype=np.int64),
-                         "n_rows": pd.Series(dtype=np.int64), "n_cols": pd.Series(dtype=np.int64),
-                         "temperature_c": pd.Series(dtype=float), "run_date": pd.Series(dtype="str"),
-                         "notes": pd.Series(dtype="str")})
+    return schema.empty_frame(schema.PLATES)
 
 
 def _empty_wells() -> pd.DataFrame:
-    return pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
-                         "role": pd.Series(dtype="str"), "substrate_conc_mM": pd.Series(dtype=float)})
+    return schema.empty_frame(schema.WELLS)
 
 
 # --------------------------------------------------------------------------- plates
