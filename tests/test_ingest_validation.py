@@ -11,7 +11,7 @@ import pytest
 
 from screenlab.errors import ValidationError
 from screenlab.ingest import read_campaign
-from test_ingest_support import GOOD_CATALYSTS, GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, good_files, good_readings
+from campaign_texts import GOOD_CATALYSTS, GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, good_files, good_readings
 
 
 def files(**edits) -> dict[str, bytes]:

@@ -1,4 +1,4 @@
-"""A small good campaign built in code, shared by the ingest tests (tests/test_ingest*.py).
+"""The files of a small good campaign, as text, shared by the ingest tests (not a test module).
 
 The data are invented (synthetic tests only). ``good_files()`` gives file name -> text;
 ``write_campaign`` writes it to a folder after applying edits.
@@ -82,10 +82,3 @@ def write_campaign(folder: Path, files: dict[str, str | bytes] | None = None, **
         (folder / name).write_bytes(data)
     return folder
 
-
-def test_support_builds_a_readable_campaign(tmp_path):
-    from screenlab.ingest import read_campaign
-
-    res = read_campaign(write_campaign(tmp_path / "c"))
-    assert len(res.data.wells) == 8
-    assert len(res.data.readings) == 28
