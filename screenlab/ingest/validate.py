@@ -275,14 +275,6 @@ def _to_float(text: pd.Series, blank: np.ndarray) -> np.ndarray:
     return v
 
 
-def parse_wells_fast(names: pd.Series) -> pd.DataFrame:
-    """:func:`screenlab.plates.parse_wells` on the distinct names only, spread back to every row
-    (a readings file repeats a few hundred well names many times)."""
-    codes, uniques = pd.factorize(names.fillna(""), use_na_sentinel=True)
-    parsed = platelib.parse_wells(np.asarray(uniques, dtype=object))
-    return parsed.iloc[codes].reset_index(drop=True)
-
-
 def parse_names(names: pd.Series, cache: dict | None = None) -> pd.DataFrame:
     """:func:`screenlab.plates.parse_wells` of distinct well names (missing as ''), with ``cache``
     (name -> parsed well, row, col) shared by the tables of one campaign, so a name the layout
