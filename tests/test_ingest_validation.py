@@ -1,28 +1,29 @@
 """One test per validation message of screenlab.ingest (each names file, row, column).
 
-Campaigns are built in memory from the synthetic good campaign of test_ingest_support and fed
+Campaigns are built in memory from the synthetic good campaign of tests/campaign_texts.py and fed
 to read_campaign as an upload dict (file name -> bytes), the same path the app uses.
 """
 from __future__ import annotations
 
 import re
 
+import numpy as np
+import pandas as pd
 import pytest
+from campaign_texts import GOOD_CATALYSTS, GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, edited_files, good_readings
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
+from screenlab import plates as platelib
 from screenlab.errors import ValidationError
 from screenlab.ingest import read_campaign
-from campaign_texts import GOOD_CATALYSTS, GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, good_files, good_readings
+from screenlab.ingest import validate as v
+from screenlab.ingest.tables import RawTable, read_table
+from screenlab.model import ROLES
 
 
 def files(**edits) -> dict[str, bytes]:
-    content = good_files()
-    for key, val in edits.items():
-        name = key.replace("_csv", ".csv").replace("_xlsx", ".xlsx").replace("_toml", ".toml")
-        if val is None:
-            content.pop(name, None)
-        else:
-            content[name] = val
-    return {k: (v if isinstance(v, bytes) else v.encode()) for k, v in content.items()}
+    return edited_files(**edits)
 
 
 def problems(**edits):
@@ -513,16 +514,6 @@ def test_every_problem_is_reported_and_message_capped_at_50():
 # plain pandas lines: which rows a problem names, and the frame the check builds (rows, order and
 # values). The references are pandas (``isin``, ``duplicated``, ``merge``, ``to_numeric``,
 # ``sort_values``) and screenlab.plates.parse_wells for well names (tested in test_units_plates.py).
-
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from hypothesis import given, settings  # noqa: E402
-from hypothesis import strategies as st  # noqa: E402
-
-from screenlab import plates as platelib  # noqa: E402
-from screenlab.ingest import validate as v  # noqa: E402
-from screenlab.ingest.tables import RawTable, read_table  # noqa: E402
-from screenlab.model import ROLES  # noqa: E402
 
 RULE_PLATES = "plate,format,temperature_c\nP1,96,40\nP2,24,50\nP 3,384,60\n"
 RULE_CATALYSTS = "catalyst,molar_mass_g_mol\nC1,350\nC2,410\nREF,412.5\n"

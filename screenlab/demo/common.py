@@ -45,6 +45,28 @@ def place(rng, fmt: int, groups: list[dict], fill_empty: bool = True) -> pd.Data
     return placed.sort_values(["_row", "_col"], kind="stable").reset_index(drop=True)
 
 
+def plates_by_temperature(rng, temps, fmt: int, groups_of, plate_of) -> tuple[list[dict], pd.DataFrame]:
+    """One plate per temperature, its well groups (``groups_of(temp)``) placed at random
+    (:func:`place`, in temperature order); returns the plates.csv rows (``plate_of(i, temp)``) and
+    the layouts joined, with the plate id and its temperature (``_temp``) on every well."""
+    plates, layouts = [], []
+    for i, temp in enumerate(temps):  # a few plates
+        row = plate_of(i, temp)
+        layouts.append(place(rng, fmt, groups_of(temp)).assign(plate=row["plate"], _temp=temp))
+        plates.append(row)
+    return plates, pd.concat(layouts, ignore_index=True)
+
+
+def screen_groups(catalysts, reference: str, *, n_sample: int, n_reference: int, n_blank: int, loading: float,
+                  loading_unit: str, std: dict) -> list[dict]:
+    """The well groups of a screening plate: every catalyst but the benchmark ``reference`` x
+    ``n_sample`` wells, the benchmark x ``n_reference``, blanks x ``n_blank``; all at ``std``."""
+    groups = [well_group("sample", n_sample, catalyst=c, loading=loading, loading_unit=loading_unit, **std)
+              for c in catalysts if c != reference]
+    return groups + [well_group("reference", n_reference, catalyst=reference, loading=loading,
+                                loading_unit=loading_unit, **std), well_group("blank", n_blank, **std)]
+
+
 def well_group(role: str, n: int, **cols) -> dict:
     """A group of ``n`` identical wells (expanded by :func:`place`)."""
     return {"role": role, "_n": n, **cols}

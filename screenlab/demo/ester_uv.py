@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, place, time_courses, well_group,
-                                   well_site_conc_mM)
+from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, plates_by_temperature, screen_groups,
+                                   time_courses, well_site_conc_mM)
 from screenlab.demo.generator import arrhenius_factor, beer_lambert_absorbance, first_order_conversion, site_umol
 from screenlab.model import UNCATALYSED
 
@@ -42,17 +42,12 @@ def build(rng: np.random.Generator) -> Campaign:
     cats = cats.assign(molar_mass_g_mol=np.nan, metal_wt_pct=np.nan, metal_molar_mass_g_mol=np.nan,
                        dispersion=np.nan, sites_per_unit=cats["sites_per_unit"].where(cats["sites_per_unit"] != 1.0))
     std = dict(substrate_conc=_UV_S0, volume=_UV_V, buffer="HEPES pH 8.0")
-    plates, layouts = [], []
-    for i, temp in enumerate(_UV_TEMPS):
-        pid = f"UV-{int(temp)}"
-        groups = [well_group("sample", 6, catalyst=c, loading=UV_LOAD, loading_unit="mol%", **std)
-                  for c in cats["catalyst"] if c != "REF-ZN"]
-        groups.append(well_group("reference", 6, catalyst="REF-ZN", loading=UV_LOAD, loading_unit="mol%", **std))
-        groups.append(well_group("blank", 8, **std))
-        layouts.append(place(rng, 96, groups).assign(plate=pid, _temp=temp))
-        plates.append(dict(plate=pid, format=96, temperature_c=temp, run_date=f"2026-04-{14 + i:02d}",
-                           notes=f"plate reader, 405 nm, read every 5 min at {temp:g} C"))
-    layout = pd.concat(layouts, ignore_index=True)
+    groups = screen_groups(cats["catalyst"], "REF-ZN", n_sample=6, n_reference=6, n_blank=8, loading=UV_LOAD,
+                           loading_unit="mol%", std=std)
+    plates, layout = plates_by_temperature(
+        rng, _UV_TEMPS, 96, lambda temp: groups,
+        lambda i, temp: dict(plate=f"UV-{int(temp)}", format=96, temperature_c=temp, run_date=f"2026-04-{14 + i:02d}",
+                             notes=f"plate reader, 405 nm, read every 5 min at {temp:g} C"))
     layout["_vol_uL"] = layout["volume"]
     filled = layout["role"] != "empty"
     tw = per_well_truth(layout, cats, ["ea_kj_mol", "tof_ref_per_h"])

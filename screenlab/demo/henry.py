@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, place, time_courses, well_group,
-                                   well_site_conc_mM)
+from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, plates_by_temperature, screen_groups,
+                                   time_courses, well_site_conc_mM)
 from screenlab.demo.generator import arrhenius_factor
 from screenlab.model import UNCATALYSED
 
@@ -39,17 +39,12 @@ def build(rng: np.random.Generator) -> Campaign:
     cats = cats.assign(molar_mass_g_mol=np.nan, sites_per_unit=np.nan, metal_wt_pct=np.nan,
                        metal_molar_mass_g_mol=np.nan, dispersion=np.nan)
     std = dict(substrate_conc=_HN_S0 / 1000.0, volume=_HN_V / 1000.0, additive="DIPEA 10 mol%")
-    plates, layouts = [], []
-    for i, temp in enumerate(_HN_TEMPS):
-        pid = f"HN-{int(temp)}"
-        groups = [well_group("sample", 3, catalyst=c, loading=_HN_LOAD, loading_unit="umol", **std)
-                  for c in cats["catalyst"] if c != "REF-CU"]
-        groups.append(well_group("reference", 4, catalyst="REF-CU", loading=_HN_LOAD, loading_unit="umol", **std))
-        groups.append(well_group("blank", 4, **std))
-        layouts.append(place(rng, 48, groups).assign(plate=pid, _temp=temp))
-        plates.append(dict(plate=pid, format=48, temperature_c=temp, run_date=f"2026-05-{4 + i:02d}",
-                           notes=f"48-vial block at {temp:g} C, chiral HPLC"))
-    layout = pd.concat(layouts, ignore_index=True)
+    groups = screen_groups(cats["catalyst"], "REF-CU", n_sample=3, n_reference=4, n_blank=4, loading=_HN_LOAD,
+                           loading_unit="umol", std=std)
+    plates, layout = plates_by_temperature(
+        rng, _HN_TEMPS, 48, lambda temp: groups,
+        lambda i, temp: dict(plate=f"HN-{int(temp)}", format=48, temperature_c=temp, run_date=f"2026-05-{4 + i:02d}",
+                             notes=f"48-vial block at {temp:g} C, chiral HPLC"))
     layout["_vol_uL"] = layout["volume"] * 1000.0
     layout["_s0_mM"] = layout["substrate_conc"] * 1000.0
     filled = (layout["role"] != "empty").to_numpy()

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, place, time_courses, well_group,
-                                   well_site_conc_mM)
+from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, place, plates_by_temperature,
+                                   time_courses, well_group, well_site_conc_mM)
 from screenlab.demo.generator import ATOMIC_WEIGHTS, arrhenius_factor, first_order_conversion, molar_mass, site_umol
 from screenlab.model import UNCATALYSED
 from screenlab.plates import is_edge
@@ -91,16 +91,13 @@ def build(rng: np.random.Generator) -> Campaign:
         return [well_group(role, n, catalyst=r.catalyst, loading=r.std_loading, loading_unit=r.loading_unit,
                        **{**std, **over}) for r in role_rows.itertuples()]
 
-    plates, layouts = [], []
     dates = {40.0: "2026-03-02", 50.0: "2026-03-03", 60.0: "2026-03-04", 70.0: "2026-03-05"}
-    for temp in _TH_TEMPS:  # four plates
-        pid = f"TH-{int(temp)}"
-        groups = sample_groups(cand, 3) + sample_groups(pd.DataFrame([ref]), 6, role="reference")
-        groups.append(well_group("blank", 6, **std))
-        lay = place(rng, 96, groups).assign(plate=pid, _temp=temp)
-        layouts.append(lay)
-        plates.append(dict(plate=pid, format=96, temperature_c=temp, run_date=dates[temp],
-                           notes=f"main screen, 3 wells per candidate, block at {temp:g} C"))
+    main = sample_groups(cand, 3) + sample_groups(pd.DataFrame([ref]), 6, role="reference")
+    main.append(well_group("blank", 6, **std))
+    plates, screen = plates_by_temperature(  # four plates
+        rng, _TH_TEMPS, 96, lambda temp: main,
+        lambda i, temp: dict(plate=f"TH-{int(temp)}", format=96, temperature_c=temp, run_date=dates[temp],
+                             notes=f"main screen, 3 wells per candidate, block at {temp:g} C"))
     # the series block at 60 C: loading series, substrate series, base factor
     ir2 = cats.set_index("catalyst").loc["IR-02"]
     mn1 = cats.set_index("catalyst").loc["MN-01"]
@@ -112,11 +109,10 @@ def build(rng: np.random.Generator) -> Campaign:
                       **{**std, "base": "K2CO3"}) for c in (ir2, cats.set_index("catalyst").loc["RU-01"])]
     groups += [well_group("reference", 6, catalyst="REF-RU", loading=ref.std_loading, loading_unit="umol", **std),
                well_group("blank", 6, **std)]
-    lay = place(rng, 96, groups).assign(plate="TH-60S", _temp=60.0)
-    layouts.append(lay)
+    series = place(rng, 96, groups).assign(plate="TH-60S", _temp=60.0)
     plates.append(dict(plate="TH-60S", format=96, temperature_c=60.0, run_date="2026-03-06",
                        notes="series block: RU-04 loading series, MN-01 substrate series, IR-02 and RU-01 with K2CO3"))
-    layout = pd.concat(layouts, ignore_index=True)
+    layout = pd.concat([screen, series], ignore_index=True)
     layout["_vol_uL"] = layout["volume"]
 
     # per-well kinetic parameters (vectorised over wells)
