@@ -52,14 +52,15 @@ def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **over
     elif overrides:
         settings = AnalysisSettings.from_mapping(settings.to_dict(), **overrides)
     kin = analyse_kinetics(data, settings)
-    quality = plate_quality(data, kin, settings)
+    control = control_chart(kin, data)
+    quality = plate_quality(data, kin, settings, control=control)   # the chart made once
     drop = edge_blanks(kin, data, quality)
     if drop is not None:
         # a plate's ring reads differently from its interior: its ring blanks would misstate the
         # background of the interior wells and pull the uncatalysed Arrhenius line; leave them out
         kin = without_blank_wells(kin, data, drop)
-        quality = plate_quality(data, kin, settings)
-    control = control_chart(kin, data)
+        control = control_chart(kin, data)
+        quality = plate_quality(data, kin, settings, control=control)
     return Analysis(data=data, settings=settings, kinetics=kin, quality=quality, control=control)
 
 

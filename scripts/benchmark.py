@@ -9,7 +9,11 @@ it as a campaign folder and times, in this order:
 import       screenlab.ingest.read_campaign(folder) + Store(tmp).import_campaign(result)
 rates        kinetics amounts + well_rates + blank_rates + well_turnover + group_rates
 arrhenius    kinetics.arrhenius.arrhenius_table
-ranking      stats.ranking.rank_candidates (TOF at the reference temperature, 10,000 draws)
+ranking      stats.ranking.rank_candidates (TOF at the reference temperature; the adaptive Monte Carlo:
+             as many draws as a Monte Carlo SE below 0.005 on every probability and stable rank
+             bounds need; the draws made are reported)
+analyse+rank what the CLI and the app do: pipeline.analyse (kinetics, orders, plate quality, control
+             chart) + rank_candidates with the plate quality, on the loaded campaign
 shortlist    export.shortlist.write_shortlist + export.nextround.design_next_round (top 5)
 app page     the compute behind the Ranking page: store.load_campaign + pipeline.analyse (kinetics,
              orders, plate quality, control chart) + rank_candidates with plate quality + pareto
@@ -49,6 +53,7 @@ TARGETS = {
     "import_rps_400": 500_000,          # readings/s, 400 plates, validation included
     "analysis_speedup": 30.0,           # rates + Arrhenius + ranking vs the per-well loop
     "analysis_s_400": 0.35,
+    "analyse_rank_speedup": 20.0,       # pipeline.analyse + ranking (issue 14) vs the per-well loop
     "growth_per_4x": 4.5,
     "rss_mb_1600": 1024.0,
 }
@@ -198,8 +203,18 @@ def run_size(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:
         orders = _timed(res, "orders_s", lambda: apparent_orders(wells, settings, factor_names=data.factor_names))
         kin = KineticsResult(amounts=am, wells=wells, blanks=blanks, rates=groups, arrhenius=arr, orders=orders,
                              settings=settings)
-        ranking = _timed(res, "ranking_s", lambda i: rank_candidates(kin, None, metric="tof", draws=10_000,
+        ranking = _timed(res, "ranking_s", lambda i: rank_candidates(kin, None, metric="tof",
                                                                       catalysts=data.catalysts), repeats=REPEATS)
+        mc = ranking.attrs["monte_carlo"]
+        res["ranking_draws"], res["ranking_draws_ranked"], res["ranking_mc_se"] = (
+            mc["draws"], mc["draws_ranked"], mc["mc_se"])
+
+        def do_analyse_rank():
+            a_ = analyse(data, settings)
+            return rank_candidates(a_.kinetics, a_.quality, metric="tof", confidence=a_.settings.confidence,
+                                   catalysts=data.catalysts)
+
+        _timed(res, "analyse_rank_s", lambda i: do_analyse_rank(), repeats=REPEATS)
 
         def do_shortlist():
             out = Path(tmp) / "shortlist"
@@ -246,7 +261,7 @@ def run_size(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:
         arr2 = arrhenius_table(g2, b2, settings)
         kin2 = KineticsResult(amounts=a2, wells=w2, blanks=b2, rates=g2, arrhenius=arr2,
                               orders=apparent_orders(w2, settings, factor_names=data.factor_names), settings=settings)
-        rank_candidates(kin2, None, metric="tof", draws=10_000, catalysts=data.catalysts)
+        rank_candidates(kin2, None, metric="tof", catalysts=data.catalysts)
         res["py_peak_mb"] = tracemalloc.get_traced_memory()[1] / 2 ** 20
         tracemalloc.stop()
     res["analysis_s"] = res["rates_s"] + res["arrhenius_s"] + res["ranking_s"]
@@ -263,7 +278,7 @@ store = Store(sys.argv[1], read_only=True)
 data = store.load_campaign(sys.argv[2])
 store.close()
 a = analyse(data)
-rank_candidates(a.kinetics, a.quality, metric="tof", draws=10_000, catalysts=data.catalysts)
+rank_candidates(a.kinetics, a.quality, metric="tof", catalysts=data.catalysts)
 print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0)
 """
 
@@ -339,6 +354,12 @@ def report(rows: list[dict], startup: float) -> str:
                      + ", ".join(f"{r['plates']} plates from {r['baseline']['baseline_wells']:,} wells "
                                  f"({r['baseline']['baseline_fraction'] * 100:.1f} %)" for r in sub))
     lines.append("'= anal.' = rates + Arrhenius + ranking; 'x faster' = loop baseline (rates + Arrhenius) / anal.")
+    lines.append("analyse + rank (pipeline.analyse with plate quality, then the ranking with it): " + ", ".join(
+        f"{r['plates']}: {r['analyse_rank_s']:.3f} s = {r['baseline']['baseline_s'] / r['analyse_rank_s']:.1f}x "
+        "faster than the loop" for r in ok))
+    lines.append("ranking draws (adaptive): " + ", ".join(
+        f"{r['plates']}: {r['ranking_draws']:,} draws, {r['ranking_draws_ranked']:,} ranking every candidate, "
+        f"largest Monte Carlo SE {r['ranking_mc_se']:.4f}" for r in ok))
     lines.append("'RSS an.' = peak RSS (MB) of the benchmark process through import + analysis; 'RSS end' = after "
                  "shortlist and app page too; 'fresh' = peak RSS of a fresh process that loads the stored campaign, "
                  "analyses it and ranks it (as the app or CLI does); 'py MB' = tracemalloc peak of rates + Arrhenius "
@@ -359,7 +380,8 @@ def report(rows: list[dict], startup: float) -> str:
     for a, b in zip(r96, r96[1:]):
         ratio = b["readings"] / a["readings"]
         parts = [f"{k.replace('_s', '')} {b[k] / a[k]:.2f}x" for k in
-                 ("import_s", "rates_s", "arrhenius_s", "ranking_s", "analysis_s", "app_page_s") if a[k] > 0]
+                 ("import_s", "rates_s", "arrhenius_s", "ranking_s", "analysis_s", "analyse_rank_s", "app_page_s")
+                 if a[k] > 0]
         lines.append(f"  {a['plates']} -> {b['plates']} plates ({ratio:.0f}x data): " + ", ".join(parts))
     lines.append("")
     lines.append(f"screenlab --help start-up: {startup:.3f} s (best of 3)")
@@ -382,11 +404,17 @@ def report(rows: list[dict], startup: float) -> str:
         lines.append(f"  >= {TARGETS['analysis_speedup']:.0f}x faster than the loop at 400 plates "
                      f"(loop {r['baseline']['baseline_s']:.1f} s here): {sp:.1f}x "
                      f"-> {verdict(sp >= TARGETS['analysis_speedup'])}")
+        sp2 = r["baseline"]["baseline_s"] / r["analyse_rank_s"]
+        lines.append(f"  analyse + rank >= {TARGETS['analyse_rank_speedup']:.0f}x faster than the loop's rates + "
+                     f"Arrhenius at 400 plates: {sp2:.1f}x -> {verdict(sp2 >= TARGETS['analyse_rank_speedup'])}")
     for a, b in zip(r96, r96[1:]):
         if abs(b["readings"] / a["readings"] - 4) < 0.5 and a["analysis_s"] > 0:
             g = b["analysis_s"] / a["analysis_s"]
             lines.append(f"  analysis growth {a['plates']} -> {b['plates']} <= {TARGETS['growth_per_4x']}x: {g:.2f}x "
                          f"-> {verdict(g <= TARGETS['growth_per_4x'])}")
+            g2 = b["analyse_rank_s"] / a["analyse_rank_s"]
+            lines.append(f"  analyse + rank growth {a['plates']} -> {b['plates']} <= {TARGETS['growth_per_4x']}x: "
+                         f"{g2:.2f}x -> {verdict(g2 <= TARGETS['growth_per_4x'])}")
     if 1600 in by:
         m = by[1600]["rss_fresh_mb"]
         lines.append(f"  1,600 plates load + analyse + rank in < 1 GB (fresh process): peak RSS {m:.0f} MB "

@@ -20,7 +20,8 @@ def test_benchmark_runs_and_reports_every_stage(tmp_path):
     rows = json.loads(out.read_text())["rows"]
     (row,) = rows
     assert row["plates"] == 4 and row["readings"] == SyntheticSpec(n_plates=4).n_readings
-    for key in ("import_s", "import_s_first", "rates_s", "arrhenius_s", "ranking_s", "analysis_s", "app_page_s",
+    for key in ("import_s", "import_s_first", "rates_s", "arrhenius_s", "ranking_s", "analysis_s", "analyse_rank_s",
+                "ranking_draws", "app_page_s",
                 "pareto_s", "rss_fresh_mb"):
         assert row[key] > 0, key
     assert row["baseline"]["baseline_s"] > 0

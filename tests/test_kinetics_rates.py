@@ -191,7 +191,22 @@ def test_absorbance_above_the_linear_range_is_left_out_of_the_fit():
     full = well_rates(make([t], [a], **kw))
     limited = well_rates(make([t], [a], linear_range_max=1.5, **kw))
     assert "above_linear_range" in flags_of(limited, 0) and "above_linear_range" not in flags_of(full, 0)
-    assert limited["fit_points"].iloc[0] == int((a <= 1.5).sum()) < full["fit_points"].iloc[0]
+    # the baseline reading (t = 0, zero by construction) is not a point of the fit either
+    assert limited["fit_points"].iloc[0] == int((a <= 1.5).sum()) - 1 < full["fit_points"].iloc[0]
+
+
+def test_a_noisy_baseline_reading_does_not_bend_a_straight_course():
+    # absorbance read against its own t = 0 reading: that reading's noise shifts every later value
+    # alike; a straight course must still come out straight (zero order) with its true slope
+    rng = np.random.default_rng(9)
+    t = np.linspace(0, 1.0, 11)
+    kw = dict(kind="absorbance", s0=1.0, epsilon_M_cm=1e4, path_length_cm=0.5)
+    true_mM = 0.03 * t                                       # 0.03 mM/h, 3 % of 1 mM by 1 h
+    a = [0.05 + 5.0 * true_mM + rng.normal(0, 0.004, t.size) for _ in range(12)]
+    out = well_rates(make([t] * 12, a, **kw))
+    # at 3 % conversion zero and first order are the same line; either way the slope is the truth
+    assert out["rate_mM_per_h"].mean() == pytest.approx(0.03, rel=0.03)
+    assert (out["fit_points"] == 10).all()                      # the baseline reading left out
 
 
 def test_baseline_first_reading_and_no_substrate_flags():

@@ -134,7 +134,9 @@ def test_unrankable_listed_after_with_reasons():
 def test_unmeasured_temperature_without_fit_is_unrankable():
     r = rank_candidates(fake_kin([10, 20], [1, 1]), at_temperature_c=80.0, draws=100)
     assert r["rank"].isna().all()
-    assert (r["reason"] == "not measured at 80 degC and no Arrhenius fit").all()
+    # what is missing, in words: the temperature, and why there is no line to predict from
+    assert (r["reason"] == "not measured at 80 degC; measured at one temperature: no Arrhenius line to "
+                           "predict from").all()
 
 
 def test_flags_travel_from_kinetics_and_plates():

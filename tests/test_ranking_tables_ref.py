@@ -34,12 +34,15 @@ def _plate_info_ref(kin, quality, plates_used=None) -> pd.DataFrame:
         cp = pd.concat([cp[~cp["catalyst"].isin(used["catalyst"])], used], ignore_index=True)
     if quality is None or quality.empty:
         return pd.DataFrame({"catalyst": cp["catalyst"].unique(), "all_failed": False, "any_failed": False,
-                             "plate_flags": ""})
+                             "any_unchecked": False, "plate_flags": ""})
     q = quality.assign(plate=quality["plate"].astype(str)).set_index("plate")
     cp = cp.assign(failed=cp["plate"].map(q["status"]).eq("failed").to_numpy(),
+                   unchecked=cp["plate"].map(q["status"]).eq("unchecked").to_numpy(),
                    pf=cp["plate"].map(q["flags"]).fillna("").astype(str).to_numpy())
-    cp = cp.assign(pf=cp["pf"].str.replace(r"(^|;)failed(?=;|$)", r"\1", regex=True).str.strip(";"))
+    status_codes = ("failed", "no_benchmark")
+    cp = cp.assign(pf=cp["pf"].str.split(";").map(lambda c: ";".join(x for x in c if x not in status_codes)))
     agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"),
+                                     any_unchecked=("unchecked", "any"),
                                      plate_flags=("pf", lambda s: ";".join(_merge_codes_ref(*[[x] for x in s]))))
     return agg.reset_index()
 
@@ -64,8 +67,9 @@ def _flagged_quality(quality: pd.DataFrame, seed: int) -> pd.DataFrame:
     """The plate-quality frame with invented statuses and flag strings (repeats, 'failed' inside)."""
     rng = np.random.default_rng(seed)
     n = len(quality)
-    return quality.assign(status=rng.choice(["ok", "failed", "ok"], n),
-                          flags=rng.choice(["", "edge_effect", "failed;low_z", "low_z;edge_effect;low_z", "failed"], n))
+    return quality.assign(status=rng.choice(["ok", "failed", "ok", "unchecked"], n),
+                          flags=rng.choice(["", "edge_effect", "failed;low_z", "low_z;edge_effect;low_z", "failed",
+                                            "no_benchmark;failed;edge_effect", "no_benchmark"], n))
 
 
 @pytest.mark.parametrize("which", ["none", "real", "flagged"])

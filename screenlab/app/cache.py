@@ -87,24 +87,31 @@ def analysis(path: str, read_only: bool, version: Any, campaign: str, skey: tupl
 
 @st.cache_data(show_spinner="Ranking ...", max_entries=32)
 def ranking(path: str, read_only: bool, version: Any, campaign: str, skey: tuple, metric: str,
-            temperature_c: float | None, k: int) -> pd.DataFrame:
-    """``stats.ranking.rank_candidates`` (``temperature_c`` None: the reference temperature)."""
+            temperature_c: float | None, k: int, enantiomer: str | None = None, transport_limited: bool = False,
+            require: tuple[str, ...] = ()) -> pd.DataFrame:
+    """``stats.ranking.rank_candidates`` (``temperature_c`` None: the reference temperature;
+    ``enantiomer``, ``transport_limited`` and ``require`` as its ``enantiomer``,
+    ``include_transport_limited`` and ``require``)."""
     from screenlab.stats.ranking import rank_candidates
 
     a = analysis(path, read_only, version, campaign, skey)
     return rank_candidates(a.kinetics, a.quality, metric=metric, at_temperature_c=temperature_c, top_k=int(k),
-                           confidence=a.settings.confidence, catalysts=a.data.catalysts)
+                           confidence=a.settings.confidence, catalysts=a.data.catalysts,
+                           enantiomers=a.data.manifest.enantiomers, enantiomer=enantiomer,
+                           include_transport_limited=bool(transport_limited), require=tuple(require))
 
 
 @st.cache_data(show_spinner="Finding the Pareto set ...", max_entries=16)
 def pareto(path: str, read_only: bool, version: Any, campaign: str, skey: tuple, metrics: tuple[str, ...],
-           temperature_c: float | None, draws: int = 2000) -> pd.DataFrame:
-    """``stats.ranking.pareto`` over 2-3 metrics, with P(on the front) from ``draws`` joint draws."""
+           temperature_c: float | None, draws: int = 2000, require: tuple[str, ...] = ()) -> pd.DataFrame:
+    """``stats.ranking.pareto`` over 2-3 metrics, with P(on the front) from ``draws`` joint draws,
+    under the Ranking page's requirements."""
     from screenlab.stats.ranking import pareto as _pareto
 
     a = analysis(path, read_only, version, campaign, skey)
     return _pareto(a.kinetics, a.quality, metrics, at_temperature_c=temperature_c, draws=draws,
-                   confidence=a.settings.confidence, catalysts=a.data.catalysts)
+                   confidence=a.settings.confidence, catalysts=a.data.catalysts, require=tuple(require),
+                   enantiomers=a.data.manifest.enantiomers)
 
 
 @st.cache_data(show_spinner=False, max_entries=16)
@@ -169,7 +176,8 @@ class ShortlistFiles:
 @st.cache_data(show_spinner="Writing the shortlist and the next-round plates ...", max_entries=16)
 def shortlist_files(path: str, read_only: bool, version: Any, campaign: str, skey: tuple, metric: str,
                     temperature_c: float | None, k: int, picked: tuple[str, ...], note: str,
-                    decision: int | None = None) -> ShortlistFiles:
+                    decision: int | None = None, enantiomer: str | None = None,
+                    transport_limited: bool = False, require: tuple[str, ...] = ()) -> ShortlistFiles:
     """``export.shortlist.write_shortlist`` and ``export.nextround.design_next_round`` for the picked
     candidates (in ranking order, the benchmark added for comparison), read back as bytes.
     ``decision``: the recorded decision these picks are (its number goes into the next round's
@@ -183,7 +191,8 @@ def shortlist_files(path: str, read_only: bool, version: Any, campaign: str, ske
     from screenlab.export.shortlist import write_shortlist
 
     a = analysis(path, read_only, version, campaign, skey)
-    r = ranking(path, read_only, version, campaign, skey, metric, temperature_c, k)
+    r = ranking(path, read_only, version, campaign, skey, metric, temperature_c, k, enantiomer, transport_limited,
+                require)
     chosen = r[r["catalyst"].astype(str).isin(picked) | (r["role"].astype(str) == "reference")]
     chosen = chosen[chosen["rank"].notna()]
     n_picked = int((chosen["role"].astype(str) != "reference").sum())
@@ -193,7 +202,11 @@ def shortlist_files(path: str, read_only: bool, version: Any, campaign: str, ske
         out = write_shortlist(Path(tmp) / "shortlist", chosen, a.kinetics, campaign=campaign, top_k=max(1, n_picked),
                               catalysts=a.data.catalysts, quality=a.quality, imports=hist, import_files=hist_files,
                               options={"metric": metric, "temperature_c": temperature_c, "top_k": k,
-                                       "note": note, "picked": ";".join(picked), "decision": decision})
+                                       "note": note, "picked": ";".join(picked), "decision": decision,
+                                       "enantiomer": enantiomer or "",
+                                       "require": ";".join(require), "order": r.attrs.get("direction", ""),
+                                       "draws": (r.attrs.get("monte_carlo") or {}).get("draws", ""),
+                                       "mc_se": (r.attrs.get("monte_carlo") or {}).get("mc_se", "")})
         table = pd.read_csv(out["csv"]) if "csv" in out else pd.DataFrame()
         csv = Path(out["csv"]).read_bytes()
         xlsx = Path(out["xlsx"]).read_bytes()

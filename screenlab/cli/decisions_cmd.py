@@ -144,8 +144,15 @@ def record_shortlist(args, analysis, ranking, picks, version: str, *, next_round
     from screenlab.store import decisions as D
 
     temps = next_round_temperatures
+    mc = ranking.attrs.get("monte_carlo") or {}
+    draws = getattr(args, "draws", None) or mc.get("draws")
+    constraints = {"next_round_temperatures_c": temps, "next_round_replicates": args.replicates,
+                   "require": list(ranking.attrs.get("requirements", [])),
+                   "enantiomer": getattr(args, "enantiomer", None) or "",
+                   "include_transport_limited": bool(getattr(args, "include_transport_limited", False)),
+                   "order": ranking.attrs.get("direction", ""), "monte_carlo_se": mc.get("mc_se")}
     draft = draft_decision(ranking, picks, campaign=args.campaign, note=args.note, author=args.author,
-                           settings=analysis.settings, top_k=args.top, draws=args.draws, seed=args.seed,
+                           settings=analysis.settings, top_k=args.top, draws=draws, seed=args.seed,
                            catalysts=analysis.data.catalysts, supersedes=args.supersedes, campaign_version=version,
-                           constraints={"next_round_temperatures_c": temps, "next_round_replicates": args.replicates})
+                           constraints=constraints)
     return D.record_decision(_store(args, read_only=False), draft)

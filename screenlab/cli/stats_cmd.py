@@ -1,13 +1,15 @@
 """``screenlab quality``, ``screenlab rank`` and ``screenlab shortlist``.
 
-quality    one row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status
-rank       candidates ranked by TOF, enhancement, Ea or TON with rank intervals and P(best)
-           (``--pareto``: the Pareto set over TOF, enhancement and Ea instead)
+quality    one row per plate: Z' (or, without a benchmark, the robust Z' / SSMD of the upper-quartile
+           sample wells against the blanks), replicate CVs, blank trend, edge effect, control chart, status
+rank       candidates ranked by TOF, enhancement, Ea, TON, selectivity or ee with rank intervals and
+           P(best), optionally under --require constraints (``--pareto``: the Pareto set instead)
 shortlist  the top K as CSV / XLSX / Parquet plus a next-round campaign folder; with ``--note`` the
            shortlist is also recorded in the store as a decision (see ``screenlab decisions``)
 """
 from __future__ import annotations
 
+import argparse
 import math
 import sys
 from pathlib import Path
@@ -17,13 +19,37 @@ from screenlab.cli.common import add_format_option, add_store_option, emit
 
 # the columns the commands print, checked against the frames' schemas (screenlab.schema)
 QUALITY_COLUMNS = schema.QUALITY.pick([
-    "plate", "temperature_c", "n_sample", "n_reference", "n_blank", "zprime", "replicate_cv_median_pct",
-    "reference_cv_pct", "blank_ratio", "blank_z", "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs",
-    "reference_loo_t", "status", "flags"])
+    "plate", "temperature_c", "n_sample", "n_reference", "n_blank", "zprime", "robust_zprime", "ssmd",
+    "blank_lod_mM_per_h", "sample_active_pct", "replicate_cv_median_pct", "reference_cv_pct", "blank_ratio", "blank_z",
+    "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs", "reference_loo_t", "status", "flags"])
 RANK_TABLE_COLUMNS = schema.RANKING.pick([
-    "rank", "catalyst", "role", "family", "estimate", "ci_low", "ci_high", "unit", "rank_low", "rank_high", "p_top",
-    "p_best", "p_beats_reference", "n", "basis", "flags", "reason"])
+    "rank", "catalyst", "role", "family", "estimate", "ci_low", "ci_high", "censored", "unit", "favours", "rank_low",
+    "rank_high", "p_top", "p_best", "p_beats_reference", "n", "basis", "flags", "reason"])
 METRIC_CHOICES = ("tof", "enhancement", "ea", "ton", "selectivity", "ee")
+
+RANK_EPILOG = """\
+metrics and what comes first:
+  tof, enhancement, ton, selectivity   higher first
+  ee                                   larger excess first, either enantiomer (|ee|); the column
+                                       'favours' names the enantiomer in excess. --enantiomer NAME
+                                       ranks by the (signed) excess of that enantiomer instead.
+  ea                                   lower apparent barrier first. A low *apparent* Ea is not a
+                                       better catalyst when the reaction runs into mass transport:
+                                       diffusion has an apparent Ea of only ~10-20 kJ/mol, so a
+                                       catalyst fast enough to be transport-limited shows a low Ea
+                                       whatever its own barrier. Candidates flagged low_ea (below
+                                       [analysis].low_ea_kj_mol, default 20) are listed after the
+                                       others with that reason; --include-transport-limited ranks them.
+
+--require EXPR (repeatable): COLUMN>=VALUE or COLUMN<=VALUE on a numeric column of the rates table
+  (e.g. selectivity_pct>=90, ee_pct>=80, ton>=50), judged on each candidate's interval: clearly
+  outside -> listed after the ranked ones with the reason; straddling -> ranked and flagged
+  constraint_uncertain. P(top K) and P(best) are over the candidates that remain.
+
+Bounds: a rate the readings cannot resolve is shown as a bound (censored lower: '>= x', faster
+than the first reading allows; upper: '<= x', not distinguishable from the blank), never as a
+value with an interval, and is not given P(best) or P(top K).
+"""
 
 
 def _campaign(p) -> None:
@@ -37,16 +63,29 @@ def _ranking_options(p, *, top_required: bool = False) -> None:
                         "(default: the campaign's reference temperature)")
     p.add_argument("--top", metavar="K", type=int, default=None if top_required else 5, required=top_required,
                    help="how many candidates count as the top (p_top)" + ("" if top_required else "; default 5"))
-    p.add_argument("--draws", metavar="N", type=int, default=10000,
-                   help="random draws from each candidate's sampling distribution (default 10000)")
+    p.add_argument("--draws", metavar="N", type=int, default=None,
+                   help="exactly N draws from each candidate's sampling distribution, every candidate ranked in "
+                        "each (default: as many as needed for a Monte Carlo SE below 0.005 on every probability "
+                        "and stable rank bounds)")
     p.add_argument("--seed", metavar="S", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--require", metavar="EXPR", action="append", default=[],
+                   help="keep only candidates meeting COLUMN>=VALUE or COLUMN<=VALUE on the rates table, judged on "
+                        "their interval (repeatable; e.g. selectivity_pct>=90)")
+    p.add_argument("--enantiomer", metavar="NAME", default=None,
+                   help="with the ee metric: rank by the excess of this enantiomer (a name from the campaign's "
+                        "[analytes] enantiomers) instead of by |ee|")
+    p.add_argument("--include-transport-limited", action="store_true",
+                   help="with the ea metric: rank candidates flagged low_ea (likely transport-controlled) with the "
+                        "others instead of listing them after")
 
 
 def register(sub) -> None:
     q = sub.add_parser("quality", help="plate quality: Z', replicate CVs, blank trend, edge effect, control chart",
-                       description="One row per plate: Z'-factor between benchmark and blank wells, replicate CVs, "
-                       "the blank against the campaign's blank Arrhenius line, the edge-versus-interior test, the "
-                       "benchmark's control chart and a status (ok, flagged, failed).")
+                       description="One row per plate: Z'-factor between benchmark and blank wells, the robust Z' "
+                       "and SSMD of the upper-quartile sample wells against the blanks, the blanks' detection limit, "
+                       "replicate CVs, the blank against the campaign's blank Arrhenius line, the edge-versus-interior "
+                       "test, the benchmark's control chart and a status (ok, flagged, unchecked = no benchmark, "
+                       "judged on the rest; failed = Z' below 0 or no usable blanks).")
     _campaign(q)
     add_format_option(q)
     q.add_argument("--chart", action="store_true", help="print the benchmark's control chart instead")
@@ -54,8 +93,10 @@ def register(sub) -> None:
 
     r = sub.add_parser("rank", help="rank candidates with their uncertainty (rank intervals, P(best))",
                        description="Draws from each candidate's sampling distribution (log-normal for TOF, "
-                       "enhancement and TON; t for Ea), ranks every draw, and reports the rank interval, "
-                       "P(top K) and P(best). Unrankable candidates are listed last with the reason.")
+                       "enhancement and TON; t for Ea, selectivity and ee), ranks the draws, and reports the rank "
+                       "interval, P(top K) and P(best), with the number of draws and the largest Monte Carlo error. "
+                       "Unrankable candidates are listed after the ranked ones with the reason.",
+                       epilog=RANK_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
     _campaign(r)
     r.add_argument("--metric", choices=METRIC_CHOICES, default="tof", help="ranking metric (default tof)")
     _ranking_options(r)
@@ -91,7 +132,12 @@ def _check(args) -> None:
 
     if getattr(args, "top", None) is not None and args.top < 1:
         raise UsageError(f"--top {args.top}: give at least 1")
-    if getattr(args, "draws", 1) < 1:
+    if getattr(args, "require", None):
+        from screenlab.stats.constraints import check_syntax
+
+        for expr in args.require:
+            check_syntax(expr)
+    if getattr(args, "draws", None) is not None and args.draws < 1:
         raise UsageError(f"--draws {args.draws}: give at least 1")
     t = getattr(args, "at_temperature", None)
     if t is not None and (not math.isfinite(t) or t <= -273.15):
@@ -122,7 +168,50 @@ def _rank(a, metric, args):
 
     return rank_candidates(a.kinetics, a.quality, metric=metric, at_temperature_c=args.at_temperature,
                            top_k=args.top, draws=args.draws, seed=args.seed, confidence=a.settings.confidence,
-                           catalysts=a.data.catalysts)
+                           catalysts=a.data.catalysts, enantiomers=a.data.manifest.enantiomers,
+                           enantiomer=args.enantiomer, include_transport_limited=args.include_transport_limited,
+                           require=args.require)
+
+
+def _check_metric_options(args, metric: str) -> None:
+    from screenlab.errors import UsageError
+
+    if args.enantiomer is not None and metric != "ee":
+        raise UsageError("--enantiomer applies to the ee metric only (use --metric ee)")
+    if args.include_transport_limited and metric != "ea":
+        raise UsageError("--include-transport-limited applies to the ea metric only (use --metric ea)")
+
+
+def ranking_for_reading(r):
+    """The ranking as a fixed-width table: bounds as '>= x' / '<= x' with empty intervals, the
+    favoured enantiomer only for ee."""
+    from screenlab.export.display import show_bounds
+
+    unit = str(r["unit"].iloc[0]) if len(r) else ""
+    t = show_bounds(r, "estimate", "ci_low", "ci_high", unit=unit, text_only=True)
+    cols = [c for c in RANK_TABLE_COLUMNS if c in t]
+    if not (t["favours"].astype(str) != "").any():
+        cols.remove("favours")
+    if not (t["censored"].astype(str) != "").any():
+        cols.remove("censored")
+    return t[cols]
+
+
+def mc_note(r) -> str:
+    """One line on what came first and how many draws stand behind the numbers."""
+    mc = r.attrs.get("monte_carlo") or {}
+    parts = [f"order: {r.attrs.get('direction', '')}"]
+    if r.attrs.get("requirements"):
+        parts.append("required: " + ", ".join(r.attrs["requirements"]))
+    if mc.get("draws"):
+        txt = f"{mc['draws']:,} draws ({mc['draws_ranked']:,} ranking every candidate)"
+        txt += f", largest Monte Carlo SE of a probability {mc['mc_se']:.4f}"
+        if mc.get("mc_se_target"):
+            txt += f" (target {mc['mc_se_target']:g})"
+        if mc.get("rank_bound_halfwidth") is not None:
+            txt += f", rank bounds stable for {100 * mc.get('rank_bound_stable_share', 1.0):.1f} % of candidates"
+        parts.append(txt)
+    return "; ".join(parts)
 
 
 def run_rank(args) -> int:
@@ -130,11 +219,26 @@ def run_rank(args) -> int:
     if args.pareto:
         from screenlab.stats.ranking import pareto
 
-        emit(pareto(a.kinetics, a.quality, at_temperature_c=args.at_temperature, draws=min(args.draws, 5000),
-                    seed=args.seed, confidence=a.settings.confidence, catalysts=a.data.catalysts), args.format)
+        if args.enantiomer is not None:
+            from screenlab.errors import UsageError
+
+            raise UsageError("--enantiomer does not apply to --pareto (the Pareto view takes ee by magnitude)")
+        emit(pareto(a.kinetics, a.quality, at_temperature_c=args.at_temperature,
+                    draws=min(args.draws or 5000, 5000), seed=args.seed, confidence=a.settings.confidence,
+                    catalysts=a.data.catalysts, require=args.require, enantiomers=a.data.manifest.enantiomers,
+                    include_transport_limited=args.include_transport_limited), args.format)
         return 0
+    _check_metric_options(args, args.metric)
     r = _rank(a, args.metric, args)
-    emit(r[RANK_TABLE_COLUMNS] if args.format == "table" else r, args.format)
+    if args.format == "table":
+        emit(ranking_for_reading(r), args.format)
+        print(mc_note(r))
+    else:
+        from screenlab.export.display import show_bounds
+
+        emit(show_bounds(r, "estimate", "ci_low", "ci_high", unit=str(r["unit"].iloc[0]) if len(r) else "",
+                         text="shown"), args.format)
+        print(mc_note(r), file=sys.stderr)
     return 0
 
 
@@ -167,6 +271,7 @@ def run_shortlist(args) -> int:
     temps = _temperatures(args.temperatures)
     if args.replicates < 1:
         raise UsageError(f"--replicates {args.replicates}: give at least 1")
+    _check_metric_options(args, args.by)
     record = args.note is not None
     if not record and (args.author is not None or args.supersedes is not None):
         raise UsageError("--author and --supersedes go with --note (recording the decision)")
@@ -183,8 +288,9 @@ def run_shortlist(args) -> int:
     picks = r[r["rank"].notna() & (r["role"] != "reference")]["catalyst"].head(args.top).tolist()
     if not picks:
         raise UsageError(f"no candidate of {args.campaign!r} can be ranked by {args.by}; see 'screenlab rank'")
-    front = pareto(a.kinetics, a.quality, at_temperature_c=args.at_temperature, draws=min(args.draws, 2000),
-                   seed=args.seed, confidence=a.settings.confidence, catalysts=a.data.catalysts)
+    front = pareto(a.kinetics, a.quality, at_temperature_c=args.at_temperature, draws=min(args.draws or 2000, 2000),
+                   seed=args.seed, confidence=a.settings.confidence, catalysts=a.data.catalysts, require=args.require,
+                   enantiomers=a.data.manifest.enantiomers)
     out = Path(args.out)
     try:  # before anything is recorded: a folder that cannot be written stops here
         out.mkdir(parents=True, exist_ok=True)
@@ -196,7 +302,10 @@ def run_shortlist(args) -> int:
         from screenlab.cli.decisions_cmd import record_shortlist
 
         recorded = record_shortlist(args, a, r, picks, version, next_round_temperatures=temps)
-    options = {"at_temperature_c": t_rank, "draws": args.draws, "seed": args.seed}
+    options = {"at_temperature_c": t_rank, "draws": r.attrs["monte_carlo"]["draws"],
+               "mc_se": r.attrs["monte_carlo"]["mc_se"], "seed": args.seed,
+               "require": ";".join(r.attrs.get("requirements", [])),
+               "enantiomer": args.enantiomer or "", "order": r.attrs.get("direction", "")}
     if recorded is not None:
         options.update({"decision": recorded.decision, "note": args.note.strip(),
                         "campaign_version": recorded.campaign_version})

@@ -33,8 +33,10 @@ _HN_LIBRARY = [
 ]
 
 
-def build(rng: np.random.Generator) -> Campaign:
-    cats = pd.DataFrame(_HN_LIBRARY, columns=["catalyst", "name", "family", "ea_kj_mol", "tof_ref_per_h",
+def build(rng: np.random.Generator, library: list[tuple] | None = None) -> Campaign:
+    """The campaign (``library``: other invented catalysts in the rows' shape of the demo's own, the
+    benchmark ``REF-CU`` among them)."""
+    cats = pd.DataFrame(_HN_LIBRARY if library is None else library, columns=["catalyst", "name", "family", "ea_kj_mol", "tof_ref_per_h",
                                               "selectivity_pct", "ee_pct"])
     cats = cats.assign(molar_mass_g_mol=np.nan, sites_per_unit=np.nan, metal_wt_pct=np.nan,
                        metal_molar_mass_g_mol=np.nan, dispersion=np.nan)

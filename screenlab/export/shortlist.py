@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from screenlab.errors import UsageError
+from screenlab.export.display import show_bounds
 from screenlab.export.safe import neutralise_frame
 
 SAFETY_NOTE = """\
@@ -47,11 +48,28 @@ def _shortlist_frame(ranking: pd.DataFrame, top_k: int, catalysts: pd.DataFrame 
     out = pd.concat([picks, refs], ignore_index=True)
     out.insert(0, "shortlist", np.r_[np.arange(1, len(picks) + 1), np.zeros(len(refs), int)])
     out["shortlist"] = out["shortlist"].astype("Int64").where(out["shortlist"] > 0)
+    unit = str(ranking["unit"].iloc[0]) if "unit" in ranking else metric.unit
+    out = show_bounds(out, "estimate", "ci_low", "ci_high", unit=unit, text="shown")
     out = out.rename(columns={"estimate": metric.column, "ci_low": metric.ci_column("low"),
                               "ci_high": metric.ci_column("high")}).drop(columns=["unit", "reason"])
+    if "favours" in out and not (out["favours"].astype(str) != "").any():
+        out = out.drop(columns="favours")
     if catalysts is not None and "name" in catalysts:
         names = catalysts.drop_duplicates("catalyst").set_index("catalyst")["name"]
         out.insert(out.columns.get_loc("catalyst") + 1, "name", out["catalyst"].map(names))
+    return out
+
+
+def _rates_for_reading(rates: pd.DataFrame) -> pd.DataFrame:
+    """The rates rows with censored values as bounds: intervals emptied, ``tof_shown`` and
+    ``enhancement_shown`` text columns, and the plain-words reason of each bound."""
+    from screenlab.stats.ranking import NOT_SHOWN_ACTIVE, TOO_FAST
+
+    out = show_bounds(rates, "tof_per_h", "tof_ci_low", "tof_ci_high", unit="h-1", text="tof_shown")
+    out = show_bounds(out, "enhancement", "enhancement_ci_low", "enhancement_ci_high", text="enhancement_shown")
+    if "censored" in out:
+        c = out["censored"].astype(object).where(out["censored"].notna(), "").astype(str).str.lower()
+        out["censored_reason"] = c.map({"lower": TOO_FAST, "upper": NOT_SHOWN_ACTIVE}).fillna("")
     return out
 
 
@@ -84,9 +102,13 @@ def write_shortlist(out_dir, ranking: pd.DataFrame, kin, *, campaign: str, top_k
 
     * ``shortlist.csv`` and ``shortlist.parquet``: one row per shortlisted candidate
       (``shortlist`` 1..k, NA for the benchmark rows) with the ranking columns, the estimate and
-      interval renamed with their unit (e.g. ``tof_per_h, tof_ci_low_per_h, tof_ci_high_per_h``);
+      interval renamed with their unit (e.g. ``tof_per_h, tof_ci_low_per_h, tof_ci_high_per_h``),
+      ``shown`` (the value as text: ``13.65 (11.49 to 16.22) h-1``, or a bound ``>= 1,500 h-1``
+      whose interval columns are then empty) and ``censored``;
     * ``shortlist.xlsx``: sheets ``shortlist``, ``kinetics`` (every rates row of the shortlisted
-      catalysts and the benchmark: each temperature and condition), ``arrhenius``, ``ranking``
+      catalysts and the benchmark: each temperature and condition; censored rates as bounds in
+      ``tof_shown`` / ``enhancement_shown`` with ``censored_reason``, their intervals empty),
+      ``arrhenius``, ``ranking``
       (all candidates, unrankable ones with their reason), ``plate quality`` and ``pareto`` when
       given, ``provenance`` (campaign, import file hashes, analysis settings, ScreenLab version,
       date), ``imports`` when given, and ``safety``;
@@ -101,6 +123,7 @@ def write_shortlist(out_dir, ranking: pd.DataFrame, kin, *, campaign: str, top_k
     rates = kin.rates[kin.rates["catalyst"].astype(str).isin(keep)]
     sort_cols = [c for c in ("catalyst", "temperature_c", "loading", "substrate_conc_mM") if c in rates]
     rates = rates.sort_values(sort_cols).reset_index(drop=True)
+    rates = _rates_for_reading(rates)
     arr = kin.arrhenius
     arr = arr[arr["catalyst"].astype(str).isin(keep | {UNCATALYSED})].reset_index(drop=True) if len(arr) else arr
     prov = _provenance(campaign, ranking, getattr(kin, "settings", None), {"top_k": top_k, **(options or {})},
@@ -111,7 +134,9 @@ def write_shortlist(out_dir, ranking: pd.DataFrame, kin, *, campaign: str, top_k
     neutralise_frame(short).to_csv(paths["csv"], index=False)
     short.to_parquet(paths["parquet"], index=False)
     paths["safety"].write_text(SAFETY_NOTE, encoding="utf-8")
-    sheets = [("shortlist", short), ("kinetics", rates), ("arrhenius", arr), ("ranking", ranking)]
+    unit = str(ranking["unit"].iloc[0]) if len(ranking) and "unit" in ranking else ""
+    ranking_read = show_bounds(ranking, "estimate", "ci_low", "ci_high", unit=unit, text="shown")
+    sheets = [("shortlist", short), ("kinetics", rates), ("arrhenius", arr), ("ranking", ranking_read)]
     if quality is not None:
         sheets.append(("plate quality", quality))
     if pareto is not None:

@@ -347,10 +347,10 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
         lam[a] = np.where(better, np.maximum(la / 3.0, 1e-9), np.minimum(la * 8.0, 1e9))
         settled = (better & (gain < 1e-11) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (lam[a] >= 1e9)
         active[a[settled]] = False
-    a11 = c.rowsum(W * j1 * j1)
-    a12 = c.rowsum(W * j1 * j2)
-    a22 = c.rowsum(W * j2 * j2)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        a11 = c.rowsum(W * j1 * j1)
+        a12 = c.rowsum(W * j1 * j2)
+        a22 = c.rowsum(W * j2 * j2)
         det = a11 * a22 - a12 * a12
         singular = ~(det > 1e-10 * a11 * a22)
         i11, i12, i22 = a22 / det, -a12 / det, a11 / det
@@ -361,7 +361,7 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
     # the second parameter at an end of its range: the law is at its nested limit (saturation ->
     # zero or first order, deactivation -> first order); the rate's SE is then the one-parameter
     # fit's, with the second parameter held there
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         i11 = np.where(at2, 1.0 / a11, i11)
     singular = np.where(at2, ~(a11 > 0), singular)
     return th1, th2, rss, (i11, i12, i22), singular, at1, at2

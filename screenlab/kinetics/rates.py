@@ -17,7 +17,7 @@
    bound as its rate, no SE and flag ``done_at_first_reading``.
 4. **One law per catalyst x condition.** All wells of one catalyst and condition, at every
    temperature (blanks: per condition), share one law: the integrated law with the smallest AICc
-   summed over its :data:`PROBE_WELLS` wells with the largest product (Hurvich & Tsai 1989; all
+   summed over its wells with the largest product (:data:`PROBE_WELLS`, or a quarter of them) (Hurvich & Tsai 1989; all
    integrated laws are fitted to the same readings, so their AICc compare; the wells that got
    furthest tell the laws apart, and a flat course, such as a dispensing failure, takes no part). The generic early-window quadratic is used instead where most of the
    group's courses are not initial-rate kinetics (product falling after a maximum, or induction)
@@ -122,8 +122,10 @@ FLAG_SIGMAS = 3.0
 #: a group's law misses its data when its residual variance exceeds this multiple of the noise
 #: variance (residuals twice the noise SD; common practice, no source)
 MISFIT_RATIO = 4.0
-#: wells of each catalyst x condition (those with the largest product) on which the law is chosen
+#: wells of each catalyst x condition (those with the largest product) on which the law is chosen:
+#: at least PROBE_WELLS, and a PROBE_SHARE of its wells where it has more (a blank group, say)
 PROBE_WELLS = 3
+PROBE_SHARE = 0.25
 #: AICc advantage of the induction course over every integrated law that flags induction (a
 #: difference above 4 is "considerably less support" for the others: Burnham & Anderson 2002)
 INDUCTION_AICC = 4.0
@@ -303,6 +305,14 @@ def _pick(per_law: np.ndarray, law_index: np.ndarray) -> np.ndarray:
 def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
                amounts: pd.DataFrame | None = None) -> pd.DataFrame:
     """Initial rate of every non-empty well; see the module docstring for the method and columns."""
+    # the fits meet NaN, infinities and overflow in wells that cannot carry a law (bounds, flat or
+    # single-reading courses); every such case is handled by value below, so numpy's floating-point
+    # warnings would only reach the user as noise
+    with np.errstate(all="ignore"):
+        return _well_rates(data, settings, amounts)
+
+
+def _well_rates(data, settings, amounts) -> pd.DataFrame:
     if settings is None:
         settings = AnalysisSettings.from_mapping(data.manifest.analysis)
     if amounts is None:
@@ -332,9 +342,11 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
               else np.zeros(len(amounts), dtype=np.int8))
     use = (code >= 0) & np.isfinite(t_all) & np.isfinite(p_all)
     first_reading_base = np.zeros(G, dtype=bool)
+    baselined = np.zeros(G, dtype=bool)                 # read against the well's own first reading
     if "baseline" in amounts.columns and not _all_missing(amounts["baseline"]):
         fr = _equals(amounts["baseline"], "first_reading")
         first_reading_base[code[fr & (code >= 0)]] = True
+        baselined[code[(fr | _equals(amounts["baseline"], "t0")) & (code >= 0)]] = True
     code, t, prod, rc = code[use], t_all[use], p_all[use], rc_all[use]
     order = _order_by_well(code, t)
     if order is not None:
@@ -352,6 +364,8 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         substrate_h = _substrate_integral(t, y / share[g], g, G, capped)
     c = ratelaws.dense_courses(t, y, g, G, capped, keep=rc != ABOVE_LINEAR_RANGE)
     del t, prod, rc, y, g, code, t_all, p_all, rc_all, use
+    if baselined.any():
+        c = _baseline_offset(c, baselined)
     T, Y, W = c.t, c.y, c.w
     Gi = np.arange(G)
     fitted = W > 0
@@ -384,7 +398,9 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
     lg_sorted = law_group[order]
     start = np.searchsorted(lg_sorted, lg_sorted, side="left")
     probe = np.zeros(G, dtype=bool)
-    probe[order[(np.arange(G) - start) < PROBE_WELLS]] = True
+    group_size = np.bincount(law_group[can_fit], minlength=n_law_groups)
+    n_probe = np.maximum(PROBE_WELLS, np.ceil(PROBE_SHARE * group_size).astype(np.int64))
+    probe[order[(np.arange(G) - start) < n_probe[lg_sorted]]] = True
     probe &= can_fit
     fits = ratelaws.fit_all(c, window_frac=window_frac, min_points=min_pts, iterative_rows=np.flatnonzero(probe))
     scale = np.where(capped, 1.0, np.maximum(np.nan_to_num(np.abs(y_top)), 1e-12))
@@ -595,6 +611,42 @@ def well_rates(data: CampaignData, settings: AnalysisSettings | None = None,
         "fit_points": n_fit,
         "substrate_integral_h": substrate_h,
     })
+
+
+def _baseline_offset(c: ratelaws.Courses, baselined: np.ndarray, rounds: int = 3) -> ratelaws.Courses:
+    """Courses read against the well's own first reading (absorbance minus its baseline reading):
+    that reading is zero by construction, and its noise is a common offset of every later reading,
+    which a law through the origin would read as curvature. The baseline reading is left out of the
+    fits, and the offset is estimated with the course: a few rounds of alternating least squares,
+    the better of the zero- and first-order laws fitted to the readings less the offset, then the
+    offset as the mean residual. The courses come back with the offset taken off."""
+    rows = np.flatnonzero(baselined)
+    sub = c.subset(rows)
+    fitted = sub.w > 0
+    first = np.argmax(fitted, axis=1)
+    w = sub.w.copy()
+    w[np.arange(len(rows)), first] = 0.0                       # the baseline reading itself
+    n = w.sum(axis=1)
+    delta = np.zeros(len(rows))
+    for _ in range(rounds):                                    # a few rounds, vectorised over wells
+        shifted = ratelaws.Courses(t=sub.t, y=sub.y - delta[:, None] * (w > 0), w=w, n=n.astype(np.int64),
+                                   capped=sub.capped, t_first=sub.t_first, t_max=sub.t_max)
+        zero = ratelaws.fit_zero_order(shifted)
+        first_order = ratelaws.fit_first_order(shifted)
+        pz = ratelaws.predict("zero_order", zero.p1[:, None], np.nan, sub.t)
+        pz = np.where(sub.capped[:, None], pz, zero.p1[:, None] * sub.t)
+        pf = ratelaws.predict("first_order", first_order.p1[:, None], np.nan, sub.t)
+        use_f = np.isfinite(first_order.rss) & (first_order.rss < np.where(np.isfinite(zero.rss), zero.rss, np.inf))
+        pred = np.where(use_f[:, None], pf, pz)
+        res = np.where(w > 0, sub.y - pred, 0.0)
+        step = np.where(n > 1, res.sum(axis=1) / np.maximum(n, 1), 0.0)
+        delta = np.nan_to_num(step, nan=0.0)
+    y = c.y.copy()
+    wt = c.w.copy()
+    y[rows] = sub.y - delta[:, None] * (w > 0)
+    wt[rows] = w
+    return ratelaws.Courses(t=c.t, y=y, w=wt, n=wt.sum(axis=1).astype(np.int64), capped=c.capped,
+                            t_first=c.t_first, t_max=c.t_max)
 
 
 def _main_share(data, amounts: pd.DataFrame, rows: np.ndarray, g: np.ndarray, t: np.ndarray, prod: np.ndarray,

@@ -32,9 +32,45 @@ Conventions (each chosen once, here):
   on the log scale, ``z = (ln observed - ln predicted) / sqrt(se_obs_ln^2 + se_pred_ln^2)``.
 * **Control chart**: see :func:`control_chart`.
 
-A plate is ``failed`` when it has too few usable reference or blank wells for a Z' or its Z'
-is below 0 (Gold Book: "useful range 0 (very poor) to +1"); the ranking then treats candidates
-measured only on failed plates as unrankable and flags the others.
+* **Plates without a benchmark** (fewer than two usable reference wells) have no Z'. Their quality
+  comes from what they do have: the blank wells' scatter and detection limit
+  (``blank_lod_mM_per_h``, the kinetics' 3 x SE of the blank mean), the share of sample wells
+  detectably above the blank (``sample_active_pct``: net rate above 3 x the blank wells' SD and 4 x
+  its own SE, the
+  3-sigma criterion of Long & Winefordner 1983 applied to a single well), the replicate CVs, the
+  blank trend and the edge test, and a separation statistic between the blanks and the plate's
+  *upper quartile* of sample wells (the wells at or above the 75th percentile of the plate's
+  sample rates), which on a plate of candidates stands in for the positive control a benchmark
+  would be. Its centre m_u is the median of those wells; its spread s_u is their replicate
+  scatter, m_u x the pooled CV of their replicate groups (``upper_cv_pct``; basis
+  ``replicates``), as if the upper quartile were one replicated positive control. The spread of
+  the upper quartile itself would mostly measure how different the candidates are, not how noisy
+  the plate is; only when those wells are not replicated is 1.4826 x their MAD used instead
+  (basis ``upper_quartile``, which understates the plate's quality). The blanks' centre m_b and
+  spread s_b are their median and 1.4826 x MAD. Then
+
+  - ``robust_zprime`` = 1 - 3 (s_u + s_b) / |m_u - m_b|: the Z'-factor of Zhang, Chung & Oldenburg
+    1999 with medians and the normal-consistent MAD in place of means and SDs, so that a stray
+    well does not decide it (common practice, e.g. Birmingham et al., Nat. Methods 2009, 6, 569,
+    from memory);
+  - ``ssmd`` = (m_u - m_b) / sqrt(s_u^2 + s_b^2), the strictly standardised mean difference of
+    Zhang (Genomics 2007, 89, 552) in robust form. For two normal groups Phi(SSMD) is the
+    probability that a well of the first reads above one of the second (the "d+-probability",
+    Zhang et al., J. Biomol. Screen. 2007, 12, 497), so SSMD >= 2 means an active well beats a
+    blank in about 98 % of pairs. A plate without a benchmark is flagged ``low_separation``
+    below :data:`SSMD_MIN`.
+
+  Both are given on every plate (they can be set beside the benchmark's Z') with at least
+  :data:`SEP_MIN_BLANKS` blanks and :data:`SEP_MIN_UPPER` upper-quartile wells whose median is
+  above the blank's detection limit: where nothing is active there is nothing to separate
+  (``no_detectable_activity`` on a plate without a benchmark).
+
+Status, one per plate: ``failed`` when a benchmark plate's Z' is below 0 (Gold Book: "useful
+range 0 (very poor) to +1") or the plate has fewer than two usable blank wells (no background,
+no detection limit: ``no_controls``); ``unchecked`` when the plate has blanks but no benchmark
+(flag ``no_benchmark``: judged only by the checks above, which the other flags report);
+``flagged`` when any other flag is set; else ``ok``. The ranking treats candidates measured only
+on failed plates as unrankable and flags those on failed or unchecked plates.
 """
 from __future__ import annotations
 
@@ -51,8 +87,15 @@ from screenlab.plates import format_dims, is_edge
 #: Flag codes set by this module (code -> one plain sentence).
 FLAGS: dict[str, str] = {
     "zprime_low": "Z' between benchmark and blank wells is below the accepted minimum (settings.zprime_min).",
-    "failed": "The plate cannot be trusted: Z' below 0 or too few usable benchmark or blank wells.",
-    "no_controls": "Fewer than two usable benchmark or blank wells on the plate, so no Z' can be computed.",
+    "failed": "The plate cannot be trusted: Z' below 0, or fewer than two usable blank wells.",
+    "no_controls": "Fewer than two usable blank wells on the plate: no background rate or detection limit, so "
+                   "nothing on it can be checked.",
+    "no_benchmark": "Fewer than two usable benchmark wells, so no Z': the plate is judged on its blanks, replicate "
+                    "CVs, edge test and the separation of its upper-quartile wells from the blanks (status unchecked).",
+    "low_separation": "No benchmark, and the plate's upper-quartile sample wells are not clearly separated from its "
+                      "blanks (robust SSMD below 2).",
+    "no_detectable_activity": "No benchmark, and no sample well on the plate is detectably above the blank: "
+                              "nothing shows the reaction worked on this plate.",
     "edge_effect": "Sample wells on the outer ring differ from the interior after row/column correction.",
     "high_cv": "The median CV of replicate groups on the plate exceeds 20 %.",
     "blank_off_trend": "The plate's blank rate is more than 3 standard errors off the campaign's blank Arrhenius line.",
@@ -73,6 +116,14 @@ BLANK_Z_MAX = 3.0
 SHEWHART_TAIL = 0.0026997960632601866
 #: consistency constant of the MAD for normal data, 1 / Phi^-1(3/4) (R's mad() default)
 MAD_NORMAL = 1.4826
+#: robust SSMD below which a plate without a benchmark is flagged low_separation: Phi(2) = 0.977
+#: of (upper-quartile well, blank) pairs in the right order (the d+-probability link; our choice)
+SSMD_MIN = 2.0
+#: fewest blank wells and upper-quartile sample wells for the separation statistics
+SEP_MIN_BLANKS = 3
+SEP_MIN_UPPER = 4
+#: share of the plate's sample wells (by rate) that form its upper distribution
+UPPER_QUANTILE = 0.75
 UNCATALYSED = "(uncatalysed)"
 
 
@@ -94,6 +145,47 @@ def zprime(positive, negative, ddof: int = 1) -> float:
 def z_factor(samples, control, ddof: int = 1) -> float:
     """Z-factor of library samples against a control (same formula on samples; Gold Book 'Z factor')."""
     return zprime(samples, control, ddof=ddof)
+
+
+def robust_zprime(positive, negative) -> float:
+    """Z'-factor with medians and 1.4826 x MAD in place of means and SDs (NaN values ignored).
+
+    NaN when either group has fewer than two values; the edge cases of :func:`zprime` otherwise.
+    """
+    p, n = _finite(positive), _finite(negative)
+    if p.size < 2 or n.size < 2:
+        return float("nan")
+    return float(_zprime_from_moments(np.median(p), _mad(p), np.median(n), _mad(n)))
+
+
+def ssmd(positive, negative, *, robust: bool = False) -> float:
+    """Strictly standardised mean difference (Zhang, Genomics 2007, 89, 552) of two independent groups:
+    ``(mean1 - mean2) / sqrt(sd1^2 + sd2^2)`` (sample SDs, ddof 1), or with ``robust`` medians and
+    1.4826 x MAD. NaN with fewer than two values in a group; +/-inf when both spreads are zero and
+    the centres differ.
+    """
+    p, n = _finite(positive), _finite(negative)
+    if p.size < 2 or n.size < 2:
+        return float("nan")
+    if robust:
+        return float(_ssmd_from_moments(np.median(p), _mad(p), np.median(n), _mad(n)))
+    return float(_ssmd_from_moments(p.mean(), p.std(ddof=1), n.mean(), n.std(ddof=1)))
+
+
+def _finite(x) -> np.ndarray:
+    a = np.asarray(x, dtype=float)
+    return a[np.isfinite(a)]
+
+
+def _mad(a: np.ndarray) -> float:
+    return float(MAD_NORMAL * np.median(np.abs(a - np.median(a))))
+
+
+def _ssmd_from_moments(m1, s1, m2, s2):
+    m1, s1, m2, s2 = (np.asarray(v, dtype=float) for v in (m1, s1, m2, s2))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        b = (m1 - m2) / np.sqrt(s1 ** 2 + s2 ** 2)
+    return np.where((m1 == m2) & ~(np.sqrt(s1 ** 2 + s2 ** 2) > 0), 0.0, b)
 
 
 def _zprime_from_moments(mu_p, sd_p, mu_n, sd_n):
@@ -456,7 +548,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
 
 
 # --------------------------------------------------------------------------- per-plate summary
-def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd.DataFrame:
+def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
     """One row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status.
 
     Columns:
@@ -470,8 +562,13 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     temperature on a gradient plate), ``edge_basis`` (replicates | bscore | '' when untested),
     ``edge_n, interior_n``, ``edge_shift_pct`` (replicates basis: how much higher ring wells
     run than interior ones relative to their replicate groups, geometric mean, percent), ``edge_p`` (Mann-Whitney U),
-    ``bscore_max_abs``, ``reference_loo_t`` (control chart), ``status`` (ok | flagged | failed)
-    and ``flags`` (see :data:`FLAGS`).
+    ``bscore_max_abs``, ``reference_loo_t`` (control chart), ``blank_lod_mM_per_h`` (detection limit
+    of the blank mean), ``sample_active_pct`` (sample wells detectably above the blank),
+    ``upper_n, upper_median_mM_per_h, upper_cv_pct, separation_basis`` (the upper-quartile sample
+    wells), ``robust_zprime``,
+    ``ssmd`` (between those and the blanks; see the module docstring), ``status`` (ok | flagged |
+    unchecked | failed) and ``flags`` (see :data:`FLAGS`). ``control``: the benchmark's control
+    chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``).
     """
     from screenlab.settings import AnalysisSettings
 
@@ -501,7 +598,9 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         out[f"{name}_sd_mM_per_h"] = sub["std"].reindex(range(n_pl)).to_numpy(dtype=float)
     mp, sp = out["reference_mean_mM_per_h"], out["reference_sd_mM_per_h"]
     mn, sn = out["blank_mean_mM_per_h"], out["blank_sd_mM_per_h"]
-    enough = (out["n_reference"] >= 2) & (out["n_blank"] >= 2)
+    has_ref = out["n_reference"] >= 2
+    has_blank = out["n_blank"] >= 2
+    enough = has_ref & has_blank
     out["zprime"] = np.where(enough, _zprime_from_moments(mp, sp, mn, sn), np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
         out["signal_window"] = np.where(enough, ((mp - mn).abs() - 3 * (sp + sn)) / sp, np.nan)
@@ -547,6 +646,13 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         out["blank_expected_mM_per_h"] = b["expected"].reindex(out.index)
         out["blank_ratio"] = b["ratio"].reindex(out.index)
         out["blank_z"] = b["z"].reindex(out.index)
+
+    # the blanks' detection limit, the share of detectably active sample wells, and the separation
+    # of the upper-quartile sample wells from the blanks (robust Z', robust SSMD)
+    sep = _separation(w, role, rate, p_i, n_pl, getattr(kin, "blanks", None), out.index, is_samp, gid)
+    for c in ("blank_lod_mM_per_h", "sample_active_pct", "upper_n", "upper_median_mM_per_h", "upper_cv_pct",
+              "separation_basis", "robust_zprime", "ssmd"):
+        out[c] = sep[c]
 
     # B-scores and the edge test, every plate at once
     resid, _ = _cells_at_wells(cb)
@@ -604,7 +710,7 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     mad_zero = pd.Series(mad_zero, index=out.index)
 
     # control chart of the benchmark
-    cc = control_chart(kin, data)
+    cc = control if control is not None else control_chart(kin, data)
     if len(cc):
         worst = cc.assign(_a=(cc["loo_t"].abs() / cc["loo_limit"]).fillna(-1), plate=cc["plate"].astype(str))
         worst = worst.sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")
@@ -615,10 +721,12 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
         out_of_limits = pd.Series(False, index=out.index)
 
     zp = out["zprime"]
-    no_ctrl = ~enough
-    failed = no_ctrl | (zp < 0)
+    no_ctrl = ~has_blank
+    unchecked = has_blank & ~has_ref
+    failed = no_ctrl | (enough & (zp < 0))
     fl = pd.DataFrame(index=out.index)
     fl["no_controls"] = no_ctrl
+    fl["no_benchmark"] = ~has_ref
     fl["failed"] = failed
     fl["zprime_low"] = zp < settings.zprime_min
     fl["edge_effect"] = out["edge_p"] < EDGE_ALPHA
@@ -626,20 +734,94 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate") -> pd
     fl["blank_off_trend"] = out["blank_z"].abs() > BLANK_Z_MAX
     fl["reference_out_of_limits"] = out_of_limits
     fl["bscore_undefined"] = mad_zero
+    fl["low_separation"] = unchecked & (out["ssmd"] < SSMD_MIN)
+    fl["no_detectable_activity"] = unchecked & (out["n_sample"] > 0) & (out["sample_active_pct"] == 0)
     codes = np.array(fl.columns)
     m = fl.fillna(False).to_numpy(dtype=bool)
     flags = np.full(len(m), "", dtype=object)
     for j, code in enumerate(codes):  # a loop over the eight flag codes
         flags = np.where(m[:, j], np.where(flags == "", code, flags + ";" + code), flags)
     out["flags"] = flags
-    out["status"] = np.where(failed, "failed", np.where(m.any(axis=1), "flagged", "ok"))
+    out["status"] = np.where(failed, "failed", np.where(unchecked, "unchecked",
+                                                         np.where(m.any(axis=1), "flagged", "ok")))
     return out.reset_index()[[
         "plate", "format", "temperature_c", "n_sample", "n_reference", "n_blank",
         "reference_mean_mM_per_h", "reference_sd_mM_per_h", "blank_mean_mM_per_h", "blank_sd_mM_per_h",
-        "zprime", "signal_window", "n_replicate_groups", "replicate_cv_median_pct", "reference_cv_pct",
+        "zprime", "signal_window", "blank_lod_mM_per_h", "sample_active_pct", "upper_n", "upper_median_mM_per_h",
+        "upper_cv_pct", "separation_basis", "robust_zprime", "ssmd", "n_replicate_groups", "replicate_cv_median_pct", "reference_cv_pct",
         "blank_expected_mM_per_h", "blank_ratio", "blank_z", "edge_basis", "edge_n", "interior_n", "edge_shift_pct",
         "edge_p", "bscore_max_abs", "reference_loo_t", "status", "flags"]]
 
 
-__all__ = ["FLAGS", "zprime", "z_factor", "median_polish", "bscores", "well_bscores", "mannwhitneyu_grouped", "predict_ln",
+def _separation(w, role, rate, p_i, n_pl: int, blanks, plate_index, is_samp, gid) -> dict[str, np.ndarray]:
+    """Per plate (positions 0..n_pl-1): detection limit, share of active sample wells, and the
+    robust Z' / SSMD between the upper-quartile sample wells and the blanks (module docstring).
+
+    ``is_samp`` marks the sample wells among ``w``'s rows and ``gid`` numbers their replicate groups.
+    Vectorised over plates with group-bys on the plate position; NaN where a plate lacks the wells.
+    """
+    idx = range(n_pl)
+    ok = (p_i >= 0) & np.isfinite(rate)
+    bl = ok & (role == "blank")
+    b_rate, b_p = rate[bl], p_i[bl]
+    b_med = pd.Series(b_rate).groupby(b_p).median().reindex(idx).to_numpy(float)
+    b_mad = MAD_NORMAL * pd.Series(np.abs(b_rate - b_med[b_p])).groupby(b_p).median().reindex(idx).to_numpy(float)
+    b_sd = pd.Series(b_rate).groupby(b_p).std().reindex(idx).to_numpy(float)
+    b_n = np.bincount(b_p, minlength=n_pl)
+    # the kinetics' detection limit of the blank mean (the plate's worst temperature), else 3 SE here
+    lod = np.full(n_pl, np.nan)
+    if blanks is not None and len(blanks) and "blank_lod_mM_per_h" in blanks:
+        per = (pd.to_numeric(blanks["blank_lod_mM_per_h"], errors="coerce")
+               .groupby(blanks["plate"].astype(str).to_numpy()).max())
+        lod = per.reindex(plate_index).to_numpy(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lod = np.where(np.isfinite(lod), lod, 3 * b_sd / np.sqrt(b_n))
+    # sample wells (in the order of is_samp, as gid) with a rate
+    s_all = rate[is_samp]
+    s_ok = np.isfinite(s_all)
+    s_rate, s_p, s_g = s_all[s_ok], p_i[is_samp][s_ok], gid[s_ok]
+    # a sample well is detectably active when its net rate exceeds 3 x the blank wells' SD
+    if "net_rate_mM_per_h" in w:
+        net = pd.to_numeric(w["net_rate_mM_per_h"], errors="coerce").to_numpy(float)[is_samp][s_ok]
+    else:
+        net = s_rate - b_med[s_p]
+    n_s = np.bincount(s_p, minlength=n_pl)
+    # ... and above its own error by 4 SE: with ~90 sample wells on a plate, 3 x a four-blank SD
+    # alone lets a few dead wells through by chance (the SD of four values is itself uncertain)
+    net_se = (pd.to_numeric(w["net_rate_se_mM_per_h"], errors="coerce").to_numpy(float)[is_samp][s_ok]
+              if "net_rate_se_mM_per_h" in w else np.full(len(net), np.nan))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        active = np.isfinite(net) & (net > 3 * b_sd[s_p]) & ~(net <= 4 * net_se)
+        active_pct = np.where((n_s > 0) & np.isfinite(b_sd), 100.0 * np.bincount(s_p[active], minlength=n_pl) / n_s,
+                              np.nan)
+    # the upper quartile of each plate's sample rates: its median, and its spread as the replicate
+    # scatter of those wells (pooled CV of their replicate groups) when they are replicated
+    q = pd.Series(s_rate).groupby(s_p).quantile(UPPER_QUANTILE).reindex(idx).to_numpy(float)
+    up = s_rate >= q[s_p]
+    u_rate, u_p, u_g = s_rate[up], s_p[up], s_g[up]
+    u_med = pd.Series(u_rate).groupby(u_p).median().reindex(idx).to_numpy(float)
+    u_mad = MAD_NORMAL * pd.Series(np.abs(u_rate - u_med[u_p])).groupby(u_p).median().reindex(idx).to_numpy(float)
+    u_n = np.bincount(u_p, minlength=n_pl)
+    g = pd.DataFrame({"p": u_p, "v": u_rate}).groupby(u_g).agg(p=("p", "first"), n=("v", "count"),
+                                                              mean=("v", "mean"), sd=("v", "std"))
+    g = g[(g["n"] >= 2) & (g["mean"] > 0)]
+    dof = (g["n"] - 1).groupby(g["p"]).sum()
+    ss = ((g["n"] - 1) * (g["sd"] / g["mean"]) ** 2).groupby(g["p"]).sum()
+    wells_rep = g["n"].groupby(g["p"]).sum().reindex(idx).fillna(0).to_numpy(int)
+    cv = np.sqrt(ss / dof).reindex(idx).to_numpy(float)
+    by_rep = (wells_rep >= SEP_MIN_UPPER) & np.isfinite(cv)
+    s_u = np.where(by_rep, cv * u_med, u_mad)
+    with np.errstate(invalid="ignore"):
+        makes_sense = ((b_n >= SEP_MIN_BLANKS) & (u_n >= SEP_MIN_UPPER) & (u_med - b_med > lod)
+                       & (np.nan_to_num(active_pct) > 0))          # something on the plate is active
+    rz = np.where(makes_sense, _zprime_from_moments(u_med, s_u, b_med, b_mad), np.nan)
+    sd = np.where(makes_sense, _ssmd_from_moments(u_med, s_u, b_med, b_mad), np.nan)
+    basis = np.where(makes_sense, np.where(by_rep, "replicates", "upper_quartile"), "")
+    return {"blank_lod_mM_per_h": lod, "sample_active_pct": active_pct, "upper_n": u_n.astype(np.int64),
+            "upper_median_mM_per_h": np.where(u_n > 0, u_med, np.nan),
+            "upper_cv_pct": np.where(makes_sense & by_rep, 100 * cv, np.nan), "separation_basis": basis,
+            "robust_zprime": rz, "ssmd": sd}
+
+
+__all__ = ["FLAGS", "zprime", "z_factor", "robust_zprime", "ssmd", "median_polish", "bscores", "well_bscores", "mannwhitneyu_grouped", "predict_ln",
            "control_chart", "plate_quality"]

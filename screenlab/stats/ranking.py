@@ -21,7 +21,18 @@ one candidate (TOF and Ea come from the same wells) are drawn independently in :
 which ignores their correlation.
 
 Selectivity and ee (campaigns with an [analytes] table) are drawn from t distributions on the
-percent scale; the ee is signed, the first enantiomer named being the wanted one.
+percent scale. The rates table's ee is signed (positive: the first enantiomer named in
+[analytes].enantiomers in excess). Ranked by ee, candidates are ordered by the magnitude of the
+excess of either enantiomer (draws folded: |ee + se T|), with the favoured one in ``favours``; with
+``enantiomer=`` by the signed excess of that enantiomer.
+
+Ea is ranked lower first (the lower apparent barrier); candidates flagged ``low_ea`` (likely
+transport-controlled, whose low apparent Ea says nothing about the catalyst's own barrier) are
+listed after the others unless ``include_transport_limited``. Requirements on the rates table
+(``require``, :mod:`screenlab.stats.constraints`) remove the candidates clearly outside them from the
+draws. A censored rate (the rates table's ``censored``: ``lower`` / ``upper`` bounds) is reported as
+its bound, never drawn. The number of draws adapts to what the numbers need
+(:mod:`screenlab.stats.montecarlo`); ``draws=N`` fixes it.
 
 How to add a metric: add a :class:`Metric` to :data:`METRICS` naming its
 source frame (``rates`` for per-temperature group rows, ``arrhenius`` for per-catalyst fits), the
@@ -50,6 +61,11 @@ FLAGS: dict[str, str] = {
                                 "prediction there, with its prediction interval.",
     "extrapolated": "The ranking temperature lies outside the temperatures this catalyst was measured at.",
     "on_failed_plate": "Some of this catalyst's wells sit on a plate that failed its quality check.",
+    "on_unchecked_plate": "Some of this catalyst's wells sit on a plate without a benchmark (status unchecked): its "
+                          "quality rests on the blanks, replicates, edge test and separation from the blanks.",
+    "ee_sign_uncertain": "The ee interval includes 0: which enantiomer this catalyst favours is not established.",
+    "constraint_uncertain": "The interval of a required column straddles the threshold (--require): the candidate "
+                            "may or may not meet it, so it is kept.",
     "reference": "This is the benchmark (reference) catalyst, ranked alongside the candidates for comparison.",
 }
 UNCATALYSED = "(uncatalysed)"
@@ -73,6 +89,7 @@ class Metric:
     higher_is_better: bool = True
     lognormal: bool = True
     predict: bool = False          # fall back to the Arrhenius prediction at unmeasured T (TOF)
+    censorable: bool = False       # the rates table's ``censored`` bound applies (rate-derived metrics)
 
     def ci_column(self, side: str) -> str:
         """Export name of the interval column: tof_per_h -> tof_ci_low_per_h."""
@@ -81,12 +98,12 @@ class Metric:
 
 METRICS: dict[str, Metric] = {
     "tof": Metric("tof", "TOF", "h-1", "tof_per_h", "rates", "tof_per_h", se="tof_se_per_h", df="tof_df",
-                  higher_is_better=True, lognormal=True, predict=True),
+                  higher_is_better=True, lognormal=True, predict=True, censorable=True),
     # the rates table gives the enhancement's interval on the log scale, not its SE: backed out
     # with the TOF's df (the enhancement's own Welch df is not stored; the interval is kept exactly)
     "enhancement": Metric("enhancement", "rate enhancement over the blank", "", "enhancement", "rates",
                           "enhancement", ci=("enhancement_ci_low", "enhancement_ci_high"), df="tof_df",
-                          higher_is_better=True, lognormal=True),
+                          higher_is_better=True, lognormal=True, censorable=True),
     "ton": Metric("ton", "TON", "", "ton", "rates", "ton", se="ton_se", df="tof_df",
                   higher_is_better=True, lognormal=True),
     "ea": Metric("ea", "apparent Ea", "kJ/mol", "ea_kj_mol", "arrhenius", "ea_kj_mol", se="ea_se", df="fit_df",
@@ -100,9 +117,9 @@ METRICS: dict[str, Metric] = {
                  higher_is_better=True, lognormal=False),
 }
 
-RANK_COLUMNS = ["rank", "catalyst", "role", "family", "metric", "estimate", "ci_low", "ci_high", "unit",
-                "rank_low", "rank_high", "p_top", "p_best", "p_beats_reference", "n", "temperature_c", "basis",
-                "flags", "reason"]
+RANK_COLUMNS = ["rank", "catalyst", "role", "family", "metric", "estimate", "ci_low", "ci_high", "censored", "unit",
+                "favours", "rank_low", "rank_high", "p_top", "p_best", "p_beats_reference", "n", "temperature_c",
+                "basis", "flags", "reason"]
 
 
 def _metric(name: str) -> Metric:
@@ -154,12 +171,13 @@ def _roles(kin) -> pd.Series:
 
 
 def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFrame:
-    """Per catalyst: all plates failed?, any failed?, plate-quality flags of its plates.
+    """Per catalyst: all plates failed?, any failed?, any unchecked?, plate-quality flags of its plates.
 
     ``plates_used`` maps catalyst -> ';'-joined plates behind its estimate (the rates row's
     ``plates``); catalysts not in it use every plate they have wells on (Arrhenius-based metrics).
-    ``plate_flags`` is the union of the plates' flags (``failed`` left out) in the order of the
-    catalyst's plates, each code once.
+    ``plate_flags`` is the union of the plates' flags (``failed`` and ``no_benchmark`` left out: the
+    candidate's ``on_failed_plate`` / ``on_unchecked_plate`` say them) in the order of the catalyst's
+    plates, each code once.
     """
     w = kin.wells[["catalyst", "plate", "role"]]    # the columns first: filtering every column is slow
     role = w["role"].astype(str)
@@ -172,13 +190,17 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
         cp = pd.concat([cp[not_used], used], ignore_index=True)
     if quality is None or quality.empty:
         return pd.DataFrame({"catalyst": cp["catalyst"].unique(), "all_failed": False, "any_failed": False,
-                             "plate_flags": ""})
+                             "any_unchecked": False, "plate_flags": ""})
     q = quality.assign(plate=quality["plate"].astype(str)).drop_duplicates("plate").set_index("plate")
+    # each plate's flags without the status ones (said by on_failed_plate / on_unchecked_plate), once per plate
+    pf = (q["flags"].fillna("").astype(str).str.replace(r"(^|;)(?:failed|no_benchmark)(?=;|$)", r"\1", regex=True)
+          .str.replace(r";{2,}", ";", regex=True).str.strip(";"))
     cp = cp.reset_index(drop=True)
-    cp = cp.assign(failed=cp["plate"].map(q["status"]).eq("failed").to_numpy(),
-                   pf=cp["plate"].map(q["flags"]).fillna("").astype(str).to_numpy())
-    cp = cp.assign(pf=cp["pf"].str.replace(r"(^|;)failed(?=;|$)", r"\1", regex=True).str.strip(";"))
-    agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"))
+    status = cp["plate"].map(q["status"])
+    cp = cp.assign(failed=status.eq("failed").to_numpy(), unchecked=status.eq("unchecked").to_numpy(),
+                   pf=cp["plate"].map(pf).fillna("").astype(str).to_numpy())
+    agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"),
+                                     any_unchecked=("unchecked", "any"))
     # flags: only the (few) rows that carry any, split into codes, first occurrence per catalyst
     codes = cp.loc[cp["pf"] != "", ["catalyst", "pf"]]
     codes = codes.assign(pf=codes["pf"].str.split(";")).explode("pf")
@@ -188,17 +210,110 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
     return agg.reset_index()
 
 
+def _censored(frame: pd.DataFrame) -> np.ndarray:
+    """The rates table's ``censored`` column as text ('' measured, 'lower', 'upper'); all '' when absent."""
+    if "censored" not in frame:
+        return np.full(len(frame), "", dtype=object)
+    c = frame["censored"].astype(object).where(frame["censored"].notna(), "").astype(str).str.strip().str.lower()
+    return c.to_numpy(dtype=object)
+
+
+def _standard_temperatures(kin) -> pd.Series:
+    """catalyst -> number of distinct temperatures with a standard-condition rates row."""
+    r = kin.rates
+    if r is None or r.empty:
+        return pd.Series(dtype=float)
+    if "is_standard" in r:
+        r = r[r["is_standard"].fillna(False).astype(bool)]
+    t = pd.DataFrame({"catalyst": r["catalyst"].astype(str).to_numpy(),
+                      "t": np.round(_num(r, "temperature_c"), 1)}).dropna()
+    return t.drop_duplicates().groupby("catalyst")["t"].count()
+
+
+def _count_words(n) -> str:
+    n = int(n)
+    return {0: "no", 1: "one", 2: "two", 3: "three"}.get(n, str(n))
+
+
+def _fit_reasons(names: np.ndarray, arr: pd.DataFrame, measured_t: pd.Series, *, purpose: str) -> np.ndarray:
+    """Why a catalyst has no usable Arrhenius result, in words: how many temperatures it was measured
+    at and how many showed activity. ``purpose`` ends the sentence ("no Ea", "no Arrhenius line to
+    predict from"). '' where the fit exists with an uncertainty. Vectorised (texts per distinct count)."""
+    a = arr[arr["catalyst"].astype(str) != UNCATALYSED] if len(arr) else arr
+    info = pd.DataFrame({"catalyst": a["catalyst"].astype(str).to_numpy() if len(a) else [],
+                         "n_fit": _num(a, "n_temperatures"), "ea": _num(a, "ea_kj_mol"), "se": _num(a, "ea_se"),
+                         "flags": a["flags"].fillna("").astype(str).to_numpy() if len(a) else []}
+                        ).drop_duplicates("catalyst").set_index("catalyst")
+    names = np.asarray(names, dtype=object)
+    idx = info.index.get_indexer(pd.Index(names.astype(str))) if len(info) else np.full(len(names), -1)
+    has = idx >= 0
+    j = np.maximum(idx, 0)
+
+    def col(c, fill):
+        v = info[c].to_numpy()[j] if len(info) else np.full(len(names), fill)
+        return np.where(has, v, fill)
+
+    n_fit = np.nan_to_num(col("n_fit", 0.0).astype(float)).astype(int)
+    ea_ok = np.isfinite(col("ea", np.nan).astype(float))
+    se_ok = np.isfinite(col("se", np.nan).astype(float))
+    inactive_some = pd.Series(col("flags", ""), dtype=object).astype(str).str.contains(
+        r"(?:^|;)no_activity(?:;|$)", regex=True).to_numpy(bool)
+    n_meas = measured_t.reindex(pd.Index(names.astype(str))).fillna(0).to_numpy(int) if len(measured_t) \
+        else np.zeros(len(names), int)
+    meas_txt = pd.Series(n_meas).map(
+        lambda n: f"measured at {_count_words(n)} temperature{'s' if n != 1 else ''}: {purpose}" if n else
+        f"no rates at its standard condition: {purpose}").to_numpy(dtype=object)
+    of_txt = pd.Series(n_meas).map(lambda n: f"of {n}").to_numpy(dtype=object)
+    one = np.where(inactive_some & (n_meas > 1), "active over the blank at one " + of_txt + " temperatures",
+                   "measured at one temperature only") + f": {purpose}"
+    two = np.where(inactive_some & (n_meas > 2), "active over the blank at two " + of_txt + " temperatures",
+                   "measured at two temperatures only") + ": the Arrhenius line has no uncertainty (needs three)"
+    out = np.select([~has, n_fit == 0, (n_fit == 1) | ~ea_ok, (n_fit == 2) | ~se_ok],
+                    [meas_txt, "no activity over the blank at any temperature", one, two], default="")
+    return np.asarray(out, dtype=object)
+
+
+#: reason of a lower-censored candidate (the catalyst had finished before the first reading)
+TOO_FAST = "faster than the first reading allows: rerun at lower loading or temperature"
+#: reason of an upper-censored candidate (not distinguishable from the blank)
+NOT_SHOWN_ACTIVE = "not shown to be active: not distinguishable from the blank (only an upper bound)"
+
+
+def _enantiomer_sign(metric: Metric, enantiomers, enantiomer: str | None) -> tuple[float, bool]:
+    """(sign applied to the signed ee, rank by magnitude?) for the ee metric."""
+    if metric.name != "ee":
+        if enantiomer is not None:
+            raise UsageError("--enantiomer applies to the ee metric only (use --metric ee)")
+        return 1.0, False
+    if enantiomer is None:
+        return 1.0, True
+    names = [str(e) for e in (enantiomers or ())]
+    if not names:
+        raise UsageError(f"enantiomer {enantiomer!r}: this campaign names no enantiomers in its [analytes] table")
+    if enantiomer not in names:
+        raise UsageError(f"unknown enantiomer {enantiomer!r}; this campaign's [analytes] enantiomers are "
+                         + ", ".join(names))
+    return (1.0 if enantiomer == names[0] else -1.0), False
+
+
 def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c: float | None = None,
-                    confidence: float = 0.95, catalysts: pd.DataFrame | None = None) -> pd.DataFrame:
+                    confidence: float = 0.95, catalysts: pd.DataFrame | None = None, enantiomers=None,
+                    enantiomer: str | None = None, include_transport_limited: bool = False) -> pd.DataFrame:
     """Each candidate's estimate and sampling distribution for one metric (the ranking's input).
 
-    Columns: ``catalyst, role, family, estimate, ci_low, ci_high, mu, sigma, df, n,
-    temperature_c, basis, flags, reason``. ``mu, sigma`` are the centre and scale of the draws
-    (log scale when the metric is log-normal); ``reason`` is non-empty for candidates that
-    cannot be ranked. ``basis`` is ``measured``, ``arrhenius`` (TOF predicted at an unmeasured
-    temperature) or ``fit`` (Ea).
+    Columns: ``catalyst, role, family, estimate, ci_low, ci_high, censored, favours, mu, sigma, df,
+    absolute, n, temperature_c, basis, flags, reason, order``. ``mu, sigma`` are the centre and scale
+    of the draws (log scale when the metric is log-normal; for ee by magnitude the signed ee, whose
+    draws are folded: ``absolute`` True); ``reason`` is non-empty for candidates that cannot be
+    ranked and ``order`` says where they are listed (0 ranked; 1 too fast; 3 transport-limited;
+    4 other reasons). ``basis`` is ``measured``, ``arrhenius`` (TOF predicted at an unmeasured
+    temperature) or ``fit`` (Ea). ``censored`` is '' (measured), ``lower`` or ``upper`` (the rates
+    table's bound; see :data:`TOO_FAST`, :data:`NOT_SHOWN_ACTIVE`). ``favours`` (ee only) names the
+    enantiomer in excess (from ``enantiomers``, the campaign's [analytes] pair; 'first' / 'second'
+    without it). ``enantiomer`` ranks by the excess of that enantiomer instead of the magnitude.
     """
     m = _metric(metric)
+    sign_ee, by_magnitude = _enantiomer_sign(m, enantiomers, enantiomer)
     settings = getattr(kin, "settings", None)
     if at_temperature_c is None:
         at_temperature_c = float(getattr(settings, "reference_temperature_c", 60.0))
@@ -214,6 +329,7 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
         base["family"] = base["catalyst"].map(fam.set_index("catalyst")["family"])
     else:
         base["family"] = pd.NA
+    measured_t = _standard_temperatures(kin)
 
     if m.source == "rates":
         r = kin.rates
@@ -228,6 +344,7 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
                             "n": _num(r, "n_wells"), "temperature_c": _num(r, "temperature_c"),
                             "flags": r["flags"].fillna("").astype(str).to_numpy() if "flags" in r else "",
                             "ln_se": np.nan, "basis": "measured",
+                            "censored": _censored(r) if m.censorable else "",
                             "plates": r["plates"].to_numpy() if "plates" in r else np.nan})
         if m.predict and len(arr):
             from screenlab.kinetics.arrhenius import predict_tof
@@ -249,7 +366,7 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
                                      "hi": np.nan, "df": p["df"].to_numpy(float),
                                      "n": mi["catalyst"].astype(str).map(n_w).to_numpy(float),
                                      "temperature_c": at_temperature_c, "flags": flags,
-                                     "ln_se": p["ln_tof_se"].to_numpy(float), "basis": "arrhenius"})
+                                     "ln_se": p["ln_tof_se"].to_numpy(float), "basis": "arrhenius", "censored": ""})
                 src = pd.concat([src, pred], ignore_index=True)
     else:
         a = arr[arr["catalyst"].astype(str) != UNCATALYSED] if len(arr) else arr
@@ -257,54 +374,106 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
                             "estimate": _num(a, m.estimate), "se": _num(a, m.se), "lo": np.nan, "hi": np.nan,
                             "df": _num(a, m.df), "n": _num(a, "n_temperatures"), "temperature_c": np.nan,
                             "flags": a["flags"].fillna("").astype(str).to_numpy() if len(a) else [],
-                            "ln_se": np.nan, "basis": "fit"})
+                            "ln_se": np.nan, "basis": "fit", "censored": ""})
     t = base.merge(src, on="catalyst", how="left")
     used = src.set_index("catalyst")["plates"] if "plates" in src else None
     t = t.merge(_plate_info(kin, quality, used), on="catalyst", how="left")
+    cens = t["censored"].fillna("").astype(str).to_numpy(dtype=object)
 
     est, se, df = t["estimate"].to_numpy(float), t["se"].to_numpy(float), t["df"].to_numpy(float)
+    lo_in, hi_in = t["lo"].to_numpy(float), t["hi"].to_numpy(float)
     q = _tq(confidence, df)
+    favours = np.full(len(t), "", dtype=object)
+    absolute = np.zeros(len(t), bool)
+    extra_flags = np.full(len(t), "", dtype=object)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):   # a bound beyond float range: inf
         if m.lognormal:
             mu = np.where(est > 0, np.log(np.where(est > 0, est, 1.0)), np.nan)
             sig = t["ln_se"].to_numpy(float)
             sig = np.where(np.isfinite(sig), sig, se / est)
             if m.ci:
-                lo, hi = t["lo"].to_numpy(float), t["hi"].to_numpy(float)
-                sig = np.where(np.isfinite(sig), sig, np.log(hi / lo) / (2 * q))
+                sig = np.where(np.isfinite(sig), sig, np.log(hi_in / lo_in) / (2 * q))
             ci_lo, ci_hi = np.exp(mu - q * sig), np.exp(mu + q * sig)
         else:
             mu, sig = est, se
             ci_lo, ci_hi = mu - q * sig, mu + q * sig
-    t["mu"], t["sigma"] = mu, sig
-    t["ci_low"], t["ci_high"] = np.where(np.isfinite(sig), ci_lo, np.nan), np.where(np.isfinite(sig), ci_hi, np.nan)
+        if m.name == "ee":
+            pair = [str(e) for e in (enantiomers or ())][:2]
+            first, second = (pair + ["first", "second"][len(pair):])[:2]
+            favours = np.where(est > 0, first, np.where(est < 0, second, "")).astype(object)
+            straddles = np.isfinite(ci_lo) & np.isfinite(ci_hi) & (ci_lo <= 0) & (ci_hi >= 0)
+            favours = np.where(straddles & (favours != ""), favours + "?", favours).astype(object)
+            extra_flags = np.where(straddles, "ee_sign_uncertain", "").astype(object)
+            if by_magnitude:
+                absolute[:] = True
+                est_show = np.abs(est)
+                lo_show = np.where(straddles, 0.0, np.minimum(np.abs(ci_lo), np.abs(ci_hi)))
+                hi_show = np.maximum(np.abs(ci_lo), np.abs(ci_hi))
+                ci_lo, ci_hi, est = lo_show, hi_show, est_show
+            else:
+                mu, est = sign_ee * mu, sign_ee * est
+                ci_lo, ci_hi = (ci_lo, ci_hi) if sign_ee > 0 else (-ci_hi, -ci_lo)
+    t["mu"], t["sigma"], t["absolute"] = mu, sig, absolute
+    t["estimate"] = est
+    t["ci_low"] = np.where(np.isfinite(sig), ci_lo, np.nan)
+    t["ci_high"] = np.where(np.isfinite(sig), ci_hi, np.nan)
+    # a bound: the open side has no value, the bound is the estimate
+    lower, upper = cens == "lower", cens == "upper"
+    t.loc[lower, "ci_low"] = est[lower]
+    t.loc[lower, "ci_high"] = np.nan
+    t.loc[upper, "ci_high"] = est[upper]
+    t.loc[upper, "ci_low"] = np.nan
+    t["favours"] = favours
 
     # reasons, first applicable wins (vectorised with np.select)
     no_row = ~np.isfinite(est) & t["basis"].isna().to_numpy()
-    if m.source == "rates":
-        what = f"not measured at {at_temperature_c:g} degC" + (" and no Arrhenius fit" if m.predict else "")
-    else:
-        what = "no Arrhenius fit (needs at least two temperatures)"
-    all_failed = t["all_failed"].fillna(False).to_numpy(bool)
+    names_arr = t["catalyst"].to_numpy(dtype=object)
+    basis = t["basis"].fillna("").to_numpy(dtype=object)
+    no_sig = ~(np.isfinite(sig) & (sig > 0) & np.isfinite(mu))
     n = t["n"].to_numpy(float)
-    few = (n < 2) if m.source == "rates" else (n < 3) | ~(df >= 1)
-    few_txt = "too few wells (fewer than 2 at this condition)" if m.source == "rates" else \
-        "too few temperatures for an Ea with an uncertainty (needs 3)"
+    if m.source == "rates":
+        lead = f"not measured at {at_temperature_c:g} degC"
+        what = np.full(len(t), lead, dtype=object)
+        fit_missing = np.zeros(len(t), bool)
+        if m.predict:
+            fr = _fit_reasons(names_arr, arr, measured_t, purpose="no Arrhenius line to predict from")
+            what = np.where(fr != "", lead + "; " + fr, lead + " and no Arrhenius fit").astype(object)
+            # an Arrhenius prediction without a usable fit: say what the fit lacks (never "no activity")
+            fit_missing = (basis == "arrhenius") & (~np.isfinite(est) | no_sig)
+    else:
+        fr = _fit_reasons(names_arr, arr, measured_t, purpose="no Ea")
+        what = np.where(fr != "", fr, "no Arrhenius fit (needs at least two temperatures)").astype(object)
+        fit_missing = (basis == "fit") & (~np.isfinite(est) | no_sig | (n < 3))
+    all_failed = t["all_failed"].fillna(False).to_numpy(bool)
+    few = (n < 2) & (basis == "measured")
+    few_txt = "too few wells (fewer than 2 at this condition)"
     inactive = ~(est > 0) if m.lognormal else ~np.isfinite(est)
     inactive_txt = "no activity over the blank" if m.name in ("tof", "ton") else "no estimate"
-    lb = np.isinf(t["hi"].to_numpy(float)) if m.ci else np.zeros(len(t), bool)
-    no_sig = ~(np.isfinite(sig) & (sig > 0) & np.isfinite(mu))
-    t["reason"] = np.select(
-        [no_row, all_failed, few, inactive, lb, no_sig],
-        [what, "measured only on failed plates", few_txt, inactive_txt,
-         "only a lower bound (blank below its detection limit)", "no uncertainty estimate"], default="")
+    lb = np.isinf(hi_in) & ~lower & ~upper if m.ci else np.zeros(len(t), bool)
+    flags_in = t["flags"].fillna("").astype(str)
+    low_ea = flags_in.str.split(";").map(lambda c: "low_ea" in c).to_numpy(bool) if m.name == "ea" \
+        else np.zeros(len(t), bool)
+    limit = float(getattr(settings, "low_ea_kj_mol", 20.0))
+    transport_txt = (f"apparent Ea below {limit:g} kJ/mol: likely transport-controlled (diffusion), so the low "
+                     "barrier is not the catalyst's; --include-transport-limited ranks it")
+    transport = low_ea & (not include_transport_limited)
+    conds = [no_row, all_failed, lower, upper, fit_missing, few, inactive, lb, no_sig, transport]
+    texts = [what, "measured only on failed plates", TOO_FAST, NOT_SHOWN_ACTIVE, what, few_txt,
+             inactive_txt, "only a lower bound (blank below its detection limit)", "no uncertainty estimate",
+             transport_txt]
+    t["reason"] = np.select(conds, texts, default="").astype(object)
+    reason = t["reason"].to_numpy(dtype=object)
+    t["order"] = np.where(reason == "", 0, np.where(lower & (reason == TOO_FAST), 1,
+                                                    np.where(transport & (reason == transport_txt), 3, 4)))
     t.loc[no_row, ["n"]] = np.nan
-    t["flags"] = _merge_codes(t["flags"].fillna("").astype(str), t["plate_flags"].fillna("").astype(str),
+    t["flags"] = _merge_codes(flags_in, t["plate_flags"].fillna("").astype(str),
                               np.where(t["any_failed"].fillna(False).to_numpy(bool), "on_failed_plate", ""),
-                              np.where(t["role"].to_numpy() == "reference", "reference", ""))
-    t["basis"] = t["basis"].fillna("")
-    return t[["catalyst", "role", "family", "estimate", "ci_low", "ci_high", "mu", "sigma", "df", "n",
-              "temperature_c", "basis", "flags", "reason"]]
+                              np.where(t["any_unchecked"].fillna(False).to_numpy(bool), "on_unchecked_plate", ""),
+                              np.where(t["role"].to_numpy() == "reference", "reference", ""), extra_flags)
+    t["basis"] = basis
+    t["censored"] = cens
+    return t[["catalyst", "role", "family", "estimate", "ci_low", "ci_high", "censored", "favours", "mu", "sigma",
+              "df", "absolute", "n", "temperature_c", "basis", "flags", "reason", "order"]]
 
 
 #: elements per chunk of draws (draws x candidates); bounds the memory of every Monte Carlo step
@@ -488,7 +657,9 @@ def _executor(n_tasks: int):
 
 
 def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidence: float = 0.95,
-                 reference: int | None = None) -> dict[str, np.ndarray]:
+                 reference: int | None = None, absolute: bool = False, plan=None,
+                 ci_z: float | None = None, pilot_draws: int = PILOT_DRAWS,
+                 kth: bool = False) -> dict[str, np.ndarray]:
     """Monte Carlo rank statistics of candidates with ``mu + sigma * T_df`` scores (higher is better).
 
     The draws are made in chunks of at most :data:`CHUNK_CELLS` numbers; each chunk is ranked
@@ -506,25 +677,43 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
       candidate's ranks.
 
     Columns are handled in point-estimate order (best first). Same ``seed`` -> same output.
+
+    ``absolute``: the scores are ``|mu + sigma * T_df|`` (ee by magnitude; point-estimate order by
+    ``|mu|``). ``plan``: called once with the pilot's ranks (a k x n_pilot array, each row sorted)
+    and n_pilot, returns how many draws to make in all (at most ``draws``; whole chunks, so the
+    number made, ``out["draws"]``, can be a little more than asked). ``ci_z``: also read each rank
+    quantile's distribution-free confidence interval, the ranks at the order statistics
+    ``n q -/+ ci_z sqrt(n q (1 - q))`` (``out["rank_low_ci"]``, ``out["rank_high_ci"]``: pairs of
+    arrays). ``pilot_draws``: draws that place the windows (and feed the plan). ``kth``: also
+    return the top_k-th best score of every draw (``out["kth_score"]``, float32).
     """
     mu, sigma, df = (np.asarray(v, dtype=float).ravel() for v in (mu, sigma, df))
     k = mu.size
     out = {"rank_low": np.ones(k, np.int64), "rank_high": np.ones(k, np.int64), "p_top": np.zeros(k),
-           "p_best": np.zeros(k), "p_beats": np.full(k, np.nan)}
+           "p_best": np.zeros(k), "p_beats": np.full(k, np.nan), "draws": draws}
+    if ci_z is not None:
+        out["rank_low_ci"] = (np.ones(k, np.int64), np.ones(k, np.int64))
+        out["rank_high_ci"] = (np.ones(k, np.int64), np.ones(k, np.int64))
     if k == 0:
         return out
-    perm = np.argsort(-mu, kind="stable")            # column p holds the candidate placed p-th by estimate
+    perm = np.argsort(-(np.abs(mu) if absolute else mu), kind="stable")   # column p: the p-th by estimate
     mu_s, sig_s, df_s = mu[perm], sigma[perm], df[perm]
     ref_pos = None if reference is None else int(np.flatnonzero(perm == reference)[0])
     alpha = (1 - confidence) / 2
-    need = {"low": _order_stat_index(draws, alpha) + 1, "high": _order_stat_index(draws, 1 - alpha) + 1}
     chunks = _chunks(draws, k, seed)
+    n_used = [len(chunks)]                           # chunks counted (set from the plan after the pilot)
+
+    def drawn(d, ss):
+        score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
+        if absolute:
+            np.abs(score, out=score)
+        return score
     top = np.zeros(k, np.int64)
     best = np.zeros(k, np.int64)
     beats = np.zeros(k, np.int64)
     win = hist = None                                # placed from the pilot draws
 
-    pilot_rows = min(draws, max(PILOT_DRAWS, 1), max(1, FALLBACK_CELLS // k))
+    pilot_rows = min(draws, max(int(pilot_draws), 1), max(1, FALLBACK_CELLS // k))
 
     def place_windows(pilot: list[np.ndarray]):
         """One banded rank histogram per candidate holding both rank windows.
@@ -541,6 +730,10 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
         spread = 4 * np.sqrt(alpha * (1 - alpha) / n_pilot)
         by_col = np.concatenate([r.T for r in pilot], axis=1)     # each candidate's pilot ranks
         by_col.sort(axis=1)
+        if plan is not None:                          # how many draws in all, from the pilot
+            want = max(n_pilot, min(draws, int(plan(by_col, n_pilot))))
+            ends = np.cumsum([c[0] for c in chunks])
+            n_used[0] = int(np.searchsorted(ends, want, side="left")) + 1
         first, wid = {}, {}
         for side, q in (("low", alpha), ("high", 1 - alpha)):
             # np.quantile(ranks, q -/+ spread, axis=0, method="inverted_cdf"), read off the sorted ranks
@@ -611,28 +804,30 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
 
     def ranked_chunk(chunk):
         d, ss = chunk
-        score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
+        score = drawn(d, ss)
         beats_c = (np.count_nonzero(score > score[:, [ref_pos]], axis=0) if ref_pos is not None
                    else np.zeros(k, np.int64))
-        order = _order_desc(score, overwrite=True)    # equal scores: the earlier column first
+        order = _order_desc(score, overwrite=not kth)  # equal scores: the earlier column first
+        kth_c = score[np.arange(d), order[:, min(top_k, k) - 1]] if kth else None
         del score
         top_c = np.bincount(order[:, :top_k].ravel(), minlength=k)
         best_c = np.bincount(order[:, 0], minlength=k)
         ranks = _ranks_from_order(order, overwrite=True)
-        return ranks, top_c, best_c, beats_c
+        return ranks, top_c, best_c, beats_c, kth_c
 
     windows_ready = threading.Event()
 
-    def task(chunk, pilot: bool):
+    def task(chunk, pilot: bool, i: int):
         """Draw, rank and count one chunk; a pilot chunk hands its ranks back for the windows, any
-        other waits until the windows are placed and folds its ranks into the histograms."""
-        ranks, t_c, b_c, r_c = ranked_chunk(chunk)
+        other waits until the windows are placed and folds its ranks into the histograms (when the
+        plan keeps it)."""
+        ranks, t_c, b_c, r_c, k_c = ranked_chunk(chunk)
         if not pilot:
             windows_ready.wait()
-            if win is not None:                      # None: placing the windows failed (raised)
+            if win is not None and i < n_used[0]:    # None: placing the windows failed (raised)
                 fold(ranks)
             ranks = None
-        return ranks, t_c, b_c, r_c
+        return ranks, t_c, b_c, r_c, k_c
 
     # the first chunks (at least pilot_rows draws) place the rank windows. Every chunk is a task of
     # the worker threads (numpy's generators, sorts and ufuncs release the GIL), taken in order, so
@@ -642,18 +837,36 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     while n_first < len(chunks) and sum(c[0] for c in chunks[:n_first]) < pilot_rows:
         n_first += 1
     with _executor(len(chunks)) as pool:
-        futures = [pool.submit(task, c, i < n_first) for i, c in enumerate(chunks)]
+        futures = [pool.submit(task, c, i < n_first, i) for i, c in enumerate(chunks)]
         try:
             firsts = [f.result() for f in futures[:n_first]]
             place_windows([f[0] for f in firsts])
         finally:
             windows_ready.set()                      # never leave a worker waiting
+        for f in futures[n_used[0]:]:                # beyond the plan: those not started are dropped
+            if hasattr(f, "cancel"):
+                f.cancel()
         count([f[0] for f in firsts])
-        for f in firsts + [f.result() for f in futures[n_first:]]:
+        kths = []
+        for f in firsts + [f.result() for f in futures[n_first:n_used[0]]]:
             top += f[1]
             best += f[2]
             beats += f[3]
+            kths.append(f[4])
+        if kth:
+            out["kth_score"] = np.concatenate(kths)
         del firsts, futures
+    chunks = chunks[:n_used[0]]
+    draws = int(sum(c[0] for c in chunks))
+    out["draws"] = draws
+    need = {"low": _order_stat_index(draws, alpha) + 1, "high": _order_stat_index(draws, 1 - alpha) + 1}
+    levels = {"low": alpha, "high": 1 - alpha}
+    extra = {}
+    if ci_z is not None:                             # order statistics of the quantiles' confidence intervals
+        for side, q in levels.items():
+            h = ci_z * np.sqrt(q * (1 - q) / draws)
+            extra[side] = [_order_stat_index(draws, float(np.clip(q - h, 0, 1))) + 1,
+                           _order_stat_index(draws, float(np.clip(q + h, 0, 1))) + 1]
     if pending:                                      # the last, partial batch
         count(pending)
         pending.clear()
@@ -667,15 +880,29 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     cs = np.add.accumulate(hist, dtype=np.int32) if k * draws < 2 ** 31 else np.cumsum(hist.astype(np.int64))
     seg0 = win["base"]
     before = cs[seg0] - hist[seg0]                   # draws counted in all earlier segments
-    for side in ("low", "high"):
+    def read(side: str, count: int) -> tuple[np.ndarray, np.ndarray]:
+        """The rank at order statistic ``count`` from the window of ``side``, and whether it lies there."""
         first_cell = seg0 + win["off"][side]
         w = win["wid"][side]
         below = cs[first_cell - 1] - before          # draws ranked before the window
-        reach = np.searchsorted(cs, before + need[side], side="left")   # first cell reaching the count
+        reach = np.searchsorted(cs, before + count, side="left")   # first cell reaching the count
         short = np.clip(reach - first_cell, 0, w)    # window ranks still below the order statistic
-        ok = (below < need[side]) & (short < w)
-        out[f"rank_{side}"][perm] = np.where(ok, win["start"][side] + short, 0)
+        ok = (below < count) & (short < w)
+        return np.where(ok, win["start"][side] + short, 0), ok
+
+    for side in ("low", "high"):
+        value, ok = read(side, need[side])
+        out[f"rank_{side}"][perm] = value
         unresolved |= ~ok
+        if side in extra:
+            pair = []
+            for count in extra[side]:
+                v, ok_e = read(side, count)
+                unresolved |= ~ok_e
+                arr_e = np.empty(k, np.int64)
+                arr_e[perm] = v
+                pair.append(arr_e)
+            out[f"rank_{side}_ci"] = tuple(pair)
     if unresolved.any():                             # exact fallback: ranks of those columns only
         todo = np.flatnonzero(unresolved)
         group = max(1, FALLBACK_CELLS // max(1, draws))
@@ -684,11 +911,14 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
             kept = np.empty((draws, sel.size), dtype=np.int32)
             row = 0
             for d, ss in chunks:
-                score = draw_matrix(mu_s, sig_s, df_s, d, np.random.default_rng(ss))
+                score = drawn(d, ss)
                 kept[row:row + d] = _ranks_from_order(_order_desc(score))[:, sel]
                 row += d
-            for side, q in (("low", alpha), ("high", 1 - alpha)):
+            srt = np.sort(kept, axis=0) if extra else None
+            for side, q in levels.items():
                 out[f"rank_{side}"][perm[sel]] = np.quantile(kept, q, axis=0, method="inverted_cdf")
+                for j, count in enumerate(extra.get(side, [])):
+                    out[f"rank_{side}_ci"][j][perm[sel]] = srt[count - 1]
     out["p_top"][perm] = top / draws
     out["p_best"][perm] = best / draws
     if ref_pos is not None:
@@ -696,54 +926,144 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     return out
 
 
+def _requirements(require, rates: pd.DataFrame):
+    """Requirement objects from strings (or Requirement objects), checked against the rates table."""
+    from screenlab.stats.constraints import Requirement, parse_requirements
+
+    items = list(require or ())
+    texts = [x for x in items if not isinstance(x, Requirement)]
+    return [x for x in items if isinstance(x, Requirement)] + parse_requirements(texts, rates)
+
+
+def _apply_requirements(t: pd.DataFrame, kin, reqs, at_temperature_c: float, confidence: float) -> pd.DataFrame:
+    """Candidates clearly outside a requirement (or without its column) get that reason (order 2);
+    those whose interval straddles a threshold are flagged ``constraint_uncertain``."""
+    if not reqs:
+        return t
+    from screenlab.stats.constraints import check_candidates
+
+    chk = check_candidates(kin, t["catalyst"], reqs, at_temperature_c=at_temperature_c, confidence=confidence,
+                           t_match_c=T_MATCH_C)
+    status = chk["constraint"].to_numpy(dtype=object)
+    free = (t["reason"] == "").to_numpy()
+    out_ = free & np.isin(status, ["outside", "missing"])
+    t = t.copy()
+    t.loc[out_, "reason"] = chk["constraint_reason"].to_numpy(dtype=object)[out_]
+    t.loc[out_, "order"] = 2
+    unsure = free & (status == "uncertain")
+    t["flags"] = _merge_codes(t["flags"], np.where(unsure, "constraint_uncertain", ""))
+    return t
+
+
+#: what "best" means for each metric, in words (the ranking's ``direction`` attribute)
+DIRECTION = {
+    "tof": "higher TOF first",
+    "enhancement": "higher rate enhancement over the blank first",
+    "ton": "higher TON first",
+    "ea": "lower apparent barrier first (Ea ascending); likely transport-controlled candidates (flag low_ea) "
+          "are listed after the others",
+    "selectivity": "higher selectivity to the main product first",
+    "ee": "larger enantiomeric excess first, either enantiomer (|ee|)",
+}
+
+
 def rank_candidates(kin, quality=None, *, metric: str = "tof", at_temperature_c: float | None = None,
-                    top_k: int = 5, draws: int = 10000, seed: int = 0, confidence: float = 0.95,
-                    catalysts: pd.DataFrame | None = None) -> pd.DataFrame:
+                    top_k: int = 5, draws: int | None = None, seed: int = 0, confidence: float = 0.95,
+                    catalysts: pd.DataFrame | None = None, enantiomers=None, enantiomer: str | None = None,
+                    include_transport_limited: bool = False, require=(), mc_se: float | None = None) -> pd.DataFrame:
     """Rank candidates by a metric with their uncertainty.
 
     ``metric`` is a key of :data:`METRICS`: ``tof`` (high is good; TOF at ``at_temperature_c``,
     default the settings' reference temperature: the measured standard-condition group when that
     temperature was measured, else the Arrhenius prediction with its interval), ``enhancement``
-    (high), ``ea`` (low is good), ``ton`` (high). ``quality`` (from :func:`plate_quality`) adds
-    plate flags and marks candidates measured only on failed plates unrankable. ``catalysts``
-    (CampaignData.catalysts) supplies the family column.
+    (high), ``ea`` (low is good: the lower apparent barrier first; candidates flagged ``low_ea``,
+    likely transport-controlled, are listed after the others unless ``include_transport_limited``),
+    ``ton`` (high), ``selectivity`` (high), ``ee`` (by magnitude, either enantiomer, with the
+    favoured one in ``favours``; with ``enantiomer`` one of ``enantiomers``, the campaign's
+    [analytes] pair, by the excess of that enantiomer). ``quality`` (from :func:`plate_quality`)
+    adds plate flags and marks candidates measured only on failed plates unrankable.
+    ``catalysts`` (CampaignData.catalysts) supplies the family column. ``require``: expressions
+    ``column>=value`` / ``column<=value`` on the rates table (:mod:`screenlab.stats.constraints`);
+    candidates clearly outside one are listed after the ranked ones with the reason, those that may
+    or may not meet it are ranked and flagged ``constraint_uncertain``; every probability is over
+    the candidates that remain.
+
+    ``draws`` None (default): as many draws as the numbers need (:mod:`screenlab.stats.montecarlo`:
+    every reported probability to a Monte Carlo SE below ``mc_se``, default 0.005, and stable rank
+    bounds); a number: exactly that many draws, every candidate ranked in each.
 
     Columns: ``rank`` (1 = best by point estimate; NA for unrankable), ``catalyst, role, family,
     metric, estimate, ci_low, ci_high`` (``confidence`` interval of the sampling distribution),
-    ``unit, rank_low, rank_high`` (rank interval over the draws), ``p_top`` (P(rank <= top_k)),
-    ``p_best`` (P(rank 1); sums to 1 over the ranked rows), ``p_beats_reference`` (P(better than
-    the benchmark); NaN for the benchmark and when it is unranked), ``n`` (wells, or temperatures
-    for Ea), ``temperature_c, basis, flags, reason``. Ranked rows first, then the unrankable ones
-    with their reason. The benchmark is ranked like any candidate and carries the flag
-    ``reference``. Reproducible for a given ``seed``.
+    ``censored`` ('' measured; ``lower`` / ``upper``: the estimate is a bound, the open side of the
+    interval empty), ``unit, favours`` (ee: the enantiomer in excess, '?' appended when its interval
+    includes 0), ``rank_low, rank_high`` (rank interval over the draws), ``p_top`` (P(rank <=
+    top_k)), ``p_best`` (P(rank 1); sums to 1 over the ranked rows), ``p_beats_reference``
+    (P(better than the benchmark); NaN for the benchmark and when it is unranked), ``n`` (wells, or
+    temperatures for Ea), ``temperature_c, basis, flags, reason``. Ranked rows first, then the
+    unrankable ones with their reason: too fast to measure (lower bounds, largest first), outside a
+    requirement, transport-limited (Ea), then the others by name. The benchmark is ranked like any
+    candidate and carries the flag ``reference``. ``attrs``: ``direction`` (what comes first, in
+    words), ``requirements`` (their texts) and ``monte_carlo`` (``draws``, ``draws_ranked``,
+    ``mc_se`` (the largest Monte Carlo SE of a reported probability), ``mc_se_target``,
+    ``rank_bound_halfwidth``, ``rank_bound_stable_share``, ``n_contenders``). Reproducible for a
+    given ``seed``.
     """
+    from screenlab.stats.montecarlo import MC_SE, adaptive_rank_summary, share_se
+
     m = _metric(metric)
-    if draws < 1:
+    if draws is not None and draws < 1:
         raise UsageError("draws must be at least 1")
     if top_k < 1:
         raise UsageError("top must be at least 1")
+    mc_se = MC_SE if mc_se is None else float(mc_se)
+    settings = getattr(kin, "settings", None)
+    t_rank = float(at_temperature_c if at_temperature_c is not None else
+                   getattr(settings, "reference_temperature_c", 60.0))
+    reqs = _requirements(require, kin.rates)
     t = candidate_table(kin, quality, metric=metric, at_temperature_c=at_temperature_c, confidence=confidence,
-                        catalysts=catalysts)
+                        catalysts=catalysts, enantiomers=enantiomers, enantiomer=enantiomer,
+                        include_transport_limited=include_transport_limited)
+    t = _apply_requirements(t, kin, reqs, t_rank, confidence)
     ok = (t["reason"] == "").to_numpy()
-    r, u = t[ok].reset_index(drop=True), t[~ok].sort_values("catalyst").reset_index(drop=True)
+    r = t[ok].reset_index(drop=True)
+    u = t[~ok].copy()
+    u["_key"] = np.where(u["order"].to_numpy() == 1, -u["estimate"].to_numpy(float), 0.0)
+    u = u.sort_values(["order", "_key", "catalyst"], kind="stable").drop(columns="_key").reset_index(drop=True)
     k = len(r)
     sign = 1.0 if m.higher_is_better else -1.0
+    absolute = bool(r["absolute"].any()) if k else False
     r["metric"], u["metric"] = m.name, m.name
     r["unit"], u["unit"] = m.unit, m.unit
+    mc = {"draws": 0, "draws_ranked": 0, "mc_se": 0.0, "mc_se_target": mc_se if draws is None else None,
+          "rank_bound_halfwidth": 0.0, "rank_bound_stable_share": 1.0, "n_contenders": 0}
     if k:
+        mu = sign * r["mu"].to_numpy(float)
+        key = np.abs(mu) if absolute else mu
         ref = np.flatnonzero(r["role"].to_numpy() == "reference")
-        j = int(ref[np.argmax(sign * r["mu"].to_numpy()[ref])]) if ref.size else None  # best-placed benchmark
-        summ = rank_summary(sign * r["mu"].to_numpy(float), r["sigma"].to_numpy(float), r["df"].to_numpy(float),
-                            draws, seed, top_k=top_k, confidence=confidence, reference=j)
+        j = int(ref[np.argmax(key[ref])]) if ref.size else None        # the best-placed benchmark
+        sig, dfs = r["sigma"].to_numpy(float), r["df"].to_numpy(float)
+        if draws is None:
+            summ = adaptive_rank_summary(mu, sig, dfs, seed, top_k=top_k, confidence=confidence, reference=j,
+                                         absolute=absolute, mc_se=mc_se)
+            mc.update(draws=int(summ["draws"]), draws_ranked=int(summ["draws_ranked"]), mc_se=float(summ["mc_se"]),
+                      rank_bound_halfwidth=float(summ["rank_bound_halfwidth"]),
+                      rank_bound_stable_share=float(summ["rank_bound_stable_share"]),
+                      n_contenders=int(summ["n_contenders"]))
+        else:
+            summ = rank_summary(mu, sig, dfs, draws, seed, top_k=top_k, confidence=confidence, reference=j,
+                                absolute=absolute)
+            probs = [summ["p_top"], summ["p_best"]] + ([np.delete(summ["p_beats"], j)] if j is not None else [])
+            worst = max(float(np.max(share_se(np.rint(p * draws), draws))) for p in probs if p.size)
+            mc.update(draws=int(draws), draws_ranked=int(draws), mc_se=worst, n_contenders=k)
         r["rank_low"] = summ["rank_low"].astype(int)
         r["rank_high"] = summ["rank_high"].astype(int)
         r["p_top"] = summ["p_top"]
         r["p_best"] = summ["p_best"]
-        pb = summ["p_beats"]
+        pb = np.asarray(summ["p_beats"], float).copy()
         if ref.size:
             pb[ref] = np.nan
         r["p_beats_reference"] = pb
-        point = np.argsort(-sign * r["mu"].to_numpy(), kind="stable")
+        point = np.argsort(-key, kind="stable")
         rank = np.empty(k, dtype=np.int64)
         rank[point] = np.arange(1, k + 1)
         r["rank"] = rank
@@ -755,13 +1075,23 @@ def rank_candidates(kin, quality=None, *, metric: str = "tof", at_temperature_c:
     out["rank"] = out["rank"].astype("Int64")
     out["rank_low"] = out["rank_low"].astype("Int64")
     out["rank_high"] = out["rank_high"].astype("Int64")
-    return out[RANK_COLUMNS].reset_index(drop=True)
+    out = out[RANK_COLUMNS].reset_index(drop=True)
+    direction = DIRECTION.get(m.name, "higher first" if m.higher_is_better else "lower first")
+    if m.name == "ee" and enantiomer is not None:
+        direction = f"larger excess of {enantiomer} first (signed: the other enantiomer in excess counts negative)"
+    if m.name == "ea" and include_transport_limited:
+        direction = "lower apparent barrier first (Ea ascending), likely transport-controlled candidates included"
+    out.attrs = {"metric": m.name, "direction": direction, "requirements": [q.text for q in reqs],
+                 "monte_carlo": mc, "top_k": int(top_k), "temperature_c": t_rank if m.source == "rates" else None}
+    return out
 
 
 def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temperature_c: float | None = None,
            draws: int = 0, seed: int = 0, confidence: float = 0.95,
-           catalysts: pd.DataFrame | None = None) -> pd.DataFrame:
-    """Pareto set over 2-3 metrics, each with its direction (TOF and enhancement high, Ea low).
+           catalysts: pd.DataFrame | None = None, require=(), enantiomers=None,
+           include_transport_limited: bool = False) -> pd.DataFrame:
+    """Pareto set over 2-3 metrics, each with its direction (TOF and enhancement high, Ea low,
+    ee by magnitude).
 
     A candidate dominates another when it is at least as good on every metric and better on one
     (point estimates). Columns: ``catalyst, role, family``, one estimate column per metric (its
@@ -769,25 +1099,37 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
     ``dominated_by_count``, ``dominated_by`` (';'-joined names of the first :data:`MAX_DOMINATORS`
     dominating candidates in name order; the count has them all), ``p_front`` (with ``draws`` > 0:
     the share of joint draws in which the candidate is on the front; metrics drawn
-    independently), ``flags, reason`` (candidates missing any metric are listed, not compared).
+    independently), ``flags, reason`` (candidates missing any metric, or clearly outside a
+    requirement of ``require`` (as in :func:`rank_candidates`), are listed, not compared).
     Sorted: front first, then by dominated_by_count.
     """
     metrics = tuple(metrics)
     if not 2 <= len(metrics) <= 3 or len(set(metrics)) != len(metrics):
         raise UsageError("pareto needs two or three different metrics")
     specs = [_metric(x) for x in metrics]
-    tabs = [candidate_table(kin, quality, metric=x, at_temperature_c=at_temperature_c, confidence=confidence,
-                            catalysts=catalysts).set_index("catalyst") for x in metrics]
+    reqs = _requirements(require, kin.rates)
+    settings = getattr(kin, "settings", None)
+    t_rank = float(at_temperature_c if at_temperature_c is not None else
+                   getattr(settings, "reference_temperature_c", 60.0))
+    tabs = [_apply_requirements(candidate_table(kin, quality, metric=x, at_temperature_c=at_temperature_c,
+                                                confidence=confidence, catalysts=catalysts, enantiomers=enantiomers,
+                                                include_transport_limited=include_transport_limited),
+                                kin, reqs, t_rank, confidence).set_index("catalyst") for x in metrics]
     base = tabs[0][["role", "family"]].copy()
     reasons = pd.concat([tb["reason"].rename(s.name) for tb, s in zip(tabs, specs)], axis=1)
+    req_reason = tabs[0]["order"].eq(2) & (tabs[0]["reason"] != "")
     base["reason"] = [";".join(f"{k}: {v}" for k, v in row.items() if v) for row in reasons.to_dict("records")]
+    if reqs:                                         # a requirement's reason once, not per metric
+        base.loc[req_reason, "reason"] = tabs[0].loc[req_reason, "reason"]
     base["flags"] = _merge_codes(*[tb["flags"].reindex(base.index).fillna("") for tb in tabs])
     for tb, s in zip(tabs, specs):
         base[s.column] = tb["estimate"].reindex(base.index)
     ok = (base["reason"] == "").to_numpy()
     names = base.index.to_numpy()[ok]
     sign = np.array([1.0 if s.higher_is_better else -1.0 for s in specs])
-    pts = np.column_stack([tb["mu"].reindex(base.index).to_numpy(float)[ok] for tb in tabs]) * sign
+    absolute = [bool(tb["absolute"].reindex(base.index).fillna(False).to_numpy(bool)[ok].any()) for tb in tabs]
+    mus = [tb["mu"].reindex(base.index).to_numpy(float)[ok] for tb in tabs]
+    pts = np.column_stack([np.abs(x) if a else x for x, a in zip(mus, absolute)]) * sign
     cnt = np.zeros(len(base), dtype=np.int64)
     by = np.full(len(base), "", dtype=object)
     cnt[ok], by[ok] = _point_dominance(pts, names, MAX_DOMINATORS)
@@ -798,9 +1140,11 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
     base["dominated_by"] = by
     base["p_front"] = np.nan
     if draws > 0 and ok.sum() > 0:
-        # t draws are symmetric, so sign * (mu + sigma T) is drawn as (sign * mu) + sigma T
-        params = [(sign[i] * tb["mu"].reindex(names).to_numpy(float), tb["sigma"].reindex(names).to_numpy(float),
-                   tb["df"].reindex(names).to_numpy(float)) for i, tb in enumerate(tabs)]
+        # t draws are symmetric, so sign * (mu + sigma T) is drawn as (sign * mu) + sigma T; an ee by
+        # magnitude is drawn from |ee| (the fold matters only for an interval that spans 0)
+        params = [(sign[i] * pts_col, tb["sigma"].reindex(names).to_numpy(float),
+                   tb["df"].reindex(names).to_numpy(float))
+                  for i, (tb, pts_col) in enumerate(zip(tabs, [np.abs(x) if a else x for x, a in zip(mus, absolute)]))]
         base.loc[ok, "p_front"] = front_share(params, draws, seed)
     base = base.reset_index().rename(columns={"index": "catalyst"})
     base["_o"] = np.where(ok, 0, 1)
@@ -808,7 +1152,9 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
                             ascending=[True, False, True, True]).drop(columns="_o")
     cols = ["catalyst", "role", "family", *[s.column for s in specs], "on_front", "dominated_by_count",
             "dominated_by", "p_front", "flags", "reason"]
-    return base[cols].reset_index(drop=True)
+    out = base[cols].reset_index(drop=True)
+    out.attrs = {"requirements": [q.text for q in reqs]}
+    return out
 
 
 def _dominance(pts: np.ndarray) -> np.ndarray:

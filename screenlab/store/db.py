@@ -66,6 +66,10 @@ class Store:
     def __repr__(self) -> str:
         return f"Store({str(self.path)!r}, read_only={self.read_only})"
 
+    def close(self) -> None:
+        """Nothing to release: every method opens and closes its own connection. Kept because callers
+        close stores (tests/test_quality_unchecked.py, tests/test_ranking_semantics.py)."""
+
     # -- connections ---------------------------------------------------------------------------
 
     def _open(self) -> duckdb.DuckDBPyConnection:

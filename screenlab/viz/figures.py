@@ -203,7 +203,11 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
                    confidence: float = 0.95, title: str | None = None) -> go.Figure:
     """ln TOF against 1000/T, one series per catalyst, with fit lines and confidence bands.
 
-    points: ``catalyst, temperature_c, tof_per_h`` (+ ``tof_ci_low, tof_ci_high`` for error bars).
+    points: ``catalyst, temperature_c, tof_per_h`` (+ ``tof_ci_low, tof_ci_high`` for error bars;
+    ``in_arrhenius_fit``, missing = True: points the fit left out are drawn open, in their own legend
+    entry "left out of the fit"; ``censored``: a bound (lower: the rate only known to exceed it,
+    upper: not distinguishable from the blank) is drawn as a barred arrow pointing the way the
+    value can lie (up for >=, down for <=; no series symbol looks like it), without error bars).
     prediction: the output of ``kinetics.arrhenius.predict_tof`` over a temperature grid
     (``catalyst, temperature_c, tof_per_h, tof_ci_low, tof_ci_high``): the fitted line and band.
     blank_points (``temperature_c, blank_rate_mM_per_h``) and blank_prediction (predict_tof rows of
@@ -234,18 +238,38 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
         pt = points[points["catalyst"].astype(str) == cat]
         if pt.empty:
             continue
-        y = _ln(pt["tof_per_h"])
-        err = None
-        if {"tof_ci_low", "tof_ci_high"} <= set(pt.columns):
-            up = _ln(pt["tof_ci_high"]) - y
-            down = y - _ln(pt["tof_ci_low"])
-            err = dict(type="data", array=np.nan_to_num(up), arrayminus=np.nan_to_num(down), thickness=1)
-        fig.add_trace(go.Scatter(
-            x=_inv_t(pt["temperature_c"]), y=y, mode="markers", name=cat, legendgroup=cat, error_y=err,
-            marker=dict(symbol=SYMBOLS[i % len(SYMBOLS)], size=10, color=col, line=dict(width=1, color="#333")),
-            customdata=np.asarray(pt["temperature_c"], dtype=float),
-            hovertemplate=cat + "<br>T = %{customdata:.1f} °C<br>ln(TOF / h⁻¹) = %{y:.3f}<extra></extra>",
-        ))
+        fitted = (pt["in_arrhenius_fit"].astype(object).where(pt["in_arrhenius_fit"].notna(), True).astype(bool)
+                  if "in_arrhenius_fit" in pt else pd.Series(True, index=pt.index))
+        cens = (pt["censored"].astype(object).where(pt["censored"].notna(), "").astype(str).str.lower()
+                if "censored" in pt else pd.Series("", index=pt.index))
+        symbol = SYMBOLS[i % len(SYMBOLS)]
+        for kind, mask in (("fit", fitted & (cens == "")), ("out", ~fitted & (cens == "")),
+                           ("lower", cens == "lower"), ("upper", cens == "upper")):
+            sub = pt[mask.to_numpy()]
+            if sub.empty:
+                continue
+            y = _ln(sub["tof_per_h"])
+            err = None
+            if kind in ("fit", "out") and {"tof_ci_low", "tof_ci_high"} <= set(sub.columns):
+                up = _ln(sub["tof_ci_high"]) - y
+                down = y - _ln(sub["tof_ci_low"])
+                err = dict(type="data", array=np.nan_to_num(up), arrayminus=np.nan_to_num(down), thickness=1)
+            name, sym, fill, what = {
+                "fit": (cat, symbol, col, "ln(TOF / h⁻¹) = %{y:.3f}"),
+                "out": (f"{cat} (left out of the fit)", f"{symbol}-open", col, "ln(TOF / h⁻¹) = %{y:.3f}, not fitted"),
+                "lower": (f"{cat} (bound: faster than the first reading)", "arrow-bar-up", col,
+                          "ln(TOF / h⁻¹) >= %{y:.3f} (a lower bound)"),
+                "upper": (f"{cat} (bound: not above the blank)", "arrow-bar-down", col,
+                          "ln(TOF / h⁻¹) <= %{y:.3f} (an upper bound)"),
+            }[kind]
+            fig.add_trace(go.Scatter(
+                x=_inv_t(sub["temperature_c"]), y=y, mode="markers", name=name, legendgroup=cat, error_y=err,
+                showlegend=True if kind != "fit" else None,
+                marker=dict(symbol=sym, size=10 if kind == "fit" else 11, color=fill,
+                            line=dict(width=1.5, color=col if kind != "fit" else "#333")),
+                customdata=np.asarray(sub["temperature_c"], dtype=float),
+                hovertemplate=cat + "<br>T = %{customdata:.1f} °C<br>" + what + "<extra></extra>",
+            ))
     has_blank = blank_points is not None and not blank_points.empty
     if has_blank:
         fig.add_trace(go.Scatter(
@@ -284,9 +308,16 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
 # --------------------------------------------------------------------------- ranking
 def forest_plot(ranking: pd.DataFrame, *, label: str, log_x: bool = False, title: str | None = None,
                 highlight: list[str] | None = None) -> go.Figure:
-    """Estimate and interval per candidate, best at the top (``rank, catalyst, estimate, ci_low, ci_high``)."""
+    """Estimate and interval per candidate, best at the top (``rank, catalyst, estimate, ci_low, ci_high``).
+
+    Rows with a ``censored`` bound are drawn as a barred arrow pointing the way the value can lie
+    (right for >=, left for <=), without an interval, after the ranked ones, in their own legend entry."""
     r = ranking[np.isfinite(pd.to_numeric(ranking["estimate"], errors="coerce").to_numpy(dtype=float))]
     r = r.sort_values("rank", na_position="last")
+    cens = (r["censored"].astype(object).where(r["censored"].notna(), "").astype(str).str.lower()
+            if "censored" in r else pd.Series("", index=r.index))
+    bounds = r[(cens != "").to_numpy()]
+    r = r[(cens == "").to_numpy()]
     est = r["estimate"].to_numpy(dtype=float)
     lo = pd.to_numeric(r["ci_low"], errors="coerce").to_numpy(dtype=float)
     hi = pd.to_numeric(r["ci_high"], errors="coerce").to_numpy(dtype=float)
@@ -301,9 +332,22 @@ def forest_plot(ranking: pd.DataFrame, *, label: str, log_x: bool = False, title
         customdata=np.stack([lo, hi], axis=1) if len(cats) else None,
         hovertemplate="%{y}<br>" + label + ": %{x:.3g}<br>interval %{customdata[0]:.3g} – %{customdata[1]:.3g}<extra></extra>",
     ))
-    fig.update_yaxes(autorange="reversed", title="candidate (best at top)", type="category")
+    if not bounds.empty:
+        bc = bounds["censored"].astype(str).str.lower()
+        fig.add_trace(go.Scatter(
+            x=bounds["estimate"].to_numpy(dtype=float), y=bounds["catalyst"].astype(str).tolist(), mode="markers",
+            name="bound (not ranked)", marker=dict(symbol=np.where(bc == "lower", "arrow-bar-right", "arrow-bar-left"
+                                                                    ).tolist(), size=13, color="#555555"),
+            customdata=np.where(bc == "lower", ">=", "<=").tolist(),
+            hovertemplate="%{y}<br>" + label + " %{customdata} %{x:.3g} (a bound, not ranked)<extra></extra>"))
+    fig.update_yaxes(autorange="reversed", title="candidate (best at top)", type="category",
+                     categoryorder="array", categoryarray=cats + bounds["catalyst"].astype(str).tolist())
     fig.update_xaxes(title=label, type="log" if log_x else "linear")
-    return _layout(fig, title, height=max(300, 26 * len(cats) + 120))
+    fig = _layout(fig, title, height=max(300, 26 * (len(cats) + len(bounds)) + 120))
+    if not bounds.empty:                             # two legend entries: keep them clear of the title
+        fig.update_layout(margin=dict(t=90), title=dict(y=0.99, yanchor="top"),
+                          legend=dict(orientation="h", yanchor="bottom", y=1.0, x=0))
+    return fig
 
 
 def rank_intervals(ranking: pd.DataFrame, *, title: str | None = None) -> go.Figure:
@@ -375,18 +419,30 @@ def pareto_plot(frame: pd.DataFrame, *, x: str, y: str, x_label: str, y_label: s
 
 # --------------------------------------------------------------------------- plate quality
 def zprime_bars(quality: pd.DataFrame, *, threshold: float, title: str | None = None) -> go.Figure:
-    """Z' per plate (``plate, z_prime``) with the acceptance line."""
+    """Z' per plate (``plate, z_prime``) with the acceptance line; a ``robust_zprime`` column (the
+    upper-quartile sample wells against the blanks, plates without a benchmark included) is drawn
+    as diamond markers beside the bars."""
     z = pd.to_numeric(quality["z_prime"], errors="coerce")
     plates = quality["plate"].astype(str)
     low = (z < threshold).to_numpy()
+    has = z.notna().to_numpy()                       # plates without a benchmark have no bar
     fig = go.Figure()
     # two traces (not a pattern per bar): one hatch pattern for the whole low set keeps the SVG small
-    for mask, name, colour, hatch in ((~low, f"Z' >= {threshold:g}", series_colours(1)[0], ""),
+    for mask, name, colour, hatch in ((has & ~low, f"Z' >= {threshold:g}", series_colours(1)[0], ""),
                                       (low, f"Z' < {threshold:g}", "#e69f00", "/")):
         if mask.any():
             fig.add_trace(go.Bar(x=plates[mask], y=z[mask], name=name,
                                  marker=dict(color=colour, pattern=dict(shape=hatch)),
                                  hovertemplate="%{x}: Z' = %{y:.2f}<extra></extra>"))
+    if "robust_zprime" in quality:
+        rz = pd.to_numeric(quality["robust_zprime"], errors="coerce")
+        has = rz.notna().to_numpy()
+        if has.any():
+            fig.add_trace(go.Scatter(x=plates[has], y=rz[has], mode="markers", name="robust Z' (samples vs blanks)",
+                                     showlegend=True,
+                                     marker=dict(symbol="diamond", size=11, color="#000000",
+                                                 line=dict(width=1, color="#ffffff")),
+                                     hovertemplate="%{x}: robust Z' = %{y:.2f}<extra></extra>"))
     fig.update_layout(barmode="overlay")
     fig.add_hline(y=threshold, line=dict(color="#000000", dash="dash"),
                   annotation_text=f"Z' = {threshold:g}", annotation_position="top left")

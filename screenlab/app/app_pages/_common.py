@@ -38,6 +38,13 @@ def best_candidates(ctx, analysis, n: int = 5) -> None:
 
 
 _UNIT_TEXT = {"h-1": "h⁻¹", "kJ/mol": "kJ mol⁻¹", "": ""}
+#: what comes first, in a few words (the ranking's ``direction`` attribute says it in full)
+_ORDER_WORDS = {"ee": "larger |ee| first, either enantiomer", "ea": "lower apparent barrier first"}
+
+
+def unit_text(unit: str) -> str:
+    """A core unit word as the pages write it (``h-1`` -> ``h⁻¹``)."""
+    return _UNIT_TEXT.get(unit, unit)
 
 
 def metric_choices() -> dict[str, dict]:
@@ -47,7 +54,7 @@ def metric_choices() -> dict[str, dict]:
     out = {}
     for key, m in METRICS.items():
         unit = _UNIT_TEXT.get(m.unit, m.unit)
-        better = "higher is better" if m.higher_is_better else "lower is better"
+        better = _ORDER_WORDS.get(key, "higher is better" if m.higher_is_better else "lower is better")
         out[key] = {
             "label": f"{m.label}" + (f" / {unit}" if unit else "") + f" ({better})",
             "axis": f"{m.label}" + (f" / {unit}" if unit else " (ratio)" if m.lognormal else ""),
@@ -55,11 +62,19 @@ def metric_choices() -> dict[str, dict]:
             "log": bool(m.lognormal),
             "column": m.column,
             "higher_is_better": m.higher_is_better,
+            "predict": bool(m.predict),
         }
     return out
 
 
-def pareto_section(ctx, analysis, temperature) -> None:
+def bound_texts(rows: pd.DataFrame) -> list[str]:
+    """``>= 1,500 h⁻¹`` / ``<= 0.4 h⁻¹`` for ranking rows that are bounds."""
+    from screenlab.export.display import bound_text
+
+    return [bound_text(v, c, unit_text(str(u))) for v, c, u in zip(rows["estimate"], rows["censored"], rows["unit"])]
+
+
+def pareto_section(ctx, analysis, temperature, require: tuple[str, ...] = ()) -> None:
     """Two or three metrics at once: which candidates no other beats on all of them."""
     from screenlab.viz import figures
 
@@ -72,7 +87,10 @@ def pareto_section(ctx, analysis, temperature) -> None:
         st.info("Choose two or three metrics.")
         return
     front = cache.pareto(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, tuple(chosen),
-                         temperature)
+                         temperature, require=tuple(require))
+    if require:
+        st.caption(f"Under the requirements {', '.join(require)}: candidates clearly outside them are listed with "
+                   "the reason and not compared.")
     ok = front[front["reason"].astype(str) == ""]
     x, y = metrics[chosen[0]], metrics[chosen[1]]
     if ok.empty:

@@ -18,18 +18,29 @@ q, data = a.quality, a.data
 thr = ctx.settings.zprime_min
 
 st.subheader("Z' per plate")
-st.caption(f"Z' = 1 - 3(SD benchmark + SD blank) / |mean benchmark - mean blank| on initial rates "
-           f"(Zhang, Chung & Oldenburg 1999). Plates below {thr:g} are flagged, below 0 failed.")
-if q["zprime"].notna().any():
+st.caption(f"Bars: Z' = 1 - 3(SD benchmark + SD blank) / |mean benchmark - mean blank| on initial rates "
+           f"(Zhang, Chung & Oldenburg 1999); plates below {thr:g} are flagged, below 0 failed. Diamonds: the robust "
+           "Z' of the plate's upper-quartile sample wells against its blanks (medians and 1.4826 x MAD; the upper "
+           "quartile's spread taken from its replicates), which plates without a benchmark are judged on, with the "
+           "robust SSMD (Zhang 2007) in the table.")
+unchecked = q[q["status"].astype(str) == "unchecked"]
+if len(unchecked):
+    st.info(f"{len(unchecked)} plate(s) without a benchmark are **unchecked**: no Z' is possible, so they are judged "
+            "on their blanks (scatter, detection limit), replicate CVs, edge test and the separation of their "
+            "upper-quartile wells from the blanks. Their candidates are ranked, flagged on_unchecked_plate.",
+            icon=":material/rule:")
+if q["zprime"].notna().any() or q["robust_zprime"].notna().any():
     widgets.chart(figures.zprime_bars(q.rename(columns={"zprime": "z_prime"}), threshold=thr), key="quality_zprime",
                   filename="zprime")
 else:
-    st.info("No plate has two or more usable benchmark and blank wells, so no Z' can be computed.")
+    st.info("No plate has two or more usable benchmark and blank wells, and none has enough active sample wells and "
+            "blanks for the robust Z', so there is nothing to chart.")
 widgets.table(q, key="quality_table", columns=[
-    "plate", "format", "temperature_c", "status", "zprime", "signal_window", "n_sample", "n_reference", "n_blank",
-    "reference_mean_mM_per_h", "blank_mean_mM_per_h", "replicate_cv_median_pct", "reference_cv_pct",
-    "blank_ratio", "blank_z", "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs", "reference_loo_t",
-    "flags"])
+    "plate", "format", "temperature_c", "status", "zprime", "robust_zprime", "ssmd", "separation_basis",
+    "signal_window", "n_sample", "n_reference", "n_blank", "reference_mean_mM_per_h", "blank_mean_mM_per_h",
+    "blank_lod_mM_per_h", "sample_active_pct", "upper_median_mM_per_h", "upper_cv_pct", "replicate_cv_median_pct",
+    "reference_cv_pct", "blank_ratio", "blank_z", "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs",
+    "reference_loo_t", "flags"])
 widgets.flag_glossary(q["flags"])
 
 st.subheader("Benchmark control chart")

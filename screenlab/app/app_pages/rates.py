@@ -7,6 +7,7 @@ import streamlit as st
 
 from screenlab.app import widgets
 from screenlab.app.app_pages import _common
+from screenlab.export.display import censored_values, show_bounds
 from screenlab.viz import figures
 
 ctx = widgets.context()
@@ -56,10 +57,25 @@ view = rates[mask]
 
 st.caption(f"{len(view)} of {len(rates)} catalyst x temperature x condition rows. TOF in h⁻¹ "
            f"(initial TOF from blank-corrected initial rates); intervals at {ctx.settings.confidence * 100:g} %.")
-show = ["catalyst", "family", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", *factors,
+# a rate the readings cannot resolve is a bound: '>= x' (finished before the first reading) or
+# '<= x' (not above the blank), its interval left empty
+from screenlab.stats.ranking import NOT_SHOWN_ACTIVE, TOO_FAST  # noqa: E402
+
+cens = censored_values(view)
+shown_view = show_bounds(view, "tof_per_h", "tof_ci_low", "tof_ci_high", unit="h⁻¹", text="TOF")
+shown_view = show_bounds(shown_view, "enhancement", "enhancement_ci_low", "enhancement_ci_high", text="enhancement_shown")
+has_bounds = bool((cens != "").any())
+if has_bounds:
+    shown_view["censored"] = cens
+    shown_view["bound_reason"] = pd.Series(cens).map({"lower": TOO_FAST, "upper": NOT_SHOWN_ACTIVE}).fillna("").to_numpy()
+    n_low, n_up = int((cens == "lower").sum()), int((cens == "upper").sum())
+    st.caption(f"Bounds: {n_low} row(s) faster than the first reading allows (≥, rerun at lower loading or "
+               f"temperature), {n_up} not distinguishable from the blank (≤); their intervals are left empty.")
+show = ["catalyst", "family", "role", "temperature_c", "TOF", *(["censored", "bound_reason"] if has_bounds else []),
+        "loading", "loading_unit", "substrate_conc_mM", *factors,
         "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton",
         "enhancement", "enhancement_ci_low", "enhancement_ci_high", "is_standard", "plates", "flags"]
-sel = widgets.table(view.reset_index(drop=True), key="rates_table", columns=show, on_select="rerun",
+sel = widgets.table(shown_view.reset_index(drop=True), key="rates_table", columns=show, on_select="rerun",
                     selection_mode="single-row", height=420)
 widgets.flag_glossary(view["flags"])
 _common.history_links(view["catalyst"].dropna().astype(str).tolist(), key="rates_history")

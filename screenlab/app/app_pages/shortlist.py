@@ -22,11 +22,23 @@ last = st.session_state.get("rank_last") or {}
 metric = last.get("metric") if last.get("metric") in metrics else next(iter(metrics))
 temperature = last.get("temperature")
 k = int(last.get("k") or 3)
-r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric, temperature, k)
+opts = dict(enantiomer=last.get("enantiomer") if metric == "ee" else None,
+            transport_limited=bool(last.get("transport")) if metric == "ea" else False,
+            require=tuple(last.get("require") or ()))
+r = cache.ranking(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric, temperature, k,
+                  opts["enantiomer"], opts["transport_limited"], opts["require"])
 ranked = r[r["rank"].notna()]
 st.caption(f"Candidates ranked by **{metrics[metric]['label']}**"
            + (f" at {temperature:g} °C" if temperature is not None else "")
+           + (f", excess of {opts['enantiomer']}" if opts["enantiomer"] else "")
+           + (f", requiring {', '.join(opts['require'])}" if opts["require"] else "")
            + " (change this on the Ranking page).")
+fast = r[(r["censored"].astype(str) == "lower") & r["rank"].isna()]
+if len(fast):
+    st.info(f"Not in the ranking, only known as lower bounds (faster than the first reading allows): "
+            + ", ".join(f"{c} ({b})" for c, b in zip(fast["catalyst"].astype(str),
+                                                     [bound for bound in _common.bound_texts(fast)]))
+            + ". Rerun them at lower loading or temperature to measure them.")
 if ranked.empty:
     st.info("No candidate can be ranked, so there is nothing to shortlist.")
     st.stop()
@@ -99,7 +111,7 @@ with st.container(border=True):
                    "not recorded yet.")
 
 files = cache.shortlist_files(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key, metric,
-                              temperature, k, tuple(picked), note, decision_id)
+                              temperature, k, tuple(picked), note, decision_id, **opts)
 st.subheader("Shortlisted")
 widgets.table(files.table, key="short_table")
 c1, c2, c3 = st.columns(3)

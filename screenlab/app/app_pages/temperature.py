@@ -47,13 +47,29 @@ blank_pts = blank_pred = None
 if show_blank:
     blank_pts = kin.blanks[["temperature_c", "blank_rate_mM_per_h"]]
     blank_pred = pred[pred["catalyst"].astype(str) == UNCAT]
-fig = figures.arrhenius_plot(pts[["catalyst", "temperature_c", "tof_per_h", "tof_ci_low", "tof_ci_high"]], cat_pred,
-                             blank_points=blank_pts, blank_prediction=blank_pred, confidence=conf)
+point_cols = [c for c in ("catalyst", "temperature_c", "tof_per_h", "tof_ci_low", "tof_ci_high", "in_arrhenius_fit",
+                          "censored") if c in pts]
+fig = figures.arrhenius_plot(pts[point_cols], cat_pred, blank_points=blank_pts, blank_prediction=blank_pred,
+                             confidence=conf)
 widgets.chart(fig, key="arrh_plot", filename="arrhenius")
 st.caption(f"Points: mean initial TOF per temperature at each catalyst's standard condition with its "
            f"{conf * 100:g} % interval; lines: weighted Arrhenius fit with its {conf * 100:g} % confidence band. "
+           "Open symbols: points left out of the fit; barred arrows: bounds, not measured values (pointing up: "
+           "faster than the first reading allows; down: not distinguishable from the blank), without intervals. "
            "The uncatalysed reaction (blank wells) has no sites, so it is drawn as ln(rate / mM h⁻¹) on the right "
            "axis: compare its slope, not its height.")
+from screenlab.export.display import censored_values, show_bounds  # noqa: E402
+
+excluded = ~pts["in_arrhenius_fit"].astype(object).where(pts["in_arrhenius_fit"].notna(), True).astype(bool) \
+    if "in_arrhenius_fit" in pts else pd.Series(False, index=pts.index)
+cens = censored_values(pts)
+if excluded.any() or (cens != "").any():
+    odd = show_bounds(pts.assign(censored=cens, in_fit=~excluded.to_numpy()), "tof_per_h", "tof_ci_low",
+                      "tof_ci_high", unit="h⁻¹", text="TOF")
+    odd = odd[(excluded.to_numpy()) | (cens != "")]
+    st.markdown("**Points not fitted as measured values**")
+    widgets.table(odd, key="arrh_points_out", columns=["catalyst", "temperature_c", "TOF", "censored", "in_fit",
+                                                       "flags"])
 
 st.subheader("Activation parameters")
 cols = ["catalyst", "role", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mol", "ea_ci_low", "ea_ci_high",
