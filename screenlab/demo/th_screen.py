@@ -82,14 +82,28 @@ def _th_catalysts() -> pd.DataFrame:
 
 
 def build(rng: np.random.Generator) -> Campaign:
+    """The campaign: the plates and layout, every well's rate constants, the GC readings with the
+    planted flaws, and the truth (the random draws in that order)."""
     cats = _th_catalysts()
+    plates, layout = _layout(rng, cats)
+    layout = _rate_constants(rng, layout, cats)
+    readings = _readings(rng, layout)
+    out_layout = layout[["plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc",
+                         "volume", "base"]]
+    return Campaign("th-screen-2026", _TOML, catalyst_columns(cats), pd.DataFrame(plates), out_layout,
+                    readings, _truth(cats))
+
+
+def _layout(rng: np.random.Generator, cats: pd.DataFrame) -> tuple[list[dict], pd.DataFrame]:
+    """Four screening blocks (every candidate x 3, the benchmark x 6, blanks x 6) and the series
+    block at 60 C (loading series, substrate series, base factor)."""
     cand = cats[cats["behaviour"] != "reference"]
     ref = cats[cats["behaviour"] == "reference"].iloc[0]
     std = dict(substrate_conc=TH_S0, volume=_TH_V, base="KOtBu")
 
     def sample_groups(role_rows: pd.DataFrame, n: int, role: str = "sample", **over) -> list[pd.DataFrame]:
         return [well_group(role, n, catalyst=r.catalyst, loading=r.std_loading, loading_unit=r.loading_unit,
-                       **{**std, **over}) for r in role_rows.itertuples()]
+                           **{**std, **over}) for r in role_rows.itertuples()]
 
     dates = {40.0: "2026-03-02", 50.0: "2026-03-03", 60.0: "2026-03-04", 70.0: "2026-03-05"}
     main = sample_groups(cand, 3) + sample_groups(pd.DataFrame([ref]), 6, role="reference")
@@ -98,15 +112,14 @@ def build(rng: np.random.Generator) -> Campaign:
         rng, _TH_TEMPS, 96, lambda temp: main,
         lambda i, temp: dict(plate=f"TH-{int(temp)}", format=96, temperature_c=temp, run_date=dates[temp],
                              notes=f"main screen, 3 wells per candidate, block at {temp:g} C"))
-    # the series block at 60 C: loading series, substrate series, base factor
     ir2 = cats.set_index("catalyst").loc["IR-02"]
     mn1 = cats.set_index("catalyst").loc["MN-01"]
     groups = [well_group("sample", 3, catalyst="RU-04", loading=ld, loading_unit="umol", **std)
               for ld in (0.125, 0.25, 0.5, 1.0)]
     groups += [well_group("sample", 3, catalyst="MN-01", loading=mn1.std_loading, loading_unit="mg",
-                      **{**std, "substrate_conc": sc}) for sc in (50.0, 100.0, 200.0, 400.0)]
+                          **{**std, "substrate_conc": sc}) for sc in (50.0, 100.0, 200.0, 400.0)]
     groups += [well_group("sample", 3, catalyst=c.name, loading=c.std_loading, loading_unit=c.loading_unit,
-                      **{**std, "base": "K2CO3"}) for c in (ir2, cats.set_index("catalyst").loc["RU-01"])]
+                          **{**std, "base": "K2CO3"}) for c in (ir2, cats.set_index("catalyst").loc["RU-01"])]
     groups += [well_group("reference", 6, catalyst="REF-RU", loading=ref.std_loading, loading_unit="umol", **std),
                well_group("blank", 6, **std)]
     series = place(rng, 96, groups).assign(plate="TH-60S", _temp=60.0)
@@ -114,8 +127,12 @@ def build(rng: np.random.Generator) -> Campaign:
                        notes="series block: RU-04 loading series, MN-01 substrate series, IR-02 and RU-01 with K2CO3"))
     layout = pd.concat([screen, series], ignore_index=True)
     layout["_vol_uL"] = layout["volume"]
+    return plates, layout
 
-    # per-well kinetic parameters (vectorised over wells)
+
+def _rate_constants(rng: np.random.Generator, layout: pd.DataFrame, cats: pd.DataFrame) -> pd.DataFrame:
+    """Every well's catalysed and background rate constants, deactivation and induction (vectorised
+    over wells, with the dispensing scatter), and the planted dispensing failure."""
     filled = layout["role"] != "empty"
     tw = per_well_truth(layout, cats, ["ea_kj_mol", "tof_ref_per_h", "behaviour", "family"])
     temp = layout["_temp"].to_numpy(float)
@@ -133,12 +150,16 @@ def build(rng: np.random.Generator) -> Campaign:
     kd = np.where(beh == "deactivating", TH_KD_REF * arrhenius_factor(90.0, temp, _TH_TREF), 0.0)
     tau = np.where(beh == "induction", TH_TAU_REF / arrhenius_factor(70.0, temp, _TH_TREF), 0.0)
     layout = layout.assign(_k_cat=k_cat, _k_blank=k_blank, _kd=kd, _tau=tau)
-
     # planted flaw 1: a dispensing failure (no substrate reached the vial): flat zero course
     failed = (layout["plate"] == "TH-60") & (layout["catalyst"] == "RU-02")
     failed_idx = layout.index[failed][1]
     layout["_failed"] = layout.index == failed_idx
+    return layout
 
+
+def _readings(rng: np.random.Generator, layout: pd.DataFrame) -> pd.DataFrame:
+    """GC yields (percent) of every non-empty well at every reading time, with the evaporating edge
+    ring, GC noise, the failed well and a missing reading."""
     course = time_courses(layout, np.asarray(_TH_TIMES_MIN, float))
     t_h = course["t"].to_numpy() / 60.0
     x = first_order_conversion(t_h, course["_k_cat"], course["_k_blank"], course["_kd"], course["_tau"])
@@ -157,12 +178,11 @@ def build(rng: np.random.Generator) -> Campaign:
     readings = pd.DataFrame({"plate": course["plate"], "well": course["well"], "time": course["t"], "value": y})
     # planted flaw 3: a missing reading (the 120 min sample of one well was never injected)
     miss_well = layout.loc[(layout["plate"] == "TH-50") & (layout["catalyst"] == "IR-01"), "well"].iloc[0]
-    readings = readings[~((readings["plate"] == "TH-50") & (readings["well"] == miss_well)
-                          & (readings["time"] == 120))].reset_index(drop=True)
+    return readings[~((readings["plate"] == "TH-50") & (readings["well"] == miss_well)
+                      & (readings["time"] == 120))].reset_index(drop=True)
 
-    out_layout = layout[["plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc",
-                         "volume", "base"]]
-    toml = f'''[campaign]
+
+_TOML = f'''[campaign]
 name = "th-screen-2026"
 description = "Invented demo: transfer hydrogenation screen, 26 candidates in four families plus a benchmark, four block temperatures, loading and substrate series at 60 C"
 reaction = "4'-chloroacetophenone + 2-propanol -> 1-(4-chlorophenyl)ethanol + acetone (KOtBu, 2-propanol)"
@@ -180,10 +200,14 @@ product_per_substrate = 1.0
 [analysis]
 reference_temperature_c = {_TH_TREF:g}
 '''
-    # truth per catalyst at the standard condition and the reference temperature
+
+
+def _truth(cats: pd.DataFrame) -> pd.DataFrame:
+    """The truth per catalyst at the standard condition and the reference temperature, and the
+    background's row."""
     tr = cats.copy()
     std_sites = site_umol(tr, tr["std_loading"], tr["loading_unit"].to_numpy(object),
-                           np.full(len(tr), TH_S0 * _TH_V * 1e-3))
+                          np.full(len(tr), TH_S0 * _TH_V * 1e-3))
     k_blank_ref = TH_BLANK["k_ref_per_h"]
     k_cat_ref = tr["tof_ref_per_h"] / TH_S0 * std_sites / (_TH_V * 1e-3)
     truth = pd.DataFrame({
@@ -203,6 +227,4 @@ reference_temperature_c = {_TH_TREF:g}
                                "role": "blank", "behaviour": "background", "ea_kj_mol": TH_BLANK["ea_kj_mol"],
                                "enhancement_ref": 1.0, "loading_unit": "", "formula": "",
                                "blank_rate_ref_mM_per_h": k_blank_ref * TH_S0}])
-    truth = pd.concat([truth, blank_row], ignore_index=True)
-    return Campaign("th-screen-2026", toml, catalyst_columns(cats), pd.DataFrame(plates), out_layout,
-                     readings, truth)
+    return pd.concat([truth, blank_row], ignore_index=True)
