@@ -67,8 +67,8 @@ class Store:
         return f"Store({str(self.path)!r}, read_only={self.read_only})"
 
     def close(self) -> None:
-        """Nothing to release: every method opens and closes its own connection. Kept because callers
-        close stores (tests/test_quality_unchecked.py, tests/test_ranking_semantics.py)."""
+        """Nothing to release: every method opens and closes its own connection (kept for callers that
+        close what they open)."""
 
     # -- connections ---------------------------------------------------------------------------
 
