@@ -101,7 +101,8 @@ CATALYSTS = FrameSchema("catalysts", "screenlab.ingest.validate.check_catalysts"
     ("metal_wt_pct", "float", "%", "metal content of a supported catalyst, by mass; NaN when not given"),
     ("metal_molar_mass_g_mol", "float", "g/mol", "molar mass of that metal; NaN when not given"),
     ("dispersion", "float", "", "fraction of metal atoms at the surface (default 1)"),
-    _opt("alias", "text", "", "the id the catalyst had in an earlier campaign; present when catalysts.csv has the column"),
+    _opt("alias", "text", "", "the id the catalyst had in an earlier campaign; present when catalysts.csv "
+                              "has the column"),
 ))
 
 PLATES = FrameSchema("plates", "screenlab.ingest.validate.check_plates", _cols(

@@ -80,7 +80,8 @@ def test_check_frame_kinds_follow_pandas_dtype_predicates():
     columns = {
         "f64": np.array([1.5]), "f32": np.array([1.5], dtype=np.float32), "i64": np.array([1]),
         "u8": np.array([1], dtype=np.uint8), "Int64": pd.array([1], dtype="Int64"),
-        "Float64": pd.array([1.5], dtype="Float64"), "b": np.array([True]), "boolean": pd.array([True], dtype="boolean"),
+        "Float64": pd.array([1.5], dtype="Float64"), "b": np.array([True]),
+        "boolean": pd.array([True], dtype="boolean"),
         "str": pd.array(["x"], dtype="str"), "string": pd.array(["x"], dtype="string"),
         "obj": np.array(["x"], dtype=object), "dt": pd.to_datetime(["2026-01-01"]),
     }

@@ -134,7 +134,8 @@ def test_arrow_tables_equal_the_pyarrow_conversion(make_data):
 @pytest.mark.parametrize("values, kind, want", [
     (pd.Series([1.0, -0.0, np.nan]), "f", [1.0, 0.0, np.nan]),          # -0.0 stored as 0.0
     (pd.Series(["3", "x", None], dtype=object), "i", [3, pd.NA, pd.NA]),  # not a number: missing
-    (pd.to_datetime(pd.Series(["2026-03-01", "2026-03-01 12:30"]), format="ISO8601"), "s", ["2026-03-01", "2026-03-01 12:30:00"]),
+    (pd.to_datetime(pd.Series(["2026-03-01", "2026-03-01 12:30"]), format="ISO8601"), "s",
+     ["2026-03-01", "2026-03-01 12:30:00"]),
 ])
 def test_storage_form_of_a_column(values, kind, want):
     got = storage.storage_form(pd.DataFrame({"c": values}), {"c": kind, "absent": "s"})

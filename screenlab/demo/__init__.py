@@ -60,7 +60,8 @@ from screenlab.demo.generator import (ATOMIC_WEIGHTS, activity_integral, arrheni
 from screenlab.demo.grids import READINGS_DIR
 from screenlab.model import UNCATALYSED
 
-__all__ = ["ATOMIC_WEIGHTS", "CAMPAIGNS", "DEFAULT_SEED", "GRID_CAMPAIGNS", "READINGS_DIR", "TRUTH_COLUMNS", "TRUTH_DIR",
+__all__ = ["ATOMIC_WEIGHTS", "CAMPAIGNS", "DEFAULT_SEED", "GRID_CAMPAIGNS", "READINGS_DIR", "TRUTH_COLUMNS",
+           "TRUTH_DIR",
            "UNCATALYSED", "activity_integral", "arrhenius_factor", "beer_lambert_absorbance", "build_campaigns",
            "build_demo_store", "demo_folder", "first_order_conversion", "generate_demo", "molar_mass", "read_truth"]
 

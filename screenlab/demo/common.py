@@ -101,6 +101,11 @@ def csv_bytes(frame: pd.DataFrame, decimals: dict[str, int] | None = None) -> by
 
 
 
+def layout_file(layout: pd.DataFrame, factor: str) -> pd.DataFrame:
+    """The layout.csv columns of a demo layout, with its one named factor last."""
+    return layout[["plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc", "volume", factor]]
+
+
 def catalyst_columns(cat: pd.DataFrame) -> pd.DataFrame:
     cols = ["catalyst", "name", "family", "molar_mass_g_mol", "sites_per_unit", "metal_wt_pct",
             "metal_molar_mass_g_mol", "dispersion"]

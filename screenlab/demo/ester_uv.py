@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, plates_by_temperature, screen_groups,
-                                   time_courses, well_site_conc_mM)
+from screenlab.demo.common import (Campaign, catalyst_columns, layout_file, per_well_truth, plates_by_temperature,
+                                   screen_groups, time_courses, well_site_conc_mM)
 from screenlab.demo.generator import arrhenius_factor, beer_lambert_absorbance, first_order_conversion, site_umol
 from screenlab.model import UNCATALYSED
 
@@ -71,8 +71,7 @@ def build(rng: np.random.Generator) -> Campaign:
     absorb = absorb + np.where(hit, jump, 0.0)
     readings = pd.DataFrame({"plate": course["plate"], "well": course["well"], "time": course["t"],
                              "value": np.round(absorb, 4)})
-    out_layout = layout[["plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc",
-                         "volume", "buffer"]]
+    out_layout = layout_file(layout, "buffer")
     toml = f'''[campaign]
 name = "ester-hydrolysis-uv"
 description = "Invented demo: 4-nitrophenyl acetate hydrolysis by small metal complexes and peptides, plate reader at 405 nm, three temperatures"

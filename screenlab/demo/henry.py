@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, plates_by_temperature, screen_groups,
-                                   time_courses, well_site_conc_mM)
+from screenlab.demo.common import (Campaign, catalyst_columns, layout_file, per_well_truth, plates_by_temperature,
+                                   screen_groups, time_courses, well_site_conc_mM)
 from screenlab.demo.generator import arrhenius_factor
 from screenlab.model import UNCATALYSED
 
@@ -36,8 +36,9 @@ _HN_LIBRARY = [
 def build(rng: np.random.Generator, library: list[tuple] | None = None) -> Campaign:
     """The campaign (``library``: other invented catalysts in the rows' shape of the demo's own, the
     benchmark ``REF-CU`` among them)."""
-    cats = pd.DataFrame(_HN_LIBRARY if library is None else library, columns=["catalyst", "name", "family", "ea_kj_mol", "tof_ref_per_h",
-                                              "selectivity_pct", "ee_pct"])
+    cats = pd.DataFrame(_HN_LIBRARY if library is None else library,
+                        columns=["catalyst", "name", "family", "ea_kj_mol", "tof_ref_per_h", "selectivity_pct",
+                                 "ee_pct"])
     cats = cats.assign(molar_mass_g_mol=np.nan, sites_per_unit=np.nan, metal_wt_pct=np.nan,
                        metal_molar_mass_g_mol=np.nan, dispersion=np.nan)
     std = dict(substrate_conc=_HN_S0 / 1000.0, volume=_HN_V / 1000.0, additive="DIPEA 10 mol%")
@@ -86,8 +87,7 @@ def build(rng: np.random.Generator, library: list[tuple] | None = None) -> Campa
         "analyte": np.tile(np.array(_HN_ANALYTES, dtype=object), n),
         "value": conc_M.reshape(-1),
     })
-    out_layout = layout[["plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc",
-                         "volume", "additive"]]
+    out_layout = layout_file(layout, "additive")
     toml = f'''[campaign]
 name = "henry-chiral-2026"
 description = "Invented demo: enantioselective nitroaldol with chiral Cu, Zn and Co catalysts, chiral HPLC of both enantiomers and two by-products, two temperatures"

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from screenlab.demo.common import (Campaign, catalyst_columns, per_well_truth, place, plates_by_temperature,
-                                   time_courses, well_group, well_site_conc_mM)
+from screenlab.demo.common import (Campaign, catalyst_columns, layout_file, per_well_truth, place,
+                                   plates_by_temperature, time_courses, well_group, well_site_conc_mM)
 from screenlab.demo.generator import ATOMIC_WEIGHTS, arrhenius_factor, first_order_conversion, molar_mass, site_umol
 from screenlab.model import UNCATALYSED
 from screenlab.plates import is_edge
@@ -88,8 +88,7 @@ def build(rng: np.random.Generator) -> Campaign:
     plates, layout = _layout(rng, cats)
     layout = _rate_constants(rng, layout, cats)
     readings = _readings(rng, layout)
-    out_layout = layout[["plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc",
-                         "volume", "base"]]
+    out_layout = layout_file(layout, "base")
     return Campaign("th-screen-2026", _TOML, catalyst_columns(cats), pd.DataFrame(plates), out_layout,
                     readings, _truth(cats))
 
