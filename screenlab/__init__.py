@@ -8,7 +8,7 @@ Python API (names are imported lazily, so ``import screenlab`` stays fast)::
     analysis.kinetics.rates          # per catalyst x temperature x condition (TOF, TON, enhancement)
     analysis.kinetics.arrhenius      # Ea, Eyring parameters, TOF at the reference temperature
     sl.rank_candidates(analysis.kinetics, analysis.quality, metric="tof")
-    with sl.Store("screenlab.duckdb") as store: ...                 # the DuckDB store
+    store = sl.Store("screenlab.duckdb")                            # the DuckDB store
 """
 from __future__ import annotations
 

@@ -25,8 +25,9 @@ class StoreBusyError(ScreenlabError):
     """The store file is held by another process (DuckDB allows one writer at a time)."""
 
 
-class FitError(ScreenlabError, RuntimeError):
-    """A fit could not be made at all (as opposed to a doubtful fit, which is flagged)."""
+class FrameError(ScreenlabError, TypeError):
+    """A table handed to an analysis step lacks a column of its declared schema, or holds one of
+    another kind (:func:`screenlab.schema.check_frame`): a programming error, not bad input."""
 
 
 @dataclass(frozen=True)
@@ -75,10 +76,6 @@ class ValidationError(ScreenlabError, ValueError):
 
 class ScreenlabWarning(UserWarning):
     """Base class of ScreenLab's warnings."""
-
-
-class FitWarning(ScreenlabWarning):
-    """A fit converged doubtfully; the result carries a flag saying why."""
 
 
 class DataQualityWarning(ScreenlabWarning):

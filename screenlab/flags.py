@@ -23,8 +23,3 @@ def flag_help() -> dict[str, str]:
         out.update(getattr(importlib.import_module(name), "FLAGS", {}))
     return out
 
-
-def explain(codes: str) -> list[tuple[str, str]]:
-    """Split a ``;``-joined flag string into (code, sentence) pairs, unknown codes kept."""
-    known = flag_help()
-    return [(c, known.get(c, "")) for c in (codes or "").split(";") if c]

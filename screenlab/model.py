@@ -68,22 +68,11 @@ class Manifest:
 class CampaignData:
     """One campaign's validated tables in canonical units.
 
-    catalysts
-        catalyst (str), name (str), family (str), molar_mass_g_mol, sites_per_unit (default 1),
-        metal_wt_pct, metal_molar_mass_g_mol, dispersion (default 1) — floats, NaN when absent.
-    plates
-        plate (str), format (int: 24/48/96/384), n_rows, n_cols (int), temperature_c (float),
-        run_date (str or NA), notes (str or NA).
-    wells
-        plate, well (canonical 'A1'), row, col (0-based int), role (sample|blank|reference|empty),
-        catalyst (str or NA), loading (float), loading_unit (umol|mg|mol% or NA),
-        substrate_conc_mM, volume_uL (float; NaN for empty), temperature_c (float: the well's
-        override, else its plate's), and one string column per named factor (see factor_names).
-    readings
-        plate, well, analyte (str; DEFAULT_ANALYTE when the campaign has no analyte column),
-        time_h (float >= 0), value (float, in the readout's own scale: percent or fraction,
-        product concentration in the manifest's concentration unit, or absorbance).
-        Sorted by plate, well, analyte, time_h.
+    ``catalysts`` (one row per catalyst), ``plates`` (one row per plate), ``wells`` (one row per
+    layout position, with one text column per named factor, see ``factor_names``) and
+    ``readings`` (one row per reading, sorted by plate, well, analyte, time_h). Their columns,
+    dtypes and units are declared once, in :mod:`screenlab.schema` (``CATALYSTS``, ``PLATES``,
+    ``WELLS``, ``READINGS``).
     """
 
     manifest: Manifest

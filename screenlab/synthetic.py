@@ -42,7 +42,8 @@ import pandas as pd
 
 from screenlab.model import DEFAULT_ANALYTE, CampaignData, Manifest
 from screenlab.plates import FORMATS, all_wells
-from screenlab.units import R_J_MOL_K, ZERO_C_IN_K, time_factor_to_h
+from screenlab.demo.generator import arrhenius_factor, first_order_conversion
+from screenlab.units import time_factor_to_h
 
 REFERENCE_CATALYST = "REF-1"
 from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
@@ -124,11 +125,8 @@ def _times_min(spec: SyntheticSpec) -> np.ndarray:
 
 
 def _arrhenius(value_ref, ea_kj_mol, t_c, tref_c):
-    """value(T) = value(Tref) x exp(-Ea/R (1/T - 1/Tref)) (R from scipy.constants via units)."""
-    t = np.asarray(t_c, dtype=float) + ZERO_C_IN_K
-    tr = float(tref_c) + ZERO_C_IN_K
-    return np.asarray(value_ref, dtype=float) * np.exp(-np.asarray(ea_kj_mol, dtype=float) * 1e3 / R_J_MOL_K
-                                                       * (1.0 / t - 1.0 / tr))
+    """value(T) = value(Tref) x k(T)/k(Tref) (the demo generator's Arrhenius factor)."""
+    return np.asarray(value_ref, dtype=float) * arrhenius_factor(ea_kj_mol, t_c, tref_c)
 
 
 def _catalyst_ids(n: int) -> np.ndarray:
@@ -213,7 +211,7 @@ def _tables(spec: SyntheticSpec) -> dict[str, pd.DataFrame]:
     k = (k_cat + k_blank)[used]
     t_min = _times_min(spec)
     t_h = t_min * time_factor_to_h("min")
-    y = -100.0 * np.expm1(-np.outer(k, t_h))
+    y = 100.0 * first_order_conversion(t_h[None, :], k[:, None], 0.0)
     y = y + spec.noise_pct * rng.standard_normal(y.shape)
     y = np.round(np.clip(y, -1.9, 101.9), 2) + 0.0           # + 0.0 turns -0.0 into 0.0
     nw = int(used.sum())

@@ -35,7 +35,6 @@ ZERO_C_IN_K: float = 273.15
 TIME_TO_H = {"s": 1.0 / 3600.0, "sec": 1.0 / 3600.0, "min": 1.0 / 60.0, "h": 1.0, "hr": 1.0}
 CONC_TO_MM = {"m": 1000.0, "mm": 1.0, "um": 1.0e-3, "nm": 1.0e-6}
 VOLUME_TO_UL = {"l": 1.0e6, "ml": 1.0e3, "ul": 1.0}
-LOADING_UNITS = ("umol", "mg", "mol%")
 
 
 def normalise_unit_word(word: str) -> str:

@@ -1,14 +1,25 @@
-"""Shared fixtures. Keep them small and generic; add your own below.
+"""Shared fixtures (builders of test campaigns). Keep them small and generic.
 
 ``demo_store``: a store holding the demo campaigns, built once per test session in a temporary
 folder (about 6 s). Tests must not write to it; copy it (``demo_store_copy``) to write.
+
+``make_data(name, plates=..., fmt=..., times=..., k_scale=..., solvent=..., analytes=...)``: a
+synthetic CampaignData built in code, in the shape the reader gives. ``write_sample_campaign(folder,
+name, ...)``: the same campaign written as a campaign folder (docs/campaign-format.md). Readings
+follow a first-order approach to full conversion, value = 100 (1 - exp(-k t)) percent; invented
+data, tests only.
 """
 from __future__ import annotations
 
 import shutil
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
+
+from screenlab.model import CampaignData, Manifest
+from screenlab.plates import all_wells
 
 
 @pytest.fixture(scope="session")
@@ -29,3 +40,135 @@ def demo_store_copy(demo_store, tmp_path) -> Path:
     if wal.exists():
         shutil.copy2(wal, Path(str(dst) + ".wal"))
     return dst
+
+
+@pytest.fixture(scope="session")
+def make_data():
+    """The builder of a synthetic CampaignData (see the module docstring)."""
+    return _make_data
+
+
+@pytest.fixture(scope="session")
+def write_sample_campaign():
+    """The builder of a synthetic campaign folder (see the module docstring)."""
+    return _write_sample_campaign
+
+
+# --------------------------------------------------------------------------------------------
+# the synthetic sample campaign
+
+_SAMPLE_MANIFEST = """[campaign]
+name = "{name}"
+description = "synthetic store test"
+reaction = "A + B -> C"
+
+[units]
+time = "min"
+concentration = "mM"
+volume = "uL"
+
+[readout]
+kind = "conversion"
+scale = "percent"
+product_per_substrate = 1.0
+{extra}
+"""
+
+
+def _tables(plates=("P1", "P2"), fmt=96, times=(0, 10, 20, 40, 60), k_scale=1.0, n_catalysts=6,
+            temps=None, solvent=True):
+    cats = pd.DataFrame({
+        "catalyst": [f"C{i}" for i in range(1, n_catalysts + 1)] + ["REF"],
+        "name": [f"cat {i}" for i in range(1, n_catalysts + 1)] + ["benchmark"],
+        "family": ["phosphine"] * (n_catalysts // 2) + ["nhc"] * (n_catalysts - n_catalysts // 2) + [""],
+        "molar_mass_g_mol": [350.0 + i for i in range(n_catalysts)] + [412.5],
+    })
+    temps = temps or {p: 40.0 + 10 * i for i, p in enumerate(plates)}
+    pl = pd.DataFrame({"plate": list(plates), "format": fmt, "temperature_c": [temps[p] for p in plates],
+                       "run_date": ["2026-03-0%d" % (i + 1) for i in range(len(plates))],
+                       "notes": ["" if i else "first block" for i in range(len(plates))]})
+    grid = all_wells(fmt)
+    n = len(grid)
+    lay = []
+    for p in plates:  # a few plates
+        role = np.where(np.arange(n) % 12 == 0, "blank", np.where(np.arange(n) % 12 == 11, "reference", "sample"))
+        cat = np.where(role == "blank", "", np.where(role == "reference", "REF",
+                                                     np.array([f"C{(i % n_catalysts) + 1}" for i in range(n)])))
+        frame = pd.DataFrame({"plate": p, "well": grid["well"], "role": role, "catalyst": cat,
+                              "loading": np.where(role == "blank", np.nan, 0.5),
+                              "loading_unit": np.where(role == "blank", "", "umol"),
+                              "substrate_conc": 100.0, "volume": 250.0})
+        if solvent:
+            frame["solvent"] = np.where(np.arange(n) % 2 == 0, "toluene", "THF")
+        lay.append(frame)
+    lay = pd.concat(lay, ignore_index=True)
+    rows = []
+    t = np.asarray(times, dtype=float)
+    for p in plates:
+        kk = k_scale * (0.002 + 0.0004 * (np.arange(n) % 7))
+        conv = 100.0 * (1.0 - np.exp(-np.outer(kk, t)))
+        rows.append(pd.DataFrame({"plate": p, "well": np.repeat(grid["well"].to_numpy(), len(t)),
+                                  "time": np.tile(t, n), "value": np.round(conv.ravel(), 4)}))
+    rea = pd.concat(rows, ignore_index=True)
+    return cats, pl, lay, rea
+
+
+def _write_sample_campaign(folder: Path, name: str = "demo-aldol", *, extra_manifest: str = "", **kw) -> Path:
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    cats, pl, lay, rea = _tables(**kw)
+    (folder / "campaign.toml").write_text(_SAMPLE_MANIFEST.format(name=name, extra=extra_manifest), encoding="utf-8")
+    cats.to_csv(folder / "catalysts.csv", index=False)
+    pl.to_csv(folder / "plates.csv", index=False)
+    lay.to_csv(folder / "layout.csv", index=False)
+    rea.to_csv(folder / "readings.csv", index=False)
+    return folder
+
+
+def _make_data(name: str = "demo-aldol", *, plates=("P1", "P2"), fmt=96, times=(0, 10, 20, 40, 60),
+              k_scale=1.0, solvent=True, analytes=None, description="synthetic") -> CampaignData:
+    """A CampaignData in canonical form built in code (the reader's documented shape)."""
+    cats, pl, lay, rea = _tables(plates=plates, fmt=fmt, times=times, k_scale=k_scale, solvent=solvent)
+    catalysts = pd.DataFrame({
+        "catalyst": cats["catalyst"].astype("str"), "name": cats["name"].astype("str"),
+        "family": cats["family"].replace("", np.nan).astype("str"),
+        "molar_mass_g_mol": cats["molar_mass_g_mol"].astype(float), "sites_per_unit": 1.0,
+        "metal_wt_pct": np.nan, "metal_molar_mass_g_mol": np.nan, "dispersion": 1.0})
+    from screenlab.plates import FORMATS
+
+    plates_f = pd.DataFrame({
+        "plate": pl["plate"].astype("str"), "format": pl["format"].astype("int64"),
+        "n_rows": pl["format"].map(lambda f: FORMATS[f][0]).astype("int64"),
+        "n_cols": pl["format"].map(lambda f: FORMATS[f][1]).astype("int64"),
+        "temperature_c": pl["temperature_c"].astype(float),
+        "run_date": pl["run_date"].astype("str"), "notes": pl["notes"].replace("", np.nan).astype("str")})
+    grid = all_wells(fmt)
+    temp = lay["plate"].map(dict(zip(pl["plate"], pl["temperature_c"]))).astype(float)
+    wells = pd.DataFrame({
+        "plate": lay["plate"].astype("str"), "well": lay["well"].astype("str"),
+        "row": np.tile(grid["row"].to_numpy(), len(plates)).astype("int64"),
+        "col": np.tile(grid["col"].to_numpy(), len(plates)).astype("int64"),
+        "role": lay["role"].astype("str"), "catalyst": lay["catalyst"].replace("", np.nan).astype("str"),
+        "loading": lay["loading"].astype(float), "loading_unit": lay["loading_unit"].replace("", np.nan).astype("str"),
+        "substrate_conc_mM": lay["substrate_conc"].astype(float), "volume_uL": lay["volume"].astype(float),
+        "temperature_c": temp})
+    factor_names = ()
+    if solvent:
+        wells["solvent"] = lay["solvent"].astype("str")
+        factor_names = ("solvent",)
+    readings = pd.DataFrame({"plate": rea["plate"].astype("str"), "well": rea["well"].astype("str"),
+                             "analyte": "product", "time_h": rea["time"].astype(float) / 60.0,
+                             "value": rea["value"].astype(float)})
+    readings["analyte"] = readings["analyte"].astype("str")
+    if analytes:
+        parts = [readings.assign(analyte=a, value=readings["value"] * (1 - 0.2 * i)) for i, a in enumerate(analytes)]
+        readings = pd.concat(parts, ignore_index=True)
+        readings["analyte"] = readings["analyte"].astype("str")
+    readings = readings.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
+    manifest = Manifest(name=name, readout_kind="conversion", readout_scale="percent", description=description,
+                        reaction="A + B -> C", analysis={"reference_temperature_c": 50.0},
+                        analyte_main=analytes[0] if analytes else "product",
+                        byproducts=tuple(analytes[1:]) if analytes else (),
+                        source_toml=_SAMPLE_MANIFEST.format(name=name, extra=""))
+    return CampaignData(manifest=manifest, catalysts=catalysts, plates=plates_f, wells=wells, readings=readings,
+                        factor_names=factor_names)

@@ -9,7 +9,8 @@ import screenlab
 
 CORE_PREFIXES = ("screenlab.ingest", "screenlab.kinetics", "screenlab.stats", "screenlab.export",
                  "screenlab.model", "screenlab.units", "screenlab.plates", "screenlab.settings",
-                 "screenlab.errors", "screenlab.pipeline", "screenlab.viz", "screenlab.flags")
+                 "screenlab.errors", "screenlab.pipeline", "screenlab.viz", "screenlab.flags", "screenlab.schema",
+                 "screenlab.demo", "screenlab.synthetic")
 
 
 def _core_modules() -> list[str]:

@@ -22,13 +22,10 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-from store_samples import make_data  # noqa: E402
-
-from screenlab.cli import main  # noqa: E402
-from screenlab.errors import NotFoundError, StoreBusyError  # noqa: E402
-from screenlab.store import Store  # noqa: E402
-from screenlab.store import backup as B  # noqa: E402
+from screenlab.cli import main
+from screenlab.errors import NotFoundError, StoreBusyError
+from screenlab.store import Store
+from screenlab.store import backup as B
 
 FRAMES = ("catalysts", "plates", "wells", "readings")
 CLI = [sys.executable, "-c", "import sys; from screenlab.cli import main; sys.exit(main())"]
@@ -42,7 +39,7 @@ def assert_same(a, b):
 
 
 @pytest.fixture(scope="module")
-def filled_once(tmp_path_factory) -> Path:
+def filled_once(tmp_path_factory, make_data) -> Path:
     """A store with two campaigns, one with a replaced plate (history rows) and odd names."""
     path = tmp_path_factory.mktemp("backup-src") / "live.duckdb"
     s = Store(path)
@@ -70,7 +67,7 @@ def run(capsys, *argv):
 
 # ---------------------------------------------------------------------------------- round trip
 
-def test_backup_then_restore_gives_the_same_campaigns_and_history(filled, tmp_path):
+def test_backup_then_restore_gives_the_same_campaigns_and_history(filled, tmp_path, make_data):
     live = Store(filled)
     rep = B.backup_store(filled, tmp_path / "bk")
     assert rep.tables == {**live.table_counts(), **{k: v for k, v in rep.tables.items()
@@ -133,7 +130,7 @@ def test_parquet_tables_are_readable_by_pyarrow_and_pandas(filled, tmp_path):
     assert "aldol 'A'; \"quoted\" ✓" in names
 
 
-def test_backup_includes_an_import_still_in_the_write_ahead_log(tmp_path):
+def test_backup_includes_an_import_still_in_the_write_ahead_log(tmp_path, make_data):
     path = tmp_path / "w.duckdb"
     Store(path).import_campaign(make_data("first", plates=("P1",)))
     # a commit that stays in the WAL: the process ends without closing (no checkpoint on close)
@@ -149,7 +146,7 @@ def test_backup_includes_an_import_still_in_the_write_ahead_log(tmp_path):
 
 # ---------------------------------------------------------------------------------- refusals
 
-def test_restore_refuses_an_existing_store_without_force_and_keeps_it_aside_with_force(filled, tmp_path):
+def test_restore_refuses_an_existing_store_without_force_and_keeps_it_aside_with_force(filled, tmp_path, make_data):
     B.backup_store(filled, tmp_path / "bk")
     target = tmp_path / "t.duckdb"
     Store(target).import_campaign(make_data("other", plates=("X1",)))

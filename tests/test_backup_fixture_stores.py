@@ -10,18 +10,13 @@ from __future__ import annotations
 import gzip
 import json
 import shutil
-import sys
 from pathlib import Path
 
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-sys.path.insert(0, str(Path(__file__).parent / "fixtures"))
-from store_samples import make_data  # noqa: E402
-
-from screenlab.errors import ScreenlabError  # noqa: E402
-from screenlab.store import Store  # noqa: E402
-from screenlab.store.backup import backup_store, restore_store  # noqa: E402
+from screenlab.errors import ScreenlabError
+from screenlab.store import Store
+from screenlab.store.backup import backup_store, restore_store
 
 FIXTURES = Path(__file__).parent / "fixtures" / "stores"
 STORES = sorted(FIXTURES.glob("schema_*.duckdb.gz"))
@@ -43,7 +38,7 @@ def unpack(gz: Path, tmp_path: Path) -> tuple[Path, dict]:
 
 
 @pytest.mark.parametrize("gz", STORES, ids=lambda p: p.name)
-def test_fixture_store_opens_migrates_and_reads(gz, tmp_path):
+def test_fixture_store_opens_migrates_and_reads(gz, tmp_path, make_data):
     path, expected = unpack(gz, tmp_path)
     latest = Store.migrations()[-1][0]
     if expected["schema_version"] < latest:
@@ -79,7 +74,7 @@ def test_fixture_store_keeps_decisions_links_and_aliases_through_the_upgrade(gz,
     """Whatever the fixture holds of schema 2 (decisions, round links, aliases) reads back as written,
     also after a backup round trip; a schema-1 store gains the tables empty. And a campaign stored by
     the older code imports again as unchanged (its plates, catalysts and manifest compare equal)."""
-    from make_store_fixtures import plain_folder
+    from fixtures.make_store_fixtures import plain_folder  # tests/fixtures/, beside this file
 
     from screenlab.ingest import read_campaign
     from screenlab.store import decisions as D

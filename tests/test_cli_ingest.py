@@ -16,11 +16,8 @@ from pathlib import Path
 
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-from store_samples import write_campaign  # noqa: E402
-
-from screenlab.cli import main  # noqa: E402
-from screenlab.store import Store  # noqa: E402
+from screenlab.cli import main
+from screenlab.store import Store
 
 CLI = [sys.executable, "-c", "import sys; from screenlab.cli import main; sys.exit(main())"]
 
@@ -36,8 +33,8 @@ def n_rows(path: Path) -> int:
         return sum(1 for _ in csv.DictReader(fh))
 
 
-def test_ingest_a_folder_then_again(tmp_path, capsys):
-    folder = write_campaign(tmp_path / "c", name="aldol-1")
+def test_ingest_a_folder_then_again(tmp_path, capsys, write_sample_campaign):
+    folder = write_sample_campaign(tmp_path / "c", name="aldol-1")
     db = str(tmp_path / "s.duckdb")
     code, out, err = run(capsys, "ingest", str(folder), "--store", db)
     assert code == 0, err
@@ -48,11 +45,11 @@ def test_ingest_a_folder_then_again(tmp_path, capsys):
     assert len(Store(db).imports()) == 1
 
 
-def test_ingest_a_folder_of_campaigns_and_a_zip(tmp_path, capsys):
+def test_ingest_a_folder_of_campaigns_and_a_zip(tmp_path, capsys, write_sample_campaign):
     root = tmp_path / "round1"
-    write_campaign(root / "a", name="alpha")
-    write_campaign(root / "b", name="beta", plates=("Q1",))
-    src = write_campaign(tmp_path / "z", name="gamma", plates=("Z1",))
+    write_sample_campaign(root / "a", name="alpha")
+    write_sample_campaign(root / "b", name="beta", plates=("Q1",))
+    src = write_sample_campaign(tmp_path / "z", name="gamma", plates=("Z1",))
     with zipfile.ZipFile(root / "gamma.zip", "w") as zf:
         for f in src.iterdir():
             zf.write(f, f"gamma/{f.name}")
@@ -74,8 +71,8 @@ def test_ingest_a_folder_of_campaigns_and_a_zip(tmp_path, capsys):
     assert code == 0 and "alpha" in out and "readings" in out.splitlines()[0]
 
 
-def test_bad_file_lists_every_problem_and_writes_nothing(tmp_path, capsys):
-    folder = write_campaign(tmp_path / "bad", name="bad-one")
+def test_bad_file_lists_every_problem_and_writes_nothing(tmp_path, capsys, write_sample_campaign):
+    folder = write_sample_campaign(tmp_path / "bad", name="bad-one")
     with open(folder / "readings.csv", "a") as fh:
         fh.write("P1,Z99,x,5\nP9,A1,10,3\n")
     db = tmp_path / "s.duckdb"
@@ -88,10 +85,10 @@ def test_bad_file_lists_every_problem_and_writes_nothing(tmp_path, capsys):
     assert Store(db).campaign_names() == []
 
 
-def test_one_bad_campaign_does_not_stop_the_others(tmp_path, capsys):
+def test_one_bad_campaign_does_not_stop_the_others(tmp_path, capsys, write_sample_campaign):
     root = tmp_path / "r"
-    write_campaign(root / "good", name="good")
-    bad = write_campaign(root / "worse", name="worse")
+    write_sample_campaign(root / "good", name="good")
+    bad = write_sample_campaign(root / "worse", name="worse")
     (bad / "plates.csv").write_text("plate,format,temperature_c\nP1,97,40\nP2,96,50\n")
     db = tmp_path / "s.duckdb"
     code, out, err = run(capsys, "ingest", str(root), "--store", str(db))
@@ -101,10 +98,10 @@ def test_one_bad_campaign_does_not_stop_the_others(tmp_path, capsys):
     assert Store(db).campaign_names() == ["good"]
 
 
-def test_usage_errors_exit_2(tmp_path, capsys):
+def test_usage_errors_exit_2(tmp_path, capsys, write_sample_campaign):
     code, _, err = run(capsys, "ingest", str(tmp_path / "nowhere"), "--store", str(tmp_path / "s.duckdb"))
     assert code == 2 and "does not exist" in err
-    folder = write_campaign(tmp_path / "c")
+    folder = write_sample_campaign(tmp_path / "c")
     code, _, err = run(capsys, "ingest", str(folder), "--store", str(tmp_path / "no" / "dir" / "s.duckdb"))
     assert code == 2 and "does not exist" in err
     with pytest.raises(SystemExit) as exc:
@@ -112,9 +109,9 @@ def test_usage_errors_exit_2(tmp_path, capsys):
     assert exc.value.code == 2
 
 
-def test_several_paths_in_one_call(tmp_path, capsys):
-    a = write_campaign(tmp_path / "a", name="alpha")
-    b = write_campaign(tmp_path / "b", name="beta", plates=("Q1",))
+def test_several_paths_in_one_call(tmp_path, capsys, write_sample_campaign):
+    a = write_sample_campaign(tmp_path / "a", name="alpha")
+    b = write_sample_campaign(tmp_path / "b", name="beta", plates=("Q1",))
     (tmp_path / "empty").mkdir()
     db = str(tmp_path / "s.duckdb")
     code, out, err = run(capsys, "ingest", str(a), str(tmp_path / "empty"), str(b), "--store", db)
@@ -134,11 +131,11 @@ def test_folder_without_campaign_is_a_data_error(tmp_path, capsys):
     assert code == 1 and "no campaign" in err
 
 
-def test_changed_plate_refused_then_replaced_and_dry_run(tmp_path, capsys):
+def test_changed_plate_refused_then_replaced_and_dry_run(tmp_path, capsys, write_sample_campaign):
     db = str(tmp_path / "s.duckdb")
-    folder = write_campaign(tmp_path / "c", name="swap", plates=("P1", "P2"))
+    folder = write_sample_campaign(tmp_path / "c", name="swap", plates=("P1", "P2"))
     assert run(capsys, "ingest", str(folder), "--store", db)[0] == 0
-    write_campaign(folder, name="swap", plates=("P1", "P2"), k_scale=1.5)   # new readings for both plates
+    write_sample_campaign(folder, name="swap", plates=("P1", "P2"), k_scale=1.5)   # new readings for both plates
     code, out, err = run(capsys, "ingest", str(folder), "--store", db)
     assert code == 1 and "refused" in err and "P1 (readings)" in err and "P2 (readings)" in err
     assert "--replace" in err
@@ -150,14 +147,14 @@ def test_changed_plate_refused_then_replaced_and_dry_run(tmp_path, capsys):
     hist = Store(db).imports("swap")
     assert hist["status"].tolist() == ["imported", "replaced"]
     # a new plate in the same folder is added
-    write_campaign(folder, name="swap", plates=("P1", "P2", "P3"), k_scale=1.5)
+    write_sample_campaign(folder, name="swap", plates=("P1", "P2", "P3"), k_scale=1.5)
     code, out, _ = run(capsys, "ingest", str(folder), "--store", db)
     assert code == 0 and "added 1 plate (P3)" in out
 
 
-def test_store_from_the_environment(tmp_path, capsys, monkeypatch):
+def test_store_from_the_environment(tmp_path, capsys, monkeypatch, write_sample_campaign):
     monkeypatch.setenv("SCREENLAB_STORE", str(tmp_path / "env.duckdb"))
-    folder = write_campaign(tmp_path / "c", name="envy", plates=("P1",))
+    folder = write_sample_campaign(tmp_path / "c", name="envy", plates=("P1",))
     assert run(capsys, "ingest", str(folder))[0] == 0
     assert (tmp_path / "env.duckdb").exists()
     code, out, _ = run(capsys, "campaigns", "--format", "json")
@@ -169,9 +166,9 @@ def test_campaigns_without_a_store(tmp_path, capsys):
     assert code == 1 and "no store at" in err
 
 
-def test_busy_store_from_a_real_subprocess(tmp_path):
+def test_busy_store_from_a_real_subprocess(tmp_path, write_sample_campaign):
     db = tmp_path / "busy.duckdb"
-    folder = write_campaign(tmp_path / "c", name="busy", plates=("P1",))
+    folder = write_sample_campaign(tmp_path / "c", name="busy", plates=("P1",))
     Store(db).campaign_names()
     holder = subprocess.Popen(
         [sys.executable, "-c", "import sys, duckdb; con = duckdb.connect(sys.argv[1]); print('ready', flush=True); "

@@ -5,17 +5,15 @@ from __future__ import annotations
 import io
 import json
 import shutil
-import sys
 import tomllib
 from pathlib import Path
 
 import pandas as pd
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-from rounds import ROUND1, round2_readings  # noqa: E402
+from rounds import ROUND1, round2_readings
 
-from screenlab.cli import main  # noqa: E402
+from screenlab.cli import main
 
 NOTE = "RU-01 and RU-02 lead; RU-04 is the safe third. Confirm at 50-70 C."
 

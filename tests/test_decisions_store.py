@@ -9,26 +9,21 @@ from __future__ import annotations
 
 import dataclasses
 import shutil
-import sys
 from datetime import datetime, timedelta, timezone
-from pathlib import Path
 
 import pandas as pd
 import pytest
+from rounds import NOTE, ROUND1, ROUND2, add_second_round, next_round_folder  # tests/rounds.py
 
-sys.path.insert(0, str(Path(__file__).parent))
-from rounds import NOTE, ROUND1, ROUND2, add_second_round, next_round_folder  # noqa: E402
-from store_samples import write_campaign  # noqa: E402
-
-from screenlab.errors import NotFoundError, ScreenlabError, UsageError, ValidationError  # noqa: E402
-from screenlab.export.decision import default_author, draft_decision  # noqa: E402
-from screenlab.ingest import read_campaign  # noqa: E402
-from screenlab.pipeline import analyse  # noqa: E402
-from screenlab.stats.ranking import rank_candidates  # noqa: E402
-from screenlab.store import Store  # noqa: E402
-from screenlab.store import decisions as D  # noqa: E402
-from screenlab.store.backup import backup_store, restore_store  # noqa: E402
-from screenlab.synthetic import synthetic_campaign  # noqa: E402
+from screenlab.errors import NotFoundError, ScreenlabError, UsageError, ValidationError
+from screenlab.export.decision import default_author, draft_decision
+from screenlab.ingest import read_campaign
+from screenlab.pipeline import analyse
+from screenlab.stats.ranking import rank_candidates
+from screenlab.store import Store
+from screenlab.store import decisions as D
+from screenlab.store.backup import backup_store, restore_store
+from screenlab.synthetic import synthetic_campaign
 
 ISSUE_COLUMNS = ["decision", "campaign", "created_at", "author", "metric", "temperature_c", "catalysts", "note",
                  "supersedes"]
@@ -132,8 +127,8 @@ def test_recording_is_refused_without_note_on_read_only_or_changed_data(tmp_path
     assert D.decisions(store).empty
 
 
-def test_campaign_version_follows_the_data_not_the_import(tmp_path):
-    folder = write_campaign(tmp_path / "c", "vers")
+def test_campaign_version_follows_the_data_not_the_import(tmp_path, write_sample_campaign):
+    folder = write_sample_campaign(tmp_path / "c", "vers")
     store = Store(tmp_path / "s.duckdb")
     store.import_campaign(read_campaign(folder))
     v1 = D.campaign_version(store, "vers")
@@ -185,8 +180,8 @@ def test_a_contradicting_round_link_is_refused(demo_store_copy, tmp_path):
     ('parent = "first"\ndecision = 0', "must be the number of a recorded decision"),
     ("decision = 3", "give 'parent' too"),
 ])
-def test_round_link_keys_are_checked_in_the_manifest(tmp_path, lines, message):
-    folder = write_campaign(tmp_path / "c", "same")
+def test_round_link_keys_are_checked_in_the_manifest(tmp_path, lines, message, write_sample_campaign):
+    folder = write_sample_campaign(tmp_path / "c", "same")
     toml = (folder / "campaign.toml").read_text()
     (folder / "campaign.toml").write_text(toml.replace('reaction = "A + B -> C"\n', f'reaction = "A + B -> C"\n{lines}\n'))
     with pytest.raises(ValidationError) as exc:
@@ -194,10 +189,10 @@ def test_round_link_keys_are_checked_in_the_manifest(tmp_path, lines, message):
     assert any(message in p.message and p.file == "campaign.toml" for p in exc.value.problems), exc.value
 
 
-def test_old_campaigns_stay_unchanged_on_reimport(tmp_path):
+def test_old_campaigns_stay_unchanged_on_reimport(tmp_path, write_sample_campaign):
     """The new manifest keys and the alias column are left out while unused: a campaign stored before
     imports again as unchanged."""
-    folder = write_campaign(tmp_path / "c", "plain")
+    folder = write_sample_campaign(tmp_path / "c", "plain")
     store = Store(tmp_path / "s.duckdb")
     store.import_campaign(read_campaign(folder))
     data = store.load_campaign("plain")
@@ -228,8 +223,8 @@ def test_alias_chains_are_followed():
 
 
 @pytest.mark.parametrize("alias, message", [("C1", "is the catalyst's own id"), ("C2", "id of another catalyst")])
-def test_alias_column_is_checked(tmp_path, alias, message):
-    folder = write_campaign(tmp_path / "c", "al")
+def test_alias_column_is_checked(tmp_path, alias, message, write_sample_campaign):
+    folder = write_sample_campaign(tmp_path / "c", "al")
     cats = pd.read_csv(folder / "catalysts.csv")
     cats["alias"] = ""
     cats.loc[cats["catalyst"] == "C1", "alias"] = alias

@@ -15,6 +15,7 @@ import pytest
 from scipy import constants, integrate, stats
 
 from screenlab import demo
+from screenlab.demo.common import csv_bytes
 from screenlab.plates import FORMATS, is_edge, parse_wells
 
 REPO = Path(__file__).resolve().parent.parent
@@ -399,7 +400,8 @@ def test_sites_follow_the_contract_formulas(main):
 
 @pytest.mark.filterwarnings("ignore::screenlab.errors.DataQualityWarning")  # the grid demo's notes
 def test_every_demo_campaign_reads_without_error():
-    ingest = pytest.importorskip("screenlab.ingest")
+    from screenlab import ingest
+
     found = ingest.find_campaigns(COMMITTED)
     assert sorted(Path(p).name for p in found) == sorted(demo.CAMPAIGNS)
     for folder in found:
@@ -413,7 +415,8 @@ def test_every_demo_campaign_reads_without_error():
 def test_grid_demo_is_the_generated_long_readings(tmp_path):
     """The campaign delivered as plate grids imports to exactly the readings of its long form
     (the generator's readings written as readings.csv)."""
-    ingest = pytest.importorskip("screenlab.ingest")
+    from screenlab import ingest
+
     for c in demo.build_campaigns():
         if c.name not in demo.GRID_CAMPAIGNS:
             continue
@@ -423,7 +426,7 @@ def test_grid_demo_is_the_generated_long_readings(tmp_path):
         long.mkdir()
         for f in ("campaign.toml", "catalysts.csv", "plates.csv", "layout.csv"):
             (long / f).write_bytes((COMMITTED / c.name / f).read_bytes())
-        (long / "readings.csv").write_bytes(demo._csv(c.readings))
+        (long / "readings.csv").write_bytes(csv_bytes(c.readings))
         with pytest.warns(Warning) as notes:
             grids = ingest.read_campaign(COMMITTED / c.name)
         pd.testing.assert_frame_equal(grids.data.readings, ingest.read_campaign(long).data.readings)
@@ -432,7 +435,6 @@ def test_grid_demo_is_the_generated_long_readings(tmp_path):
 
 
 def test_build_demo_store(tmp_path):
-    pytest.importorskip("screenlab.store")
     path = tmp_path / "demo.duckdb"
     first = demo.build_demo_store(path)
     assert [r.campaign for r in first] == sorted(demo.CAMPAIGNS)
@@ -445,10 +447,8 @@ def test_build_demo_store(tmp_path):
 @pytest.mark.filterwarnings("ignore::screenlab.errors.DataQualityWarning")  # the grid demo's notes
 def test_analysis_recovers_the_main_truth():
     """The analysis of the main campaign comes back close to the generating values."""
-    ingest = pytest.importorskip("screenlab.ingest")
-    kin = pytest.importorskip("screenlab.kinetics")
-    if not hasattr(kin, "analyse_kinetics"):
-        pytest.skip("kinetics not available")
+    from screenlab import ingest
+    from screenlab import kinetics as kin
     from screenlab.settings import AnalysisSettings
 
     data = ingest.read_campaign(COMMITTED / "th-screen-2026").data
@@ -471,10 +471,8 @@ def test_analysis_recovers_the_main_truth():
 @pytest.mark.filterwarnings("ignore::screenlab.errors.DataQualityWarning")  # the grid demo's notes
 def test_analysis_recovers_the_small_campaigns(name):
     """Absorbance (Beer-Lambert) and several-analyte campaigns: TOF and Ea close to the truth."""
-    ingest = pytest.importorskip("screenlab.ingest")
-    kin = pytest.importorskip("screenlab.kinetics")
-    if not hasattr(kin, "analyse_kinetics"):
-        pytest.skip("kinetics not available")
+    from screenlab import ingest
+    from screenlab import kinetics as kin
     from screenlab.settings import AnalysisSettings
 
     data = ingest.read_campaign(COMMITTED / name).data

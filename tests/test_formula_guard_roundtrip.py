@@ -8,7 +8,7 @@ import pandas as pd
 
 from screenlab.export.safe import neutralise_frame
 from screenlab.ingest import read_campaign
-from test_ingest_support import good_files
+from campaign_texts import good_files
 
 
 def test_guarded_ids_round_trip_through_export_and_import():

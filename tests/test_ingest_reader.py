@@ -19,7 +19,7 @@ from screenlab.errors import DataQualityWarning, ValidationError
 from screenlab.ingest import extract_zip, find_campaigns, read_campaign
 from screenlab.ingest import sources
 from screenlab.model import DEFAULT_ANALYTE, CampaignData
-from test_ingest_support import GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, good_files, good_readings, write_campaign
+from campaign_texts import GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, good_files, good_readings, write_campaign
 
 
 def enc(d: dict[str, str]) -> dict[str, bytes]:
@@ -443,3 +443,11 @@ def test_speed_260k_readings():
         read_campaign(f)
     print(f"found the bad reading in {time.perf_counter() - t0:.2f} s")
     assert [p.row for p in ei.value.problems] == [12345 + 2]
+
+
+def test_the_shared_good_campaign_reads(tmp_path):
+    from screenlab.ingest import read_campaign
+
+    res = read_campaign(write_campaign(tmp_path / "c"))
+    assert len(res.data.wells) == 8
+    assert len(res.data.readings) == 28

@@ -1,28 +1,29 @@
 """One test per validation message of screenlab.ingest (each names file, row, column).
 
-Campaigns are built in memory from the synthetic good campaign of test_ingest_support and fed
+Campaigns are built in memory from the synthetic good campaign of tests/campaign_texts.py and fed
 to read_campaign as an upload dict (file name -> bytes), the same path the app uses.
 """
 from __future__ import annotations
 
 import re
 
+import numpy as np
+import pandas as pd
 import pytest
+from campaign_texts import GOOD_CATALYSTS, GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, edited_files, good_readings
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
+from screenlab import plates as platelib
 from screenlab.errors import ValidationError
 from screenlab.ingest import read_campaign
-from test_ingest_support import GOOD_CATALYSTS, GOOD_LAYOUT, GOOD_PLATES, GOOD_TOML, good_files, good_readings
+from screenlab.ingest import validate as v
+from screenlab.ingest.tables import RawTable, read_table
+from screenlab.model import ROLES
 
 
 def files(**edits) -> dict[str, bytes]:
-    content = good_files()
-    for key, val in edits.items():
-        name = key.replace("_csv", ".csv").replace("_xlsx", ".xlsx").replace("_toml", ".toml")
-        if val is None:
-            content.pop(name, None)
-        else:
-            content[name] = val
-    return {k: (v if isinstance(v, bytes) else v.encode()) for k, v in content.items()}
+    return edited_files(**edits)
 
 
 def problems(**edits):
@@ -506,3 +507,209 @@ def test_every_problem_is_reported_and_message_capped_at_50():
     assert len(err.problems) >= 71
     assert "... and" in str(err) and str(err).count("\n  - ") == 50
     assert any(p.file == "plates.csv" for p in err.problems)
+
+
+# ----------------------------------------------------------------------------------- rules on random tables
+# The layout and readings checks on random tables (hypothesis) against each rule stated in a few
+# plain pandas lines: which rows a problem names, and the frame the check builds (rows, order and
+# values). The references are pandas (``isin``, ``duplicated``, ``merge``, ``to_numeric``,
+# ``sort_values``) and screenlab.plates.parse_wells for well names (tested in test_units_plates.py).
+
+RULE_PLATES = "plate,format,temperature_c\nP1,96,40\nP2,24,50\nP 3,384,60\n"
+RULE_CATALYSTS = "catalyst,molar_mass_g_mol\nC1,350\nC2,410\nREF,412.5\n"
+NUMBERS = ["1", "0.5", "2,5", "-1", "0", "", "na", "N/A", "nan", "inf", "x", "1e3", " 3 "]
+
+
+def _rows(problems, message: str) -> set[int]:
+    """Rows (file row numbers) of the problems whose message starts with ``message``."""
+    return {p.row for p in problems if p.message.startswith(message)}
+
+
+def _numbers(raw: pd.Series, decimal_comma: bool) -> np.ndarray:
+    """A numeric cell as pandas reads it (NaN for blank words, text and non-finite values)."""
+    text = raw.str.replace(",", ".", regex=False) if decimal_comma else raw
+    x = pd.to_numeric(text.where(~raw.str.lower().isin(v.NA_WORDS)), errors="coerce").to_numpy(dtype=float)
+    return np.where(np.isfinite(x), x, np.nan)
+
+
+def _plates_and_catalysts():
+    plates, _ = v.check_plates(read_table("plates.csv", RULE_PLATES.encode(), []), [])
+    catalysts, _ = v.check_catalysts(read_table("catalysts.csv", RULE_CATALYSTS.encode(), []), [])
+    return plates, catalysts
+
+
+_LAYOUT_ROW = st.fixed_dictionaries({
+    "plate": st.sampled_from(["P1", "P2", "P 3", "PX", "", "p1"]),
+    "well": st.sampled_from(["A1", "A2", "B3", "H12", "a01", " b2 ", "Z99", "", "H13", "P24", "A 1"]),
+    "role": st.sampled_from(["sample", "Sample", "blank", "BLANK", "reference", "empty", "", "smaple"]),
+    "catalyst": st.sampled_from(["C1", "C2", "REF", "CX", ""]),
+    "loading": st.sampled_from(NUMBERS),
+    "loading_unit": st.sampled_from(["umol", "µmol", "mg", "mol%", "kg", ""]),
+    "substrate_conc": st.sampled_from(NUMBERS),
+    "volume": st.sampled_from(NUMBERS),
+    "temperature_c": st.sampled_from(["", "45", "x"]),
+    "solvent": st.sampled_from(["toluene", "THF", ""]),
+})
+
+
+@given(rows=st.lists(_LAYOUT_ROW, max_size=40), delim=st.sampled_from([",", ";"]), presorted=st.booleans())
+@settings(max_examples=80, deadline=None)
+def test_layout_rules_on_random_tables(rows, delim, presorted):
+    header = ["plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc", "volume",
+              "temperature_c", "solvent"]
+    lines = [delim.join(r[c].replace(delim, ".") for c in header) for r in rows]  # "2,5" only with ";"
+    if presorted:  # as a writer would: plate by plate
+        lines.sort()
+    data = (delim.join(header) + "\n" + "\n".join(lines) + "\n").encode()
+    plates, catalysts = _plates_and_catalysts()
+    problems: list = []
+    t = read_table("layout.csv", data, problems)
+    wells, factors = v.check_layout(t, problems, plates=plates, catalysts=catalysts, conc_factor=1.0,
+                                    volume_factor=1e3)
+    f, rowno = t.frame, t.rows
+    role = f["role"].str.lower()
+    parsed = platelib.parse_wells(f["well"].to_numpy(dtype=object))
+    known = f["plate"].isin(plates["plate"])
+    cat = role.isin(["sample", "reference"])
+    at = lambda mask: set(rowno[np.asarray(mask, dtype=bool)].tolist())  # noqa: E731
+    # which rows each rule names
+    assert _rows(problems, "a role is required") == at(role == "")
+    assert _rows(problems, "unknown role") == at((role != "") & ~role.isin(ROLES))
+    assert _rows(problems, "a plate id is required") == at(f["plate"] == "")
+    assert _rows(problems, "unknown plate") == at((f["plate"] != "") & ~known)
+    assert _rows(problems, "not a well name") == at(parsed["well"].isna())
+    assert _rows(problems, "a blank well must not name a catalyst") == at((role == "blank") & (f["catalyst"] != ""))
+    known_cat = f["catalyst"].isin(["C1", "C2", "REF"])
+    assert _rows(problems, "unknown catalyst") == at(cat & (f["catalyst"] != "") & ~known_cat)
+    valid = parsed["well"].notna().to_numpy() & (f["plate"] != "").to_numpy()
+    keyed = pd.DataFrame({"plate": f["plate"], "well": parsed["well"], "row": rowno})[valid]
+    dup = keyed.duplicated(["plate", "well"], keep="first")
+    first = keyed.groupby(["plate", "well"])["row"].transform("first")
+    want = {(int(r), f"duplicate well in the layout (first on row {int(fr)})")
+            for r, fr in zip(keyed["row"][dup], first[dup])}
+    assert {(p.row, p.message) for p in problems if p.message.startswith("duplicate well")} == want
+    assert factors == ("solvent",)
+    # the frame: every row, sorted by plate (text), row and column; numbers in canonical units; a
+    # well's own temperature, else its plate's
+    own_t = _numbers(f["temperature_c"], t.decimal_comma)
+    plate_t = f["plate"].map(dict(zip(plates["plate"], plates["temperature_c"]))).to_numpy(dtype=float)
+    ref = pd.DataFrame({"plate": f["plate"], "well": parsed["well"], "row": parsed["row"], "col": parsed["col"],
+                        "role": role,
+                        "conc": np.where(role == "empty", np.nan, _numbers(f["substrate_conc"], t.decimal_comma)),
+                        "vol": np.where(role == "empty", np.nan, _numbers(f["volume"], t.decimal_comma) * 1e3),
+                        "loading": np.where(cat, _numbers(f["loading"], t.decimal_comma), np.nan),
+                        "solvent": f["solvent"], "temperature_c": np.where(np.isfinite(own_t), own_t, plate_t)})
+    ref = ref.sort_values(["plate", "row", "col"], kind="stable").reset_index(drop=True)
+    assert wells["plate"].tolist() == ref["plate"].tolist() and wells["role"].tolist() == ref["role"].tolist()
+    assert wells["well"].astype(object).where(wells["well"].notna(), None).tolist() == \
+        ref["well"].astype(object).where(ref["well"].notna(), None).tolist()
+    np.testing.assert_array_equal(wells[["row", "col"]].to_numpy(), ref[["row", "col"]].to_numpy())
+    np.testing.assert_array_equal(wells["substrate_conc_mM"].to_numpy(), ref["conc"].to_numpy())
+    np.testing.assert_array_equal(wells["volume_uL"].to_numpy(), ref["vol"].to_numpy())
+    np.testing.assert_array_equal(wells["loading"].to_numpy(), ref["loading"].to_numpy())
+    assert wells["solvent"].tolist() == ref["solvent"].tolist()
+    np.testing.assert_array_equal(wells["temperature_c"].to_numpy(), ref["temperature_c"].to_numpy())
+
+
+_LAYOUT = (b"plate,well,role,catalyst,loading,loading_unit,substrate_conc,volume\n"
+           b"P1,A1,sample,C1,1,umol,10,100\nP1,B2,empty,,,,,\nP2,a01,blank,,,,10,100\n"
+           b"P1,H12,reference,REF,1,umol,10,100\nP1,A1,blank,,,,10,100\n")
+_READING_ROW = st.tuples(st.sampled_from(["P1", "P2", "PX", "", "P 3"]),
+                         st.sampled_from(["A1", "a01", "B2", "H12", "Z9", "", "A2"]),
+                         st.sampled_from(["0", "1", "1.0", "2.5", "", "x", "-1", "inf"]),
+                         st.sampled_from(["1", "50", "101", "", "nan", "0.5", "-3", "x"]),
+                         st.sampled_from(["P", "B1", ""]))
+
+
+@given(rows=st.lists(_READING_ROW, max_size=50), analyte=st.booleans(), presorted=st.booleans(),
+       cross=st.booleans())
+@settings(max_examples=80, deadline=None)
+def test_readings_rules_on_random_tables(rows, analyte, presorted, cross):
+    plates, catalysts = _plates_and_catalysts()
+    wells, _ = v.check_layout(read_table("layout.csv", _LAYOUT, []), [], plates=plates, catalysts=catalysts,
+                              conc_factor=1.0, volume_factor=1.0)
+    header = ["plate", "well", "time", "value"] + (["analyte"] if analyte else [])
+    lines = [",".join(r[:len(header)]) for r in rows]
+    if presorted:
+        lines.sort()
+    problems: list = []
+    t = read_table("readings.csv", ("\n".join([",".join(header)] + lines) + "\n").encode(), problems)
+    info = {"kind": "yield", "scale": "percent", "time_factor": 1 / 60, "analytes_declared": analyte,
+            "main": "P", "byproducts": ("B1",)}
+    out, _ = v.check_readings(t, problems, wells=wells if cross else None, plates=plates if cross else None,
+                              info=info)
+    f, rowno = t.frame, t.rows
+    at = lambda mask: set(rowno[np.asarray(mask, dtype=bool)].tolist())  # noqa: E731
+    canon = platelib.parse_wells(f["well"].to_numpy(dtype=object))["well"]
+    time_h = _numbers(f["time"], False) / 60
+    value = _numbers(f["value"], False)
+    an = f["analyte"] if analyte else pd.Series("product", index=f.index)
+    assert _rows(problems, "a plate id is required") == at(f["plate"] == "")
+    assert _rows(problems, "not a well name") == at(canon.isna())
+    assert _rows(problems, "a time is required") == at(f["time"] == "")
+    assert _rows(problems, "time must be >= 0") == at(time_h < 0)
+    assert _rows(problems, "a percent yield must lie in") == at((value < -5) | (value > 110))
+    known = f["plate"].isin(plates["plate"])
+    if cross:
+        assert _rows(problems, "unknown plate") == at((f["plate"] != "") & ~known)
+        first = wells.drop_duplicates(["plate", "well"])  # a repeated layout key: its first row counts
+        hit = pd.DataFrame({"plate": f["plate"], "well": canon}).merge(first[["plate", "well", "role"]],
+                                                                        on=["plate", "well"], how="left")
+        placed = known & canon.notna()
+        assert _rows(problems, "reading for a well that is not in layout.csv") == at(placed & hit["role"].isna())
+        assert _rows(problems, "reading on a well marked empty") == at(placed & (hit["role"] == "empty"))
+    else:
+        assert not _rows(problems, "unknown plate") and not _rows(problems, "reading for a well")
+    valid = np.isfinite(time_h) & canon.notna().to_numpy() & (f["plate"] != "").to_numpy()
+    keyed = pd.DataFrame({"plate": f["plate"], "well": canon, "analyte": an, "time": time_h, "row": rowno})[valid]
+    dup = keyed.duplicated(["plate", "well", "analyte", "time"], keep="first")
+    assert _rows(problems, "duplicate reading") == set(keyed["row"][dup].tolist())
+    # the frame: every row, sorted by plate, well, analyte and time (text in code-point order, missing last)
+    ref = pd.DataFrame({"plate": f["plate"], "well": canon, "analyte": an, "time_h": time_h, "value": value})
+    ref = ref.astype({"plate": "str", "well": "str", "analyte": "str"})
+    ref = ref.sort_values(["plate", "well", "analyte", "time_h"], kind="stable").reset_index(drop=True)
+    pd.testing.assert_frame_equal(out, ref)
+
+
+_CELLS = st.sampled_from(["1", "2.5", "-0", "1e-3", "1,5", "", "na", "N/A", "null", "None", "nan", "+nan", "-NaN",
+                          "inf", "-Infinity", "x", "1.2.3", "0x10", " 4", "1_000", "7"])
+
+
+@given(cells=st.lists(_CELLS, max_size=30), decimal_comma=st.booleans(), need=st.booleans())
+@settings(max_examples=200, deadline=None)
+def test_a_number_cell_reads_as_pandas_reads_it(cells, decimal_comma, need):
+    """``Checker.number``: pandas ``to_numeric`` is the reference for what a cell holds; blank words
+    are no value (reported only where required), non-finite values and text are reported."""
+    frame = pd.DataFrame({"x": pd.array(cells, dtype="str")})
+    table = RawTable("t.csv", frame, np.arange(len(cells), dtype=np.int64) + 2, decimal_comma=decimal_comma)
+    problems: list = []
+    got, ok = v.Checker(table, problems).number("x", required=need, what="needed")
+    raw = frame["x"]
+    blank = raw.str.lower().isin(v.NA_WORDS).to_numpy()
+    text = raw.str.replace(",", ".", regex=False) if decimal_comma else raw
+    x = pd.to_numeric(text.where(~blank), errors="coerce").to_numpy(dtype=float)
+    nan_word = raw.str.lower().isin(["nan", "+nan", "-nan"]).to_numpy()
+    np.testing.assert_array_equal(got, np.where(np.isfinite(x), x, np.nan))
+    np.testing.assert_array_equal(ok, np.isfinite(x))
+    rows = np.arange(len(cells)) + 2
+    assert _rows(problems, "is not a number") == set(rows[~blank & np.isnan(x) & ~nan_word].tolist())
+    assert _rows(problems, "is not a finite number") == set(rows[~blank & (np.isinf(x) | nan_word)].tolist())
+    assert _rows(problems, "needed") == (set(rows[blank].tolist()) if need else set())
+
+
+@given(cells=st.lists(st.sampled_from(["a", "b", "B", "", "ü", "a b"]), max_size=30), missing_first=st.booleans(),
+       items=st.lists(st.sampled_from(["a", "b", "B", "", "ü", "a b"]), max_size=4))
+@settings(max_examples=150, deadline=None)
+def test_distinct_values_give_what_pandas_gives_per_row(cells, missing_first, items):
+    """``Distinct`` works once per distinct text and spreads to the rows: the same as pandas
+    ``Series.isin`` and ``Series.map`` on every row."""
+    s = pd.Series(pd.array(cells, dtype="str"))
+    if len(s) and missing_first:
+        s.iloc[0] = None
+    d = v.Distinct(s)
+    for given_ in (items, set(items), pd.Series(items, dtype="str"), pd.Index(items, dtype="str"), items + [None]):
+        np.testing.assert_array_equal(d.spread(d.isin(given_)), s.isin(list(given_)).to_numpy())
+    keys = pd.Index(sorted(set(items)), dtype="str")
+    mapping = pd.Series(np.arange(len(keys), dtype=float) + 0.5, index=keys)
+    np.testing.assert_array_equal(d.spread(d.lookup(mapping)), s.map(mapping).to_numpy(dtype=float))
+    pd.testing.assert_extension_array_equal(d.take(d.values), pd.array(s.array, dtype="str"))

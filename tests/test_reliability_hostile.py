@@ -18,7 +18,6 @@ from __future__ import annotations
 import csv
 import io
 import json
-import sys
 import zipfile
 from pathlib import Path
 
@@ -28,15 +27,14 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-sys.path.insert(0, str(Path(__file__).parent))
-from test_ingest_support import GOOD_TOML, good_files  # noqa: E402
+from campaign_texts import GOOD_TOML, good_files
 
-from screenlab.cli import main  # noqa: E402
-from screenlab.errors import ValidationError  # noqa: E402
-from screenlab.ingest import read_campaign  # noqa: E402
-from screenlab.model import CampaignData  # noqa: E402
-from screenlab.store import ImportRefusedError, Store  # noqa: E402
-from screenlab.synthetic import SyntheticSpec, write_campaign_folder  # noqa: E402
+from screenlab.cli import main
+from screenlab.errors import ValidationError
+from screenlab.ingest import read_campaign
+from screenlab.model import CampaignData
+from screenlab.store import ImportRefusedError, Store
+from screenlab.synthetic import SyntheticSpec, write_campaign_folder
 
 TRIGGERS = ("=", "+", "-", "@", "\t", "\r")
 

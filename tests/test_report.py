@@ -4,22 +4,19 @@ from __future__ import annotations
 
 import math
 import shutil
-import sys
 import xml.etree.ElementTree as ET
 from html.parser import HTMLParser
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-from rounds import NOTE, ROUND1, ROUND2, add_second_round  # noqa: E402
+from rounds import NOTE, ROUND1, ROUND2, add_second_round
 
-from screenlab.cli import main  # noqa: E402
-from screenlab.cli.report_cmd import report_for  # noqa: E402
-from screenlab.export.shortlist import SAFETY_NOTE  # noqa: E402
-from screenlab.store import Store  # noqa: E402
-from screenlab.viz.svg import _Axis, arrhenius_svg, forest_svg, log_ticks, nice_ticks  # noqa: E402
+from screenlab.cli import main
+from screenlab.cli.report_cmd import report_for
+from screenlab.export.shortlist import SAFETY_NOTE
+from screenlab.store import Store
+from screenlab.viz.svg import _Axis, arrhenius_svg, forest_svg, log_ticks, nice_ticks
 
 
 @pytest.fixture(scope="module")

@@ -20,18 +20,14 @@ import sys
 import textwrap
 import time
 from dataclasses import replace as dc_replace
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-from store_samples import make_data, write_campaign  # noqa: E402
-
-from screenlab.errors import NotFoundError, ScreenlabError, StoreBusyError, ValidationError  # noqa: E402
-from screenlab.store import BUILTIN_EXTENSIONS, ImportRefusedError, Store  # noqa: E402
-from screenlab.store import db as store_db  # noqa: E402
+from screenlab.errors import NotFoundError, ScreenlabError, StoreBusyError, ValidationError
+from screenlab.store import BUILTIN_EXTENSIONS, ImportRefusedError, Store
+from screenlab.store import connection, writer
 
 FRAMES = ("catalysts", "plates", "wells", "readings")
 
@@ -81,10 +77,10 @@ def test_a_failing_migration_step_leaves_the_previous_schema(tmp_path, monkeypat
     Store(path).campaign_names()
     good = Store.migrations()
     bad = good + [(good[-1][0] + 1, "broken", "CREATE TABLE half_done (a INTEGER);\nSELECT * FROM no_such_table;")]
-    monkeypatch.setattr(Store, "migrations", staticmethod(lambda: bad))
+    monkeypatch.setattr(connection, "migrations", lambda: bad)
     with pytest.raises(ScreenlabError):
         Store(path).campaign_names()
-    monkeypatch.setattr(Store, "migrations", staticmethod(lambda: good))
+    monkeypatch.setattr(connection, "migrations", lambda: good)
     s = Store(path)
     assert s.schema_versions() == [v for v, _, _ in good]
     with s._connect() as con:
@@ -94,14 +90,14 @@ def test_a_failing_migration_step_leaves_the_previous_schema(tmp_path, monkeypat
 def test_newer_schema_is_refused(tmp_path, monkeypatch):
     path = tmp_path / "n.duckdb"
     Store(path).campaign_names()
-    monkeypatch.setattr(Store, "migrations", staticmethod(lambda: [(0, "old", "")]))
+    monkeypatch.setattr(connection, "migrations", lambda: [(0, "old", "")])
     with pytest.raises(ScreenlabError, match="newer than this"):
         Store(path).campaign_names()
 
 
 # ---------------------------------------------------------------------------------- round trips
 
-def test_round_trip_of_built_data_is_exact(store):
+def test_round_trip_of_built_data_is_exact(store, make_data):
     data = make_data(analytes=["P", "B1"])
     report = store.import_campaign(data)
     assert report.status == "imported" and report.plates_added == ("P1", "P2")
@@ -109,10 +105,10 @@ def test_round_trip_of_built_data_is_exact(store):
     assert_same(data, store.load_campaign(data.name))
 
 
-def test_round_trip_of_reader_output_matches_the_csv_files(store, tmp_path):
+def test_round_trip_of_reader_output_matches_the_csv_files(store, tmp_path, write_sample_campaign):
     from screenlab.ingest import read_campaign
 
-    folder = write_campaign(tmp_path / "camp", name="csv-camp", plates=("A", "B", "C"))
+    folder = write_sample_campaign(tmp_path / "camp", name="csv-camp", plates=("A", "B", "C"))
     result = read_campaign(folder)
     report = store.import_campaign(result)
     assert report.status == "imported"
@@ -136,7 +132,7 @@ def test_round_trip_of_reader_output_matches_the_csv_files(store, tmp_path):
     assert files.loc["readings.csv", "n_rows"] == len(rows)
 
 
-def test_str_nullable_and_timestamp_columns_round_trip(store):
+def test_str_nullable_and_timestamp_columns_round_trip(store, make_data):
     base = make_data("dtypes")
     plates = base.plates.copy()
     plates["run_date"] = pd.to_datetime(["2026-03-01 08:30", None]).as_unit("us")
@@ -159,13 +155,13 @@ def test_str_nullable_and_timestamp_columns_round_trip(store):
     assert store.imports()["imported_at"].dtype.kind == "M"
 
 
-def test_unknown_campaign_is_not_found(store):
+def test_unknown_campaign_is_not_found(store, make_data):
     store.import_campaign(make_data("one"))
     with pytest.raises(NotFoundError, match="stored campaigns: one"):
         store.load_campaign("two")
 
 
-def test_frames_that_break_the_contract_are_refused(store):
+def test_frames_that_break_the_contract_are_refused(store, make_data):
     data = make_data("dup")
     wells = pd.concat([data.wells, data.wells.iloc[[5]]], ignore_index=True)
     with pytest.raises(ValidationError) as err:
@@ -176,7 +172,7 @@ def test_frames_that_break_the_contract_are_refused(store):
 
 # ---------------------------------------------------------------------------------- import semantics
 
-def test_reimport_of_unchanged_data_adds_nothing(store):
+def test_reimport_of_unchanged_data_adds_nothing(store, make_data):
     data = make_data()
     store.import_campaign(data)
     counts, version = store.table_counts(), store.data_version()
@@ -193,7 +189,7 @@ def test_reimport_of_unchanged_data_adds_nothing(store):
     assert store.table_counts() == counts
 
 
-def test_a_folder_with_new_plates_adds_them(store):
+def test_a_folder_with_new_plates_adds_them(store, make_data):
     store.import_campaign(make_data(plates=("P1", "P2")))
     bigger = make_data(plates=("P1", "P2", "P3"))
     report = store.import_campaign(bigger)
@@ -210,7 +206,7 @@ def test_a_folder_with_new_plates_adds_them(store):
     assert store.campaigns().loc[0, "plates"] == 4
 
 
-def test_new_factor_and_new_catalyst_extend_the_campaign(store):
+def test_new_factor_and_new_catalyst_extend_the_campaign(store, make_data):
     store.import_campaign(make_data(plates=("P1",), solvent=False))
     more = make_data(plates=("P2",))
     cats = pd.concat([more.catalysts, more.catalysts.iloc[[0]].assign(catalyst="C99", name="new one")],
@@ -224,7 +220,7 @@ def test_new_factor_and_new_catalyst_extend_the_campaign(store):
     assert back.catalysts["catalyst"].tolist()[-1] == "C99"
 
 
-def test_changed_plates_are_refused_with_their_names(store):
+def test_changed_plates_are_refused_with_their_names(store, make_data):
     data = make_data(plates=("P1", "P2", "P3"))
     store.import_campaign(data)
     counts = store.table_counts()
@@ -244,7 +240,7 @@ def test_changed_plates_are_refused_with_their_names(store):
     assert store.table_counts() == counts
 
 
-def test_replace_keeps_history_and_queries_see_only_current_rows(store):
+def test_replace_keeps_history_and_queries_see_only_current_rows(store, make_data):
     data = make_data(plates=("P1", "P2"))
     store.import_campaign(data)
     readings = data.readings.copy()
@@ -272,7 +268,7 @@ def test_replace_keeps_history_and_queries_see_only_current_rows(store):
     assert_same(data, store.load_campaign(data.name))
 
 
-def test_changed_manifest_or_catalyst_needs_replace(store):
+def test_changed_manifest_or_catalyst_needs_replace(store, make_data):
     data = make_data()
     store.import_campaign(data)
     m2 = dc_replace(data.manifest, analysis={"reference_temperature_c": 70.0}, description="second look")
@@ -292,7 +288,7 @@ def test_changed_manifest_or_catalyst_needs_replace(store):
     assert store.campaigns().iloc[0]["description"] == "second look"
 
 
-def test_dry_run_writes_nothing(store):
+def test_dry_run_writes_nothing(store, make_data):
     data = make_data()
     report = store.import_campaign(data, dry_run=True)
     assert report.status == "dry_run" and report.plates_added == ("P1", "P2") and report.import_id is None
@@ -303,15 +299,15 @@ def test_dry_run_writes_nothing(store):
 # ---------------------------------------------------------------------------------- atomicity
 
 @pytest.mark.parametrize("last", ["readings", "import_files"])
-def test_failure_while_writing_the_last_table_leaves_nothing(tmp_path, monkeypatch, last):
+def test_failure_while_writing_the_last_table_leaves_nothing(tmp_path, monkeypatch, last, write_sample_campaign):
     from screenlab.ingest import read_campaign
 
     store = Store(tmp_path / "a.duckdb")
-    first = read_campaign(write_campaign(tmp_path / "c1", name="atom", plates=("P1",)))
+    first = read_campaign(write_sample_campaign(tmp_path / "c1", name="atom", plates=("P1",)))
     store.import_campaign(first)
     before = store.table_counts()
     version = store.data_version()
-    real = store_db._bulk_insert
+    real = writer.bulk_insert
     seen = []
 
     def failing(con, table, frame):
@@ -321,22 +317,22 @@ def test_failure_while_writing_the_last_table_leaves_nothing(tmp_path, monkeypat
             raise RuntimeError("disk full (injected)")
         real(con, table, frame)
 
-    monkeypatch.setattr(store_db, "_bulk_insert", failing)
-    second = read_campaign(write_campaign(tmp_path / "c2", name="atom", plates=("P1", "P2")))
+    monkeypatch.setattr(writer, "bulk_insert", failing)
+    second = read_campaign(write_sample_campaign(tmp_path / "c2", name="atom", plates=("P1", "P2")))
     with pytest.raises(RuntimeError, match="injected"):
         store.import_campaign(second)
     assert last in seen
     if last == "import_files":
         assert seen[-1] == "import_files"      # it really is the last table written
-    monkeypatch.setattr(store_db, "_bulk_insert", real)
+    monkeypatch.setattr(writer, "bulk_insert", real)
     assert store.table_counts() == before and store.data_version() == version
     assert_same(first.data, store.load_campaign("atom"))
     # and a fresh store stays empty
     fresh = Store(tmp_path / "b.duckdb")
-    monkeypatch.setattr(store_db, "_bulk_insert", failing)
+    monkeypatch.setattr(writer, "bulk_insert", failing)
     with pytest.raises(RuntimeError):
         fresh.import_campaign(first)
-    monkeypatch.setattr(store_db, "_bulk_insert", real)
+    monkeypatch.setattr(writer, "bulk_insert", real)
     assert set(fresh.table_counts().values()) == {0} and fresh.campaign_names() == []
 
 
@@ -360,7 +356,7 @@ def test_duckdb_multi_statement_strings_are_not_atomic(tmp_path):
 
 # ---------------------------------------------------------------------------------- versions, size
 
-def test_data_version_changes_on_every_write(store):
+def test_data_version_changes_on_every_write(store, make_data):
     assert store.data_version() == "empty"
     store.import_campaign(make_data(plates=("P1",)))
     v1 = store.data_version()
@@ -374,7 +370,7 @@ def test_data_version_changes_on_every_write(store):
 
 
 @pytest.mark.slow
-def test_large_import_in_one_go(store):
+def test_large_import_in_one_go(store, make_data):
     big = make_data("big", plates=tuple(f"B{i}" for i in range(10)), fmt=384, times=tuple(range(0, 136, 2)))
     assert len(big.readings) > 260_000
     t0 = time.perf_counter()
@@ -389,10 +385,10 @@ def test_large_import_in_one_go(store):
 
 # ---------------------------------------------------------------------------------- environment
 
-def test_only_builtin_extensions_load_and_autoinstall_is_off(store, tmp_path):
+def test_only_builtin_extensions_load_and_autoinstall_is_off(store, tmp_path, write_sample_campaign):
     from screenlab.ingest import read_campaign
 
-    store.import_campaign(read_campaign(write_campaign(tmp_path / "c", name="ext")))
+    store.import_campaign(read_campaign(write_sample_campaign(tmp_path / "c", name="ext")))
     store.load_campaign("ext")
     store.campaigns()
     assert set(store.loaded_extensions()) <= BUILTIN_EXTENSIONS
@@ -448,7 +444,7 @@ def test_busy_timeout_from_the_environment(monkeypatch, tmp_path):
     monkeypatch.setenv("SCREENLAB_BUSY_TIMEOUT_S", "1.5")
     assert Store(tmp_path / "x.duckdb").busy_timeout_s == 1.5
     monkeypatch.delenv("SCREENLAB_BUSY_TIMEOUT_S")
-    assert Store(tmp_path / "x.duckdb").busy_timeout_s == store_db.DEFAULT_BUSY_TIMEOUT_S
+    assert Store(tmp_path / "x.duckdb").busy_timeout_s == connection.DEFAULT_BUSY_TIMEOUT_S
 
 
 def test_a_file_that_is_not_a_store_gives_a_message(tmp_path):

@@ -9,25 +9,29 @@ Settings come from the campaign's [analysis] table, overridden by the flags give
 """
 from __future__ import annotations
 
-
+from screenlab import schema
 from screenlab.cli.common import add_format_option, add_store_option, emit
 
-RATES_COLUMNS = ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", "n_wells",
-                 "rate_law", "censored", "rate_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "tof_max_per_h",
-                 "ton", "enhancement", "enhancement_ci_low", "enhancement_ci_high", "selectivity_pct",
-                 "selectivity_ci_low", "selectivity_ci_high", "ee_pct", "ee_ci_low", "ee_ci_high", "is_standard",
-                 "in_arrhenius_fit", "flags"]
-WELL_COLUMNS = ["plate", "well", "role", "catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
-                "method", "censored", "rate_mM_per_h", "rate_se_mM_per_h", "blank_rate_mM_per_h", "net_rate_mM_per_h",
-                "sites_umol", "tof_per_h", "tof_se_per_h", "tof_max_per_h", "ton", "enhancement",
-                "enhancement_ci_low", "enhancement_ci_high", "selectivity_pct", "selectivity_se", "ee_pct", "ee_se",
-                "noise_ratio", "outlier", "flags"]
-ARRHENIUS_COLUMNS = ["catalyst", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mol", "ea_se", "ea_ci_low",
-                     "ea_ci_high", "ln_a", "dh_kj_mol", "ds_j_mol_k", "dg_ref_kj_mol", "tof_ref_per_h",
-                     "tof_ref_ci_low", "tof_ref_ci_high", "delta_ea_kj_mol", "delta_ea_ci_low", "delta_ea_ci_high",
-                     "fit_df", "chi2_per_df", "curvature_p", "plate_scatter_ln", "left_out", "flags"]
-ORDERS_COLUMNS = ["catalyst", "temperature_c", "variable", "n_levels", "order", "order_se", "order_ci_low",
-                  "order_ci_high", "fixed", "tof_slope", "flags"]
+# the columns each command prints, checked against the frames' schemas (screenlab.schema)
+RATES_COLUMNS = schema.RATES.pick([
+    "catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", "n_wells", "rate_law",
+    "censored", "rate_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "tof_max_per_h", "ton", "enhancement",
+    "enhancement_ci_low", "enhancement_ci_high", "selectivity_pct", "selectivity_ci_low", "selectivity_ci_high",
+    "ee_pct", "ee_ci_low", "ee_ci_high", "is_standard", "in_arrhenius_fit", "flags"])
+WELL_COLUMNS = schema.TURNOVER.pick([
+    "plate", "well", "role", "catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
+    "method", "censored", "rate_mM_per_h", "rate_se_mM_per_h", "blank_rate_mM_per_h", "net_rate_mM_per_h",
+    "sites_umol", "tof_per_h", "tof_se_per_h", "tof_max_per_h", "ton", "enhancement", "enhancement_ci_low",
+    "enhancement_ci_high", "selectivity_pct", "selectivity_se", "ee_pct", "ee_se", "noise_ratio", "outlier",
+    "flags"], schema.SELECTIVITY)
+ARRHENIUS_COLUMNS = schema.ARRHENIUS.pick([
+    "catalyst", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mol", "ea_se", "ea_ci_low", "ea_ci_high", "ln_a",
+    "dh_kj_mol", "ds_j_mol_k", "dg_ref_kj_mol", "tof_ref_per_h", "tof_ref_ci_low", "tof_ref_ci_high",
+    "delta_ea_kj_mol", "delta_ea_ci_low", "delta_ea_ci_high", "fit_df", "chi2_per_df", "curvature_p",
+    "plate_scatter_ln", "left_out", "flags"])
+ORDERS_COLUMNS = schema.ORDERS.pick([
+    "catalyst", "temperature_c", "variable", "n_levels", "order", "order_se", "order_ci_low", "order_ci_high",
+    "fixed", "tof_slope", "flags"])
 
 
 def _common(p) -> None:

@@ -14,15 +14,17 @@ import math
 import sys
 from pathlib import Path
 
+from screenlab import schema
 from screenlab.cli.common import add_format_option, add_store_option, emit
 
-QUALITY_COLUMNS = ["plate", "temperature_c", "n_sample", "n_reference", "n_blank", "zprime", "robust_zprime", "ssmd",
-                   "blank_lod_mM_per_h", "sample_active_pct", "replicate_cv_median_pct", "reference_cv_pct",
-                   "blank_ratio", "blank_z", "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs",
-                   "reference_loo_t", "status", "flags"]
-RANK_TABLE_COLUMNS = ["rank", "catalyst", "role", "family", "estimate", "ci_low", "ci_high", "censored", "unit",
-                      "favours", "rank_low", "rank_high", "p_top", "p_best", "p_beats_reference", "n", "basis", "flags",
-                      "reason"]
+# the columns the commands print, checked against the frames' schemas (screenlab.schema)
+QUALITY_COLUMNS = schema.QUALITY.pick([
+    "plate", "temperature_c", "n_sample", "n_reference", "n_blank", "zprime", "robust_zprime", "ssmd",
+    "blank_lod_mM_per_h", "sample_active_pct", "replicate_cv_median_pct", "reference_cv_pct", "blank_ratio", "blank_z",
+    "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs", "reference_loo_t", "status", "flags"])
+RANK_TABLE_COLUMNS = schema.RANKING.pick([
+    "rank", "catalyst", "role", "family", "estimate", "ci_low", "ci_high", "censored", "unit", "favours", "rank_low",
+    "rank_high", "p_top", "p_best", "p_beats_reference", "n", "basis", "flags", "reason"])
 METRIC_CHOICES = ("tof", "enhancement", "ea", "ton", "selectivity", "ee")
 
 RANK_EPILOG = """\

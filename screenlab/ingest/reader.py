@@ -12,7 +12,7 @@ import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
-from screenlab import units
+from screenlab import schema, units
 from screenlab.errors import DataQualityWarning, Problem, ValidationError
 from screenlab.model import CampaignData
 
@@ -170,9 +170,7 @@ def read_campaign(source) -> ReadResult:
         wells, factor_names = v.check_layout(tables["layout"], problems, plates=plates, catalysts=catalysts,
                                              conc_factor=info.get("conc_factor"),
                                              volume_factor=info.get("volume_factor"), well_names=well_names)
-    readings = pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
-                             "analyte": pd.Series(dtype="str"), "time_h": pd.Series(dtype=float),
-                             "value": pd.Series(dtype=float)})
+    readings = schema.empty_frame(schema.READINGS)  # a planned campaign (layout only) has no readings
     raw = tables["readings"]
     if raw is not None and forms.is_sample_table(raw):  # readings.csv naming wells by sample code
         reshaped = forms.reshape_sample_table(raw, wells, problems, notes)
@@ -201,8 +199,8 @@ def read_campaign(source) -> ReadResult:
 
     if problems or manifest is None:
         raise ValidationError(problems, source=label)
-    data = CampaignData(manifest=manifest, catalysts=catalysts, plates=plates, wells=wells, readings=readings,
-                        factor_names=factor_names)
+    data = schema.check_campaign(CampaignData(manifest=manifest, catalysts=catalysts, plates=plates, wells=wells,
+                                              readings=readings, factor_names=factor_names), where="read_campaign")
     for note in notes:
         warnings.warn(note, DataQualityWarning, stacklevel=2)
     return ReadResult(data=data, files=tuple(records), source=label, notes=tuple(notes))

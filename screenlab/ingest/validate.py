@@ -27,7 +27,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from screenlab import plates as platelib
-from screenlab import units
+from screenlab import schema, units
 from screenlab.errors import Problem
 from screenlab.model import DEFAULT_ANALYTE, ROLES, UNCATALYSED
 
@@ -275,14 +275,6 @@ def _to_float(text: pd.Series, blank: np.ndarray) -> np.ndarray:
     return v
 
 
-def parse_wells_fast(names: pd.Series) -> pd.DataFrame:
-    """:func:`screenlab.plates.parse_wells` on the distinct names only, spread back to every row
-    (a readings file repeats a few hundred well names many times)."""
-    codes, uniques = pd.factorize(names.fillna(""), use_na_sentinel=True)
-    parsed = platelib.parse_wells(np.asarray(uniques, dtype=object))
-    return parsed.iloc[codes].reset_index(drop=True)
-
-
 def parse_names(names: pd.Series, cache: dict | None = None) -> pd.DataFrame:
     """:func:`screenlab.plates.parse_wells` of distinct well names (missing as ''), with ``cache``
     (name -> parsed well, row, col) shared by the tables of one campaign, so a name the layout
@@ -367,20 +359,15 @@ def check_catalysts(table: RawTable, problems: list[Problem]) -> tuple[pd.DataFr
 
 
 def _empty_catalysts() -> pd.DataFrame:
-    return pd.DataFrame({c: pd.Series(dtype="str" if c in ("catalyst", "name", "family") else float)
-                         for c in CATALYST_COLUMNS})
+    return schema.empty_frame(schema.CATALYSTS)
 
 
 def _empty_plates() -> pd.DataFrame:
-    return pd.DataFrame({"plate": pd.Series(dtype="str"), "format": pd.Series(dtype=np.int64),
-                         "n_rows": pd.Series(dtype=np.int64), "n_cols": pd.Series(dtype=np.int64),
-                         "temperature_c": pd.Series(dtype=float), "run_date": pd.Series(dtype="str"),
-                         "notes": pd.Series(dtype="str")})
+    return schema.empty_frame(schema.PLATES)
 
 
 def _empty_wells() -> pd.DataFrame:
-    return pd.DataFrame({"plate": pd.Series(dtype="str"), "well": pd.Series(dtype="str"),
-                         "role": pd.Series(dtype="str"), "substrate_conc_mM": pd.Series(dtype=float)})
+    return schema.empty_frame(schema.WELLS)
 
 
 # --------------------------------------------------------------------------- plates

@@ -55,7 +55,9 @@ def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> Kinetics
     from screenlab.kinetics import amounts as _amounts
     from screenlab.kinetics import rates as _rates
     from screenlab.kinetics.selectivity import well_selectivity
+    from screenlab.schema import check_campaign
 
+    check_campaign(data, where="analyse_kinetics")  # frames meeting screenlab.schema, or a clear error
     if settings is None:
         settings = AnalysisSettings.from_mapping(data.manifest.analysis)
     amounts = _amounts.product_amounts(data)

@@ -6,7 +6,7 @@ same plate row, layout and factor values, now with readings; the planned version
 ``superseded_by`` and stays in the store as history. No schema change: the rows go into the
 existing tables, the import history records the write with status ``readings_added``.
 
-The new version is prepared exactly as an import prepares a plate (``db._prepare``), so its
+The new version is prepared exactly as an import prepares a plate (``storage.prepare``), so its
 fingerprint is the one an import of the completed campaign folder would give: importing that
 folder afterwards finds the plates unchanged. Each new version keeps its plate's position
 (``seq``), so a campaign whose plates all received their readings at once loads back in the same
@@ -20,15 +20,16 @@ from __future__ import annotations
 
 from datetime import datetime, timezone
 
-import duckdb
 import numpy as np
 import pandas as pd
 
 from screenlab.errors import ScreenlabError
 from screenlab.model import CampaignData
-from screenlab.store import db
+from screenlab.store import fingerprints, writer
 from screenlab.store import queries as Q
-from screenlab.store.db import ImportRefusedError, ImportReport, Store
+from screenlab.store.db import Store
+from screenlab.store.planner import ImportRefusedError, ImportReport, names_text
+from screenlab.store.storage import prepare, to_arrow
 
 STATUS = "readings_added"
 
@@ -71,10 +72,10 @@ def add_readings(store: Store, data: CampaignData, new, *, data_version: str, dr
     part = CampaignData(manifest=data.manifest, catalysts=data.catalysts, plates=keep(data.plates),
                         wells=keep(data.wells), readings=new.readings.reset_index(drop=True),
                         factor_names=data.factor_names)
-    prep = db._prepare(part)  # storage form and fingerprints, as an import makes them
+    prep = prepare(part)  # storage form and fingerprints, as an import makes them
+    fps = fingerprints.with_text(fingerprints.of_prepared(prep))
     with store._connect() as con:
         con.begin()
-        large = False
         try:
             got = con.execute(Q.GET_META, ["generation"]).fetchall()
             now_version = f"g{got[0][0] if got else 0}"
@@ -94,9 +95,9 @@ def add_readings(store: Store, data: CampaignData, new, *, data_version: str, dr
             if unknown or full:
                 bits = []
                 if unknown:
-                    bits.append(f"plate{'s' if len(unknown) > 1 else ''} {db._names(unknown)} not in the campaign")
+                    bits.append(f"plate{'s' if len(unknown) > 1 else ''} {names_text(unknown)} not in the campaign")
                 if full:
-                    bits.append(f"plate{'s' if len(full) > 1 else ''} {db._names(full)} already ha"
+                    bits.append(f"plate{'s' if len(full) > 1 else ''} {names_text(full)} already ha"
                                 f"{'ve' if len(full) > 1 else 's'} readings")
                 raise ImportRefusedError(f"campaign {name!r}: {'; '.join(bits)}. Nothing was written.",
                                          campaign=name, plates=tuple(full))
@@ -109,57 +110,32 @@ def add_readings(store: Store, data: CampaignData, new, *, data_version: str, dr
             if dry_run:
                 con.rollback()
                 return ImportReport(status="dry_run", message=message, import_id=None, **common)
-            import_id = int(con.execute(Q.NEXT_IMPORT_ID).fetchall()[0][0])
+            import_id = writer.next_import_id(con)
             tag = {"campaign": name, "import_id": import_id}
-            names = pd.DataFrame({"plate": pd.array(targets, dtype="string")})
-            con.register("incoming_plate_names", names)
-            try:
-                con.execute(Q.SUPERSEDE_PLATES, [import_id, name])
-            finally:
-                con.unregister("incoming_plate_names")
+            writer.supersede_plates(con, import_id, name, targets)
             for table, frame in (("wells", prep.wells), ("well_factors", prep.factors), ("readings", prep.readings)):
-                db._bulk_insert(con, table, db._Tagged(db._arrow(frame), **tag))
-            fps = prep.fingerprints.assign(fp=[db._fp_text(r) for r in prep.fingerprints.itertuples()])  # per plate
+                writer.bulk_insert(con, table, writer.Tagged(to_arrow(frame), **tag))
             plates = prep.plates.merge(fps[["plate", "fp"]], on="plate", how="left").rename(
                 columns={"fp": "fingerprint"})
             plates["seq"] = np.array([seq[str(p)] for p in plates["plate"]], dtype=np.int64)  # its place, kept
-            db._bulk_insert(con, "plates", db._Tagged(db._arrow(plates), **tag))
-            from screenlab import __version__
-
-            lib = con.execute(Q.LIBRARY_VERSION).fetchall()[0][0]
+            writer.bulk_insert(con, "plates", writer.Tagged(to_arrow(plates), **tag))
             when = datetime.now(timezone.utc).replace(tzinfo=None)
-            con.execute(Q.INSERT_IMPORT, [import_id, name, when, source, STATUS, [], targets, rest, [], [], False,
-                                          n_wells, n_readings, message, __version__, str(lib)])
-            db._bulk_insert(con, "import_files", db._files_frame(new.files, import_id))
-            con.execute(Q.BUMP_GENERATION_WRITTEN_BY, [f"DuckDB {lib}, screenlab {__version__}"])
-            large = n_readings >= db.CHECKPOINT_READINGS
-            if large:
-                con.execute(Q.COMMIT_INTO_FILE)
-            con.commit()
+            writer.record_import(con, import_id, name, when, source, STATUS, replaced=targets, unchanged=rest,
+                                 n_wells=n_wells, n_readings=n_readings, message=message, files=new.files)
+            writer.commit(con, n_readings)
         except BaseException:
             con.rollback()
             raise
-        finally:
-            if large:
-                try:
-                    con.execute(Q.DEFAULT_CHECKPOINT_THRESHOLD)
-                except duckdb.Error:  # pragma: no cover - a setting of this connection only
-                    pass
-        if large:
-            try:  # only an optimisation; the readings are committed
-                con.execute(Q.CHECKPOINT)
-            except duckdb.Error:
-                pass
     return ImportReport(status=STATUS, message=message, import_id=import_id, **common)
 
 
 def _message(name: str, targets: list[str], still: list[str], n_wells: int, n_readings: int, dry_run: bool) -> str:
     n = len(targets)
-    text = (f"{name}: readings added to {n} plate{'s' if n != 1 else ''} ({db._names(targets)}) "
+    text = (f"{name}: readings added to {n} plate{'s' if n != 1 else ''} ({names_text(targets)}) "
             f"[{n_wells:,} wells, {n_readings:,} readings]; the planned version of "
             f"{'each plate' if n != 1 else 'the plate'} is kept as history")
     if still:
-        text += f"; {len(still)} plate{'s' if len(still) != 1 else ''} still without readings ({db._names(still)})"
+        text += f"; {len(still)} plate{'s' if len(still) != 1 else ''} still without readings ({names_text(still)})"
     if dry_run:
         text = "dry run, nothing written: " + text.replace(f"{name}: readings added", f"{name}: readings would be added", 1)
     return text

@@ -129,9 +129,9 @@ def _default_mode(directory: bool) -> int:
 
 def _open_rw(path: Path, busy_timeout_s: float | None) -> duckdb.DuckDBPyConnection:
     """A read-write connection with the store's busy retry (and its clear "in use" message)."""
-    from screenlab.store.db import Store
+    from screenlab.store.connection import busy_timeout, open_connection
 
-    return Store(path, busy_timeout_s=busy_timeout_s)._open()
+    return open_connection(Path(path), False, busy_timeout(busy_timeout_s))
 
 
 def _schema_version(con, catalog: str = "") -> int | None:

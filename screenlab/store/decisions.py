@@ -11,7 +11,7 @@ A next round names its parent campaign and the decision it came from in campaign
 :func:`check_round_link` refuses a link that contradicts the store. ``Store.campaigns()`` and
 :func:`round_links` read the links back.
 
-Every function takes a :class:`~screenlab.store.db.Store` and opens its own short connection.
+Every function takes a :class:`~screenlab.store.Store` and opens its own short connection.
 Recording a decision does not bump the store's data generation: it changes no campaign data, so
 no cached analysis goes stale (readers of decisions read them fresh; the tables are small).
 """

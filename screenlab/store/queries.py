@@ -1,8 +1,8 @@
 """Every SQL statement of the store, in one place.
 
 Values always travel as ``?`` parameters or as registered DataFrames (the ``incoming_*`` names
-below are registered by :mod:`screenlab.store.db` for the duration of one statement); no SQL
-text is ever built from data.
+below are registered by :mod:`screenlab.store.writer` and :mod:`screenlab.store.connection` for
+the duration of one statement); no SQL text is ever built from data.
 """
 from __future__ import annotations
 
@@ -24,11 +24,7 @@ UPSERT_META = "INSERT OR REPLACE INTO metadata VALUES (?, ?)"
 UPSERT_META_MANY = "INSERT OR REPLACE INTO metadata SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[])"
 GET_META = "SELECT value FROM metadata WHERE key = ?"
 ALL_META = "SELECT key, value FROM metadata ORDER BY key"
-BUMP_GENERATION = """
-INSERT OR REPLACE INTO metadata
-SELECT 'generation', CAST(coalesce(max(CAST(value AS BIGINT)), 0) + 1 AS VARCHAR)
-FROM metadata WHERE key = 'generation'"""
-#: BUMP_GENERATION and the 'last_written_by' entry (the parameter) in one statement
+#: the store's write generation bumped and the 'last_written_by' entry (the parameter) set, in one statement
 BUMP_GENERATION_WRITTEN_BY = """
 INSERT OR REPLACE INTO metadata
 SELECT 'generation', CAST(coalesce(max(CAST(value AS BIGINT)), 0) + 1 AS VARCHAR)
@@ -124,7 +120,7 @@ WHERE ? IS NULL OR p.campaign = ?
 ORDER BY p.campaign, p.import_id, p.seq"""
 
 # --- fingerprint upgrade: every stored plate version (current and superseded), keyed by
-# (campaign, plate, import_id); see Store._refresh_fingerprints -------------------------------
+# (campaign, plate, import_id); see connection.refresh_fingerprints ---------------------------
 
 ALL_PLATE_VERSIONS = """
 SELECT campaign, plate, import_id, format, n_rows, n_cols, temperature_c, run_date, notes

@@ -1,4 +1,4 @@
-"""A small good campaign built in code, shared by the ingest tests (tests/test_ingest*.py).
+"""The files of a small good campaign, as text, shared by the ingest tests (not a test module).
 
 The data are invented (synthetic tests only). ``good_files()`` gives file name -> text;
 ``write_campaign`` writes it to a folder after applying edits.
@@ -66,9 +66,9 @@ def good_files() -> dict[str, str]:
             "layout.csv": GOOD_LAYOUT, "readings.csv": good_readings()}
 
 
-def write_campaign(folder: Path, files: dict[str, str | bytes] | None = None, **edits) -> Path:
-    """Write a campaign folder. ``edits`` replace files by key with '.' as '_' (layout_csv=...);
-    a value of None removes the file."""
+def edited_files(files: dict[str, str | bytes] | None = None, **edits) -> dict[str, bytes]:
+    """The good campaign's files (or ``files``) as bytes, with ``edits`` replacing files by key with
+    '.' as '_' (layout_csv=...); a value of None removes the file."""
     content = dict(good_files() if files is None else files)
     for key, val in edits.items():
         name = key.replace("_csv", ".csv").replace("_xlsx", ".xlsx").replace("_toml", ".toml")
@@ -76,16 +76,12 @@ def write_campaign(folder: Path, files: dict[str, str | bytes] | None = None, **
             content.pop(name, None)
         else:
             content[name] = val
+    return {k: (v if isinstance(v, bytes) else v.encode("utf-8")) for k, v in content.items()}
+
+
+def write_campaign(folder: Path, files: dict[str, str | bytes] | None = None, **edits) -> Path:
+    """Write a campaign folder of :func:`edited_files`."""
     folder.mkdir(parents=True, exist_ok=True)
-    for name, text in content.items():
-        data = text if isinstance(text, bytes) else text.encode("utf-8")
+    for name, data in edited_files(files, **edits).items():
         (folder / name).write_bytes(data)
     return folder
-
-
-def test_support_builds_a_readable_campaign(tmp_path):
-    from screenlab.ingest import read_campaign
-
-    res = read_campaign(write_campaign(tmp_path / "c"))
-    assert len(res.data.wells) == 8
-    assert len(res.data.readings) == 28

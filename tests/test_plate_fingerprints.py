@@ -1,14 +1,16 @@
-"""Plate fingerprints (definition version 2) and the upgrade of stores written with version 1.
+"""Plate fingerprints (definition version 2; screenlab.store.fingerprints) and the upgrade of stores
+written with version 1.
 
-* The vectorised :func:`screenlab.store.db.plate_fingerprints` is compared with a plain
-  per-plate, per-row Python reference of the same definition (``_ref_fingerprints`` below) on
-  small random campaigns with missing cells, unicode text, factors and shuffled rows.
+* The vectorised :func:`plate_fingerprints` is compared with the definition written out in plain
+  Python below (one plate at a time, one row at a time; ``_ref_fingerprints``) on small random
+  campaigns with missing cells, unicode text, factors and shuffled rows.
+* splitmix64: the finaliser against its published reference sequence (seed 1234567; Vigna's
+  splitmix64.c, the values from memory) and against the textbook finaliser with Python ints
+  (Steele, Lea & Flood 2014, "Fast splittable pseudorandom number generators", OOPSLA).
+* The sort shortcut (``lex_sorted``) against ``np.lexsort`` (hypothesis).
 * The fixture store tests/fixtures/stores/schema_1.duckdb.gz was written by the previous code
-  (version 1 fingerprints, before this change); re-importing its own data must be "unchanged",
-  and its stored fingerprints must equal the version 1 definition kept here (``_v1_fingerprints``,
-  the removed code, verbatim).
-* splitmix64 constants: Steele, Lea & Flood (2014), "Fast splittable pseudorandom number
-  generators", OOPSLA; the reference below is the textbook finaliser written with Python ints.
+  (version 1 fingerprints); opened for writing, its fingerprints are recomputed, and re-importing
+  its own data is "unchanged" while a real change is still seen and named.
 """
 from __future__ import annotations
 
@@ -17,19 +19,18 @@ import hashlib
 import math
 import shutil
 import struct
-import sys
 from pathlib import Path
 
 import duckdb
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-sys.path.insert(0, str(Path(__file__).parent))
-from store_samples import make_data  # noqa: E402
-
-from screenlab.store import Store  # noqa: E402
-from screenlab.store import db  # noqa: E402
+from screenlab.store import Store
+from screenlab.store import fingerprints as F
+from screenlab.store.storage import PLATE_COLS, READING_COLS, WELL_COLS, prepare
 
 M64 = (1 << 64) - 1
 NA = 0x9E3779B97F4A7C15
@@ -82,17 +83,17 @@ def _ref_digest(records: list[dict], keys, cols, kinds) -> str:
 
 
 def _ref_fingerprints(plates, wells, factors, readings) -> pd.DataFrame:
-    kinds = {**db.PLATE_COLS, **db.WELL_COLS, **db.READING_COLS, "factor": "s", "value": "f"}
+    kinds = {**PLATE_COLS, **WELL_COLS, **READING_COLS, "factor": "s", "value": "f"}
     fkinds = {"well": "s", "factor": "s", "value": "s"}
     out = []
     for rec in plates.to_dict("records"):  # reference: one plate at a time, one row at a time
         name = rec["plate"]
-        pc = [c for c in db.PLATE_COLS if c != "plate"]
+        pc = [c for c in PLATE_COLS if c != "plate"]
         fp_plate = hashlib.sha256(_row(rec, pc, kinds).to_bytes(8, "little")).hexdigest()
         w = [r for r in wells.to_dict("records") if r["plate"] == name]
         f = [r for r in factors.to_dict("records") if r["plate"] == name]
         rr = [r for r in readings.to_dict("records") if r["plate"] == name]
-        wl = _ref_digest(w, ["well"], [c for c in db.WELL_COLS if c != "plate"], kinds)
+        wl = _ref_digest(w, ["well"], [c for c in WELL_COLS if c != "plate"], kinds)
         fl = _ref_digest(f, ["well", "factor"], ["well", "factor", "value"], fkinds)
         rcols = ["well", "analyte", "time_h", "value"]
         out.append((name, fp_plate, hashlib.sha256((wl + fl).encode()).hexdigest(),
@@ -100,50 +101,8 @@ def _ref_fingerprints(plates, wells, factors, readings) -> pd.DataFrame:
     return pd.DataFrame(out, columns=["plate", "fp_plate", "fp_layout", "fp_readings"])
 
 
-# ------------------------------------------------------------------ version 1 (the previous code, verbatim)
-def _v1_column_bytes(s: pd.Series) -> bytes:
-    if isinstance(s.dtype, pd.StringDtype) or s.dtype == object:
-        vals = s.astype(object).where(s.notna(), "\x00").tolist()
-        return ("\x1f".join(map(str, vals)) + "\x1e").encode()
-    if isinstance(s.dtype, pd.Int64Dtype):
-        return s.fillna(-(2**62)).to_numpy(dtype=np.int64).tobytes() + b"\x1e"
-    v = s.to_numpy(dtype=np.float64)
-    v = np.where(np.isnan(v), np.nan, v)
-    return np.ascontiguousarray(v).tobytes() + b"\x1e"
-
-
-def _v1_digest(frame, positions, cols) -> str:
-    h = hashlib.sha256()
-    if positions is not None and len(positions):
-        part = frame.iloc[positions]
-        for c in cols:
-            h.update(c.encode() + b"=")
-            h.update(_v1_column_bytes(part[c]))
-    return h.hexdigest()
-
-
-def _v1_fingerprints(plates, wells, factors, readings) -> pd.DataFrame:
-    def slices(s):
-        return {k: np.asarray(v) for k, v in s.groupby(s, sort=False).indices.items()}
-
-    w = wells.sort_values(["plate", "well"], kind="stable").reset_index(drop=True)
-    f = factors.sort_values(["plate", "well", "factor"], kind="stable").reset_index(drop=True)
-    r = readings.sort_values(["plate", "well", "analyte", "time_h", "value"], kind="stable").reset_index(drop=True)
-    p = plates.reset_index(drop=True)
-    ws, fs, rs = slices(w["plate"]), slices(f["plate"]), slices(r["plate"])
-    rows = []
-    for i, name in enumerate(p["plate"].tolist()):
-        fp_plate = _v1_digest(p, np.array([i]), [c for c in db.PLATE_COLS if c != "plate"])
-        layout = hashlib.sha256()
-        layout.update(_v1_digest(w, ws.get(name), [c for c in db.WELL_COLS if c != "plate"]).encode())
-        layout.update(_v1_digest(f, fs.get(name), ["well", "factor", "value"]).encode())
-        rows.append((name, fp_plate, layout.hexdigest(),
-                     _v1_digest(r, rs.get(name), ["well", "analyte", "time_h", "value"])))
-    return pd.DataFrame(rows, columns=["plate", "fp_plate", "fp_layout", "fp_readings"])
-
-
 # ------------------------------------------------------------------ helpers
-def _random_data(seed: int):
+def _random_data(make_data, seed: int):
     """A small CampaignData with random gaps: missing notes / loadings / factor cells, unicode."""
     rng = np.random.default_rng(seed)
     data = make_data(f"fp-{seed}", plates=("P1", "P2", "Pü 3"))
@@ -172,36 +131,40 @@ def _shuffled(data, seed):
 
 # ------------------------------------------------------------------ tests
 @pytest.mark.parametrize("seed", [1, 2, 3])
-def test_vectorised_fingerprints_equal_the_plain_reference(seed):
-    prep = db._prepare(_random_data(seed))
-    got = db.plate_fingerprints(prep.plates, prep.wells, prep.factors, prep.readings)
+def test_vectorised_fingerprints_equal_the_plain_reference(make_data, seed):
+    prep = prepare(_random_data(make_data, seed))
+    got = F.plate_fingerprints(prep.plates, prep.wells, prep.factors, prep.readings)
     want = _ref_fingerprints(prep.plates, prep.wells, prep.factors, prep.readings)
     pd.testing.assert_frame_equal(got.reset_index(drop=True), want, check_dtype=False)
     assert got["fp_readings"].nunique() == len(got)  # plates with different readings differ
 
 
-def test_fingerprints_ignore_row_order_and_name_what_changed():
-    data = _random_data(4)
-    a = db._prepare(data).fingerprints.set_index("plate")
-    b = db._prepare(_shuffled(data, 9)).fingerprints.set_index("plate")
+def _fps(data) -> pd.DataFrame:
+    return F.of_prepared(prepare(data)).set_index("plate")
+
+
+def test_fingerprints_ignore_row_order_and_name_what_changed(make_data):
+    data = _random_data(make_data, 4)
+    a = _fps(data)
+    b = _fps(_shuffled(data, 9))
     pd.testing.assert_frame_equal(a, b.loc[a.index])
     r = data.readings.copy()
     pos = int(np.flatnonzero((r["plate"] == "P2").to_numpy())[5])
     r.loc[pos, "value"] = r.loc[pos, "value"] + 1e-9 if pd.notna(r.loc[pos, "value"]) else 1.0
     w = data.wells.copy()
     w.loc[int(np.flatnonzero((w["plate"] == "P1").to_numpy())[0]), "solvent"] = "dioxane"
-    c = db._prepare(type(data)(manifest=data.manifest, catalysts=data.catalysts, plates=data.plates, wells=w,
-                               readings=r, factor_names=data.factor_names)).fingerprints.set_index("plate")
+    c = _fps(type(data)(manifest=data.manifest, catalysts=data.catalysts, plates=data.plates, wells=w,
+                        readings=r, factor_names=data.factor_names))
     diff = (a != c.loc[a.index])
     assert diff.loc["P2"].tolist() == [False, False, True]      # readings only
     assert diff.loc["P1"].tolist() == [False, True, False]      # layout (a factor value) only
     assert not diff.loc["Pü 3"].any()
 
 
-def test_fingerprint_version_is_recorded_in_a_new_store(tmp_path):
+def test_fingerprint_version_is_recorded_in_a_new_store(tmp_path, make_data):
     store = Store(tmp_path / "s.duckdb")
     store.import_campaign(make_data("new-store"))
-    assert store.metadata()["fingerprint_version"] == db.FINGERPRINT_VERSION
+    assert store.metadata()["fingerprint_version"] == F.FINGERPRINT_VERSION
 
 
 def test_store_written_by_the_previous_code_sees_an_unchanged_reimport(tmp_path):
@@ -209,20 +172,27 @@ def test_store_written_by_the_previous_code_sees_an_unchanged_reimport(tmp_path)
     with gzip.open(FIXTURE, "rb") as src, open(path, "wb") as out:
         shutil.copyfileobj(src, out)
     con = duckdb.connect(str(path))
-    try:  # the fixture as the old code left it: no version key, version 1 fingerprints
+    try:  # the fixture as the old code left it: no version key, fingerprints of another definition
         assert con.execute("SELECT count(*) FROM metadata WHERE key = 'fingerprint_version'").fetchall()[0][0] == 0
         old_fp = dict(con.execute("SELECT campaign || '/' || plate, fingerprint FROM plates "
                                   "WHERE superseded_by IS NULL").fetchall())
     finally:
         con.close()
     store = Store(path)
-    assert store.metadata()["fingerprint_version"] == db.FINGERPRINT_VERSION
+    assert store.metadata()["fingerprint_version"] == F.FINGERPRINT_VERSION  # opened for writing: upgraded
+    con = duckdb.connect(str(path), read_only=True)
+    try:
+        new_fp = dict(con.execute("SELECT campaign || '/' || plate, fingerprint FROM plates "
+                                  "WHERE superseded_by IS NULL").fetchall())
+    finally:
+        con.close()
+    assert set(new_fp) == set(old_fp)
     for name in store.campaign_names():
         data = store.load_campaign(name)
-        prep = db._prepare(data)
-        v1 = _v1_fingerprints(prep.plates, prep.wells, prep.factors, prep.readings)
-        for row in v1.itertuples():  # the kept version 1 code reproduces what the old store holds
-            assert old_fp[f"{name}/{row.plate}"] == db._fp_text(row)
+        now = F.with_text(F.of_prepared(prepare(data)))
+        for row in now.itertuples():  # recomputed: the stored text is the current definition's
+            key = f"{name}/{row.plate}"
+            assert new_fp[key] == row.fp != old_fp[key]
         rep = store.import_campaign(data)
         assert rep.status == "unchanged", rep.message
         assert sorted(rep.plates_unchanged) == sorted(data.plates["plate"])
@@ -237,7 +207,7 @@ def test_store_written_by_the_previous_code_sees_an_unchanged_reimport(tmp_path)
     assert rep.plates_replaced == (str(r.loc[0, "plate"]),)
 
 
-def test_upgrade_recomputes_superseded_versions_too(tmp_path):
+def test_upgrade_recomputes_superseded_versions_too(tmp_path, make_data):
     path = tmp_path / "s.duckdb"
     store = Store(path)
     store.import_campaign(make_data("hist", plates=("P1", "P2")))
@@ -258,3 +228,31 @@ def test_upgrade_recomputes_superseded_versions_too(tmp_path):
     finally:
         con.close()
     assert got == want and len(got) == 4
+
+
+def test_splitmix64_gives_its_reference_sequence():
+    """SplitMix64 with seed 1234567: state += 0x9E3779B97F4A7C15, output = finaliser(state); the
+    reference outputs of splitmix64.c (from memory), and the finaliser with Python ints."""
+    state = np.array([1234567], dtype=np.uint64)
+    got = []
+    for _ in range(3):
+        state = state + np.uint64(0x9E3779B97F4A7C15)
+        got.append(int(F.mix64(state.copy())[0]))
+    assert got == [6457827717110365317, 3203168211198807973, 9817491932198370423]
+    rng = np.random.default_rng(3)
+    x = rng.integers(0, 2 ** 63, 200, dtype=np.uint64) * np.uint64(2) + rng.integers(0, 2, 200, dtype=np.uint64)
+    assert [int(v) for v in F.mix64(x.copy())] == [_mix(int(v)) for v in x]
+
+
+_KEY = st.lists(st.tuples(st.integers(0, 2), st.sampled_from([0.0, 1.0, -0.0, math.nan])), max_size=12)
+
+
+@given(_KEY, st.booleans())
+@settings(max_examples=300, deadline=None)
+def test_lex_sorted_says_whether_lexsort_would_move_a_row(rows, presort):
+    keys = [np.array([r[0] for r in rows], dtype=np.int64), np.array([r[1] for r in rows], dtype=float)]
+    if presort and rows:  # mostly sorted inputs, where the shortcut matters
+        order = np.lexsort(keys[::-1])
+        keys = [k[order] for k in keys]
+    identity = np.array_equal(np.lexsort(keys[::-1]), np.arange(len(rows))) if rows else True
+    assert F.lex_sorted(keys) == identity
