@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from screenlab import units
+from screenlab._groups import FlagIndex  # noqa: F401  (the flag column factorised once; kinetics modules import it from here)
 
 #: flag codes set here (code -> one plain sentence)
 FLAGS: dict[str, str] = {
@@ -35,69 +36,6 @@ FLAGS: dict[str, str] = {
     "missing_metal_molar_mass": "metal_wt_pct is given without metal_molar_mass_g_mol, so sites are unknown.",
     "no_substrate": "Loading in mol% but the well has no substrate amount, so sites are unknown.",
 }
-
-
-class FlagIndex:
-    """A ``;``-joined flag column factorised once: each distinct string is parsed once, rows keep a code.
-
-    A flag column holds few distinct strings (combinations of a few codes), so the work below loops
-    over distinct strings, never over rows. ``has(code)``: which rows carry ``code`` as a whole
-    ``;``-separated token. ``join(masks)``: each row's flags with the codes whose mask is true
-    appended in order, codes already present not repeated.
-    """
-
-    def __init__(self, flags, n: int | None = None):
-        if flags is None:
-            codes, uniques = np.zeros(int(n or 0), dtype=np.int64), ([""] if n else [])
-        else:
-            # factorised as it is (Arrow strings stay in Arrow); a missing value reads as ""
-            codes, uniques = pd.factorize(pd.Series(flags, copy=False))
-        self.codes = np.asarray(codes, dtype=np.int64)
-        self.uniques = [str(u) for u in uniques]
-        if (self.codes < 0).any():
-            self.codes = np.where(self.codes < 0, len(self.uniques), self.codes)
-            self.uniques.append("")
-        self._tokens = [set(u.split(";")) for u in self.uniques]
-
-    def has(self, code: str) -> np.ndarray:
-        present = np.array([code in tk for tk in self._tokens], dtype=bool)
-        return present[self.codes] if len(self.codes) else np.zeros(0, bool)
-
-    @classmethod
-    def from_codes(cls, codes: np.ndarray, words) -> "FlagIndex":
-        """An index over a flag column already given as integer codes into ``words`` (str)."""
-        self = cls.__new__(cls)
-        self.codes = np.asarray(codes, dtype=np.int64)
-        self.uniques = [str(w) for w in words]
-        self._tokens = [set(u.split(";")) for u in self.uniques]
-        return self
-
-    def text(self) -> np.ndarray:
-        """The flag column itself, as an object array of str."""
-        return np.asarray(self.uniques, dtype=object)[self.codes] if len(self.codes) else np.zeros(0, dtype=object)
-
-    def join(self, masks: Mapping[str, np.ndarray]) -> np.ndarray:
-        """Object array of str (see the class docstring)."""
-        words, codes = self.join_codes(masks)
-        return words[codes]
-
-    def join_codes(self, masks: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
-        """:meth:`join` as distinct texts (object array) and one code per row into them."""
-        items = [(c, np.asarray(m, dtype=bool)) for c, m in masks.items()]
-        n = len(self.codes)
-        if not n:
-            return np.zeros(0, dtype=object), np.zeros(0, dtype=np.int64)
-        bits = np.zeros(n, dtype=np.int64)
-        for i, (code, mask) in enumerate(items):          # a loop over a few codes
-            bits |= (mask & ~self.has(code)).astype(np.int64) << i
-        combo = self.codes * (1 << len(items)) + bits
-        cc, cu = pd.factorize(combo)
-        text = np.empty(len(cu), dtype=object)
-        for j, c in enumerate(cu):                         # a loop over distinct flag combinations
-            base, b = self.uniques[int(c) >> len(items)], int(c) & ((1 << len(items)) - 1)
-            added = [code for i, (code, _) in enumerate(items) if b >> i & 1]
-            text[j] = ";".join([base, *added]) if base else ";".join(added)
-        return text, np.asarray(cc, dtype=np.int64)
 
 
 def text_array(words, codes):
