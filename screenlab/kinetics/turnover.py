@@ -34,11 +34,12 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from screenlab import _groups as grp
 from screenlab import units
+from screenlab._groups import FlagIndex
 from screenlab.kinetics import selectivity as _selectivity
 from screenlab.kinetics import sites as _sites
 from screenlab.kinetics.amounts import well_index
-from screenlab.kinetics.sites import FlagIndex
 from screenlab.settings import AnalysisSettings
 from screenlab.uncertainty import t_quantile, welch_df  # noqa: F401  (re-exported for the kinetics modules)
 
@@ -130,34 +131,19 @@ def _f(frame: pd.DataFrame, col: str) -> np.ndarray:
     return pd.to_numeric(values, errors="coerce").to_numpy(dtype=float)
 
 
-def _factorize(values) -> tuple[np.ndarray, object]:
-    """``pd.factorize(values)``: int64 codes (missing values -1) and the distinct values."""
-    codes, uniques = pd.factorize(values)
-    return np.asarray(codes, dtype=np.int64), uniques
-
-
-def _key_of(codes: np.ndarray, uniques) -> tuple[np.ndarray, int]:
-    """Codes with missing values as one more value (``groupby(dropna=False)``), and their count."""
-    k = len(uniques)
-    if codes.size and codes.min() < 0:
-        return np.where(codes < 0, k, codes), k + 1
-    return codes, k
-
-
-def _codes(values) -> tuple[np.ndarray, int]:
-    """Integer code per row and the number of distinct values; missing values are one value (as
-    ``groupby(dropna=False)`` treats them)."""
-    return _key_of(*_factorize(values))
+# the group keys of rates.py are built with these (screenlab._groups; the old names kept for it)
+_codes = grp.codes
+_key_codes = grp.group_index
 
 
 class _Roles:
     """The role column factorised once: ``is_(*names)`` compares the distinct words, not the rows."""
 
     def __init__(self, frame: pd.DataFrame):
-        self.codes, uniques = _factorize(frame["role"])
+        self.codes, uniques = grp.factorize(frame["role"])
         # code -1 (missing) takes the trailing ""
         self.words = np.array([str(u) for u in uniques] + [""], dtype=object)
-        self.key = _key_of(self.codes, uniques)
+        self.key = grp.with_missing(self.codes, uniques)
 
     def is_(self, *names: str) -> np.ndarray:
         return np.isin(self.words, names)[self.codes]
@@ -169,65 +155,6 @@ class _Roles:
 def _role(frame: pd.DataFrame) -> np.ndarray:
     """Object array of str: each row's role, "" where missing (one str() per distinct value)."""
     return _Roles(frame).text()
-
-
-def _key_codes(columns, rows: np.ndarray | None = None) -> np.ndarray:
-    """Group number of each row (of ``rows``, when given) over several key columns, numbered in
-    order of first appearance: the numbers of ``groupby(keys, dropna=False, sort=False).ngroup()``.
-
-    Each column is factorised once (Arrow-fast for string columns; a column may also be given as
-    its ``_codes`` result) and the codes are combined arithmetically, so no tuple of keys is ever
-    built per row.
-    """
-    code = None
-    size = 1
-    for col in columns:
-        c, k = col if isinstance(col, tuple) else _codes(col)
-        if rows is not None:
-            c = c[rows]
-        k = max(k, 1)
-        if code is None:
-            code, size = c, k
-            continue
-        if size * k >= 2 ** 62:                      # keep the mixed-radix number in int64
-            code = np.asarray(pd.factorize(code)[0], dtype=np.int64)
-            size = int(code.max()) + 1 if code.size else 1
-        code = code * k + c
-        size *= k
-    if code is None:
-        return np.zeros(len(rows) if rows is not None else 0, dtype=np.int64)
-    return np.asarray(pd.factorize(code)[0], dtype=np.int64)
-
-
-def _first_rows(codes: np.ndarray) -> np.ndarray:
-    """Position of the first row of each code, for codes numbered in order of first appearance
-    (0, 1, 2, ... as they first occur): where the running maximum steps up."""
-    if not codes.size:
-        return np.zeros(0, dtype=np.int64)
-    top = np.maximum.accumulate(codes)
-    step = np.ones(codes.size, dtype=bool)
-    step[1:] = top[1:] > top[:-1]
-    return np.flatnonzero(step)
-
-
-def _group_first(values: np.ndarray, order: np.ndarray, sorted_codes: np.ndarray, n_groups: int) -> np.ndarray:
-    """Per group: the first non-NaN value in row order (``groupby.first()``), NaN if none.
-
-    ``order`` is a stable argsort of the group codes, ``sorted_codes`` the codes in that order.
-    """
-    v = values[order]
-    out = np.full(n_groups, np.nan)
-    idx = np.flatnonzero(~np.isnan(v))
-    if idx.size:
-        seg = sorted_codes[idx]
-        new = np.ones(idx.size, dtype=bool)
-        new[1:] = seg[1:] != seg[:-1]
-        out[seg[new]] = v[idx[new]]
-    return out
-
-
-# the flag column parsed once per distinct string (shared with sites.py)
-_FlagIndex = FlagIndex
 
 
 def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None, exclude=None) -> pd.DataFrame:
@@ -258,82 +185,36 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None, e
     keep = np.flatnonzero(~roles.is_("empty"))
     temp_all = _f(wells, "temperature_c")
     conc_all = _f(wells, "substrate_conc_mM")
-    plate_c = _codes(wells["plate"])
-    t_c = _codes(_tkey(temp_all))
-    c_c = _codes(_ckey(conc_all))
-    kcode = _key_codes([plate_c, t_c, c_c], keep)            # plate x temperature x level, per kept well
-    pt_code = _key_codes([plate_c, t_c], keep)               # plate x temperature
+    plate_c = grp.codes(wells["plate"])
+    t_c = grp.codes(_tkey(temp_all))
+    c_c = grp.codes(_ckey(conc_all))
+    kcode = grp.group_index([plate_c, t_c, c_c], keep)       # plate x temperature x level, per kept well
+    pt_code = grp.group_index([plate_c, t_c], keep)          # plate x temperature
     K = int(kcode.max()) + 1 if kcode.size else 0
-    first = _first_rows(kcode)
-    rate = _f(wells, "rate_mM_per_h")[keep]
-    se_w = _f(wells, "rate_se_mM_per_h")[keep]
-    cens = (wells["censored"].astype("string").fillna("").to_numpy(dtype=object)[keep] != ""
-            if "censored" in wells.columns else np.zeros(len(keep), dtype=bool))
-    dropped = np.zeros(len(keep), dtype=bool) if exclude is None else np.asarray(exclude, dtype=bool)[keep]
-    blank = roles.is_("blank")[keep] & np.isfinite(rate) & ~cens & ~dropped
-    n_dropped = np.bincount(kcode[dropped & roles.is_("blank")[keep]], minlength=K)
-    z = _robust_z(np.where(blank, rate, np.nan), np.where(blank, kcode, -1), se_w)
-    out_b = blank & ~np.isnan(z) & (z > float(settings.outlier_z))
-    used = blank & ~out_b
-    bk = kcode[used]
-    n = np.bincount(bk, minlength=K).astype(float)
-    n_out = np.bincount(kcode[out_b], minlength=K)
-    mean = np.full(K, np.nan)
-    sd = np.full(K, np.nan)
-    one_se = np.full(K, np.nan)
-    one_df = np.full(K, np.nan)
-    fit_sd = np.full(K, np.nan)
-    if bk.size:
-        gb = pd.Series(rate[used]).groupby(bk, sort=True)
-        present = np.unique(bk)
-        mean[present] = gb.mean().to_numpy(dtype=float)
-        sd[present] = gb.std().to_numpy(dtype=float)
-        # the blanks' own fit errors (RMS): a floor under their scatter, as for catalysed replicates
-        fit_sd[present] = np.sqrt(pd.Series(se_w[used] ** 2).groupby(bk, sort=True).mean().to_numpy(dtype=float))
-        order = np.argsort(bk, kind="stable")
-        sorted_codes = bk[order]
-        one_se = _group_first(se_w[used], order, sorted_codes, K)
-        one_df = _group_first(_f(wells, "rate_df")[keep][used], order, sorted_codes, K)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        scatter = np.fmax(sd, fit_sd)
-        se = np.where(n >= 2, scatter / np.sqrt(n), np.where(n == 1, one_se, np.nan))
-    dfb = np.where(n >= 2, n - 1, np.where(n == 1, one_df, np.nan))
-    sd = np.where(n >= 2, sd, np.nan)
+    first = grp.first_rows(kcode)
+    m = _blank_means(wells, roles, keep, kcode, K, settings, exclude)
     conc_k = conc_all[keep][first]
-    pt_k = pt_code[first]
     # levels without blanks: the plate x temperature's best-provided level, scaled by substrate
-    src = np.arange(K)
-    missing = n == 0
-    if missing.any() and (n > 0).any():
-        have = np.flatnonzero(n > 0)
-        # per plate x temperature: the level with most blanks (then the lowest code: first seen)
-        best_of_pt = np.full(int(pt_k.max()) + 1, -1, dtype=np.int64)
-        order = np.lexsort((have, -n[have], pt_k[have]))
-        lead = np.ones(order.size, dtype=bool)
-        lead[1:] = pt_k[have][order][1:] != pt_k[have][order][:-1]
-        best_of_pt[pt_k[have][order][lead]] = have[order][lead]
-        cand = best_of_pt[pt_k]
-        fill = missing & (cand >= 0)
-        src = np.where(fill, cand, src)
-    scaled = missing & (src != np.arange(K))
+    src = _borrowed_levels(m["n"], pt_code[first], K)
+    scaled = (m["n"] == 0) & (src != np.arange(K))
     with np.errstate(invalid="ignore", divide="ignore"):
         factor = np.where(scaled, conc_k / conc_k[src], 1.0)
         factor = np.where(np.isfinite(factor), factor, np.nan)
-        mean_o, sd_o, se_o = mean[src] * factor, sd[src] * factor, se[src] * factor
-    n_o, dfb_o = n[src], dfb[src]
+        mean_o, sd_o, se_o = m["mean"][src] * factor, m["sd"][src] * factor, m["se"][src] * factor
+    n_o, dfb_o = m["n"][src], m["df"][src]
     lod = 3.0 * se_o
     detected = np.isfinite(mean_o) & (~np.isfinite(lod) | (mean_o >= lod))
-    flag_words, flag_codes = _FlagIndex(None, n=K).join_codes({
+    flag_words, flag_codes = FlagIndex(None, n=K).join_codes({
         "no_blank": n_o == 0,
         "single_blank": n_o == 1,
         "blank_below_lod": (n_o >= 1) & np.isfinite(lod) & (mean_o < lod),
         "blank_scaled": scaled & (n_o >= 1),
-        "blank_outlier_excluded": n_out > 0,
-        "blank_left_out": n_dropped > 0,
+        "blank_outlier_excluded": m["n_out"] > 0,
+        "blank_left_out": m["n_dropped"] > 0,
     })
     plate = wells["plate"].iloc[keep[first]].to_numpy(dtype=object)
     temperature = temp_all[keep][first]
-    by = _sort_order([plate, temperature, conc_k])
+    by = grp.sort_order([plate, temperature, conc_k])
     return pd.DataFrame({
         "plate": plate[by],
         "temperature_c": temperature[by],
@@ -347,8 +228,68 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None, e
         "blank_df": dfb_o[by],
         "blank_detected": (detected & (n_o >= 1))[by],
         "blank_conc_mM": conc_k[src][by],
-        "n_blank_outliers": n_out.astype(np.int64)[by],
+        "n_blank_outliers": m["n_out"].astype(np.int64)[by],
     })
+
+
+def _blank_means(wells: pd.DataFrame, roles: _Roles, keep: np.ndarray, kcode: np.ndarray, K: int,
+                 settings: AnalysisSettings, exclude) -> dict[str, np.ndarray]:
+    """Per level (``kcode`` of the kept wells ``keep``, K levels): the blank wells' mean, SD, SE
+    and df (``n``, ``mean``, ``sd``, ``se``, ``df``) after leaving out the replicate outliers
+    (``n_out``) and the blanks excluded on purpose (``n_dropped``), as :func:`blank_rates` says."""
+    rate = _f(wells, "rate_mM_per_h")[keep]
+    se_w = _f(wells, "rate_se_mM_per_h")[keep]
+    cens = (wells["censored"].astype("string").fillna("").to_numpy(dtype=object)[keep] != ""
+            if "censored" in wells.columns else np.zeros(len(keep), dtype=bool))
+    dropped = np.zeros(len(keep), dtype=bool) if exclude is None else np.asarray(exclude, dtype=bool)[keep]
+    is_blank = roles.is_("blank")[keep]
+    blank = is_blank & np.isfinite(rate) & ~cens & ~dropped
+    n_dropped = grp.group_count(kcode, K, dropped & is_blank)
+    z = _robust_z(np.where(blank, rate, np.nan), np.where(blank, kcode, -1), se_w)
+    out_b = blank & ~np.isnan(z) & (z > float(settings.outlier_z))
+    used = blank & ~out_b
+    bk = kcode[used]
+    n = grp.group_count(bk, K).astype(float)
+    n_out = grp.group_count(kcode, K, out_b)
+    mean = np.full(K, np.nan)
+    sd = np.full(K, np.nan)
+    one_se = np.full(K, np.nan)
+    one_df = np.full(K, np.nan)
+    fit_sd = np.full(K, np.nan)
+    if bk.size:
+        gb = pd.Series(rate[used]).groupby(bk, sort=True)
+        present = np.unique(bk)
+        mean[present] = gb.mean().to_numpy(dtype=float)
+        sd[present] = gb.std().to_numpy(dtype=float)
+        # the blanks' own fit errors (RMS): a floor under their scatter, as for catalysed replicates
+        fit_sd[present] = np.sqrt(pd.Series(se_w[used] ** 2).groupby(bk, sort=True).mean().to_numpy(dtype=float))
+        order, sorted_codes, _ = grp.group_order(bk, 0)
+        one_se = grp.group_first(se_w[used], order, sorted_codes, K)
+        one_df = grp.group_first(_f(wells, "rate_df")[keep][used], order, sorted_codes, K)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        scatter = np.fmax(sd, fit_sd)
+        se = np.where(n >= 2, scatter / np.sqrt(n), np.where(n == 1, one_se, np.nan))
+    return {"n": n, "mean": mean, "sd": np.where(n >= 2, sd, np.nan), "se": se,
+            "df": np.where(n >= 2, n - 1, np.where(n == 1, one_df, np.nan)), "n_out": n_out, "n_dropped": n_dropped}
+
+
+def _borrowed_levels(n: np.ndarray, pt_k: np.ndarray, K: int) -> np.ndarray:
+    """Per level: the level whose blanks it uses -- itself, or (no blank wells of its own, ``n``
+    = 0) the level of its plate x temperature (``pt_k``) with the most blank wells, then the one
+    seen first; itself again when its plate x temperature has no blanks at all."""
+    src = np.arange(K)
+    missing = n == 0
+    if missing.any() and (n > 0).any():
+        have = np.flatnonzero(n > 0)
+        best_of_pt = np.full(int(pt_k.max()) + 1, -1, dtype=np.int64)
+        order = np.lexsort((have, -n[have], pt_k[have]))
+        lead = np.ones(order.size, dtype=bool)
+        lead[1:] = pt_k[have][order][1:] != pt_k[have][order][:-1]
+        best_of_pt[pt_k[have][order][lead]] = have[order][lead]
+        cand = best_of_pt[pt_k]
+        fill = missing & (cand >= 0)
+        src = np.where(fill, cand, src)
+    return src
 
 
 def _ckey(conc) -> np.ndarray:
@@ -409,12 +350,11 @@ def _robust_z(values: np.ndarray, group_codes: np.ndarray, se: np.ndarray | None
     if not rows.size:
         return z
     # statistics over the rows in a group only (others take no part), groups renumbered 0..G-1
-    g, _ = pd.factorize(group_codes[rows])
-    g = np.asarray(g, dtype=np.int64)
+    g, _ = grp.factorize(group_codes[rows])
     G = int(g.max()) + 1
     x = values[rows]
-    cnt = np.bincount(g, minlength=G)
-    median = _Medians(g, G)
+    cnt = grp.group_count(g, G)
+    median = grp.Medians(g, G)
     med = median(x)[g]
     dev = np.abs(x - med)
     mad = median(dev)[g]
@@ -446,86 +386,6 @@ def _robust_z(values: np.ndarray, group_codes: np.ndarray, se: np.ndarray | None
     return z
 
 
-class _Medians:
-    """Group medians (``groupby.median``: the middle value, or the mean of the two middle values)
-    of several value arrays over one grouping. Small groups (the usual replicate sets) are laid
-    out as rows of a NaN-padded matrix and sorted row-wise (a matrix of equal-sized groups is a
-    single gather, and three values need no sort); larger ones by one sort of their rows."""
-
-    SMALL = 8
-
-    def __init__(self, g: np.ndarray, n_groups: int):
-        self.g = g
-        self.G = n_groups
-        cnt = np.bincount(g, minlength=n_groups)
-        order = np.argsort(g, kind="stable")
-        small_group = cnt <= self.SMALL
-        self.small = small_group[g]
-        self.small_groups = np.flatnonzero(small_group)
-        self.n_small = int(self.small_groups.size)
-        widths = cnt[small_group]
-        self.width = int(widths.max()) if self.n_small else 0
-        # rows of the small groups, group by group (matrix row i = small_groups[i])
-        self.perm = order[self.small[order]]
-        self.uniform = bool(self.n_small) and bool((widths == self.width).all()) and self.width > 0
-        if not self.uniform:
-            place = np.empty(g.size, dtype=np.int64)
-            place[order] = np.arange(g.size) - (np.cumsum(cnt) - cnt)[g[order]]
-            row_of = np.cumsum(small_group) - 1
-            self.cell = (row_of[g[self.small]], place[self.small])
-
-    def _small(self, x: np.ndarray) -> np.ndarray:
-        w = self.width
-        if self.uniform:
-            m = x[self.perm].reshape(self.n_small, w)
-            missing = np.isnan(m)
-            if w == 3 and not np.isposinf(m).any():
-                # three values sorted by min / max (missing ones last, as +inf)
-                m = np.where(missing, np.inf, m)
-                a, b, c = m[:, 0], m[:, 1], m[:, 2]
-                s0 = np.minimum(np.minimum(a, b), c)
-                s1 = np.maximum(np.minimum(a, b), np.minimum(np.maximum(a, b), c))
-                if not missing.any():
-                    return s1
-                k = 3 - missing.sum(axis=1)
-                return np.where(k == 3, s1, np.where(k == 2, (s0 + s1) / 2, np.where(k == 1, s0, np.nan)))
-            if not missing.any():
-                m = np.sort(m, axis=1)
-                lo, hi = m[:, (w - 1) // 2], m[:, w // 2]
-                return lo if w % 2 == 1 else (lo + hi) / 2
-        else:
-            m = np.full((self.n_small, w), np.nan)
-            m[self.cell] = x[self.small]
-        m.sort(axis=1)                                      # NaN (padding, missing) last
-        c = w - np.isnan(m).sum(axis=1)
-        r = np.arange(self.n_small)
-        lo = m[r, np.maximum(c - 1, 0) // 2]
-        hi = m[r, np.minimum(c // 2, w - 1)]
-        with np.errstate(over="ignore", invalid="ignore"):
-            med = np.where(c % 2 == 1, lo, (lo + hi) / 2)
-        return np.where(c > 0, med, np.nan)
-
-    def __call__(self, x: np.ndarray) -> np.ndarray:
-        """Per group: the median of its non-NaN values ``x`` (one per row of ``g``); NaN if none."""
-        out = np.full(self.G, np.nan)
-        if self.n_small and self.width:
-            with np.errstate(over="ignore"):
-                out[self.small_groups] = self._small(x)
-        big = ~self.small & ~np.isnan(x)
-        if big.any():
-            gb, xb = self.g[big], x[big]
-            order = np.lexsort((xb, gb))
-            xs, gs = xb[order], gb[order]
-            cnt = np.bincount(gs, minlength=self.G)
-            start = np.cumsum(cnt) - cnt
-            has = np.flatnonzero(cnt)
-            lo = xs[start[has] + (cnt[has] - 1) // 2]
-            hi = xs[start[has] + cnt[has] // 2]
-            with np.errstate(over="ignore"):
-                out[has] = np.where(cnt[has] % 2 == 1, lo, (lo + hi) / 2)
-        return out
-
-
 def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
                   settings: AnalysisSettings | None = None, excluded_blanks=None) -> pd.DataFrame:
     """The well_rates columns plus sites, blank correction, TOF, TON, enhancement and outliers.
@@ -545,16 +405,81 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     is_blank = roles.is_("blank")
     n_wells = len(wells)
     # each string column factorised once, shared by the site lookup and the replicate groups
-    parts = {c: _factorize(wells[c]) for c in ("catalyst", "loading_unit") if c in wells}
+    parts = {c: grp.factorize(wells[c]) for c in ("catalyst", "loading_unit") if c in wells}
 
     site_umol, site_basis, (site_words, site_codes) = _sites.site_arrays(wells, catalysts, factorized=parts)
     sites = np.where(catalysed, site_umol, np.nan)
-
-    # each well's blank row (same plate, temperature and substrate level) by position
     tkey = _tkey(_f(wells, "temperature_c"))
+    bl = _well_blanks(wells, blanks, tkey)
+    w = _net_rates(data, wells, bl, catalysed, sites, settings)
+    e = _enhancements(w, bl, catalysed, settings)
+
+    # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
+    keys = _group_keys(wells, factor_names)
+    known = {"temperature_c": grp.codes(tkey), "role": roles.key, **{c: grp.with_missing(*v) for c, v in parts.items()}}
+    replicates = np.where(catalysed, grp.group_index([known[k] if k in known else wells[k] for k in keys]), -1)
+    outlier, metric = _replicate_outliers(w, sites, catalysed, replicates, np.where(is_blank, bl["pt_code"], -1),
+                                          settings)
+
+    # flag columns are factorised: each distinct flag string is parsed once (no regex per row);
+    # the incoming flags and the site flags are combined per distinct pair
+    fi = FlagIndex(wells["flags"] if "flags" in wells else None, n=n_wells)
+    s_code = np.where(catalysed, site_codes, -1) if len(site_codes) else np.full(n_wells, -1)
+    words, pair = grp.merge_texts(fi.uniques, fi.codes, ["", *(str(x) for x in site_words)], s_code + 1)
+    flag_words, flag_codes = FlagIndex.from_codes(pair, words).join_codes({
+        "no_blank": (catalysed | is_blank) & ~bl["has_blank"],
+        "no_sites": catalysed & ~np.isfinite(sites),
+        "below_blank": catalysed & bl["has_blank"] & np.isfinite(w["net"]) & (w["net"] <= 0),
+        "enhancement_lower_bound": (e["lower"] | w["lower_w"]) & np.isfinite(e["enh"]),
+        "outlier": outlier,
+        # an outlier with no net activity among active replicates: a failed well, not chemistry
+        "failed_well": catalysed & outlier & ~(metric > 0),
+        "ton_capped": w["ton_capped"] & np.isfinite(w["ton"]),
+        "blank_left_out": (is_blank & np.asarray(excluded_blanks, dtype=bool)) if excluded_blanks is not None
+        else np.zeros(n_wells, dtype=bool),
+    })
+    censored = np.where(catalysed & w["lower_w"], "lower", np.where(w["upper_w"], "upper", ""))
+    with np.errstate(invalid="ignore"):
+        tof_bound = (np.where(w["upper_w"], np.maximum(w["net"], 0.0) + w["q_w"] * w["net_se"], w["net"])
+                     * w["amount_per_mM"] / sites)
+
+    new = {
+        "sites_umol": sites,
+        "site_basis": _sites.text_array(_sites.BASIS_WORDS, np.where(catalysed, site_basis, 0)),
+        "blank_rate_mM_per_h": bl["rate"],
+        "blank_se_mM_per_h": bl["se"],
+        "blank_lod_mM_per_h": bl["lod"],
+        "blank_df": bl["df"],
+        "net_rate_mM_per_h": w["net"],
+        "net_rate_se_mM_per_h": w["net_se"],
+        "tof_per_h": w["tof"],
+        "tof_se_per_h": w["tof_se"],
+        "tof_per_s": tof_per_s(w["tof"]),
+        "ton": w["ton"],
+        "enhancement": e["enh"],
+        "enhancement_ci_low": e["lo"],
+        "enhancement_ci_high": e["hi"],
+        "ln_enhancement_se": np.where(e["ok_ci"], e["ln_se"], np.nan),
+        "enhancement_df": np.where(e["ok_ci"], e["df"], np.nan),
+        "outlier": outlier,
+        "flags": _sites.text_array(flag_words, flag_codes),
+        "censored": pd.array(censored.astype(str), dtype="string"),
+        "tof_bound_per_h": np.where(censored != "", tof_bound, np.nan),
+        "tof_max_per_h": np.where(catalysed, w["tof_max"], np.nan),
+    }
+    out = _sites.with_columns(wells, new)
+    out.attrs["factor_names"] = factor_names
+    return out
+
+
+def _well_blanks(wells: pd.DataFrame, blanks: pd.DataFrame, tkey: np.ndarray) -> dict[str, np.ndarray]:
+    """Each well's blank (same plate, temperature and substrate level): its ``rate``, ``se``,
+    ``lod``, ``df``, ``detected`` and ``n`` from the blanks table (NaN / 0 / False without one),
+    ``has_blank`` (n >= 1) and ``pt_code``, the blank group (plate x temperature x level) of each well."""
+    n_wells = len(wells)
     ckey = _ckey(_f(wells, "substrate_conc_mM"))
-    plate_parts = _factorize(wells["plate"])
-    pt_code = _key_codes([_key_of(*plate_parts), _codes(tkey), _codes(ckey)])   # blank groups, per well
+    plate_parts = grp.factorize(wells["plate"])
+    pt_code = grp.group_index([grp.with_missing(*plate_parts), grp.codes(tkey), grp.codes(ckey)])
     brow = _blank_rows(plate_parts, tkey, ckey, blanks)
     found = brow >= 0
 
@@ -565,49 +490,66 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         return np.where(found, got, fill)
 
     n_bl = np.nan_to_num(from_blank("n_blanks", 0.0), nan=0.0)
-    b_rate = from_blank("blank_rate_mM_per_h")
-    b_se = from_blank("blank_se_mM_per_h")
-    b_lod = from_blank("blank_lod_mM_per_h")
-    b_df = from_blank("blank_df")
-    b_det = from_blank("blank_detected", False).astype(bool)
-    has_blank = n_bl >= 1
+    return {"pt_code": pt_code, "n": n_bl, "has_blank": n_bl >= 1,
+            "rate": from_blank("blank_rate_mM_per_h"), "se": from_blank("blank_se_mM_per_h"),
+            "lod": from_blank("blank_lod_mM_per_h"), "df": from_blank("blank_df"),
+            "detected": from_blank("blank_detected", False).astype(bool)}
 
+
+def _net_rates(data, wells: pd.DataFrame, bl: dict, catalysed: np.ndarray, sites: np.ndarray,
+               settings: AnalysisSettings) -> dict[str, np.ndarray]:
+    """Per well: the rate columns used below (``rate``, ``se_w``, ``df_w``, ``lower_w``: done
+    before its first reading), the net rate over its blank and its SE, TOF, TON (``ton_capped`` at
+    full conversion), ``tof_max`` and whether the net rate's interval reaches zero (``upper_w``,
+    with its t quantile ``q_w``); see the module docstring for the definitions."""
     rate = _f(wells, "rate_mM_per_h")
     se_w = _f(wells, "rate_se_mM_per_h")
     df_w = _f(wells, "rate_df")
     vol = _f(wells, "volume_uL")
+    conc = _f(wells, "substrate_conc_mM")
+    per_substrate = _product_per_substrate(data)
     lower_w = _text(wells, "censored") == "lower"
+    has_blank = bl["has_blank"]
     with np.errstate(invalid="ignore", divide="ignore"):
-        b_rate_c = np.where(has_blank, b_rate, 0.0)
-        b_se_c = np.where(has_blank, np.nan_to_num(b_se, nan=0.0), 0.0)
+        b_rate_c = np.where(has_blank, bl["rate"], 0.0)
+        b_se_c = np.where(has_blank, np.nan_to_num(bl["se"], nan=0.0), 0.0)
         net = np.where(catalysed, rate - b_rate_c, np.nan)
         net_se = np.where(catalysed & ~lower_w, np.sqrt(se_w ** 2 + b_se_c ** 2), np.nan)
         amount_per_mM = units.amount_umol(1.0, vol)          # umol per mM in this well
-        tof = net * amount_per_mM / sites
-        tof_se = net_se * amount_per_mM / sites
-        tof_max = (_f(wells, "max_rate_mM_per_h") - b_rate_c) * amount_per_mM / sites
         # TON: the background in a catalysed well runs on the substrate that well had left
         # (parallel pathways, the background first order in substrate): its product is the
         # blank's pseudo-first-order constant r_b / S0 times S0 x integral of (1 - X) dt
-        theo = _f(wells, "substrate_conc_mM") * _product_per_substrate(data)
         s_int = _f(wells, "substrate_integral_h")
-        k_b = b_rate_c / _f(wells, "substrate_conc_mM")
-        blank_product = np.where(np.isfinite(s_int), k_b * _f(wells, "substrate_conc_mM") * s_int
-                                 * _product_per_substrate(data), b_rate_c * _f(wells, "last_time_h"))
-        ton = (_f(wells, "last_product_mM") - blank_product) * amount_per_mM / sites
-        ton_capped = catalysed & (_f(wells, "last_conversion_pct") >= TON_FULL_CONVERSION_PCT)
-        del theo
-
+        k_b = b_rate_c / conc
+        blank_product = np.where(np.isfinite(s_int), k_b * conc * s_int * per_substrate,
+                                 b_rate_c * _f(wells, "last_time_h"))
         # not distinguishable from the blank: the net rate's interval reaches zero
         q_w = t_quantile(settings.confidence, np.where(catalysed & np.isfinite(net_se), welch_df(
-            se_w ** 2, df_w, b_se_c ** 2, b_df), np.nan))
-        upper_w = catalysed & ~lower_w & np.isfinite(net) & np.isfinite(q_w) & (net - q_w * net_se <= 0)
+            se_w ** 2, df_w, b_se_c ** 2, bl["df"]), np.nan))
+        return {
+            "rate": rate, "se_w": se_w, "df_w": df_w, "lower_w": lower_w,
+            "net": net, "net_se": net_se, "amount_per_mM": amount_per_mM,
+            "tof": net * amount_per_mM / sites,
+            "tof_se": net_se * amount_per_mM / sites,
+            "tof_max": (_f(wells, "max_rate_mM_per_h") - b_rate_c) * amount_per_mM / sites,
+            "ton": (_f(wells, "last_product_mM") - blank_product) * amount_per_mM / sites,
+            "ton_capped": catalysed & (_f(wells, "last_conversion_pct") >= TON_FULL_CONVERSION_PCT),
+            "q_w": q_w,
+            "upper_w": catalysed & ~lower_w & np.isfinite(net) & np.isfinite(q_w) & (net - q_w * net_se <= 0),
+        }
 
-        # enhancement: over a measured blank; over the blank's upper confidence limit when the
-        # blank is below its detection limit (a lower bound: the blank may be anywhere below it)
+
+def _enhancements(w: dict, bl: dict, catalysed: np.ndarray, settings: AnalysisSettings) -> dict[str, np.ndarray]:
+    """Per well: the rate enhancement over its blank (``enh``) with its log-scale CI (``lo``,
+    ``hi``, ``ln_se``, ``df``, ``ok_ci`` where the CI is given) and ``lower`` (a lower bound: over
+    the blank's upper confidence limit when the blank is below its detection limit, the blank may
+    be anywhere below it)."""
+    rate, se_w, df_w, lower_w = w["rate"], w["se_w"], w["df_w"], w["lower_w"]
+    b_rate, b_se, b_df, has_blank = bl["rate"], bl["se"], bl["df"], bl["has_blank"]
+    with np.errstate(invalid="ignore", divide="ignore"):
         q_b = t_quantile(settings.confidence, np.where(has_blank, b_df, np.nan))
         blank_hi = np.maximum(b_rate, 0.0) + np.where(np.isfinite(q_b), q_b, 3.0) * b_se
-        lower = catalysed & has_blank & ~b_det & np.isfinite(blank_hi) & (blank_hi > 0)
+        lower = catalysed & has_blank & ~bl["detected"] & np.isfinite(blank_hi) & (blank_hi > 0)
         denom = np.where(lower, blank_hi, b_rate)
         usable = catalysed & has_blank & np.isfinite(denom) & (denom > 0) & np.isfinite(rate)
         enh = np.where(usable, rate / denom, np.nan)
@@ -621,85 +563,32 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
         with np.errstate(over="ignore"):             # a log-scale bound beyond float range is inf
             e_lo = np.where(ok_ci, np.exp(ln_e - q * ln_se), np.nan)
             e_hi = np.where(ok_ci, np.where(lower, np.inf, np.exp(ln_e + q * ln_se)), np.nan)
-        # a well done before its first reading: its rate and enhancement are lower bounds
-        e_lo = np.where(usable & lower_w, enh, e_lo)
-        e_hi = np.where(usable & lower_w, np.inf, e_hi)
+    # a well done before its first reading: its rate and enhancement are lower bounds
+    e_lo = np.where(usable & lower_w, enh, e_lo)
+    e_hi = np.where(usable & lower_w, np.inf, e_hi)
+    return {"enh": enh, "lo": e_lo, "hi": e_hi, "ln_se": ln_se, "df": enh_df, "ok_ci": ok_ci, "lower": lower}
 
-    # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
-    metric = np.where(np.isfinite(tof), tof, rate)
-    keys = _group_keys(wells, factor_names)
-    known = {"temperature_c": _codes(tkey), "role": roles.key, **{c: _key_of(*v) for c, v in parts.items()}}
-    key_cols = [known[k] if k in known else wells[k] for k in keys]
-    codes_cat = np.where(catalysed, _key_codes(key_cols), -1)
-    codes_bl = np.where(is_blank, pt_code, -1)
+
+def _replicate_outliers(w: dict, sites: np.ndarray, catalysed: np.ndarray, replicates: np.ndarray,
+                        blank_groups: np.ndarray, settings: AnalysisSettings) -> tuple[np.ndarray, np.ndarray]:
+    """Outliers among replicates (robust z above ``settings.outlier_z``): catalysed wells within
+    their condition (``replicates``) on TOF, else rate; blanks within their plate x temperature x
+    level (``blank_groups``) on rate; -1 takes no part. Returns the outlier mask and the metric judged."""
+    metric = np.where(np.isfinite(w["tof"]), w["tof"], w["rate"])
     # each well's own measurement error (the shared blank's error is common to its replicates);
     # bounds (wells done before their first reading) are not measurements and take no part
     with np.errstate(invalid="ignore", divide="ignore"):
-        own_se = np.where(np.isfinite(tof), se_w * amount_per_mM / sites, se_w)
-    metric = np.where(lower_w, np.nan, metric)
-    z = np.where(catalysed, _robust_z(metric, codes_cat, own_se),
-                 _robust_z(np.where(lower_w, np.nan, rate), codes_bl, se_w))
-    outlier = ~np.isnan(z) & (z > float(settings.outlier_z))   # z = inf: a dead well among active ones
-
-    # flag columns are factorised: each distinct flag string is parsed once (no regex per row);
-    # the incoming flags and the site flags are combined per distinct pair
-    fi = _FlagIndex(wells["flags"] if "flags" in wells else None, n=n_wells)
-    s_code = np.where(catalysed, site_codes, -1) if len(site_codes) else np.full(n_wells, -1)
-    pair, pair_u = pd.factorize(fi.codes * (len(site_words) + 1) + (s_code + 1))
-    words = []
-    for c in np.asarray(pair_u, dtype=np.int64):                 # a loop over distinct pairs
-        base, sc = fi.uniques[int(c) // (len(site_words) + 1)], int(c) % (len(site_words) + 1) - 1
-        site = str(site_words[sc]) if sc >= 0 else ""
-        words.append(base if site == "" else (site if base == "" else base + ";" + site))
-    flag_words, flag_codes = _FlagIndex.from_codes(pair, words).join_codes({
-        "no_blank": (catalysed | is_blank) & ~has_blank,
-        "no_sites": catalysed & ~np.isfinite(sites),
-        "below_blank": catalysed & has_blank & np.isfinite(net) & (net <= 0),
-        "enhancement_lower_bound": (lower | lower_w) & np.isfinite(enh),
-        "outlier": outlier,
-        # an outlier with no net activity among active replicates: a failed well, not chemistry
-        "failed_well": catalysed & outlier & ~(metric > 0),
-        "ton_capped": ton_capped & np.isfinite(ton),
-        "blank_left_out": (is_blank & np.asarray(excluded_blanks, dtype=bool)) if excluded_blanks is not None
-        else np.zeros(n_wells, dtype=bool),
-    })
-    censored = np.where(catalysed & lower_w, "lower", np.where(upper_w, "upper", ""))
-    with np.errstate(invalid="ignore"):
-        tof_bound = np.where(upper_w, np.maximum(net, 0.0) + q_w * net_se, net) * amount_per_mM / sites
-
-    new = {
-        "sites_umol": sites,
-        "site_basis": _sites.text_array(_sites.BASIS_WORDS, np.where(catalysed, site_basis, 0)),
-        "blank_rate_mM_per_h": b_rate,
-        "blank_se_mM_per_h": b_se,
-        "blank_lod_mM_per_h": b_lod,
-        "blank_df": b_df,
-        "net_rate_mM_per_h": net,
-        "net_rate_se_mM_per_h": net_se,
-        "tof_per_h": tof,
-        "tof_se_per_h": tof_se,
-        "tof_per_s": tof_per_s(tof),
-        "ton": ton,
-        "enhancement": enh,
-        "enhancement_ci_low": e_lo,
-        "enhancement_ci_high": e_hi,
-        "ln_enhancement_se": np.where(ok_ci, ln_se, np.nan),
-        "enhancement_df": np.where(ok_ci, enh_df, np.nan),
-        "outlier": outlier,
-        "flags": _sites.text_array(flag_words, flag_codes),
-        "censored": pd.array(censored.astype(str), dtype="string"),
-        "tof_bound_per_h": np.where(censored != "", tof_bound, np.nan),
-        "tof_max_per_h": np.where(catalysed, tof_max, np.nan),
-    }
-    out = _sites.with_columns(wells, new)
-    out.attrs["factor_names"] = factor_names
-    return out
+        own_se = np.where(np.isfinite(w["tof"]), w["se_w"] * w["amount_per_mM"] / sites, w["se_w"])
+    metric = np.where(w["lower_w"], np.nan, metric)
+    z = np.where(catalysed, _robust_z(metric, replicates, own_se),
+                 _robust_z(np.where(w["lower_w"], np.nan, w["rate"]), blank_groups, w["se_w"]))
+    return ~np.isnan(z) & (z > float(settings.outlier_z)), metric   # z = inf: a dead well among active ones
 
 
 def _blank_rows(plate_parts, tkey: np.ndarray, ckey: np.ndarray, blanks: pd.DataFrame) -> np.ndarray:
     """For each well (plate, temperature key, substrate-level key): its row in ``blanks`` (the
     first one with that plate and keys), -1 when there is none. ``plate_parts`` is
-    :func:`_factorize` of the wells' plates (a missing plate matches one). A blanks table without
+    :func:`screenlab._groups.factorize` of the wells' plates (a missing plate matches one). A blanks table without
     a substrate column (one row per plate x temperature) is matched on plate and temperature."""
     n = len(tkey)
     if not len(blanks) or not n:
@@ -754,47 +643,6 @@ def _standard_flags(cat_code: np.ndarray, cond_code: np.ndarray, n_wells: np.nda
     return best[cond_code]
 
 
-def _plate_lists(group_codes: np.ndarray, n_groups: int, plate) -> tuple[np.ndarray, np.ndarray]:
-    """Per group: the number of distinct plates and their sorted names joined with ``;``.
-
-    Vectorised: distinct (group, plate) pairs sorted by group then plate name, then one
-    ``np.add.reduceat`` of the (separator-prefixed) names per group. ``plate`` may be an array or a
-    Series (Arrow strings are factorised without building Python strings per row).
-    """
-    if not len(group_codes):
-        return np.zeros(n_groups, np.int64), np.full(n_groups, "", dtype=object)
-    pcode, pnames = pd.factorize(plate, sort=True)          # codes in sorted name order
-    pcode = np.asarray(pcode, dtype=np.int64)
-    if (pcode < 0).any():                                   # a missing name counts as its text
-        pcode, pnames = pd.factorize(pd.Series(plate, copy=False).astype(str).to_numpy(dtype=object), sort=True)
-    # distinct (group, plate) pairs, sorted; a stable sort is fast on rows that come grouped
-    pair = np.sort(group_codes.astype(np.int64) * (len(pnames) + 1) + pcode, kind="stable")
-    pair = pair[np.concatenate(([True], pair[1:] != pair[:-1]))]
-    pg, pp = pair // (len(pnames) + 1), pair % (len(pnames) + 1)
-    n_plates = np.bincount(pg, minlength=n_groups).astype(np.int64)
-    names = np.asarray(pnames, dtype=object)[pp]
-    start = np.ones(len(pg), bool)
-    start[1:] = pg[1:] != pg[:-1]
-    names = np.where(start, names, ";" + names)
-    joined = np.full(n_groups, "", dtype=object)
-    joined[pg[start]] = np.add.reduceat(names, np.flatnonzero(start))
-    return n_plates, joined
-
-
-def _sort_order(columns) -> np.ndarray:
-    """Stable ascending order by several columns, missing values last (``DataFrame.sort_values``
-    with several keys), from per-column sorted factor codes."""
-    keys = []
-    for col in columns:
-        if isinstance(col, np.ndarray) and col.dtype.kind == "f":
-            keys.append(col)           # floats sort as they are (equal values keep their order, NaN last)
-            continue
-        c, u = pd.factorize(col, sort=True)
-        c = np.asarray(c, dtype=np.int64)
-        keys.append(np.where(c < 0, len(u), c))
-    return np.lexsort(keys[::-1])
-
-
 def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None,
                 factor_names=None, selectivity: pd.DataFrame | None = None) -> pd.DataFrame:
     """The "rates" table: one row per catalyst x temperature x condition (sample and reference wells).
@@ -829,29 +677,168 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     rate_all = _f(turnover, "rate_mM_per_h")
     # the catalysed wells with a rate, by position (no copy of the wide per-well frame)
     rows = np.flatnonzero(roles.is_("sample", "reference") & np.isfinite(rate_all))
-    fi = _FlagIndex(turnover["flags"])               # the flag column parsed once per distinct string
     keys = _group_keys(turnover, factors)
-    cond_cols = ["loading", "loading_unit", "substrate_conc_mM", *factors]
     if not rows.size:
-        cols = [*keys, "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_sd_per_h",
-                "tof_se_per_h", "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement",
-                "enhancement_ci_low", "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s",
-                "n_plates", "n_outliers", "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS, "censored", "rate_law",
-                "tof_max_per_h", "tof_rep_se_per_h"]
-        return pd.DataFrame(columns=cols)
-
-    def col(name):
-        return _f(turnover, name)[rows]
+        return pd.DataFrame(columns=[*keys, *_RATES_COLUMNS])
+    fi = FlagIndex(turnover["flags"])                # the flag column parsed once per distinct string
 
     def has(code):
         return fi.has(code)[rows]
 
     tkey = _tkey(turnover["temperature_c"])
-    col_codes = {k: _codes(tkey) if k == "temperature_c" else roles.key if k == "role" else _codes(turnover[k])
+    col_codes = {k: grp.codes(tkey) if k == "temperature_c" else roles.key if k == "role" else grp.codes(turnover[k])
                  for k in keys}
-    gcode = _key_codes([col_codes[k] for k in keys], rows)   # = groupby(keys, dropna=False, sort=False).ngroup()
+    gcode = grp.group_index([col_codes[k] for k in keys], rows)   # = groupby(keys, dropna=False, sort=False).ngroup()
     n_groups = int(gcode.max()) + 1
     failed = has("failed_well")
+    # wells done before their first reading carry lower bounds: the group is a bound when at least
+    # half of its wells are; otherwise those wells are left out and the others carry the estimate
+    lower_w = _text(turnover, "censored")[rows] == "lower"
+    n_with = grp.group_count(gcode, n_groups, ~failed)
+    n_low = grp.group_count(gcode, n_groups, lower_w & ~failed)
+    grp_lower = (n_low > 0) & (2 * n_low >= n_with)
+    part_lower = (n_low > 0) & ~grp_lower
+    # failed wells (flag failed_well) are shown per well but left out of every group statistic,
+    # and so are the bounds of a group that is not itself a bound
+    skip = failed | (lower_w & ~grp_lower[gcode])
+    stat = _well_statistics(turnover, rows, has("enhancement_lower_bound"), skip)
+
+    # group statistics: means and SDs by one pandas group-by over a float block (the same cython
+    # kernels as a per-column agg, so the same numbers); counts, first values, min, any / all by
+    # bincount over the group codes
+    moments = pd.DataFrame({c: stat[c] for c in ("rate", "tof", "ton", "ln_e", "b_tof2", "rel_b", "fit_se2",
+                                                  "tof_max")})
+    gb = moments.groupby(gcode, sort=True)                 # one grouping, shared by both reductions
+    mean = {c: v.to_numpy(dtype=float) for c, v in gb.mean().items()}
+    sdev = {c: v.to_numpy(dtype=float) for c, v in gb[["rate", "tof", "ton", "ln_e"]].std().items()}
+
+    def count(mask):
+        return grp.group_count(gcode, n_groups, mask)
+
+    order, sorted_codes, starts = grp.group_order(gcode, n_groups)
+
+    def first(name):
+        return grp.group_first(stat[name], order, sorted_codes, n_groups)
+
+    n_wells = count(~np.isnan(stat["rate"]))
+    n = count(~np.isnan(stat["tof"])).astype(float)
+    n_failed = count(failed)
+    outlier = (turnover["outlier"].to_numpy(dtype=bool)[rows] if "outlier" in turnover
+               else np.zeros(len(rows), bool))
+    n_out = count(outlier)
+    lb = count(has("enhancement_lower_bound")) > 0
+    nb = count(has("no_blank")) > 0
+    ns = count(~has("no_sites")) == 0
+    bdf = np.fmin.reduceat(_f(turnover, "blank_df")[rows][order], starts)   # min, missing values skipped
+    n_plates, plates = grp.joined_distinct(sorted_codes, n_groups, turnover["plate"].iloc[rows[order]])
+    # the group keys from each group's first row (keys are equal within a group)
+    first_row = rows[order[starts]]
+
+    t = _tof_intervals(mean, sdev, n, n_plates.astype(float), bdf, first("tof_se1"), first("rate_df1"), settings)
+    e = _enhancement_intervals(mean, sdev, count(~np.isnan(stat["ln_e"])).astype(float), n_plates.astype(float),
+                               bdf, lb, first("e_lo1"), first("e_hi1"), settings)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        nt = count(~np.isnan(stat["ton"])).astype(float)
+        ton_se = np.where(nt >= 2, sdev["ton"] / np.sqrt(nt), np.nan)
+        rate_se = np.where(n_wells >= 2, sdev["rate"] / np.sqrt(n_wells.astype(float)), np.nan)
+
+    # the standard condition of each catalyst: conditions numbered in order of first appearance
+    cond_cols = ["catalyst", "loading", "loading_unit", "substrate_conc_mM", *factors]
+    cond_code = grp.group_index([col_codes[c] for c in cond_cols], rows)[order[starts]]
+    loading = _f(turnover, "loading")[first_row]
+    conc = _f(turnover, "substrate_conc_mM")[first_row]
+    is_standard = _standard_flags(col_codes["catalyst"][0][first_row], cond_code, n_wells.astype(float),
+                                  loading, conc)
+    c = _censor_groups(t, e, n, nb, grp_lower)
+    law_text = _group_laws(turnover["method"].iloc[rows], gcode, n_groups, ~skip & ~lower_w, c["is_low"])
+    base = np.maximum(n_with, 1)
+
+    def most(code):
+        return 2 * grp.group_count(gcode, n_groups, has(code) & ~failed) > base
+
+    def any_of(code):
+        return grp.group_count(gcode, n_groups, has(code) & ~failed) > 0
+
+    flag_words, flag_codes = FlagIndex(None, n=n_groups).join_codes({
+        "single_well": n == 1,
+        "has_outlier": n_out > 0,
+        "excluded_failed_well": n_failed > 0,
+        "no_blank": nb,
+        "no_sites": ns,
+        "enhancement_lower_bound": (lb | c["is_low"]) & np.isfinite(e["mean"]),
+        "not_above_blank": c["not_above"],
+        "done_at_first_reading": c["is_low"],
+        "censored_replicate": part_lower,
+        "induction": most("induction"),
+        "deactivation": most("deactivation"),
+        "product_decline": most("product_decline"),
+        "law_misfit": most("law_misfit"),
+        "ton_capped": most("ton_capped"),
+        "above_full_scale": any_of("above_full_scale"),
+        "above_linear_range": any_of("above_linear_range"),
+    })
+    sel = _group_selectivity(turnover, rows, gcode, n_groups, selectivity, settings)
+    # the selectivity group flags follow this module's, per distinct pair of flag texts
+    sel_fi = FlagIndex(sel["flags"])
+    if any(sel_fi.uniques):
+        flag_words, flag_codes = grp.merge_texts(flag_words, flag_codes, sel_fi.uniques, sel_fi.codes)
+    # rows in the table's order (catalyst, temperature, loading, concentration; stable), taken once
+    by = grp.sort_order([turnover["catalyst"].iloc[first_row], tkey[first_row], loading, conc])
+    new = {
+        "temperature_c": tkey[first_row],
+        "n_wells": n_wells,
+        "rate_mM_per_h": mean["rate"],
+        "rate_sd_mM_per_h": sdev["rate"],
+        "tof_per_h": c["tof"],
+        "tof_sd_per_h": np.where(n >= 2, sdev["tof"], np.nan),
+        "tof_se_per_h": c["se"],
+        "tof_df": t["df"],
+        "tof_ci_low": c["lo"],
+        "tof_ci_high": c["hi"],
+        "ton": mean["ton"],
+        "ton_se": ton_se,
+        "enhancement": e["mean"],
+        "enhancement_ci_low": e["lo"],
+        "enhancement_ci_high": c["e_hi"],
+        "is_standard": is_standard,
+        "plates": plates,
+        "flags": flag_codes,
+        "tof_per_s": tof_per_s(c["tof"]),
+        "n_plates": n_plates,
+        "n_outliers": n_out,
+        "rate_se_mM_per_h": rate_se,
+        **{col: sel[col].to_numpy(dtype=float) for col in _selectivity.GROUP_COLUMNS},
+        "censored": c["censored"].astype(object),
+        "rate_law": law_text.astype(object),
+        "tof_max_per_h": mean["tof_max"],
+        "tof_rep_se_per_h": c["se"],
+    }
+    new = {col: v[by] for col, v in new.items()}
+    new["flags"] = _sites.text_array(flag_words, new["flags"])
+    new["censored"] = pd.array(new["censored"].astype(str), dtype="string")
+    new["rate_law"] = pd.array(new["rate_law"].astype(str), dtype="string")
+    res = _sites.frame_of(turnover, keys, first_row[by], new)
+    res.attrs["factor_names"] = factors
+    return res
+
+
+#: the columns of the rates table after its group keys
+_RATES_COLUMNS = ("n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_sd_per_h", "tof_se_per_h",
+                  "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement", "enhancement_ci_low",
+                  "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s", "n_plates", "n_outliers",
+                  "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS, "censored", "rate_law", "tof_max_per_h",
+                  "tof_rep_se_per_h")
+
+
+def _well_statistics(turnover: pd.DataFrame, rows: np.ndarray, lb_flag: np.ndarray,
+                     skip: np.ndarray) -> dict[str, np.ndarray]:
+    """The per-well values the group statistics reduce, for the wells ``rows`` (NaN where ``skip``):
+    rate, TOF, TON, ln enhancement, the blank's share of the TOF variance (``b_tof2``) and of the
+    relative enhancement variance (``rel_b``), the fit's own TOF variance (``fit_se2``), ``tof_max``,
+    and the single-well values (``tof_se1, rate_df1, e_lo1, e_hi1``)."""
+    def col(name):
+        return _f(turnover, name)[rows]
+
     tof = col("tof_per_h")
     amount_per_site = units.amount_umol(1.0, col("volume_uL")) / col("sites_umol")
     with np.errstate(invalid="ignore"):
@@ -861,18 +848,10 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         ln_enh = np.where(np.isfinite(enh) & (enh > 0) & np.isfinite(e_lo1), np.log(
             np.where(enh > 0, enh, 1.0)), np.nan)
         rel_b = (col("blank_se_mM_per_h") / col("blank_rate_mM_per_h")) ** 2
-    lb_flag = has("enhancement_lower_bound")
     tof = np.where(np.isfinite(tof), tof, np.nan)
-    # wells done before their first reading carry lower bounds: the group is a bound when at least
-    # half of its wells are; otherwise those wells are left out and the others carry the estimate
-    lower_w = _text(turnover, "censored")[rows] == "lower"
-    n_with = np.bincount(gcode[~failed], minlength=n_groups)
-    n_low = np.bincount(gcode[lower_w & ~failed], minlength=n_groups)
-    grp_lower = (n_low > 0) & (2 * n_low >= n_with)
-    part_lower = (n_low > 0) & ~grp_lower
     tof_se_w = col("tof_se_per_h")
     stat = {
-        "rate": rate_all[rows],
+        "rate": col("rate_mM_per_h"),
         "tof": tof,
         "ton": col("ton"),
         "ln_e": ln_enh,
@@ -885,49 +864,16 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         "e_lo1": e_lo1,
         "e_hi1": col("enhancement_ci_high"),
     }
-    # failed wells (flag failed_well) are shown per well but left out of every group statistic,
-    # and so are the bounds of a group that is not itself a bound
-    skip = failed | (lower_w & ~grp_lower[gcode])
     for v in stat.values():
         v[skip] = np.nan
-    blank_df = col("blank_df")
-    outlier = (turnover["outlier"].to_numpy(dtype=bool)[rows] if "outlier" in turnover
-               else np.zeros(len(rows), bool))
+    return stat
 
-    # group statistics: means and SDs by one pandas group-by over a float block (the same cython
-    # kernels as a per-column agg, so the same numbers); counts, first values, min, any / all by
-    # bincount over the group codes
-    moments = pd.DataFrame({c: stat[c] for c in ("rate", "tof", "ton", "ln_e", "b_tof2", "rel_b", "fit_se2",
-                                                  "tof_max")})
-    gb = moments.groupby(gcode, sort=True)                 # one grouping, shared by both reductions
-    mean = {c: v.to_numpy(dtype=float) for c, v in gb.mean().items()}
-    sdev = {c: v.to_numpy(dtype=float) for c, v in gb[["rate", "tof", "ton", "ln_e"]].std().items()}
 
-    def count(mask):
-        return np.bincount(gcode[mask], minlength=n_groups).astype(np.int64)
-
-    order = np.argsort(gcode, kind="stable")
-    sorted_codes = gcode[order]
-    starts = np.searchsorted(sorted_codes, np.arange(n_groups), side="left")
-    n_wells = count(~np.isnan(stat["rate"]))
-    n = count(~np.isnan(stat["tof"])).astype(float)
-    nt = count(~np.isnan(stat["ton"])).astype(float)
-    ne = count(~np.isnan(stat["ln_e"])).astype(float)
-    n_failed = count(failed)
-    n_out = count(outlier)
-    lb = count(lb_flag) > 0
-    nb = count(has("no_blank")) > 0
-    ns = count(~has("no_sites")) == 0
-    tof_se1 = _group_first(stat["tof_se1"], order, sorted_codes, n_groups)
-    rate_df1 = _group_first(stat["rate_df1"], order, sorted_codes, n_groups)
-    e_lo_1 = _group_first(stat["e_lo1"], order, sorted_codes, n_groups)
-    e_hi_1 = _group_first(stat["e_hi1"], order, sorted_codes, n_groups)
-    bdf = np.fmin.reduceat(blank_df[order], starts)          # min, missing values skipped
-    n_plates, plates = _plate_lists(sorted_codes, n_groups, turnover["plate"].iloc[rows[order]])
-    # the group keys from each group's first row (keys are equal within a group)
-    first_row = rows[order[starts]]
-
-    k = n_plates.astype(float)
+def _tof_intervals(mean: dict, sdev: dict, n: np.ndarray, k: np.ndarray, bdf: np.ndarray, tof_se1: np.ndarray,
+                   rate_df1: np.ndarray, settings: AnalysisSettings) -> dict[str, np.ndarray]:
+    """Per group: the mean TOF (``mean``), its SE, df, t quantile ``q`` and CI (``lo``, ``hi``)
+    from ``n`` wells on ``k`` plates (see :func:`group_rates`); a single well keeps its own SE
+    and fit df."""
     sd = sdev["tof"]
     b2 = np.nan_to_num(mean["b_tof2"], nan=0.0)
     fit2 = np.nan_to_num(mean["fit_se2"], nan=0.0)
@@ -940,10 +886,16 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         df = np.where(n >= 2, welch_df(v_rep, n - 1, v_blank, bdf), np.where(n == 1, rate_df1, np.nan))
         q = t_quantile(settings.confidence, df)
         tof_mean = mean["tof"]
-        lo = tof_mean - q * se
-        hi = tof_mean + q * se
-        ton_se = np.where(nt >= 2, sdev["ton"] / np.sqrt(nt), np.nan)
+        return {"mean": tof_mean, "se": se, "df": df, "q": q, "lo": tof_mean - q * se, "hi": tof_mean + q * se}
 
+
+def _enhancement_intervals(mean: dict, sdev: dict, ne: np.ndarray, k: np.ndarray, bdf: np.ndarray,
+                           lb: np.ndarray, e_lo_1: np.ndarray, e_hi_1: np.ndarray,
+                           settings: AnalysisSettings) -> dict[str, np.ndarray]:
+    """Per group: the geometric-mean enhancement of ``ne`` wells on ``k`` plates and its CI on the
+    log scale (``mean``, ``lo``, ``hi``; upper limit +inf for a lower bound ``lb``); a single well
+    keeps its own CI."""
+    with np.errstate(invalid="ignore", divide="ignore"):
         lnm = mean["ln_e"]
         v_ln = np.where(ne >= 2, sdev["ln_e"] ** 2 / ne, np.nan)
         v_lb = np.where(ne >= 2, np.nan_to_num(mean["rel_b"], nan=0.0) / k, 0.0)
@@ -952,117 +904,54 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         e_lo = np.where(ne >= 2, np.exp(lnm - qe * np.sqrt(v_ln + v_lb)), np.where(ne == 1, e_lo_1, np.nan))
         e_hi = np.where(ne >= 2, np.where(lb, np.inf, np.exp(lnm + qe * np.sqrt(v_ln + v_lb))),
                         np.where(ne == 1, e_hi_1, np.nan))
-        rate_se = np.where(n_wells >= 2, sdev["rate"] / np.sqrt(n_wells.astype(float)), np.nan)
+    return {"mean": e_mean, "lo": e_lo, "hi": e_hi}
 
-    # the standard condition of each catalyst: conditions numbered in order of first appearance
-    cond_code = _key_codes([col_codes[c] for c in ["catalyst", *cond_cols]], rows)[order[starts]]
-    loading = _f(turnover, "loading")[first_row]
-    conc = _f(turnover, "substrate_conc_mM")[first_row]
-    is_standard = _standard_flags(col_codes["catalyst"][0][first_row], cond_code, n_wells.astype(float),
-                                  loading, conc)
-    # bounds: a group of wells done before their first reading (lower), or not above its blank
-    not_above = (n >= 1) & ~nb & ~grp_lower & ((tof_mean <= 0) | (np.isfinite(lo) & (lo <= 0)))
-    censored = np.where(grp_lower & np.isfinite(tof_mean), "lower", np.where(not_above, "upper", ""))
+
+def _censor_groups(t: dict, e: dict, n: np.ndarray, nb: np.ndarray, grp_lower: np.ndarray) -> dict[str, np.ndarray]:
+    """The groups that are bounds: ``lower`` (wells done before their first reading, ``grp_lower``)
+    or ``upper`` (not above the blank: the TOF interval reaches zero). Returns ``censored``,
+    ``is_low``, ``not_above`` and the TOF columns as shown (``tof``, ``se``, ``lo``, ``hi``,
+    enhancement ``e_hi``), a bound in place of the estimate."""
+    tof_mean, se, q, lo, hi = t["mean"], t["se"], t["q"], t["lo"], t["hi"]
     with np.errstate(invalid="ignore"):
+        not_above = (n >= 1) & ~nb & ~grp_lower & ((tof_mean <= 0) | (np.isfinite(lo) & (lo <= 0)))
+        censored = np.where(grp_lower & np.isfinite(tof_mean), "lower", np.where(not_above, "upper", ""))
         upper_bound = np.maximum(tof_mean, 0.0) + np.where(np.isfinite(q * se), q * se, 0.0)
     is_up = censored == "upper"
     is_low = censored == "lower"
-    tof_out = np.where(is_up, upper_bound, tof_mean)
-    lo = np.where(is_up, np.nan, np.where(is_low, tof_mean, lo))
-    hi = np.where(is_up, upper_bound, np.where(is_low, np.nan, hi))
-    se = np.where(is_low, np.nan, se)
-    e_hi = np.where(is_low, np.inf, e_hi)
-    # the law of each group (the most used among its measured wells) and shapes most wells show
-    m_codes, m_words = pd.factorize(turnover["method"].iloc[rows].astype("string").fillna("no_data"))
-    m_codes = np.asarray(m_codes, dtype=np.int64)
-    measured = ~skip & ~lower_w
+    return {
+        "censored": censored, "is_low": is_low, "not_above": not_above,
+        "tof": np.where(is_up, upper_bound, tof_mean),
+        "lo": np.where(is_up, np.nan, np.where(is_low, tof_mean, lo)),
+        "hi": np.where(is_up, upper_bound, np.where(is_low, np.nan, hi)),
+        "se": np.where(is_low, np.nan, se),
+        "e_hi": np.where(is_low, np.inf, e["hi"]),
+    }
+
+
+def _group_laws(method: pd.Series, gcode: np.ndarray, n_groups: int, measured: np.ndarray,
+                is_low: np.ndarray) -> np.ndarray:
+    """Per group: the rate law most used among its ``measured`` wells (``method``), ""
+    without one, ``first_reading`` for a group of wells done before their first reading."""
+    m_codes, m_words = grp.factorize(method.astype("string").fillna("no_data"))
     M = max(len(m_words), 1)
     pair = np.bincount(gcode[measured] * M + m_codes[measured], minlength=n_groups * M).reshape(n_groups, M)
     law_words = np.array([str(w) for w in m_words] + [""], dtype=object)
     rate_law = np.where(pair.sum(axis=1) > 0, pair.argmax(axis=1), M if len(m_words) else 0)
     rate_law = np.where(is_low, -1, rate_law)
-    law_text = np.where(rate_law >= 0, law_words[np.clip(rate_law, 0, len(law_words) - 1)], "first_reading")
-    base = np.maximum(n_with, 1)
+    return np.where(rate_law >= 0, law_words[np.clip(rate_law, 0, len(law_words) - 1)], "first_reading")
 
-    def most(code):
-        return 2 * np.bincount(gcode[has(code) & ~failed], minlength=n_groups) > base
 
-    def any_of(code):
-        return np.bincount(gcode[has(code) & ~failed], minlength=n_groups) > 0
-
-    flag_words, flag_codes = _FlagIndex(None, n=n_groups).join_codes({
-        "single_well": n == 1,
-        "has_outlier": n_out > 0,
-        "excluded_failed_well": n_failed > 0,
-        "no_blank": nb,
-        "no_sites": ns,
-        "enhancement_lower_bound": (lb | is_low) & np.isfinite(e_mean),
-        "not_above_blank": not_above,
-        "done_at_first_reading": is_low,
-        "censored_replicate": part_lower,
-        "induction": most("induction"),
-        "deactivation": most("deactivation"),
-        "product_decline": most("product_decline"),
-        "law_misfit": most("law_misfit"),
-        "ton_capped": most("ton_capped"),
-        "above_full_scale": any_of("above_full_scale"),
-        "above_linear_range": any_of("above_linear_range"),
-    })
+def _group_selectivity(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray, n_groups: int,
+                       selectivity: pd.DataFrame | None, settings: AnalysisSettings) -> pd.DataFrame:
+    """The selectivity / ee group columns and flags (one row per group) of
+    :func:`screenlab.kinetics.selectivity.summarise_groups`; NaN without a selectivity table."""
     if selectivity is not None and len(selectivity):
         sel_cols = [c for c in selectivity.columns if c not in ("role", "catalyst", "temperature_c")]
         # each group row's selectivity row by position (a well without one takes no part: code -1)
         at = well_index(turnover["plate"].iloc[rows], turnover["well"].iloc[rows],
                         selectivity["plate"], selectivity["well"])
         aligned = selectivity[sel_cols].iloc[np.maximum(at, 0)].reset_index(drop=True)
-        sel = _selectivity.summarise_groups(aligned, np.where(at >= 0, gcode, -1), n_groups, settings.confidence)
-    else:
-        sel = _selectivity.summarise_groups(pd.DataFrame({"flags": []}), np.zeros(0, dtype=np.int64), n_groups,
-                                            settings.confidence)
-    # the selectivity group flags follow this module's, per distinct pair of flag texts
-    sel_fi = _FlagIndex(sel["flags"])
-    if any(sel_fi.uniques):
-        m = len(sel_fi.uniques)
-        flag_codes, pairs = pd.factorize(flag_codes * m + sel_fi.codes)
-        words = []
-        for c in np.asarray(pairs, dtype=np.int64):              # a loop over distinct pairs
-            cur, more = str(flag_words[c // m]), sel_fi.uniques[c % m]
-            words.append(cur if more == "" else (more if cur == "" else cur + ";" + more))
-        flag_words = np.array(words, dtype=object)
-    # rows in the table's order (catalyst, temperature, loading, concentration; stable), taken once
-    by = _sort_order([turnover["catalyst"].iloc[first_row], tkey[first_row], loading, conc])
-    new = {
-        "temperature_c": tkey[first_row],
-        "n_wells": n_wells,
-        "rate_mM_per_h": mean["rate"],
-        "rate_sd_mM_per_h": sdev["rate"],
-        "tof_per_h": tof_out,
-        "tof_sd_per_h": np.where(n >= 2, sd, np.nan),
-        "tof_se_per_h": se,
-        "tof_df": df,
-        "tof_ci_low": lo,
-        "tof_ci_high": hi,
-        "ton": mean["ton"],
-        "ton_se": ton_se,
-        "enhancement": e_mean,
-        "enhancement_ci_low": e_lo,
-        "enhancement_ci_high": e_hi,
-        "is_standard": is_standard,
-        "plates": plates,
-        "flags": flag_codes,
-        "tof_per_s": tof_per_s(tof_out),
-        "n_plates": n_plates,
-        "n_outliers": n_out,
-        "rate_se_mM_per_h": rate_se,
-        **{c: sel[c].to_numpy(dtype=float) for c in _selectivity.GROUP_COLUMNS},
-        "censored": censored.astype(object),
-        "rate_law": law_text.astype(object),
-        "tof_max_per_h": mean["tof_max"],
-        "tof_rep_se_per_h": se,
-    }
-    new = {c: v[by] for c, v in new.items()}
-    new["flags"] = _sites.text_array(flag_words, new["flags"])
-    new["censored"] = pd.array(new["censored"].astype(str), dtype="string")
-    new["rate_law"] = pd.array(new["rate_law"].astype(str), dtype="string")
-    res = _sites.frame_of(turnover, keys, first_row[by], new)
-    res.attrs["factor_names"] = factors
-    return res
+        return _selectivity.summarise_groups(aligned, np.where(at >= 0, gcode, -1), n_groups, settings.confidence)
+    return _selectivity.summarise_groups(pd.DataFrame({"flags": []}), np.zeros(0, dtype=np.int64), n_groups,
+                                         settings.confidence)
