@@ -421,23 +421,8 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     outlier, metric = _replicate_outliers(w, sites, catalysed, replicates, np.where(is_blank, bl["pt_code"], -1),
                                           settings)
 
-    # flag columns are factorised: each distinct flag string is parsed once (no regex per row);
-    # the incoming flags and the site flags are combined per distinct pair
-    fi = FlagIndex(wells["flags"] if "flags" in wells else None, n=n_wells)
-    s_code = np.where(catalysed, site_codes, -1) if len(site_codes) else np.full(n_wells, -1)
-    words, pair = grp.merge_texts(fi.uniques, fi.codes, ["", *(str(x) for x in site_words)], s_code + 1)
-    flag_words, flag_codes = FlagIndex.from_codes(pair, words).join_codes({
-        "no_blank": (catalysed | is_blank) & ~bl["has_blank"],
-        "no_sites": catalysed & ~np.isfinite(sites),
-        "below_blank": catalysed & bl["has_blank"] & np.isfinite(w["net"]) & (w["net"] <= 0),
-        "enhancement_lower_bound": (e["lower"] | w["lower_w"]) & np.isfinite(e["enh"]),
-        "outlier": outlier,
-        # an outlier with no net activity among active replicates: a failed well, not chemistry
-        "failed_well": catalysed & outlier & ~(metric > 0),
-        "ton_capped": w["ton_capped"] & np.isfinite(w["ton"]),
-        "blank_left_out": (is_blank & np.asarray(excluded_blanks, dtype=bool)) if excluded_blanks is not None
-        else np.zeros(n_wells, dtype=bool),
-    })
+    flag_words, flag_codes = _well_flags(wells, catalysed, is_blank, sites, (site_words, site_codes), bl, w, e,
+                                         outlier, metric, excluded_blanks)
     censored = np.where(catalysed & w["lower_w"], "lower", np.where(w["upper_w"], "upper", ""))
     with np.errstate(invalid="ignore"):
         tof_bound = (np.where(w["upper_w"], np.maximum(w["net"], 0.0) + w["q_w"] * w["net_se"], w["net"])
@@ -470,6 +455,33 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     out = _sites.with_columns(wells, new)
     out.attrs["factor_names"] = factor_names
     return out
+
+
+def _well_flags(wells: pd.DataFrame, catalysed: np.ndarray, is_blank: np.ndarray, sites: np.ndarray, site_flags,
+                bl: dict, w: dict, e: dict, outlier: np.ndarray, metric: np.ndarray,
+                excluded_blanks) -> tuple[np.ndarray, np.ndarray]:
+    """Each well's flags (distinct texts and a code per well): its incoming flags, its site flags
+    (``site_flags``: words and codes of :func:`screenlab.kinetics.sites.site_arrays`), then this
+    module's codes."""
+    n_wells = len(wells)
+    site_words, site_codes = site_flags
+    # flag columns are factorised: each distinct flag string is parsed once (no regex per row);
+    # the incoming flags and the site flags are combined per distinct pair
+    fi = FlagIndex(wells["flags"] if "flags" in wells else None, n=n_wells)
+    s_code = np.where(catalysed, site_codes, -1) if len(site_codes) else np.full(n_wells, -1)
+    words, pair = grp.merge_texts(fi.uniques, fi.codes, ["", *(str(x) for x in site_words)], s_code + 1)
+    return FlagIndex.from_codes(pair, words).join_codes({
+        "no_blank": (catalysed | is_blank) & ~bl["has_blank"],
+        "no_sites": catalysed & ~np.isfinite(sites),
+        "below_blank": catalysed & bl["has_blank"] & np.isfinite(w["net"]) & (w["net"] <= 0),
+        "enhancement_lower_bound": (e["lower"] | w["lower_w"]) & np.isfinite(e["enh"]),
+        "outlier": outlier,
+        # an outlier with no net activity among active replicates: a failed well, not chemistry
+        "failed_well": catalysed & outlier & ~(metric > 0),
+        "ton_capped": w["ton_capped"] & np.isfinite(w["ton"]),
+        "blank_left_out": (is_blank & np.asarray(excluded_blanks, dtype=bool)) if excluded_blanks is not None
+        else np.zeros(n_wells, dtype=bool),
+    })
 
 
 def _well_blanks(wells: pd.DataFrame, blanks: pd.DataFrame, tkey: np.ndarray) -> dict[str, np.ndarray]:
@@ -674,143 +686,89 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     settings = settings or AnalysisSettings()
     factors = _infer_factors(turnover, factor_names)
     roles = _Roles(turnover)
-    rate_all = _f(turnover, "rate_mM_per_h")
     # the catalysed wells with a rate, by position (no copy of the wide per-well frame)
-    rows = np.flatnonzero(roles.is_("sample", "reference") & np.isfinite(rate_all))
+    rows = np.flatnonzero(roles.is_("sample", "reference") & np.isfinite(_f(turnover, "rate_mM_per_h")))
     keys = _group_keys(turnover, factors)
     if not rows.size:
         return pd.DataFrame(columns=[*keys, *_RATES_COLUMNS])
     fi = FlagIndex(turnover["flags"])                # the flag column parsed once per distinct string
-
-    def has(code):
-        return fi.has(code)[rows]
-
     tkey = _tkey(turnover["temperature_c"])
     col_codes = {k: grp.codes(tkey) if k == "temperature_c" else roles.key if k == "role" else grp.codes(turnover[k])
                  for k in keys}
     gcode = grp.group_index([col_codes[k] for k in keys], rows)   # = groupby(keys, dropna=False, sort=False).ngroup()
     n_groups = int(gcode.max()) + 1
-    failed = has("failed_well")
-    # wells done before their first reading carry lower bounds: the group is a bound when at least
-    # half of its wells are; otherwise those wells are left out and the others carry the estimate
-    lower_w = _text(turnover, "censored")[rows] == "lower"
-    n_with = grp.group_count(gcode, n_groups, ~failed)
-    n_low = grp.group_count(gcode, n_groups, lower_w & ~failed)
-    grp_lower = (n_low > 0) & (2 * n_low >= n_with)
-    part_lower = (n_low > 0) & ~grp_lower
-    # failed wells (flag failed_well) are shown per well but left out of every group statistic,
-    # and so are the bounds of a group that is not itself a bound
-    skip = failed | (lower_w & ~grp_lower[gcode])
-    stat = _well_statistics(turnover, rows, has("enhancement_lower_bound"), skip)
-
-    # group statistics: means and SDs by one pandas group-by over a float block (the same cython
-    # kernels as a per-column agg, so the same numbers); counts, first values, min, any / all by
-    # bincount over the group codes
-    moments = pd.DataFrame({c: stat[c] for c in ("rate", "tof", "ton", "ln_e", "b_tof2", "rel_b", "fit_se2",
-                                                  "tof_max")})
-    gb = moments.groupby(gcode, sort=True)                 # one grouping, shared by both reductions
-    mean = {c: v.to_numpy(dtype=float) for c, v in gb.mean().items()}
-    sdev = {c: v.to_numpy(dtype=float) for c, v in gb[["rate", "tof", "ton", "ln_e"]].std().items()}
-
-    def count(mask):
-        return grp.group_count(gcode, n_groups, mask)
-
-    order, sorted_codes, starts = grp.group_order(gcode, n_groups)
-
-    def first(name):
-        return grp.group_first(stat[name], order, sorted_codes, n_groups)
-
-    n_wells = count(~np.isnan(stat["rate"]))
-    n = count(~np.isnan(stat["tof"])).astype(float)
-    n_failed = count(failed)
-    outlier = (turnover["outlier"].to_numpy(dtype=bool)[rows] if "outlier" in turnover
-               else np.zeros(len(rows), bool))
-    n_out = count(outlier)
-    lb = count(has("enhancement_lower_bound")) > 0
-    nb = count(has("no_blank")) > 0
-    ns = count(~has("no_sites")) == 0
-    bdf = np.fmin.reduceat(_f(turnover, "blank_df")[rows][order], starts)   # min, missing values skipped
-    n_plates, plates = grp.joined_distinct(sorted_codes, n_groups, turnover["plate"].iloc[rows[order]])
-    # the group keys from each group's first row (keys are equal within a group)
-    first_row = rows[order[starts]]
-
-    t = _tof_intervals(mean, sdev, n, n_plates.astype(float), bdf, first("tof_se1"), first("rate_df1"), settings)
-    e = _enhancement_intervals(mean, sdev, count(~np.isnan(stat["ln_e"])).astype(float), n_plates.astype(float),
-                               bdf, lb, first("e_lo1"), first("e_hi1"), settings)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        nt = count(~np.isnan(stat["ton"])).astype(float)
-        ton_se = np.where(nt >= 2, sdev["ton"] / np.sqrt(nt), np.nan)
-        rate_se = np.where(n_wells >= 2, sdev["rate"] / np.sqrt(n_wells.astype(float)), np.nan)
+    cw = _censored_wells(turnover, rows, gcode, n_groups, fi.has("failed_well")[rows])
+    stat = _well_statistics(turnover, rows, fi.has("enhancement_lower_bound")[rows], cw["skip"])
+    s = _group_summaries(turnover, rows, gcode, n_groups, stat, fi, settings)
+    first_row = s["first_row"]
 
     # the standard condition of each catalyst: conditions numbered in order of first appearance
     cond_cols = ["catalyst", "loading", "loading_unit", "substrate_conc_mM", *factors]
-    cond_code = grp.group_index([col_codes[c] for c in cond_cols], rows)[order[starts]]
+    cond_code = grp.group_index([col_codes[c] for c in cond_cols], rows)[s["first_pos"]]
     loading = _f(turnover, "loading")[first_row]
     conc = _f(turnover, "substrate_conc_mM")[first_row]
-    is_standard = _standard_flags(col_codes["catalyst"][0][first_row], cond_code, n_wells.astype(float),
+    is_standard = _standard_flags(col_codes["catalyst"][0][first_row], cond_code, s["n_wells"].astype(float),
                                   loading, conc)
-    c = _censor_groups(t, e, n, nb, grp_lower)
-    law_text = _group_laws(turnover["method"].iloc[rows], gcode, n_groups, ~skip & ~lower_w, c["is_low"])
-    base = np.maximum(n_with, 1)
-
-    def most(code):
-        return 2 * grp.group_count(gcode, n_groups, has(code) & ~failed) > base
-
-    def any_of(code):
-        return grp.group_count(gcode, n_groups, has(code) & ~failed) > 0
-
-    flag_words, flag_codes = FlagIndex(None, n=n_groups).join_codes({
-        "single_well": n == 1,
-        "has_outlier": n_out > 0,
-        "excluded_failed_well": n_failed > 0,
-        "no_blank": nb,
-        "no_sites": ns,
-        "enhancement_lower_bound": (lb | c["is_low"]) & np.isfinite(e["mean"]),
-        "not_above_blank": c["not_above"],
-        "done_at_first_reading": c["is_low"],
-        "censored_replicate": part_lower,
-        "induction": most("induction"),
-        "deactivation": most("deactivation"),
-        "product_decline": most("product_decline"),
-        "law_misfit": most("law_misfit"),
-        "ton_capped": most("ton_capped"),
-        "above_full_scale": any_of("above_full_scale"),
-        "above_linear_range": any_of("above_linear_range"),
-    })
+    t, e = s["tof"], s["enh"]
+    c = _censor_groups(t, e, s["n"], s["no_blank"], cw["grp_lower"])
+    law_text = _group_laws(turnover["method"].iloc[rows], gcode, n_groups, ~cw["skip"] & ~cw["lower_w"], c["is_low"])
+    flag_words, flag_codes = _group_flags(fi.has, rows, gcode, n_groups, cw, s, c, e)
     sel = _group_selectivity(turnover, rows, gcode, n_groups, selectivity, settings)
     # the selectivity group flags follow this module's, per distinct pair of flag texts
     sel_fi = FlagIndex(sel["flags"])
     if any(sel_fi.uniques):
         flag_words, flag_codes = grp.merge_texts(flag_words, flag_codes, sel_fi.uniques, sel_fi.codes)
+    return _rates_table(turnover, keys, factors, tkey, s, c, {
+        "is_standard": is_standard, "rate_law": law_text, "flags": (flag_words, flag_codes), "selectivity": sel,
+        "loading": loading, "conc": conc})
+
+
+#: the columns of the rates table after its group keys
+_RATES_COLUMNS = ("n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_sd_per_h", "tof_se_per_h",
+                  "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement", "enhancement_ci_low",
+                  "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s", "n_plates", "n_outliers",
+                  "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS, "censored", "rate_law", "tof_max_per_h",
+                  "tof_rep_se_per_h")
+
+
+def _rates_table(turnover: pd.DataFrame, keys: list[str], factors, tkey: np.ndarray, s: dict, c: dict,
+                 more: dict) -> pd.DataFrame:
+    """The rates table of :func:`group_rates` from its parts (``s`` of :func:`_group_summaries`,
+    ``c`` of :func:`_censor_groups`, ``more``: standard flags, laws, flags, selectivity and each
+    group's loading and concentration), rows sorted by catalyst, temperature, loading and
+    concentration (stable)."""
+    t, e, first_row = s["tof"], s["enh"], s["first_row"]
+    loading, conc, sel = more["loading"], more["conc"], more["selectivity"]
+    flag_words, flag_codes = more["flags"]
     # rows in the table's order (catalyst, temperature, loading, concentration; stable), taken once
     by = grp.sort_order([turnover["catalyst"].iloc[first_row], tkey[first_row], loading, conc])
     new = {
         "temperature_c": tkey[first_row],
-        "n_wells": n_wells,
-        "rate_mM_per_h": mean["rate"],
-        "rate_sd_mM_per_h": sdev["rate"],
+        "n_wells": s["n_wells"],
+        "rate_mM_per_h": s["mean"]["rate"],
+        "rate_sd_mM_per_h": s["sdev"]["rate"],
         "tof_per_h": c["tof"],
-        "tof_sd_per_h": np.where(n >= 2, sdev["tof"], np.nan),
+        "tof_sd_per_h": np.where(s["n"] >= 2, s["sdev"]["tof"], np.nan),
         "tof_se_per_h": c["se"],
         "tof_df": t["df"],
         "tof_ci_low": c["lo"],
         "tof_ci_high": c["hi"],
-        "ton": mean["ton"],
-        "ton_se": ton_se,
+        "ton": s["mean"]["ton"],
+        "ton_se": s["ton_se"],
         "enhancement": e["mean"],
         "enhancement_ci_low": e["lo"],
         "enhancement_ci_high": c["e_hi"],
-        "is_standard": is_standard,
-        "plates": plates,
+        "is_standard": more["is_standard"],
+        "plates": s["plates"],
         "flags": flag_codes,
         "tof_per_s": tof_per_s(c["tof"]),
-        "n_plates": n_plates,
-        "n_outliers": n_out,
-        "rate_se_mM_per_h": rate_se,
+        "n_plates": s["n_plates"],
+        "n_outliers": s["n_out"],
+        "rate_se_mM_per_h": s["rate_se"],
         **{col: sel[col].to_numpy(dtype=float) for col in _selectivity.GROUP_COLUMNS},
         "censored": c["censored"].astype(object),
-        "rate_law": law_text.astype(object),
-        "tof_max_per_h": mean["tof_max"],
+        "rate_law": more["rate_law"].astype(object),
+        "tof_max_per_h": s["mean"]["tof_max"],
         "tof_rep_se_per_h": c["se"],
     }
     new = {col: v[by] for col, v in new.items()}
@@ -822,12 +780,95 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     return res
 
 
-#: the columns of the rates table after its group keys
-_RATES_COLUMNS = ("n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_sd_per_h", "tof_se_per_h",
-                  "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement", "enhancement_ci_low",
-                  "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s", "n_plates", "n_outliers",
-                  "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS, "censored", "rate_law", "tof_max_per_h",
-                  "tof_rep_se_per_h")
+def _censored_wells(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray, n_groups: int,
+                    failed: np.ndarray) -> dict[str, np.ndarray]:
+    """Wells done before their first reading carry lower bounds: the group is a bound
+    (``grp_lower``) when at least half of its wells (``n_with``, failed wells not counted) are;
+    otherwise those wells are left out and the others carry the estimate (``part_lower``).
+    ``skip``: the wells left out of every group statistic -- failed wells (flag failed_well, shown
+    per well) and the bounds of a group that is not itself a bound."""
+    lower_w = _text(turnover, "censored")[rows] == "lower"
+    n_with = grp.group_count(gcode, n_groups, ~failed)
+    n_low = grp.group_count(gcode, n_groups, lower_w & ~failed)
+    grp_lower = (n_low > 0) & (2 * n_low >= n_with)
+    return {"lower_w": lower_w, "failed": failed, "n_with": n_with, "grp_lower": grp_lower,
+            "part_lower": (n_low > 0) & ~grp_lower, "skip": failed | (lower_w & ~grp_lower[gcode])}
+
+
+def _group_summaries(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray, n_groups: int, stat: dict,
+                     fi: FlagIndex, settings: AnalysisSettings) -> dict:
+    """The group statistics of :func:`group_rates` before censoring: means and SDs of ``stat``,
+    counts, the plates, each group's first row (``first_row`` of the frame, ``first_pos`` of ``rows``),
+    the TOF and enhancement intervals (``tof``, ``enh``) and the SEs of TON and rate.
+
+    Means and SDs come from one pandas group-by over a float block (the same cython kernels as a
+    per-column agg, so the same numbers); counts, first values and minima from bincounts and
+    reductions over the group codes."""
+    moments = pd.DataFrame({c: stat[c] for c in ("rate", "tof", "ton", "ln_e", "b_tof2", "rel_b", "fit_se2",
+                                                  "tof_max")})
+    gb = moments.groupby(gcode, sort=True)                 # one grouping, shared by both reductions
+    mean = {c: v.to_numpy(dtype=float) for c, v in gb.mean().items()}
+    sdev = {c: v.to_numpy(dtype=float) for c, v in gb[["rate", "tof", "ton", "ln_e"]].std().items()}
+
+    def count(mask):
+        return grp.group_count(gcode, n_groups, mask)
+
+    def has(code):
+        return fi.has(code)[rows]
+
+    order, sorted_codes, starts = grp.group_order(gcode, n_groups)
+
+    def first(name):
+        return grp.group_first(stat[name], order, sorted_codes, n_groups)
+
+    n_wells = count(~np.isnan(stat["rate"]))
+    n = count(~np.isnan(stat["tof"])).astype(float)
+    outlier = (turnover["outlier"].to_numpy(dtype=bool)[rows] if "outlier" in turnover
+               else np.zeros(len(rows), bool))
+    lb = count(has("enhancement_lower_bound")) > 0
+    bdf = np.fmin.reduceat(_f(turnover, "blank_df")[rows][order], starts)   # min, missing values skipped
+    n_plates, plates = grp.joined_distinct(sorted_codes, n_groups, turnover["plate"].iloc[rows[order]])
+    k = n_plates.astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        nt = count(~np.isnan(stat["ton"])).astype(float)
+        ton_se = np.where(nt >= 2, sdev["ton"] / np.sqrt(nt), np.nan)
+        rate_se = np.where(n_wells >= 2, sdev["rate"] / np.sqrt(n_wells.astype(float)), np.nan)
+    return {
+        "mean": mean, "sdev": sdev, "n_wells": n_wells, "n": n, "n_out": count(outlier),
+        "n_failed": count(has("failed_well")), "lower_bound": lb,
+        "no_blank": count(has("no_blank")) > 0, "no_sites": count(~has("no_sites")) == 0,
+        "n_plates": n_plates, "plates": plates, "first_pos": order[starts], "first_row": rows[order[starts]],
+        "tof": _tof_intervals(mean, sdev, n, k, bdf, first("tof_se1"), first("rate_df1"), settings),
+        "enh": _enhancement_intervals(mean, sdev, count(~np.isnan(stat["ln_e"])).astype(float), k, bdf, lb,
+                                      first("e_lo1"), first("e_hi1"), settings),
+        "ton_se": ton_se, "rate_se": rate_se,
+    }
+
+
+def _group_flags(has, rows: np.ndarray, gcode: np.ndarray, n_groups: int, cw: dict, s: dict, c: dict,
+                 e: dict) -> tuple[np.ndarray, np.ndarray]:
+    """The group flags (distinct texts and a code per group): from the group statistics, and the
+    shape flags most wells of the group carry (failed wells not counted)."""
+    failed = cw["failed"]
+    base = np.maximum(cw["n_with"], 1)
+
+    def hits(code):
+        return grp.group_count(gcode, n_groups, has(code)[rows] & ~failed)
+
+    return FlagIndex(None, n=n_groups).join_codes({
+        "single_well": s["n"] == 1,
+        "has_outlier": s["n_out"] > 0,
+        "excluded_failed_well": s["n_failed"] > 0,
+        "no_blank": s["no_blank"],
+        "no_sites": s["no_sites"],
+        "enhancement_lower_bound": (s["lower_bound"] | c["is_low"]) & np.isfinite(e["mean"]),
+        "not_above_blank": c["not_above"],
+        "done_at_first_reading": c["is_low"],
+        "censored_replicate": cw["part_lower"],
+        **{code: 2 * hits(code) > base for code in ("induction", "deactivation", "product_decline", "law_misfit",
+                                                    "ton_capped")},
+        **{code: hits(code) > 0 for code in ("above_full_scale", "above_linear_range")},
+    })
 
 
 def _well_statistics(turnover: pd.DataFrame, rows: np.ndarray, lb_flag: np.ndarray,
