@@ -39,6 +39,7 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
+from screenlab import _groups as grp
 from screenlab import units
 from screenlab.kinetics.sites import has_flag, join_flags
 from screenlab.kinetics.turnover import t_quantile, welch_df
@@ -74,11 +75,6 @@ COLUMNS = ["catalyst", "role", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mo
 LN_KB_OVER_H = float(np.log(units.KB_J_K / units.H_J_S))
 
 
-def _group_sum(codes, n_groups, values) -> np.ndarray:
-    """Sum of ``values`` per group code (0..n_groups-1), vectorised with np.bincount."""
-    return np.bincount(codes, weights=values, minlength=n_groups)
-
-
 def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h, se_per_h=None, *,
                           confidence=0.95, reference_temperature_c=60.0, low_ea_kj_mol=None,
                           tau2: float | None = None, tau2_df: float = np.inf) -> dict:
@@ -112,11 +108,7 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
     tkey = np.round(t_c, 6)
     n_pts = np.bincount(g, minlength=G)
     if len(g):
-        order = np.lexsort((tkey, g))
-        gs, ts = g[order], tkey[order]
-        new = np.ones(len(gs), bool)
-        new[1:] = (gs[1:] != gs[:-1]) | (ts[1:] != ts[:-1])
-        nt = np.bincount(gs[new], minlength=G)
+        nt = grp.count_distinct(g, tkey, G)
         t_min = np.full(G, np.inf)
         t_max = np.full(G, -np.inf)
         np.minimum.at(t_min, g, t_c)
@@ -155,20 +147,20 @@ def fit_temperature_batch(group_codes, n_groups: int, temperature_c, value_per_h
         x = 1.0 / T
         y = np.log(v)
         ye = y - np.log(3600.0) - np.log(T)        # Eyring: ln(k/T), k in s-1
-        s0 = _group_sum(g, G, w)
-        xbar = _group_sum(g, G, w * x) / s0
-        ybar = _group_sum(g, G, w * y) / s0
-        yebar = _group_sum(g, G, w * ye) / s0
+        s0 = grp.group_sum(g, G, w)
+        xbar = grp.group_sum(g, G, w * x) / s0
+        ybar = grp.group_sum(g, G, w * y) / s0
+        yebar = grp.group_sum(g, G, w * ye) / s0
         dx = x - xbar[g]
         dy = y - ybar[g]
         dye = ye - yebar[g]
-        sxx = _group_sum(g, G, w * dx * dx)
-        b1 = _group_sum(g, G, w * dx * dy) / sxx
-        e1 = _group_sum(g, G, w * dx * dye) / sxx
+        sxx = grp.group_sum(g, G, w * dx * dx)
+        b1 = grp.group_sum(g, G, w * dx * dy) / sxx
+        e1 = grp.group_sum(g, G, w * dx * dye) / sxx
         b0 = ybar - b1 * xbar
         e0 = yebar - e1 * xbar
-        rss = _group_sum(g, G, w * (dy - b1[g] * dx) ** 2)
-        rss_e = _group_sum(g, G, w * (dye - e1[g] * dx) ** 2)
+        rss = grp.group_sum(g, G, w * (dy - b1[g] * dx) ** 2)
+        rss_e = grp.group_sum(g, G, w * (dye - e1[g] * dx) ** 2)
         df = (n_pts - 2).astype(float)
         pos = fit & (df > 0)
         s2 = np.where(pos, rss / np.where(pos, df, 1.0), np.nan)
@@ -255,17 +247,17 @@ def _curvature_batch(g, G, x, y, w, n_pts, mask) -> np.ndarray:
     g, x, y, w = g[keep], x[keep], y[keep], w[keep]
     n = n_pts.astype(float)
     with np.errstate(invalid="ignore", divide="ignore"):
-        mean = _group_sum(g, G, x) / n
+        mean = grp.group_sum(g, G, x) / n
         d = x - mean[g]
-        sd = np.sqrt(_group_sum(g, G, d * d) / n)
+        sd = np.sqrt(grp.group_sum(g, G, d * d) / n)
         sd = np.where(np.isfinite(sd) & (sd > 0), sd, 1.0)
         xc = d / sd[g]
-        pw = [_group_sum(g, G, w * xc ** k) for k in range(5)]             # sum w xc^k, k = 0..4
+        pw = [grp.group_sum(g, G, w * xc ** k) for k in range(5)]             # sum w xc^k, k = 0..4
         m = np.empty((G, 3, 3))
         for i in range(3):
             for j in range(3):
                 m[:, i, j] = pw[i + j]
-        rhs = np.stack([_group_sum(g, G, w * y * xc ** k) for k in range(3)], axis=1)
+        rhs = np.stack([grp.group_sum(g, G, w * y * xc ** k) for k in range(3)], axis=1)
         m[~mask] = np.eye(3)
         rhs[~mask] = 0.0
         good = mask & np.isfinite(m).all(axis=(1, 2)) & np.isfinite(rhs).all(axis=1)
@@ -275,7 +267,7 @@ def _curvature_batch(g, G, x, y, w, n_pts, mask) -> np.ndarray:
         beta = np.einsum("gij,gj->gi", inv, rhs)
         res = y - (beta[g, 0] + beta[g, 1] * xc + beta[g, 2] * xc ** 2)
         df = n - 3
-        s2 = _group_sum(g, G, w * res * res) / np.where(mask, df, 1.0)
+        s2 = grp.group_sum(g, G, w * res * res) / np.where(mask, df, 1.0)
         se = np.sqrt(inv[:, 2, 2] * s2)
         b2 = beta[:, 2]
         tstat = np.abs(b2 / np.where(np.isfinite(se) & (se > 0), se, 1.0))
@@ -340,17 +332,17 @@ def plate_scatter(group_codes, n_groups: int, temperature_c, value, se) -> tuple
     if not g.size:
         return 0.0, np.inf
     w = 1.0 / v
-    s0 = _group_sum(g, G, w)
+    s0 = grp.group_sum(g, G, w)
     with np.errstate(invalid="ignore", divide="ignore"):
-        xbar = _group_sum(g, G, w * x) / s0
-        ybar = _group_sum(g, G, w * y) / s0
+        xbar = grp.group_sum(g, G, w * x) / s0
+        ybar = grp.group_sum(g, G, w * y) / s0
         dx = x - xbar[g]
-        sxx = _group_sum(g, G, w * dx * dx)
-        b1 = _group_sum(g, G, w * dx * (y - ybar[g])) / sxx
+        sxx = grp.group_sum(g, G, w * dx * dx)
+        b1 = grp.group_sum(g, G, w * dx * (y - ybar[g])) / sxx
         r = y - ybar[g] - b1[g] * dx
-        q = _group_sum(g, G, w * r * r)
+        q = grp.group_sum(g, G, w * r * r)
         # tr(M^-1 N) in centred coordinates: M = diag(S0, Sxx), N = [[sum w^2, sum w^2 dx], [., sum w^2 dx^2]]
-        tr = _group_sum(g, G, w * w) / s0 + _group_sum(g, G, w * w * dx * dx) / sxx
+        tr = grp.group_sum(g, G, w * w) / s0 + grp.group_sum(g, G, w * w * dx * dx) / sxx
     good = use & np.isfinite(q) & np.isfinite(tr)
     df = float(np.sum(n[good] - 2))
     denom = float(np.sum((s0 - tr)[good]))

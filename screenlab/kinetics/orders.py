@@ -22,6 +22,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from screenlab import _groups as grp
 from screenlab.kinetics.sites import join_flags
 from screenlab.kinetics.turnover import _infer_factors, _role, _tkey, t_quantile
 from screenlab.settings import AnalysisSettings
@@ -46,30 +47,18 @@ def _group_ols(gid: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int):
     """
     w = np.bincount(gid, minlength=n_groups).astype(float)
     with np.errstate(invalid="ignore", divide="ignore"):
-        mx = np.bincount(gid, x, n_groups) / w
-        my = np.bincount(gid, y, n_groups) / w
+        mx = grp.group_sum(gid, n_groups, x) / w
+        my = grp.group_sum(gid, n_groups, y) / w
         dx = x - mx[gid]
         dy = y - my[gid]
-        sxx = np.bincount(gid, dx * dx, n_groups)
-        sxy = np.bincount(gid, dx * dy, n_groups)
+        sxx = grp.group_sum(gid, n_groups, dx * dx)
+        sxy = grp.group_sum(gid, n_groups, dx * dy)
         slope = np.where(sxx > 0, sxy / np.where(sxx > 0, sxx, 1.0), np.nan)
         res = dy - slope[gid] * dx
-        rss = np.bincount(gid, res * res, n_groups)
+        rss = grp.group_sum(gid, n_groups, res * res)
         df = w - 2
         se = np.where(df > 0, np.sqrt(rss / np.where(df > 0, df, 1.0) / sxx), np.nan)
     return slope, se, df, w
-
-
-def _distinct_levels(gid: np.ndarray, lv: np.ndarray, mask: np.ndarray, n_groups: int) -> np.ndarray:
-    """Number of distinct values of ``lv[mask]`` in each group."""
-    g, v = gid[mask], lv[mask]
-    if g.size == 0:
-        return np.zeros(n_groups, dtype=np.int64)
-    order = np.lexsort((v, g))
-    g, v = g[order], v[order]
-    new = np.ones(g.size, dtype=bool)
-    new[1:] = (g[1:] != g[:-1]) | (v[1:] != v[:-1])
-    return np.bincount(g[new], minlength=n_groups)
 
 
 def _fixed_text(first: pd.DataFrame, fixed: list[str]) -> np.ndarray:
@@ -115,11 +104,11 @@ def apparent_orders(turnover: pd.DataFrame, settings: AnalysisSettings | None = 
         lv = pd.to_numeric(t[col], errors="coerce").to_numpy(float)
         pos = np.isfinite(lv) & (lv > 0)
         ok = pos & np.isfinite(net) & (net > 0)
-        n_levels = _distinct_levels(gid, lv, ok, n_groups)
-        keep = (_distinct_levels(gid, lv, pos, n_groups) >= 2) & (n_levels >= 2)
+        n_levels = grp.count_distinct(gid[ok], lv[ok], n_groups)
+        keep = (grp.count_distinct(gid[pos], lv[pos], n_groups) >= 2) & (n_levels >= 2)
         if not keep.any():
             continue
-        nonpos = np.bincount(gid, (np.isfinite(net) & (net <= 0)).astype(float), n_groups) > 0
+        nonpos = grp.group_sum(gid, n_groups, (np.isfinite(net) & (net <= 0)).astype(float)) > 0
         go = gid[ok]
         order, se, df, n_ok = _group_ols(go, np.log(lv[ok]), np.log(net[ok]), n_groups)
         q = np.asarray(t_quantile(settings.confidence, np.where(df > 0, df, np.nan)), dtype=float)
@@ -138,7 +127,7 @@ def apparent_orders(turnover: pd.DataFrame, settings: AnalysisSettings | None = 
         flag_cols = {"nonpositive_rates": nonpos, "no_replicates": df <= 0}
         if variable == "loading":
             okt = ok & np.isfinite(tof) & (tof > 0)
-            fit_t = _distinct_levels(gid, lv, okt, n_groups) >= 2
+            fit_t = grp.count_distinct(gid[okt], lv[okt], n_groups) >= 2
             gt = gid[okt]
             s, sse, sdf, _ = _group_ols(gt, np.log(lv[okt]), np.log(tof[okt]), n_groups)
             sq = np.asarray(t_quantile(settings.confidence, np.where(sdf > 0, sdf, np.nan)), dtype=float)

@@ -70,7 +70,9 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from screenlab.kinetics.sites import FlagIndex, join_flags, text_array
+from screenlab import _groups as grp
+from screenlab._groups import FlagIndex
+from screenlab.kinetics.sites import join_flags, text_array
 from screenlab.settings import AnalysisSettings
 from screenlab.uncertainty import t_quantile, welch_df
 
@@ -480,22 +482,10 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
             sd = scatter(present, gb["v"].std().to_numpy(dtype=float))
             dfsum = scatter(present, pd.Series(df_ok).groupby(g, sort=True).sum().to_numpy(dtype=float))
             n = np.bincount(g, minlength=G)[:G].astype(float)
-            order = np.argsort(g, kind="stable")
-            gs = g[order]
-            for dst, src in ((0, se_ok), (1, df_ok)):          # first non-missing value per group
-                vals = src[order]
-                idx = np.flatnonzero(~np.isnan(vals))
-                got = np.full(G, np.nan)
-                if idx.size:
-                    lead = np.ones(idx.size, dtype=bool)
-                    lead[1:] = gs[idx[1:]] != gs[idx[:-1]]
-                    got[gs[idx[lead]]] = vals[idx[lead]]
-                if dst == 0:
-                    se_first = got
-                else:
-                    df_first = got
-            pair = np.unique(g * (n_plate_names + 1) + plate_code[ok])
-            k = np.bincount(pair // (n_plate_names + 1), minlength=G)[:G].astype(float)
+            order, gs, _ = grp.group_order(g, 0)
+            se_first = grp.group_first(se_ok, order, gs, G)          # first non-missing value per group
+            df_first = grp.group_first(df_ok, order, gs, G)
+            k = grp.count_distinct(g, plate_code[ok], G)[:G].astype(float)      # plates per group
             k = np.where(n > 0, k, 1.0)
         with np.errstate(invalid="ignore", divide="ignore"):
             v_rep = sd ** 2 / n

@@ -81,6 +81,7 @@ import pandas as pd
 from scipy import special as _sp_special
 from scipy import stats as _st
 
+from screenlab import _groups
 from screenlab.errors import DataQualityWarning
 from screenlab.plates import format_dims, is_edge
 
@@ -433,16 +434,6 @@ def mannwhitneyu_grouped(values, in_x, group, n_groups: int) -> tuple[np.ndarray
     return u1, p
 
 
-def _group_ids(columns, rows: np.ndarray) -> np.ndarray:
-    """One integer id per selected row (boolean mask ``rows``) for the distinct combinations of
-    the given equal-length columns (NaN / NA is a level of its own, like ``groupby(dropna=False)``)."""
-    gid = np.zeros(int(np.count_nonzero(rows)), dtype=np.int64)
-    for col in columns:  # a loop over a handful of key columns
-        codes, uniques = pd.factorize(col, use_na_sentinel=False)
-        gid, _ = pd.factorize(gid * max(len(uniques), 1) + np.asarray(codes, dtype=np.int64)[rows])
-    return np.asarray(gid, dtype=np.int64)
-
-
 # --------------------------------------------------------------------------- Arrhenius prediction
 def predict_ln(arr: pd.DataFrame, catalyst: str, temperature_c) -> tuple[np.ndarray, np.ndarray]:
     """ln of one catalyst's Arrhenius prediction and its SE at temperatures (degC), via
@@ -611,7 +602,8 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate", contr
     keys = ["plate", "catalyst", "loading", "substrate_conc_mM", "temperature_c", *data.factor_names]
     keys = [k for k in keys if k in w]
     is_samp = known & (role == "sample")
-    gid = _group_ids([w["plate"].astype(str)] + [w[k] for k in keys if k != "plate"], is_samp)
+    gid = _groups.group_index([w["plate"].astype(str)] + [w[k] for k in keys if k != "plate"],
+                              np.flatnonzero(is_samp))
     s_rate, s_plate = rate[is_samp], p_i[is_samp]
     # replicate CVs
     has = ~np.isnan(s_rate)
