@@ -186,14 +186,17 @@ def joined_distinct(group_codes: np.ndarray, n_groups: int, names) -> tuple[np.n
     Vectorised: distinct (group, name) pairs sorted by group then name, then one
     ``np.add.reduceat`` of the (separator-prefixed) names per group. ``names`` may be an array or a
     Series (Arrow strings are factorised without building Python strings per row); a missing name
-    counts as its text (``str(value)``).
+    (None, NaN, NA) counts as the name ``nan``.
     """
     if not len(group_codes):
         return np.zeros(n_groups, np.int64), np.full(n_groups, "", dtype=object)
     pcode, pnames = pd.factorize(names, sort=True)          # codes in sorted name order
     pcode = np.asarray(pcode, dtype=np.int64)
-    if (pcode < 0).any():                                   # a missing name counts as its text
-        pcode, pnames = pd.factorize(pd.Series(names, copy=False).astype(str).to_numpy(dtype=object), sort=True)
+    if (pcode < 0).any():                                   # a missing name counts as "nan"
+        c, u = pd.factorize(pd.Series(names, copy=False).astype(object), use_na_sentinel=False)
+        text = np.array([str(v) for v in u], dtype=object)   # a loop over distinct names
+        pcode, pnames = pd.factorize(text[np.asarray(c, dtype=np.int64)], sort=True)
+        pcode = np.asarray(pcode, dtype=np.int64)
     # distinct (group, name) pairs, sorted; a stable sort is fast on rows that come grouped
     pair = np.sort(group_codes.astype(np.int64) * (len(pnames) + 1) + pcode, kind="stable")
     pair = pair[np.concatenate(([True], pair[1:] != pair[:-1]))]
