@@ -10,7 +10,6 @@ import pandas as pd
 from screenlab.export.shortlist import write_shortlist
 from screenlab.stats.quality import plate_quality
 from screenlab.stats.ranking import rank_candidates
-from test_quality_synthetic import make_campaign
 
 from screenlab.kinetics import KineticsResult
 
@@ -26,8 +25,8 @@ def _renamed(kin, data, mapping):
     return k, ren(data.catalysts)
 
 
-def test_shortlist_files_and_neutralising(tmp_path):
-    data, kin, _ = make_campaign(seed=31, n_cat=6)
+def test_shortlist_files_and_neutralising(tmp_path, quality_campaign):
+    data, kin, _ = quality_campaign(seed=31, n_cat=6)
     # give the four best candidates formula-like names
     order = kin.rates[kin.rates.temperature_c == 60].sort_values("tof_per_h", ascending=False)
     best = [c for c in order["catalyst"] if c != "REF"][:4]
