@@ -3,9 +3,11 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pytest
 
 from screenlab.errors import UsageError
+from screenlab.kinetics import amounts
 from screenlab.kinetics.amounts import product_amounts
 from screenlab.model import CampaignData, Manifest
 
@@ -114,3 +116,66 @@ def test_well_without_substrate_has_nan_conversion():
     d = _data([("P1", "A1", "product", 1.0, 3.0)], "product_conc", wells=wells)
     out = product_amounts(d)
     assert out["product_mM"].iloc[0] == 3.0 and np.isnan(out["conversion_pct"].iloc[0])
+
+
+# ------------------------------------------------------------------------------- the well lookup
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_well_index_matches_multiindex_lookup_in_any_order(seed):
+    rng = np.random.default_rng(seed)
+    plates = np.array(["P1", "P2", "P10", "x;y"], dtype=object)
+    wells = np.array(["A1", "A2", "B1", "H12"], dtype=object)
+    keys = pd.DataFrame([(p, w) for p in plates for w in wells], columns=["plate", "well"])
+    keys = keys.sample(frac=0.7, random_state=seed).reset_index(drop=True)      # some wells absent
+    n = 300
+    rows = pd.DataFrame({"plate": rng.choice(plates, n), "well": rng.choice(wells, n)})
+    rows = rows.sort_values(["plate", "well"]).reset_index(drop=True) if seed == 0 else rows
+    for dtype in ("str", object):
+        r = rows.astype(dtype)
+        k = keys.astype(dtype)
+        got = amounts.well_index(r["plate"], r["well"], k["plate"], k["well"])
+        # pandas reference: a MultiIndex lookup
+        ref = pd.MultiIndex.from_frame(k.astype(str)).get_indexer(pd.MultiIndex.from_frame(r.astype(str)))
+        np.testing.assert_array_equal(got, ref)
+
+
+def test_well_index_duplicate_keys_take_the_first():
+    k = pd.DataFrame({"plate": ["P", "P", "P"], "well": ["A1", "B1", "A1"]})
+    got = amounts.well_index(pd.Series(["P", "P", "Q"]), pd.Series(["A1", "B1", "A1"]), k["plate"], k["well"])
+    np.testing.assert_array_equal(got, [0, 1, -1])
+
+
+def test_product_amounts_equal_the_merge_reference(small_synthetic):
+    campaign = small_synthetic
+    got = amounts.product_amounts(campaign)
+    rd = campaign.readings[["plate", "well", "analyte", "time_h", "value"]]
+    w = campaign.wells[["plate", "well", "substrate_conc_mM"]].drop_duplicates(["plate", "well"])
+    ref = rd.merge(w, on=["plate", "well"], how="left")          # pandas reference: a left merge
+    theo = ref["substrate_conc_mM"].to_numpy(float) * float(campaign.manifest.product_per_substrate)
+    product = ref["value"].to_numpy(float) * 0.01 * theo               # synthetic yields are percent
+    assert list(got.columns) == list(amounts.AMOUNT_COLUMNS)
+    np.testing.assert_allclose(got["product_mM"], product, rtol=1e-14, equal_nan=True)
+    np.testing.assert_allclose(got["conversion_pct"], ref["value"].to_numpy(float), rtol=1e-12, equal_nan=True)
+    assert (got["well"].to_numpy(object) == ref["well"].to_numpy(object)).all()
+
+
+@pytest.mark.parametrize("chunks", [1, 3])
+def test_well_index_arrow_path_with_missing_values_and_chunks(chunks):
+    rng = np.random.default_rng(chunks)
+    plates = np.array(["P1", "P2", None], dtype=object)
+    wells = np.array(["A1", "B2", None], dtype=object)
+    keys = pd.DataFrame({"plate": rng.choice(plates, 12), "well": rng.choice(wells, 12)})
+    rows = pd.DataFrame({"plate": rng.choice(plates, 200), "well": rng.choice(wells, 200)})
+    rows = rows.sort_values(["plate", "well"], na_position="last").reset_index(drop=True)
+
+    def arrow(values):
+        arr = pa.array([None if pd.isna(v) else v for v in values], type=pa.large_string())
+        parts = np.array_split(np.arange(len(arr)), chunks)
+        return pd.Series(pd.arrays.ArrowStringArray(pa.chunked_array([arr.take(pa.array(p)) for p in parts])),
+                         dtype="str")
+
+    got = amounts.well_index(arrow(rows["plate"]), arrow(rows["well"]), arrow(keys["plate"]), arrow(keys["well"]))
+    # the object-column path (checked against pandas above) as the reference for the Arrow path
+    ref = amounts.well_index(rows["plate"].astype(object), rows["well"].astype(object),
+                             keys["plate"].astype(object), keys["well"].astype(object))
+    np.testing.assert_array_equal(got, ref)

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import time
+import warnings
 
 import numpy as np
 import pytest
@@ -185,3 +186,27 @@ def test_speed_first_order_32500_wells(capsys):
     with capsys.disabled():
         print(f"\n[speed] fit_lines {G} wells x 8: {t1 - t0:.3f} s; fit_first_order: {t2 - t1:.3f} s")
     assert r.ok.mean() > 0.99
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_first_order_fit_reaches_the_curve_fit_minimum_on_random_courses(seed):
+    rng = np.random.default_rng(seed)
+    G, m = 60, 8
+    t = np.tile(np.array([0, 0.1, 0.25, 0.5, 1, 1.5, 2.5, 4.0]), G)
+    b1 = rng.uniform(5, 50, G)
+    k = np.exp(rng.uniform(np.log(0.05), np.log(8.0), G))
+    g = np.repeat(np.arange(G), m)
+    y = b1[g] * -np.expm1(-k[g] * t) * (1 + 0.02 * rng.standard_normal(G * m))
+    res = fit.fit_first_order(t, y, g, G)
+    checked = 0
+    for i in np.flatnonzero(res.status == fit.OK):    # reference loop, test only
+        sl = g == i
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            popt, _ = optimize.curve_fit(lambda x, a, kk: a * -np.expm1(-kk * x), t[sl], y[sl],
+                                         p0=(b1[i], k[i]), xtol=1e-14, ftol=1e-14, maxfev=20000)
+        rss_ref = np.sum((y[sl] - popt[0] * -np.expm1(-popt[1] * t[sl])) ** 2)
+        assert res.rss[i] <= rss_ref * (1 + 1e-9) + 1e-18
+        assert res.k[i] == pytest.approx(popt[1], rel=1e-5)
+        checked += 1
+    assert checked > G // 2

@@ -16,7 +16,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from screenlab.kinetics import analyse_kinetics
+from screenlab.kinetics import analyse_kinetics, selectivity, sites
 from screenlab.kinetics.amounts import product_amounts
 from screenlab.kinetics.selectivity import FLAGS, origin_fit, summarise_groups, well_selectivity
 from screenlab.kinetics.turnover import FLAGS as TURNOVER_FLAGS
@@ -459,3 +459,87 @@ def test_cli_rates_shows_selectivity_and_ee(tmp_path, capsys):
     wells = pd.read_csv(io.StringIO(capsys.readouterr().out))
     assert {"selectivity_pct", "selectivity_se", "ee_pct", "ee_se"} <= set(wells.columns)
     assert wells["ee_pct"].notna().sum() == len(wells)
+
+
+# ------------------------------------------------------------------------------- group summaries
+
+def _summarise_groups_pandas(rows, codes, n_groups, confidence=0.95):
+    """The group summary by one pandas group-by agg per quantity (size, mean, std, first, nunique,
+    sum: the outside reference), combined as the summarise_groups docstring states: SE =
+    sqrt(SD^2/n + mean blank variance / plates), df by Welch-Satterthwaite on the wells' own fit
+    variances (capped by the summed fit df, at least n - 1), t quantile of scipy.stats; a group
+    flag where at least half of the wells with a value carry it (a regular expression per token)."""
+    codes = np.asarray(codes)
+    G = int(n_groups)
+    out = pd.DataFrame(index=pd.RangeIndex(G))
+    flag_masks = {}
+    wflags = rows["flags"].astype(object).where(rows["flags"].notna(), "").astype(str) if "flags" in rows \
+        else pd.Series([""] * len(rows))
+    any_value = np.zeros(len(rows), dtype=bool)
+    for key in ("selectivity", "ee"):
+        def num(c, default):
+            return pd.to_numeric(rows[c], errors="coerce").to_numpy(dtype=float) if c in rows \
+                else np.full(len(rows), default)
+        v, se1, df1, bse = num(f"{key}_pct", np.nan), num(f"{key}_se", np.nan), num(f"{key}_df", np.nan), \
+            num(f"{key}_blank_se", 0.0)
+        plate = rows["plate"].astype(str).to_numpy(dtype=object) if "plate" in rows else np.zeros(len(rows))
+        ok = np.isfinite(v) & (codes >= 0)
+        frame = pd.DataFrame({"g": codes[ok], "v": v[ok], "se": se1[ok], "df": df1[ok],
+                              "b2": np.nan_to_num(bse[ok], nan=0.0) ** 2, "plate": plate[ok]})
+        frame["fit2"] = frame["se"] ** 2 - frame["b2"]
+        frame["dfs"] = frame["df"]
+        a = frame.groupby("g").agg(n=("v", "size"), mean=("v", "mean"), sd=("v", "std"),
+                                   se1=("se", "first"), df1=("df", "first"), b2=("b2", "mean"),
+                                   k=("plate", "nunique"), fit2=("fit2", "mean"),
+                                   dfsum=("dfs", "sum")).reindex(range(G))
+        n = a["n"].fillna(0).to_numpy(dtype=float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            v_rep = a["sd"].to_numpy(float) ** 2 / n
+            v_bl = a["b2"].fillna(0.0).to_numpy(float) / a["k"].fillna(1.0).to_numpy(float)
+            se = np.where(n >= 2, np.sqrt(v_rep + v_bl), np.where(n == 1, a["se1"].to_numpy(float), np.nan))
+            v_exp = np.maximum(a["fit2"].to_numpy(float), 0.0) / n
+            df = np.where(n >= 2, np.minimum(selectivity._welch(v_exp, n - 1.0, v_bl, np.inf),
+                                             a["dfsum"].to_numpy(float)),
+                          np.where(n == 1, a["df1"].to_numpy(float), np.nan))
+            df = np.where((n >= 2) & ~np.isfinite(df), n - 1.0, np.maximum(df, n - 1.0))
+            ok_q = np.isfinite(df) & (df > 0)
+            q = np.where(ok_q, stats.t.ppf(0.5 + confidence / 2.0, np.where(ok_q, df, 1.0)), np.nan)
+            mean = a["mean"].to_numpy(dtype=float)
+        out[f"{key}_pct"] = mean
+        out[f"{key}_se"] = se
+        out[f"{key}_df"] = df
+        out[f"{key}_ci_low"] = mean - q * se
+        out[f"{key}_ci_high"] = mean + q * se
+        any_value |= ok
+    c_any = codes[any_value].astype(np.int64)
+    n_any = np.bincount(c_any, minlength=G)[:G].astype(float)
+    for code in ("selectivity_drift", "selectivity_low_product", "background_dominant", "ee_drift",
+                 "ee_low_product"):
+        has = wflags.str.contains(rf"(?:^|;){code}(?:;|$)", regex=True).to_numpy(dtype=bool)
+        cnt = np.bincount(c_any, weights=has[any_value].astype(float), minlength=G)[:G]
+        flag_masks[code] = (n_any > 0) & (cnt >= 0.5 * n_any) & (cnt > 0)
+    out["flags"] = sites.join_flags(None, flag_masks, index=out.index).to_numpy(dtype=object)
+    return out[[*selectivity.GROUP_COLUMNS, "flags"]]
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_summarise_groups_equals_the_pandas_formulation(seed):
+    rng = np.random.default_rng(seed)
+    n, G = 400, 70
+    rows = pd.DataFrame({
+        "plate": rng.choice(["P1", "P2", "P3"], n),
+        "selectivity_pct": np.where(rng.random(n) < 0.8, rng.normal(90, 5, n), np.nan),
+        "selectivity_se": np.where(rng.random(n) < 0.9, rng.uniform(0.1, 3, n), np.nan),
+        "selectivity_df": rng.integers(1, 8, n).astype(float),
+        "selectivity_blank_se": np.where(rng.random(n) < 0.5, rng.uniform(0, 1, n), np.nan),
+        "ee_pct": np.where(rng.random(n) < 0.6, rng.normal(40, 10, n), np.nan),
+        "ee_se": rng.uniform(0.1, 3, n),
+        "ee_df": rng.uniform(1, 9, n),
+        "flags": pd.Series(rng.choice(["", "ee_drift", "selectivity_low_product;ee_drift", None], n), dtype=object),
+    })
+    codes = np.where(rng.random(n) < 0.1, -1, rng.integers(0, G - 5, n))      # some groups empty
+    pd.testing.assert_frame_equal(selectivity.summarise_groups(rows, codes, G, 0.9),
+                                  _summarise_groups_pandas(rows, codes, G, 0.9))
+    empty = pd.DataFrame({"flags": []})
+    pd.testing.assert_frame_equal(selectivity.summarise_groups(empty, np.zeros(0, dtype=np.int64), G),
+                                  _summarise_groups_pandas(empty, np.zeros(0, dtype=np.int64), G))

@@ -1,9 +1,16 @@
-"""Blanks, TOF/TON, enhancement and the per-group table (screenlab.kinetics.turnover)."""
+"""Blanks, TOF/TON, enhancement and the per-group table (screenlab.kinetics.turnover).
+
+Besides the worked cases, the replicate outlier score is checked against its rule written out
+group by group, the blank lookup against a pandas left merge, and the per-group table of a seeded
+synthetic campaign (``turnover_stages`` fixture) against a pandas group-by.
+"""
 import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
 
+from screenlab import _groups as grp
+from screenlab.kinetics import turnover
 from screenlab.kinetics.sites import has_flag
 from screenlab.kinetics.turnover import FLAGS, blank_rates, group_rates, tof_per_s, well_turnover
 from screenlab.settings import AnalysisSettings
@@ -330,3 +337,149 @@ def test_group_se_never_below_the_wells_own_fit_errors():
     c1 = _group(blanks + reps).loc["C1"]
     tof_per_rate = 1.0 / 0.5          # 1000 uL x 1e-3 / (0.5 mol% of 100 umol = 0.5 umol)
     assert c1.tof_rep_se_per_h == pytest.approx(0.5 / np.sqrt(3) * tof_per_rate, rel=1e-6)
+
+
+# ------------------------------------------------------------------------------- replicate outliers
+
+def robust_z_rule(values, groups, se=None):
+    """The replicate outlier score written out group by group (a test-only loop), as the turnover
+    module docstring states it: the modified z of Iglewicz & Hoaglin ("How to Detect and Handle
+    Outliers", ASQC 1993), 0.6745 |x - median| / MAD, within each group of three or more finite
+    values; with MAD = 0, |x - median| / (1.253314 x mean absolute deviation) (common practice, no
+    source); a group with a positive median (active) is judged on ln x against the MAD of ln x
+    pooled over all active groups (non-zero deviations), a non-positive value there scoring inf;
+    with ``se``, the score is capped at |x - median| / se."""
+    values = np.asarray(values, dtype=float)
+    groups = np.asarray(groups)
+    ok = np.isfinite(values) & (groups >= 0)
+    members = {g: np.flatnonzero(ok & (groups == g)) for g in np.unique(groups[ok])}
+    active = {g: idx for g, idx in members.items() if len(idx) >= 3 and np.median(values[idx]) > 0}
+    pool = []
+    for idx in active.values():
+        x = values[idx]
+        lx = np.log(x[x > 0])
+        d = np.abs(lx - np.median(lx))
+        pool.extend(d[d > 0])
+    z = np.full(values.shape, np.nan)
+    for g, idx in members.items():
+        if len(idx) < 3:
+            continue
+        x = values[idx]
+        dev = np.abs(x - np.median(x))
+        mad = np.median(dev)
+        if mad > 0:
+            zr = 0.6745 * dev / mad
+        else:
+            mean_ad = dev.mean()
+            zr = dev / (1.253314 * mean_ad) if mean_ad > 0 else np.zeros(len(x))
+        if g in active and pool:
+            ln_med = np.median(np.log(x[x > 0]))
+            with np.errstate(divide="ignore", invalid="ignore"):
+                zr = np.where(x > 0, 0.6745 * np.abs(np.log(np.where(x > 0, x, 1.0)) - ln_med) / np.median(pool), np.inf)
+        if se is not None:
+            s = np.asarray(se, dtype=float)[idx]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                zr = np.minimum(zr, np.where(np.isfinite(s) & (s > 0), dev / s, np.inf))
+        z[idx] = zr
+    return z
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_robust_z_follows_the_stated_rule(seed):
+    rng = np.random.default_rng(seed)
+    sizes = rng.integers(1, 7, 150)
+    sizes[:3] = [30, 12, 3]
+    g = rng.permutation(np.repeat(np.arange(sizes.size), sizes))
+    v = np.exp(rng.normal(3.0, 0.3, g.size)) * np.where(rng.random(g.size) < 0.2, -0.1, 1.0)
+    v[rng.random(g.size) < 0.05] = 0.0
+    v[np.isin(g, [5, 6])] = 7.0                           # MAD = 0 groups
+    v[rng.random(g.size) < 0.05] = np.nan
+    g = np.where(rng.random(g.size) < 0.05, -1, g)      # rows outside any group
+    se = np.where(rng.random(g.size) < 0.5, rng.uniform(0.01, 2.0, g.size), np.nan)
+    np.testing.assert_array_equal(turnover._robust_z(v, g), robust_z_rule(v, g))
+    np.testing.assert_array_equal(turnover._robust_z(v, g, se), robust_z_rule(v, g, se))
+    assert np.isinf(turnover._robust_z(v, g)).any()         # dead wells among active replicates were scored
+
+
+def test_role_matches_string_conversion():
+    # the rule: a role's text, "" where missing (pandas string conversion as the reference)
+    s = pd.Series(["sample", None, "blank", "empty", "sample"], dtype="str")
+    ref = s.astype(object).where(s.notna(), "").astype(str).to_numpy(dtype=object)
+    assert turnover._role(pd.DataFrame({"role": s})).tolist() == ref.tolist()
+    o = pd.Series(["sample", np.nan, 3], dtype=object)
+    ref = o.astype(object).where(o.notna(), "").astype(str).to_numpy(dtype=object)
+    assert turnover._role(pd.DataFrame({"role": o})).tolist() == ref.tolist()
+
+
+# ------------------------------------------------------------------------------- blank lookup
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_blank_rows_equal_the_left_merge(seed):
+    rng = np.random.default_rng(seed)
+    plates = pd.Series(rng.choice(["P1", "P2", "P3", "Q"], 400), dtype="str")
+    t = rng.choice([40.0, 50.0, 60.0000000001, np.nan], 400)
+    tkey = turnover._tkey(t)
+    blanks = pd.DataFrame({"plate": pd.Series(["P1", "P1", "P2", "P2", "P3", "Z"], dtype="str"),
+                           "temperature_c": [40.0, 50.0, 40.0, 40.0, np.nan, 40.0]})
+    got = turnover._blank_rows(grp.factorize(plates), tkey, np.full(len(t), 200.0), blanks)
+    # pandas reference: a left merge on (plate, temperature to 1e-6 degC), the first blank row of a key
+    bl = blanks.assign(tkey=np.round(blanks["temperature_c"].to_numpy(float), 6), row=np.arange(len(blanks)))
+    bl = bl.drop_duplicates(["plate", "tkey"])
+    ref = pd.DataFrame({"plate": plates.astype(object), "tkey": np.round(t, 6)}).merge(
+        bl[["plate", "tkey", "row"]].astype({"plate": object}), on=["plate", "tkey"], how="left")
+    np.testing.assert_array_equal(got, ref["row"].fillna(-1).to_numpy(dtype=np.int64))
+
+
+# ------------------------------------------------------------------------------- a synthetic campaign
+
+def test_group_rates_statistics_equal_a_pandas_aggregation(turnover_stages):
+    d, s, _, _, w, got = turnover_stages
+    t = w[w["role"].isin(["sample", "reference"]) & w["rate_mM_per_h"].notna()].copy()
+    t["temperature_c"] = np.round(t["temperature_c"].to_numpy(float), 6)      # temperatures to 1e-6 degC
+    keys = ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", *d.factor_names]
+    failed = has_flag(t["flags"], "failed_well")
+    for c in ("rate_mM_per_h", "tof_per_h", "ton"):
+        t.loc[failed, c] = np.nan
+    # pandas reference: one group-by agg
+    ref = t.groupby(keys, dropna=False, sort=False).agg(
+        n_wells=("rate_mM_per_h", "count"), rate=("rate_mM_per_h", "mean"), rate_sd=("rate_mM_per_h", "std"),
+        tof=("tof_per_h", "mean"), ton=("ton", "mean")).reset_index()
+    ref = ref.sort_values(["catalyst", "temperature_c", "loading", "substrate_conc_mM"], kind="stable",
+                          na_position="last").reset_index(drop=True)
+    pd.testing.assert_frame_equal(got[keys].reset_index(drop=True), ref[keys])
+    np.testing.assert_array_equal(got["n_wells"].to_numpy(), ref["n_wells"].to_numpy())
+    measured = (got["censored"].astype(str) == "").to_numpy()        # bounds report their bound, not the mean
+    assert measured.mean() > 0.8
+    for a, b in (("rate_mM_per_h", "rate"), ("rate_sd_mM_per_h", "rate_sd"), ("tof_per_h", "tof"), ("ton", "ton")):
+        np.testing.assert_array_equal(got[a].to_numpy()[measured], ref[b].to_numpy()[measured], err_msg=a)
+
+
+def test_well_flags_follow_the_output_columns(turnover_stages):
+    data, s, per_well, blanks, wells, _ = turnover_stages
+    catalysed = wells["role"].isin(["sample", "reference"]).to_numpy()
+    # the rule: each code set here where its condition holds on the output columns
+    expect = {
+        "no_blank": (catalysed | (wells["role"] == "blank").to_numpy()) & wells["blank_rate_mM_per_h"].isna().to_numpy(),
+        "no_sites": catalysed & wells["sites_umol"].isna().to_numpy(),
+        "outlier": wells["outlier"].to_numpy(bool),
+    }
+    got = wells["flags"]
+    for code, mask in expect.items():
+        np.testing.assert_array_equal(has_flag(got, code), mask | has_flag(per_well["flags"], code), err_msg=code)
+    # flags that came in from well_rates are kept, in front
+    kept = per_well["flags"].fillna("").astype(str)
+    assert all(str(g).startswith(k) for g, k in zip(got, kept) if k)
+
+
+def test_group_plates_and_flags_against_wells(turnover_stages):
+    data, s, _, _, wells, groups = turnover_stages
+    cat = wells[wells["role"].isin(["sample", "reference"]) & wells["rate_mM_per_h"].notna()]
+    keys = ["catalyst", "temperature_c", "loading", "substrate_conc_mM"]
+    # pandas reference: the sorted distinct plates of each group, joined
+    ref = cat.groupby(keys, dropna=False)["plate"].agg(lambda s: ";".join(sorted(set(s.astype(str)))))
+    got = groups.set_index(keys)["plates"]
+    assert len(got) == len(ref)
+    assert got.sort_index().tolist() == ref.sort_index().tolist()
+    assert (groups["n_plates"] == groups["plates"].str.count(";") + 1).all()
+    outl = cat.groupby(keys, dropna=False)["outlier"].sum()
+    assert (has_flag(groups.set_index(keys).loc[outl.index, "flags"], "has_outlier") == (outl > 0).to_numpy()).all()
