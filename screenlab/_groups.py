@@ -101,10 +101,15 @@ def is_sorted(codes: np.ndarray) -> bool:
 
 
 def group_order(codes: np.ndarray, n_groups: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Rows by group: a stable argsort of ``codes``, the codes in that order and the position in
-    it where each group 0 .. n_groups - 1 starts (a group without rows starts where the next does)."""
-    order = np.argsort(codes, kind="stable")
-    sorted_codes = codes[order]
+    """Rows by group: a stable argsort of ``codes`` (no sort when they are already in order, see
+    :func:`is_sorted`), the codes in that order and the position in it where each group
+    0 .. n_groups - 1 starts (a group without rows starts where the next does)."""
+    if is_sorted(codes):                             # rows already grouped: no sort needed
+        order = np.arange(len(codes))
+        sorted_codes = codes
+    else:
+        order = np.argsort(codes, kind="stable")
+        sorted_codes = codes[order]
     starts = np.searchsorted(sorted_codes, np.arange(n_groups), side="left")
     return order, sorted_codes, starts
 

@@ -50,24 +50,6 @@ def initial_rate_variance(b1, k, var_b1, var_k, cov_b1_k):
     return k * k * var_b1 + 2.0 * k * b1 * cov_b1_k + b1 * b1 * var_k
 
 
-def depletion_course(t, intercept, rate, plateau):
-    """Product expected when a reaction starting at ``rate`` slows only by substrate depletion.
-
-    First order in substrate: ``P(t) = a + (Pmax - a) (1 - exp(-r t / (Pmax - a)))`` with
-    ``a`` the intercept, ``r`` the initial rate and ``Pmax`` the theoretical maximum product.
-    Where ``plateau`` is NaN (unknown substrate) or not above the intercept, the straight line
-    ``a + r t`` is returned instead.
-    """
-    t = np.asarray(t, dtype=float)
-    a = np.asarray(intercept, dtype=float)
-    r = np.asarray(rate, dtype=float)
-    span = np.asarray(plateau, dtype=float) - a
-    ok = np.isfinite(span) & (span > 0)
-    safe = np.where(ok, span, 1.0)
-    curved = a + safe * -np.expm1(-r * t / safe)
-    return np.where(ok, curved, a + r * t)
-
-
 def search_bounds_k(t_max, t_first) -> tuple[np.ndarray, np.ndarray]:
     """Per-group search range of k (1/h) from the sampling times (data-driven, no user start).
 
@@ -79,25 +61,3 @@ def search_bounds_k(t_max, t_first) -> tuple[np.ndarray, np.ndarray]:
     k_lo = K_LOW_TIMES_TMAX / t_max
     k_hi = K_HIGH_TIMES_TFIRST / t_first
     return k_lo, np.maximum(k_hi, k_lo * 10.0)
-
-
-def start_guess(t, y, group, n_groups: int) -> tuple[np.ndarray, np.ndarray]:
-    """Data-driven start values (b1, k) per group, without any user input.
-
-    b1 = the largest reading of the group; k = ln 2 / t_half with t_half the first time the
-    course reaches half of that (the half-life of a first-order course). Used as an extra
-    candidate of the k search and for reporting; the fitter does not depend on it.
-    """
-    t = np.asarray(t, dtype=float)
-    y = np.asarray(y, dtype=float)
-    g = np.asarray(group, dtype=np.int64)
-    b1 = np.full(n_groups, -np.inf)
-    np.maximum.at(b1, g, y)
-    half = y >= 0.5 * b1[g]
-    th = np.full(n_groups, np.inf)
-    np.minimum.at(th, g[half & (t > 0)], t[half & (t > 0)])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        k = np.log(2.0) / th
-    b1 = np.where(np.isfinite(b1), b1, np.nan)
-    k = np.where(np.isfinite(k) & (k > 0), k, np.nan)
-    return b1, k
