@@ -443,15 +443,8 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
         full[present] = values
         return full
 
-    if "plate" in rows:
-        plate_code, plate_names = pd.factorize(rows["plate"])
-        plate_code = np.asarray(plate_code, dtype=np.int64)
-        if (plate_code < 0).any():                 # a missing plate counts as its text, as str() gives it
-            plate_code, plate_names = pd.factorize(rows["plate"].astype(str).to_numpy(dtype=object))
-            plate_code = np.asarray(plate_code, dtype=np.int64)
-        n_plate_names = len(plate_names)
-    else:
-        plate_code, n_plate_names = np.zeros(n_rows, dtype=np.int64), 1
+    # plates as codes (a missing plate is one more plate), for the plates per group
+    plate_code = grp.codes(rows["plate"])[0] if "plate" in rows else np.zeros(n_rows, dtype=np.int64)
     any_value = np.zeros(n_rows, dtype=bool)
     if not n_rows or not (codes >= 0).any():
         # nothing to summarise: every statistic NaN, no group flags

@@ -403,7 +403,6 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     roles = _Roles(wells)
     catalysed = roles.is_("sample", "reference")
     is_blank = roles.is_("blank")
-    n_wells = len(wells)
     # each string column factorised once, shared by the site lookup and the replicate groups
     parts = {c: grp.factorize(wells[c]) for c in ("catalyst", "loading_unit") if c in wells}
 
