@@ -168,7 +168,7 @@ def blank_rates(wells: pd.DataFrame, settings: AnalysisSettings | None = None, e
     * A level with its own blank wells uses them (a concentration series then has a blank per
       level, so apparent orders are not biased by one level's background).
     * A level without blanks on a plate x temperature that has blanks at other levels takes the
-      level with the most blank wells (then the nearest concentration), scaled to this level's
+      level with the most blank wells (ties: the level listed first), scaled to this level's
       substrate as a background first order in substrate, ``r_b x S/S_b`` (flag ``blank_scaled``;
       SE and LOD scaled alike).
     * Blank wells that are replicate outliers of their level (robust z above
