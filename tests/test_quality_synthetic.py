@@ -150,7 +150,7 @@ def make_campaign(seed=0, *, n_cat=8, temps=(40.0, 50.0, 60.0, 70.0), plates_per
 # ---------------------------------------------------------------------------------------------
 def test_clean_campaign_plates_pass():
     data, kin, _ = make_campaign(seed=1)
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert list(q["plate"]) == list(data.plates["plate"])
     assert (q["status"] != "failed").all()
     assert (q["zprime"] > 0.5).all()
@@ -164,7 +164,7 @@ def test_clean_campaign_plates_pass():
 
 def test_zprime_matches_direct_formula_per_plate():
     data, kin, _ = make_campaign(seed=2)
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     w = kin.wells
     for plate, g in w.groupby("plate"):
         p = g.loc[g.role == "reference", "rate_mM_per_h"]
@@ -176,7 +176,7 @@ def test_zprime_matches_direct_formula_per_plate():
 
 def test_bad_plate_failed():
     data, kin, _ = make_campaign(seed=3, bad_plate="P50-1")
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     assert q.loc["P50-1", "status"] == "failed"
     assert "failed" in q.loc["P50-1", "flags"] and "zprime_low" in q.loc["P50-1", "flags"]
     assert q.loc["P40-1", "status"] != "failed"
@@ -186,7 +186,7 @@ def test_no_controls_plate_failed():
     data, kin, _ = make_campaign(seed=4)
     w = kin.wells[~((kin.wells.plate == "P60-1") & (kin.wells.role == "blank"))]
     kin2 = KineticsResult(kin.amounts, w, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
-    q = plate_quality(data, kin2, kin.settings).set_index("plate")
+    q = plate_quality(kin2, data, kin.settings).set_index("plate")
     assert q.loc["P60-1", "status"] == "failed"
     assert "no_controls" in q.loc["P60-1", "flags"]
     assert np.isnan(q.loc["P60-1", "zprime"])
@@ -196,7 +196,7 @@ def test_edge_effect_detected_and_absent():
     # 25 % hotter outer ring on sample wells, 12 candidates x 4 reps (48 sample wells)
     data, kin, _ = make_campaign(seed=5, n_cat=12, temps=(60.0,), edge_bias=0.25, noise=0.05,
                                  true_tof60=np.full(12, 50.0), true_ea=np.full(12, 60.0))
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert q["edge_p"].iloc[0] < 0.01
     assert "edge_effect" in q["flags"].iloc[0]
     assert q["edge_basis"].iloc[0] == "replicates"
@@ -204,7 +204,7 @@ def test_edge_effect_detected_and_absent():
     assert 8 < q["edge_shift_pct"].iloc[0] < 30
     data, kin, _ = make_campaign(seed=5, n_cat=12, temps=(60.0,), edge_bias=0.0, noise=0.05,
                                  true_tof60=np.full(12, 50.0), true_ea=np.full(12, 60.0))
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert q["edge_p"].iloc[0] > 0.01
     assert "edge_effect" not in q["flags"].iloc[0]
 
@@ -234,7 +234,7 @@ def test_control_chart_flags_shifted_benchmark():
     cc = control_chart(kin2, data).set_index("plate")
     assert cc.loc["P60-2", "flags"] == "reference_out_of_limits"
     assert (cc.drop(index="P60-2")["flags"] == "").all()
-    q = plate_quality(data, kin2, kin.settings).set_index("plate")
+    q = plate_quality(kin2, data, kin.settings).set_index("plate")
     assert "reference_out_of_limits" in q.loc["P60-2", "flags"]
     # the chart-wide limits are mean +/- 3 SD of the log ratios (Shewhart)
     x = cc["log_ratio"]
@@ -251,6 +251,14 @@ def test_control_chart_per_temperature_without_fit():
 def test_inputs_not_mutated():
     data, kin, _ = make_campaign(seed=9)
     before = kin.wells.copy(deep=True)
-    plate_quality(data, kin, kin.settings)
+    plate_quality(kin, data, kin.settings)
     control_chart(kin, data)
     pd.testing.assert_frame_equal(kin.wells, before)
+
+
+def test_plate_quality_takes_kinetics_first_like_control_chart():
+    # the rule (DEVELOPERS.md): plate_quality(kin, data, ...) as control_chart(kin, data); the
+    # order of before is refused plainly instead of failing on a missing attribute
+    data, kin, _ = make_campaign(seed=10)
+    with pytest.raises(TypeError, match="kinetics result comes first"):
+        plate_quality(data, kin, kin.settings)

@@ -83,7 +83,7 @@ def test_plate_without_benchmark_and_without_blanks_fails(no_benchmark):
     spec, data, a = no_benchmark
     kin = a.kinetics
     w = kin.wells[~((kin.wells["plate"] == "P0003") & (kin.wells["role"] == "blank"))]
-    q = plate_quality(data, dataclasses.replace(kin, wells=w), kin.settings).set_index("plate")
+    q = plate_quality(dataclasses.replace(kin, wells=w), data, kin.settings).set_index("plate")
     assert q.loc["P0003", "status"] == "failed" and "no_controls" in q.loc["P0003", "flags"]
     assert (q.drop(index="P0003")["status"] == "unchecked").all()
 
@@ -139,7 +139,7 @@ def test_candidates_only_on_failed_plates_stay_unranked():
     from test_quality_synthetic import make_campaign
 
     data, kin, _ = make_campaign(seed=3, bad_plate="P50-1")
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert q.set_index("plate").loc["P50-1", "status"] == "failed"
     r50 = rank_candidates(kin, q, at_temperature_c=50.0, draws=500)
     assert (r50.loc[r50["role"] == "sample", "reason"] == "measured only on failed plates").all()
@@ -174,6 +174,6 @@ def test_pipeline_passes_its_control_chart_to_plate_quality(no_benchmark, demo_s
         a = analyse(store.load_campaign("th-screen-2026"))
     finally:
         store.close()
-    pd.testing.assert_frame_equal(plate_quality(a.data, a.kinetics, a.settings), a.quality)
+    pd.testing.assert_frame_equal(plate_quality(a.kinetics, a.data, a.settings), a.quality)
     _, data, b = no_benchmark
-    pd.testing.assert_frame_equal(plate_quality(data, b.kinetics, b.settings), b.quality)
+    pd.testing.assert_frame_equal(plate_quality(b.kinetics, data, b.settings), b.quality)

@@ -163,7 +163,7 @@ CAMPAIGNS = {
 @pytest.mark.parametrize("name", sorted(CAMPAIGNS))
 def test_plate_quality_edge_columns_match_per_plate_loop(name):
     data, kin = CAMPAIGNS[name]()
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     ref = _reference_edge_columns(data, kin)
     assert list(q.index) == list(ref.index)
     assert q["edge_basis"].tolist() == ref["edge_basis"].tolist()
@@ -178,7 +178,7 @@ def test_plate_quality_edge_columns_match_per_plate_loop(name):
 
 def test_plate_quality_counts_moments_and_cvs_match_per_plate_loop():
     data, kin = _zero_mad_and_gaps()
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     w = kin.wells.assign(_r=pd.to_numeric(kin.wells["rate_mM_per_h"], errors="coerce"))
     for plate, g in w.groupby("plate"):
         for role in ("sample", "reference", "blank"):

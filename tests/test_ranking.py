@@ -175,7 +175,7 @@ def test_seeded_campaign_recovers_true_order():
     # known truth: 12 candidates with log-uniform TOF(60 degC); Spearman (scipy.stats.spearmanr)
     # of the reported order against the true TOF near 1, and the true best in the top 3
     data, kin, truth = make_campaign(seed=21, n_cat=12, noise=0.10)
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     r = rank_candidates(kin, q, draws=10_000, seed=0, catalysts=data.catalysts)
     s = r[r["role"] == "sample"].merge(truth, on="catalyst")
     rho = stats.spearmanr(s["rank"].astype(float), -s["tof60"]).statistic

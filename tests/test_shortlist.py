@@ -32,7 +32,7 @@ def test_shortlist_files_and_neutralising(tmp_path):
     order = kin.rates[kin.rates.temperature_c == 60].sort_values("tof_per_h", ascending=False)
     best = [c for c in order["catalyst"] if c != "REF"][:4]
     kin, cats = _renamed(kin, data, dict(zip(best, NASTY)))
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     r = rank_candidates(kin, q, draws=2000, catalysts=cats)
     files = pd.DataFrame({"import_id": [1, 1], "name": ["campaign.toml", "layout.csv"], "sha256": ["ab" * 32, "cd" * 32]})
     paths = write_shortlist(tmp_path, r, kin, campaign="synthetic", top_k=4, catalysts=cats, quality=q,

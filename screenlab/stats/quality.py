@@ -548,7 +548,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
 
 
 # --------------------------------------------------------------------------- per-plate summary
-def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
+def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
     """One row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status.
 
     Columns:
@@ -570,8 +570,11 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate", contr
     unchecked | failed) and ``flags`` (see :data:`FLAGS`). ``control``: the benchmark's control
     chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``).
     """
+    from screenlab.model import CampaignData
     from screenlab.settings import AnalysisSettings
 
+    if isinstance(kin, CampaignData):  # the order before (data, kin) would fail far from here
+        raise TypeError("plate_quality(kin, data, settings): the kinetics result comes first, as in control_chart")
     settings = settings or getattr(kin, "settings", None) or AnalysisSettings()
     w = kin.wells
     role = w["role"].astype(str).to_numpy()
