@@ -138,13 +138,11 @@ def arrhenius_prediction(path: str, read_only: bool, version: Any, campaign: str
 
 @st.cache_data(show_spinner=False, max_entries=16)
 def flag_counts(path: str, read_only: bool, version: Any, campaign: str, skey: tuple) -> pd.DataFrame:
-    """Rows per flag code at each level (``level, flag, rows``): wells, groups, plates, Arrhenius fits."""
-    from screenlab.app.app_pages._common import flag_counts as _fc
+    """:func:`screenlab.flags.analysis_flag_counts`: rows per flag code at each level (``level, flag,
+    rows``): wells, groups, plates, Arrhenius fits."""
+    from screenlab.flags import analysis_flag_counts
 
-    a = analysis(path, read_only, version, campaign, skey)
-    kin = a.kinetics
-    return _fc({"well": kin.wells["flags"], "group": kin.rates["flags"], "plate": a.quality["flags"],
-                "Arrhenius fit": kin.arrhenius["flags"]})
+    return analysis_flag_counts(analysis(path, read_only, version, campaign, skey))
 
 
 @st.cache_resource(show_spinner=False)
