@@ -9,6 +9,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 import screenlab
 
 CORE_PREFIXES = ("screenlab.ingest", "screenlab.kinetics", "screenlab.stats", "screenlab.export",
@@ -199,3 +201,48 @@ def test_app_cache_imports_no_page_module():
     # the caching layer wraps core calls; pages import it, never the other way round
     graph = import_graph(Path(screenlab.__file__).parent, "screenlab")
     assert not {d for d in graph["screenlab.app.cache"] if d.startswith("screenlab.app.app_pages")}
+
+
+# --------------------------------------------------------------------------------------------
+# imports on demand: the analysis commands load neither scipy.stats nor plotly nor streamlit
+
+_HEAVY = ("scipy.stats", "plotly", "streamlit")
+_RUN_AND_LIST = (
+    "import contextlib, io, sys\n"
+    "from screenlab.cli import main\n"
+    "with contextlib.redirect_stdout(io.StringIO()):\n"
+    "    rc = main(sys.argv[1:])\n"
+    f"print(rc, ','.join(sorted({{m.split('.')[0] if m.startswith(('plotly', 'streamlit')) else 'scipy.stats' "
+    f"for m in sys.modules if m.startswith({_HEAVY!r})}})))\n"
+)
+
+
+@pytest.fixture(scope="module")
+def small_store(tmp_path_factory, write_sample_campaign):
+    from screenlab.ingest import read_campaign
+    from screenlab.store import Store
+
+    tmp = tmp_path_factory.mktemp("small-store")
+    folder = write_sample_campaign(tmp / "small", "small-campaign")
+    path = tmp / "store.duckdb"
+    Store(path).import_campaign(read_campaign(folder))
+    return path
+
+
+@pytest.mark.parametrize("command", [["rank"], ["rank", "--metric", "ea"], ["rates"], ["rates", "--per-well"],
+                                     ["arrhenius"]])
+def test_analysis_commands_load_no_heavy_modules(small_store, command):
+    args = [*command, "--store", str(small_store), "--campaign", "small-campaign"]
+    out = subprocess.run([sys.executable, "-c", _RUN_AND_LIST, *args], capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr[-2000:]
+    rc, _, loaded = out.stdout.strip().splitlines()[-1].partition(" ")
+    assert rc == "0", out.stderr[-2000:]
+    assert loaded == "", f"screenlab {' '.join(command)} loaded {loaded}"
+
+
+def test_the_check_sees_a_heavy_import(small_store):
+    # the same probe after an import of scipy.stats reports it (the check can fail)
+    code = "import scipy.stats\n" + _RUN_AND_LIST
+    out = subprocess.run([sys.executable, "-c", code, "rates", "--store", str(small_store), "--campaign",
+                          "small-campaign"], capture_output=True, text=True, check=True)
+    assert out.stdout.strip().splitlines()[-1] == "0 scipy.stats"

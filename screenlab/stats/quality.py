@@ -79,10 +79,10 @@ import warnings
 import numpy as np
 import pandas as pd
 from scipy import special as _sp_special
-from scipy import stats as _st
 
 from screenlab.errors import DataQualityWarning
 from screenlab.plates import format_dims, is_edge
+from screenlab.uncertainty import t_ppf
 
 #: Flag codes set by this module (code -> one plain sentence).
 FLAGS: dict[str, str] = {
@@ -420,6 +420,8 @@ def mannwhitneyu_grouped(values, in_x, group, n_groups: int) -> tuple[np.ndarray
     p = np.where(ok, np.clip(2 * _sp_special.ndtr(-z), 0.0, 1.0), np.nan)
     exact = ok & ~((n1 > 8) & (n2 > 8)) & ~ties
     if exact.any():
+        from scipy import stats as _st  # only here: a command without an exact test never loads scipy.stats
+
         ex_x = exact[gs] & xs
         ex_y = exact[gs] & ~xs
         sizes = pd.DataFrame({"n1": n1[exact], "n2": n2[exact], "g": np.flatnonzero(exact)})
@@ -529,7 +531,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
         with np.errstate(invalid="ignore", divide="ignore"):
             loo_var = (s2 - x * x - m * loo_mean ** 2) / loo_dof if loo_dof >= 2 else np.full_like(x, np.nan)
             g["loo_t"] = (x - loo_mean) / np.sqrt(np.where(loo_var > 0, loo_var, np.nan) * (1 + 1 / max(m, 1)))
-        g["loo_limit"] = _st.t.ppf(1 - SHEWHART_TAIL / 2, loo_dof) if loo_dof >= 2 else np.nan
+        g["loo_limit"] = t_ppf(1 - SHEWHART_TAIL / 2, loo_dof) if loo_dof >= 2 else np.nan
         g["expected"] = np.exp(g["_lnexp"])
         g["lower_tof_per_h"] = g["expected"] * np.exp(g["lower"])
         g["upper_tof_per_h"] = g["expected"] * np.exp(g["upper"])

@@ -51,7 +51,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats as _st
+from screenlab.uncertainty import quantiles as _st  # t.ppf / norm.ppf without loading scipy.stats
 
 from screenlab.errors import UsageError
 
