@@ -246,3 +246,27 @@ def test_the_check_sees_a_heavy_import(small_store):
     out = subprocess.run([sys.executable, "-c", code, "rates", "--store", str(small_store), "--campaign",
                           "small-campaign"], capture_output=True, text=True, check=True)
     assert out.stdout.strip().splitlines()[-1] == "0 scipy.stats"
+
+
+# --------------------------------------------------------------------------------------------
+# the tests themselves: no sys.path patches, no test module importing another one (shared
+# builders are conftest fixtures or plain helper modules, DEVELOPERS.md "Running the checks")
+
+TESTS = Path(__file__).resolve().parent
+
+
+def test_no_test_module_imports_another_and_no_sys_path_patch():
+    test_modules = {p.stem for p in TESTS.glob("test_*.py")}
+    bad = []
+    for path in sorted(TESTS.rglob("*.py")):
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").split(".")[0] in test_modules | {"conftest"}:
+                bad.append(f"{path.name}:{node.lineno} imports {node.module}")
+            elif isinstance(node, ast.Import):
+                bad += [f"{path.name}:{node.lineno} imports {a.name}" for a in node.names
+                        if a.name.split(".")[0] in test_modules | {"conftest"}]
+            elif (isinstance(node, ast.Attribute) and node.attr == "path" and isinstance(node.value, ast.Name)
+                  and node.value.id == "sys"):
+                bad.append(f"{path.name}:{node.lineno} uses sys.path")
+    assert bad == []

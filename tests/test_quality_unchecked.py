@@ -136,7 +136,7 @@ def test_campaign_without_any_benchmark_is_ranked_on_tof(seed):
 
 
 def test_candidates_only_on_failed_plates_stay_unranked():
-    from test_quality_synthetic import make_campaign
+    from quality_campaigns import make_campaign
 
     data, kin, _ = make_campaign(seed=3, bad_plate="P50-1")
     q = plate_quality(kin, data, kin.settings)

@@ -16,7 +16,7 @@ from screenlab.kinetics import KineticsResult
 from screenlab.plates import is_edge
 from screenlab.stats.quality import (EDGE_MIN_WELLS, MAD_NORMAL, _nanmedian, mannwhitneyu_grouped, median_polish,
                                      plate_quality)
-from test_quality_synthetic import make_campaign
+from quality_campaigns import make_campaign
 
 
 # --------------------------------------------------------------------------- Mann-Whitney U

@@ -10,7 +10,7 @@ import pandas as pd
 from screenlab.export.shortlist import write_shortlist
 from screenlab.stats.quality import plate_quality
 from screenlab.stats.ranking import rank_candidates
-from test_quality_synthetic import make_campaign
+from quality_campaigns import make_campaign
 
 from screenlab.kinetics import KineticsResult
 
