@@ -53,14 +53,14 @@ def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **over
         settings = AnalysisSettings.from_mapping(settings.to_dict(), **overrides)
     kin = analyse_kinetics(data, settings)
     control = control_chart(kin, data)
-    quality = plate_quality(data, kin, settings, control=control)   # the chart made once
+    quality = plate_quality(kin, data, settings, control=control)   # the chart made once
     drop = edge_blanks(kin, data, quality)
     if drop is not None:
         # a plate's ring reads differently from its interior: its ring blanks would misstate the
         # background of the interior wells and pull the uncatalysed Arrhenius line; leave them out
         kin = without_blank_wells(kin, data, drop)
         control = control_chart(kin, data)
-        quality = plate_quality(data, kin, settings, control=control)
+        quality = plate_quality(kin, data, settings, control=control)
     return Analysis(data=data, settings=settings, kinetics=kin, quality=quality, control=control)
 
 

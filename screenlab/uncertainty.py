@@ -7,8 +7,15 @@
   variance terms (Welch, Biometrika 1947, 34, 28; Satterthwaite, Biometrics Bull. 1946, 2, 110):
   ``(va + vb)^2 / (va^2 / da + vb^2 / db)``, a term with zero variance contributing nothing and
   the result ``inf`` when both are zero.
+* :func:`t_ppf`, :func:`norm_ppf`: ``scipy.stats.t.ppf`` / ``scipy.stats.norm.ppf`` for
+  probabilities in (0, 1) and ``df > 0``, from the same ``scipy.special`` functions those call
+  (``stdtrit``, ``ndtri``; the same numbers), without importing ``scipy.stats`` (which costs a
+  command's start-up a large share; see scripts/benchmark.py). :data:`quantiles` holds them as
+  ``quantiles.t.ppf`` and ``quantiles.norm.ppf`` for code written against ``scipy.stats``.
 """
 from __future__ import annotations
+
+from types import SimpleNamespace
 
 import numpy as np
 from scipy import special
@@ -35,4 +42,17 @@ def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
         return np.where(den > 0, (va + vb) ** 2 / den, np.inf)
 
 
-__all__ = ["t_quantile", "welch_df"]
+def t_ppf(q, df):
+    """Student t quantile at probability ``q`` (``scipy.stats.t.ppf(q, df)``: ``special.stdtrit``)."""
+    return special.stdtrit(df, q)
+
+
+def norm_ppf(q):
+    """Standard normal quantile at probability ``q`` (``scipy.stats.norm.ppf(q)``: ``special.ndtri``)."""
+    return special.ndtri(q)
+
+
+#: ``quantiles.t.ppf`` and ``quantiles.norm.ppf``, named as in ``scipy.stats``
+quantiles = SimpleNamespace(t=SimpleNamespace(ppf=t_ppf), norm=SimpleNamespace(ppf=norm_ppf))
+
+__all__ = ["t_quantile", "welch_df", "t_ppf", "norm_ppf", "quantiles"]

@@ -32,8 +32,12 @@ fresh process that loads the stored campaign, analyses and ranks it (the 1 GB ta
 plates applies to this one: it is what the app and the CLI do), ``py_peak_mb`` the tracemalloc
 peak of Python allocations (numpy arrays included) of a second, untimed pass of rates + Arrhenius
 + ranking (tracemalloc slows allocation-heavy code, so it is never on while timing). Also times
-``screenlab --help`` (process start-up). Targets are printed next to the figures; nothing here
-asserts anything.
+``screenlab --help`` (process start-up), and the start-up ratio: the wall time of ``screenlab rank``
+(the console script beside this interpreter) on a stored 4-plate campaign against that of
+``python -c "import pandas, numpy"``, medians of :data:`STARTUP_RUNS` runs taken in turns after one
+untimed run of each (bytecode written, files in the OS cache; ``PYTHONDONTWRITEBYTECODE`` is left
+out of the runs' environment, as an installed package has its bytecode). Targets are printed next
+to the figures; nothing here asserts anything.
 """
 from __future__ import annotations
 
@@ -56,7 +60,9 @@ TARGETS = {
     "analyse_rank_speedup": 20.0,       # pipeline.analyse + ranking (issue 14) vs the per-well loop
     "growth_per_4x": 4.5,
     "rss_mb_1600": 1024.0,
+    "rank_startup_ratio": 2.0,          # screenlab rank, 4 plates / python -c "import pandas, numpy"
 }
+STARTUP_RUNS = 5                         # runs of each command for the start-up ratio (median)
 BASELINE_MAX_WELLS = 6_000               # above this, the loop runs on a subsample of plates
 
 
@@ -306,6 +312,36 @@ def startup_seconds(repeats: int = 3) -> float:
     return best
 
 
+def rank_startup(runs: int = STARTUP_RUNS, seed: int = 0) -> dict:
+    """Median wall times of ``screenlab rank`` on a stored 4-plate synthetic campaign and of
+    ``python -c "import pandas, numpy"`` (taken in turns, after one untimed run of each), and their
+    ratio."""
+    from screenlab.ingest import read_campaign
+    from screenlab.store import Store
+    from screenlab.synthetic import SyntheticSpec, write_campaign_folder
+
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+    with tempfile.TemporaryDirectory(prefix="screenlab-startup-") as tmp:
+        spec = SyntheticSpec(n_plates=4, seed=seed)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            store = Path(tmp) / "startup.duckdb"
+            Store(store).import_campaign(read_campaign(write_campaign_folder(Path(tmp) / "campaign", spec)))
+        commands = {"rank": [*_screenlab_command(), "rank", "--store", str(store), "--campaign", spec.campaign_name],
+                    "pandas": [sys.executable, "-c", "import pandas, numpy"]}
+        times: dict[str, list[float]] = {k: [] for k in commands}
+        for i in range(runs + 1):
+            for key, cmd in commands.items():
+                t0 = time.perf_counter()
+                subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)
+                if i:  # the first run of each is the warm-up
+                    times[key].append(time.perf_counter() - t0)
+    rank_s = sorted(times["rank"])[runs // 2]
+    base_s = sorted(times["pandas"])[runs // 2]
+    return {"rank_s": rank_s, "import_pandas_numpy_s": base_s, "ratio": rank_s / base_s, "runs": runs,
+            "plates": 4}
+
+
 def _screenlab_command() -> list[str]:
     """The ``screenlab`` console script beside this interpreter (a venv's bin/, whether or not it is
     on PATH), else ``python -m screenlab``."""
@@ -329,7 +365,7 @@ def _fmt_s(x: float) -> str:
     return f"{x:8.3f}" if x < 100 else f"{x:8.1f}"
 
 
-def report(rows: list[dict], startup: float) -> str:
+def report(rows: list[dict], startup: float, rank_start: dict | None = None) -> str:
     lines = []
     ok = [r for r in rows if "error" not in r]
     hdr = (f"{'plates':>6} {'fmt':>4} {'readings':>9} {'cands':>6} | {'import s':>8} {'rd/s':>9} | {'rates':>8} "
@@ -385,6 +421,10 @@ def report(rows: list[dict], startup: float) -> str:
         lines.append(f"  {a['plates']} -> {b['plates']} plates ({ratio:.0f}x data): " + ", ".join(parts))
     lines.append("")
     lines.append(f"screenlab --help start-up: {startup:.3f} s (best of 3)")
+    if rank_start:
+        lines.append(f"screenlab rank on a {rank_start['plates']}-plate campaign: {rank_start['rank_s']:.3f} s; "
+                     f"python -c \"import pandas, numpy\": {rank_start['import_pandas_numpy_s']:.3f} s (medians of "
+                     f"{rank_start['runs']} runs in turns, after one warm-up each): ratio {rank_start['ratio']:.2f}x")
     lines.append("")
     lines.append("targets (2 cores):")
     by = {r["plates"]: r for r in r96}
@@ -415,6 +455,10 @@ def report(rows: list[dict], startup: float) -> str:
             g2 = b["analyse_rank_s"] / a["analyse_rank_s"]
             lines.append(f"  analyse + rank growth {a['plates']} -> {b['plates']} <= {TARGETS['growth_per_4x']}x: "
                          f"{g2:.2f}x -> {verdict(g2 <= TARGETS['growth_per_4x'])}")
+    if rank_start:
+        lines.append(f"  screenlab rank on {rank_start['plates']} plates within {TARGETS['rank_startup_ratio']:g}x the "
+                     f"start-up of python -c \"import pandas, numpy\": {rank_start['ratio']:.2f}x "
+                     f"-> {verdict(rank_start['ratio'] <= TARGETS['rank_startup_ratio'])}")
     if 1600 in by:
         m = by[1600]["rss_fresh_mb"]
         lines.append(f"  1,600 plates load + analyse + rank in < 1 GB (fresh process): peak RSS {m:.0f} MB "
@@ -451,11 +495,12 @@ def main(argv: list[str] | None = None) -> int:
         rows.append(_worker(n, fmt, args.seed, args.quick))
         print(f"  ... {n} plates x {fmt} wells done in {time.perf_counter() - t0:.0f} s", file=sys.stderr, flush=True)
     startup = startup_seconds()
+    rank_start = rank_startup(seed=args.seed)
     print(f"ScreenLab speed benchmark: python {sys.version.split()[0]}, {os.cpu_count()} CPUs, seed {args.seed}")
-    print(report(rows, startup))
+    print(report(rows, startup, rank_start))
     print(f"\ntotal benchmark wall time {time.perf_counter() - t_start:.0f} s")
     if args.json:
-        args.json.write_text(json.dumps({"rows": rows, "startup_s": startup}, indent=2), encoding="utf-8")
+        args.json.write_text(json.dumps({"rows": rows, "startup_s": startup, "rank_startup": rank_start}, indent=2), encoding="utf-8")
     return 0
 
 

@@ -4,18 +4,16 @@ history page lists every campaign of a catalyst (reached with ?catalyst=ID)."""
 from __future__ import annotations
 
 import shutil
-import sys
 import tomllib
 from pathlib import Path
 
 import pytest
 from streamlit.testing.v1 import AppTest
 
-sys.path.insert(0, str(Path(__file__).parent))
-from rounds import NOTE, ROUND1, ROUND2, add_second_round  # noqa: E402
+from rounds import NOTE, ROUND1, ROUND2, add_second_round
 
-from screenlab.store import Store  # noqa: E402
-from screenlab.store import decisions as D  # noqa: E402
+from screenlab.store import Store
+from screenlab.store import decisions as D
 
 ENTRY = str(Path(__file__).resolve().parent.parent / "screenlab" / "app" / "streamlit_app.py")
 TIMEOUT = 90

@@ -14,7 +14,8 @@ from pathlib import Path
 import pandas as pd
 import pytest
 from streamlit.testing.v1 import AppTest
-from test_readings_forms import to_grid_folder, to_planned, to_sample_form
+
+from grid_forms import to_grid_folder, to_planned, to_sample_form
 
 from screenlab.ingest import read_campaign
 from screenlab.store import Store

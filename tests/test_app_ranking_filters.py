@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 
-from test_app_pages import _page, _texts
+from apptest_pages import _page, _texts
 
 
 def test_ranking_ee_either_way_and_a_requirement(monkeypatch, demo_store):

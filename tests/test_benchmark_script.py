@@ -25,3 +25,9 @@ def test_benchmark_runs_and_reports_every_stage(tmp_path):
                 "pareto_s", "rss_fresh_mb"):
         assert row[key] > 0, key
     assert row["baseline"]["baseline_s"] > 0
+    # the start-up ratio: screenlab rank on 4 plates against python -c "import pandas, numpy"
+    start = json.loads(out.read_text())["rank_startup"]
+    assert start["plates"] == 4 and start["rank_s"] > 0 and start["import_pandas_numpy_s"] > 0
+    assert start["ratio"] == start["rank_s"] / start["import_pandas_numpy_s"]
+    assert "screenlab rank on a 4-plate campaign" in proc.stdout
+    assert "screenlab rank on 4 plates within 2x" in proc.stdout

@@ -23,7 +23,7 @@ from screenlab.export.display import bound_text, number_text, show_bounds, value
 from screenlab.export.shortlist import write_shortlist
 from screenlab.stats.ranking import TOO_FAST, rank_candidates
 from screenlab.viz import figures
-from test_ranking import fake_kin
+from fake_kinetics import fake_kin
 
 
 def test_number_and_bound_texts():

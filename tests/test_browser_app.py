@@ -73,7 +73,6 @@ def server(demo_store, tmp_path_factory):
     _need_chromium()
     store = tmp_path_factory.mktemp("browser-store") / "store.duckdb"
     shutil.copy2(demo_store, store)  # a private copy: the server process holds its own file
-    sys.path.insert(0, str(Path(__file__).parent))
     from rounds import add_second_round
 
     add_second_round(store, store.parent)  # a decision on th-screen-2026 and its next round, run and imported
@@ -288,7 +287,7 @@ def test_add_readings_to_a_planned_campaign_in_chromium(server, tmp_path):
     import warnings
 
     from playwright.sync_api import expect, sync_playwright
-    from test_readings_forms import to_grid_folder, to_planned
+    from grid_forms import to_grid_folder, to_planned
 
     from screenlab.ingest import read_campaign
     from screenlab.store import Store

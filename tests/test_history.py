@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import dataclasses
 import shutil
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -11,16 +10,15 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-sys.path.insert(0, str(Path(__file__).parent))
-from rounds import K_PER_H, ROUND1, ROUND2, add_second_round  # noqa: E402
+from rounds import K_PER_H, ROUND1, ROUND2, add_second_round
 
-from screenlab.cli.history_cmd import history_frame  # noqa: E402
-from screenlab.pipeline import analyse  # noqa: E402
-from screenlab.stats.bounds import censored_of, estimate_text  # noqa: E402
-from screenlab.stats.history import (HistorySource, benchmark_ratio, catalyst_history,  # noqa: E402
+from screenlab.cli.history_cmd import history_frame
+from screenlab.pipeline import analyse
+from screenlab.stats.bounds import censored_of, estimate_text
+from screenlab.stats.history import (HistorySource, benchmark_ratio, catalyst_history,
                                      display_table, reference_tofs)
-from screenlab.stats.ranking import rank_candidates  # noqa: E402
-from screenlab.store import Store  # noqa: E402
+from screenlab.stats.ranking import rank_candidates
+from screenlab.store import Store
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_campaign" / "th-screen-2026"
 

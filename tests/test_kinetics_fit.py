@@ -6,6 +6,7 @@ import warnings
 
 import numpy as np
 import pytest
+import statsmodels.api as sm  # a declared test dependency (pyproject [test])
 from scipy import optimize, stats
 
 from screenlab.kinetics import fit, models
@@ -49,7 +50,6 @@ def test_norris_certified_values():
 
 def test_lines_match_linregress_and_statsmodels_on_many_ragged_groups():
     # reference libraries: scipy.stats.linregress and statsmodels OLS, group by group
-    sm = pytest.importorskip("statsmodels.api")
     rng = np.random.default_rng(7)
     sizes = rng.integers(3, 12, size=40)
     g = np.repeat(np.arange(40), sizes)

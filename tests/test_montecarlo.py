@@ -146,7 +146,7 @@ def test_reproducible_and_reported():
 
 
 def test_rank_candidates_reports_its_draws():
-    from test_ranking import fake_kin
+    from fake_kinetics import fake_kin
 
     r = R.rank_candidates(fake_kin([100.0, 90.0, 50.0], [10.0, 10.0, 5.0]), seed=1)
     mc = r.attrs["monte_carlo"]

@@ -136,7 +136,7 @@ def test_medpolish_stack_equals_single_plates_with_padding_and_missing():
 # --------------------------------------------------------------------------- simulated campaigns
 def test_clean_campaign_plates_pass(quality_campaign):
     data, kin, _ = quality_campaign(seed=1)
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert list(q["plate"]) == list(data.plates["plate"])
     assert (q["status"] != "failed").all()
     assert (q["zprime"] > 0.5).all()
@@ -150,7 +150,7 @@ def test_clean_campaign_plates_pass(quality_campaign):
 
 def test_zprime_matches_direct_formula_per_plate(quality_campaign):
     data, kin, _ = quality_campaign(seed=2)
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     w = kin.wells
     for plate, g in w.groupby("plate"):
         p = g.loc[g.role == "reference", "rate_mM_per_h"]
@@ -162,7 +162,7 @@ def test_zprime_matches_direct_formula_per_plate(quality_campaign):
 
 def test_bad_plate_failed(quality_campaign):
     data, kin, _ = quality_campaign(seed=3, bad_plate="P50-1")
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     assert q.loc["P50-1", "status"] == "failed"
     assert "failed" in q.loc["P50-1", "flags"] and "zprime_low" in q.loc["P50-1", "flags"]
     assert q.loc["P40-1", "status"] != "failed"
@@ -172,7 +172,7 @@ def test_no_controls_plate_failed(quality_campaign):
     data, kin, _ = quality_campaign(seed=4)
     w = kin.wells[~((kin.wells.plate == "P60-1") & (kin.wells.role == "blank"))]
     kin2 = KineticsResult(kin.amounts, w, kin.blanks, kin.rates, kin.arrhenius, kin.orders, kin.settings)
-    q = plate_quality(data, kin2, kin.settings).set_index("plate")
+    q = plate_quality(kin2, data, kin.settings).set_index("plate")
     assert q.loc["P60-1", "status"] == "failed"
     assert "no_controls" in q.loc["P60-1", "flags"]
     assert np.isnan(q.loc["P60-1", "zprime"])
@@ -182,7 +182,7 @@ def test_edge_effect_detected_and_absent(quality_campaign):
     # 25 % hotter outer ring on sample wells, 12 candidates x 4 reps (48 sample wells)
     data, kin, _ = quality_campaign(seed=5, n_cat=12, temps=(60.0,), edge_bias=0.25, noise=0.05,
                                  true_tof60=np.full(12, 50.0), true_ea=np.full(12, 60.0))
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert q["edge_p"].iloc[0] < 0.01
     assert "edge_effect" in q["flags"].iloc[0]
     assert q["edge_basis"].iloc[0] == "replicates"
@@ -190,7 +190,7 @@ def test_edge_effect_detected_and_absent(quality_campaign):
     assert 8 < q["edge_shift_pct"].iloc[0] < 30
     data, kin, _ = quality_campaign(seed=5, n_cat=12, temps=(60.0,), edge_bias=0.0, noise=0.05,
                                  true_tof60=np.full(12, 50.0), true_ea=np.full(12, 60.0))
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert q["edge_p"].iloc[0] > 0.01
     assert "edge_effect" not in q["flags"].iloc[0]
 
@@ -220,7 +220,7 @@ def test_control_chart_flags_shifted_benchmark(quality_campaign):
     cc = control_chart(kin2, data).set_index("plate")
     assert cc.loc["P60-2", "flags"] == "reference_out_of_limits"
     assert (cc.drop(index="P60-2")["flags"] == "").all()
-    q = plate_quality(data, kin2, kin.settings).set_index("plate")
+    q = plate_quality(kin2, data, kin.settings).set_index("plate")
     assert "reference_out_of_limits" in q.loc["P60-2", "flags"]
     # the chart-wide limits are mean +/- 3 SD of the log ratios (Shewhart)
     x = cc["log_ratio"]
@@ -237,7 +237,7 @@ def test_control_chart_per_temperature_without_fit(quality_campaign):
 def test_inputs_not_mutated(quality_campaign):
     data, kin, _ = quality_campaign(seed=9)
     before = kin.wells.copy(deep=True)
-    plate_quality(data, kin, kin.settings)
+    plate_quality(kin, data, kin.settings)
     control_chart(kin, data)
     pd.testing.assert_frame_equal(kin.wells, before)
 
@@ -305,7 +305,7 @@ def test_plate_without_benchmark_and_without_blanks_fails(no_benchmark):
     spec, data, a = no_benchmark
     kin = a.kinetics
     w = kin.wells[~((kin.wells["plate"] == "P0003") & (kin.wells["role"] == "blank"))]
-    q = plate_quality(data, dataclasses.replace(kin, wells=w), kin.settings).set_index("plate")
+    q = plate_quality(dataclasses.replace(kin, wells=w), data, kin.settings).set_index("plate")
     assert q.loc["P0003", "status"] == "failed" and "no_controls" in q.loc["P0003", "flags"]
     assert (q.drop(index="P0003")["status"] == "unchecked").all()
 
@@ -359,7 +359,7 @@ def test_campaign_without_any_benchmark_is_ranked_on_tof(seed):
 
 def test_candidates_only_on_failed_plates_stay_unranked(quality_campaign):
     data, kin, _ = quality_campaign(seed=3, bad_plate="P50-1")
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     assert q.set_index("plate").loc["P50-1", "status"] == "failed"
     r50 = rank_candidates(kin, q, at_temperature_c=50.0, draws=500)
     assert (r50.loc[r50["role"] == "sample", "reason"] == "measured only on failed plates").all()
@@ -385,7 +385,7 @@ def test_ranking_flags_a_mix_of_plates():
     pd.testing.assert_frame_equal(q.drop(columns=["status", "flags"]), a.quality.drop(columns=["status", "flags"]))
 
 
-def test_pipeline_passes_its_control_chart_to_plate_quality(no_benchmark, demo_store):
+def test_pipeline_passes_its_control_chart_to_plate_quality(demo_store, no_benchmark):
     # pipeline.analyse makes the control chart once and hands it to plate_quality: same table
     from screenlab.store import Store
 
@@ -394,9 +394,9 @@ def test_pipeline_passes_its_control_chart_to_plate_quality(no_benchmark, demo_s
         a = analyse(store.load_campaign("th-screen-2026"))
     finally:
         store.close()
-    pd.testing.assert_frame_equal(plate_quality(a.data, a.kinetics, a.settings), a.quality)
+    pd.testing.assert_frame_equal(plate_quality(a.kinetics, a.data, a.settings), a.quality)
     _, data, b = no_benchmark
-    pd.testing.assert_frame_equal(plate_quality(data, b.kinetics, b.settings), b.quality)
+    pd.testing.assert_frame_equal(plate_quality(b.kinetics, data, b.settings), b.quality)
 
 
 # --------------------------------------------------------------------------- Mann-Whitney U
@@ -543,7 +543,7 @@ CAMPAIGNS = {
 @pytest.mark.parametrize("name", sorted(CAMPAIGNS))
 def test_plate_quality_edge_columns_match_per_plate_loop(name, quality_campaign):
     data, kin = CAMPAIGNS[name](quality_campaign)
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     ref = _reference_edge_columns(data, kin)
     assert list(q.index) == list(ref.index)
     assert q["edge_basis"].tolist() == ref["edge_basis"].tolist()
@@ -558,7 +558,7 @@ def test_plate_quality_edge_columns_match_per_plate_loop(name, quality_campaign)
 
 def test_plate_quality_counts_moments_and_cvs_match_per_plate_loop(quality_campaign):
     data, kin = _zero_mad_and_gaps(quality_campaign)
-    q = plate_quality(data, kin, kin.settings).set_index("plate")
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
     w = kin.wells.assign(_r=pd.to_numeric(kin.wells["rate_mM_per_h"], errors="coerce"))
     for plate, g in w.groupby("plate"):
         for role in ("sample", "reference", "blank"):
@@ -577,3 +577,11 @@ def test_plate_quality_counts_moments_and_cvs_match_per_plate_loop(quality_campa
         assert q.loc[plate, "replicate_cv_median_pct"] == pytest.approx(np.median(cvs), rel=1e-12)
     flags = q["flags"].str.split(";")
     assert all(f == [""] or all(f) for f in flags)  # no empty codes from the join
+
+
+def test_plate_quality_takes_kinetics_first_like_control_chart(quality_campaign):
+    # the rule (DEVELOPERS.md): plate_quality(kin, data, ...) as control_chart(kin, data); the
+    # order of before is refused plainly instead of failing on a missing attribute
+    data, kin, _ = quality_campaign(seed=10)
+    with pytest.raises(TypeError, match="kinetics result comes first"):
+        plate_quality(data, kin, kin.settings)

@@ -1,41 +1,18 @@
 """Ranking with uncertainty and Pareto sets: closed forms (scipy.stats), a seeded truth, edge cases."""
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
 
 from screenlab.errors import UsageError
-from screenlab.settings import AnalysisSettings
 from screenlab.stats.quality import plate_quality
-from screenlab.stats.ranking import METRICS, draw_matrix, pareto, rank_candidates, rank_draws
-from test_quality_synthetic import make_campaign
-
 from screenlab.kinetics import KineticsResult
+from screenlab.stats.ranking import METRICS, draw_matrix, pareto, rank_candidates, rank_draws
 
-
-def fake_kin(tof, se, *, df=1e7, n=4, ea=None, ea_se=None, ea_df=1e7, roles=None, t=60.0, flags=None,
-             ton=None, ton_se=None):
-    """Minimal kinetics-like result: one standard-condition row per catalyst at temperature t."""
-    names = [f"K{i}" for i in range(len(tof))]
-    roles = roles or ["sample"] * len(tof)
-    rates = pd.DataFrame({"catalyst": names, "role": roles, "temperature_c": t, "n_wells": n,
-                          "tof_per_h": tof, "tof_se_per_h": se, "tof_df": df, "is_standard": True,
-                          "ton": tof if ton is None else ton, "ton_se": se if ton_se is None else ton_se,
-                          "enhancement": np.asarray(tof, float) * 10,
-                          "enhancement_ci_low": np.asarray(tof, float) * 10 / 1.1,
-                          "enhancement_ci_high": np.asarray(tof, float) * 11,
-                          "flags": flags or [""] * len(tof)})
-    wells = pd.DataFrame({"catalyst": np.repeat(names, 2), "role": np.repeat(roles, 2),
-                          "plate": ["P1", "P2"] * len(tof)})
-    arr = pd.DataFrame()
-    if ea is not None:
-        arr = pd.DataFrame({"catalyst": names, "role": roles, "n_temperatures": 4, "t_min_c": 40.0, "t_max_c": 70.0,
-                            "ea_kj_mol": ea, "ea_se": ea_se, "fit_df": ea_df, "flags": ""})
-    return KineticsResult(pd.DataFrame(), wells, pd.DataFrame(), rates, arr, pd.DataFrame(), AnalysisSettings())
+from fake_kinetics import fake_kin
+from quality_campaigns import make_campaign
 
 
 def test_two_lognormal_candidates_match_normal_cdf():
@@ -175,7 +152,7 @@ def test_seeded_campaign_recovers_true_order():
     # known truth: 12 candidates with log-uniform TOF(60 degC); Spearman (scipy.stats.spearmanr)
     # of the reported order against the true TOF near 1, and the true best in the top 3
     data, kin, truth = make_campaign(seed=21, n_cat=12, noise=0.10)
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     r = rank_candidates(kin, q, draws=10_000, seed=0, catalysts=data.catalysts)
     s = r[r["role"] == "sample"].merge(truth, on="catalyst")
     rho = stats.spearmanr(s["rank"].astype(float), -s["tof60"]).statistic

@@ -10,8 +10,8 @@ import pandas as pd
 import pytest
 
 import screenlab.stats.ranking as R
-from test_ranking_tables_ref import _merge_codes_ref
-from test_ranking_vectorised import _plain_front_share
+
+from ranking_refs import _merge_codes_ref, _plain_front_share
 
 
 # ---------------------------------------------------------------------------------------------

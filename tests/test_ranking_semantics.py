@@ -19,7 +19,7 @@ from scipy import stats
 from screenlab.errors import UsageError
 from screenlab.stats.constraints import judge, parse_requirement, requirement_columns, Requirement
 from screenlab.stats.ranking import NOT_SHOWN_ACTIVE, TOO_FAST, pareto, rank_candidates
-from test_ranking import fake_kin
+from fake_kinetics import fake_kin
 
 PAIR = ("P_R", "P_S")
 

@@ -10,17 +10,7 @@ import screenlab.stats.ranking as R
 from screenlab.pipeline import analyse
 from screenlab.synthetic import SyntheticSpec, synthetic_campaign
 
-
-def _merge_codes_ref(*cols) -> list[str]:
-    """Element-wise union of ';'-joined flag strings, order kept, no repeats (the replaced loop)."""
-    out = []
-    for parts in zip(*cols):
-        codes = []
-        for p in parts:
-            if isinstance(p, str) and p:
-                codes.extend(c for c in p.split(";") if c)
-        out.append(";".join(dict.fromkeys(codes)))
-    return out
+from ranking_refs import _merge_codes_ref
 
 
 def _plate_info_ref(kin, quality, plates_used=None) -> pd.DataFrame:

@@ -6,6 +6,8 @@ import pytest
 
 import screenlab.stats.ranking as R
 
+from ranking_refs import _plain_front_share
+
 
 def _reference_summary(mu, sigma, df, draws, seed, top_k, confidence, reference):
     """Plain version: the full draws x k matrix (same chunk seeds, columns drawn in point-estimate
@@ -54,17 +56,6 @@ def test_rank_summary_reproducible_and_bounded():
         np.testing.assert_array_equal(a[c], b[c])
     assert a["p_best"].sum() == pytest.approx(1.0, abs=1e-12)
     assert (a["rank_low"] <= a["rank_high"]).all() and a["rank_low"].min() >= 1 and a["rank_high"].max() <= 50
-
-
-def _plain_front_share(params, draws, seed):
-    """Every pair in every draw (the O(draws k^2) definition), same chunk seeds as front_share."""
-    k, m = len(params[0][0]), len(params)
-    hits = np.zeros(k)
-    for d, ss in R._chunks(draws, k, seed, per_cell=m):
-        rng = np.random.default_rng(ss)
-        cube = np.stack([R.draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params], axis=2)
-        hits += (~R._dominance(cube).any(axis=1)).sum(axis=0)
-    return hits / draws
 
 
 @pytest.mark.parametrize("m", [2, 3, 4])

@@ -10,6 +10,7 @@ import pandas as pd
 from screenlab.export.shortlist import write_shortlist
 from screenlab.stats.quality import plate_quality
 from screenlab.stats.ranking import rank_candidates
+from quality_campaigns import make_campaign
 
 from screenlab.kinetics import KineticsResult
 
@@ -25,13 +26,13 @@ def _renamed(kin, data, mapping):
     return k, ren(data.catalysts)
 
 
-def test_shortlist_files_and_neutralising(tmp_path, quality_campaign):
-    data, kin, _ = quality_campaign(seed=31, n_cat=6)
+def test_shortlist_files_and_neutralising(tmp_path):
+    data, kin, _ = make_campaign(seed=31, n_cat=6)
     # give the four best candidates formula-like names
     order = kin.rates[kin.rates.temperature_c == 60].sort_values("tof_per_h", ascending=False)
     best = [c for c in order["catalyst"] if c != "REF"][:4]
     kin, cats = _renamed(kin, data, dict(zip(best, NASTY)))
-    q = plate_quality(data, kin, kin.settings)
+    q = plate_quality(kin, data, kin.settings)
     r = rank_candidates(kin, q, draws=2000, catalysts=cats)
     files = pd.DataFrame({"import_id": [1, 1], "name": ["campaign.toml", "layout.csv"], "sha256": ["ab" * 32, "cd" * 32]})
     paths = write_shortlist(tmp_path, r, kin, campaign="synthetic", top_k=4, catalysts=cats, quality=q,

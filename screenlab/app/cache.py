@@ -19,7 +19,7 @@ new frames from them and never assign into them. Small derived tables stay on ``
 from __future__ import annotations
 
 from contextlib import contextmanager
-from dataclasses import dataclass, fields
+from dataclasses import fields
 from typing import Any, Iterator
 
 import pandas as pd
@@ -138,13 +138,11 @@ def arrhenius_prediction(path: str, read_only: bool, version: Any, campaign: str
 
 @st.cache_data(show_spinner=False, max_entries=16)
 def flag_counts(path: str, read_only: bool, version: Any, campaign: str, skey: tuple) -> pd.DataFrame:
-    """Rows per flag code at each level (``level, flag, rows``): wells, groups, plates, Arrhenius fits."""
-    from screenlab.app.app_pages._common import flag_counts as _fc
+    """:func:`screenlab.flags.analysis_flag_counts`: rows per flag code at each level (``level, flag,
+    rows``): wells, groups, plates, Arrhenius fits."""
+    from screenlab.flags import analysis_flag_counts
 
-    a = analysis(path, read_only, version, campaign, skey)
-    kin = a.kinetics
-    return _fc({"well": kin.wells["flags"], "group": kin.rates["flags"], "plate": a.quality["flags"],
-                "Arrhenius fit": kin.arrhenius["flags"]})
+    return analysis_flag_counts(analysis(path, read_only, version, campaign, skey))
 
 
 @st.cache_resource(show_spinner=False)
@@ -162,73 +160,24 @@ def clear() -> None:
     analysis.clear()
 
 
-@dataclass(frozen=True)
-class ShortlistFiles:
-    """What the Shortlist page offers for download (built by the export core)."""
-
-    table: pd.DataFrame
-    csv: bytes
-    xlsx: bytes
-    next_round_zip: bytes
-    next_round_summary: str
-
-
 @st.cache_data(show_spinner="Writing the shortlist and the next-round plates ...", max_entries=16)
 def shortlist_files(path: str, read_only: bool, version: Any, campaign: str, skey: tuple, metric: str,
                     temperature_c: float | None, k: int, picked: tuple[str, ...], note: str,
                     decision: int | None = None, enantiomer: str | None = None,
-                    transport_limited: bool = False, require: tuple[str, ...] = ()) -> ShortlistFiles:
-    """``export.shortlist.write_shortlist`` and ``export.nextround.design_next_round`` for the picked
-    candidates (in ranking order, the benchmark added for comparison), read back as bytes.
-    ``decision``: the recorded decision these picks are (its number goes into the next round's
-    campaign.toml and the provenance)."""
-    import io
-    import tempfile
-    import zipfile
-    from pathlib import Path
-
-    from screenlab.export.nextround import design_next_round
-    from screenlab.export.shortlist import write_shortlist
+                    transport_limited: bool = False, require: tuple[str, ...] = ()):
+    """:func:`screenlab.export.bundle.shortlist_bundle` (a ``ShortlistBundle``: table, CSV, XLSX,
+    next-round zip and summary) of the picked candidates under the Ranking page's choices.
+    ``decision``: the recorded decision these picks are."""
+    from screenlab.export.bundle import shortlist_bundle
 
     a = analysis(path, read_only, version, campaign, skey)
     r = ranking(path, read_only, version, campaign, skey, metric, temperature_c, k, enantiomer, transport_limited,
                 require)
-    chosen = r[r["catalyst"].astype(str).isin(picked) | (r["role"].astype(str) == "reference")]
-    chosen = chosen[chosen["rank"].notna()]
-    n_picked = int((chosen["role"].astype(str) != "reference").sum())
     with open_store(path, read_only) as s:
         hist, hist_files = s.imports(campaign), s.import_files(campaign)
-    with tempfile.TemporaryDirectory(prefix="screenlab-shortlist-") as tmp:
-        out = write_shortlist(Path(tmp) / "shortlist", chosen, a.kinetics, campaign=campaign, top_k=max(1, n_picked),
-                              catalysts=a.data.catalysts, quality=a.quality, imports=hist, import_files=hist_files,
-                              options={"metric": metric, "temperature_c": temperature_c, "top_k": k,
-                                       "note": note, "picked": ";".join(picked), "decision": decision,
-                                       "enantiomer": enantiomer or "",
-                                       "require": ";".join(require), "order": r.attrs.get("direction", ""),
-                                       "draws": (r.attrs.get("monte_carlo") or {}).get("draws", ""),
-                                       "mc_se": (r.attrs.get("monte_carlo") or {}).get("mc_se", "")})
-        table = pd.read_csv(out["csv"]) if "csv" in out else pd.DataFrame()
-        csv = Path(out["csv"]).read_bytes()
-        xlsx = Path(out["xlsx"]).read_bytes()
-        nr_name = f"{campaign}-next-round"
-        folder = design_next_round(Path(tmp) / nr_name, a.data, [c for c in picked], name=nr_name,
-                                   decision=decision)
-        buf = io.BytesIO()
-        files = sorted(p for p in Path(folder).rglob("*") if p.is_file())
-        with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
-            for p in files:
-                zf.write(p, f"{nr_name}/{p.relative_to(folder).as_posix()}")
-            if note.strip():
-                zf.writestr(f"{nr_name}/NOTE.txt", note.strip() + "\n")
-        layout = Path(folder) / "layout.csv"
-        summary = ""
-        if layout.is_file():
-            lay = pd.read_csv(layout)
-            roles = lay["role"].astype(str).value_counts()
-            summary = (f"Next round: {lay['plate'].nunique()} plate(s), "
-                       + ", ".join(f"{int(n)} {role}" for role, n in roles.items())
-                       + f" wells; files: {', '.join(p.name for p in files)}.")
-    return ShortlistFiles(table=table, csv=csv, xlsx=xlsx, next_round_zip=buf.getvalue(), next_round_summary=summary)
+    return shortlist_bundle(a, r, picked, campaign=campaign, metric=metric, temperature_c=temperature_c, top_k=k,
+                            note=note, decision=decision, enantiomer=enantiomer, require=tuple(require),
+                            imports=hist, import_files=hist_files)
 
 
 # --------------------------------------------------------------------------------------------

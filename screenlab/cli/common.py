@@ -100,11 +100,12 @@ def load_stored_campaign(store_arg: str | None, campaign: str, *, history: bool 
     if not Path(path).exists():
         raise UsageError(f"store {path} does not exist; import a campaign first with 'screenlab ingest PATH'")
     store = Store(path, read_only=True)
-    names = store.campaign_names()
-    if campaign not in names:
+    try:
+        data = store.load_campaign(campaign)  # one connection when the campaign is there (start-up time)
+    except NotFoundError:
+        names = store.campaign_names()
         known = ", ".join(names) if names else "none"
-        raise NotFoundError(f"campaign {campaign!r} is not in {path} (stored: {known})")
-    data = store.load_campaign(campaign)
+        raise NotFoundError(f"campaign {campaign!r} is not in {path} (stored: {known})") from None
     imports = store.imports(campaign) if history else None
     files = store.import_files(campaign) if history else None
     return data, imports, files

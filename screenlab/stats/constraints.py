@@ -31,9 +31,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats as _st
 
 from screenlab.errors import UsageError
+from screenlab.uncertainty import quantiles as _st  # t.ppf / norm.ppf without loading scipy.stats
 
 _EXPR = re.compile(r"^\s*([A-Za-z_][A-Za-z0-9_]*)\s*(>=|<=)\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s*$")
 #: unit suffixes stripped to find a column's interval or SE columns

@@ -79,11 +79,11 @@ import warnings
 import numpy as np
 import pandas as pd
 from scipy import special as _sp_special
-from scipy import stats as _st
 
 from screenlab import _groups
 from screenlab.errors import DataQualityWarning
 from screenlab.plates import format_dims, is_edge
+from screenlab.uncertainty import t_ppf
 
 #: Flag codes set by this module (code -> one plain sentence).
 FLAGS: dict[str, str] = {
@@ -421,6 +421,8 @@ def mannwhitneyu_grouped(values, in_x, group, n_groups: int) -> tuple[np.ndarray
     p = np.where(ok, np.clip(2 * _sp_special.ndtr(-z), 0.0, 1.0), np.nan)
     exact = ok & ~((n1 > 8) & (n2 > 8)) & ~ties
     if exact.any():
+        from scipy import stats as _st  # only here: a command without an exact test never loads scipy.stats
+
         ex_x = exact[gs] & xs
         ex_y = exact[gs] & ~xs
         sizes = pd.DataFrame({"n1": n1[exact], "n2": n2[exact], "g": np.flatnonzero(exact)})
@@ -520,7 +522,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
         with np.errstate(invalid="ignore", divide="ignore"):
             loo_var = (s2 - x * x - m * loo_mean ** 2) / loo_dof if loo_dof >= 2 else np.full_like(x, np.nan)
             g["loo_t"] = (x - loo_mean) / np.sqrt(np.where(loo_var > 0, loo_var, np.nan) * (1 + 1 / max(m, 1)))
-        g["loo_limit"] = _st.t.ppf(1 - SHEWHART_TAIL / 2, loo_dof) if loo_dof >= 2 else np.nan
+        g["loo_limit"] = t_ppf(1 - SHEWHART_TAIL / 2, loo_dof) if loo_dof >= 2 else np.nan
         g["expected"] = np.exp(g["_lnexp"])
         g["lower_tof_per_h"] = g["expected"] * np.exp(g["lower"])
         g["upper_tof_per_h"] = g["expected"] * np.exp(g["upper"])
@@ -539,7 +541,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
 
 
 # --------------------------------------------------------------------------- per-plate summary
-def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
+def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
     """One row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status.
 
     Columns:
@@ -561,8 +563,11 @@ def plate_quality(data, kin, settings=None, *, bscore_value: str = "rate", contr
     unchecked | failed) and ``flags`` (see :data:`FLAGS`). ``control``: the benchmark's control
     chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``).
     """
+    from screenlab.model import CampaignData
     from screenlab.settings import AnalysisSettings
 
+    if isinstance(kin, CampaignData):  # the order before (data, kin) would fail far from here
+        raise TypeError("plate_quality(kin, data, settings): the kinetics result comes first, as in control_chart")
     settings = settings or getattr(kin, "settings", None) or AnalysisSettings()
     w = kin.wells
     role = w["role"].astype(str).to_numpy()

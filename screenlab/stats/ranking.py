@@ -51,9 +51,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats as _st
 
 from screenlab.errors import UsageError
+from screenlab.uncertainty import quantiles as _st  # t.ppf / norm.ppf without loading scipy.stats
 
 #: Flag codes set by this module (code -> one plain sentence).
 FLAGS: dict[str, str] = {
