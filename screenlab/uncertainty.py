@@ -1,5 +1,6 @@
 """The few rules of interval arithmetic every module shares, written once.
 
+* :func:`t_ppf`: the one-sided Student t quantile at probability ``p`` (the same rule for df);
 * :func:`t_quantile`: two-sided Student t quantile at ``confidence`` for ``df`` degrees of freedom
   (``scipy.special.stdtrit``, so no module needs ``scipy.stats``); ``df = inf`` gives the normal
   quantile (``scipy.special.ndtri``); ``df <= 0`` or NaN gives NaN.
@@ -14,14 +15,19 @@ import numpy as np
 from scipy import special
 
 
-def t_quantile(confidence: float, df) -> np.ndarray:
-    """Two-sided Student t quantile; df = inf gives the normal quantile, df <= 0 or NaN gives NaN."""
+def t_ppf(p, df) -> np.ndarray:
+    """The ``p`` quantile of Student t(df) (one-sided; ``p`` may be an array); df = inf gives the
+    normal quantile, df <= 0 or NaN gives NaN."""
     df = np.asarray(df, dtype=float)
-    p = 0.5 + float(confidence) / 2.0
     finite = np.isfinite(df) & (df > 0)
     with np.errstate(invalid="ignore"):
         out = np.where(finite, special.stdtrit(np.where(finite, df, 1.0), p), np.nan)
     return np.where(np.isposinf(df), special.ndtri(p), out)
+
+
+def t_quantile(confidence: float, df) -> np.ndarray:
+    """Two-sided Student t quantile; df = inf gives the normal quantile, df <= 0 or NaN gives NaN."""
+    return t_ppf(0.5 + float(confidence) / 2.0, df)
 
 
 def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
@@ -35,4 +41,4 @@ def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
         return np.where(den > 0, (va + vb) ** 2 / den, np.inf)
 
 
-__all__ = ["t_quantile", "welch_df"]
+__all__ = ["t_ppf", "t_quantile", "welch_df"]
