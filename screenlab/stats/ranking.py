@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 from screenlab.errors import UsageError
-from screenlab.schema import RATES, check_frame
+from screenlab.schema import RATES, FrameSchema, check_frame
 from screenlab.stats.candidates import (DIRECTION, FLAGS, METRICS, NOT_SHOWN_ACTIVE, TOO_FAST, Metric,  # noqa: F401
                                         apply_requirements, candidate_table, get_metric, ranking_temperature,
                                         requirements)
@@ -38,6 +38,15 @@ from screenlab.stats.sampling import draw_matrix, rank_draws  # noqa: F401  (re-
 RANK_COLUMNS = ["rank", "catalyst", "role", "family", "metric", "estimate", "ci_low", "ci_high", "censored", "unit",
                 "favours", "rank_low", "rank_high", "p_top", "p_best", "p_beats_reference", "n", "temperature_c",
                 "basis", "flags", "reason"]
+
+#: the columns of the rates table (:data:`screenlab.schema.RATES`) the ranking and its requirements
+#: read, checked at the entry of :func:`rank_candidates`; the Arrhenius stage's additions
+#: (``in_arrhenius_fit``, ...) are not needed, so a ``group_rates`` table ranks as it is
+RANKING_RATES = FrameSchema("rates", RATES.made_by, tuple(RATES.column(c) for c in (
+    "catalyst", "role", "temperature_c", "n_wells", "is_standard", "plates", "flags", "censored",
+    "tof_per_h", "tof_se_per_h", "tof_df", "ton", "ton_se", "enhancement", "enhancement_ci_low",
+    "enhancement_ci_high", "selectivity_pct", "selectivity_se", "selectivity_df", "ee_pct", "ee_se", "ee_df")),
+    extra="any (the ranking reads only these)")
 
 
 def rank_candidates(kin, quality=None, *, metric: str = "tof", at_temperature_c: float | None = None,
@@ -81,7 +90,7 @@ def rank_candidates(kin, quality=None, *, metric: str = "tof", at_temperature_c:
     ``rank_bound_halfwidth``, ``rank_bound_stable_share``, ``n_contenders``). Reproducible for a
     given ``seed``.
     """
-    check_frame(kin.rates, RATES, where="rank_candidates")   # a rates table meeting screenlab.schema, or a clear error
+    check_frame(kin.rates, RANKING_RATES, where="rank_candidates")   # the columns it reads, or a clear error
     m = get_metric(metric)
     if draws is not None and draws < 1:
         raise UsageError("draws must be at least 1")
@@ -174,6 +183,6 @@ def _direction(m: Metric, enantiomer: str | None, include_transport_limited: boo
     return direction
 
 
-__all__ = ["DIRECTION", "FLAGS", "METRICS", "Metric", "NOT_SHOWN_ACTIVE", "RANK_COLUMNS", "TOO_FAST",
+__all__ = ["DIRECTION", "FLAGS", "METRICS", "Metric", "NOT_SHOWN_ACTIVE", "RANKING_RATES", "RANK_COLUMNS", "TOO_FAST",
            "candidate_table", "draw_matrix", "front_share", "pareto", "rank_candidates", "rank_draws",
            "rank_summary"]
