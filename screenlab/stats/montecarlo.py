@@ -631,6 +631,28 @@ def _plan(confidence: float):
     return plan
 
 
+def _bound_stability(a: dict, k: int) -> dict:
+    """The rank bounds' largest CI half-width (ranks), the share of candidates whose bounds are
+    within :func:`rank_tolerance`, and whether that share reaches :data:`RANK_STABLE_SHARE`."""
+    half = np.zeros(k)
+    for side in ("low", "high"):
+        lo_ci, hi_ci = a[f"rank_{side}_ci"]
+        half = np.maximum(half, np.maximum(a[f"rank_{side}"] - lo_ci, hi_ci - a[f"rank_{side}"]))
+    share = float(np.mean(half <= rank_tolerance(a["rank_low"], a["rank_high"])))
+    return {"rank_bound_halfwidth": float(half.max()), "rank_bound_stable_share": share,
+            "rank_bound_stable": share >= RANK_STABLE_SHARE}
+
+
+def _kth_threshold(a: dict, mu, sigma, df, kk: int, absolute: bool) -> float:
+    """The threshold: a low quantile of the K-th best score over the draws made (a fixed number for
+    the draws that follow, which stay exact whatever it is; it only decides how much work they are),
+    else :func:`_threshold` from the candidates' quantiles."""
+    kth = a.get("kth_score")
+    if kth is not None and kth.size:
+        return float(np.quantile(kth, KTH_QUANTILE))
+    return _threshold(mu, sigma, df, kk, absolute)
+
+
 def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: float = 0.95,
                           reference: int | None = None, absolute: bool = False, mc_se: float = MC_SE,
                           max_draws: int = MAX_DRAWS) -> dict:
@@ -648,14 +670,7 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
         out.update(draws=0, mc_se=0.0, rank_bound_halfwidth=0.0, rank_bound_stable=True, rank_bound_stable_share=1.0,
                    n_contenders=0, threshold=np.nan)
         return out
-    half = np.zeros(k)
-    for side in ("low", "high"):
-        lo_ci, hi_ci = a[f"rank_{side}_ci"]
-        half = np.maximum(half, np.maximum(a[f"rank_{side}"] - lo_ci, hi_ci - a[f"rank_{side}"]))
-    share = float(np.mean(half <= rank_tolerance(a["rank_low"], a["rank_high"])))
-    out["rank_bound_halfwidth"] = float(half.max())
-    out["rank_bound_stable_share"] = share
-    out["rank_bound_stable"] = share >= RANK_STABLE_SHARE
+    out.update(_bound_stability(a, k))
 
     top = np.rint(a["p_top"] * n_a).astype(np.int64)
     best = np.rint(a["p_best"] * n_a).astype(np.int64)
@@ -664,11 +679,7 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
     n_beats = np.full(k, n_a, np.int64)
     n = n_a
     kk = min(top_k, k)
-    # the threshold: a low quantile of the K-th best score over the draws made (a fixed number for
-    # the draws that follow, which stay exact whatever it is; it only decides how much work they are)
-    kth = a.get("kth_score")
-    thr = float(np.quantile(kth, KTH_QUANTILE)) if kth is not None and kth.size else \
-        _threshold(mu, sigma, df, kk, absolute)
+    thr = _kth_threshold(a, mu, sigma, df, kk, absolute)
     p_exc = tail_probability(mu, sigma, df, thr, absolute)
     # resolved: those that rarely exceed the threshold (their few draws above it are drawn alone)
     resolved = p_exc <= TAIL_EACH
