@@ -25,7 +25,7 @@ _LAZY = {
     "AnalysisSettings": "screenlab.settings",
     "CampaignData": "screenlab.model",
     "rank_candidates": "screenlab.stats.ranking",
-    "pareto": "screenlab.stats.ranking",
+    "pareto": "screenlab.stats.pareto",
 }
 
 __all__ = sorted(_LAZY) + ["__version__"]

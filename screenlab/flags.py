@@ -17,7 +17,7 @@ _FLAG_MODULES = (
     "screenlab.kinetics.arrhenius",
     "screenlab.kinetics.orders",
     "screenlab.stats.quality",
-    "screenlab.stats.ranking",
+    "screenlab.stats.candidates",
 )
 
 

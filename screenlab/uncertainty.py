@@ -1,5 +1,6 @@
 """The few rules of interval arithmetic every module shares, written once.
 
+* :func:`t_ppf`: the one-sided Student t quantile at probability ``p`` (the same rule for df);
 * :func:`t_quantile`: two-sided Student t quantile at ``confidence`` for ``df`` degrees of freedom
   (``scipy.special.stdtrit``, so no module needs ``scipy.stats``); ``df = inf`` gives the normal
   quantile (``scipy.special.ndtri``); ``df <= 0`` or NaN gives NaN.
@@ -7,11 +8,11 @@
   variance terms (Welch, Biometrika 1947, 34, 28; Satterthwaite, Biometrics Bull. 1946, 2, 110):
   ``(va + vb)^2 / (va^2 / da + vb^2 / db)``, a term with zero variance contributing nothing and
   the result ``inf`` when both are zero.
-* :func:`t_ppf`, :func:`norm_ppf`: ``scipy.stats.t.ppf`` / ``scipy.stats.norm.ppf`` for
-  probabilities in (0, 1) and ``df > 0``, from the same ``scipy.special`` functions those call
-  (``stdtrit``, ``ndtri``; the same numbers), without importing ``scipy.stats`` (which costs a
-  command's start-up a large share; see scripts/benchmark.py). :data:`quantiles` holds them as
-  ``quantiles.t.ppf`` and ``quantiles.norm.ppf`` for code written against ``scipy.stats``.
+* :func:`norm_ppf`: ``scipy.stats.norm.ppf``; :data:`quantiles` holds ``quantiles.t.ppf`` and
+  ``quantiles.norm.ppf`` for code written against ``scipy.stats``. All from the ``scipy.special``
+  functions ``scipy.stats`` itself calls (``stdtrit``, ``ndtri``: the same numbers), without
+  importing ``scipy.stats`` (which costs a command's start-up a large share; see
+  scripts/benchmark.py).
 """
 from __future__ import annotations
 
@@ -21,14 +22,19 @@ import numpy as np
 from scipy import special
 
 
-def t_quantile(confidence: float, df) -> np.ndarray:
-    """Two-sided Student t quantile; df = inf gives the normal quantile, df <= 0 or NaN gives NaN."""
+def t_ppf(p, df) -> np.ndarray:
+    """The ``p`` quantile of Student t(df) (one-sided; ``p`` may be an array); df = inf gives the
+    normal quantile, df <= 0 or NaN gives NaN."""
     df = np.asarray(df, dtype=float)
-    p = 0.5 + float(confidence) / 2.0
     finite = np.isfinite(df) & (df > 0)
     with np.errstate(invalid="ignore"):
         out = np.where(finite, special.stdtrit(np.where(finite, df, 1.0), p), np.nan)
     return np.where(np.isposinf(df), special.ndtri(p), out)
+
+
+def t_quantile(confidence: float, df) -> np.ndarray:
+    """Two-sided Student t quantile; df = inf gives the normal quantile, df <= 0 or NaN gives NaN."""
+    return t_ppf(0.5 + float(confidence) / 2.0, df)
 
 
 def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
@@ -42,11 +48,6 @@ def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
         return np.where(den > 0, (va + vb) ** 2 / den, np.inf)
 
 
-def t_ppf(q, df):
-    """Student t quantile at probability ``q`` (``scipy.stats.t.ppf(q, df)``: ``special.stdtrit``)."""
-    return special.stdtrit(df, q)
-
-
 def norm_ppf(q):
     """Standard normal quantile at probability ``q`` (``scipy.stats.norm.ppf(q)``: ``special.ndtri``)."""
     return special.ndtri(q)
@@ -55,4 +56,4 @@ def norm_ppf(q):
 #: ``quantiles.t.ppf`` and ``quantiles.norm.ppf``, named as in ``scipy.stats``
 quantiles = SimpleNamespace(t=SimpleNamespace(ppf=t_ppf), norm=SimpleNamespace(ppf=norm_ppf))
 
-__all__ = ["t_quantile", "welch_df", "t_ppf", "norm_ppf", "quantiles"]
+__all__ = ["t_ppf", "t_quantile", "welch_df", "norm_ppf", "quantiles"]

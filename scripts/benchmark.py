@@ -170,7 +170,8 @@ def run_size(n_plates: int, fmt: int, seed: int, quick: bool) -> dict:
     from screenlab.kinetics.orders import apparent_orders
     from screenlab.kinetics.turnover import blank_rates, group_rates, well_turnover
     from screenlab.pipeline import analyse, settings_for
-    from screenlab.stats.ranking import pareto, rank_candidates
+    from screenlab.stats.pareto import pareto
+    from screenlab.stats.ranking import rank_candidates
     from screenlab.store import Store
     from screenlab.synthetic import SyntheticSpec, write_campaign_folder
     from screenlab.viz import figures

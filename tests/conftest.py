@@ -16,6 +16,12 @@ aggregated by plain means, so the stats layer is tested independently of the kin
 
 ``turnover_stages``: a seeded synthetic campaign (8 plates, seed 3) through rates, blanks,
 turnover and group rates: ``(data, settings, per_well, blanks, wells, groups)``.
+
+``fake_kin(tof, se, *, df=, n=, ea=, ea_se=, ea_df=, roles=, t=, flags=, ton=, ton_se=)``: a minimal
+kinetics result for the ranking tests: one standard-condition rates row per catalyst ``K0, K1, ...``
+at temperature ``t`` (every column of ``screenlab.schema.RATES``; those not given are empty:
+NaN, no text, 0, False), two wells each (plates P1, P2), and an Arrhenius row per catalyst when
+``ea`` is given.
 """
 from __future__ import annotations
 
@@ -212,3 +218,38 @@ def _make_data(name: str = "demo-aldol", *, plates=("P1", "P2"), fmt=96, times=(
                         source_toml=_SAMPLE_MANIFEST.format(name=name, extra=""))
     return CampaignData(manifest=manifest, catalysts=catalysts, plates=plates_f, wells=wells, readings=readings,
                         factor_names=factor_names)
+
+
+def _fake_kin(tof, se, *, df=1e7, n=4, ea=None, ea_se=None, ea_df=1e7, roles=None, t=60.0, flags=None,
+              ton=None, ton_se=None):
+    """See the module docstring (``fake_kin``)."""
+    from screenlab.kinetics import KineticsResult
+    from screenlab.schema import RATES
+    from screenlab.settings import AnalysisSettings
+
+    names = [f"K{i}" for i in range(len(tof))]
+    roles = roles or ["sample"] * len(tof)
+    rates = pd.DataFrame({"catalyst": names, "role": roles, "temperature_c": t, "n_wells": n,
+                          "tof_per_h": tof, "tof_se_per_h": se, "tof_df": df, "is_standard": True,
+                          "ton": tof if ton is None else ton, "ton_se": se if ton_se is None else ton_se,
+                          "enhancement": np.asarray(tof, float) * 10,
+                          "enhancement_ci_low": np.asarray(tof, float) * 10 / 1.1,
+                          "enhancement_ci_high": np.asarray(tof, float) * 11,
+                          "flags": flags or [""] * len(tof)})
+    empty = {"float": np.nan, "text": None, "int": 0, "bool": False}
+    for col in RATES.columns:                        # the schema's other columns, empty
+        if col.name not in rates:
+            rates[col.name] = pd.Series([empty[col.dtype]] * len(rates), dtype=object if col.dtype == "text" else None)
+    wells = pd.DataFrame({"catalyst": np.repeat(names, 2), "role": np.repeat(roles, 2),
+                          "plate": ["P1", "P2"] * len(tof)})
+    arr = pd.DataFrame()
+    if ea is not None:
+        arr = pd.DataFrame({"catalyst": names, "role": roles, "n_temperatures": 4, "t_min_c": 40.0, "t_max_c": 70.0,
+                            "ea_kj_mol": ea, "ea_se": ea_se, "fit_df": ea_df, "flags": ""})
+    return KineticsResult(pd.DataFrame(), wells, pd.DataFrame(), rates, arr, pd.DataFrame(), AnalysisSettings())
+
+
+@pytest.fixture(scope="session")
+def fake_kin():
+    """The builder ``fake_kin(tof, se, ...)`` (module docstring)."""
+    return _fake_kin

@@ -125,6 +125,16 @@ def make_campaign(seed=0, *, n_cat=8, temps=(40.0, 50.0, 60.0, 70.0), plates_per
     g["is_standard"] = True
     g["flags"] = ""
     g = g.drop(columns=["ton_sd", "enh_sd"])
+    from screenlab.schema import RATES
+
+    for col in RATES.columns:          # the schema's other columns, empty (rank_candidates checks its rates table)
+        if col.name not in g:
+            g[col.name] = {"float": np.nan, "text": None, "int": 0, "bool": False}[col.dtype]
+    from screenlab.schema import RATES
+
+    for col in RATES.columns:          # the schema's other columns, empty (rank_candidates checks its rates table)
+        if col.name not in g:
+            g[col.name] = {"float": np.nan, "text": None, "int": 0, "bool": False}[col.dtype]
     arr_rows = [_fit_arrhenius(c, sub["role"].iloc[0], sub["temperature_c"].tolist(), sub["tof_per_h"].to_numpy(), None)
                 for c, sub in g.groupby("catalyst")] if len(temps) >= 2 else []
     bt = blanks.groupby("temperature_c")["blank_rate_mM_per_h"].mean()

@@ -165,10 +165,8 @@ def import_cycles(graph: dict[str, set[str]]) -> list[list[str]]:
     return sorted(cycles)
 
 
-#: cycles another part of the restructuring undoes: stats.montecarlo imports ranking's draw
-#: helpers while ranking calls montecarlo (the split of ranking.py into candidates / montecarlo /
-#: pareto removes it). Each entry must still be a cycle: delete it once it is gone.
-PENDING_CYCLES = [["screenlab.stats.montecarlo", "screenlab.stats.ranking"]]
+#: known cycles still to undo (none now). Each entry must still be a cycle: delete it once it is gone.
+PENDING_CYCLES: list[list[str]] = []
 
 
 def test_cycle_finder_sees_a_lazy_cycle_and_skips_type_checking(tmp_path):

@@ -3,7 +3,7 @@ forest figures, and the rank command's options and usage errors (issue 14).
 
 The rules here are stated in plain lines (a censored rate reads '>= x' / '<= x', its interval is
 empty, its reason is given); the ranking numbers themselves are checked against outside references
-in test_ranking_semantics.py and test_montecarlo.py.
+in test_ranking.py, test_candidates.py and test_montecarlo.py.
 """
 from __future__ import annotations
 
@@ -21,9 +21,9 @@ from screenlab.cli import main
 from screenlab.cli.stats_cmd import ranking_for_reading
 from screenlab.export.display import bound_text, number_text, show_bounds, value_text
 from screenlab.export.shortlist import write_shortlist
-from screenlab.stats.ranking import TOO_FAST, rank_candidates
+from screenlab.stats.candidates import TOO_FAST
+from screenlab.stats.ranking import rank_candidates
 from screenlab.viz import figures
-from fake_kinetics import fake_kin
 
 
 def test_number_and_bound_texts():
@@ -50,7 +50,7 @@ def test_show_bounds_empties_the_interval_of_a_bound():
     assert same["tof_ci_low"].notna().sum() == 2                     # no column: nothing is a bound
 
 
-def _censored_ranking():
+def _censored_ranking(fake_kin):
     kin = fake_kin([1500.0, 50.0, 40.0, 0.4], [np.nan, 4.0, 4.0, np.nan])
     rates = kin.rates.assign(censored=["lower", "", "", "upper"], tof_ci_low=[1500.0, 45.0, 35.0, np.nan],
                              tof_ci_high=[np.nan, 55.0, 45.0, 0.4])
@@ -58,16 +58,16 @@ def _censored_ranking():
     return kin, rank_candidates(kin, draws=2000)
 
 
-def test_cli_table_writes_bounds():
-    _, r = _censored_ranking()
+def test_cli_table_writes_bounds(fake_kin):
+    _, r = _censored_ranking(fake_kin)
     t = ranking_for_reading(r).set_index("catalyst")
     assert t.loc["K0", "estimate"] == ">= 1,500 h-1" and t.loc["K0", "ci_low"] == "" and t.loc["K0", "ci_high"] == ""
     assert t.loc["K3", "estimate"] == "<= 0.4 h-1"
     assert t.loc["K0", "reason"] == TOO_FAST and "censored" in t.columns and "favours" not in t.columns
 
 
-def test_shortlist_exports_write_bounds(tmp_path):
-    kin, r = _censored_ranking()
+def test_shortlist_exports_write_bounds(tmp_path, fake_kin):
+    kin, r = _censored_ranking(fake_kin)
     paths = write_shortlist(tmp_path, r, kin, campaign="demo", top_k=2)
     short = pd.read_csv(paths["csv"])
     assert short["shown"].str.endswith("h-1").all() and "censored" in short.columns
@@ -101,8 +101,8 @@ def test_arrhenius_plot_marks_points_left_out_and_bounds():
     assert [t.name for t in plain.data] == ["A"] and len(plain.data[0].x) == 4
 
 
-def test_forest_plot_draws_bounds_apart():
-    _, r = _censored_ranking()
+def test_forest_plot_draws_bounds_apart(fake_kin):
+    _, r = _censored_ranking(fake_kin)
     fig = figures.forest_plot(r, label="TOF / h⁻¹", log_x=True)
     est, bounds = fig.data
     assert list(est.y) == ["K1", "K2"]

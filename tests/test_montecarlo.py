@@ -1,24 +1,29 @@
-"""The adaptive Monte Carlo ranking (screenlab.stats.montecarlo) against closed forms, numerical
-integration and the full-draw reference, and its Monte Carlo error claim.
+"""The Monte Carlo rank statistics (screenlab.stats.montecarlo): the fixed-draw engine
+(``rank_summary`` / ``RankDraws``) against the full draws x k rank matrix of the same draws (numpy's
+stable argsort per draw and ``np.quantile(method="inverted_cdf")``: the definition rank_summary
+documents), through every path (windows, the exact fallback, many chunks, one or several workers,
+failing workers); the adaptive one against closed forms, numerical integration and many full draws,
+and its Monte Carlo error claim.
 
 Outside references: scipy.stats.norm / scipy.stats.t distributions and scipy.integrate.quad for
 rank probabilities of independent candidates (P(i best) = int f_i(x) prod_j F_j(x) dx, P(i last) =
-int f_i(x) prod_j (1 - F_j(x)) dx); numpy's sort / quantile on the full draws x k rank matrix for
-the rank statistics of rank_summary's new options.
+int f_i(x) prod_j (1 - F_j(x)) dx); numpy's sort / quantile on the full draws x k rank matrix.
 """
 from __future__ import annotations
+
+import threading
 
 import numpy as np
 import pytest
 from scipy import integrate, stats
 
-import screenlab.stats.ranking as R
 from screenlab.stats import montecarlo as M
+from screenlab.stats import sampling as S
 
 
 def _full_reference(mu, sigma, df, draws, seed, top_k, reference=None, absolute=False):
     """Every candidate ranked in every one of many draws (rank_summary), for comparison."""
-    return R.rank_summary(mu, sigma, df, draws, seed, top_k=top_k, reference=reference, absolute=absolute)
+    return M.rank_summary(mu, sigma, df, draws, seed, top_k=top_k, reference=reference, absolute=absolute)
 
 
 def _close(got, ref, n_got, n_ref, z=4.5):
@@ -145,23 +150,13 @@ def test_reproducible_and_reported():
     assert 0 < a["rank_bound_stable_share"] <= 1 and a["rank_bound_halfwidth"] >= 0
 
 
-def test_rank_candidates_reports_its_draws():
-    from fake_kinetics import fake_kin
-
-    r = R.rank_candidates(fake_kin([100.0, 90.0, 50.0], [10.0, 10.0, 5.0]), seed=1)
-    mc = r.attrs["monte_carlo"]
-    assert mc["mc_se"] <= mc["mc_se_target"] == M.MC_SE and mc["draws"] >= mc["draws_ranked"] > 0
-    fixed = R.rank_candidates(fake_kin([100.0, 90.0, 50.0], [10.0, 10.0, 5.0]), seed=1, draws=400)
-    assert fixed.attrs["monte_carlo"]["draws"] == 400 and fixed.attrs["monte_carlo"]["mc_se"] > M.MC_SE
-
-
 # ------------------------------------------------------------------------------------------- rank_summary options
 def _ranks(mu, sigma, df, draws, seed, absolute=False):
     """The full draws x k rank matrix from rank_summary's own chunks (same seeds), for the references."""
     key = np.abs(mu) if absolute else mu
     perm = np.argsort(-key, kind="stable")
-    score = np.concatenate([R.draw_matrix(mu[perm], sigma[perm], df[perm], d, np.random.default_rng(ss))
-                            for d, ss in R._chunks(draws, mu.size, seed)])
+    score = np.concatenate([S.draw_matrix(mu[perm], sigma[perm], df[perm], d, np.random.default_rng(ss))
+                            for d, ss in S.draw_chunks(draws, mu.size, seed)])
     if absolute:
         score = np.abs(score)
     order = np.argsort(-score, axis=1, kind="stable")
@@ -176,7 +171,7 @@ def test_rank_summary_folded_scores_and_interval_readout():
     rng = np.random.default_rng(10)
     k, n = 25, 3000
     mu, sig, df = rng.normal(0, 1, k), rng.uniform(0.3, 1.5, k), rng.choice([2.0, np.inf], k)
-    got = R.rank_summary(mu, sig, df, n, seed=5, top_k=3, absolute=True, ci_z=M.CI_Z)
+    got = M.rank_summary(mu, sig, df, n, seed=5, top_k=3, absolute=True, ci_z=M.CI_Z)
     ranks = _ranks(mu, sig, df, n, 5, absolute=True)
     q = (1 - 0.95) / 2
     np.testing.assert_array_equal(got["rank_low"], np.quantile(ranks, q, axis=0, method="inverted_cdf"))
@@ -185,8 +180,8 @@ def test_rank_summary_folded_scores_and_interval_readout():
     srt = np.sort(ranks, axis=0)
     for side, level in (("low", q), ("high", 1 - q)):
         h = M.CI_Z * np.sqrt(level * (1 - level) / n)
-        lo = R._order_stat_index(n, max(0.0, level - h))
-        hi = R._order_stat_index(n, min(1.0, level + h))
+        lo = S.order_stat_index(n, max(0.0, level - h))
+        hi = S.order_stat_index(n, min(1.0, level + h))
         np.testing.assert_array_equal(got[f"rank_{side}_ci"][0], srt[lo])
         np.testing.assert_array_equal(got[f"rank_{side}_ci"][1], srt[hi])
 
@@ -195,10 +190,223 @@ def test_rank_summary_plan_stops_at_whole_chunks():
     rng = np.random.default_rng(12)
     k = 400
     mu, sig, df = rng.normal(0, 1, k), rng.uniform(0.2, 0.6, k), np.full(k, 3.0)
-    chunk = R.CHUNK_CELLS // k
-    planned = R.rank_summary(mu, sig, df, 8 * chunk, seed=6, top_k=4, reference=2, pilot_draws=chunk,
+    chunk = S.CHUNK_CELLS // k
+    planned = M.rank_summary(mu, sig, df, 8 * chunk, seed=6, top_k=4, reference=2, pilot_draws=chunk,
                              plan=lambda by_col, n_pilot: int(1.5 * chunk))
     assert planned["draws"] == 2 * chunk
-    direct = R.rank_summary(mu, sig, df, 2 * chunk, seed=6, top_k=4, reference=2, pilot_draws=chunk)
+    direct = M.rank_summary(mu, sig, df, 2 * chunk, seed=6, top_k=4, reference=2, pilot_draws=chunk)
     for key in ("rank_low", "rank_high", "p_top", "p_best", "p_beats"):
         np.testing.assert_array_equal(planned[key], direct[key])
+
+
+# ------------------------------------------------------------------------------------------- rank_summary vs the full matrix
+def _ref_summary(mu, sigma, df, draws, seed, top_k, confidence, reference):
+    """The full draws x k matrix from the same chunk seeds, columns drawn in point-estimate order (as
+    rank_summary documents: ties in a draw go to the column placed first by estimate), one stable
+    argsort per draw, np.quantile with inverted_cdf; P(beats) = share of draws above the reference."""
+    mu, sigma, df = (np.asarray(v, dtype=float) for v in (mu, sigma, df))
+    k = mu.size
+    perm = np.argsort(-mu, kind="stable")
+    score_s = np.concatenate([S.draw_matrix(mu[perm], sigma[perm], df[perm], d, np.random.default_rng(ss))
+                              for d, ss in S.draw_chunks(draws, k, seed)])
+    ranks = _ranks(mu, sigma, df, draws, seed)
+    a = (1 - confidence) / 2
+    out = {"rank_low": np.quantile(ranks, a, axis=0, method="inverted_cdf"),
+           "rank_high": np.quantile(ranks, 1 - a, axis=0, method="inverted_cdf"),
+           "p_top": (ranks <= top_k).mean(axis=0), "p_best": (ranks == 1).mean(axis=0),
+           "p_beats": np.full(k, np.nan)}
+    if reference is not None:
+        score = np.empty_like(score_s)
+        score[:, perm] = score_s
+        out["p_beats"] = (score > score[:, [reference]]).mean(axis=0)
+    return out
+
+
+def _check(got, exp):
+    np.testing.assert_array_equal(got["rank_low"], exp["rank_low"])
+    np.testing.assert_array_equal(got["rank_high"], exp["rank_high"])
+    for c in ("p_top", "p_best", "p_beats"):
+        np.testing.assert_allclose(got[c], exp[c], rtol=0, atol=1e-12)
+
+
+def _case(k, kind, seed=0):
+    rng = np.random.default_rng(seed + 31 * k)
+    if kind == "mixed":
+        mu = rng.normal(0, 1, k)
+        mu[: k // 3] = mu[0]                                   # ties in the point estimates
+        sigma = rng.uniform(0.05, 1.0, k)
+        df = rng.choice([1.0, 1.0001, 2.5, 30.0, 2e4, np.inf], k)   # Cauchy, near-Cauchy, normal
+    elif kind == "equal":                                      # all candidates alike
+        mu, sigma, df = np.full(k, 0.7), np.full(k, 0.3), np.full(k, 4.0)
+    elif kind == "tiny":                                       # below float32 resolution: every draw ties
+        mu, sigma, df = rng.normal(0, 1, k).round(1), np.full(k, 1e-12), np.full(k, np.inf)
+    elif kind == "huge":                                       # heavy tails, very wide
+        mu, sigma, df = rng.normal(0, 1, k), rng.uniform(1e3, 1e6, k), rng.choice([1.0, np.inf], k)
+    else:                                                      # tiny and huge sigma side by side
+        mu = rng.normal(0, 1, k)
+        sigma = np.where(rng.random(k) < 0.5, 1e-9, 50.0)
+        df = rng.choice([1.0, np.inf], k)
+    return mu, sigma, df
+
+
+@pytest.mark.parametrize("window_cells", [M.WINDOW_CELLS, 40])   # 40 cells: most quantiles miss -> fallback
+@pytest.mark.parametrize("case", range(4))
+def test_rank_summary_matches_full_matrix(monkeypatch, case, window_cells):
+    rng = np.random.default_rng(100 + case)
+    k = [7, 40, 120, 300][case]
+    mu = rng.normal(0, 1, k)
+    mu[: k // 5] = mu[0]                                  # ties in the point estimates
+    sigma = rng.uniform(0.05, 1.0, k)
+    df = rng.uniform(1.5, 12, k)
+    df[rng.random(k) < 0.3] = np.inf                      # some normal columns
+    monkeypatch.setattr(S, "CHUNK_CELLS", 997)            # many small chunks
+    monkeypatch.setattr(M, "WINDOW_CELLS", window_cells)
+    monkeypatch.setattr(M, "BLOCK_CELLS", 64 if case % 2 else M.BLOCK_CELLS)   # many column blocks
+    draws, top_k, conf, ref = 1500, 3, [0.95, 0.9, 0.8, 0.5][case], k // 2
+    got = M.rank_summary(mu, sigma, df, draws, seed=case, top_k=top_k, confidence=conf, reference=ref)
+    _check(got, _ref_summary(mu, sigma, df, draws, case, top_k, conf, ref))
+
+
+def test_rank_summary_reproducible_and_bounded():
+    mu, sig, df = np.linspace(0, 1, 50), np.full(50, 0.3), np.full(50, 4.0)
+    a = M.rank_summary(mu, sig, df, 3000, seed=7)
+    b = M.rank_summary(mu, sig, df, 3000, seed=7)
+    for c in a:
+        np.testing.assert_array_equal(a[c], b[c])
+    assert a["p_best"].sum() == pytest.approx(1.0, abs=1e-12)
+    assert (a["rank_low"] <= a["rank_high"]).all() and a["rank_low"].min() >= 1 and a["rank_high"].max() <= 50
+
+
+def test_rank_summary_is_the_engine_run():
+    mu, sig, df = _case(30, "mixed", 3)
+    a = M.rank_summary(mu, sig, df, 700, seed=2, top_k=4, reference=1, ci_z=M.CI_Z, kth=True)
+    b = M.RankDraws(mu, sig, df, 700, 2, top_k=4, reference=1, ci_z=M.CI_Z, kth=True).run()
+    assert a.keys() == b.keys()
+    for key in a:
+        np.testing.assert_array_equal(np.asarray(a[key]), np.asarray(b[key]))
+
+
+@pytest.mark.parametrize("k", [1, 2, 5])
+@pytest.mark.parametrize("draws", [1, 2, 7, 60])
+@pytest.mark.parametrize("kind", ["mixed", "equal", "tiny", "huge", "both"])
+def test_rank_summary_edge_cases(k, draws, kind):
+    mu, sigma, df = _case(k, kind)
+    for top_k, conf, ref in [(1, 0.95, None), (2, 1e-9, 0), (k + 3, 1 - 1e-9, k - 1), (1, 0.5, k // 2)]:
+        got = M.rank_summary(mu, sigma, df, draws, seed=3, top_k=top_k, confidence=conf, reference=ref)
+        _check(got, _ref_summary(mu, sigma, df, draws, 3, top_k, conf, ref))
+        assert got["p_best"].sum() == pytest.approx(1.0, abs=1e-12)
+        assert got["p_top"].sum() == pytest.approx(min(top_k, k), abs=1e-9)
+
+
+def test_rank_summary_without_candidates():
+    out = M.rank_summary([], [], [], 100, seed=0, ci_z=M.CI_Z)
+    assert out["draws"] == 100 and out["p_best"].size == 0 and out["rank_low_ci"][0].size == 0
+
+
+@pytest.mark.parametrize("conf", [0.0, 1e-6, 0.5, 0.95, 0.999999, 1.0])
+def test_rank_summary_confidence_extremes(conf):
+    mu, sigma, df = _case(40, "mixed", 1)
+    got = M.rank_summary(mu, sigma, df, 333, seed=5, top_k=4, confidence=conf, reference=7)
+    _check(got, _ref_summary(mu, sigma, df, 333, 5, 4, conf, 7))
+    assert (got["rank_low"] <= got["rank_high"]).all()
+
+
+@pytest.mark.parametrize("kind", ["mixed", "tiny", "both"])
+@pytest.mark.parametrize("patch", [
+    {"WINDOW_CELLS": 1},                                       # windows squeezed to one rank: fallback
+    {"WINDOW_CELLS": 5, "FALLBACK_CELLS": 1},                  # fallback one column at a time, 1-draw pilot
+    {"FALLBACK_CELLS": 7, "pilot_draws": 3},                   # pilot smaller than a chunk of draws
+    {"CHUNK_CELLS": 1},                                        # one draw per chunk: hundreds of tasks
+    {"CHUNK_CELLS": 37, "BLOCK_CELLS": 1},                     # many chunks, one column per bincount
+    {"pilot_draws": 1, "CHUNK_CELLS": 50},                     # a tiny pilot: windows often miss
+])
+def test_rank_summary_paths(monkeypatch, patch, kind):
+    pilot = patch.get("pilot_draws", M.PILOT_DRAWS)
+    for name, value in patch.items():
+        if name != "pilot_draws":
+            monkeypatch.setattr(S if name == "CHUNK_CELLS" else M, name, value)
+    mu, sigma, df = _case(23, kind, 2)
+    for draws in (2, 7, 301):
+        got = M.rank_summary(mu, sigma, df, draws, seed=draws, top_k=3, confidence=0.9, reference=0,
+                             pilot_draws=pilot)
+        _check(got, _ref_summary(mu, sigma, df, draws, draws, 3, 0.9, 0))
+
+
+@pytest.mark.parametrize("workers", [1, 3])
+def test_rank_summary_workers_give_the_same_numbers(monkeypatch, workers):
+    monkeypatch.setattr(S, "CHUNK_CELLS", 64)                 # ~ 3 draws per chunk at k = 20
+    mu, sigma, df = _case(20, "mixed", 4)
+    monkeypatch.setattr(S, "n_workers", lambda n: workers)
+    got = M.rank_summary(mu, sigma, df, 400, seed=9, top_k=2, confidence=0.8, reference=19, pilot_draws=10)
+    _check(got, _ref_summary(mu, sigma, df, 400, 9, 2, 0.8, 19))
+    monkeypatch.setattr(M, "WINDOW_CELLS", 3)                 # and through the fallback
+    got = M.rank_summary(mu, sigma, df, 400, seed=9, top_k=2, confidence=0.8, reference=19, pilot_draws=10)
+    _check(got, _ref_summary(mu, sigma, df, 400, 9, 2, 0.8, 19))
+
+
+def _run_with_timeout(fn, timeout=20.0):
+    box = {}
+
+    def target():
+        try:
+            box["value"] = fn()
+        except BaseException as exc:                          # noqa: BLE001 - handed to the test
+            box["error"] = exc
+
+    th = threading.Thread(target=target, daemon=True)
+    th.start()
+    th.join(timeout)
+    assert not th.is_alive(), "rank_summary hung after a failing chunk"
+    return box
+
+
+@pytest.mark.parametrize("workers", [1, 3])
+@pytest.mark.parametrize("where", ["pilot", "after_pilot", "fallback"])
+def test_rank_summary_worker_exception_raises(monkeypatch, workers, where):
+    real = M.draw_matrix
+    calls = {"n": 0}
+    k, draws = 10, 200
+    monkeypatch.setattr(S, "CHUNK_CELLS", 10 * k)            # 10 draws per chunk: 20 chunks
+    monkeypatch.setattr(S, "n_workers", lambda n: workers)
+    pilot = M.PILOT_DRAWS
+    if where == "pilot":
+        pilot, fail_at = 100, 3                               # 10 pilot chunks; the 3rd fails
+    elif where == "after_pilot":
+        pilot, fail_at = 20, 3                                # 2 pilot chunks; the 3rd chunk fails
+    else:
+        monkeypatch.setattr(M, "WINDOW_CELLS", 1)             # every quantile goes to the fallback
+        fail_at = draws // 10 + 3                             # the 3rd chunk drawn again
+
+    def flaky(*args, **kw):
+        with threading.Lock():
+            calls["n"] += 1
+            n = calls["n"]
+        if n == fail_at:
+            raise RuntimeError("boom in chunk")
+        return real(*args, **kw)
+
+    monkeypatch.setattr(M, "draw_matrix", flaky)
+    mu, sigma, df = _case(k, "mixed", 5)
+    box = _run_with_timeout(lambda: M.rank_summary(mu, sigma, df, draws, seed=1, reference=0, pilot_draws=pilot))
+    assert isinstance(box.get("error"), RuntimeError), box
+    # and the module still works afterwards (no state left behind)
+    monkeypatch.setattr(M, "draw_matrix", real)
+    _check(M.rank_summary(mu, sigma, df, draws, seed=1, reference=0, pilot_draws=pilot),
+           _ref_summary(mu, sigma, df, draws, 1, 5, 0.95, 0))
+
+
+def test_rank_summary_reference_out_of_range_is_an_error():
+    # callers pass a valid column; a wrong one must fail loudly rather than give numbers
+    mu, sigma, df = _case(4, "mixed")
+    with pytest.raises(IndexError):
+        M.rank_summary(mu, sigma, df, 10, reference=4)
+
+
+def test_student_t_quantile_of_the_draws():
+    # the conditioned draws use the one-sided t quantile (screenlab.uncertainty.t_ppf; scipy.stats.t.ppf
+    # / scipy.stats.norm.ppf as the reference), normal where draw_matrix draws normal
+    p = np.array([1e-9, 0.01, 0.5, 0.975, 0.999])
+    df = np.array([3.0, np.inf, 2e4, np.nan, 12.0])
+    exp = [stats.t.ppf(1e-9, 3), stats.norm.ppf(0.01), stats.norm.ppf(0.5), stats.norm.ppf(0.975),
+           stats.t.ppf(0.999, 12)]
+    np.testing.assert_allclose(M._std_ppf(p, df), exp, rtol=1e-10)

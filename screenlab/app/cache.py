@@ -106,7 +106,7 @@ def pareto(path: str, read_only: bool, version: Any, campaign: str, skey: tuple,
            temperature_c: float | None, draws: int = 2000, require: tuple[str, ...] = ()) -> pd.DataFrame:
     """``stats.ranking.pareto`` over 2-3 metrics, with P(on the front) from ``draws`` joint draws,
     under the Ranking page's requirements."""
-    from screenlab.stats.ranking import pareto as _pareto
+    from screenlab.stats.pareto import pareto as _pareto
 
     a = analysis(path, read_only, version, campaign, skey)
     return _pareto(a.kinetics, a.quality, metrics, at_temperature_c=temperature_c, draws=draws,

@@ -217,7 +217,7 @@ def mc_note(r) -> str:
 def run_rank(args) -> int:
     a, _, _ = _load(args)
     if args.pareto:
-        from screenlab.stats.ranking import pareto
+        from screenlab.stats.pareto import pareto
 
         if args.enantiomer is not None:
             from screenlab.errors import UsageError
@@ -266,7 +266,7 @@ def run_shortlist(args) -> int:
     from screenlab.errors import UsageError
     from screenlab.export.nextround import design_next_round
     from screenlab.export.shortlist import write_shortlist
-    from screenlab.stats.ranking import pareto
+    from screenlab.stats.pareto import pareto
 
     temps = _temperatures(args.temperatures)
     if args.replicates < 1:

@@ -130,7 +130,7 @@ def draft_decision(ranking: pd.DataFrame, picked, *, campaign: str, note: str, a
             "unrankable": int(ranking["rank"].isna().sum())}
     cons.update(constraints or {})
     metric = str(ranking["metric"].iloc[0]) if "metric" in ranking else ""
-    from screenlab.stats.ranking import METRICS
+    from screenlab.stats.candidates import METRICS
 
     t = None
     m = METRICS.get(metric)

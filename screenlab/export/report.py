@@ -115,7 +115,7 @@ def _flag_words(flags, help_: dict[str, str]) -> str:
 
 
 def _metric_info(metric: str):
-    from screenlab.stats.ranking import METRICS
+    from screenlab.stats.candidates import METRICS
 
     m = METRICS.get(metric)
     unit = {"h-1": "h⁻¹", "kJ/mol": "kJ mol⁻¹"}.get(m.unit, m.unit) if m else ""

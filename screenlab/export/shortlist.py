@@ -37,7 +37,7 @@ that assessment.
 
 
 def _shortlist_frame(ranking: pd.DataFrame, top_k: int, catalysts: pd.DataFrame | None) -> pd.DataFrame:
-    from screenlab.stats.ranking import METRICS
+    from screenlab.stats.candidates import METRICS
 
     if ranking.empty:
         raise UsageError("the ranking is empty: nothing to shortlist")
@@ -63,7 +63,7 @@ def _shortlist_frame(ranking: pd.DataFrame, top_k: int, catalysts: pd.DataFrame 
 def _rates_for_reading(rates: pd.DataFrame) -> pd.DataFrame:
     """The rates rows with censored values as bounds: intervals emptied, ``tof_shown`` and
     ``enhancement_shown`` text columns, and the plain-words reason of each bound."""
-    from screenlab.stats.ranking import NOT_SHOWN_ACTIVE, TOO_FAST
+    from screenlab.stats.candidates import NOT_SHOWN_ACTIVE, TOO_FAST
 
     out = show_bounds(rates, "tof_per_h", "tof_ci_low", "tof_ci_high", unit="h-1", text="tof_shown")
     out = show_bounds(out, "enhancement", "enhancement_ci_low", "enhancement_ci_high", text="enhancement_shown")

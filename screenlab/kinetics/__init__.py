@@ -101,7 +101,7 @@ def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: Analys
     interval is recomputed; bounds (``censored``) keep theirs.
     """
     from screenlab.kinetics.arrhenius import arrhenius_points
-    from screenlab.kinetics.turnover import t_quantile, welch_df
+    from screenlab.uncertainty import t_quantile, welch_df
 
     if not len(groups):
         return groups.assign(in_arrhenius_fit=pd.Series(dtype=bool), arrhenius_left_out=pd.Series(dtype=object),

@@ -42,7 +42,7 @@ from scipy import special
 from screenlab import _groups as grp
 from screenlab import units
 from screenlab.kinetics.sites import has_flag, join_flags
-from screenlab.kinetics.turnover import t_quantile, welch_df
+from screenlab.uncertainty import t_quantile, welch_df
 from screenlab.settings import AnalysisSettings
 
 from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)

@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 
 from screenlab.errors import UsageError
-from screenlab.uncertainty import quantiles as _st  # t.ppf / norm.ppf without loading scipy.stats
+from screenlab.uncertainty import t_quantile
 
 _EXPR = re.compile(r"^\s*([A-Za-z_][A-Za-z0-9_]*)\s*(>=|<=)\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s*$")
 #: unit suffixes stripped to find a column's interval or SE columns
@@ -131,9 +131,7 @@ def interval(rates: pd.DataFrame, col: str, confidence: float = 0.95) -> tuple[n
         df = next((num(c) for c in (f"{root}_df", "tof_df") if c in rates), None)
         if se is not None:
             d = df if df is not None else np.full(len(rates), np.inf)
-            with np.errstate(invalid="ignore"):
-                q = np.where(np.isfinite(d) & (d > 0), _st.t.ppf(0.5 + confidence / 2, np.where(d > 0, d, 1.0)),
-                             _st.norm.ppf(0.5 + confidence / 2))
+            q = t_quantile(confidence, np.where(np.isfinite(d) & (d > 0), d, np.inf))   # df missing or <= 0: normal
             lo, hi = est - q * se, est + q * se
         else:
             lo, hi = np.full(len(rates), np.nan), np.full(len(rates), np.nan)

@@ -31,6 +31,7 @@ import pandas as pd
 from screenlab.stats.bounds import censored_of
 
 from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
+from screenlab.uncertainty import t_quantile  # noqa: E402
 #: tolerance when matching a measured temperature to the reference temperature, degC (as the ranking)
 T_MATCH_C = 0.05
 
@@ -49,12 +50,6 @@ def _num(frame: pd.DataFrame, col: str) -> np.ndarray:
     if col not in frame:
         return np.full(len(frame), np.nan)
     return pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=float)
-
-
-def _t_quantile(confidence: float, df) -> np.ndarray:
-    from screenlab.kinetics.turnover import t_quantile
-
-    return t_quantile(confidence, df)
 
 
 def benchmark_ratio(est_a, ln_se_a, df_a, est_b, ln_se_b, df_b, confidence: float = 0.95):
@@ -79,7 +74,7 @@ def benchmark_ratio(est_a, ln_se_a, df_a, est_b, ln_se_b, df_b, confidence: floa
         df = np.where(den > 0, (va + vb) ** 2 / np.where(den > 0, den, 1.0), np.inf)
         df = np.where(np.isfinite(da) | np.isposinf(da), df, np.nan)
         df = np.where(np.isfinite(db) | np.isposinf(db), df, np.nan)
-        q = _t_quantile(confidence, df)
+        q = t_quantile(confidence, df)
         lo, hi = np.exp(ln_r - q * se), np.exp(ln_r + q * se)
         good = np.isfinite(se) & np.isfinite(q)
         return np.exp(ln_r), np.where(good, lo, np.nan), np.where(good, hi, np.nan), df

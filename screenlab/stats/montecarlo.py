@@ -1,8 +1,8 @@
 """Adaptive Monte Carlo rank statistics: as many draws as the reported numbers need, no more.
 
-:func:`screenlab.stats.ranking.rank_summary` ranks every candidate in every one of a fixed number
-of draws. Most of that work serves nothing: the rank interval of a candidate placed 1,500th is
-known well enough after a few thousand draws, and whether a candidate is in the top 5 is only in
+:func:`rank_summary` (the fixed-draw engine, :class:`RankDraws`) ranks every candidate in every one
+of a fixed number of draws. Most of that work serves nothing: the rank interval of a candidate placed
+1,500th is known well enough after a few thousand draws, and whether a candidate is in the top 5 is only in
 doubt for the few that can get there. :func:`adaptive_rank_summary` therefore works in two phases:
 
 1. **Rank intervals.** Every candidate is ranked in every draw (:func:`rank_summary`), for as many
@@ -11,7 +11,7 @@ doubt for the few that can get there. :func:`adaptive_rank_summary` therefore wo
    argument on the order statistics; any text on order statistics, e.g. David & Nagaraja, *Order
    Statistics*, 3rd ed., section 7.1, from memory) lies within :func:`rank_tolerance` of the bound:
    one rank, or :data:`RANK_TOL_REL` of the candidate's rank-interval width when that is more.
-   The number of draws is planned from the first :data:`~screenlab.stats.ranking.PILOT_DRAWS`
+   The number of draws is planned from the first :data:`PILOT_DRAWS`
    draws (the half-width shrinks as 1/sqrt(n)) and checked afterwards (``rank_bound_stable``).
 2. **Probabilities.** P(top K), P(best) and P(beats the benchmark) are drawn further until the Monte
    Carlo standard error of every one of them is below ``mc_se`` (default :data:`MC_SE`; the SE of
@@ -37,11 +37,14 @@ ranks), ``rank_bound_stable``, ``n_contenders`` and ``threshold``.
 """
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 from scipy import special as _sp
 
-from screenlab.stats.ranking import (CHUNK_CELLS, NORMAL_DF, _executor, _order_desc, _order_stat_index, draw_matrix,
-                                     rank_summary)
+from screenlab.stats.sampling import (CHUNK_CELLS, NORMAL_DF, draw_chunks, draw_matrix, executor, order_desc,
+                                      order_stat_index, ranks_from_order)
+from screenlab.uncertainty import t_ppf
 
 #: target Monte Carlo standard error of every reported probability
 MC_SE = 0.005
@@ -62,6 +65,368 @@ MAX_DRAWS = 400_000
 TAIL_EACH = 0.02
 #: the threshold is this quantile of the K-th best score seen in the ranked draws
 KTH_QUANTILE = 0.005
+
+
+#: cells of the banded rank histograms (candidates x window, int32) used for the rank intervals
+WINDOW_CELLS = 1 << 24
+#: histogram cells updated per bincount: bounds its temporary, and keeps it within a core's L2 cache
+#: (scattered increments into a larger one miss the cache: 25 % more CPU at 11,000 candidates)
+BLOCK_CELLS = 1 << 17
+#: ranks kept in memory at once when a rank quantile falls outside its window (draws x candidates)
+FALLBACK_CELLS = 1 << 24
+#: draws whose ranks place the rank-histogram windows (kept in memory up to FALLBACK_CELLS ranks)
+PILOT_DRAWS = 1000
+
+
+class RankDraws:
+    """The fixed-draw Monte Carlo engine of :func:`rank_summary` (see there for the arguments).
+
+    The draws are made in chunks of at most :data:`CHUNK_CELLS` numbers (each with its own seed);
+    each chunk is ranked (one integer-key sort per draw, :func:`order_desc`) and folded into running
+    counts, so memory does not grow with ``draws``. The steps, one method each:
+
+    1. :meth:`_draw_and_count`: the chunks are tasks of the worker threads; the first ones (the
+       pilot, at least ``pilot_draws`` draws) hand their ranks back, :meth:`_place_windows` places a
+       banded rank histogram per candidate from them (and asks ``plan`` how many draws to make),
+       and every later chunk folds its ranks into that histogram (:meth:`_fold`, :meth:`_count`);
+    2. :meth:`_read_bounds`: each rank quantile (and its confidence interval's order statistics)
+       read off the histogram's cumulative counts (:meth:`_read`);
+    3. :meth:`_fallback`: a candidate whose quantile fell outside its window is resolved exactly by
+       drawing the chunks again and keeping only that candidate's ranks.
+
+    Columns are handled in point-estimate order (best first): column p is candidate ``perm[p]``.
+    """
+
+    def __init__(self, mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidence: float = 0.95,
+                 reference: int | None = None, absolute: bool = False, plan=None, ci_z: float | None = None,
+                 pilot_draws: int = PILOT_DRAWS, kth: bool = False):
+        mu, sigma, df = (np.asarray(v, dtype=float).ravel() for v in (mu, sigma, df))
+        self.k = k = mu.size
+        self.draws, self.top_k, self.absolute = draws, top_k, absolute
+        self.plan, self.ci_z, self.kth = plan, ci_z, kth
+        self.alpha = (1 - confidence) / 2
+        self.perm = np.argsort(-(np.abs(mu) if absolute else mu), kind="stable")   # column p: the p-th by estimate
+        self.mu_s, self.sig_s, self.df_s = mu[self.perm], sigma[self.perm], df[self.perm]
+        self.ref_pos = None if reference is None or k == 0 else int(np.flatnonzero(self.perm == reference)[0])
+        self.chunks = draw_chunks(draws, k, seed) if k else []
+        self.n_used = len(self.chunks)               # chunks counted (set from the plan after the pilot)
+        self.pilot_rows = min(draws, max(int(pilot_draws), 1), max(1, FALLBACK_CELLS // k)) if k else 0
+        self.top = np.zeros(k, np.int64)
+        self.best = np.zeros(k, np.int64)
+        self.beats = np.zeros(k, np.int64)
+        self.win = self.hist = None                  # placed from the pilot draws
+        self.lock = threading.Lock()
+        self.pending: list[np.ndarray] = []          # ranked chunks waiting to be counted
+        self.windows_ready = threading.Event()
+
+    # -- results -------------------------------------------------------------------------------
+
+    def _empty(self) -> dict:
+        k = self.k
+        out = {"rank_low": np.ones(k, np.int64), "rank_high": np.ones(k, np.int64), "p_top": np.zeros(k),
+               "p_best": np.zeros(k), "p_beats": np.full(k, np.nan), "draws": self.draws}
+        if self.ci_z is not None:
+            out["rank_low_ci"] = (np.ones(k, np.int64), np.ones(k, np.int64))
+            out["rank_high_ci"] = (np.ones(k, np.int64), np.ones(k, np.int64))
+        return out
+
+    def run(self) -> dict[str, np.ndarray]:
+        """Draw, rank and count; the result of :func:`rank_summary`."""
+        out = self._empty()
+        if self.k == 0:
+            return out
+        self._draw_and_count(out)
+        self.chunks = self.chunks[:self.n_used]
+        draws = int(sum(c[0] for c in self.chunks))
+        out["draws"] = draws
+        if self.pending:                             # the last, partial batch
+            self._count(self.pending)
+            self.pending.clear()
+        unresolved = self._read_bounds(out, draws)
+        if unresolved.any():
+            self._fallback(out, np.flatnonzero(unresolved), draws)
+        perm = self.perm
+        out["p_top"][perm] = self.top / draws
+        out["p_best"][perm] = self.best / draws
+        if self.ref_pos is not None:
+            out["p_beats"][perm] = self.beats / draws
+        return out
+
+    # -- drawing and ranking -------------------------------------------------------------------
+
+    def _drawn(self, d, ss) -> np.ndarray:
+        score = draw_matrix(self.mu_s, self.sig_s, self.df_s, d, np.random.default_rng(ss))
+        if self.absolute:
+            np.abs(score, out=score)
+        return score
+
+    def _ranked_chunk(self, chunk):
+        """A chunk drawn and ranked: its ranks, top-K / best / beats counts and K-th best scores."""
+        d, ss = chunk
+        k, top_k, ref_pos = self.k, self.top_k, self.ref_pos
+        score = self._drawn(d, ss)
+        beats_c = (np.count_nonzero(score > score[:, [ref_pos]], axis=0) if ref_pos is not None
+                   else np.zeros(k, np.int64))
+        order = order_desc(score, overwrite=not self.kth)  # equal scores: the earlier column first
+        kth_c = score[np.arange(d), order[:, min(top_k, k) - 1]] if self.kth else None
+        del score
+        top_c = np.bincount(order[:, :top_k].ravel(), minlength=k)
+        best_c = np.bincount(order[:, 0], minlength=k)
+        ranks = ranks_from_order(order, overwrite=True)
+        return ranks, top_c, best_c, beats_c, kth_c
+
+    def _task(self, chunk, pilot: bool, i: int):
+        """Draw, rank and count one chunk; a pilot chunk hands its ranks back for the windows, any
+        other waits until the windows are placed and folds its ranks into the histograms (when the
+        plan keeps it)."""
+        ranks, t_c, b_c, r_c, k_c = self._ranked_chunk(chunk)
+        if not pilot:
+            self.windows_ready.wait()
+            if self.win is not None and i < self.n_used:   # None: placing the windows failed (raised)
+                self._fold(ranks)
+            ranks = None
+        return ranks, t_c, b_c, r_c, k_c
+
+    def _draw_and_count(self, out: dict):
+        """Every chunk a task of the worker threads.
+
+        The first chunks (at least ``pilot_rows`` draws) place the rank windows. Every chunk is a
+        task of the worker threads (numpy's generators, sorts and ufuncs release the GIL), taken in
+        order, so the workers draw and rank the next chunks while this thread places the windows and
+        counts the pilot; each chunk has its own seed, so the result does not depend on the threads.
+        """
+        chunks = self.chunks
+        n_first = 0
+        while n_first < len(chunks) and sum(c[0] for c in chunks[:n_first]) < self.pilot_rows:
+            n_first += 1
+        with executor(len(chunks)) as pool:
+            futures = [pool.submit(self._task, c, i < n_first, i) for i, c in enumerate(chunks)]
+            try:
+                firsts = [f.result() for f in futures[:n_first]]
+                self._place_windows([f[0] for f in firsts])
+            finally:
+                self.windows_ready.set()             # never leave a worker waiting
+            for f in futures[self.n_used:]:          # beyond the plan: those not started are dropped
+                if hasattr(f, "cancel"):
+                    f.cancel()
+            self._count([f[0] for f in firsts])
+            kths = []
+            for f in firsts + [f.result() for f in futures[n_first:self.n_used]]:
+                self.top += f[1]
+                self.best += f[2]
+                self.beats += f[3]
+                kths.append(f[4])
+            if self.kth:
+                out["kth_score"] = np.concatenate(kths)
+            del firsts, futures
+
+    # -- the banded rank histogram -------------------------------------------------------------
+
+    def _plan_draws(self, by_col: np.ndarray, n_pilot: int):
+        """How many chunks to count in all, from the pilot's ranks (``plan``)."""
+        want = max(n_pilot, min(self.draws, int(self.plan(by_col, n_pilot))))
+        ends = np.cumsum([c[0] for c in self.chunks])
+        self.n_used = int(np.searchsorted(ends, want, side="left")) + 1
+
+    def _window_spans(self, by_col: np.ndarray, n_pilot: int):
+        """Per side (low, high quantile): each candidate's first window rank and window width."""
+        k, alpha = self.k, self.alpha
+        spread = 4 * np.sqrt(alpha * (1 - alpha) / n_pilot)
+        first, wid = {}, {}
+        for side, q in (("low", alpha), ("high", 1 - alpha)):
+            # np.quantile(ranks, q -/+ spread, axis=0, method="inverted_cdf"), read off the sorted ranks
+            lo_q = by_col[:, order_stat_index(n_pilot, max(0.0, q - spread))].astype(np.int64)
+            hi_q = by_col[:, order_stat_index(n_pilot, min(1.0, q + spread))].astype(np.int64)
+            margin = 8 + (hi_q - lo_q) // 4
+            first[side] = np.clip(lo_q - margin, 1, k)
+            wid[side] = np.minimum(hi_q + margin, k) - first[side] + 1
+        total = wid["low"].sum() + wid["high"].sum()
+        if total > WINDOW_CELLS:                      # keep the histogram bounded; misses go to the fallback
+            for side in wid:
+                wid[side] = np.maximum(1, (wid[side] * (WINDOW_CELLS / total)).astype(np.int64))
+        return first, wid
+
+    def _place_windows(self, pilot: list[np.ndarray]):
+        """One banded rank histogram per candidate holding both rank windows.
+
+        Each side (low, high quantile) gets a window of ranks [start, start + w) around the pilot's
+        quantile. A candidate's cells are [below window 1, window 1, between, window 2, above]; the
+        cell of a rank r is ``clip(r, lo1, hi1) + clip(r, lo2, hi2) + key0``, a sum of two clipped
+        ramps that is strictly increasing over those classes, so one bincount counts both sides.
+        When the two windows overlap they are merged into one (window 2 empty: lo2 = hi2), which
+        both sides then read.
+        """
+        k = self.k
+        n_pilot = sum(len(r) for r in pilot)
+        by_col = np.concatenate([r.T for r in pilot], axis=1)     # each candidate's pilot ranks
+        by_col.sort(axis=1)
+        if self.plan is not None:                     # how many draws in all, from the pilot
+            self._plan_draws(by_col, n_pilot)
+        first, wid = self._window_spans(by_col, n_pilot)
+        del by_col
+        s1, e1 = first["low"], first["low"] + wid["low"]
+        s2, e2 = first["high"], first["high"] + wid["high"]
+        apart = s2 >= e1                              # window 2 starts after window 1 ends
+        u0, u1 = np.where(apart, s1, np.minimum(s1, s2)), np.where(apart, e1, np.maximum(e1, e2))
+        w1 = u1 - u0
+        lo1, hi1 = u0 - 1, u1                         # clip(r, lo1, hi1) - lo1: 0 below, 1..w1, w1 + 1 above
+        lo2 = np.where(apart, s2 - 1, 0)
+        hi2 = np.where(apart, e2, 0)                  # merged: clip(r, 0, 0) = 0, no cells of its own
+        size = (w1 + 2) + (hi2 - lo2)
+        base = np.concatenate([[0], np.cumsum(size)[:-1]])
+        hist = np.zeros(int(size.sum()), np.int32)    # counts <= draws
+        ends = np.searchsorted(np.cumsum(size), np.arange(1, 1 + hist.size // BLOCK_CELLS) * BLOCK_CELLS)
+        cuts = np.unique(np.concatenate([[0], np.minimum(ends + 1, k), [k]]))
+        dt = pilot[0].dtype
+        self.hist = hist
+        self.win = {"base": base, "size": size, "blocks": list(zip(cuts[:-1].tolist(), cuts[1:].tolist())),
+                    "lo1": lo1.astype(dt), "hi1": hi1.astype(dt), "lo2": lo2.astype(dt), "hi2": hi2.astype(dt),
+                    "key0": (base - lo1 - lo2).astype(dt),
+                    # per side: first rank of its window, its width and its first cell in the segment
+                    "start": {"low": u0, "high": np.where(apart, s2, u0)},
+                    "wid": {"low": w1, "high": np.where(apart, e2 - s2, w1)},
+                    "off": {"low": np.ones(k, np.int64), "high": np.where(apart, w1 + 2, 1)},
+                    "flush": -(-hist.size // k)}    # draws per count: at least the histogram's cells
+
+    def _count(self, batch: list[np.ndarray]):
+        """Fold ranked chunks into the shared histogram, one block of columns at a time (the
+        bincounts run unlocked; candidate c's cells are hist[base[c]:base[c] + size[c]], so a block
+        of columns has its own slice and the bincount temporary stays a block's size)."""
+        win = self.win
+        base, size = win["base"], win["size"]
+        for c0, c1 in win["blocks"]:
+            h0, h1 = int(base[c0]), int(base[c1 - 1] + size[c1 - 1])
+            cols = batch[0][:, c0:c1] if len(batch) == 1 else np.concatenate([r[:, c0:c1] for r in batch])
+            key = np.clip(cols, win["lo1"][c0:c1], win["hi1"][c0:c1])
+            key += np.clip(cols, win["lo2"][c0:c1], win["hi2"][c0:c1])
+            key += win["key0"][c0:c1] - h0
+            add = np.bincount(key.ravel(), minlength=h1 - h0)
+            with self.lock:
+                self.hist[h0:h1] += add
+
+    def _fold(self, ranks: np.ndarray):
+        """Queue a ranked chunk; count the queue once it holds at least ``win["flush"]`` draws.
+
+        Adding a bincount into the histogram touches every cell of it, so the draws are counted in
+        batches at least as large as the histogram: that work then grows with the draws x
+        candidates, not with the chunks x histogram (which grows as candidates^3)."""
+        with self.lock:
+            self.pending.append(ranks)
+            if sum(len(r) for r in self.pending) < self.win["flush"]:
+                return
+            batch = self.pending[:]
+            self.pending.clear()
+        self._count(batch)
+
+    # -- read-out ------------------------------------------------------------------------------
+
+    def _levels(self, draws: int):
+        """Per side: its quantile level, the order statistic of the rank bound and (with ``ci_z``)
+        those of its distribution-free confidence interval."""
+        alpha = self.alpha
+        levels = {"low": alpha, "high": 1 - alpha}
+        need = {"low": order_stat_index(draws, alpha) + 1, "high": order_stat_index(draws, 1 - alpha) + 1}
+        extra = {}
+        if self.ci_z is not None:                    # order statistics of the quantiles' confidence intervals
+            for side, q in levels.items():
+                h = self.ci_z * np.sqrt(q * (1 - q) / draws)
+                extra[side] = [order_stat_index(draws, float(np.clip(q - h, 0, 1))) + 1,
+                               order_stat_index(draws, float(np.clip(q + h, 0, 1))) + 1]
+        return levels, need, extra
+
+    def _read(self, cs, before, side: str, count: int) -> tuple[np.ndarray, np.ndarray]:
+        """The rank at order statistic ``count`` from the window of ``side``, and whether it lies there.
+
+        Within a candidate's segment the cumulative counts rise, so the window ranks still below the
+        order statistic are a prefix of the window, found by one binary search in the cumulative
+        counts ``cs`` of the whole histogram (``before``: draws counted in all earlier segments)."""
+        win = self.win
+        first_cell = win["base"] + win["off"][side]
+        w = win["wid"][side]
+        below = cs[first_cell - 1] - before          # draws ranked before the window
+        reach = np.searchsorted(cs, before + count, side="left")   # first cell reaching the count
+        short = np.clip(reach - first_cell, 0, w)    # window ranks still below the order statistic
+        ok = (below < count) & (short < w)
+        return np.where(ok, win["start"][side] + short, 0), ok
+
+    def _read_bounds(self, out: dict, draws: int) -> np.ndarray:
+        """Rank bounds (and their CIs) into ``out``; True where a candidate's quantile missed its window."""
+        k, perm, hist = self.k, self.perm, self.hist
+        _, need, extra = self._levels(draws)
+        unresolved = np.zeros(k, bool)
+        # all cells hold k x draws counts in all; int32 when that fits (add.accumulate: np.cumsum with
+        # a dtype takes a far slower path)
+        cs = np.add.accumulate(hist, dtype=np.int32) if k * draws < 2 ** 31 else np.cumsum(hist.astype(np.int64))
+        seg0 = self.win["base"]
+        before = cs[seg0] - hist[seg0]               # draws counted in all earlier segments
+        for side in ("low", "high"):
+            value, ok = self._read(cs, before, side, need[side])
+            out[f"rank_{side}"][perm] = value
+            unresolved |= ~ok
+            if side in extra:
+                pair = []
+                for count in extra[side]:
+                    v, ok_e = self._read(cs, before, side, count)
+                    unresolved |= ~ok_e
+                    arr_e = np.empty(k, np.int64)
+                    arr_e[perm] = v
+                    pair.append(arr_e)
+                out[f"rank_{side}_ci"] = tuple(pair)
+        return unresolved
+
+    def _fallback(self, out: dict, todo: np.ndarray, draws: int):
+        """Exact rank bounds of the columns ``todo``: the chunks drawn again, only their ranks kept."""
+        perm = self.perm
+        levels, _, extra = self._levels(draws)
+        group = max(1, FALLBACK_CELLS // max(1, draws))
+        for g0 in range(0, todo.size, group):
+            sel = todo[g0:g0 + group]
+            kept = np.empty((draws, sel.size), dtype=np.int32)
+            row = 0
+            for d, ss in self.chunks:
+                score = self._drawn(d, ss)
+                kept[row:row + d] = ranks_from_order(order_desc(score))[:, sel]
+                row += d
+            srt = np.sort(kept, axis=0) if extra else None
+            for side, q in levels.items():
+                out[f"rank_{side}"][perm[sel]] = np.quantile(kept, q, axis=0, method="inverted_cdf")
+                for j, count in enumerate(extra.get(side, [])):
+                    out[f"rank_{side}_ci"][j][perm[sel]] = srt[count - 1]
+
+
+def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidence: float = 0.95,
+                 reference: int | None = None, absolute: bool = False, plan=None,
+                 ci_z: float | None = None, pilot_draws: int = PILOT_DRAWS,
+                 kth: bool = False) -> dict[str, np.ndarray]:
+    """Monte Carlo rank statistics of candidates with ``mu + sigma * T_df`` scores (higher is better).
+
+    The draws are made in chunks of at most :data:`CHUNK_CELLS` numbers; each chunk is ranked
+    (one integer-key sort per draw, :func:`~screenlab.stats.sampling.order_desc`) and folded into running counts, so memory
+    does not grow with ``draws``:
+
+    * ``p_top`` = P(rank <= top_k), ``p_best`` = P(rank 1), ``p_beats`` = P(score > the score of
+      column ``reference``) (NaN without a reference);
+    * ``rank_low`` / ``rank_high``: the ``(1 -/+ confidence) / 2`` quantiles of each candidate's rank
+      over the draws, the same order statistics as ``np.quantile(ranks, q, axis=0,
+      method="inverted_cdf")`` on the full draws x k rank matrix. They come from a banded rank
+      histogram per candidate (a window of ranks per side placed around the quantile seen in the first
+      :data:`PILOT_DRAWS` draws); a candidate whose quantile falls outside its window is resolved
+      exactly by drawing the chunks again (each chunk has its own seed) and keeping only that
+      candidate's ranks.
+
+    Columns are handled in point-estimate order (best first). Same ``seed`` -> same output.
+
+    ``absolute``: the scores are ``|mu + sigma * T_df|`` (ee by magnitude; point-estimate order by
+    ``|mu|``). ``plan``: called once with the pilot's ranks (a k x n_pilot array, each row sorted)
+    and n_pilot, returns how many draws to make in all (at most ``draws``; whole chunks, so the
+    number made, ``out["draws"]``, can be a little more than asked). ``ci_z``: also read each rank
+    quantile's distribution-free confidence interval, the ranks at the order statistics
+    ``n q -/+ ci_z sqrt(n q (1 - q))`` (``out["rank_low_ci"]``, ``out["rank_high_ci"]``: pairs of
+    arrays). ``pilot_draws``: draws that place the windows (and feed the plan). ``kth``: also
+    return the top_k-th best score of every draw (``out["kth_score"]``, float32).
+    """
+    return RankDraws(mu, sigma, df, draws, seed, top_k=top_k, confidence=confidence, reference=reference,
+                     absolute=absolute, plan=plan, ci_z=ci_z, pilot_draws=pilot_draws, kth=kth).run()
 
 
 def rank_tolerance(rank_low, rank_high) -> np.ndarray:
@@ -91,10 +456,10 @@ def _std_sf(z: np.ndarray, df: np.ndarray) -> np.ndarray:
 
 
 def _std_ppf(p: np.ndarray, df: np.ndarray) -> np.ndarray:
-    """The p quantile of Student t(df) (normal where draw_matrix draws normal)."""
-    norm = _normal_cols(df)
+    """The p quantile of Student t(df) (normal where draw_matrix draws normal:
+    :func:`screenlab.uncertainty.t_ppf` with those columns' df infinite)."""
     with np.errstate(over="ignore", invalid="ignore"):
-        return np.where(norm, _sp.ndtri(p), _sp.stdtrit(np.where(norm, 1.0, df), p))
+        return t_ppf(p, np.where(_normal_cols(df), np.inf, df))
 
 
 def tail_probability(mu, sigma, df, x, absolute: bool = False) -> np.ndarray:
@@ -168,7 +533,7 @@ def _phase_b(mu, sigma, df, absolute, pos, D, R, p_R, thr, draws, seq, top_k):
 
     def tally(top, best, scores, ids):
         """Top K and best of each row of ``scores`` (candidate ``ids`` per cell, columns in tie order)."""
-        o = _order_desc(scores, overwrite=True)
+        o = order_desc(scores, overwrite=True)
         first = np.take_along_axis(ids, o[:, :top_k], axis=1) if ids.ndim == 2 else ids[o[:, :top_k]]
         top += np.bincount(first.ravel(), minlength=k)
         best += np.bincount(first[:, 0], minlength=k)
@@ -225,7 +590,7 @@ def _phase_b(mu, sigma, df, absolute, pos, D, R, p_R, thr, draws, seq, top_k):
 
     top = np.zeros(k, np.int64)
     best = np.zeros(k, np.int64)
-    with _executor(len(sizes)) as pool:
+    with executor(len(sizes)) as pool:
         for f in [pool.submit(one, d, ss) for d, ss in zip(sizes, seeds)]:
             t_c, b_c = f.result()
             top += t_c
@@ -251,19 +616,41 @@ def _plan(confidence: float):
     alpha = (1 - confidence) / 2
 
     def plan(by_col: np.ndarray, n: int) -> int:
-        r_lo = by_col[:, _order_stat_index(n, alpha)].astype(float)
-        r_hi = by_col[:, _order_stat_index(n, 1 - alpha)].astype(float)
+        r_lo = by_col[:, order_stat_index(n, alpha)].astype(float)
+        r_hi = by_col[:, order_stat_index(n, 1 - alpha)].astype(float)
         tol = rank_tolerance(r_lo, r_hi)
         need = np.zeros(by_col.shape[0])
         for q, r in ((alpha, r_lo), (1 - alpha, r_hi)):
             h = CI_Z * np.sqrt(q * (1 - q) / n)
-            a = by_col[:, _order_stat_index(n, max(0.0, q - h))].astype(float)
-            b = by_col[:, _order_stat_index(n, min(1.0, q + h))].astype(float)
+            a = by_col[:, order_stat_index(n, max(0.0, q - h))].astype(float)
+            b = by_col[:, order_stat_index(n, min(1.0, q + h))].astype(float)
             need = np.maximum(need, n * (np.maximum(r - a, b - r) / tol) ** 2)
         want = float(np.quantile(need, RANK_STABLE_SHARE)) if need.size else 0.0
         return int(np.clip(want, MIN_RANK_DRAWS, MAX_RANK_DRAWS))
 
     return plan
+
+
+def _bound_stability(a: dict, k: int) -> dict:
+    """The rank bounds' largest CI half-width (ranks), the share of candidates whose bounds are
+    within :func:`rank_tolerance`, and whether that share reaches :data:`RANK_STABLE_SHARE`."""
+    half = np.zeros(k)
+    for side in ("low", "high"):
+        lo_ci, hi_ci = a[f"rank_{side}_ci"]
+        half = np.maximum(half, np.maximum(a[f"rank_{side}"] - lo_ci, hi_ci - a[f"rank_{side}"]))
+    share = float(np.mean(half <= rank_tolerance(a["rank_low"], a["rank_high"])))
+    return {"rank_bound_halfwidth": float(half.max()), "rank_bound_stable_share": share,
+            "rank_bound_stable": share >= RANK_STABLE_SHARE}
+
+
+def _kth_threshold(a: dict, mu, sigma, df, kk: int, absolute: bool) -> float:
+    """The threshold: a low quantile of the K-th best score over the draws made (a fixed number for
+    the draws that follow, which stay exact whatever it is; it only decides how much work they are),
+    else :func:`_threshold` from the candidates' quantiles."""
+    kth = a.get("kth_score")
+    if kth is not None and kth.size:
+        return float(np.quantile(kth, KTH_QUANTILE))
+    return _threshold(mu, sigma, df, kk, absolute)
 
 
 def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: float = 0.95,
@@ -283,14 +670,7 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
         out.update(draws=0, mc_se=0.0, rank_bound_halfwidth=0.0, rank_bound_stable=True, rank_bound_stable_share=1.0,
                    n_contenders=0, threshold=np.nan)
         return out
-    half = np.zeros(k)
-    for side in ("low", "high"):
-        lo_ci, hi_ci = a[f"rank_{side}_ci"]
-        half = np.maximum(half, np.maximum(a[f"rank_{side}"] - lo_ci, hi_ci - a[f"rank_{side}"]))
-    share = float(np.mean(half <= rank_tolerance(a["rank_low"], a["rank_high"])))
-    out["rank_bound_halfwidth"] = float(half.max())
-    out["rank_bound_stable_share"] = share
-    out["rank_bound_stable"] = share >= RANK_STABLE_SHARE
+    out.update(_bound_stability(a, k))
 
     top = np.rint(a["p_top"] * n_a).astype(np.int64)
     best = np.rint(a["p_best"] * n_a).astype(np.int64)
@@ -299,11 +679,7 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
     n_beats = np.full(k, n_a, np.int64)
     n = n_a
     kk = min(top_k, k)
-    # the threshold: a low quantile of the K-th best score over the draws made (a fixed number for
-    # the draws that follow, which stay exact whatever it is; it only decides how much work they are)
-    kth = a.get("kth_score")
-    thr = float(np.quantile(kth, KTH_QUANTILE)) if kth is not None and kth.size else \
-        _threshold(mu, sigma, df, kk, absolute)
+    thr = _kth_threshold(a, mu, sigma, df, kk, absolute)
     p_exc = tail_probability(mu, sigma, df, thr, absolute)
     # resolved: those that rarely exceed the threshold (their few draws above it are drawn alone)
     resolved = p_exc <= TAIL_EACH
@@ -371,10 +747,11 @@ def _beats_counts(mu, sigma, df, absolute, U, reference, draws, seq) -> np.ndarr
             np.abs(sc, out=sc)
         return np.count_nonzero(sc[:, :-1] > sc[:, -1:], axis=0)
 
-    with _executor(len(sizes)) as pool:
+    with executor(len(sizes)) as pool:
         for f in [pool.submit(one, d, ss) for d, ss in zip(sizes, seq.spawn(len(sizes)))]:
             out += f.result()
     return out
 
 
-__all__ = ["MC_SE", "adaptive_rank_summary", "rank_tolerance", "share_se", "tail_probability"]
+__all__ = ["MC_SE", "PILOT_DRAWS", "RankDraws", "adaptive_rank_summary", "rank_summary", "rank_tolerance", "share_se",
+           "tail_probability"]

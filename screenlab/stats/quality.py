@@ -522,7 +522,7 @@ def control_chart(kin, data=None) -> pd.DataFrame:
         with np.errstate(invalid="ignore", divide="ignore"):
             loo_var = (s2 - x * x - m * loo_mean ** 2) / loo_dof if loo_dof >= 2 else np.full_like(x, np.nan)
             g["loo_t"] = (x - loo_mean) / np.sqrt(np.where(loo_var > 0, loo_var, np.nan) * (1 + 1 / max(m, 1)))
-        g["loo_limit"] = t_ppf(1 - SHEWHART_TAIL / 2, loo_dof) if loo_dof >= 2 else np.nan
+        g["loo_limit"] = float(t_ppf(1 - SHEWHART_TAIL / 2, loo_dof)) if loo_dof >= 2 else np.nan
         g["expected"] = np.exp(g["_lnexp"])
         g["lower_tof_per_h"] = g["expected"] * np.exp(g["lower"])
         g["upper_tof_per_h"] = g["expected"] * np.exp(g["upper"])

@@ -34,7 +34,7 @@ def unit_text(unit: str) -> str:
 
 def metric_choices() -> dict[str, dict]:
     """The ranking metrics of the core with display labels (axis titles carry the unit)."""
-    from screenlab.stats.ranking import METRICS
+    from screenlab.stats.candidates import METRICS
 
     out = {}
     for key, m in METRICS.items():

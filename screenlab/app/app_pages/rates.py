@@ -59,7 +59,7 @@ st.caption(f"{len(view)} of {len(rates)} catalyst x temperature x condition rows
            f"(initial TOF from blank-corrected initial rates); intervals at {ctx.settings.confidence * 100:g} %.")
 # a rate the readings cannot resolve is a bound: '>= x' (finished before the first reading) or
 # '<= x' (not above the blank), its interval left empty
-from screenlab.stats.ranking import NOT_SHOWN_ACTIVE, TOO_FAST  # noqa: E402
+from screenlab.stats.candidates import NOT_SHOWN_ACTIVE, TOO_FAST  # noqa: E402
 
 cens = censored_values(view)
 shown_view = show_bounds(view, "tof_per_h", "tof_ci_low", "tof_ci_high", unit="h⁻¹", text="TOF")
