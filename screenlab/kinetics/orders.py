@@ -24,7 +24,8 @@ import pandas as pd
 
 from screenlab import _groups as grp
 from screenlab.kinetics.sites import join_flags
-from screenlab.kinetics.turnover import _infer_factors, _role, _tkey, t_quantile
+from screenlab.kinetics.turnover import _infer_factors, _role, _tkey
+from screenlab.uncertainty import t_quantile
 from screenlab.settings import AnalysisSettings
 
 FLAGS: dict[str, str] = {

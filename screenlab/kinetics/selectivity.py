@@ -113,10 +113,6 @@ GROUP_COLUMNS = ("selectivity_pct", "selectivity_se", "selectivity_df", "selecti
                  "ee_pct", "ee_se", "ee_df", "ee_ci_low", "ee_ci_high")
 
 
-def _t_quantile(confidence: float, df) -> np.ndarray:
-    return t_quantile(confidence, df)
-
-
 def origin_fit(code: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int) -> dict[str, np.ndarray]:
     """Per group (integer ``code`` 0..n_groups-1): straight line and quadratic through the origin.
 
@@ -387,15 +383,11 @@ def _blank_variance(w, x, y, E, b, G, terms, has_bg, var_kb_w, df_kb_w):
     return var, df
 
 
-def _welch(v1, d1, v2, d2):
-    return welch_df(v1, d1, v2, d2)
-
-
 def _combine(se_fit, df_fit, var_blank, df_blank):
     """SE including the background term; Welch-Satterthwaite df."""
     v1 = se_fit ** 2
     se = np.sqrt(v1 + var_blank)
-    df = np.where(np.isfinite(se_fit), _welch(v1, df_fit, var_blank, df_blank), np.nan)
+    df = np.where(np.isfinite(se_fit), welch_df(v1, df_fit, var_blank, df_blank), np.nan)
     df = np.where(np.isfinite(df_fit) & (var_blank == 0), df_fit, df)
     return se, df
 
@@ -487,10 +479,10 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
             # df: Welch-Satterthwaite weighted by the variance the wells' own fits lead one to expect
             # (not by the sample SD itself, whose chance lows would inflate the df)
             v_exp = np.maximum(fit2m, 0.0) / n
-            df = np.where(n >= 2, np.minimum(_welch(v_exp, n - 1.0, v_bl, np.inf), dfsum),
+            df = np.where(n >= 2, np.minimum(welch_df(v_exp, n - 1.0, v_bl, np.inf), dfsum),
                           np.where(n == 1, df_first, np.nan))
             df = np.where((n >= 2) & ~np.isfinite(df), n - 1.0, np.maximum(df, n - 1.0))
-            q = _t_quantile(confidence, df)
+            q = t_quantile(confidence, df)
         out[f"{key}_pct"] = mean
         out[f"{key}_se"] = se
         out[f"{key}_df"] = df
