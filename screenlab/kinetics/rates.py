@@ -482,14 +482,17 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     # ... or a first-order course with an activating catalyst fits clearly better (AICc lower by
     # more than INDUCTION_AICC) than every integrated law (tried where the steepest part of the
     # course is not its start: a course that slows from t = 0 has no lag to find)
+    # The induction course is fitted only where its answer can change the flag: a well that could
+    # be flagged at all (signal well above noise) and that the cheaper tests have not flagged.
+    can_flag = fittable & signal & (np.nan_to_num(y_top) > 10.0 * noise)
+    shape_hit = _induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast
     with np.errstate(invalid="ignore"):
-        lag_rows = np.flatnonzero(fittable & (max_at >= 1) & ~(poly.r0 >= 0.75 * max_slope))
+        lag_rows = np.flatnonzero(fittable & (max_at >= 1) & ~(poly.r0 >= 0.75 * max_slope) & can_flag & ~shape_hit)
     lagged = np.zeros(G, dtype=bool)
     if lag_rows.size:
         ind = ratelaws.fit_first_order_induction(c.subset(lag_rows), max_slope[lag_rows])
         lagged[lag_rows] = ind.aicc(rss_floor[lag_rows]) < aicc[lag_rows].min(axis=1) - INDUCTION_AICC
-    induction = fittable & signal & (np.nan_to_num(y_top) > 10.0 * noise) & (
-        _induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast | lagged)
+    induction = can_flag & (shape_hit | lagged)
 
     def majority(mask):
         hits = np.bincount(group[eligible & mask], minlength=n_groups)
@@ -554,7 +557,8 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     method_words = np.array(all_laws + ["end_point", "first_reading", "no_data"], dtype=object)
     m_code = np.where(law_i >= 0, law_i, len(all_laws) + 2)
     m_code = np.where(end_point, len(all_laws), np.where(done, len(all_laws) + 1, m_code))
-    q = t_quantile(settings.confidence, df)
+    df_levels, df_at = np.unique(df, return_inverse=True)           # a few distinct df: one quantile each
+    q = t_quantile(settings.confidence, df_levels)[df_at.ravel()]
     with np.errstate(invalid="ignore"):
         half = np.where((df > 0) & np.isfinite(rate_se), q * rate_se, np.nan)
         ci_low = np.where(done, rate, rate - half)
