@@ -250,22 +250,28 @@ def _local_max_slope(c: ratelaws.Courses) -> tuple[np.ndarray, np.ndarray, np.nd
     per h), the sum of squared time deviations of that triple (for its SE) and the slot where it
     starts; NaN / -1 for fewer than three readings."""
     G, m = c.shape
-    best = np.full(G, -np.inf)
-    best_sxx = np.full(G, np.nan)
-    at = np.full(G, -1, dtype=np.int64)
-    T, Y, W = c.t, c.y, c.w
-    for i in range(max(m - 2, 0)):          # a loop over reading slots, vectorised over wells
-        tt, yy, ww = T[:, i:i + 3], Y[:, i:i + 3], W[:, i:i + 3]
-        full = ww.sum(axis=1) == 3
-        tm = tt.mean(axis=1, keepdims=True)
-        ym = yy.mean(axis=1, keepdims=True)
-        sxx = ((tt - tm) ** 2).sum(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            slope = ((tt - tm) * (yy - ym)).sum(axis=1) / sxx
-        take = full & (sxx > 0) & (slope > best)
-        best = np.where(take, slope, best)
-        best_sxx = np.where(take, sxx, best_sxx)
-        at = np.where(take, i, at)
+    if m < 3:
+        return np.full(G, np.nan), np.full(G, np.nan), np.full(G, -1, dtype=np.int64)
+    # every triple of consecutive slots at once, as (G, m - 2) arrays of its first, second and
+    # third reading (sums taken left to right, as a three-term mean or sum is); the steepest triple
+    # per well, the first of equal ones
+    n3 = m - 2
+    tt = [c.t[:, i:i + n3] for i in range(3)]
+    yy = [c.y[:, i:i + n3] for i in range(3)]
+    full = ((c.w[:, 0:n3] + c.w[:, 1:1 + n3]) + c.w[:, 2:2 + n3]) == 3
+    tm = ((tt[0] + tt[1]) + tt[2]) / 3.0
+    ym = ((yy[0] + yy[1]) + yy[2]) / 3.0
+    dt = [v - tm for v in tt]
+    dy = [v - ym for v in yy]
+    sxx = (dt[0] ** 2 + dt[1] ** 2) + dt[2] ** 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = ((dt[0] * dy[0] + dt[1] * dy[1]) + dt[2] * dy[2]) / sxx
+        cand = np.where(full & (sxx > 0) & (slope > -np.inf), slope, -np.inf)
+    at = np.argmax(cand, axis=1)
+    best = cand[np.arange(G), at]
+    found = best > -np.inf
+    best_sxx = np.where(found, sxx[np.arange(G), at], np.nan)
+    at = np.where(found, at, -1).astype(np.int64)
     return np.where(np.isfinite(best), best, np.nan), best_sxx, at
 
 
