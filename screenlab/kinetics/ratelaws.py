@@ -294,24 +294,60 @@ def fit_first_order(c: Courses, n_iter: int = 30) -> LawFit:
         r = rss_of(cand)
         take = r < best
         u, best = np.where(take, cand, u), np.where(take, r, best)
+    # A well none of whose (halved) steps lowers its RSS keeps its ln k, so every later iteration
+    # would compute the same step for it and keep nothing again: it is settled, and the element-wise
+    # work of later iterations is done on the wells still moving only (``act``). The sums over
+    # readings stay one matrix-vector product over all wells (rows of settled wells zero), so each
+    # well's sum is the same product as when every well took part.
+    G, m = c.shape
+    ones = np.ones(m)
+    buf = np.zeros((G, m))
+    filled = np.zeros(0, dtype=np.int64)
+
+    def rowsum_of(rows, v):
+        nonlocal filled
+        if len(rows) == G:                                   # every well, in order
+            return v @ ones if m else np.zeros(G)
+        buf[filled] = 0.0
+        buf[rows] = v
+        filled = rows
+        return (buf @ ones)[rows] if m else np.zeros(len(rows))
+
+    act = np.arange(G)
+    Ta, Ya, Wa = T, Y, W
     for _ in range(n_iter):
-        k = np.exp(u)[:, None]
-        e = np.exp(-k * T)
-        res = Y - (1.0 - e)
-        J = T * e * k                                        # d X / d ln k
-        a = c.rowsum(W * J * J)
-        g = c.rowsum(W * J * res)
+        k = np.exp(u[act])[:, None]
+        e = np.exp(-k * Ta)
+        res = Ya - (1.0 - e)
+        J = Ta * e * k                                       # d X / d ln k
+        WJ = Wa * J                                          # W * J * J and W * J * res, in order
+        a = rowsum_of(act, WJ * J)
+        g = rowsum_of(act, WJ * res)
         with np.errstate(divide="ignore", invalid="ignore"):
             step = np.clip(np.nan_to_num(g / a), -2.0, 2.0)
-        moved = np.zeros(G, dtype=bool)
+        moved = np.zeros(len(act), dtype=bool)
+        todo = np.arange(len(act))                           # local rows not yet moved
         for frac in (1.0, 0.5, 0.25):                        # step halving, vectorised
-            cand = np.clip(u + frac * step, lo, hi)
-            r = rss_of(cand)
-            take = ~moved & (r < best)
-            u, best = np.where(take, cand, u), np.where(take, r, best)
-            moved |= take
+            if todo.size == len(act):                        # (no copies while every well takes part)
+                rows, st, Ts, Ys, Ws = act, step, Ta, Ya, Wa
+            else:
+                rows, st, Ts, Ys, Ws = act[todo], step[todo], Ta[todo], Ya[todo], Wa[todo]
+            cand = np.clip(u[rows] + frac * st, lo[rows], hi[rows])
+            rr = Ys + np.expm1(-np.exp(cand)[:, None] * Ts)  # y - (1 - e^-kt)
+            v = rowsum_of(rows, Ws * rr * rr)
+            r = np.where(np.isfinite(v), v, np.inf)
+            take = r < best[rows]
+            u[rows[take]], best[rows[take]] = cand[take], r[take]
+            moved[todo[take]] = True
+            todo = todo[~take]
+            if not todo.size:
+                break
         if not np.any(moved & (np.abs(step) > 1e-10)):
             break
+        if not moved.all():
+            keep = np.flatnonzero(moved)
+            act = act[keep]
+            Ta, Ya, Wa = T[act], Y[act], W[act]
     k = np.exp(u)
     e = np.exp(-k[:, None] * T)
     J = T * e
