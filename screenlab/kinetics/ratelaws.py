@@ -400,45 +400,68 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
 
     rss = rss_of(Y, W, pred)
     lam = np.full(G, 1e-3)
-    active = np.isfinite(rss)
+    # The wells not yet settled (rows ``a`` of the grid) are worked on in compact copies, in the
+    # order of ``a``, and written back as they settle; so every sum is formed on the same rows in
+    # the same order as when they were taken from the full grid at each iteration.
+    a = np.flatnonzero(np.isfinite(rss))
+    ya, wa, pa, j1a, j2a = Y[a], W[a], pred[a], j1[a], j2[a]
+    t1, t2, la, ra = th1[a], th2[a], lam[a], rss[a]
+    l1, h1, l2, h2 = lo1[a], hi1[a], lo2[a], hi2[a]
+    sa = None if state is None else state[a]
+
+    def write_back(rows, loc):
+        pred[rows], j1[rows], j2[rows] = pa[loc], j1a[loc], j2a[loc]
+        th1[rows], th2[rows], rss[rows], lam[rows] = t1[loc], t2[loc], ra[loc], la[loc]
+        if state is not None:
+            state[rows] = sa[loc]
+
     for _ in range(n_iter):
-        a = np.flatnonzero(active)
         if not a.size:
             break
-        ya, wa, pa, j1a, j2a = Y[a], W[a], pred[a], j1[a], j2[a]
-        t1, t2, la = th1[a], th2[a], lam[a]
         res = ya - pa
-        a11 = c.rowsum(wa * j1a * j1a)
-        a12 = c.rowsum(wa * j1a * j2a)
-        a22 = c.rowsum(wa * j2a * j2a)
-        g1 = c.rowsum(wa * j1a * res)
-        g2 = c.rowsum(wa * j2a * res)
+        wj1 = wa * j1a                            # W * J1 * J1 = (W * J1) * J1, etc.: the same products
+        wj2 = wa * j2a
+        a11 = c.rowsum(wj1 * j1a)
+        a12 = c.rowsum(wj1 * j2a)
+        a22 = c.rowsum(wj2 * j2a)
+        g1 = c.rowsum(wj1 * res)
+        g2 = c.rowsum(wj2 * res)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             d1 = a11 * (1.0 + la) + 1e-300
             d2 = a22 * (1.0 + la) + 1e-300
             det = d1 * d2 - a12 * a12
             s1 = np.nan_to_num((d2 * g1 - a12 * g2) / det)
             s2 = np.nan_to_num((d1 * g2 - a12 * g1) / det)
-            out2 = ((t2 <= lo2[a]) & (s2 < 0)) | ((t2 >= hi2[a]) & (s2 > 0))
-            out1 = ((t1 <= lo1[a]) & (s1 < 0)) | ((t1 >= hi1[a]) & (s1 > 0))
+            out2 = ((t2 <= l2) & (s2 < 0)) | ((t2 >= h2) & (s2 > 0))
+            out1 = ((t1 <= l1) & (s1 < 0)) | ((t1 >= h1) & (s1 > 0))
             s1 = np.where(out2 & ~out1, np.nan_to_num(g1 / d1), np.where(out1, 0.0, s1))
             s2 = np.where(out1 & ~out2, np.nan_to_num(g2 / d2), np.where(out2, 0.0, s2))
         s1 = np.clip(s1, -3.0, 3.0)               # at most a factor e^3 per step on log parameters
         s2 = np.clip(s2, -3.0, 3.0)
-        n1 = np.clip(t1 + s1, lo1[a], hi1[a])
-        n2 = np.clip(t2 + s2, lo2[a], hi2[a])
-        pn, j1n, j2n, st_n = model(n1, n2, None if state is None else state[a], a)
+        n1 = np.clip(t1 + s1, l1, h1)
+        n2 = np.clip(t2 + s2, l2, h2)
+        pn, j1n, j2n, st_n = model(n1, n2, sa, a)
         rn = rss_of(ya, wa, pn)
-        better = rn < rss[a]
-        b = a[better]
-        pred[b], j1[b], j2[b] = pn[better], j1n[better], j2n[better]
+        better = rn < ra
+        b = np.flatnonzero(better)
+        pa[b], j1a[b], j2a[b] = pn[b], j1n[b], j2n[b]
         if state is not None:
-            state[b] = st_n[better]
-        gain = np.where(better, (rss[a] - rn) / np.maximum(rss[a], 1e-300), 0.0)
-        th1[b], th2[b], rss[b] = n1[better], n2[better], rn[better]
-        lam[a] = np.where(better, np.maximum(la / 3.0, 1e-9), np.minimum(la * 8.0, 1e9))
-        settled = (better & (gain < 1e-11) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (lam[a] >= 1e9)
-        active[a[settled]] = False
+            sa[b] = st_n[b]
+        gain = np.where(better, (ra - rn) / np.maximum(ra, 1e-300), 0.0)
+        t1[b], t2[b], ra[b] = n1[b], n2[b], rn[b]
+        la = np.where(better, np.maximum(la / 3.0, 1e-9), np.minimum(la * 8.0, 1e9))
+        settled = (better & (gain < 1e-11) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (la >= 1e9)
+        if settled.any():
+            done = np.flatnonzero(settled)
+            write_back(a[done], done)
+            keep = np.flatnonzero(~settled)
+            a = a[keep]
+            ya, wa, pa, j1a, j2a = ya[keep], wa[keep], pa[keep], j1a[keep], j2a[keep]
+            t1, t2, la, ra = t1[keep], t2[keep], la[keep], ra[keep]
+            l1, h1, l2, h2 = l1[keep], h1[keep], l2[keep], h2[keep]
+            if state is not None:
+                sa = sa[keep]
+    write_back(a, np.arange(a.size))
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         a11 = c.rowsum(W * j1 * j1)
         a12 = c.rowsum(W * j1 * j2)
