@@ -190,17 +190,22 @@ def _equals(values: pd.Series, word: str) -> np.ndarray:
     return (values.astype("string") == word).fillna(False).to_numpy(dtype=bool)
 
 
-def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, temperature: bool = True) -> np.ndarray:
+def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, temperature: bool = True,
+                 cache: dict | None = None) -> np.ndarray:
     """Replicate group of each kept well: catalyst x role x temperature x condition (the keys of the
     rates table; without the temperature when ``temperature`` is False), numbered 0.. in order of
-    first appearance."""
+    first appearance. ``cache``: a dict kept between calls on the same wells, so each key column is
+    factorised once."""
     from screenlab.kinetics.turnover import _codes, _key_codes, _tkey
 
     keys = ["catalyst", "role", *(["temperature_c"] if temperature else []), "loading", "loading_unit",
             "substrate_conc_mM", *[f for f in factor_names if f in wells.columns]]
-    cols = [_codes(_tkey(pd.to_numeric(wells[k], errors="coerce").to_numpy(dtype=float))) if k == "temperature_c"
-            else _codes(wells[k]) for k in keys]
-    return _key_codes(cols, rows)
+    cache = {} if cache is None else cache
+    for k in keys:
+        if k not in cache:
+            cache[k] = (_codes(_tkey(pd.to_numeric(wells[k], errors="coerce").to_numpy(dtype=float)))
+                        if k == "temperature_c" else _codes(wells[k]))
+    return _key_codes([cache[k] for k in keys], rows)
 
 
 def _noise_level(fits: dict, c: ratelaws.Courses, rss_floor: np.ndarray) -> np.ndarray:
@@ -397,7 +402,8 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     # grows with conversion): the two-parameter iterative laws are fitted first to the three wells
     # of each catalyst x condition with the largest product, and to the others only where their
     # catalyst's choice falls on them.
-    law_group = _group_codes(wells, rows, factors, temperature=False)
+    key_cache: dict = {}
+    law_group = _group_codes(wells, rows, factors, temperature=False, cache=key_cache)
     n_law_groups = int(law_group.max()) + 1 if G else 0
     can_fit = (n_pos >= 1) & (n_fit >= 3)
     order = np.lexsort((-np.nan_to_num(y_top, nan=-np.inf), ~can_fit, law_group))
@@ -422,7 +428,7 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     fittable = ~done & (n_pos >= 1) & (n_fit >= 3)
 
     # --- one law per catalyst x condition, over all its temperatures -------------------------
-    group = _group_codes(wells, rows, factors)                    # replicates: one temperature
+    group = _group_codes(wells, rows, factors, cache=key_cache)   # replicates: one temperature
     n_groups = int(group.max()) + 1 if G else 0
     laws = list(ratelaws.INTEGRATED)
     aicc = np.stack([fits[law].aicc(rss_floor) for law in laws], axis=1)       # (G, L)
