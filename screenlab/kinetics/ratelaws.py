@@ -518,17 +518,22 @@ def solve_saturation_u(K, tau, u_start=None, n_max: int = 80) -> np.ndarray:
             step = (K * us + 1.0 - e - tau) / (K + e)
             u = np.maximum(u, us - step)
         u = np.array(u, dtype=float).ravel()
-        kf, tf = K.ravel(), tau.ravel()
+        # the cells not yet converged in compact copies, written back as they converge
         idx = np.arange(u.size)
+        uu, kk, tt = u.copy(), K.ravel(), tau.ravel()
         for _ in range(n_max):
-            uu, kk = u[idx], kf[idx]
             e = np.exp(-uu)
-            step = (kk * uu + 1.0 - e - tf[idx]) / (kk + e)
+            step = (kk * uu + 1.0 - e - tt) / (kk + e)
             uu = uu - step
-            u[idx] = uu
-            idx = idx[np.abs(step) > 1e-13 * (1.0 + np.abs(uu))]
+            go = np.abs(step) > 1e-13 * (1.0 + np.abs(uu))
+            if go.all():
+                continue
+            stop = ~go
+            u[idx[stop]] = uu[stop]
+            idx, uu, kk, tt = idx[go], uu[go], kk[go], tt[go]
             if not idx.size:
                 break
+        u[idx] = uu
     return np.maximum(u, 0.0).reshape(tau.shape)
 
 
