@@ -372,7 +372,7 @@ def fit_first_order_plateau(c: Courses) -> LawFit:
 
 
 # ---------------------------------------------------------------------------- two-parameter engine
-def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
+def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40, start=None):
     """Levenberg-Marquardt on two parameters per well (Marquardt 1963), all wells at once.
 
     ``model(th1, th2, state, rows) -> (pred, d pred/d th1, d pred/d th2, state)`` on the wells
@@ -381,15 +381,30 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
     8; a parameter at an end of its range that the step would push out stays there and the other
     one takes a one-parameter step (a projected step). Each iteration works on the wells not yet
     settled only. Returns th1, th2, rss, the 2 x 2 unscaled inverse (J^T J)^-1 as (i11, i12, i22),
-    a singular mask and at-bound masks.
+    a singular mask and at-bound masks. ``start``: the model's output at (th1, th2) where known
+    (from :func:`_best_start`); it is evaluated again only where the bounds move a start.
     """
     Y, W = c.y, c.w
     G = c.shape[0]
     lo1, hi1, lo2, hi2 = (np.broadcast_to(np.asarray(v, dtype=float), (G,)) for v in bounds)
-    th1 = np.clip(th1, lo1, hi1)
-    th2 = np.clip(th2, lo2, hi2)
+    c1 = np.clip(th1, lo1, hi1)
+    c2 = np.clip(th2, lo2, hi2)
     every = np.arange(G)
-    pred, j1, j2, state = model(th1, th2, None, every)
+    if start is None:
+        pred, j1, j2, state = model(c1, c2, None, every)
+    else:
+        # the model is evaluated well by well (element-wise, or a Newton solve per reading), so
+        # its output at an unmoved start is the one already computed there
+        moved = np.flatnonzero(~((c1 == th1) & (c2 == th2)))
+        pred, j1, j2, state = start
+        if moved.size:
+            pred, j1, j2 = np.array(pred), np.array(j1), np.array(j2)
+            state = None if state is None else np.array(state)
+            pm, j1m, j2m, sm = model(c1[moved], c2[moved], None, moved)
+            pred[moved], j1[moved], j2[moved] = pm, j1m, j2m
+            if state is not None:
+                state[moved] = sm
+    th1, th2 = c1, c2
     pred, j1, j2 = np.array(pred), np.array(j1), np.array(j2)
     state = None if state is None else np.array(state)
 
@@ -482,23 +497,28 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
     return th1, th2, rss, (i11, i12, i22), singular, at1, at2
 
 
-def _best_start(c: Courses, model, candidates) -> tuple[np.ndarray, np.ndarray]:
-    """The candidate (th1, th2) pair with the lowest RSS per well."""
+def _best_start(c: Courses, model, candidates):
+    """The candidate (th1, th2) pair with the lowest RSS per well, and the model's
+    ``(pred, d/d th1, d/d th2, state)`` there (for :func:`_levenberg_marquardt`'s ``start``)."""
     best = np.full(c.shape[0], np.inf)
-    b1 = b2 = None
+    b1 = b2 = ev = None
     every = np.arange(c.shape[0])
     for t1, t2 in candidates:               # a handful of candidates, each vectorised over wells
         t1 = np.nan_to_num(t1, nan=0.0)
         t2 = np.nan_to_num(t2, nan=0.0)
-        pred = model(t1, t2, None, every)[0]
+        out = model(t1, t2, None, every)
+        pred = out[0]
         r = c.rowsum(c.w * (c.y - pred) ** 2)
         r = np.where(np.isfinite(r), r, np.inf)
         if b1 is None:
-            b1, b2, best = t1.copy(), t2.copy(), r
+            b1, b2, best, ev = t1.copy(), t2.copy(), r, list(out)
             continue
         take = r < best
         b1, b2, best = np.where(take, t1, b1), np.where(take, t2, b2), np.where(take, r, best)
-    return b1, b2
+        for i in range(4):
+            if ev[i] is not None:
+                ev[i] = np.where(take[:, None] if np.ndim(ev[i]) == 2 else take, out[i], ev[i])
+    return b1, b2, ev
 
 
 # -------------------------------------------------------------------------------------- saturation
@@ -569,8 +589,8 @@ def fit_saturation(c: Courses, zero: LawFit, first: LawFit) -> LawFit:
     rf = np.where(np.isfinite(rf), rf, rz)
     mid = np.sqrt(rz * rf)
     starts = [(np.log(rz), np.log(0.02)), (np.log(mid), np.log(0.5)), (np.log(rf * 1.2), np.log(3.0))]
-    s1, s2 = _best_start(c, model, [(a, np.full(G, b)) for a, b in starts])
-    return _rate_law_fit("saturation", c, _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2)),
+    s1, s2, ev = _best_start(c, model, [(a, np.full(G, b)) for a, b in starts])
+    return _rate_law_fit("saturation", c, _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2), start=ev),
                          np.isfinite(rz))
 
 
@@ -626,8 +646,8 @@ def fit_first_order_deactivating(c: Courses, first: LawFit, zero: LawFit) -> Law
         inv_t = 1.0 / np.where(c.t_max > 0, c.t_max, np.nan)
     cands = [(np.log(kf), np.log(0.3 * inv_t)), (np.log(kf * 1.3), np.log(1.0 * inv_t)),
              (np.log(np.maximum(kf, kz) * 1.5), np.log(3.0 * inv_t))]
-    s1, s2 = _best_start(c, model, cands)
-    return _rate_law_fit("first_order_deactivating", c, _levenberg_marquardt(c, model, s1, s2, bounds),
+    s1, s2, ev = _best_start(c, model, cands)
+    return _rate_law_fit("first_order_deactivating", c, _levenberg_marquardt(c, model, s1, s2, bounds, start=ev),
                          np.isfinite(kf))
 
 
@@ -665,8 +685,8 @@ def fit_first_order_induction(c: Courses, max_slope: np.ndarray) -> LawFit:
     k0 = np.where(np.isfinite(max_slope) & (max_slope > 0), max_slope, np.nan)
     cands = [(np.log(k0), np.log(c.t_first)), (np.log(k0 * 1.5), np.log(3.0 * c.t_first)),
              (np.log(k0 * 1.5), np.log(0.3 * c.t_max))]
-    s1, s2 = _best_start(c, model, cands)
-    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds)
+    s1, s2, ev = _best_start(c, model, cands)
+    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds, start=ev)
     ok = c.capped & np.isfinite(k0) & ~singular & ~at1 & ~at2 & np.isfinite(rss)
     return LawFit("first_order_induction", r0=np.exp(th1), r0_se=_nan(G), rss=rss, n=c.n, ok=ok,
                   p1=np.exp(th1), p2=np.exp(th2), n_window=c.n)
