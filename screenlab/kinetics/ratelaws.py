@@ -294,24 +294,60 @@ def fit_first_order(c: Courses, n_iter: int = 30) -> LawFit:
         r = rss_of(cand)
         take = r < best
         u, best = np.where(take, cand, u), np.where(take, r, best)
+    # A well none of whose (halved) steps lowers its RSS keeps its ln k, so every later iteration
+    # would compute the same step for it and keep nothing again: it is settled, and the element-wise
+    # work of later iterations is done on the wells still moving only (``act``). The sums over
+    # readings stay one matrix-vector product over all wells (rows of settled wells zero), so each
+    # well's sum is the same product as when every well took part.
+    G, m = c.shape
+    ones = np.ones(m)
+    buf = np.zeros((G, m))
+    filled = np.zeros(0, dtype=np.int64)
+
+    def rowsum_of(rows, v):
+        nonlocal filled
+        if len(rows) == G:                                   # every well, in order
+            return v @ ones if m else np.zeros(G)
+        buf[filled] = 0.0
+        buf[rows] = v
+        filled = rows
+        return (buf @ ones)[rows] if m else np.zeros(len(rows))
+
+    act = np.arange(G)
+    Ta, Ya, Wa = T, Y, W
     for _ in range(n_iter):
-        k = np.exp(u)[:, None]
-        e = np.exp(-k * T)
-        res = Y - (1.0 - e)
-        J = T * e * k                                        # d X / d ln k
-        a = c.rowsum(W * J * J)
-        g = c.rowsum(W * J * res)
+        k = np.exp(u[act])[:, None]
+        e = np.exp(-k * Ta)
+        res = Ya - (1.0 - e)
+        J = Ta * e * k                                       # d X / d ln k
+        WJ = Wa * J                                          # W * J * J and W * J * res, in order
+        a = rowsum_of(act, WJ * J)
+        g = rowsum_of(act, WJ * res)
         with np.errstate(divide="ignore", invalid="ignore"):
             step = np.clip(np.nan_to_num(g / a), -2.0, 2.0)
-        moved = np.zeros(G, dtype=bool)
+        moved = np.zeros(len(act), dtype=bool)
+        todo = np.arange(len(act))                           # local rows not yet moved
         for frac in (1.0, 0.5, 0.25):                        # step halving, vectorised
-            cand = np.clip(u + frac * step, lo, hi)
-            r = rss_of(cand)
-            take = ~moved & (r < best)
-            u, best = np.where(take, cand, u), np.where(take, r, best)
-            moved |= take
+            if todo.size == len(act):                        # (no copies while every well takes part)
+                rows, st, Ts, Ys, Ws = act, step, Ta, Ya, Wa
+            else:
+                rows, st, Ts, Ys, Ws = act[todo], step[todo], Ta[todo], Ya[todo], Wa[todo]
+            cand = np.clip(u[rows] + frac * st, lo[rows], hi[rows])
+            rr = Ys + np.expm1(-np.exp(cand)[:, None] * Ts)  # y - (1 - e^-kt)
+            v = rowsum_of(rows, Ws * rr * rr)
+            r = np.where(np.isfinite(v), v, np.inf)
+            take = r < best[rows]
+            u[rows[take]], best[rows[take]] = cand[take], r[take]
+            moved[todo[take]] = True
+            todo = todo[~take]
+            if not todo.size:
+                break
         if not np.any(moved & (np.abs(step) > 1e-10)):
             break
+        if not moved.all():
+            keep = np.flatnonzero(moved)
+            act = act[keep]
+            Ta, Ya, Wa = T[act], Y[act], W[act]
     k = np.exp(u)
     e = np.exp(-k[:, None] * T)
     J = T * e
@@ -336,7 +372,7 @@ def fit_first_order_plateau(c: Courses) -> LawFit:
 
 
 # ---------------------------------------------------------------------------- two-parameter engine
-def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
+def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40, start=None):
     """Levenberg-Marquardt on two parameters per well (Marquardt 1963), all wells at once.
 
     ``model(th1, th2, state, rows) -> (pred, d pred/d th1, d pred/d th2, state)`` on the wells
@@ -345,15 +381,30 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
     8; a parameter at an end of its range that the step would push out stays there and the other
     one takes a one-parameter step (a projected step). Each iteration works on the wells not yet
     settled only. Returns th1, th2, rss, the 2 x 2 unscaled inverse (J^T J)^-1 as (i11, i12, i22),
-    a singular mask and at-bound masks.
+    a singular mask and at-bound masks. ``start``: the model's output at (th1, th2) where known
+    (from :func:`_best_start`); it is evaluated again only where the bounds move a start.
     """
     Y, W = c.y, c.w
     G = c.shape[0]
     lo1, hi1, lo2, hi2 = (np.broadcast_to(np.asarray(v, dtype=float), (G,)) for v in bounds)
-    th1 = np.clip(th1, lo1, hi1)
-    th2 = np.clip(th2, lo2, hi2)
+    c1 = np.clip(th1, lo1, hi1)
+    c2 = np.clip(th2, lo2, hi2)
     every = np.arange(G)
-    pred, j1, j2, state = model(th1, th2, None, every)
+    if start is None:
+        pred, j1, j2, state = model(c1, c2, None, every)
+    else:
+        # the model is evaluated well by well (element-wise, or a Newton solve per reading), so
+        # its output at an unmoved start is the one already computed there
+        moved = np.flatnonzero(~((c1 == th1) & (c2 == th2)))
+        pred, j1, j2, state = start
+        if moved.size:
+            pred, j1, j2 = np.array(pred), np.array(j1), np.array(j2)
+            state = None if state is None else np.array(state)
+            pm, j1m, j2m, sm = model(c1[moved], c2[moved], None, moved)
+            pred[moved], j1[moved], j2[moved] = pm, j1m, j2m
+            if state is not None:
+                state[moved] = sm
+    th1, th2 = c1, c2
     pred, j1, j2 = np.array(pred), np.array(j1), np.array(j2)
     state = None if state is None else np.array(state)
 
@@ -364,45 +415,68 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
 
     rss = rss_of(Y, W, pred)
     lam = np.full(G, 1e-3)
-    active = np.isfinite(rss)
+    # The wells not yet settled (rows ``a`` of the grid) are worked on in compact copies, in the
+    # order of ``a``, and written back as they settle; so every sum is formed on the same rows in
+    # the same order as when they were taken from the full grid at each iteration.
+    a = np.flatnonzero(np.isfinite(rss))
+    ya, wa, pa, j1a, j2a = Y[a], W[a], pred[a], j1[a], j2[a]
+    t1, t2, la, ra = th1[a], th2[a], lam[a], rss[a]
+    l1, h1, l2, h2 = lo1[a], hi1[a], lo2[a], hi2[a]
+    sa = None if state is None else state[a]
+
+    def write_back(rows, loc):
+        pred[rows], j1[rows], j2[rows] = pa[loc], j1a[loc], j2a[loc]
+        th1[rows], th2[rows], rss[rows], lam[rows] = t1[loc], t2[loc], ra[loc], la[loc]
+        if state is not None:
+            state[rows] = sa[loc]
+
     for _ in range(n_iter):
-        a = np.flatnonzero(active)
         if not a.size:
             break
-        ya, wa, pa, j1a, j2a = Y[a], W[a], pred[a], j1[a], j2[a]
-        t1, t2, la = th1[a], th2[a], lam[a]
         res = ya - pa
-        a11 = c.rowsum(wa * j1a * j1a)
-        a12 = c.rowsum(wa * j1a * j2a)
-        a22 = c.rowsum(wa * j2a * j2a)
-        g1 = c.rowsum(wa * j1a * res)
-        g2 = c.rowsum(wa * j2a * res)
+        wj1 = wa * j1a                            # W * J1 * J1 = (W * J1) * J1, etc.: the same products
+        wj2 = wa * j2a
+        a11 = c.rowsum(wj1 * j1a)
+        a12 = c.rowsum(wj1 * j2a)
+        a22 = c.rowsum(wj2 * j2a)
+        g1 = c.rowsum(wj1 * res)
+        g2 = c.rowsum(wj2 * res)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             d1 = a11 * (1.0 + la) + 1e-300
             d2 = a22 * (1.0 + la) + 1e-300
             det = d1 * d2 - a12 * a12
             s1 = np.nan_to_num((d2 * g1 - a12 * g2) / det)
             s2 = np.nan_to_num((d1 * g2 - a12 * g1) / det)
-            out2 = ((t2 <= lo2[a]) & (s2 < 0)) | ((t2 >= hi2[a]) & (s2 > 0))
-            out1 = ((t1 <= lo1[a]) & (s1 < 0)) | ((t1 >= hi1[a]) & (s1 > 0))
+            out2 = ((t2 <= l2) & (s2 < 0)) | ((t2 >= h2) & (s2 > 0))
+            out1 = ((t1 <= l1) & (s1 < 0)) | ((t1 >= h1) & (s1 > 0))
             s1 = np.where(out2 & ~out1, np.nan_to_num(g1 / d1), np.where(out1, 0.0, s1))
             s2 = np.where(out1 & ~out2, np.nan_to_num(g2 / d2), np.where(out2, 0.0, s2))
         s1 = np.clip(s1, -3.0, 3.0)               # at most a factor e^3 per step on log parameters
         s2 = np.clip(s2, -3.0, 3.0)
-        n1 = np.clip(t1 + s1, lo1[a], hi1[a])
-        n2 = np.clip(t2 + s2, lo2[a], hi2[a])
-        pn, j1n, j2n, st_n = model(n1, n2, None if state is None else state[a], a)
+        n1 = np.clip(t1 + s1, l1, h1)
+        n2 = np.clip(t2 + s2, l2, h2)
+        pn, j1n, j2n, st_n = model(n1, n2, sa, a)
         rn = rss_of(ya, wa, pn)
-        better = rn < rss[a]
-        b = a[better]
-        pred[b], j1[b], j2[b] = pn[better], j1n[better], j2n[better]
+        better = rn < ra
+        b = np.flatnonzero(better)
+        pa[b], j1a[b], j2a[b] = pn[b], j1n[b], j2n[b]
         if state is not None:
-            state[b] = st_n[better]
-        gain = np.where(better, (rss[a] - rn) / np.maximum(rss[a], 1e-300), 0.0)
-        th1[b], th2[b], rss[b] = n1[better], n2[better], rn[better]
-        lam[a] = np.where(better, np.maximum(la / 3.0, 1e-9), np.minimum(la * 8.0, 1e9))
-        settled = (better & (gain < 1e-11) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (lam[a] >= 1e9)
-        active[a[settled]] = False
+            sa[b] = st_n[b]
+        gain = np.where(better, (ra - rn) / np.maximum(ra, 1e-300), 0.0)
+        t1[b], t2[b], ra[b] = n1[b], n2[b], rn[b]
+        la = np.where(better, np.maximum(la / 3.0, 1e-9), np.minimum(la * 8.0, 1e9))
+        settled = (better & (gain < 1e-11) & (np.abs(s1) < 1e-6) & (np.abs(s2) < 1e-6)) | (la >= 1e9)
+        if settled.any():
+            done = np.flatnonzero(settled)
+            write_back(a[done], done)
+            keep = np.flatnonzero(~settled)
+            a = a[keep]
+            ya, wa, pa, j1a, j2a = ya[keep], wa[keep], pa[keep], j1a[keep], j2a[keep]
+            t1, t2, la, ra = t1[keep], t2[keep], la[keep], ra[keep]
+            l1, h1, l2, h2 = l1[keep], h1[keep], l2[keep], h2[keep]
+            if state is not None:
+                sa = sa[keep]
+    write_back(a, np.arange(a.size))
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         a11 = c.rowsum(W * j1 * j1)
         a12 = c.rowsum(W * j1 * j2)
@@ -423,23 +497,28 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40):
     return th1, th2, rss, (i11, i12, i22), singular, at1, at2
 
 
-def _best_start(c: Courses, model, candidates) -> tuple[np.ndarray, np.ndarray]:
-    """The candidate (th1, th2) pair with the lowest RSS per well."""
+def _best_start(c: Courses, model, candidates):
+    """The candidate (th1, th2) pair with the lowest RSS per well, and the model's
+    ``(pred, d/d th1, d/d th2, state)`` there (for :func:`_levenberg_marquardt`'s ``start``)."""
     best = np.full(c.shape[0], np.inf)
-    b1 = b2 = None
+    b1 = b2 = ev = None
     every = np.arange(c.shape[0])
     for t1, t2 in candidates:               # a handful of candidates, each vectorised over wells
         t1 = np.nan_to_num(t1, nan=0.0)
         t2 = np.nan_to_num(t2, nan=0.0)
-        pred = model(t1, t2, None, every)[0]
+        out = model(t1, t2, None, every)
+        pred = out[0]
         r = c.rowsum(c.w * (c.y - pred) ** 2)
         r = np.where(np.isfinite(r), r, np.inf)
         if b1 is None:
-            b1, b2, best = t1.copy(), t2.copy(), r
+            b1, b2, best, ev = t1.copy(), t2.copy(), r, list(out)
             continue
         take = r < best
         b1, b2, best = np.where(take, t1, b1), np.where(take, t2, b2), np.where(take, r, best)
-    return b1, b2
+        for i in range(4):
+            if ev[i] is not None:
+                ev[i] = np.where(take[:, None] if np.ndim(ev[i]) == 2 else take, out[i], ev[i])
+    return b1, b2, ev
 
 
 # -------------------------------------------------------------------------------------- saturation
@@ -459,17 +538,22 @@ def solve_saturation_u(K, tau, u_start=None, n_max: int = 80) -> np.ndarray:
             step = (K * us + 1.0 - e - tau) / (K + e)
             u = np.maximum(u, us - step)
         u = np.array(u, dtype=float).ravel()
-        kf, tf = K.ravel(), tau.ravel()
+        # the cells not yet converged in compact copies, written back as they converge
         idx = np.arange(u.size)
+        uu, kk, tt = u.copy(), K.ravel(), tau.ravel()
         for _ in range(n_max):
-            uu, kk = u[idx], kf[idx]
             e = np.exp(-uu)
-            step = (kk * uu + 1.0 - e - tf[idx]) / (kk + e)
+            step = (kk * uu + 1.0 - e - tt) / (kk + e)
             uu = uu - step
-            u[idx] = uu
-            idx = idx[np.abs(step) > 1e-13 * (1.0 + np.abs(uu))]
+            go = np.abs(step) > 1e-13 * (1.0 + np.abs(uu))
+            if go.all():
+                continue
+            stop = ~go
+            u[idx[stop]] = uu[stop]
+            idx, uu, kk, tt = idx[go], uu[go], kk[go], tt[go]
             if not idx.size:
                 break
+        u[idx] = uu
     return np.maximum(u, 0.0).reshape(tau.shape)
 
 
@@ -505,8 +589,8 @@ def fit_saturation(c: Courses, zero: LawFit, first: LawFit) -> LawFit:
     rf = np.where(np.isfinite(rf), rf, rz)
     mid = np.sqrt(rz * rf)
     starts = [(np.log(rz), np.log(0.02)), (np.log(mid), np.log(0.5)), (np.log(rf * 1.2), np.log(3.0))]
-    s1, s2 = _best_start(c, model, [(a, np.full(G, b)) for a, b in starts])
-    return _rate_law_fit("saturation", c, _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2)),
+    s1, s2, ev = _best_start(c, model, [(a, np.full(G, b)) for a, b in starts])
+    return _rate_law_fit("saturation", c, _levenberg_marquardt(c, model, s1, s2, (lo1, hi1, lo2, hi2), start=ev),
                          np.isfinite(rz))
 
 
@@ -562,8 +646,8 @@ def fit_first_order_deactivating(c: Courses, first: LawFit, zero: LawFit) -> Law
         inv_t = 1.0 / np.where(c.t_max > 0, c.t_max, np.nan)
     cands = [(np.log(kf), np.log(0.3 * inv_t)), (np.log(kf * 1.3), np.log(1.0 * inv_t)),
              (np.log(np.maximum(kf, kz) * 1.5), np.log(3.0 * inv_t))]
-    s1, s2 = _best_start(c, model, cands)
-    return _rate_law_fit("first_order_deactivating", c, _levenberg_marquardt(c, model, s1, s2, bounds),
+    s1, s2, ev = _best_start(c, model, cands)
+    return _rate_law_fit("first_order_deactivating", c, _levenberg_marquardt(c, model, s1, s2, bounds, start=ev),
                          np.isfinite(kf))
 
 
@@ -601,8 +685,8 @@ def fit_first_order_induction(c: Courses, max_slope: np.ndarray) -> LawFit:
     k0 = np.where(np.isfinite(max_slope) & (max_slope > 0), max_slope, np.nan)
     cands = [(np.log(k0), np.log(c.t_first)), (np.log(k0 * 1.5), np.log(3.0 * c.t_first)),
              (np.log(k0 * 1.5), np.log(0.3 * c.t_max))]
-    s1, s2 = _best_start(c, model, cands)
-    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds)
+    s1, s2, ev = _best_start(c, model, cands)
+    th1, th2, rss, (i11, _, _), singular, at1, at2 = _levenberg_marquardt(c, model, s1, s2, bounds, start=ev)
     ok = c.capped & np.isfinite(k0) & ~singular & ~at1 & ~at2 & np.isfinite(rss)
     return LawFit("first_order_induction", r0=np.exp(th1), r0_se=_nan(G), rss=rss, n=c.n, ok=ok,
                   p1=np.exp(th1), p2=np.exp(th2), n_window=c.n)

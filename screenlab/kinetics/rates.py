@@ -190,17 +190,22 @@ def _equals(values: pd.Series, word: str) -> np.ndarray:
     return (values.astype("string") == word).fillna(False).to_numpy(dtype=bool)
 
 
-def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, temperature: bool = True) -> np.ndarray:
+def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, temperature: bool = True,
+                 cache: dict | None = None) -> np.ndarray:
     """Replicate group of each kept well: catalyst x role x temperature x condition (the keys of the
     rates table; without the temperature when ``temperature`` is False), numbered 0.. in order of
-    first appearance."""
+    first appearance. ``cache``: a dict kept between calls on the same wells, so each key column is
+    factorised once."""
     from screenlab.kinetics.turnover import _codes, _key_codes, _tkey
 
     keys = ["catalyst", "role", *(["temperature_c"] if temperature else []), "loading", "loading_unit",
             "substrate_conc_mM", *[f for f in factor_names if f in wells.columns]]
-    cols = [_codes(_tkey(pd.to_numeric(wells[k], errors="coerce").to_numpy(dtype=float))) if k == "temperature_c"
-            else _codes(wells[k]) for k in keys]
-    return _key_codes(cols, rows)
+    cache = {} if cache is None else cache
+    for k in keys:
+        if k not in cache:
+            cache[k] = (_codes(_tkey(pd.to_numeric(wells[k], errors="coerce").to_numpy(dtype=float)))
+                        if k == "temperature_c" else _codes(wells[k]))
+    return _key_codes([cache[k] for k in keys], rows)
 
 
 def _noise_level(fits: dict, c: ratelaws.Courses, rss_floor: np.ndarray) -> np.ndarray:
@@ -250,22 +255,28 @@ def _local_max_slope(c: ratelaws.Courses) -> tuple[np.ndarray, np.ndarray, np.nd
     per h), the sum of squared time deviations of that triple (for its SE) and the slot where it
     starts; NaN / -1 for fewer than three readings."""
     G, m = c.shape
-    best = np.full(G, -np.inf)
-    best_sxx = np.full(G, np.nan)
-    at = np.full(G, -1, dtype=np.int64)
-    T, Y, W = c.t, c.y, c.w
-    for i in range(max(m - 2, 0)):          # a loop over reading slots, vectorised over wells
-        tt, yy, ww = T[:, i:i + 3], Y[:, i:i + 3], W[:, i:i + 3]
-        full = ww.sum(axis=1) == 3
-        tm = tt.mean(axis=1, keepdims=True)
-        ym = yy.mean(axis=1, keepdims=True)
-        sxx = ((tt - tm) ** 2).sum(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            slope = ((tt - tm) * (yy - ym)).sum(axis=1) / sxx
-        take = full & (sxx > 0) & (slope > best)
-        best = np.where(take, slope, best)
-        best_sxx = np.where(take, sxx, best_sxx)
-        at = np.where(take, i, at)
+    if m < 3:
+        return np.full(G, np.nan), np.full(G, np.nan), np.full(G, -1, dtype=np.int64)
+    # every triple of consecutive slots at once, as (G, m - 2) arrays of its first, second and
+    # third reading (sums taken left to right, as a three-term mean or sum is); the steepest triple
+    # per well, the first of equal ones
+    n3 = m - 2
+    tt = [c.t[:, i:i + n3] for i in range(3)]
+    yy = [c.y[:, i:i + n3] for i in range(3)]
+    full = ((c.w[:, 0:n3] + c.w[:, 1:1 + n3]) + c.w[:, 2:2 + n3]) == 3
+    tm = ((tt[0] + tt[1]) + tt[2]) / 3.0
+    ym = ((yy[0] + yy[1]) + yy[2]) / 3.0
+    dt = [v - tm for v in tt]
+    dy = [v - ym for v in yy]
+    sxx = (dt[0] ** 2 + dt[1] ** 2) + dt[2] ** 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = ((dt[0] * dy[0] + dt[1] * dy[1]) + dt[2] * dy[2]) / sxx
+        cand = np.where(full & (sxx > 0) & (slope > -np.inf), slope, -np.inf)
+    at = np.argmax(cand, axis=1)
+    best = cand[np.arange(G), at]
+    found = best > -np.inf
+    best_sxx = np.where(found, sxx[np.arange(G), at], np.nan)
+    at = np.where(found, at, -1).astype(np.int64)
     return np.where(np.isfinite(best), best, np.nan), best_sxx, at
 
 
@@ -391,7 +402,8 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     # grows with conversion): the two-parameter iterative laws are fitted first to the three wells
     # of each catalyst x condition with the largest product, and to the others only where their
     # catalyst's choice falls on them.
-    law_group = _group_codes(wells, rows, factors, temperature=False)
+    key_cache: dict = {}
+    law_group = _group_codes(wells, rows, factors, temperature=False, cache=key_cache)
     n_law_groups = int(law_group.max()) + 1 if G else 0
     can_fit = (n_pos >= 1) & (n_fit >= 3)
     order = np.lexsort((-np.nan_to_num(y_top, nan=-np.inf), ~can_fit, law_group))
@@ -416,7 +428,7 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     fittable = ~done & (n_pos >= 1) & (n_fit >= 3)
 
     # --- one law per catalyst x condition, over all its temperatures -------------------------
-    group = _group_codes(wells, rows, factors)                    # replicates: one temperature
+    group = _group_codes(wells, rows, factors, cache=key_cache)   # replicates: one temperature
     n_groups = int(group.max()) + 1 if G else 0
     laws = list(ratelaws.INTEGRATED)
     aicc = np.stack([fits[law].aicc(rss_floor) for law in laws], axis=1)       # (G, L)
@@ -482,14 +494,17 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     # ... or a first-order course with an activating catalyst fits clearly better (AICc lower by
     # more than INDUCTION_AICC) than every integrated law (tried where the steepest part of the
     # course is not its start: a course that slows from t = 0 has no lag to find)
+    # The induction course is fitted only where its answer can change the flag: a well that could
+    # be flagged at all (signal well above noise) and that the cheaper tests have not flagged.
+    can_flag = fittable & signal & (np.nan_to_num(y_top) > 10.0 * noise)
+    shape_hit = _induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast
     with np.errstate(invalid="ignore"):
-        lag_rows = np.flatnonzero(fittable & (max_at >= 1) & ~(poly.r0 >= 0.75 * max_slope))
+        lag_rows = np.flatnonzero(fittable & (max_at >= 1) & ~(poly.r0 >= 0.75 * max_slope) & can_flag & ~shape_hit)
     lagged = np.zeros(G, dtype=bool)
     if lag_rows.size:
         ind = ratelaws.fit_first_order_induction(c.subset(lag_rows), max_slope[lag_rows])
         lagged[lag_rows] = ind.aicc(rss_floor[lag_rows]) < aicc[lag_rows].min(axis=1) - INDUCTION_AICC
-    induction = fittable & signal & (np.nan_to_num(y_top) > 10.0 * noise) & (
-        _induction(T, Y, W, np.where(fittable, rise, 0)) | convex | late_fast | lagged)
+    induction = can_flag & (shape_hit | lagged)
 
     def majority(mask):
         hits = np.bincount(group[eligible & mask], minlength=n_groups)
@@ -554,7 +569,8 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     method_words = np.array(all_laws + ["end_point", "first_reading", "no_data"], dtype=object)
     m_code = np.where(law_i >= 0, law_i, len(all_laws) + 2)
     m_code = np.where(end_point, len(all_laws), np.where(done, len(all_laws) + 1, m_code))
-    q = t_quantile(settings.confidence, df)
+    df_levels, df_at = np.unique(df, return_inverse=True)           # a few distinct df: one quantile each
+    q = t_quantile(settings.confidence, df_levels)[df_at.ravel()]
     with np.errstate(invalid="ignore"):
         half = np.where((df > 0) & np.isfinite(rate_se), q * rate_se, np.nan)
         ci_low = np.where(done, rate, rate - half)
