@@ -26,6 +26,11 @@ def t_ppf(p, df) -> np.ndarray:
     """The ``p`` quantile of Student t(df) (one-sided; ``p`` may be an array); df = inf gives the
     normal quantile, df <= 0 or NaN gives NaN."""
     df = np.asarray(df, dtype=float)
+    if np.ndim(p) == 0 and df.size > 256:
+        # a column of dfs repeats a few values (n - 1, inf): each distinct df once, the same numbers
+        uniq, inverse = np.unique(df, return_inverse=True)
+        if uniq.size * 4 < df.size:
+            return t_ppf(p, uniq)[inverse].reshape(df.shape)
     finite = np.isfinite(df) & (df > 0)
     with np.errstate(invalid="ignore"):
         out = np.where(finite, special.stdtrit(np.where(finite, df, 1.0), p), np.nan)

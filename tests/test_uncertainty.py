@@ -23,3 +23,14 @@ def test_one_t_quantile_and_one_welch_rule_against_scipy_stats():
     # Welch-Satterthwaite, written out (Welch, Biometrika 1947): (va + vb)^2 / (va^2/da + vb^2/db)
     assert welch_df(2.0, 3, 1.0, 5) == pytest.approx(9.0 / (4.0 / 3 + 1.0 / 5))
     assert welch_df(2.0, 3, 0.0, 5) == pytest.approx(3.0) and welch_df(0.0, 3, 0.0, 5) == np.inf
+
+
+def test_t_quantile_of_a_long_column_of_repeated_dfs_is_scipy_stats_elementwise():
+    # the distinct-df shortcut must give each element what scipy.stats.t.ppf gives it
+    rng = np.random.default_rng(3)
+    df = np.concatenate([rng.integers(1, 6, 2000).astype(float), [np.inf, np.nan, 0.0] * 20]).reshape(-1, 2)
+    ref = np.where(np.isfinite(df) & (df > 0), stats.t.ppf(0.95, np.where(df > 0, df, 1.0)), np.nan)
+    ref = np.where(np.isposinf(df), stats.norm.ppf(0.95), ref)
+    got = t_quantile(0.9, df)
+    assert got.shape == df.shape
+    np.testing.assert_allclose(got, ref, rtol=1e-12, equal_nan=True)
