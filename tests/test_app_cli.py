@@ -1,12 +1,17 @@
 """The app launcher: ``screenlab app`` / ``screenlab demo`` options and the streamlit arguments.
 
-No server is started here (the browser test does that).
+One test starts ``screenlab demo`` as a newcomer would (browser mode, no Streamlit settings in the
+home folder); the browser test opens the pages.
 """
 from __future__ import annotations
 
+import os
+import socket
 import subprocess
 import sys
+import time
 import tomllib
+import urllib.request
 from pathlib import Path
 
 import pytest
@@ -45,6 +50,7 @@ def test_argv_binds_locally_headless_and_quiet(tmp_path):
     assert opts["--server.headless"] == "true"
     assert opts["--browser.gatherUsageStats"] == "false"
     assert opts["--server.fileWatcherType"] == "none"
+    assert opts["--server.showEmailPrompt"] == "false"     # nothing asked on the terminal
     # the app's own options come after "--"
     assert args[args.index("--") + 1:] == ["--store", str((tmp_path / "s.duckdb").resolve()), "--read-only"]
     assert app_cmd.ENTRYPOINT.is_file()
@@ -112,3 +118,36 @@ def test_python_dash_m_runs_the_command_line_without_path(module):
                          timeout=60, cwd=ROOT, env={"PATH": "/usr/bin:/bin"})
     assert out.returncode == 0, out.stderr
     assert "usage: screenlab" in out.stdout and "ingest" in out.stdout
+
+
+def test_demo_in_browser_mode_serves_without_asking_anything_on_the_terminal(tmp_path):
+    # a fresh machine: no ~/.streamlit (HOME is empty), a terminal that never answers (stdin a
+    # pipe nobody writes to); BROWSER=true makes Python's webbrowser run /bin/true instead of a
+    # browser. Streamlit's first-run e-mail prompt would block the server here.
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        port = sock.getsockname()[1]
+    (tmp_path / "home").mkdir()
+    env = dict(os.environ, HOME=str(tmp_path / "home"), BROWSER="true")
+    code = "import sys; from screenlab.cli import main; sys.exit(main(sys.argv[1:]))"
+    proc = subprocess.Popen([sys.executable, "-c", code, "demo", "--store", str(tmp_path / "demo.duckdb"),
+                             "--port", str(port)], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                            stderr=subprocess.STDOUT, text=True, env=env, cwd=tmp_path)
+    healthy = False
+    try:
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline and proc.poll() is None and not healthy:
+            try:
+                with urllib.request.urlopen(f"http://127.0.0.1:{port}/_stcore/health", timeout=2) as r:
+                    healthy = r.read().decode().strip() == "ok"
+            except OSError:
+                time.sleep(0.5)
+    finally:
+        proc.terminate()
+        try:
+            out, _ = proc.communicate(timeout=30)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            out, _ = proc.communicate()
+    assert healthy, out[-2000:]
+    assert "Email:" not in out and (tmp_path / "demo.duckdb").is_file()

@@ -63,6 +63,8 @@ def streamlit_argv(store: Path, *, port: int, read_only: bool = False,
         "--server.fileWatcherType", "none",
         "--server.runOnSave", "false",
         "--browser.gatherUsageStats", "false",
+        # no first-run e-mail prompt: it waits for a reply on the terminal before the server starts
+        "--server.showEmailPrompt", "false",
         "--browser.serverAddress", "127.0.0.1",
         "--global.showWarningOnDirectExecution", "false",
         "--",
