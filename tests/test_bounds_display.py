@@ -166,3 +166,15 @@ def test_rank_ea_help_and_transport_option(store, capsys):
                  "--store", store, "--format", "csv"]) == 0
     r2 = pd.read_csv(io.StringIO(capsys.readouterr().out)).set_index("catalyst")
     assert r2.loc["S-PT-AL", "rank"] == 1
+
+
+def test_rank_says_at_which_temperature_it_compares(store, capsys):
+    # a TOF ranking is a ranking at one temperature: the table says which (the campaign's
+    # reference temperature, or --at-temperature); an Ea ranking has none to state
+    capsys.readouterr()
+    assert main(["rank", "--campaign", "th-screen-2026", "--store", store]) == 0
+    assert "higher TOF first at 60 degC" in capsys.readouterr().out
+    assert main(["rank", "--campaign", "th-screen-2026", "--store", store, "--at-temperature", "55"]) == 0
+    assert "higher TOF first at 55 degC" in capsys.readouterr().out
+    assert main(["rank", "--campaign", "th-screen-2026", "--metric", "ea", "--store", store]) == 0
+    assert "degC" not in capsys.readouterr().out.splitlines()[-1]

@@ -201,6 +201,9 @@ def mc_note(r) -> str:
     """One line on what came first and how many draws stand behind the numbers."""
     mc = r.attrs.get("monte_carlo") or {}
     parts = [f"order: {r.attrs.get('direction', '')}"]
+    t_rank = r.attrs.get("temperature_c")
+    if t_rank is not None and math.isfinite(float(t_rank)):
+        parts[0] += f" at {float(t_rank):g} degC"
     if r.attrs.get("requirements"):
         parts.append("required: " + ", ".join(r.attrs["requirements"]))
     if mc.get("draws"):
