@@ -184,7 +184,8 @@ def test_ee_magnitude_is_drawn_folded_when_the_interval_spans_zero(fake_kin):
 def _ee_campaign(tmp_path: Path):
     """An invented enantioselective campaign from the demo generator with catalysts favouring each
     enantiomer (true ee distinct in magnitude)."""
-    import screenlab.demo as demo
+    from screenlab.demo import henry
+    from screenlab.demo.common import csv_bytes
     from screenlab.ingest import read_campaign
 
     lib = [("EE-A1", "cat A1", "fam A", 48.0, 14.0, 94.0, 92.0), ("EE-A2", "cat A2", "fam A", 52.0, 6.0, 97.0, -85.0),
@@ -193,15 +194,10 @@ def _ee_campaign(tmp_path: Path):
            ("EE-C1", "cat C1", "fam C", 61.0, 8.0, 93.0, -20.0), ("EE-C2", "cat C2", "fam C", 55.0, 12.0, 70.0, 62.0),
            ("EE-C3", "cat C3", "fam C", 50.0, 10.0, 85.0, -78.0), ("EE-D1", "cat D1", "fam D", 53.0, 15.0, 91.0, 45.0),
            ("REF-CU", "benchmark", "benchmark", 50.0, 10.0, 92.0, 85.0)]
-    orig = demo._HN_LIBRARY
-    demo._HN_LIBRARY = lib
-    try:
-        c = demo._hn_campaign(np.random.default_rng(7))
-    finally:
-        demo._HN_LIBRARY = orig
+    c = henry.build(np.random.default_rng(7), library=lib)
     for name, frame in {"catalysts.csv": c.catalysts, "plates.csv": c.plates, "layout.csv": c.layout,
                         "readings.csv": c.readings}.items():
-        (tmp_path / name).write_bytes(demo._csv(frame))
+        (tmp_path / name).write_bytes(csv_bytes(frame))
     (tmp_path / "campaign.toml").write_text(c.toml, encoding="utf-8")
     truth = pd.DataFrame(lib, columns=["catalyst", "name", "family", "ea", "tof", "sel", "ee"])
     return read_campaign(tmp_path).data, truth

@@ -51,8 +51,6 @@ Public API: :func:`generate_demo`, :func:`demo_folder`, :func:`build_demo_store`
 """
 from __future__ import annotations
 
-from screenlab.demo import henry
-from screenlab.demo.common import csv_bytes
 from screenlab.demo.folder import (CAMPAIGNS, DEFAULT_SEED, GRID_CAMPAIGNS, TRUTH_COLUMNS, TRUTH_DIR, build_campaigns,
                                    build_demo_store, demo_folder, generate_demo, read_truth)
 from screenlab.demo.generator import (ATOMIC_WEIGHTS, activity_integral, arrhenius_factor, beer_lambert_absorbance,
@@ -64,13 +62,3 @@ __all__ = ["ATOMIC_WEIGHTS", "CAMPAIGNS", "DEFAULT_SEED", "GRID_CAMPAIGNS", "REA
            "TRUTH_DIR",
            "UNCATALYSED", "activity_integral", "arrhenius_factor", "beer_lambert_absorbance", "build_campaigns",
            "build_demo_store", "demo_folder", "first_order_conversion", "generate_demo", "molar_mass", "read_truth"]
-
-# Names of the single-module demo that tests/test_ranking_semantics.py still uses (it swaps the
-# nitroaldol library): a bridge until it calls henry.build(rng, library=...) and csv_bytes itself.
-_HN_LIBRARY = henry._HN_LIBRARY
-_csv = csv_bytes
-
-
-def _hn_campaign(rng):
-    """:func:`henry.build` with this package's ``_HN_LIBRARY``."""
-    return henry.build(rng, library=_HN_LIBRARY)
