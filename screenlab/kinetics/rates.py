@@ -196,16 +196,17 @@ def _group_codes(wells: pd.DataFrame, rows: np.ndarray, factor_names, *, tempera
     rates table; without the temperature when ``temperature`` is False), numbered 0.. in order of
     first appearance. ``cache``: a dict kept between calls on the same wells, so each key column is
     factorised once."""
-    from screenlab.kinetics.turnover import _codes, _key_codes, _tkey
+    from screenlab import _groups as grp
+    from screenlab.kinetics.turnover import _tkey
 
     keys = ["catalyst", "role", *(["temperature_c"] if temperature else []), "loading", "loading_unit",
             "substrate_conc_mM", *[f for f in factor_names if f in wells.columns]]
     cache = {} if cache is None else cache
     for k in keys:
         if k not in cache:
-            cache[k] = (_codes(_tkey(pd.to_numeric(wells[k], errors="coerce").to_numpy(dtype=float)))
-                        if k == "temperature_c" else _codes(wells[k]))
-    return _key_codes([cache[k] for k in keys], rows)
+            cache[k] = (grp.codes(_tkey(pd.to_numeric(wells[k], errors="coerce").to_numpy(dtype=float)))
+                        if k == "temperature_c" else grp.codes(wells[k]))
+    return grp.group_index([cache[k] for k in keys], rows)
 
 
 def _noise_level(fits: dict, c: ratelaws.Courses, rss_floor: np.ndarray) -> np.ndarray:
@@ -569,8 +570,7 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     method_words = np.array(all_laws + ["end_point", "first_reading", "no_data"], dtype=object)
     m_code = np.where(law_i >= 0, law_i, len(all_laws) + 2)
     m_code = np.where(end_point, len(all_laws), np.where(done, len(all_laws) + 1, m_code))
-    df_levels, df_at = np.unique(df, return_inverse=True)           # a few distinct df: one quantile each
-    q = t_quantile(settings.confidence, df_levels)[df_at.ravel()]
+    q = t_quantile(settings.confidence, df)             # once per distinct df (uncertainty.t_ppf)
     with np.errstate(invalid="ignore"):
         half = np.where((df > 0) & np.isfinite(rate_se), q * rate_se, np.nan)
         ci_low = np.where(done, rate, rate - half)

@@ -131,10 +131,6 @@ def _f(frame: pd.DataFrame, col: str) -> np.ndarray:
     return pd.to_numeric(values, errors="coerce").to_numpy(dtype=float)
 
 
-# the group keys of rates.py are built with these (screenlab._groups; the old names kept for it)
-_codes = grp.codes
-_key_codes = grp.group_index
-
 
 class _Roles:
     """The role column factorised once: ``is_(*names)`` compares the distinct words, not the rows."""
