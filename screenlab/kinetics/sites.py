@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 
 from screenlab import units
-from screenlab._groups import FlagIndex  # noqa: F401  (the flag column factorised once; kinetics modules import it from here)
+from screenlab._groups import FlagIndex
 
 #: flag codes set here (code -> one plain sentence)
 FLAGS: dict[str, str] = {
