@@ -35,48 +35,55 @@ def settings_for(data: CampaignData, **overrides: Any) -> AnalysisSettings:
     return AnalysisSettings.from_mapping(data.manifest.analysis, **overrides)
 
 
+def kinetics(data: CampaignData, settings: AnalysisSettings):
+    """The kinetics of ``data`` (:class:`screenlab.kinetics.KineticsResult`) with the ring blanks of
+    plates that show an edge effect left out of the blank means (:func:`edge_blanks`; flag
+    ``blank_left_out``). The edge test reads only the sample wells' rates, so it runs between the
+    rate step and the blank step and every later stage runs once."""
+    from screenlab.kinetics import after_rates, rate_stage
+
+    amounts, per_well, selectivity = rate_stage(data, settings)
+    return after_rates(data, settings, amounts, per_well, selectivity, drop_blank=edge_blanks(per_well, data))
+
+
 def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **overrides: Any) -> Analysis:
     """Run kinetics and plate quality for ``data``.
 
-    Where plate quality finds an edge effect on a plate that also has interior blanks, its ring
-    blanks are left out of the blank means and everything from the blank step on is done again
-    (:func:`edge_blanks`; flag ``blank_left_out``).
+    Where the edge test finds an edge effect on a plate that also has interior blanks, its ring
+    blanks are left out of the blank means (:func:`kinetics`, :func:`edge_blanks`; flag
+    ``blank_left_out``).
 
     ``settings`` defaults to :func:`settings_for` (``overrides`` are applied on top of it).
     """
-    from screenlab.kinetics import analyse_kinetics, without_blank_wells
     from screenlab.stats.quality import control_chart, plate_quality
 
     if settings is None:
         settings = settings_for(data, **overrides)
     elif overrides:
         settings = AnalysisSettings.from_mapping(settings.to_dict(), **overrides)
-    kin = analyse_kinetics(data, settings)
+    kin = kinetics(data, settings)
     control = control_chart(kin, data)
     quality = plate_quality(kin, data, settings, control=control)   # the chart made once
-    drop = edge_blanks(kin, data, quality)
-    if drop is not None:
-        # a plate's ring reads differently from its interior: its ring blanks would misstate the
-        # background of the interior wells and pull the uncatalysed Arrhenius line; leave them out
-        kin = without_blank_wells(kin, data, drop)
-        control = control_chart(kin, data)
-        quality = plate_quality(kin, data, settings, control=control)
     return Analysis(data=data, settings=settings, kinetics=kin, quality=quality, control=control)
 
 
-def edge_blanks(kin, data: CampaignData, quality: pd.DataFrame):
-    """One bool per row of ``kin.per_well``: the blank wells on the outer ring of a plate flagged
-    ``edge_effect`` that has blanks in its interior too (else None: nothing to leave out)."""
+def edge_blanks(per_well: pd.DataFrame, data: CampaignData):
+    """One bool per row of ``per_well`` (the rate step's frame, or ``kin.wells``): the blank wells
+    on the outer ring of a plate whose edge test finds an edge effect
+    (:func:`screenlab.stats.quality.edge_test`, the test behind plate quality's ``edge_effect``)
+    and that has blanks in its interior too (else None: nothing to leave out)."""
     import numpy as np
 
     from screenlab.plates import is_edge
+    from screenlab.stats.quality import edge_test
 
-    if quality is None or not len(quality) or not len(kin.per_well):
+    if not len(per_well) or not len(data.plates):
         return None
-    flagged = quality.loc[quality["flags"].astype(str).str.split(";").apply(lambda f: "edge_effect" in f), "plate"]
+    edge = edge_test(per_well, data)
+    flagged = edge.loc[edge["edge_effect"], "plate"]
     if not len(flagged):
         return None
-    w = kin.per_well
+    w = per_well
     fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy()
     ring = np.zeros(len(w), dtype=bool)
     known = ~pd.isna(fmt)

@@ -26,8 +26,8 @@ from screenlab.errors import DataQualityWarning
 from screenlab.kinetics import KineticsResult
 from screenlab.pipeline import analyse
 from screenlab.plates import is_edge
-from screenlab.stats.quality import (EDGE_MIN_WELLS, MAD_NORMAL, SSMD_MIN, _nanmedian, bscores, control_chart,
-                                     mannwhitneyu_grouped, median_polish, plate_quality, robust_zprime, ssmd,
+from screenlab.stats.quality import (EDGE_ALPHA, EDGE_MIN_WELLS, MAD_NORMAL, SSMD_MIN, _nanmedian, bscores,
+                                     control_chart, edge_test, mannwhitneyu_grouped, median_polish, plate_quality, robust_zprime, ssmd,
                                      well_bscores, z_factor, zprime)
 from screenlab.stats.ranking import rank_candidates
 from screenlab.synthetic import SyntheticSpec, synthetic_campaign, truth_table
@@ -554,6 +554,29 @@ def test_plate_quality_edge_columns_match_per_plate_loop(name, quality_campaign)
                                    equal_nan=True, err_msg=col)
     assert q["flags"].str.contains("bscore_undefined").tolist() == ref["mad_zero"].tolist()
     assert q["edge_p"].notna().any() or name == "small_plates"
+
+
+@pytest.mark.parametrize("name", sorted(CAMPAIGNS))
+def test_edge_test_alone_matches_the_per_plate_loop_and_ignores_controls(name, quality_campaign):
+    # the edge test on its own (what the pipeline runs before the blank step) against the same plain
+    # loop with scipy.stats.mannwhitneyu; and, as the rule says, only sample wells enter it: blanks
+    # and benchmark wells ten times faster change nothing
+    data, kin = CAMPAIGNS[name](quality_campaign)
+    e = edge_test(kin.wells, data).set_index("plate")
+    ref = _reference_edge_columns(data, kin)
+    assert list(e.index) == list(ref.index)
+    assert e["edge_basis"].tolist() == ref["edge_basis"].tolist()
+    assert e["edge_n"].tolist() == ref["edge_n"].tolist()
+    for col in ("edge_shift_pct", "edge_p"):
+        np.testing.assert_allclose(e[col].to_numpy(float), ref[col].to_numpy(float), rtol=1e-10, atol=1e-300,
+                                   equal_nan=True, err_msg=col)
+    assert e["edge_effect"].tolist() == (ref["edge_p"] < EDGE_ALPHA).tolist()
+    q = plate_quality(kin, data, kin.settings).set_index("plate")
+    assert e["edge_effect"].tolist() == q["flags"].str.split(";").apply(lambda f: "edge_effect" in f).tolist()
+    w = kin.wells.copy()
+    ctrl = w["role"].isin(["blank", "reference"])
+    w.loc[ctrl, "rate_mM_per_h"] = 10 * pd.to_numeric(w.loc[ctrl, "rate_mM_per_h"])
+    pd.testing.assert_frame_equal(edge_test(w, data).set_index("plate"), e)
 
 
 def test_plate_quality_counts_moments_and_cvs_match_per_plate_loop(quality_campaign):

@@ -87,11 +87,11 @@ def _kinetics(args):
 
     _check(args)
     data, _, _ = load_stored_campaign(args.store, args.campaign)
-    from screenlab.kinetics import analyse_kinetics
+    from screenlab.pipeline import kinetics
 
     settings = settings_for(data, conversion_window_pct=args.window, confidence=args.confidence,
                             reference_temperature_c=getattr(args, "reference_temperature", None))
-    return data, analyse_kinetics(data, settings)
+    return data, kinetics(data, settings)   # as the ranking and the app: edge-effect ring blanks left out
 
 
 def _pick(frame, cols):

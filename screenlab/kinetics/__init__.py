@@ -48,30 +48,41 @@ class KineticsResult:
 
 
 def analyse_kinetics(data, settings: AnalysisSettings | None = None) -> KineticsResult:
-    """Run the kinetics chain on a :class:`screenlab.model.CampaignData`.
+    """Run the kinetics chain on a :class:`screenlab.model.CampaignData`, every blank well in the
+    blank means (:func:`screenlab.pipeline.kinetics` leaves out the ring blanks of plates with an
+    edge effect: the analysis the commands, the app and the ranking use).
 
     ``settings`` defaults to the campaign's ``[analysis]`` table over the defaults.
     """
+    if settings is None:
+        settings = AnalysisSettings.from_mapping(data.manifest.analysis)
+    return after_rates(data, settings, *rate_stage(data, settings))
+
+
+def rate_stage(data, settings: AnalysisSettings):
+    """The per-well stage: ``(amounts, per_well, selectivity)``, the rate fits included."""
     from screenlab.kinetics import amounts as _amounts
     from screenlab.kinetics import rates as _rates
     from screenlab.kinetics.selectivity import well_selectivity
     from screenlab.schema import check_campaign
 
     check_campaign(data, where="analyse_kinetics")  # frames meeting screenlab.schema, or a clear error
-    if settings is None:
-        settings = AnalysisSettings.from_mapping(data.manifest.analysis)
     amounts = _amounts.product_amounts(data)
     per_well = _rates.well_rates(data, settings, amounts=amounts)
     selectivity = well_selectivity(data, amounts, settings)
-    return _after_rates(data, settings, amounts, per_well, selectivity)
+    return amounts, per_well, selectivity
 
 
-def _after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None) -> KineticsResult:
-    """Blanks, turnover, groups, Arrhenius and orders on top of the per-well rates."""
+def after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None) -> KineticsResult:
+    """Blanks, turnover, groups, Arrhenius and orders on top of the per-well rates. ``drop_blank``
+    (one bool per row of ``per_well``) leaves blank wells out of the blank means; they keep their
+    rows, flagged ``blank_left_out``."""
     from screenlab.kinetics.arrhenius import arrhenius_table
     from screenlab.kinetics.orders import apparent_orders
     from screenlab.kinetics.turnover import blank_rates, group_rates, well_turnover
 
+    if drop_blank is not None:
+        drop_blank = np.asarray(drop_blank, dtype=bool)
     blanks = blank_rates(per_well, settings, exclude=drop_blank)
     wells = well_turnover(data, per_well, blanks, settings, excluded_blanks=drop_blank)
     groups = group_rates(wells, settings, factor_names=data.factor_names, selectivity=selectivity)
@@ -86,8 +97,7 @@ def without_blank_wells(kin: KineticsResult, data, drop) -> KineticsResult:
     """The same analysis with some blank wells left out of the blank means (``drop``: one bool per
     row of ``kin.per_well``), from the blank step on; the rate fits are not repeated. The dropped
     wells keep their rows, flagged ``blank_left_out``."""
-    return _after_rates(data, kin.settings, kin.amounts, kin.per_well, kin.selectivity,
-                        drop_blank=np.asarray(drop, dtype=bool))
+    return after_rates(data, kin.settings, kin.amounts, kin.per_well, kin.selectivity, drop_blank=drop)
 
 
 def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: AnalysisSettings) -> pd.DataFrame:
@@ -130,4 +140,5 @@ def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: Analys
     return out
 
 
-__all__ = ["KineticsResult", "analyse_kinetics", "with_plate_scatter", "without_blank_wells"]
+__all__ = ["KineticsResult", "after_rates", "analyse_kinetics", "rate_stage", "with_plate_scatter",
+           "without_blank_wells"]

@@ -306,26 +306,26 @@ def _bscores_and_mad(stack: np.ndarray, mad_scale: float):
     return stack / scale[:, None, None], mad
 
 
-def _well_values(kin, value: str) -> pd.Series:
+def _well_values(w: pd.DataFrame, value: str) -> pd.Series:
     col = {"rate": "rate_mM_per_h", "conversion": "last_conversion_pct"}.get(value)
     if col is None:
         raise ValueError(f"value must be 'rate' or 'conversion', not {value!r}")
-    return pd.to_numeric(kin.wells[col], errors="coerce")
+    return pd.to_numeric(w[col], errors="coerce")
 
 
-def _bscore_cube(kin, data, value: str, mad_scale: float) -> dict:
+def _bscore_cube(w: pd.DataFrame, data, value: str, mad_scale: float) -> dict:
     """Median polish of every plate at once on a (plates x rows x cols) stack of sample wells.
 
     Returns the plate index (``plates``: data.plates order, as text), per-well arrays aligned
     with ``kin.wells`` (``p_i`` plate position or -1, ``rows, cols, vals, use, fmt``), the
     residual and B-score stacks and each plate's residual MAD (NaN for a plate without cells).
+    ``w`` is ``kin.wells`` or the rate step's ``kin.per_well`` (the same wells, rates and layout).
     """
-    w = kin.wells
     plates = data.plates[["plate", "format", "n_rows", "n_cols"]].drop_duplicates("plate")
     pidx = pd.Index(plates["plate"].astype(str))
     n_r = int(plates["n_rows"].max()) if len(plates) else 0
     n_c = int(plates["n_cols"].max()) if len(plates) else 0
-    vals = _well_values(kin, value).to_numpy(dtype=float)
+    vals = _well_values(w, value).to_numpy(dtype=float)
     p_i = pidx.get_indexer(w["plate"].astype(str))
     rows = w["row"].to_numpy(dtype=np.int64)
     cols = w["col"].to_numpy(dtype=np.int64)
@@ -353,7 +353,7 @@ def well_bscores(kin, data, *, value: str = "rate", mad_scale: float = MAD_NORMA
     wells are listed with NaN residual and B-score.
     """
     w = kin.wells
-    cb = _bscore_cube(kin, data, value, mad_scale)
+    cb = _bscore_cube(w, data, value, mad_scale)
     resid, bs = _cells_at_wells(cb)
     return pd.DataFrame({
         "plate": w["plate"].to_numpy(), "well": w["well"].to_numpy(), "row": cb["rows"], "col": cb["cols"],
@@ -541,117 +541,24 @@ def control_chart(kin, data=None) -> pd.DataFrame:
 
 
 # --------------------------------------------------------------------------- per-plate summary
-def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
-    """One row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status.
-
-    Columns:
-    ``plate, format, temperature_c, n_sample, n_reference, n_blank,
-    reference_mean_mM_per_h, reference_sd_mM_per_h, blank_mean_mM_per_h, blank_sd_mM_per_h,
-    zprime`` (ddof 1), ``signal_window`` ((|mu+ - mu-| - 3(sd+ + sd-)) / sd+, from memory),
-    ``n_replicate_groups, replicate_cv_median_pct`` (median CV of the plate's sample replicate
-    groups: same catalyst, loading, substrate concentration, temperature and factor levels;
-    groups of 2 or more wells), ``reference_cv_pct``, ``blank_expected_mM_per_h,
-    blank_ratio, blank_z`` (the plate's blank against the blank Arrhenius line; the worst
-    temperature on a gradient plate), ``edge_basis`` (replicates | bscore | '' when untested),
-    ``edge_n, interior_n``, ``edge_shift_pct`` (replicates basis: how much higher ring wells
-    run than interior ones relative to their replicate groups, geometric mean, percent), ``edge_p`` (Mann-Whitney U),
-    ``bscore_max_abs``, ``reference_loo_t`` (control chart), ``blank_lod_mM_per_h`` (detection limit
-    of the blank mean), ``sample_active_pct`` (sample wells detectably above the blank),
-    ``upper_n, upper_median_mM_per_h, upper_cv_pct, separation_basis`` (the upper-quartile sample
-    wells), ``robust_zprime``,
-    ``ssmd`` (between those and the blanks; see the module docstring), ``status`` (ok | flagged |
-    unchecked | failed) and ``flags`` (see :data:`FLAGS`). ``control``: the benchmark's control
-    chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``).
-    """
-    from screenlab.model import CampaignData
-    from screenlab.settings import AnalysisSettings
-
-    if isinstance(kin, CampaignData):  # the order before (data, kin) would fail far from here
-        raise TypeError("plate_quality(kin, data, settings): the kinetics result comes first, as in control_chart")
-    settings = settings or getattr(kin, "settings", None) or AnalysisSettings()
-    w = kin.wells
-    role = w["role"].astype(str).to_numpy()
-    rate = pd.to_numeric(w["rate_mM_per_h"], errors="coerce").to_numpy(dtype=float)
-    finite = np.isfinite(rate)
-    plates = data.plates.drop_duplicates("plate").assign(plate=lambda d: d["plate"].astype(str))
-    out = plates[["plate", "format", "temperature_c"]].reset_index(drop=True)
-    out = out.set_index("plate")
-    # the B-score stack indexes plates the same way (data.plates' plates, first occurrence, as text)
-    cb = _bscore_cube(kin, data, bscore_value, MAD_NORMAL)
-    n_pl = len(out)
-    p_i = cb["p_i"]                     # each well's plate position in ``out``, -1 for an unknown plate
-    known = p_i >= 0
-
-    for r in ("sample", "reference", "blank"):
-        out[f"n_{r}"] = np.bincount(p_i[known & finite & (role == r)], minlength=n_pl).astype(np.int64)
-    ctrl = known & np.isin(role, ["reference", "blank"])
-    ctrl_role = np.where(role[ctrl] == "reference", 0, 1)
-    mom = (pd.Series(np.where(finite, rate, np.nan)[ctrl])
-           .groupby([p_i[ctrl], ctrl_role]).agg(["mean", "std"]))
-    for code, name in ((0, "reference"), (1, "blank")):
-        sub = mom.xs(code, level=1) if code in mom.index.get_level_values(1) else pd.DataFrame(columns=["mean", "std"])
-        out[f"{name}_mean_mM_per_h"] = sub["mean"].reindex(range(n_pl)).to_numpy(dtype=float)
-        out[f"{name}_sd_mM_per_h"] = sub["std"].reindex(range(n_pl)).to_numpy(dtype=float)
-    mp, sp = out["reference_mean_mM_per_h"], out["reference_sd_mM_per_h"]
-    mn, sn = out["blank_mean_mM_per_h"], out["blank_sd_mM_per_h"]
-    has_ref = out["n_reference"] >= 2
-    has_blank = out["n_blank"] >= 2
-    enough = has_ref & has_blank
-    out["zprime"] = np.where(enough, _zprime_from_moments(mp, sp, mn, sn), np.nan)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out["signal_window"] = np.where(enough, ((mp - mn).abs() - 3 * (sp + sn)) / sp, np.nan)
-        out["reference_cv_pct"] = np.where(out["n_reference"] >= 2, 100 * sp / mp.abs(), np.nan)
-
-    # replicate groups of sample wells: same plate, catalyst, loading, substrate concentration,
-    # temperature and factor levels (NaN a level of its own), as one integer id per well
+def _replicate_groups(w: pd.DataFrame, data, p_i: np.ndarray, role: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The sample wells on known plates (a mask over ``w``'s rows) and their replicate groups: same
+    plate, catalyst, loading, substrate concentration, temperature and factor levels (NaN a level
+    of its own), as one integer id per sample well."""
     keys = ["plate", "catalyst", "loading", "substrate_conc_mM", "temperature_c", *data.factor_names]
     keys = [k for k in keys if k in w]
-    is_samp = known & (role == "sample")
+    is_samp = (p_i >= 0) & (role == "sample")
     gid = _groups.group_index([w["plate"].astype(str)] + [w[k] for k in keys if k != "plate"],
                               np.flatnonzero(is_samp))
+    return is_samp, gid
+
+
+def _edge_test(cb: dict, rate: np.ndarray, n_pl: int, is_samp: np.ndarray, gid: np.ndarray) -> dict[str, np.ndarray]:
+    """The edge-versus-interior test of every plate at once (module docstring), with the largest
+    |B-score| and the plates whose residual MAD is zero. Only the sample wells' values and
+    positions enter it: blanks and references do not."""
+    p_i = cb["p_i"]
     s_rate, s_plate = rate[is_samp], p_i[is_samp]
-    # replicate CVs
-    has = ~np.isnan(s_rate)
-    if has.any():
-        g = pd.Series(s_rate[has]).groupby(gid[has]).agg(["mean", "std", "count"])
-        g_plate = np.zeros(int(gid.max()) + 1, dtype=np.int64)
-        g_plate[gid] = s_plate
-        g = g.assign(plate=g_plate[g.index.to_numpy()])
-        g = g[(g["count"] >= 2) & (g["mean"] > 0)]
-        cv = (100 * g["std"] / g["mean"]).groupby(g["plate"]).agg(["median", "count"])
-        out["n_replicate_groups"] = cv["count"].reindex(range(n_pl)).fillna(0).astype(int).to_numpy()
-        out["replicate_cv_median_pct"] = cv["median"].reindex(range(n_pl)).to_numpy(dtype=float)
-    else:
-        out["n_replicate_groups"] = 0
-        out["replicate_cv_median_pct"] = np.nan
-
-    # blank against the campaign's blank Arrhenius line
-    out["blank_expected_mM_per_h"] = np.nan
-    out["blank_ratio"] = np.nan
-    out["blank_z"] = np.nan
-    bl = getattr(kin, "blanks", None)
-    if bl is not None and len(bl):
-        bl = bl.assign(plate=bl["plate"].astype(str))
-        obs = pd.to_numeric(bl["blank_rate_mM_per_h"], errors="coerce")
-        se = pd.to_numeric(bl["blank_se_mM_per_h"], errors="coerce")
-        ln_pred, ln_pred_se = predict_ln(kin.arrhenius, UNCATALYSED, bl["temperature_c"].to_numpy())
-        with np.errstate(divide="ignore", invalid="ignore"):
-            ln_obs = np.log(obs.where(obs > 0))
-            z = (ln_obs - ln_pred) / np.sqrt((se / obs) ** 2 + ln_pred_se ** 2)
-        b = pd.DataFrame({"plate": bl["plate"], "expected": np.exp(ln_pred), "ratio": obs / np.exp(ln_pred), "z": z})
-        b = b.assign(_a=b["z"].abs().fillna(-1)).sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")
-        out["blank_expected_mM_per_h"] = b["expected"].reindex(out.index)
-        out["blank_ratio"] = b["ratio"].reindex(out.index)
-        out["blank_z"] = b["z"].reindex(out.index)
-
-    # the blanks' detection limit, the share of detectably active sample wells, and the separation
-    # of the upper-quartile sample wells from the blanks (robust Z', robust SSMD)
-    sep = _separation(w, role, rate, p_i, n_pl, getattr(kin, "blanks", None), out.index, is_samp, gid)
-    for c in ("blank_lod_mM_per_h", "sample_active_pct", "upper_n", "upper_median_mM_per_h", "upper_cv_pct",
-              "separation_basis", "robust_zprime", "ssmd"):
-        out[c] = sep[c]
-
-    # B-scores and the edge test, every plate at once
     resid, _ = _cells_at_wells(cb)
     edge = is_edge(cb["rows"], cb["cols"], cb["fmt"])
     bw = np.isfinite(resid)                                  # wells with a residual (all on known plates)
@@ -698,13 +605,143 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     spread = tested & (vmax - vmin > 0)
     rows_ok = spread[t_p]
     _, edge_p = mannwhitneyu_grouped(t_val[rows_ok], t_edge[rows_ok], t_p[rows_ok], n_pl)
-    out["edge_basis"] = np.where(by_rep, "replicates", np.where(by_b, "bscore", ""))
-    out["edge_n"] = edge_n.astype(np.int64)
-    out["interior_n"] = interior_n.astype(np.int64)
-    out["edge_shift_pct"] = shift
-    out["edge_p"] = np.where(spread, edge_p, np.nan)
-    out["bscore_max_abs"] = np.where(has_res, bmax, np.nan)
-    mad_zero = pd.Series(mad_zero, index=out.index)
+    return {"edge_basis": np.where(by_rep, "replicates", np.where(by_b, "bscore", "")),
+            "edge_n": edge_n.astype(np.int64), "interior_n": interior_n.astype(np.int64),
+            "edge_shift_pct": shift, "edge_p": np.where(spread, edge_p, np.nan),
+            "bscore_max_abs": np.where(has_res, bmax, np.nan), "mad_zero": mad_zero}
+
+
+def edge_test(wells: pd.DataFrame, data, *, bscore_value: str = "rate") -> pd.DataFrame:
+    """The edge test of :func:`plate_quality` on its own: one row per plate of ``data.plates``
+    with ``plate, edge_basis, edge_n, interior_n, edge_shift_pct, edge_p`` and ``edge_effect``
+    (``edge_p`` < :data:`EDGE_ALPHA`), the same values as ``plate_quality``'s columns.
+
+    It reads only the sample wells' rates and positions, so it can run on the rate step's
+    per-well frame (``kin.per_well``) before the blank step: :func:`screenlab.pipeline.analyse`
+    decides so which ring blanks to leave out without a second pass over blanks and turnover.
+    """
+    role = wells["role"].astype(str).to_numpy()
+    rate = pd.to_numeric(wells["rate_mM_per_h"], errors="coerce").to_numpy(dtype=float)
+    cb = _bscore_cube(wells, data, bscore_value, MAD_NORMAL)
+    n_pl = len(cb["plates"])
+    is_samp, gid = _replicate_groups(wells, data, cb["p_i"], role)
+    e = _edge_test(cb, rate, n_pl, is_samp, gid)
+    out = pd.DataFrame({"plate": cb["plates"].to_numpy()})
+    for c in ("edge_basis", "edge_n", "interior_n", "edge_shift_pct", "edge_p"):
+        out[c] = e[c]
+    out["edge_effect"] = out["edge_p"] < EDGE_ALPHA
+    return out
+
+
+def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
+    """One row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status.
+
+    Columns:
+    ``plate, format, temperature_c, n_sample, n_reference, n_blank,
+    reference_mean_mM_per_h, reference_sd_mM_per_h, blank_mean_mM_per_h, blank_sd_mM_per_h,
+    zprime`` (ddof 1), ``signal_window`` ((|mu+ - mu-| - 3(sd+ + sd-)) / sd+, from memory),
+    ``n_replicate_groups, replicate_cv_median_pct`` (median CV of the plate's sample replicate
+    groups: same catalyst, loading, substrate concentration, temperature and factor levels;
+    groups of 2 or more wells), ``reference_cv_pct``, ``blank_expected_mM_per_h,
+    blank_ratio, blank_z`` (the plate's blank against the blank Arrhenius line; the worst
+    temperature on a gradient plate), ``edge_basis`` (replicates | bscore | '' when untested),
+    ``edge_n, interior_n``, ``edge_shift_pct`` (replicates basis: how much higher ring wells
+    run than interior ones relative to their replicate groups, geometric mean, percent), ``edge_p`` (Mann-Whitney U),
+    ``bscore_max_abs``, ``reference_loo_t`` (control chart), ``blank_lod_mM_per_h`` (detection limit
+    of the blank mean), ``sample_active_pct`` (sample wells detectably above the blank),
+    ``upper_n, upper_median_mM_per_h, upper_cv_pct, separation_basis`` (the upper-quartile sample
+    wells), ``robust_zprime``,
+    ``ssmd`` (between those and the blanks; see the module docstring), ``status`` (ok | flagged |
+    unchecked | failed) and ``flags`` (see :data:`FLAGS`). ``control``: the benchmark's control
+    chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``).
+    """
+    from screenlab.model import CampaignData
+    from screenlab.settings import AnalysisSettings
+
+    if isinstance(kin, CampaignData):  # the order before (data, kin) would fail far from here
+        raise TypeError("plate_quality(kin, data, settings): the kinetics result comes first, as in control_chart")
+    settings = settings or getattr(kin, "settings", None) or AnalysisSettings()
+    w = kin.wells
+    role = w["role"].astype(str).to_numpy()
+    rate = pd.to_numeric(w["rate_mM_per_h"], errors="coerce").to_numpy(dtype=float)
+    finite = np.isfinite(rate)
+    plates = data.plates.drop_duplicates("plate").assign(plate=lambda d: d["plate"].astype(str))
+    out = plates[["plate", "format", "temperature_c"]].reset_index(drop=True)
+    out = out.set_index("plate")
+    # the B-score stack indexes plates the same way (data.plates' plates, first occurrence, as text)
+    cb = _bscore_cube(w, data, bscore_value, MAD_NORMAL)
+    n_pl = len(out)
+    p_i = cb["p_i"]                     # each well's plate position in ``out``, -1 for an unknown plate
+    known = p_i >= 0
+
+    for r in ("sample", "reference", "blank"):
+        out[f"n_{r}"] = np.bincount(p_i[known & finite & (role == r)], minlength=n_pl).astype(np.int64)
+    ctrl = known & np.isin(role, ["reference", "blank"])
+    ctrl_role = np.where(role[ctrl] == "reference", 0, 1)
+    mom = (pd.Series(np.where(finite, rate, np.nan)[ctrl])
+           .groupby([p_i[ctrl], ctrl_role]).agg(["mean", "std"]))
+    for code, name in ((0, "reference"), (1, "blank")):
+        sub = mom.xs(code, level=1) if code in mom.index.get_level_values(1) else pd.DataFrame(columns=["mean", "std"])
+        out[f"{name}_mean_mM_per_h"] = sub["mean"].reindex(range(n_pl)).to_numpy(dtype=float)
+        out[f"{name}_sd_mM_per_h"] = sub["std"].reindex(range(n_pl)).to_numpy(dtype=float)
+    mp, sp = out["reference_mean_mM_per_h"], out["reference_sd_mM_per_h"]
+    mn, sn = out["blank_mean_mM_per_h"], out["blank_sd_mM_per_h"]
+    has_ref = out["n_reference"] >= 2
+    has_blank = out["n_blank"] >= 2
+    enough = has_ref & has_blank
+    out["zprime"] = np.where(enough, _zprime_from_moments(mp, sp, mn, sn), np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["signal_window"] = np.where(enough, ((mp - mn).abs() - 3 * (sp + sn)) / sp, np.nan)
+        out["reference_cv_pct"] = np.where(out["n_reference"] >= 2, 100 * sp / mp.abs(), np.nan)
+
+    is_samp, gid = _replicate_groups(w, data, p_i, role)
+    s_rate, s_plate = rate[is_samp], p_i[is_samp]
+    # replicate CVs
+    has = ~np.isnan(s_rate)
+    if has.any():
+        g = pd.Series(s_rate[has]).groupby(gid[has]).agg(["mean", "std", "count"])
+        g_plate = np.zeros(int(gid.max()) + 1, dtype=np.int64)
+        g_plate[gid] = s_plate
+        g = g.assign(plate=g_plate[g.index.to_numpy()])
+        g = g[(g["count"] >= 2) & (g["mean"] > 0)]
+        cv = (100 * g["std"] / g["mean"]).groupby(g["plate"]).agg(["median", "count"])
+        out["n_replicate_groups"] = cv["count"].reindex(range(n_pl)).fillna(0).astype(int).to_numpy()
+        out["replicate_cv_median_pct"] = cv["median"].reindex(range(n_pl)).to_numpy(dtype=float)
+    else:
+        out["n_replicate_groups"] = 0
+        out["replicate_cv_median_pct"] = np.nan
+
+    # blank against the campaign's blank Arrhenius line
+    out["blank_expected_mM_per_h"] = np.nan
+    out["blank_ratio"] = np.nan
+    out["blank_z"] = np.nan
+    bl = getattr(kin, "blanks", None)
+    if bl is not None and len(bl):
+        bl = bl.assign(plate=bl["plate"].astype(str))
+        obs = pd.to_numeric(bl["blank_rate_mM_per_h"], errors="coerce")
+        se = pd.to_numeric(bl["blank_se_mM_per_h"], errors="coerce")
+        ln_pred, ln_pred_se = predict_ln(kin.arrhenius, UNCATALYSED, bl["temperature_c"].to_numpy())
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ln_obs = np.log(obs.where(obs > 0))
+            z = (ln_obs - ln_pred) / np.sqrt((se / obs) ** 2 + ln_pred_se ** 2)
+        b = pd.DataFrame({"plate": bl["plate"], "expected": np.exp(ln_pred), "ratio": obs / np.exp(ln_pred), "z": z})
+        b = b.assign(_a=b["z"].abs().fillna(-1)).sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")
+        out["blank_expected_mM_per_h"] = b["expected"].reindex(out.index)
+        out["blank_ratio"] = b["ratio"].reindex(out.index)
+        out["blank_z"] = b["z"].reindex(out.index)
+
+    # the blanks' detection limit, the share of detectably active sample wells, and the separation
+    # of the upper-quartile sample wells from the blanks (robust Z', robust SSMD)
+    sep = _separation(w, role, rate, p_i, n_pl, getattr(kin, "blanks", None), out.index, is_samp, gid)
+    for c in ("blank_lod_mM_per_h", "sample_active_pct", "upper_n", "upper_median_mM_per_h", "upper_cv_pct",
+              "separation_basis", "robust_zprime", "ssmd"):
+        out[c] = sep[c]
+
+    # B-scores and the edge test, every plate at once
+    edge = _edge_test(cb, rate, n_pl, is_samp, gid)
+    for c in ("edge_basis", "edge_n", "interior_n", "edge_shift_pct", "edge_p", "bscore_max_abs"):
+        out[c] = edge[c]
+    mad_zero = pd.Series(edge["mad_zero"], index=out.index)
 
     # control chart of the benchmark
     cc = control if control is not None else control_chart(kin, data)

@@ -1,0 +1,84 @@
+"""screenlab.pipeline: the one analysis path, and the ring blanks it leaves out.
+
+Rule (common practice, no source): when the sample wells on a plate's outer ring read differently
+from its interior (the edge test of plate quality), the ring blanks would misstate the background
+of the interior wells, so a plate that also has interior blanks has its ring blanks left out of the
+blank means (flag ``blank_left_out``). The demo's th-screen-2026 campaign has such a plate.
+"""
+from __future__ import annotations
+
+import io
+from contextlib import redirect_stdout
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from screenlab.cli import main
+from screenlab.kinetics import analyse_kinetics, without_blank_wells
+from screenlab.pipeline import analyse, kinetics, settings_for
+from screenlab.plates import is_edge
+from screenlab.store import Store
+
+
+@pytest.fixture(scope="module")
+def th_screen(demo_store):
+    store = Store(demo_store, read_only=True)
+    try:
+        return store.load_campaign("th-screen-2026")
+    finally:
+        store.close()
+
+
+def _edge_plates(quality: pd.DataFrame) -> set[str]:
+    return set(quality.loc[quality["flags"].str.split(";").apply(lambda f: "edge_effect" in f), "plate"].astype(str))
+
+
+def test_ring_blanks_of_edge_effect_plates_are_left_out(th_screen):
+    data = th_screen
+    a = analyse(data)
+    edge_plates = _edge_plates(a.quality)
+    assert edge_plates, "the demo campaign has a plate with an edge effect"
+    w = a.kinetics.wells
+    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy(dtype=np.int64)
+    ring = is_edge(w["row"].to_numpy(), w["col"].to_numpy(), fmt)
+    blank = (w["role"] == "blank").to_numpy()
+    on = w["plate"].astype(str).isin(edge_plates).to_numpy()
+    interior_blank = pd.Series(blank & ~ring & on).groupby(w["plate"].to_numpy()).transform("any").to_numpy()
+    expected = blank & ring & on & interior_blank
+    left_out = w["flags"].astype(str).str.split(";").apply(lambda f: "blank_left_out" in f).to_numpy()
+    assert expected.any()
+    np.testing.assert_array_equal(left_out, expected)
+
+
+def test_one_pass_equals_the_analysis_repeated_without_those_blanks(th_screen):
+    # the definition in plain steps: analyse with every blank, find the edge-effect plates in plate
+    # quality, then repeat everything from the blank step without their ring blanks
+    data = th_screen
+    settings = settings_for(data)
+    a = analyse(data, settings)
+    full = analyse_kinetics(data, settings)
+    w = full.per_well
+    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy(dtype=np.int64)
+    ring = is_edge(w["row"].to_numpy(), w["col"].to_numpy(), fmt)
+    blank = (w["role"] == "blank").to_numpy()
+    on = w["plate"].astype(str).isin(_edge_plates(a.quality)).to_numpy()
+    two_pass = without_blank_wells(full, data, blank & ring & on)
+    one_pass = kinetics(data, settings)
+    for name in ("wells", "blanks", "rates", "arrhenius", "orders"):
+        pd.testing.assert_frame_equal(getattr(one_pass, name), getattr(two_pass, name), check_exact=True, obj=name)
+        pd.testing.assert_frame_equal(getattr(a.kinetics, name), getattr(two_pass, name), check_exact=True, obj=name)
+
+
+def test_rates_command_shows_the_analysis_the_ranking_and_the_app_read(demo_store, th_screen):
+    # `screenlab rates` prints the rates table of pipeline.analyse (which `rank` and the app's pages
+    # read), ring blanks of the edge-effect plate left out: same rows, same TOF intervals
+    buf = io.StringIO()
+    with redirect_stdout(buf):
+        assert main(["rates", "--store", str(demo_store), "--campaign", "th-screen-2026", "--format", "csv"]) == 0
+    shown = pd.read_csv(io.StringIO(buf.getvalue()))
+    table = analyse(th_screen).kinetics.rates
+    assert len(shown) == len(table)
+    for col in ("tof_per_h", "tof_ci_low", "tof_ci_high", "enhancement"):
+        np.testing.assert_allclose(shown[col].to_numpy(float), table[col].to_numpy(float), rtol=1e-12,
+                                   equal_nan=True, err_msg=col)
