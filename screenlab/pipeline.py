@@ -40,10 +40,18 @@ def kinetics(data: CampaignData, settings: AnalysisSettings):
     plates that show an edge effect left out of the blank means (:func:`edge_blanks`; flag
     ``blank_left_out``). The edge test reads only the sample wells' rates, so it runs between the
     rate step and the blank step and every later stage runs once."""
+    return _kinetics_and_edge(data, settings)[0]
+
+
+def _kinetics_and_edge(data: CampaignData, settings: AnalysisSettings):
+    """:func:`kinetics` and the edge test it ran (:func:`screenlab.stats.quality.edge_test`)."""
     from screenlab.kinetics import after_rates, rate_stage
+    from screenlab.stats.quality import edge_test
 
     amounts, per_well, selectivity = rate_stage(data, settings)
-    return after_rates(data, settings, amounts, per_well, selectivity, drop_blank=edge_blanks(per_well, data))
+    edge = edge_test(per_well, data) if len(per_well) and len(data.plates) else None
+    drop = edge_blanks(per_well, data, edge=edge)
+    return after_rates(data, settings, amounts, per_well, selectivity, drop_blank=drop), edge
 
 
 def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **overrides: Any) -> Analysis:
@@ -61,17 +69,18 @@ def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **over
         settings = settings_for(data, **overrides)
     elif overrides:
         settings = AnalysisSettings.from_mapping(settings.to_dict(), **overrides)
-    kin = kinetics(data, settings)
+    kin, edge = _kinetics_and_edge(data, settings)
     control = control_chart(kin, data)
-    quality = plate_quality(kin, data, settings, control=control)   # the chart made once
+    quality = plate_quality(kin, data, settings, control=control, edge=edge)   # the chart and the edge test made once
     return Analysis(data=data, settings=settings, kinetics=kin, quality=quality, control=control)
 
 
-def edge_blanks(per_well: pd.DataFrame, data: CampaignData):
+def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFrame | None = None):
     """One bool per row of ``per_well`` (the rate step's frame, or ``kin.wells``): the blank wells
     on the outer ring of a plate whose edge test finds an edge effect
     (:func:`screenlab.stats.quality.edge_test`, the test behind plate quality's ``edge_effect``)
-    and that has blanks in its interior too (else None: nothing to leave out)."""
+    and that has blanks in its interior too (else None: nothing to leave out). ``edge``: that test
+    when it is already made on ``per_well``."""
     import numpy as np
 
     from screenlab.plates import is_edge
@@ -79,7 +88,8 @@ def edge_blanks(per_well: pd.DataFrame, data: CampaignData):
 
     if not len(per_well) or not len(data.plates):
         return None
-    edge = edge_test(per_well, data)
+    if edge is None:
+        edge = edge_test(per_well, data)
     flagged = edge.loc[edge["edge_effect"], "plate"]
     if not len(flagged):
         return None

@@ -258,8 +258,12 @@ class RankDraws:
         """
         k = self.k
         n_pilot = sum(len(r) for r in pilot)
-        by_col = np.concatenate([r.T for r in pilot], axis=1)     # each candidate's pilot ranks
-        by_col.sort(axis=1)
+        # each candidate's pilot ranks, sorted; as int16 when the ranks fit (numpy sorts those by
+        # radix, a few times faster than a comparison sort of int32; the same sorted values)
+        small = k < np.iinfo(np.int16).max
+        by_col = np.concatenate([r.T for r in pilot], axis=1, dtype=np.int16 if small else pilot[0].dtype,
+                                casting="same_kind")
+        by_col.sort(axis=1, kind="stable" if small else None)
         if self.plan is not None:                     # how many draws in all, from the pilot
             self._plan_draws(by_col, n_pilot)
         first, wid = self._window_spans(by_col, n_pilot)

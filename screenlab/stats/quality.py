@@ -553,6 +553,10 @@ def _replicate_groups(w: pd.DataFrame, data, p_i: np.ndarray, role: np.ndarray) 
     return is_samp, gid
 
 
+#: the edge test's columns of the plate-quality table
+EDGE_COLUMNS = ("edge_basis", "edge_n", "interior_n", "edge_shift_pct", "edge_p", "bscore_max_abs")
+
+
 def _edge_test(cb: dict, rate: np.ndarray, n_pl: int, is_samp: np.ndarray, gid: np.ndarray) -> dict[str, np.ndarray]:
     """The edge-versus-interior test of every plate at once (module docstring), with the largest
     |B-score| and the plates whose residual MAD is zero. Only the sample wells' values and
@@ -613,8 +617,9 @@ def _edge_test(cb: dict, rate: np.ndarray, n_pl: int, is_samp: np.ndarray, gid: 
 
 def edge_test(wells: pd.DataFrame, data, *, bscore_value: str = "rate") -> pd.DataFrame:
     """The edge test of :func:`plate_quality` on its own: one row per plate of ``data.plates``
-    with ``plate, edge_basis, edge_n, interior_n, edge_shift_pct, edge_p`` and ``edge_effect``
-    (``edge_p`` < :data:`EDGE_ALPHA`), the same values as ``plate_quality``'s columns.
+    (first occurrence, as text) with ``plate, edge_basis, edge_n, interior_n, edge_shift_pct,
+    edge_p, bscore_max_abs``, ``bscore_undefined`` (the residual MAD is zero) and ``edge_effect``
+    (``edge_p`` < :data:`EDGE_ALPHA`), the same values as ``plate_quality``'s columns and flags.
 
     It reads only the sample wells' rates and positions, so it can run on the rate step's
     per-well frame (``kin.per_well``) before the blank step: :func:`screenlab.pipeline.analyse`
@@ -627,13 +632,15 @@ def edge_test(wells: pd.DataFrame, data, *, bscore_value: str = "rate") -> pd.Da
     is_samp, gid = _replicate_groups(wells, data, cb["p_i"], role)
     e = _edge_test(cb, rate, n_pl, is_samp, gid)
     out = pd.DataFrame({"plate": cb["plates"].to_numpy()})
-    for c in ("edge_basis", "edge_n", "interior_n", "edge_shift_pct", "edge_p"):
+    for c in EDGE_COLUMNS:
         out[c] = e[c]
+    out["bscore_undefined"] = e["mad_zero"]
     out["edge_effect"] = out["edge_p"] < EDGE_ALPHA
     return out
 
 
-def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", control=None) -> pd.DataFrame:
+def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", control=None,
+                  edge=None) -> pd.DataFrame:
     """One row per plate: Z', replicate CVs, blank trend, edge effect, control chart, status.
 
     Columns:
@@ -653,7 +660,9 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     wells), ``robust_zprime``,
     ``ssmd`` (between those and the blanks; see the module docstring), ``status`` (ok | flagged |
     unchecked | failed) and ``flags`` (see :data:`FLAGS`). ``control``: the benchmark's control
-    chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``).
+    chart when it is already made (:func:`control_chart` of the same ``kin`` and ``data``);
+    ``edge``: the edge test when it is already made (:func:`edge_test` of the same sample wells'
+    values, e.g. on ``kin.per_well``, and ``bscore_value``).
     """
     from screenlab.model import CampaignData
     from screenlab.settings import AnalysisSettings
@@ -668,10 +677,8 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     plates = data.plates.drop_duplicates("plate").assign(plate=lambda d: d["plate"].astype(str))
     out = plates[["plate", "format", "temperature_c"]].reset_index(drop=True)
     out = out.set_index("plate")
-    # the B-score stack indexes plates the same way (data.plates' plates, first occurrence, as text)
-    cb = _bscore_cube(w, data, bscore_value, MAD_NORMAL)
     n_pl = len(out)
-    p_i = cb["p_i"]                     # each well's plate position in ``out``, -1 for an unknown plate
+    p_i = out.index.get_indexer(w["plate"].astype(str))   # each well's plate position, -1 for an unknown plate
     known = p_i >= 0
 
     for r in ("sample", "reference", "blank"):
@@ -737,11 +744,17 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
               "separation_basis", "robust_zprime", "ssmd"):
         out[c] = sep[c]
 
-    # B-scores and the edge test, every plate at once
-    edge = _edge_test(cb, rate, n_pl, is_samp, gid)
-    for c in ("edge_basis", "edge_n", "interior_n", "edge_shift_pct", "edge_p", "bscore_max_abs"):
-        out[c] = edge[c]
-    mad_zero = pd.Series(edge["mad_zero"], index=out.index)
+    # B-scores and the edge test, every plate at once (the B-score stack indexes plates as ``out``:
+    # data.plates' plates, first occurrence, as text)
+    if edge is None:
+        cb = _bscore_cube(w, data, bscore_value, MAD_NORMAL)
+        e = _edge_test(cb, rate, n_pl, is_samp, gid)
+        e["bscore_undefined"] = e.pop("mad_zero")
+    else:
+        e = edge.set_index("plate").reindex(out.index)
+    for c in EDGE_COLUMNS:
+        out[c] = np.asarray(e[c])
+    mad_zero = pd.Series(np.asarray(e["bscore_undefined"], dtype=bool), index=out.index)
 
     # control chart of the benchmark
     cc = control if control is not None else control_chart(kin, data)
