@@ -32,6 +32,14 @@ def t_ppf(p, df) -> np.ndarray:
         if uniq.size * 4 < df.size:
             return t_ppf(p, uniq)[inverse].reshape(df.shape)
     finite = np.isfinite(df) & (df > 0)
+    if np.ndim(p) == 0 and df.ndim:
+        # one probability: the quantile only where df is finite and positive (missing dfs, the
+        # blank rows of a well column, cost nothing); the same element-wise numbers
+        out = np.full(df.shape, np.nan)
+        with np.errstate(invalid="ignore"):
+            out[finite] = special.stdtrit(df[finite], p)
+        out[np.isposinf(df)] = special.ndtri(p)
+        return out
     with np.errstate(invalid="ignore"):
         out = np.where(finite, special.stdtrit(np.where(finite, df, 1.0), p), np.nan)
     return np.where(np.isposinf(df), special.ndtri(p), out)
