@@ -38,8 +38,10 @@ def settings_for(data: CampaignData, **overrides: Any) -> AnalysisSettings:
 def kinetics(data: CampaignData, settings: AnalysisSettings):
     """The kinetics of ``data`` (:class:`screenlab.kinetics.KineticsResult`) with the ring blanks of
     plates that show an edge effect left out of the blank means (:func:`edge_blanks`; flag
-    ``blank_left_out``). The edge test reads only the sample wells' rates, so it runs between the
-    rate step and the blank step and every later stage runs once."""
+    ``blank_left_out``): a ring that reads differently from the interior would make its blanks
+    misstate the background of the interior wells and pull the uncatalysed Arrhenius line. The edge
+    test reads only the sample wells' rates, so it runs between the rate step and the blank step
+    and every later stage runs once."""
     return _kinetics_and_edge(data, settings)[0]
 
 
