@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 from screenlab.cli import main
-from screenlab.kinetics import analyse_kinetics, without_blank_wells
+from screenlab.kinetics import after_rates, analyse_kinetics
 from screenlab.pipeline import analyse, kinetics, settings_for
 from screenlab.plates import is_edge
 from screenlab.store import Store
@@ -34,18 +34,24 @@ def _edge_plates(quality: pd.DataFrame) -> set[str]:
     return set(quality.loc[quality["flags"].str.split(";").apply(lambda f: "edge_effect" in f), "plate"].astype(str))
 
 
+def _ring_blanks(w: pd.DataFrame, data, plates: set[str]) -> np.ndarray:
+    """The rule in plain steps: blank wells on the outer ring of ``plates``, on a plate that has an
+    interior blank too."""
+    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy(dtype=np.int64)
+    ring = is_edge(w["row"].to_numpy(), w["col"].to_numpy(), fmt)
+    blank = (w["role"] == "blank").to_numpy()
+    on = w["plate"].astype(str).isin(plates).to_numpy()
+    interior_blank = pd.Series(blank & ~ring & on).groupby(w["plate"].to_numpy()).transform("any").to_numpy()
+    return blank & ring & on & interior_blank
+
+
 def test_ring_blanks_of_edge_effect_plates_are_left_out(th_screen):
     data = th_screen
     a = analyse(data)
     edge_plates = _edge_plates(a.quality)
     assert edge_plates, "the demo campaign has a plate with an edge effect"
     w = a.kinetics.wells
-    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy(dtype=np.int64)
-    ring = is_edge(w["row"].to_numpy(), w["col"].to_numpy(), fmt)
-    blank = (w["role"] == "blank").to_numpy()
-    on = w["plate"].astype(str).isin(edge_plates).to_numpy()
-    interior_blank = pd.Series(blank & ~ring & on).groupby(w["plate"].to_numpy()).transform("any").to_numpy()
-    expected = blank & ring & on & interior_blank
+    expected = _ring_blanks(w, data, edge_plates)
     left_out = w["flags"].astype(str).str.split(";").apply(lambda f: "blank_left_out" in f).to_numpy()
     assert expected.any()
     np.testing.assert_array_equal(left_out, expected)
@@ -58,12 +64,8 @@ def test_one_pass_equals_the_analysis_repeated_without_those_blanks(th_screen):
     settings = settings_for(data)
     a = analyse(data, settings)
     full = analyse_kinetics(data, settings)
-    w = full.per_well
-    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy(dtype=np.int64)
-    ring = is_edge(w["row"].to_numpy(), w["col"].to_numpy(), fmt)
-    blank = (w["role"] == "blank").to_numpy()
-    on = w["plate"].astype(str).isin(_edge_plates(a.quality)).to_numpy()
-    two_pass = without_blank_wells(full, data, blank & ring & on)
+    drop = _ring_blanks(full.per_well, data, _edge_plates(a.quality))
+    two_pass = after_rates(data, settings, full.amounts, full.per_well, full.selectivity, drop_blank=drop)
     one_pass = kinetics(data, settings)
     for name in ("wells", "blanks", "rates", "arrhenius", "orders"):
         pd.testing.assert_frame_equal(getattr(one_pass, name), getattr(two_pass, name), check_exact=True, obj=name)

@@ -43,7 +43,7 @@ class KineticsResult:
     settings: AnalysisSettings
     selectivity: pd.DataFrame = field(default_factory=pd.DataFrame)
     #: the rate step's per-well frame (screenlab.kinetics.rates.well_rates), kept so the stages
-    #: after it can be run again (see :func:`without_blank_wells`)
+    #: after it can be run again (see :func:`after_rates`)
     per_well: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
 
 
@@ -93,13 +93,6 @@ def after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None)
                           orders=orders, settings=settings, selectivity=selectivity, per_well=per_well)
 
 
-def without_blank_wells(kin: KineticsResult, data, drop) -> KineticsResult:
-    """The same analysis with some blank wells left out of the blank means (``drop``: one bool per
-    row of ``kin.per_well``), from the blank step on; the rate fits are not repeated. The dropped
-    wells keep their rows, flagged ``blank_left_out``."""
-    return after_rates(data, kin.settings, kin.amounts, kin.per_well, kin.selectivity, drop_blank=drop)
-
-
 def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: AnalysisSettings) -> pd.DataFrame:
     """The rates table with the Arrhenius step's verdict per row (``in_arrhenius_fit``,
     ``arrhenius_left_out``) and TOF intervals that hold across plates.
@@ -140,5 +133,4 @@ def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: Analys
     return out
 
 
-__all__ = ["KineticsResult", "after_rates", "analyse_kinetics", "rate_stage", "with_plate_scatter",
-           "without_blank_wells"]
+__all__ = ["KineticsResult", "after_rates", "analyse_kinetics", "rate_stage", "with_plate_scatter"]

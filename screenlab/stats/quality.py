@@ -612,7 +612,7 @@ def _edge_test(cb: dict, rate: np.ndarray, n_pl: int, is_samp: np.ndarray, gid: 
     return {"edge_basis": np.where(by_rep, "replicates", np.where(by_b, "bscore", "")),
             "edge_n": edge_n.astype(np.int64), "interior_n": interior_n.astype(np.int64),
             "edge_shift_pct": shift, "edge_p": np.where(spread, edge_p, np.nan),
-            "bscore_max_abs": np.where(has_res, bmax, np.nan), "mad_zero": mad_zero}
+            "bscore_max_abs": np.where(has_res, bmax, np.nan), "bscore_undefined": mad_zero}
 
 
 def edge_test(wells: pd.DataFrame, data, *, bscore_value: str = "rate") -> pd.DataFrame:
@@ -634,7 +634,7 @@ def edge_test(wells: pd.DataFrame, data, *, bscore_value: str = "rate") -> pd.Da
     out = pd.DataFrame({"plate": cb["plates"].to_numpy()})
     for c in EDGE_COLUMNS:
         out[c] = e[c]
-    out["bscore_undefined"] = e["mad_zero"]
+    out["bscore_undefined"] = e["bscore_undefined"]
     out["edge_effect"] = out["edge_p"] < EDGE_ALPHA
     return out
 
@@ -749,12 +749,11 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     if edge is None:
         cb = _bscore_cube(w, data, bscore_value, MAD_NORMAL)
         e = _edge_test(cb, rate, n_pl, is_samp, gid)
-        e["bscore_undefined"] = e.pop("mad_zero")
     else:
         e = edge.set_index("plate").reindex(out.index)
     for c in EDGE_COLUMNS:
         out[c] = np.asarray(e[c])
-    mad_zero = pd.Series(np.asarray(e["bscore_undefined"], dtype=bool), index=out.index)
+    bscore_undefined = np.asarray(e["bscore_undefined"], dtype=bool)
 
     # control chart of the benchmark
     cc = control if control is not None else control_chart(kin, data)
@@ -780,7 +779,7 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     fl["high_cv"] = out["replicate_cv_median_pct"] > CV_MAX_PCT
     fl["blank_off_trend"] = out["blank_z"].abs() > BLANK_Z_MAX
     fl["reference_out_of_limits"] = out_of_limits
-    fl["bscore_undefined"] = mad_zero
+    fl["bscore_undefined"] = bscore_undefined
     fl["low_separation"] = unchecked & (out["ssmd"] < SSMD_MIN)
     fl["no_detectable_activity"] = unchecked & (out["n_sample"] > 0) & (out["sample_active_pct"] == 0)
     codes = np.array(fl.columns)
