@@ -85,6 +85,7 @@ def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFram
     when it is already made on ``per_well``."""
     import numpy as np
 
+    from screenlab._groups import factorize
     from screenlab.plates import is_edge
     from screenlab.stats.quality import edge_test
 
@@ -96,14 +97,21 @@ def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFram
     if not len(flagged):
         return None
     w = per_well
-    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy()
+    # the wells' plates as codes into their distinct names (a Series.map of a text column per row
+    # is slow); a plate not in the plates table has no format and no ring
+    code, names = factorize(w["plate"])
+    row_in_plates = pd.Index(data.plates["plate"]).get_indexer(names)
+    fmt_of = np.where(row_in_plates >= 0, data.plates["format"].to_numpy(dtype=float)[row_in_plates], np.nan)
+    fmt = np.where(code >= 0, fmt_of[code], np.nan)
     ring = np.zeros(len(w), dtype=bool)
-    known = ~pd.isna(fmt)
+    known = ~np.isnan(fmt)
     ring[known] = is_edge(w["row"].to_numpy()[known], w["col"].to_numpy()[known], fmt[known].astype(np.int64))
     blank = (w["role"].astype(str) == "blank").to_numpy()
     on_plate = w["plate"].isin(set(flagged.astype(str))).to_numpy()
     drop = blank & ring & on_plate
     # keep a plate's ring blanks when it has no interior blank to take their place
-    interior = pd.Series(blank & ~ring & on_plate).groupby(w["plate"].to_numpy()).any()
-    drop &= w["plate"].map(interior).fillna(False).to_numpy(dtype=bool)
+    key = np.where(code >= 0, code, len(names))                   # a missing plate: one more key
+    has_interior = np.zeros(len(names) + 1, dtype=bool)
+    has_interior[key[blank & ~ring & on_plate]] = True
+    drop &= has_interior[key]
     return drop if drop.any() else None

@@ -44,6 +44,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from screenlab import _groups as grp
 from screenlab.errors import UsageError
 from screenlab.uncertainty import t_quantile
 
@@ -160,37 +161,58 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
     ``plates``); catalysts not in it use every plate they have wells on (Arrhenius-based metrics).
     ``plate_flags`` is the union of the plates' flags (``failed`` and ``no_benchmark`` left out: the
     candidate's ``on_failed_plate`` / ``on_unchecked_plate`` say them) in the order of the catalyst's
-    plates, each code once.
+    plates, each code once. One row per catalyst, sorted by name (one per catalyst in order of
+    first appearance when there is no plate quality).
     """
     w = kin.wells[["catalyst", "plate", "role"]]    # the columns first: filtering every column is slow
     role = w["role"].astype(str)
     w = w[w["catalyst"].notna() & ((role == "sample") | (role == "reference"))]
-    cp = w[["catalyst", "plate"]].astype(str).drop_duplicates()
+    # each (catalyst, plate) pair once, in order of first appearance, as codes (no tuple per row)
+    cat_c, cat_u = grp.factorize(w["catalyst"].astype(str))
+    plate_c, plate_u = grp.factorize(w["plate"].astype(str))
+    plate_c, n_plate = grp.with_missing(plate_c, plate_u)
+    _, pair_cat, pair_plate = grp.pair_codes(cat_c, plate_c, max(n_plate, 1))
+    plate_names = np.append(np.asarray(plate_u, dtype=object), np.nan)   # a missing plate last
+    cats = np.asarray(cat_u, dtype=object)[pair_cat]
+    plates = plate_names[pair_plate]
     if plates_used is not None and len(plates_used):
-        used = plates_used.dropna().astype(str).str.split(";").explode().rename("plate").reset_index()
-        used.columns = ["catalyst", "plate"]
-        not_used = pd.Index(used["catalyst"].unique()).get_indexer(cp["catalyst"]) < 0   # (isin is slower)
-        cp = pd.concat([cp[not_used], used], ignore_index=True)
+        used = plates_used.dropna().astype(str)
+        u_cat, u_plate = [], []
+        for c, text in zip(used.index.tolist(), used.tolist()):      # a loop over candidates
+            for plate in text.split(";"):
+                u_cat.append(c)
+                u_plate.append(plate)
+        not_used = pd.Index(pd.unique(np.asarray(u_cat, dtype=object))).get_indexer(cats) < 0
+        cats = np.concatenate([cats[not_used], np.asarray(u_cat, dtype=object)])
+        plates = np.concatenate([plates[not_used], np.asarray(u_plate, dtype=object)])
     if quality is None or quality.empty:
-        return pd.DataFrame({"catalyst": cp["catalyst"].unique(), "all_failed": False, "any_failed": False,
+        return pd.DataFrame({"catalyst": pd.unique(cats), "all_failed": False, "any_failed": False,
                              "any_unchecked": False, "plate_flags": ""})
-    q = quality.assign(plate=quality["plate"].astype(str)).drop_duplicates("plate").set_index("plate")
+    q = quality.assign(plate=quality["plate"].astype(str)).drop_duplicates("plate")
     # each plate's flags without the status ones (said by on_failed_plate / on_unchecked_plate), once per plate
     pf = (q["flags"].fillna("").astype(str).str.replace(r"(^|;)(?:failed|no_benchmark)(?=;|$)", r"\1", regex=True)
-          .str.replace(r";{2,}", ";", regex=True).str.strip(";"))
-    cp = cp.reset_index(drop=True)
-    status = cp["plate"].map(q["status"])
-    cp = cp.assign(failed=status.eq("failed").to_numpy(), unchecked=status.eq("unchecked").to_numpy(),
-                   pf=cp["plate"].map(pf).fillna("").astype(str).to_numpy())
-    agg = cp.groupby("catalyst").agg(all_failed=("failed", "all"), any_failed=("failed", "any"),
-                                     any_unchecked=("unchecked", "any"))
-    # flags: only the (few) rows that carry any, split into codes, first occurrence per catalyst
-    codes = cp.loc[cp["pf"] != "", ["catalyst", "pf"]]
-    codes = codes.assign(pf=codes["pf"].str.split(";")).explode("pf")
-    codes = codes[codes["pf"].notna() & (codes["pf"] != "")].drop_duplicates()
-    joined = codes.groupby("catalyst", sort=False)["pf"].agg(";".join)
-    agg["plate_flags"] = joined.reindex(agg.index).fillna("").astype(str)
-    return agg.reset_index()
+          .str.replace(r";{2,}", ";", regex=True).str.strip(";")).to_numpy(dtype=object)
+    status = q["status"].to_numpy(dtype=object)
+    q_row = pd.Index(q["plate"]).get_indexer(plates)              # -1: a plate without a quality row
+    has_q = q_row >= 0
+    failed = has_q & (np.where(has_q, status[q_row], "") == "failed")
+    unchecked = has_q & (np.where(has_q, status[q_row], "") == "unchecked")
+    flags = np.where(has_q, pf[q_row], "")
+    # per catalyst, by name as groupby sorts: all / any of its pairs
+    code, names = grp.factorize(pd.Series(cats, dtype=object))
+    by_name = np.argsort(np.asarray(names, dtype=object), kind="stable")
+    n = len(names)
+    n_pairs = grp.group_count(code, n)
+    n_failed = grp.group_count(code, n, failed)
+    # flags: only the (few) pairs that carry any, split into codes, first occurrence per catalyst
+    joined = [dict() for _ in range(n)]
+    for c, text in zip(code[flags != ""].tolist(), flags[flags != ""].tolist()):   # a loop over flagged pairs
+        joined[c].update(dict.fromkeys(f for f in text.split(";") if f))
+    return pd.DataFrame({
+        "catalyst": pd.array(np.asarray(names, dtype=object)[by_name], dtype="str"),
+        "all_failed": (n_failed == n_pairs)[by_name], "any_failed": (n_failed > 0)[by_name],
+        "any_unchecked": (grp.group_count(code, n, unchecked) > 0)[by_name],
+        "plate_flags": pd.array(np.array([";".join(d) for d in joined], dtype=object)[by_name], dtype="str")})
 
 
 def _censored(frame: pd.DataFrame) -> np.ndarray:
