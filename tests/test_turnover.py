@@ -273,6 +273,25 @@ def test_ton_counts_the_background_on_the_substrate_the_well_had_left():
     assert "ton_capped" in r["flags"].split(";")                      # 100 % converted: TON = S / sites
 
 
+def test_ton_background_is_the_blank_product_rate_whatever_the_stoichiometry():
+    # the same parallel first-order pathways with two product molecules per substrate
+    # (product_per_substrate = 2): every product amount and rate doubles, so the TON doubles too;
+    # the blank's rate is already a product rate and takes no second factor of 2
+    from types import SimpleNamespace
+
+    k_cat, k_b, s0, pps = 1.0, 0.05, 100.0, 2.0
+    t = np.array([0, 0.5, 1, 2, 3, 4, 6, 8.0])
+    x = -np.expm1(-(k_cat + k_b) * t)
+    s_int = np.trapezoid(1 - x, t)
+    rows = [well("P1", f"A{i}", "blank", None, pps * k_b * s0, se=0.01, conc=s0) for i in range(3)]
+    rows += [well("P1", "B1", "sample", "C1", pps * (k_cat + k_b) * s0, last_t=8.0, last_p=pps * s0 * x[-1],
+                  conc=s0, loading=1.0, unit="umol")]
+    w = frame(rows).assign(substrate_integral_h=s_int, last_conversion_pct=np.r_[np.nan, np.nan, np.nan, 100 * x[-1]])
+    data = SimpleNamespace(catalysts=CATS, manifest=SimpleNamespace(product_per_substrate=pps), factor_names=())
+    r = well_turnover(data, w, blank_rates(w, S), S).set_index("well").loc["B1"]
+    assert r.ton == pytest.approx(pps * s0 * x[-1] * k_cat / (k_cat + k_b), rel=0.01)
+
+
 def test_blank_per_substrate_level_and_scaled_where_a_level_has_none():
     rows = [well("P1", f"A{i}", "blank", None, 0.5 + 0.01 * i, conc=50.0) for i in range(3)]
     rows += [well("P1", f"B{i}", "blank", None, 2.0 + 0.01 * i, conc=200.0) for i in range(4)]
@@ -298,6 +317,21 @@ def test_a_blank_outlier_does_not_pull_the_blank_mean():
     assert b.n_blanks == 4 and b.n_blank_outliers == 1 and "blank_outlier_excluded" in b["flags"]
 
 
+def test_a_blank_left_out_as_an_outlier_is_the_one_flagged_when_ring_blanks_are_left_out():
+    # an edge-effect plate: the ring blanks (left out on purpose) read high like one interior
+    # blank; judged among the blanks the mean uses, that interior blank is the outlier, and the
+    # well flags say so as the blank row's count does
+    rates = [1.00, 1.02, 0.99, 1.60, 1.60, 1.60]
+    rows = [well("P1", f"B{i + 2}", "blank", None, r, se=0.02) for i, r in enumerate(rates)]
+    w = frame(rows)
+    ring = np.array([False, False, False, False, True, True])
+    b = blank_rates(w, S, exclude=ring)
+    t = well_turnover(CATS, w, b, S, excluded_blanks=ring).set_index("well")
+    assert b["n_blank_outliers"].iloc[0] == 1 and b["blank_rate_mM_per_h"].iloc[0] == pytest.approx(np.mean(rates[:3]))
+    assert t["outlier"].tolist() == [False, False, False, True, False, False]
+    assert all("blank_left_out" in f for f in t["flags"].iloc[4:])
+
+
 def _group(rows):
     w = frame(rows)
     t = well_turnover(CATS, w, blank_rates(w, S), S)
@@ -318,6 +352,38 @@ def test_a_group_of_wells_done_before_their_first_reading_is_a_lower_bound():
     c2 = g.loc["C2"]
     assert c2.censored == "" and "censored_replicate" in c2["flags"]
     assert c2.rate_mM_per_h == pytest.approx(21.0)
+
+
+def test_a_replicate_left_out_as_a_bound_leaves_the_group_enhancement_measured():
+    # one of three replicates done before its first reading is left out (censored_replicate); its
+    # own enhancement is a lower bound, the group's rests on the two measured wells and is not
+    blanks = [well("P1", f"A{i}", "blank", None, 0.1, se=0.01) for i in range(3)]
+    reps = [dict(well("P1", "C1", "sample", "C2", 50.0), censored="lower", rate_se_mM_per_h=np.nan),
+            well("P1", "C2", "sample", "C2", 20.0, se=0.5), well("P1", "C3", "sample", "C2", 22.0, se=0.5)]
+    c2 = _group(blanks + reps).loc["C2"]
+    assert "censored_replicate" in c2["flags"] and "enhancement_lower_bound" not in c2["flags"]
+    assert c2.enhancement == pytest.approx(np.sqrt(200.0 * 220.0))      # geometric mean of 20/0.1 and 22/0.1
+    assert np.isfinite(c2.enhancement_ci_high) and c2.enhancement_ci_low < c2.enhancement < c2.enhancement_ci_high
+
+
+def test_a_single_well_group_takes_the_welch_df_of_its_fit_and_its_blank():
+    # one well (fit SE 0.4 mM/h on 10 df) over two blanks (their mean's SE on 1 df): the group's
+    # interval is the well's own, with the Welch-Satterthwaite df of the two errors
+    # (Welch, Biometrika 1947) and the t quantile of scipy.stats
+    blanks = [well("P1", "A1", "blank", None, 1.0, se=0.3, df=1.0), well("P1", "A2", "blank", None, 1.6, se=0.3, df=1.0)]
+    one = [well("P1", "B1", "sample", "C1", 6.0, se=0.4, df=10.0)]
+    w = frame(blanks + one)
+    b = blank_rates(w, S)
+    t = well_turnover(CATS, w, b, S)
+    g = group_rates(t, S, factor_names=("solvent",)).set_index("catalyst").loc["C1"]
+    b_se, b_df = b["blank_se_mM_per_h"].iloc[0], b["blank_df"].iloc[0]
+    df = (0.4 ** 2 + b_se ** 2) ** 2 / (0.4 ** 4 / 10.0 + b_se ** 4 / b_df)
+    assert g.tof_df == pytest.approx(df, rel=1e-9)
+    per_site = 1.0 / 0.5                                   # 1000 uL x 1e-3 / 0.5 umol of sites
+    half = stats.t.ppf(0.975, df) * np.hypot(0.4, b_se) * per_site
+    assert g.tof_ci_high - g.tof_per_h == pytest.approx(half, rel=1e-9)
+    # the group and its one well agree on whether it is active over the blank
+    assert (g.censored == "upper") == (t.loc[t.well == "B1", "censored"].iloc[0] == "upper")
 
 
 def test_a_group_not_above_its_blank_reports_an_upper_bound():

@@ -10,16 +10,20 @@ Definitions used here (all rates in mM/h, amounts in umol, TOF in h-1):
   Winefordner, Anal. Chem. 1983, 55, 712A, applied to the mean of the n blank wells that serves
   as the denominator; common practice); with one blank, 3 x its fit SE. A blank mean below its
   LOD means "background not distinguishable from zero" (flag ``blank_below_lod``).
-* **Net rate** = well rate - blank rate (same plate and temperature); SE in quadrature:
+* **Net rate** = well rate - blank rate (same plate, temperature and substrate level); SE in quadrature:
   ``sqrt(se_well^2 + se_blank^2)``. Without a blank the rate is *not* corrected (flag ``no_blank``).
 * **TOF (h-1)** = net rate x volume_uL x 1e-3 / sites_umol (mM/h x uL x 1e-3 = umol/h). It is an
   initial TOF when the well's method is an initial slope or first-order fit; for an end point it
   is an average TOF over the reaction time. ``tof_per_s`` = tof_per_h / 3600.
-* **TON** at the last reading = (last_product_mM - blank rate x last_time_h) x volume x 1e-3 /
-  sites (the blank's product at that time estimated from its rate).
+* **TON** at the last reading = (last_product_mM - background product) x volume x 1e-3 / sites.
+  The background runs on the substrate the well has left (first order in substrate, parallel to
+  the catalysed path), so its product is the blank rate x the integral of (1 - X) dt over the
+  course (``substrate_integral_h`` of the rate step); without that integral, blank rate x
+  last_time_h.
 * **Rate enhancement** E = well rate / blank rate with a CI on the log scale by the delta method,
   ``var(ln E) = (se_w/r_w)^2 + (se_b/r_b)^2``, t quantile with Welch-Satterthwaite df. When the
-  blank mean is below its LOD the LOD is the denominator: E is a lower bound (flag
+  blank mean is below its LOD the blank's upper confidence limit, max(r_b, 0) + t(df) x se_b
+  (3 x se_b without a df), is the denominator: E is a lower bound (flag
   ``enhancement_lower_bound``), the lower CI uses the well's SE only and the upper limit is +inf.
 * **Outliers**: modified z = 0.6745 |x - median| / MAD > settings.outlier_z (Iglewicz & Hoaglin,
   "How to Detect and Handle Outliers", ASQC 1993) over the replicates of a group (>= 3 wells),
@@ -41,7 +45,7 @@ from screenlab.kinetics import selectivity as _selectivity
 from screenlab.kinetics import sites as _sites
 from screenlab.kinetics.amounts import well_index
 from screenlab.settings import AnalysisSettings
-from screenlab.uncertainty import t_quantile, welch_df  # noqa: F401  (re-exported for the kinetics modules)
+from screenlab.uncertainty import t_quantile, welch_df
 
 #: flag codes set here (code -> one plain sentence); the site codes of screenlab.kinetics.sites included
 FLAGS: dict[str, str] = {
@@ -50,8 +54,8 @@ FLAGS: dict[str, str] = {
     "single_blank": "Only one blank well: its SE is the well's own fit SE and the detection limit rests on it.",
     "blank_below_lod": "The blank rate is below its detection limit (3 x SE of the blank mean): background not "
                        "distinguishable from zero.",
-    "enhancement_lower_bound": "The blank is below its detection limit, so the enhancement uses the detection limit "
-                               "as denominator and is a lower bound.",
+    "enhancement_lower_bound": "The blank is below its detection limit, so the enhancement uses the blank's upper "
+                               "confidence limit as denominator and is a lower bound.",
     "below_blank": "The well's rate is not above its blank (net rate <= 0).",
     "no_sites": "The active-site count is unknown, so TOF and TON are not given.",
     "outlier": "This replicate lies further from its group's median than the outlier limit allows (robust z "
@@ -68,17 +72,13 @@ FLAGS: dict[str, str] = {
     "blank_outlier_excluded": "A blank well that is a replicate outlier of its level was left out of the blank mean.",
     "blank_left_out": "Blank wells on the outer ring of a plate with an edge effect were left out of the blank mean "
                       "(the ring reads differently from the interior).",
-    "ton_capped": "The well (group: most wells) reached full conversion, so its TON is the substrate / site "
-                  "ratio: a lower bound of what the catalyst can turn over.",
+    "ton_capped": "The well (group: most wells) reached full conversion, so its TON is limited by the substrate / "
+                  "site ratio: a lower bound of what the catalyst can turn over.",
     "censored_replicate": "Some replicates (fewer than half) were done before their first reading; they are left "
                           "out of the group's estimate, which rests on the others.",
     **_sites.FLAGS,
     **_selectivity.FLAGS,
 }
-
-#: extra columns of the per-well turnover frame beyond the contract
-TURNOVER_EXTRA = ("site_basis", "blank_lod_mM_per_h", "blank_df", "tof_per_s", "ln_enhancement_se",
-                  "enhancement_df", "censored", "tof_bound_per_h", "tof_max_per_h")
 
 # columns that are never factor columns (used when factor names are not given)
 _KNOWN = {
@@ -105,7 +105,7 @@ def _tkey(t) -> np.ndarray:
     return np.round(np.asarray(t, dtype=float), 6)
 
 
-#: last conversion at or above which a well counts as fully converted: its TON is then capped by
+#: last conversion at or above which a well counts as fully converted: its TON is then limited by
 #: the substrate / site ratio (flag ton_capped; common practice, no source)
 TON_FULL_CONVERSION_PCT = 95.0
 
@@ -115,11 +115,6 @@ def _text(frame: pd.DataFrame, col: str) -> np.ndarray:
     if col not in frame.columns:
         return np.full(len(frame), "", dtype=object)
     return frame[col].astype("string").fillna("").to_numpy(dtype=object)
-
-
-def _product_per_substrate(data) -> float:
-    manifest = getattr(data, "manifest", None)
-    return float(getattr(manifest, "product_per_substrate", 1.0) or 1.0)
 
 
 def _f(frame: pd.DataFrame, col: str) -> np.ndarray:
@@ -406,7 +401,7 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     sites = np.where(catalysed, site_umol, np.nan)
     tkey = _tkey(_f(wells, "temperature_c"))
     bl = _well_blanks(wells, blanks, tkey)
-    w = _net_rates(data, wells, bl, catalysed, sites, settings)
+    w = _net_rates(wells, bl, catalysed, sites, settings)
     e = _enhancements(w, bl, catalysed, settings)
 
     # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
@@ -414,7 +409,7 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     known = {"temperature_c": grp.codes(tkey), "role": roles.key, **{c: grp.with_missing(*v) for c, v in parts.items()}}
     replicates = np.where(catalysed, grp.group_index([known[k] if k in known else wells[k] for k in keys]), -1)
     outlier, metric = _replicate_outliers(w, sites, catalysed, replicates, np.where(is_blank, bl["pt_code"], -1),
-                                          settings)
+                                          settings, excluded_blanks)
 
     flag_words, flag_codes = _well_flags(wells, catalysed, is_blank, sites, (site_words, site_codes), bl, w, e,
                                          outlier, metric, excluded_blanks)
@@ -503,7 +498,7 @@ def _well_blanks(wells: pd.DataFrame, blanks: pd.DataFrame, tkey: np.ndarray) ->
             "detected": from_blank("blank_detected", False).astype(bool)}
 
 
-def _net_rates(data, wells: pd.DataFrame, bl: dict, catalysed: np.ndarray, sites: np.ndarray,
+def _net_rates(wells: pd.DataFrame, bl: dict, catalysed: np.ndarray, sites: np.ndarray,
                settings: AnalysisSettings) -> dict[str, np.ndarray]:
     """Per well: the rate columns used below (``rate``, ``se_w``, ``df_w``, ``lower_w``: done
     before its first reading), the net rate over its blank and its SE, TOF, TON (``ton_capped`` at
@@ -513,8 +508,6 @@ def _net_rates(data, wells: pd.DataFrame, bl: dict, catalysed: np.ndarray, sites
     se_w = _f(wells, "rate_se_mM_per_h")
     df_w = _f(wells, "rate_df")
     vol = _f(wells, "volume_uL")
-    conc = _f(wells, "substrate_conc_mM")
-    per_substrate = _product_per_substrate(data)
     lower_w = _text(wells, "censored") == "lower"
     has_blank = bl["has_blank"]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -524,12 +517,11 @@ def _net_rates(data, wells: pd.DataFrame, bl: dict, catalysed: np.ndarray, sites
         net_se = np.where(catalysed & ~lower_w, np.sqrt(se_w ** 2 + b_se_c ** 2), np.nan)
         amount_per_mM = units.amount_umol(1.0, vol)          # umol per mM in this well
         # TON: the background in a catalysed well runs on the substrate that well had left
-        # (parallel pathways, the background first order in substrate): its product is the
-        # blank's pseudo-first-order constant r_b / S0 times S0 x integral of (1 - X) dt
+        # (parallel pathways, the background first order in substrate): its product rate is the
+        # blank's r_b x (1 - X), so its product is r_b x integral of (1 - X) dt. r_b is already a
+        # product rate (mM of product per h), so product_per_substrate does not enter again.
         s_int = _f(wells, "substrate_integral_h")
-        k_b = b_rate_c / conc
-        blank_product = np.where(np.isfinite(s_int), k_b * conc * s_int * per_substrate,
-                                 b_rate_c * _f(wells, "last_time_h"))
+        blank_product = np.where(np.isfinite(s_int), b_rate_c * s_int, b_rate_c * _f(wells, "last_time_h"))
         # not distinguishable from the blank: the net rate's interval reaches zero
         q_w = t_quantile(settings.confidence, np.where(catalysed & np.isfinite(net_se), welch_df(
             se_w ** 2, df_w, b_se_c ** 2, bl["df"]), np.nan))
@@ -577,18 +569,24 @@ def _enhancements(w: dict, bl: dict, catalysed: np.ndarray, settings: AnalysisSe
 
 
 def _replicate_outliers(w: dict, sites: np.ndarray, catalysed: np.ndarray, replicates: np.ndarray,
-                        blank_groups: np.ndarray, settings: AnalysisSettings) -> tuple[np.ndarray, np.ndarray]:
+                        blank_groups: np.ndarray, settings: AnalysisSettings,
+                        excluded_blanks=None) -> tuple[np.ndarray, np.ndarray]:
     """Outliers among replicates (robust z above ``settings.outlier_z``): catalysed wells within
     their condition (``replicates``) on TOF, else rate; blanks within their plate x temperature x
-    level (``blank_groups``) on rate; -1 takes no part. Returns the outlier mask and the metric judged."""
+    level (``blank_groups``) on rate, among the blanks the blank mean uses (``excluded_blanks``,
+    the blanks left out on purpose, take no part: so a blank is flagged ``outlier`` exactly when
+    :func:`blank_rates` leaves it out as one); -1 takes no part. Returns the outlier mask and the
+    metric judged."""
     metric = np.where(np.isfinite(w["tof"]), w["tof"], w["rate"])
     # each well's own measurement error (the shared blank's error is common to its replicates);
     # bounds (wells done before their first reading) are not measurements and take no part
     with np.errstate(invalid="ignore", divide="ignore"):
         own_se = np.where(np.isfinite(w["tof"]), w["se_w"] * w["amount_per_mM"] / sites, w["se_w"])
     metric = np.where(w["lower_w"], np.nan, metric)
-    z = np.where(catalysed, _robust_z(metric, replicates, own_se),
-                 _robust_z(np.where(w["lower_w"], np.nan, w["rate"]), blank_groups, w["se_w"]))
+    blank_rate = np.where(w["lower_w"], np.nan, w["rate"])
+    if excluded_blanks is not None:
+        blank_rate = np.where(np.asarray(excluded_blanks, dtype=bool), np.nan, blank_rate)
+    z = np.where(catalysed, _robust_z(metric, replicates, own_se), _robust_z(blank_rate, blank_groups, w["se_w"]))
     return ~np.isnan(z) & (z > float(settings.outlier_z)), metric   # z = inf: a dead well among active ones
 
 
@@ -820,7 +818,9 @@ def _group_summaries(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray
     n = count(~np.isnan(stat["tof"])).astype(float)
     outlier = (turnover["outlier"].to_numpy(dtype=bool)[rows] if "outlier" in turnover
                else np.zeros(len(rows), bool))
-    lb = count(has("enhancement_lower_bound")) > 0
+    # a lower-bound enhancement among the wells the statistics use (a left-out well, NaN in stat,
+    # does not make the group's enhancement a bound)
+    lb = count(has("enhancement_lower_bound") & ~np.isnan(stat["rate"])) > 0
     bdf = np.fmin.reduceat(_f(turnover, "blank_df")[rows][order], starts)   # min, missing values skipped
     n_plates, plates = grp.joined_distinct(sorted_codes, n_groups, turnover["plate"].iloc[rows[order]])
     k = n_plates.astype(float)
@@ -908,8 +908,8 @@ def _well_statistics(turnover: pd.DataFrame, rows: np.ndarray, lb_flag: np.ndarr
 def _tof_intervals(mean: dict, sdev: dict, n: np.ndarray, k: np.ndarray, bdf: np.ndarray, tof_se1: np.ndarray,
                    rate_df1: np.ndarray, settings: AnalysisSettings) -> dict[str, np.ndarray]:
     """Per group: the mean TOF (``mean``), its SE, df, t quantile ``q`` and CI (``lo``, ``hi``)
-    from ``n`` wells on ``k`` plates (see :func:`group_rates`); a single well keeps its own SE
-    and fit df."""
+    from ``n`` wells on ``k`` plates (see :func:`group_rates`); a single well keeps its own SE,
+    with the Welch-Satterthwaite df of its fit error and its blank's."""
     sd = sdev["tof"]
     b2 = np.nan_to_num(mean["b_tof2"], nan=0.0)
     fit2 = np.nan_to_num(mean["fit_se2"], nan=0.0)
@@ -919,7 +919,10 @@ def _tof_intervals(mean: dict, sdev: dict, n: np.ndarray, k: np.ndarray, bdf: np
         v_rep = np.where(n >= 2, np.maximum(sd ** 2, np.maximum(fit2, 0.0)) / n, np.nan)
         v_blank = np.where(n >= 2, b2 / k, 0.0)
         se = np.where(n >= 2, np.sqrt(v_rep + v_blank), np.where(n == 1, tof_se1, np.nan))
-        df = np.where(n >= 2, welch_df(v_rep, n - 1, v_blank, bdf), np.where(n == 1, rate_df1, np.nan))
+        # a single well: its own SE holds its fit error and its blank's in quadrature, so its df is
+        # their Welch-Satterthwaite df, as the per-well interval has it (not the fit's df alone)
+        df = np.where(n >= 2, welch_df(v_rep, n - 1, v_blank, bdf),
+                      np.where(n == 1, welch_df(np.maximum(fit2, 0.0), rate_df1, b2, bdf), np.nan))
         q = t_quantile(settings.confidence, df)
         tof_mean = mean["tof"]
         return {"mean": tof_mean, "se": se, "df": df, "q": q, "lo": tof_mean - q * se, "hi": tof_mean + q * se}
