@@ -128,6 +128,29 @@ def test_enhancement_interval_kept_exactly(fake_kin):
     assert t.loc["K1", "ci_low"] == pytest.approx(200 / 1.1) and t.loc["K1", "ci_high"] == pytest.approx(220.0)
 
 
+def test_enhancement_and_ton_draws_follow_the_rates_table_not_the_ranking_confidence(small_synthetic):
+    # the draws' scale is the rates table's SE of ln(enhancement) with its Welch df, whatever
+    # confidence the ranking reports its intervals at; TON's df is the replicates' n - 1
+    from screenlab.pipeline import analyse
+
+    kin = analyse(small_synthetic).kinetics
+    r = kin.rates[kin.rates["is_standard"] & (np.abs(kin.rates["temperature_c"] - 60.0) < 0.05)]
+    r = r.sort_values("n_wells", ascending=False).drop_duplicates("catalyst").set_index("catalyst")
+    tabs = {c: candidate_table(kin, metric="enhancement", confidence=c).set_index("catalyst") for c in (0.8, 0.95)}
+    e = tabs[0.95].loc[r.index]
+    ok = np.isfinite(r["enhancement_ln_se"]).to_numpy() & (e["reason"] == "").to_numpy()
+    assert ok.sum() >= 10
+    np.testing.assert_array_equal(tabs[0.8].loc[r.index, "sigma"], e["sigma"])
+    np.testing.assert_allclose(e["sigma"][ok], r["enhancement_ln_se"][ok], rtol=1e-12)
+    np.testing.assert_allclose(e["df"][ok], r["enhancement_df"][ok], rtol=1e-12)
+    q80 = stats.t.ppf(0.9, r["enhancement_df"][ok])               # scipy.stats quantile at the asked confidence
+    np.testing.assert_allclose(tabs[0.8].loc[r.index, "ci_high"][ok],
+                               r["enhancement"][ok] * np.exp(q80 * r["enhancement_ln_se"][ok]), rtol=1e-9)
+    ton = candidate_table(kin, metric="ton").set_index("catalyst").loc[r.index]
+    np.testing.assert_array_equal(ton["df"].to_numpy(float), r["ton_df"].to_numpy(float))
+    assert (ton["df"].dropna() == r["n_wells"][ton["df"].notna()] - 1).all()
+
+
 def test_censored_bounds_keep_one_side(fake_kin):
     kin = fake_kin([1500.0, 0.4], [np.nan, np.nan])
     kin = dataclasses.replace(kin, rates=kin.rates.assign(censored=["lower", "upper"]))
@@ -162,6 +185,23 @@ def test_reasons_say_what_is_missing(fake_kin):
     e = candidate_table(kin, metric="ea").set_index("catalyst")["reason"]
     assert e["K0"] == "measured at one temperature only: no Ea"
     assert e["K1"] == "no activity over the blank at any temperature"
+
+
+def test_reasons_name_temperatures_left_out_for_a_cause_other_than_inactivity(fake_kin):
+    # K0 faster than the first reading at all four temperatures; K1 fitted at two of four (the other
+    # two too fast): neither is "inactive", and the reason says how many were fitted and why not the rest
+    kin = fake_kin([30.0, 20.0], [3.0, 2.0], t=[40.0, 40.0])
+    kin = dataclasses.replace(kin, rates=pd.concat([kin.rates.assign(temperature_c=t) for t in (40.0, 50.0, 60.0, 70.0)],
+                                                   ignore_index=True))
+    fast = "faster than the first reading allows (a lower bound)"
+    arr = pd.DataFrame({"catalyst": ["K0", "K1"], "role": "sample", "n_temperatures": [0, 2],
+                        "t_min_c": [np.nan, 40.0], "t_max_c": [np.nan, 50.0], "ea_kj_mol": [np.nan, 55.0],
+                        "ea_se": np.nan, "fit_df": [np.nan, 0.0], "flags": ["left_out_bound", "two_temperatures;left_out_bound"],
+                        "left_out": ["; ".join(f"{t} C: {fast}" for t in (40, 50, 60, 70)), f"60 C: {fast}; 70 C: {fast}"]})
+    e = candidate_table(dataclasses.replace(kin, arrhenius=arr), metric="ea").set_index("catalyst")["reason"]
+    assert e["K0"].startswith("no temperature usable for a fit (left out: 40 C: faster") and e["K0"].endswith(": no Ea")
+    assert e["K1"].startswith("fitted at two of 4 temperatures (left out: 60 C: faster")
+    assert not any("no activity" in x or "measured at two temperatures only" in x for x in e)
 
 
 def test_unrankable_reasons_in_their_order(fake_kin):

@@ -237,3 +237,20 @@ def test_front_share_tied_draws(m):
     np.testing.assert_allclose(front_share(params, 50, seed=0), _plain_front_share(params, 50, 0),
                                rtol=0, atol=1e-12)
     np.testing.assert_allclose(front_share(params, 50, seed=0), 1.0, rtol=0, atol=1e-12)
+
+
+def test_front_share_folds_an_ee_by_magnitude_as_the_ranking_does():
+    # A: ee 0 +/- 0.3 (either enantiomer), TOF 1.0 +/- 0.05; B: ee 0.2 +/- 0.02, TOF 1.2 +/- 0.05.
+    # B dominates A when |ee_A| <= |ee_B| and TOF_A <= TOF_B: closed form from scipy.stats.norm
+    # (|ee_B| ~ 0.2 exactly enough; the two TOFs independent normals)
+    from scipy import stats
+
+    params = [(np.array([0.0, 0.2]), np.array([0.3, 0.02]), np.array([np.inf, np.inf]), 1.0),
+              (np.array([1.0, 1.2]), np.array([0.05, 0.05]), np.array([np.inf, np.inf]))]
+    draws = 40_000
+    p = front_share(params, draws, seed=5)
+    p_dom = (2 * stats.norm.cdf(0.2 / 0.3) - 1) * stats.norm.cdf(0.2 / (0.05 * np.sqrt(2)))
+    se = np.sqrt(p_dom * (1 - p_dom) / draws)
+    assert abs(p[0] - (1 - p_dom)) < 4 * se + 0.002
+    p_dom_b = (2 - 2 * stats.norm.cdf(0.2 / 0.3)) * stats.norm.sf(0.2 / (0.05 * np.sqrt(2)))   # A dominates B
+    assert abs(p[1] - (1 - p_dom_b)) < 4 * np.sqrt(p_dom_b / draws) + 1e-4

@@ -114,3 +114,16 @@ def test_desc_int32_orders_like_the_negated_floats():
     keys = S.desc_int32(x)
     np.testing.assert_array_equal(np.argsort(keys, kind="stable"), np.argsort(-x, kind="stable"))
     assert keys[x.size - 6] == keys[x.size - 5]           # signed zeros equal
+
+
+@pytest.mark.parametrize("df", [3.0, 300.0, 3000.0, 9000.0])
+def test_draw_matrix_t_is_baileys_formula_in_double_precision(df):
+    # the same uniforms through T = cos(2 pi U2) sqrt(df (U1^(-2/df) - 1)) in float64 (Bailey 1994):
+    # float32 draws agree to float32 precision at every df, the large ones included
+    d, k = 2000, 3
+    got = S.draw_matrix(np.zeros(k), np.ones(k), np.full(k, df), d, np.random.default_rng(11))
+    rng = np.random.default_rng(11)
+    u1 = 1.0 - rng.random((d, k), dtype=np.float32).astype(np.float64)
+    u2 = rng.random((d, k), dtype=np.float32).astype(np.float64)
+    ref = np.cos(2 * np.pi * u2) * np.sqrt(df * np.expm1(-2.0 / df * np.log(u1)))
+    np.testing.assert_allclose(got, ref, atol=2e-5 * max(1.0, np.abs(ref).max()), rtol=2e-5)

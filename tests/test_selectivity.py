@@ -172,6 +172,18 @@ def test_summarise_groups_t_interval_against_scipy():
     assert np.isnan(g["ee_pct"]).all()
 
 
+def test_percent_intervals_stay_within_the_range_of_the_quantity():
+    # near-complete selectivity and ee: the t interval is cut at 100 % (and ee at -100 %), the
+    # estimate and SE are left as they are (common practice, no source)
+    rows = pd.DataFrame({"selectivity_pct": [99.9, 99.95, 99.7, 0.1], "selectivity_se": [0.2, 0.2, 0.2, 0.3],
+                         "selectivity_df": 6, "ee_pct": [-99.8, -99.9, -99.5, 20.0], "ee_se": 0.3, "ee_df": 6,
+                         "flags": ""})
+    g = summarise_groups(rows, np.array([0, 0, 0, 1]), 2, 0.95)
+    assert g["selectivity_ci_high"][0] == 100.0 and g["selectivity_ci_low"][0] < g["selectivity_pct"][0]
+    assert g["selectivity_ci_low"][1] == 0.0 and g["ee_ci_low"][0] == -100.0
+    assert g["selectivity_pct"][0] == pytest.approx(np.mean([99.9, 99.95, 99.7]))
+
+
 # --------------------------------------------------------------------------- recovery and coverage
 
 def test_known_selectivity_and_ee_recovered_through_analyse_kinetics():
@@ -515,8 +527,10 @@ def _summarise_groups_by_hand(rows, codes, n_groups, confidence=0.95):
                 df = min(welch([(v_exp, n - 1.0), (v_blank, np.inf)]), dfsum)
                 df = n - 1.0 if not np.isfinite(df) else max(df, n - 1.0)
             q = stats.t.ppf(0.5 + confidence / 2.0, df) if np.isfinite(df) and df > 0 else np.nan
-            for name, value in (("pct", mean), ("se", se), ("df", df), ("ci_low", mean - q * se),
-                                ("ci_high", mean + q * se)):
+            # the interval within the quantity's range: selectivity 0..100 %, ee -100..100 %
+            low_end = 0.0 if key == "selectivity" else -100.0
+            for name, value in (("pct", mean), ("se", se), ("df", df), ("ci_low", max(mean - q * se, low_end)),
+                                ("ci_high", min(mean + q * se, 100.0))):
                 table[f"{key}_{name}"][g] = value
     group_flags = []
     for g in range(n_groups):

@@ -386,6 +386,15 @@ def test_a_single_well_group_takes_the_welch_df_of_its_fit_and_its_blank():
     assert (g.censored == "upper") == (t.loc[t.well == "B1", "censored"].iloc[0] == "upper")
 
 
+def test_a_computed_substrate_level_is_one_condition_with_its_blank():
+    # 100 mM written as 100.0 and as a computed 100.0000000001: one blank level (9 significant
+    # digits), so one condition too
+    blanks = [well("P1", f"A{i}", "blank", None, 0.1, se=0.01) for i in range(3)]
+    reps = [well("P1", "B1", "sample", "C1", 20.0, se=0.5), well("P1", "B2", "sample", "C1", 22.0, se=0.5, conc=100.0 + 1e-10)]
+    g = _group(blanks + reps)
+    assert len(g.loc[["C1"]]) == 1 and g.loc["C1", "n_wells"] == 2
+
+
 def test_a_group_not_above_its_blank_reports_an_upper_bound():
     blanks = [well("P1", f"A{i}", "blank", None, r, se=0.05) for i, r in enumerate([1.0, 1.1, 0.9])]
     dead = [well("P1", f"B{i}", "sample", "C1", r, se=0.05) for i, r in enumerate([1.05, 0.95, 1.1])]
@@ -518,6 +527,26 @@ def test_group_rates_statistics_equal_a_pandas_aggregation(turnover_stages):
     assert measured.mean() > 0.8
     for a, b in (("rate_mM_per_h", "rate"), ("rate_sd_mM_per_h", "rate_sd"), ("tof_per_h", "tof"), ("ton", "ton")):
         np.testing.assert_array_equal(got[a].to_numpy()[measured], ref[b].to_numpy()[measured], err_msg=a)
+
+
+def test_rates_table_states_the_ton_df_and_the_enhancement_log_se_behind_its_interval(turnover_stages):
+    # ton_df: the TON SE is the replicates' SD / sqrt(n), so n - 1 (pandas count of the wells' TONs);
+    # enhancement: its interval is exp(ln E -/+ t(conf, df) x ln_se), the t quantile of scipy.stats
+    d, s, _, _, w, got = turnover_stages
+    t = w[w["role"].isin(["sample", "reference"]) & w["rate_mM_per_h"].notna()].copy()
+    t["temperature_c"] = np.round(t["temperature_c"].to_numpy(float), 6)
+    t.loc[has_flag(t["flags"], "failed_well"), "ton"] = np.nan
+    keys = ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", *d.factor_names]
+    n_ton = t.groupby(keys, dropna=False, sort=False)["ton"].count().reset_index()
+    merged = got.merge(n_ton, on=keys, how="left", suffixes=("", "_n"))
+    expect = np.where(merged["ton_n"] >= 2, merged["ton_n"] - 1.0, np.nan)
+    np.testing.assert_array_equal(got["ton_df"].to_numpy(float), expect)
+    ok = np.isfinite(got["enhancement_ln_se"]) & np.isfinite(got["enhancement_ci_high"])
+    assert ok.mean() > 0.5 and (got.loc[ok, "enhancement_df"] > 0).all()
+    q = stats.t.ppf(0.5 + s.confidence / 2, got.loc[ok, "enhancement_df"])
+    ln_e, se = np.log(got.loc[ok, "enhancement"]), got.loc[ok, "enhancement_ln_se"]
+    np.testing.assert_allclose(got.loc[ok, "enhancement_ci_low"], np.exp(ln_e - q * se), rtol=1e-9)
+    np.testing.assert_allclose(got.loc[ok, "enhancement_ci_high"], np.exp(ln_e + q * se), rtol=1e-9)
 
 
 def test_well_flags_follow_the_output_columns(turnover_stages):

@@ -486,8 +486,11 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
         out[f"{key}_pct"] = mean
         out[f"{key}_se"] = se
         out[f"{key}_df"] = df
-        out[f"{key}_ci_low"] = mean - q * se
-        out[f"{key}_ci_high"] = mean + q * se
+        # a percentage interval stays within the quantity's range (selectivity 0..100 %, ee -100..100 %;
+        # common practice, no source)
+        lo_end = 0.0 if key == "selectivity" else -100.0
+        out[f"{key}_ci_low"] = np.maximum(mean - q * se, lo_end)
+        out[f"{key}_ci_high"] = np.minimum(mean + q * se, 100.0)
         any_value |= ok
     # group flags: carried by at least half of the wells that have a selectivity or an ee
     c_any = codes[any_value].astype(np.int64)

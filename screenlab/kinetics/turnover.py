@@ -406,7 +406,8 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
 
     # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
     keys = _group_keys(wells, factor_names)
-    known = {"temperature_c": grp.codes(tkey), "role": roles.key, **{c: grp.with_missing(*v) for c, v in parts.items()}}
+    known = {"temperature_c": grp.codes(tkey), "role": roles.key, **{c: grp.with_missing(*v) for c, v in parts.items()},
+             "substrate_conc_mM": grp.codes(_ckey(_f(wells, "substrate_conc_mM")))}
     replicates = np.where(catalysed, grp.group_index([known[k] if k in known else wells[k] for k in keys]), -1)
     outlier, metric = _replicate_outliers(w, sites, catalysed, replicates, np.where(is_blank, bl["pt_code"], -1),
                                           settings, excluded_blanks)
@@ -686,8 +687,10 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
         return pd.DataFrame(columns=[*keys, *_RATES_COLUMNS])
     fi = FlagIndex(turnover["flags"])                # the flag column parsed once per distinct string
     tkey = _tkey(turnover["temperature_c"])
-    col_codes = {k: grp.codes(tkey) if k == "temperature_c" else roles.key if k == "role" else grp.codes(turnover[k])
-                 for k in keys}
+    # temperatures and substrate levels keyed as the blanks match them (1e-6 degC; 9 significant digits)
+    special = {"temperature_c": lambda: grp.codes(tkey), "role": lambda: roles.key,
+               "substrate_conc_mM": lambda: grp.codes(_ckey(_f(turnover, "substrate_conc_mM")))}
+    col_codes = {k: special[k]() if k in special else grp.codes(turnover[k]) for k in keys}
     gcode = grp.group_index([col_codes[k] for k in keys], rows)   # = groupby(keys, dropna=False, sort=False).ngroup()
     n_groups = int(gcode.max()) + 1
     cw = _censored_wells(turnover, rows, gcode, n_groups, fi.has("failed_well")[rows])
@@ -721,7 +724,7 @@ _RATES_COLUMNS = ("n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "
                   "tof_df", "tof_ci_low", "tof_ci_high", "ton", "ton_se", "enhancement", "enhancement_ci_low",
                   "enhancement_ci_high", "is_standard", "plates", "flags", "tof_per_s", "n_plates", "n_outliers",
                   "rate_se_mM_per_h", *_selectivity.GROUP_COLUMNS, "censored", "rate_law", "tof_max_per_h",
-                  "tof_rep_se_per_h")
+                  "tof_rep_se_per_h", "ton_df", "enhancement_ln_se", "enhancement_df")
 
 
 def _rates_table(turnover: pd.DataFrame, keys: list[str], factors, tkey: np.ndarray, s: dict, c: dict,
@@ -763,6 +766,10 @@ def _rates_table(turnover: pd.DataFrame, keys: list[str], factors, tkey: np.ndar
         "rate_law": more["rate_law"].astype(object),
         "tof_max_per_h": s["mean"]["tof_max"],
         "tof_rep_se_per_h": c["se"],
+        "ton_df": s["ton_df"],
+        # a two-sided interval's SE: none for a lower bound (upper limit inf)
+        "enhancement_ln_se": np.where(np.isfinite(e["lo"]) & np.isfinite(c["e_hi"]), e["ln_se"], np.nan),
+        "enhancement_df": np.where(np.isfinite(e["lo"]) & np.isfinite(c["e_hi"]), e["df"], np.nan),
     }
     new = {col: v[by] for col, v in new.items()}
     new["flags"] = _sites.text_array(flag_words, new["flags"])
@@ -827,6 +834,7 @@ def _group_summaries(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray
     with np.errstate(invalid="ignore", divide="ignore"):
         nt = count(~np.isnan(stat["ton"])).astype(float)
         ton_se = np.where(nt >= 2, sdev["ton"] / np.sqrt(nt), np.nan)
+        ton_df = np.where(nt >= 2, nt - 1.0, np.nan)          # the SE is the replicates' SD / sqrt(n)
         rate_se = np.where(n_wells >= 2, sdev["rate"] / np.sqrt(n_wells.astype(float)), np.nan)
     return {
         "mean": mean, "sdev": sdev, "n_wells": n_wells, "n": n, "n_out": count(outlier),
@@ -835,8 +843,8 @@ def _group_summaries(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray
         "n_plates": n_plates, "plates": plates, "first_pos": order[starts], "first_row": rows[order[starts]],
         "tof": _tof_intervals(mean, sdev, n, k, bdf, first("tof_se1"), first("rate_df1"), settings),
         "enh": _enhancement_intervals(mean, sdev, count(~np.isnan(stat["ln_e"])).astype(float), k, bdf, lb,
-                                      first("e_lo1"), first("e_hi1"), settings),
-        "ton_se": ton_se, "rate_se": rate_se,
+                                      first("e_lo1"), first("e_hi1"), first("ln_se1"), first("e_df1"), settings),
+        "ton_se": ton_se, "ton_df": ton_df, "rate_se": rate_se,
     }
 
 
@@ -871,7 +879,7 @@ def _well_statistics(turnover: pd.DataFrame, rows: np.ndarray, lb_flag: np.ndarr
     """The per-well values the group statistics reduce, for the wells ``rows`` (NaN where ``skip``):
     rate, TOF, TON, ln enhancement, the blank's share of the TOF variance (``b_tof2``) and of the
     relative enhancement variance (``rel_b``), the fit's own TOF variance (``fit_se2``), ``tof_max``,
-    and the single-well values (``tof_se1, rate_df1, e_lo1, e_hi1``)."""
+    and the single-well values (``tof_se1, rate_df1, e_lo1, e_hi1, ln_se1, e_df1``)."""
     def col(name):
         return _f(turnover, name)[rows]
 
@@ -899,6 +907,8 @@ def _well_statistics(turnover: pd.DataFrame, rows: np.ndarray, lb_flag: np.ndarr
         "rate_df1": col("rate_df"),
         "e_lo1": e_lo1,
         "e_hi1": col("enhancement_ci_high"),
+        "ln_se1": col("ln_enhancement_se"),
+        "e_df1": col("enhancement_df"),
     }
     for v in stat.values():
         v[skip] = np.nan
@@ -929,21 +939,24 @@ def _tof_intervals(mean: dict, sdev: dict, n: np.ndarray, k: np.ndarray, bdf: np
 
 
 def _enhancement_intervals(mean: dict, sdev: dict, ne: np.ndarray, k: np.ndarray, bdf: np.ndarray,
-                           lb: np.ndarray, e_lo_1: np.ndarray, e_hi_1: np.ndarray,
-                           settings: AnalysisSettings) -> dict[str, np.ndarray]:
+                           lb: np.ndarray, e_lo_1: np.ndarray, e_hi_1: np.ndarray, ln_se_1: np.ndarray,
+                           df_1: np.ndarray, settings: AnalysisSettings) -> dict[str, np.ndarray]:
     """Per group: the geometric-mean enhancement of ``ne`` wells on ``k`` plates and its CI on the
-    log scale (``mean``, ``lo``, ``hi``; upper limit +inf for a lower bound ``lb``); a single well
-    keeps its own CI."""
+    log scale (``mean``, ``lo``, ``hi``; upper limit +inf for a lower bound ``lb``) with the SE of
+    its logarithm and that SE's Welch-Satterthwaite df (``ln_se``, ``df``: what a CI at another
+    confidence, or the ranking's draws, need); a single well keeps its own CI, SE and df."""
     with np.errstate(invalid="ignore", divide="ignore"):
         lnm = mean["ln_e"]
         v_ln = np.where(ne >= 2, sdev["ln_e"] ** 2 / ne, np.nan)
         v_lb = np.where(ne >= 2, np.nan_to_num(mean["rel_b"], nan=0.0) / k, 0.0)
-        qe = t_quantile(settings.confidence, np.where(ne >= 2, welch_df(v_ln, ne - 1, v_lb, bdf), np.nan))
+        df = np.where(ne >= 2, welch_df(v_ln, ne - 1, v_lb, bdf), np.where(ne == 1, df_1, np.nan))
+        ln_se = np.where(ne >= 2, np.sqrt(v_ln + v_lb), np.where(ne == 1, ln_se_1, np.nan))
+        qe = t_quantile(settings.confidence, np.where(ne >= 2, df, np.nan))
         e_mean = np.where(ne >= 1, np.exp(lnm), np.nan)
         e_lo = np.where(ne >= 2, np.exp(lnm - qe * np.sqrt(v_ln + v_lb)), np.where(ne == 1, e_lo_1, np.nan))
         e_hi = np.where(ne >= 2, np.where(lb, np.inf, np.exp(lnm + qe * np.sqrt(v_ln + v_lb))),
                         np.where(ne == 1, e_hi_1, np.nan))
-    return {"mean": e_mean, "lo": e_lo, "hi": e_hi}
+    return {"mean": e_mean, "lo": e_lo, "hi": e_hi, "ln_se": ln_se, "df": df}
 
 
 def _censor_groups(t: dict, e: dict, n: np.ndarray, nb: np.ndarray, grp_lower: np.ndarray) -> dict[str, np.ndarray]:

@@ -30,12 +30,13 @@ transport-controlled) get a reason unless ``include_transport_limited``.
 
 How to add a metric: add a :class:`Metric` to :data:`METRICS` naming its
 source frame (``rates`` for per-temperature group rows, ``arrhenius`` for per-catalyst fits), the
-estimate column, its SE column (or its CI columns, from which the SE is backed out), the df
+estimate column, its SE column (a log-normal metric may give the SE of its logarithm, ``ln_se``, or
+its CI columns, from which that SE is backed out; a t-distributed metric needs ``se``), the df
 column, the direction and whether it is log-normal, and its line in :data:`DIRECTION`. For example
-a selectivity in percent from the rates table would be ``Metric("selectivity", "selectivity", "%",
-"selectivity_pct", "rates", "selectivity_pct", se="selectivity_se_pct", df="tof_df",
-higher_is_better=True, lognormal=False)``; then test its direction and its rank probabilities
-against a closed form.
+a conversion in percent from the rates table, were it a column there with its SE and df, would be
+``Metric("conversion", "conversion", "%", "conversion_pct", "rates", "conversion_pct",
+se="conversion_se", df="conversion_df", higher_is_better=True, lognormal=False)``; then test its
+direction and its rank probabilities against a closed form.
 """
 from __future__ import annotations
 
@@ -51,7 +52,7 @@ from screenlab.uncertainty import t_quantile
 #: Flag codes set by the candidate tables (code -> one plain sentence).
 FLAGS: dict[str, str] = {
     "predicted_from_arrhenius": "Not measured at the ranking temperature: the TOF is the catalyst's Arrhenius "
-                                "prediction there, with its prediction interval.",
+                                "prediction there, with the confidence interval of the fitted line.",
     "extrapolated": "The ranking temperature lies outside the temperatures this catalyst was measured at.",
     "on_failed_plate": "Some of this catalyst's wells sit on a plate that failed its quality check.",
     "on_unchecked_plate": "Some of this catalyst's wells sit on a plate without a benchmark (status unchecked): its "
@@ -78,11 +79,13 @@ class Metric:
     estimate: str
     se: str | None = None          # SE on the estimate's own scale
     ci: tuple[str, str] | None = None   # interval columns to back the SE out of when se is None
+    ln_se: str | None = None       # SE of the logarithm (log-normal metrics whose interval is on the log scale)
     df: str | None = None          # degrees of freedom column (NaN / absent -> normal draws)
     higher_is_better: bool = True
     lognormal: bool = True
     predict: bool = False          # fall back to the Arrhenius prediction at unmeasured T (TOF)
     censorable: bool = False       # the rates table's ``censored`` bound applies (rate-derived metrics)
+    limits: tuple[float, float] | None = None   # the quantity's range: intervals are shown within it
 
     def ci_column(self, side: str) -> str:
         """Export name of the interval column: tof_per_h -> tof_ci_low_per_h."""
@@ -92,22 +95,25 @@ class Metric:
 METRICS: dict[str, Metric] = {
     "tof": Metric("tof", "TOF", "h-1", "tof_per_h", "rates", "tof_per_h", se="tof_se_per_h", df="tof_df",
                   higher_is_better=True, lognormal=True, predict=True, censorable=True),
-    # the rates table gives the enhancement's interval on the log scale, not its SE: backed out
-    # with the TOF's df (the enhancement's own Welch df is not stored; the interval is kept exactly)
+    # the enhancement's interval is on the log scale: the rates table's SE of ln(enhancement) and
+    # its Welch df (a table without them: the SE backed out of the interval, at the analysis's confidence)
     "enhancement": Metric("enhancement", "rate enhancement over the blank", "", "enhancement", "rates",
-                          "enhancement", ci=("enhancement_ci_low", "enhancement_ci_high"), df="tof_df",
+                          "enhancement", ci=("enhancement_ci_low", "enhancement_ci_high"),
+                          ln_se="enhancement_ln_se", df="enhancement_df",
                           higher_is_better=True, lognormal=True, censorable=True),
-    "ton": Metric("ton", "TON", "", "ton", "rates", "ton", se="ton_se", df="tof_df",
+    # TON's SE is the replicates' SD / sqrt(n): n - 1 degrees of freedom
+    "ton": Metric("ton", "TON", "", "ton", "rates", "ton", se="ton_se", df="ton_df",
                   higher_is_better=True, lognormal=True),
     "ea": Metric("ea", "apparent Ea", "kJ/mol", "ea_kj_mol", "arrhenius", "ea_kj_mol", se="ea_se", df="fit_df",
                  higher_is_better=False, lognormal=False),
     # bounded percentages near their middle range: t draws on the percent scale
     "selectivity": Metric("selectivity", "selectivity to the main product", "%", "selectivity_pct", "rates",
                           "selectivity_pct", se="selectivity_se", df="selectivity_df", higher_is_better=True,
-                          lognormal=False),
-    # signed ee: positive = the first enantiomer named in [analytes].enantiomers, taken as the wanted one
+                          lognormal=False, limits=(0.0, 100.0)),
+    # signed ee: positive = the first enantiomer named in [analytes].enantiomers; ranked by magnitude
+    # unless an enantiomer is chosen (candidate_table's ``enantiomer``)
     "ee": Metric("ee", "enantiomeric excess", "%", "ee_pct", "rates", "ee_pct", se="ee_se", df="ee_df",
-                 higher_is_better=True, lognormal=False),
+                 higher_is_better=True, lognormal=False, limits=(-100.0, 100.0)),
 }
 
 
@@ -242,12 +248,16 @@ def _count_words(n) -> str:
 
 def _fit_reasons(names: np.ndarray, arr: pd.DataFrame, measured_t: pd.Series, *, purpose: str) -> np.ndarray:
     """Why a catalyst has no usable Arrhenius result, in words: how many temperatures it was measured
-    at and how many showed activity. ``purpose`` ends the sentence ("no Ea", "no Arrhenius line to
-    predict from"). '' where the fit exists with an uncertainty. Vectorised (texts per distinct count)."""
+    at, how many the fit could use, and why the others were left out (the Arrhenius row's
+    ``left_out``: no activity over the blank, faster than the first reading, irregular courses).
+    ``purpose`` ends the sentence ("no Ea", "no Arrhenius line to predict from"). '' where the fit
+    exists with an uncertainty. Vectorised (texts per distinct count)."""
     a = arr[arr["catalyst"].astype(str) != UNCATALYSED] if len(arr) else arr
     info = pd.DataFrame({"catalyst": a["catalyst"].astype(str).to_numpy() if len(a) else [],
                          "n_fit": _num(a, "n_temperatures"), "ea": _num(a, "ea_kj_mol"), "se": _num(a, "ea_se"),
-                         "flags": a["flags"].fillna("").astype(str).to_numpy() if len(a) else []}
+                         "flags": a["flags"].fillna("").astype(str).to_numpy() if len(a) else [],
+                         "left_out": (a["left_out"].fillna("").astype(str).to_numpy() if len(a) and "left_out" in a
+                                      else np.full(len(a), "", dtype=object))}
                         ).drop_duplicates("catalyst").set_index("catalyst")
     names = np.asarray(names, dtype=object)
     idx = info.index.get_indexer(pd.Index(names.astype(str))) if len(info) else np.full(len(names), -1)
@@ -261,20 +271,31 @@ def _fit_reasons(names: np.ndarray, arr: pd.DataFrame, measured_t: pd.Series, *,
     n_fit = np.nan_to_num(col("n_fit", 0.0).astype(float)).astype(int)
     ea_ok = np.isfinite(col("ea", np.nan).astype(float))
     se_ok = np.isfinite(col("se", np.nan).astype(float))
-    inactive_some = pd.Series(col("flags", ""), dtype=object).astype(str).str.contains(
-        r"(?:^|;)no_activity(?:;|$)", regex=True).to_numpy(bool)
+    fi = grp.FlagIndex(pd.Series(col("flags", ""), dtype=object).astype(str))
+    inactive = fi.has("no_activity")
+    # left out for another cause too (faster than the first reading, irregular courses): not "inactive"
+    other_cause = fi.has("left_out_bound") | fi.has("left_out_irregular")
+    only_inactive = inactive & ~other_cause
+    left_txt = np.asarray(col("left_out", ""), dtype=object).astype(str)
     n_meas = measured_t.reindex(pd.Index(names.astype(str))).fillna(0).to_numpy(int) if len(measured_t) \
         else np.zeros(len(names), int)
+    n_meas = np.maximum(n_meas, n_fit)
     meas_txt = pd.Series(n_meas).map(
         lambda n: f"measured at {_count_words(n)} temperature{'s' if n != 1 else ''}: {purpose}" if n else
         f"no rates at its standard condition: {purpose}").to_numpy(dtype=object)
     of_txt = pd.Series(n_meas).map(lambda n: f"of {n}").to_numpy(dtype=object)
-    one = np.where(inactive_some & (n_meas > 1), "active over the blank at one " + of_txt + " temperatures",
-                   "measured at one temperature only") + f": {purpose}"
-    two = np.where(inactive_some & (n_meas > 2), "active over the blank at two " + of_txt + " temperatures",
-                   "measured at two temperatures only") + ": the Arrhenius line has no uncertainty (needs three)"
+    why = np.where(left_txt != "", " (left out: " + left_txt + ")", "")
+    some_left = n_meas > n_fit
+    none = np.where(only_inactive, "no activity over the blank at any temperature",
+                    "no temperature usable for a fit" + why + f": {purpose}")
+    one = np.where(some_left & only_inactive, "active over the blank at one " + of_txt + " temperatures",
+                   np.where(some_left, "fitted at one " + of_txt + " temperatures" + why,
+                            "measured at one temperature only")) + f": {purpose}"
+    two = np.where(some_left & only_inactive, "active over the blank at two " + of_txt + " temperatures",
+                   np.where(some_left, "fitted at two " + of_txt + " temperatures" + why,
+                            "measured at two temperatures only")) + ": the Arrhenius line has no uncertainty (needs three)"
     out = np.select([~has, n_fit == 0, (n_fit == 1) | ~ea_ok, (n_fit == 2) | ~se_ok],
-                    [meas_txt, "no activity over the blank at any temperature", one, two], default="")
+                    [meas_txt, none, one, two], default="")
     return np.asarray(out, dtype=object)
 
 
@@ -339,7 +360,7 @@ def _rates_source(kin, m: Metric, arr: pd.DataFrame, base: pd.DataFrame, at_temp
                         "hi": _num(r, m.ci[1] if m.ci else None), "df": _num(r, m.df),
                         "n": _num(r, "n_wells"), "temperature_c": _num(r, "temperature_c"),
                         "flags": r["flags"].fillna("").astype(str).to_numpy() if "flags" in r else "",
-                        "ln_se": np.nan, "basis": "measured",
+                        "ln_se": _num(r, m.ln_se), "basis": "measured",
                         "censored": _censored(r) if m.censorable else "",
                         "plates": r["plates"].to_numpy() if "plates" in r else np.nan})
     if m.predict and len(arr):
@@ -358,8 +379,9 @@ def _predicted_source(kin, missing: pd.DataFrame, at_temperature_c: float, confi
     mi = missing.reset_index(drop=True)
     out_of_range = (at_temperature_c < _num(mi, "t_min_c") - T_MATCH_C) | (
         at_temperature_c > _num(mi, "t_max_c") + T_MATCH_C)
-    flags = merge_codes(mi["flags"].fillna("").astype(str), ["predicted_from_arrhenius"] * len(mi),
-                        np.where(out_of_range, "extrapolated", ""))
+    predicted = np.isfinite(p["tof_per_h"].to_numpy(float))          # a line to predict from
+    flags = merge_codes(mi["flags"].fillna("").astype(str), np.where(predicted, "predicted_from_arrhenius", ""),
+                        np.where(predicted & out_of_range, "extrapolated", ""))
     n_w = kin.rates.assign(catalyst=kin.rates["catalyst"].astype(str))
     if "is_standard" in n_w:
         n_w = n_w[n_w["is_standard"].fillna(False).astype(bool)]
@@ -383,11 +405,12 @@ def _fit_source(m: Metric, arr: pd.DataFrame) -> pd.DataFrame:
 
 
 def _draw_parameters(t: pd.DataFrame, m: Metric, confidence: float, enantiomers, sign_ee: float,
-                     by_magnitude: bool) -> dict:
+                     by_magnitude: bool, source_confidence: float | None = None) -> dict:
     """Centre and scale of each candidate's draws and its interval on the estimate's scale.
 
     Log-normal metrics: ``mu = ln x`` and the log-scale SE (the source's, else se / x by the delta
-    method, else backed out of the interval); t metrics: the estimate and its SE. The interval is
+    method, else backed out of the interval, which the rates table made at ``source_confidence``,
+    the analysis's confidence); t metrics: the estimate and its SE. The interval is
     ``centre -/+ q scale`` with ``q`` the Student t quantile of :func:`screenlab.uncertainty.t_quantile`
     (a missing df: the normal quantile). ee: the favoured enantiomer, and by magnitude the folded
     interval (``absolute``), else the signed excess of the chosen enantiomer."""
@@ -403,7 +426,9 @@ def _draw_parameters(t: pd.DataFrame, m: Metric, confidence: float, enantiomers,
             sig = t["ln_se"].to_numpy(float)
             sig = np.where(np.isfinite(sig), sig, se / est)
             if m.ci:
-                sig = np.where(np.isfinite(sig), sig, np.log(hi_in / lo_in) / (2 * q))
+                q_src = q if source_confidence is None else t_quantile(
+                    source_confidence, np.where(np.isfinite(df), df, np.inf))
+                sig = np.where(np.isfinite(sig), sig, np.log(hi_in / lo_in) / (2 * q_src))
             ci_lo, ci_hi = np.exp(mu - q * sig), np.exp(mu + q * sig)
         else:
             mu, sig = est, se
@@ -424,6 +449,9 @@ def _draw_parameters(t: pd.DataFrame, m: Metric, confidence: float, enantiomers,
             else:
                 mu, est = sign_ee * mu, sign_ee * est
                 ci_lo, ci_hi = (ci_lo, ci_hi) if sign_ee > 0 else (-ci_hi, -ci_lo)
+    if m.limits is not None:                          # a percentage's interval within its range
+        lo_end = 0.0 if absolute.any() else m.limits[0]
+        ci_lo, ci_hi = np.clip(ci_lo, lo_end, m.limits[1]), np.clip(ci_hi, lo_end, m.limits[1])
     return {"mu": mu, "sigma": sig, "estimate": est, "ci_low": ci_lo, "ci_high": ci_hi, "favours": favours,
             "absolute": absolute, "extra_flags": extra_flags}
 
@@ -513,12 +541,20 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
     t = t.merge(_plate_info(kin, quality, used), on="catalyst", how="left")
     cens = t["censored"].fillna("").astype(str).to_numpy(dtype=object)
 
-    d = _draw_parameters(t, m, confidence, enantiomers, sign_ee, by_magnitude)
+    d = _draw_parameters(t, m, confidence, enantiomers, sign_ee, by_magnitude,
+                         source_confidence=getattr(settings, "confidence", None))
     est, sig = d["estimate"], d["sigma"]
     t["mu"], t["sigma"], t["absolute"] = d["mu"], sig, d["absolute"]
     t["estimate"] = est
     t["ci_low"] = np.where(np.isfinite(sig), d["ci_low"], np.nan)
     t["ci_high"] = np.where(np.isfinite(sig), d["ci_high"], np.nan)
+    if m.ci:
+        # an interval open above (a lower bound: the blank below its detection limit) keeps its
+        # lower limit as the rates table gives it
+        lo_in, hi_in = t["lo"].to_numpy(float), t["hi"].to_numpy(float)
+        open_above = np.isposinf(hi_in) & np.isfinite(lo_in)
+        t.loc[open_above, "ci_low"] = lo_in[open_above]
+        t.loc[open_above, "ci_high"] = np.inf
     # a bound: the open side has no value, the bound is the estimate
     lower, upper = cens == "lower", cens == "upper"
     t.loc[lower, "ci_low"] = est[lower]
@@ -532,7 +568,6 @@ def candidate_table(kin, quality=None, *, metric: str = "tof", at_temperature_c:
                                        low_ea_kj_mol=float(getattr(settings, "low_ea_kj_mol", 20.0)),
                                        include_transport_limited=include_transport_limited, lower=lower,
                                        upper=upper, no_row=no_row)
-    t.loc[no_row, ["n"]] = np.nan
     t["flags"] = merge_codes(t["flags"].fillna("").astype(str), t["plate_flags"].fillna("").astype(str),
                              np.where(t["any_failed"].fillna(False).to_numpy(bool), "on_failed_plate", ""),
                              np.where(t["any_unchecked"].fillna(False).to_numpy(bool), "on_unchecked_plate", ""),

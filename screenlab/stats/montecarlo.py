@@ -10,9 +10,10 @@ doubt for the few that can get there. :func:`adaptive_rank_summary` therefore wo
    of each bound (the ranks at the order statistics ``n q -/+ 1.96 sqrt(n q (1 - q))``, a binomial
    argument on the order statistics; any text on order statistics, e.g. David & Nagaraja, *Order
    Statistics*, 3rd ed., section 7.1, from memory) lies within :func:`rank_tolerance` of the bound:
-   one rank, or :data:`RANK_TOL_REL` of the candidate's rank-interval width when that is more.
-   The number of draws is planned from the first :data:`PILOT_DRAWS`
-   draws (the half-width shrinks as 1/sqrt(n)) and checked afterwards (``rank_bound_stable``).
+   one rank, :data:`RANK_TOL_REL` of the candidate's rank-interval width or :data:`RANK_TOL_POS`
+   of its lower rank bound, whichever is most. The number of draws is planned from the first
+   :data:`MIN_RANK_DRAWS` draws (the half-width shrinks as 1/sqrt(n)) and checked afterwards
+   (``rank_bound_stable``; ``rank_bound_stable_share`` of the candidates).
 2. **Probabilities.** P(top K), P(best) and P(beats the benchmark) are drawn further until the Monte
    Carlo standard error of every one of them is below ``mc_se`` (default :data:`MC_SE`; the SE of
    a share x/n is sqrt(p (1 - p) / n), with p = (x + 1/2) / (n + 1) so that a share of 0 or 1 is not
@@ -27,13 +28,16 @@ doubt for the few that can get there. :func:`adaptive_rank_summary` therefore wo
    the distribution conditioned on exceeding T (inverse CDF). A draw in which fewer than K scores
    reach T (rare by the choice of T) gets every resolved candidate's score below T as well (drawn
    by rejection). In every other draw the top K and the best are among the scores above T, so
-   they are found among those scores alone. Every probability is thus an unbiased Monte Carlo
-   estimate over all draws, for every candidate.
+   they are found among those scores alone. Every draw is thus exact in distribution, for every
+   candidate (the number of draws depends on the counts seen, so a probability is a consistent
+   estimate with a bias of order 1/n, far below its Monte Carlo SE).
 
-The result has the keys of :func:`rank_summary` plus ``draws`` (draws behind the probabilities),
-``draws_ranked`` (draws in which every candidate was ranked), ``mc_se`` (the largest Monte Carlo SE
-of a reported probability), ``rank_bound_halfwidth`` (the largest CI half-width of a rank bound, in
-ranks), ``rank_bound_stable``, ``n_contenders`` and ``threshold``.
+The result has the keys of :func:`rank_summary` (with ``rank_low_ci`` / ``rank_high_ci``, the
+bounds' confidence intervals, and ``kth_score``, phase 1's K-th best score per draw) plus ``draws``
+(draws behind the probabilities), ``draws_ranked`` (draws in which every candidate was ranked),
+``mc_se`` (the largest Monte Carlo SE of a reported probability), ``rank_bound_halfwidth`` (the
+largest CI half-width of a rank bound, in ranks), ``rank_bound_stable``,
+``rank_bound_stable_share``, ``n_contenders`` and ``threshold``.
 """
 from __future__ import annotations
 
@@ -409,12 +413,12 @@ def rank_summary(mu, sigma, df, draws: int, seed=0, *, top_k: int = 5, confidenc
     does not grow with ``draws``:
 
     * ``p_top`` = P(rank <= top_k), ``p_best`` = P(rank 1), ``p_beats`` = P(score > the score of
-      column ``reference``) (NaN without a reference);
+      column ``reference``) (NaN without a reference; 0 for the reference itself);
     * ``rank_low`` / ``rank_high``: the ``(1 -/+ confidence) / 2`` quantiles of each candidate's rank
       over the draws, the same order statistics as ``np.quantile(ranks, q, axis=0,
       method="inverted_cdf")`` on the full draws x k rank matrix. They come from a banded rank
       histogram per candidate (a window of ranks per side placed around the quantile seen in the first
-      :data:`PILOT_DRAWS` draws); a candidate whose quantile falls outside its window is resolved
+      ``pilot_draws`` draws, at most ``FALLBACK_CELLS // k``); a candidate whose quantile falls outside its window is resolved
       exactly by drawing the chunks again (each chunk has its own seed) and keeping only that
       candidate's ranks.
 
@@ -602,19 +606,6 @@ def _phase_b(mu, sigma, df, absolute, pos, D, R, p_R, thr, draws, seq, top_k):
     return top, best
 
 
-def _threshold(mu, sigma, df, top_k: int, absolute: bool) -> float:
-    """A score that at least ``top_k`` candidates exceed each with probability >= 1 - eps
-    (eps = min(1e-3, 0.01 / K)): the K-th largest of the candidates' eps-quantiles."""
-    eps = min(1e-3, 0.01 / max(1, top_k))
-    q = _std_ppf(np.full(mu.size, eps), df)          # < 0
-    low = mu + sigma * q
-    if absolute:                                     # |X| >= |mu| - sigma |q| whenever X is within its quantiles
-        low = np.maximum(0.0, np.abs(mu) + sigma * q)
-    low = np.where(np.isfinite(low), low, -np.inf)
-    kk = min(top_k, mu.size)
-    return float(np.partition(low, mu.size - kk)[mu.size - kk])
-
-
 def _plan(confidence: float):
     """The pilot -> number of draws rule of phase 1 (module docstring)."""
     alpha = (1 - confidence) / 2
@@ -647,14 +638,10 @@ def _bound_stability(a: dict, k: int) -> dict:
             "rank_bound_stable": share >= RANK_STABLE_SHARE}
 
 
-def _kth_threshold(a: dict, mu, sigma, df, kk: int, absolute: bool) -> float:
-    """The threshold: a low quantile of the K-th best score over the draws made (a fixed number for
-    the draws that follow, which stay exact whatever it is; it only decides how much work they are),
-    else :func:`_threshold` from the candidates' quantiles."""
-    kth = a.get("kth_score")
-    if kth is not None and kth.size:
-        return float(np.quantile(kth, KTH_QUANTILE))
-    return _threshold(mu, sigma, df, kk, absolute)
+def _kth_threshold(a: dict) -> float:
+    """The threshold: a low quantile of the K-th best score over the phase-1 draws (a fixed number for
+    the draws that follow, which stay exact whatever it is; it only decides how much work they are)."""
+    return float(np.quantile(a["kth_score"], KTH_QUANTILE))
 
 
 def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: float = 0.95,
@@ -683,7 +670,7 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
     n_beats = np.full(k, n_a, np.int64)
     n = n_a
     kk = min(top_k, k)
-    thr = _kth_threshold(a, mu, sigma, df, kk, absolute)
+    thr = _kth_threshold(a)
     p_exc = tail_probability(mu, sigma, df, thr, absolute)
     # resolved: those that rarely exceed the threshold (their few draws above it are drawn alone)
     resolved = p_exc <= TAIL_EACH

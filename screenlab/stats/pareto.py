@@ -78,10 +78,12 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
     base["p_front"] = np.nan
     if draws > 0 and ok.sum() > 0:
         # t draws are symmetric, so sign * (mu + sigma T) is drawn as (sign * mu) + sigma T; an ee by
-        # magnitude is drawn from |ee| (the fold matters only for an interval that spans 0)
-        params = [(sign[i] * pts_col, tb["sigma"].reindex(names).to_numpy(float),
-                   tb["df"].reindex(names).to_numpy(float))
-                  for i, (tb, pts_col) in enumerate(zip(tabs, [np.abs(x) if a else x for x, a in zip(mus, absolute)]))]
+        # magnitude is folded as the ranking folds it, sign * |ee + sigma T| (it matters for an
+        # interval that spans 0: drawing |ee| + sigma T would halve such a candidate's chances)
+        params = [(sign[i] * x, sig, df) if not a else (x, sig, df, sign[i])
+                  for i, (x, a, sig, df) in enumerate(zip(
+                      mus, absolute, (tb["sigma"].reindex(names).to_numpy(float) for tb in tabs),
+                      (tb["df"].reindex(names).to_numpy(float) for tb in tabs)))]
         base.loc[ok, "p_front"] = front_share(params, draws, seed)
     base = base.reset_index().rename(columns={"index": "catalyst"})
     base["_o"] = np.where(ok, 0, 1)
@@ -259,7 +261,7 @@ def _front_2(p1: np.ndarray, p2: np.ndarray) -> np.ndarray:
 
 
 def _directions(m: int) -> np.ndarray:
-    """A few positive weight vectors (m x n): the unit vectors and the grid {0, 1, 2}^m directions."""
+    """A few non-negative weight vectors (m x n): the unit vectors and the grid {0, 1, 2}^m directions."""
     g = np.array(np.meshgrid(*[np.arange(3)] * m, indexing="ij")).reshape(m, -1).T
     g = g[g.sum(axis=1) > 0].astype(float)
     g /= np.linalg.norm(g, axis=1, keepdims=True)
@@ -270,7 +272,9 @@ def _front_n(pts: np.ndarray) -> np.ndarray:
     """(draws, k) on-front mask for (draws, k, m) scores (higher better), any m.
 
     In each draw the maximiser of a positive-weighted sum of the (standardised) metrics is on the
-    front, so a handful of weightings gives front members ("witnesses") at O(k) cost. Every
+    front, so a handful of weightings gives likely front members ("witnesses") at O(k) cost (with a
+    zero weight, as the unit vectors have, a tie may make a witness a dominated one: harmless, as
+    every dominance below is checked again). Every
     candidate is first tested against those witnesses; the pairwise test then runs only among the
     candidates no witness dominates (a candidate dominated by anyone is dominated by a front
     member, and front members always survive the first test, so the result is exact).
@@ -369,7 +373,9 @@ def front_share(params, draws: int, seed=0) -> np.ndarray:
     """Share of joint draws in which each candidate is on the Pareto front.
 
     ``params`` holds one ``(mu, sigma, df)`` triple per metric (arrays over the same candidates,
-    oriented so that higher is better); metrics and candidates are drawn independently. Draws are
+    oriented so that higher is better), or ``(mu, sigma, df, sign)`` for a metric whose draws are
+    folded (``sign * |mu + sigma T|``, an ee by magnitude); metrics and candidates are drawn
+    independently. Draws are
     made in chunks (each with its own seed from ``seed``): two metrics use the sort + running
     maximum front (:func:`_front_2`), three the block sweep against a staircase (:func:`_front_3`),
     more the witness-pruned pairwise test (:func:`_front_n`). Same seed -> same output.
@@ -380,10 +386,19 @@ def front_share(params, draws: int, seed=0) -> np.ndarray:
 
     def drawn(d, ss):
         rng = np.random.default_rng(ss)
-        return [draw_matrix(mu, sig, df, d, rng) for mu, sig, df in params]
+        out = []
+        for p in params:
+            x = draw_matrix(p[0], p[1], p[2], d, rng)
+            if len(p) == 4:                          # folded: sign * |draw|
+                np.abs(x, out=x)
+                if p[3] < 0:
+                    np.negative(x, out=x)
+            out.append(x)
+        return out
 
     # the three-metric sweep costs Python steps per block of candidates: its chunks are drawn as
-    # always (same numbers) and swept together, a few hundred draws at a time
+    # always (same numbers) and swept together, at least FRONT_DRAWS draws at a time (a whole chunk
+    # when one chunk holds more)
     group = max(1, FRONT_DRAWS // max(1, chunks[0][0])) if m == 3 and chunks else 1
     for g0 in range(0, len(chunks), group):
         cols = [c[0] if len(c) == 1 else np.concatenate(c)

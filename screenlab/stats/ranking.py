@@ -7,8 +7,13 @@ often each candidate comes first (``p_best``), lands in the top k (``p_top``) an
 points of its rank over the draws (``rank_low``, ``rank_high``; the ``(1 - confidence) / 2``
 quantiles in general). The number of draws adapts to what the numbers need
 (:func:`screenlab.stats.montecarlo.adaptive_rank_summary`); ``draws=N`` fixes it
-(:func:`screenlab.stats.montecarlo.rank_summary`). Draws of different candidates are independent
-(each candidate's wells are its own).
+(:func:`screenlab.stats.montecarlo.rank_summary`). Draws of different candidates are independent:
+each candidate's wells, their replicate scatter and fit errors are its own. One part of a TOF or
+enhancement SE is shared, though: candidates on one plate are corrected with the same blank mean, so
+its error moves them together and does not change their order. Where that share is large (an
+enhancement over a blank near its detection limit), the draws make the order of candidates on one
+plate look less certain than it is: their rank intervals are wider and P(best) more spread than the
+data imply (conservative, never overconfident).
 
 Ea is ranked lower first (the lower apparent barrier); candidates flagged ``low_ea`` (likely
 transport-controlled, whose low apparent Ea says nothing about the catalyst's own barrier) are

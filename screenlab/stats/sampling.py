@@ -50,8 +50,7 @@ def draw_matrix(mu, sigma, df, draws: int, rng: np.random.Generator) -> np.ndarr
         e = np.where(t_col, -2.0 / dft, 1.0).astype(np.float32)
         scale = np.where(t_col, dft, 0.0).astype(np.float32)
         z = w * e                                    # -2/df ln U1
-        np.exp(z, out=z)
-        z -= np.float32(1.0)
+        np.expm1(z, out=z)                           # U1^(-2/df) - 1, without the cancellation at large df
         z *= scale                                   # df (U1^(-2/df) - 1); 0 in normal columns
         if not t_col.all():
             z -= np.where(t_col, np.float32(0.0), np.float32(2.0)).astype(np.float32) * w   # -2 ln U1
