@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from screenlab.synthetic import UNCATALYSED, KineticsSpec, kinetics_campaign
+from screenlab.uncertainty import t_quantile
 
 #: group flags that mark a course as not initial-rate kinetics
 IRREGULAR_FLAGS = ("induction", "product_decline", "deactivation", "law_misfit")
@@ -101,6 +102,13 @@ def run_study(seeds, spec: KineticsSpec | None = None, settings=None, *, plain: 
             r["tof_rel_err"] = r["tof_per_h"] / r["tof_true"] - 1.0
             r["ton_rel_err"] = r["ton"] / r["ton_true"] - 1.0
         r["tof_covered"] = (r["tof_ci_low"] <= r["tof_true"]) & (r["tof_true"] <= r["tof_ci_high"])
+        # TON's interval as the ranking draws it: log-normal, ton_se / ton on t(ton_df)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            q_ton = t_quantile(st.confidence, r["ton_df"].to_numpy(float))
+            ln_half = q_ton * r["ton_se"].to_numpy(float) / r["ton"].to_numpy(float)
+            ton_lo, ton_hi = r["ton"] * np.exp(-ln_half), r["ton"] * np.exp(ln_half)
+        r["ton_covered"] = np.where(np.isfinite(ln_half) & (r["ton"] > 0),
+                                    (ton_lo <= r["ton_true"]) & (r["ton_true"] <= ton_hi), np.nan)
         r["irregular"] = np.any([_has(r["flags"], f) for f in IRREGULAR_FLAGS], axis=0)
         r["seed"] = int(seed)
         rate_parts.append(r)
@@ -133,6 +141,7 @@ def summary(study: Study) -> pd.DataFrame:
     point = meas[meas["censored"].astype(str) == ""]
     err = point["tof_rel_err"].abs()
     ton = cat[(cat["final_conversion_pct"] >= 50) & np.isfinite(cat["ton_true"]) & (cat["ton_true"] > 0)]
+    ton_cov = cat.loc[np.isfinite(cat["ton_true"]) & (cat["ton_true"] > 0), "ton_covered"].dropna().astype(bool)
     a = study.arrhenius
     ea = a[(a["catalyst"] != UNCATALYSED) & np.isfinite(a["ea_kj_mol"])]
     ea_meas = ea[ea["behaviour"].isin(["first_order", "near_zero_order", "saturation", "deactivation",
@@ -147,6 +156,7 @@ def summary(study: Study) -> pd.DataFrame:
         ("TOF 95 % interval coverage", point["tof_covered"].mean(), len(point)),
         ("measurable rows given a point estimate", len(point) / max(len(meas), 1), len(meas)),
         ("TON |rel. error|, median (rows past 50 % conversion)", ton["ton_rel_err"].abs().median(), len(ton)),
+        ("TON 95 % interval coverage", ton_cov.mean() if len(ton_cov) else np.nan, len(ton_cov)),
         ("Ea |error| kJ/mol, median", ea_meas["ea_err_kj_mol"].abs().median(), len(ea_meas)),
         ("Ea |error| kJ/mol, 90th percentile", ea_meas["ea_err_kj_mol"].abs().quantile(0.9), len(ea_meas)),
         ("Ea 95 % interval coverage", covered.mean() if len(covered) else np.nan, len(covered)),

@@ -101,7 +101,9 @@ def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: Analys
     campaign's plate-to-plate scatter (a relative SD on ln TOF, ``arr.attrs["plate_scatter_ln"]``,
     see :func:`screenlab.kinetics.arrhenius.plate_scatter`) is added in quadrature,
     ``tof_se_per_h = sqrt(rep_se^2 + (tau x TOF)^2)``, with Welch-Satterthwaite df, and the
-    interval is recomputed; bounds (``censored``) keep theirs.
+    interval is recomputed; bounds (``censored``) keep theirs. TON takes the same plate term,
+    ``ton_se = sqrt(rep_se^2 + (tau x TON)^2)`` with Welch-Satterthwaite ``ton_df``: in full, as if
+    TON moved with the rate, which is conservative near full conversion, where it moves less.
     """
     from screenlab.kinetics.arrhenius import arrhenius_points
     from screenlab.uncertainty import t_quantile, welch_df
@@ -127,6 +129,15 @@ def with_plate_scatter(groups: pd.DataFrame, arr: pd.DataFrame, settings: Analys
     out["tof_df"] = np.where(measured, df_tot, df)
     out["tof_ci_low"] = np.where(measured, tof - q * se_tot, out["tof_ci_low"].to_numpy(float))
     out["tof_ci_high"] = np.where(measured, tof + q * se_tot, out["tof_ci_high"].to_numpy(float))
+    if "ton_se" in groups and "ton_df" in groups:
+        ton = pd.to_numeric(groups["ton"], errors="coerce").to_numpy(float)
+        ton_se = pd.to_numeric(groups["ton_se"], errors="coerce").to_numpy(float)
+        ton_df = pd.to_numeric(groups["ton_df"], errors="coerce").to_numpy(float)
+        has_se = np.isfinite(ton) & np.isfinite(ton_se)
+        with np.errstate(invalid="ignore"):
+            v_ton = (tau * ton) ** 2
+            out["ton_se"] = np.where(has_se, np.sqrt(ton_se ** 2 + v_ton), ton_se)
+            out["ton_df"] = np.where(has_se, welch_df(ton_se ** 2, ton_df, v_ton, tau_df), ton_df)
     out["in_arrhenius_fit"] = in_fit
     out["arrhenius_left_out"] = reason
     out["plate_scatter_ln"] = tau
