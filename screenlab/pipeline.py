@@ -101,8 +101,9 @@ def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFram
     # is slow); a plate not in the plates table has no format and no ring
     code, names = factorize(w["plate"])
     row_in_plates = pd.Index(data.plates["plate"]).get_indexer(names)
-    fmt_of = np.where(row_in_plates >= 0, data.plates["format"].to_numpy(dtype=float)[row_in_plates], np.nan)
-    fmt = np.where(code >= 0, fmt_of[code], np.nan)
+    fmt_of = np.append(np.where(row_in_plates >= 0, data.plates["format"].to_numpy(dtype=float)[row_in_plates],
+                                np.nan), np.nan)                  # the last entry: a well without a plate
+    fmt = fmt_of[np.where(code >= 0, code, len(names))]
     ring = np.zeros(len(w), dtype=bool)
     known = ~np.isnan(fmt)
     ring[known] = is_edge(w["row"].to_numpy()[known], w["col"].to_numpy()[known], fmt[known].astype(np.int64))

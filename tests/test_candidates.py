@@ -198,8 +198,8 @@ def test_reasons_name_temperatures_left_out_for_a_cause_other_than_inactivity(fa
                         "ea_se": np.nan, "fit_df": [np.nan, 0.0], "flags": ["left_out_bound", "two_temperatures;left_out_bound"],
                         "left_out": ["; ".join(f"{t} C: {fast}" for t in (40, 50, 60, 70)), f"60 C: {fast}; 70 C: {fast}"]})
     e = candidate_table(dataclasses.replace(kin, arrhenius=arr), metric="ea").set_index("catalyst")["reason"]
-    assert e["K0"].startswith("no temperature usable for a fit (left out: 40 C: faster") and e["K0"].endswith(": no Ea")
-    assert e["K1"].startswith("fitted at two of 4 temperatures (left out: 60 C: faster")
+    assert e["K0"].startswith("no temperature usable for a fit [left out: 40 C: faster") and e["K0"].endswith(": no Ea")
+    assert e["K1"].startswith("fitted at two of 4 temperatures [left out: 60 C: faster")
     assert not any("no activity" in x or "measured at two temperatures only" in x for x in e)
 
 

@@ -254,3 +254,16 @@ def test_front_share_folds_an_ee_by_magnitude_as_the_ranking_does():
     assert abs(p[0] - (1 - p_dom)) < 4 * se + 0.002
     p_dom_b = (2 - 2 * stats.norm.cdf(0.2 / 0.3)) * stats.norm.sf(0.2 / (0.05 * np.sqrt(2)))   # A dominates B
     assert abs(p[1] - (1 - p_dom_b)) < 4 * np.sqrt(p_dom_b / draws) + 1e-4
+
+
+def test_pareto_folds_an_ee_whose_interval_spans_zero(fake_kin):
+    # the pareto() path builds the folded |ee| draws: K0 (ee 0 +/- 30 %, either enantiomer) against
+    # K1 (ee 20 +/- 2 %, faster): K0 is on the front when |ee_K0| > 20, P = 1 - (2 Phi(2/3) - 1)
+    # (scipy.stats.norm; the TOFs far apart, normal draws: df missing)
+    from scipy import stats
+
+    kin = fake_kin([100.0, 200.0], [1.0, 2.0], df=np.nan)
+    kin = dataclasses.replace(kin, rates=kin.rates.assign(ee_pct=[0.0, 20.0], ee_se=[30.0, 2.0], ee_df=np.nan))
+    f = pareto(kin, None, ("tof", "ee"), draws=40_000, seed=3).set_index("catalyst")
+    p = 1 - (2 * stats.norm.cdf(20 / 30) - 1)
+    assert f.loc["K0", "p_front"] == pytest.approx(p, abs=4 * np.sqrt(p * (1 - p) / 40_000) + 0.003)

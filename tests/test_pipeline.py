@@ -84,3 +84,13 @@ def test_rates_command_shows_the_analysis_the_ranking_and_the_app_read(demo_stor
     for col in ("tof_per_h", "tof_ci_low", "tof_ci_high", "enhancement"):
         np.testing.assert_allclose(shown[col].to_numpy(float), table[col].to_numpy(float), rtol=1e-12,
                                    equal_nan=True, err_msg=col)
+
+
+def test_edge_blanks_of_wells_without_a_known_plate_is_nothing_to_leave_out(small_synthetic):
+    # wells whose plate is missing have no ring: an edge effect flagged on a plate leaves none out
+    from screenlab.pipeline import edge_blanks
+
+    w = pd.DataFrame({"plate": pd.Series([None, None], dtype="str"), "well": ["A1", "B2"], "row": [0, 1],
+                      "col": [0, 1], "role": ["blank", "blank"]})
+    edge = pd.DataFrame({"plate": [small_synthetic.plates["plate"].iloc[0]], "edge_effect": [True]})
+    assert edge_blanks(w, small_synthetic, edge=edge) is None

@@ -182,6 +182,13 @@ def test_percent_intervals_stay_within_the_range_of_the_quantity():
     assert g["selectivity_ci_high"][0] == 100.0 and g["selectivity_ci_low"][0] < g["selectivity_pct"][0]
     assert g["selectivity_ci_low"][1] == 0.0 and g["ee_ci_low"][0] == -100.0
     assert g["selectivity_pct"][0] == pytest.approx(np.mean([99.9, 99.95, 99.7]))
+    # an estimate past the end (readings noise) is kept, and its interval still holds it
+    past = pd.DataFrame({"selectivity_pct": [100.2, 100.4, 100.3], "selectivity_se": 0.2, "selectivity_df": 6,
+                         "ee_pct": [-100.2, -100.3, -100.1], "ee_se": 0.2, "ee_df": 6, "flags": ""})
+    p = summarise_groups(past, np.zeros(3, dtype=np.int64), 1, 0.95)
+    assert p["selectivity_pct"][0] == pytest.approx(100.3)
+    assert p["selectivity_ci_low"][0] < p["selectivity_pct"][0] == p["selectivity_ci_high"][0]
+    assert p["ee_ci_low"][0] == p["ee_pct"][0] < p["ee_ci_high"][0]
 
 
 # --------------------------------------------------------------------------- recovery and coverage
@@ -529,8 +536,9 @@ def _summarise_groups_by_hand(rows, codes, n_groups, confidence=0.95):
             q = stats.t.ppf(0.5 + confidence / 2.0, df) if np.isfinite(df) and df > 0 else np.nan
             # the interval within the quantity's range: selectivity 0..100 %, ee -100..100 %
             low_end = 0.0 if key == "selectivity" else -100.0
-            for name, value in (("pct", mean), ("se", se), ("df", df), ("ci_low", max(mean - q * se, low_end)),
-                                ("ci_high", min(mean + q * se, 100.0))):
+            for name, value in (("pct", mean), ("se", se), ("df", df),
+                                ("ci_low", max(mean - q * se, min(low_end, mean))),
+                                ("ci_high", min(mean + q * se, max(100.0, mean)))):
                 table[f"{key}_{name}"][g] = value
     group_flags = []
     for g in range(n_groups):

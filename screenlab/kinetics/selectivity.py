@@ -43,7 +43,8 @@ Per group (catalyst x temperature x condition, the rates table's groups; :func:`
     by the sample SD (with three replicates a chance low SD would otherwise raise the df just when
     the SE is too small; plain Welch covered about 92 % in our simulations, this about 96 %).
     A single well gives its own SE and df. Values are not clipped to 0..100 (or -100..100), so that they
-    stay unbiased: 100.3 % means no by-product beyond the reading noise.
+    stay unbiased: 100.3 % means no by-product beyond the reading noise. Their intervals are cut at
+    the end of the range, but never short of the estimate itself (100.3 (100.1 to 100.3) %).
 
 Drift with conversion (``selectivity_drift``, ``ee_drift``)
     The same per-well data are fitted with a quadratic through the origin, ``y = a x + c x^2``
@@ -169,18 +170,17 @@ def origin_fit(code: np.ndarray, x: np.ndarray, y: np.ndarray, n_groups: int) ->
 
 
 def _empty_wells(base: pd.DataFrame) -> pd.DataFrame:
-    out = base[["plate", "well"]].copy()
-    nan = np.full(len(base), np.nan)
-    for col in ("selectivity_pct", "selectivity_se", "ee_pct", "ee_se"):
-        out[col] = nan
-    out["flags"] = np.array([""] * len(base), dtype=object)
-    out["role"] = base["role"].to_numpy(dtype=object)
-    out["catalyst"] = base["catalyst"].to_numpy(dtype=object)
-    out["temperature_c"] = base["temperature_c"].to_numpy(dtype=float)
-    out["blank_corrected"] = np.zeros(len(base), dtype=bool)
-    for col in WELL_EXTRA[4:]:
-        out[col] = nan
-    return out
+    """The per-well frame with every selectivity / ee column empty (one constructor: column by
+    column assignment is slow on a wide frame)."""
+    n = len(base)
+    nan = np.full(n, np.nan)
+    cols = {"plate": base["plate"], "well": base["well"],
+            **{c: nan for c in ("selectivity_pct", "selectivity_se", "ee_pct", "ee_se")},
+            "flags": np.full(n, "", dtype=object), "role": base["role"].to_numpy(dtype=object),
+            "catalyst": base["catalyst"].to_numpy(dtype=object),
+            "temperature_c": base["temperature_c"].to_numpy(dtype=float),
+            "blank_corrected": np.zeros(n, dtype=bool), **{c: nan for c in WELL_EXTRA[4:]}}
+    return pd.DataFrame(cols, index=base.index)
 
 
 def _role(frame: pd.DataFrame) -> np.ndarray:
@@ -207,11 +207,12 @@ def well_selectivity(data, amounts: pd.DataFrame | None = None,
     wl = data.wells
     role_all = _role(wl)
     keep = role_all != "empty"
-    base = pd.DataFrame({
-        "plate": wl["plate"].to_numpy(dtype=object)[keep],
-        "well": wl["well"].to_numpy(dtype=object)[keep],
+    rows = np.flatnonzero(keep)
+    base = pd.DataFrame({                             # text columns taken as they are (no conversion)
+        "plate": wl["plate"].iloc[rows].reset_index(drop=True),
+        "well": wl["well"].iloc[rows].reset_index(drop=True),
         "role": role_all[keep],
-        "catalyst": wl["catalyst"].astype(object).to_numpy(dtype=object)[keep],
+        "catalyst": wl["catalyst"].iloc[rows].reset_index(drop=True),
         "temperature_c": pd.to_numeric(wl["temperature_c"], errors="coerce").to_numpy(dtype=float)[keep],
         "s0": pd.to_numeric(wl["substrate_conc_mM"], errors="coerce").to_numpy(dtype=float)[keep],
     })
@@ -487,10 +488,11 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
         out[f"{key}_se"] = se
         out[f"{key}_df"] = df
         # a percentage interval stays within the quantity's range (selectivity 0..100 %, ee -100..100 %;
-        # common practice, no source)
+        # common practice, no source), but always holds the estimate (which may lie past an end)
         lo_end = 0.0 if key == "selectivity" else -100.0
-        out[f"{key}_ci_low"] = np.maximum(mean - q * se, lo_end)
-        out[f"{key}_ci_high"] = np.minimum(mean + q * se, 100.0)
+        with np.errstate(invalid="ignore"):
+            out[f"{key}_ci_low"] = np.maximum(mean - q * se, np.fmin(lo_end, mean))
+            out[f"{key}_ci_high"] = np.minimum(mean + q * se, np.fmax(100.0, mean))
         any_value |= ok
     # group flags: carried by at least half of the wells that have a selectivity or an ee
     c_any = codes[any_value].astype(np.int64)

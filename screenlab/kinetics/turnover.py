@@ -668,11 +668,12 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     * TOF SE of the mean: ``sqrt(SD^2/n + b^2/k)`` where b is the mean blank-SE contribution in
       TOF units and k the number of plates (the replicates on one plate share one blank mean, so
       its error does not average out); df by Welch-Satterthwaite from n - 1 and the blank df.
-      Single well: the well's own TOF SE and fit df (flag ``single_well``).
+      Single well: the well's own TOF SE, with the Welch-Satterthwaite df of its fit error and
+      its blank's (flag ``single_well``).
     * CI: mean +/- t(conf, df) x SE (settings.confidence).
     * Enhancement: geometric mean of the replicates' enhancements; CI on the log scale with
       var = SD(ln E)^2/n + mean relative blank variance / k, or the single well's CI. A lower
-      bound if any replicate's is (upper limit +inf).
+      bound if any of the replicates the statistics use is one (upper limit +inf).
     * Outliers stay in every statistic; the group carries ``has_outlier``. Failed wells (flag
       ``failed_well``: no product above the blank among active replicates) are left out of the
       statistics, counted out of ``n_wells`` and named by the group flag ``excluded_failed_well``.
@@ -828,7 +829,9 @@ def _group_summaries(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray
     # a lower-bound enhancement among the wells the statistics use (a left-out well, NaN in stat,
     # does not make the group's enhancement a bound)
     lb = count(has("enhancement_lower_bound") & ~np.isnan(stat["rate"])) > 0
-    bdf = np.fmin.reduceat(_f(turnover, "blank_df")[rows][order], starts)   # min, missing values skipped
+    # the smallest blank df among the wells the statistics use (min, missing values skipped)
+    used_bdf = np.where(np.isnan(stat["rate"]), np.nan, _f(turnover, "blank_df")[rows])
+    bdf = np.fmin.reduceat(used_bdf[order], starts)
     n_plates, plates = grp.joined_distinct(sorted_codes, n_groups, turnover["plate"].iloc[rows[order]])
     k = n_plates.astype(float)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -932,7 +935,8 @@ def _tof_intervals(mean: dict, sdev: dict, n: np.ndarray, k: np.ndarray, bdf: np
         # a single well: its own SE holds its fit error and its blank's in quadrature, so its df is
         # their Welch-Satterthwaite df, as the per-well interval has it (not the fit's df alone)
         df = np.where(n >= 2, welch_df(v_rep, n - 1, v_blank, bdf),
-                      np.where(n == 1, welch_df(np.maximum(fit2, 0.0), rate_df1, b2, bdf), np.nan))
+                      np.where((n == 1) & np.isfinite(tof_se1), welch_df(np.maximum(fit2, 0.0), rate_df1, b2, bdf),
+                               np.nan))
         q = t_quantile(settings.confidence, df)
         tof_mean = mean["tof"]
         return {"mean": tof_mean, "se": se, "df": df, "q": q, "lo": tof_mean - q * se, "hi": tof_mean + q * se}

@@ -96,7 +96,8 @@ METRICS: dict[str, Metric] = {
     "tof": Metric("tof", "TOF", "h-1", "tof_per_h", "rates", "tof_per_h", se="tof_se_per_h", df="tof_df",
                   higher_is_better=True, lognormal=True, predict=True, censorable=True),
     # the enhancement's interval is on the log scale: the rates table's SE of ln(enhancement) and
-    # its Welch df (a table without them: the SE backed out of the interval, at the analysis's confidence)
+    # its Welch df (a table without them, made by hand: the SE backed out of the interval at the
+    # analysis's confidence, with the normal quantile, which overstates it for a table made on few df)
     "enhancement": Metric("enhancement", "rate enhancement over the blank", "", "enhancement", "rates",
                           "enhancement", ci=("enhancement_ci_low", "enhancement_ci_high"),
                           ln_se="enhancement_ln_se", df="enhancement_df",
@@ -192,7 +193,7 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
         cats = np.concatenate([cats[not_used], np.asarray(u_cat, dtype=object)])
         plates = np.concatenate([plates[not_used], np.asarray(u_plate, dtype=object)])
     if quality is None or quality.empty:
-        return pd.DataFrame({"catalyst": pd.unique(cats), "all_failed": False, "any_failed": False,
+        return pd.DataFrame({"catalyst": pd.array(pd.unique(cats), dtype="str"), "all_failed": False, "any_failed": False,
                              "any_unchecked": False, "plate_flags": ""})
     q = quality.assign(plate=quality["plate"].astype(str)).drop_duplicates("plate")
     # each plate's flags without the status ones (said by on_failed_plate / on_unchecked_plate), once per plate
@@ -284,7 +285,7 @@ def _fit_reasons(names: np.ndarray, arr: pd.DataFrame, measured_t: pd.Series, *,
         lambda n: f"measured at {_count_words(n)} temperature{'s' if n != 1 else ''}: {purpose}" if n else
         f"no rates at its standard condition: {purpose}").to_numpy(dtype=object)
     of_txt = pd.Series(n_meas).map(lambda n: f"of {n}").to_numpy(dtype=object)
-    why = np.where(left_txt != "", " (left out: " + left_txt + ")", "")
+    why = np.where(left_txt != "", " [left out: " + left_txt + "]", "")
     some_left = n_meas > n_fit
     none = np.where(only_inactive, "no activity over the blank at any temperature",
                     "no temperature usable for a fit" + why + f": {purpose}")
@@ -451,7 +452,9 @@ def _draw_parameters(t: pd.DataFrame, m: Metric, confidence: float, enantiomers,
                 ci_lo, ci_hi = (ci_lo, ci_hi) if sign_ee > 0 else (-ci_hi, -ci_lo)
     if m.limits is not None:                          # a percentage's interval within its range
         lo_end = 0.0 if absolute.any() else m.limits[0]
-        ci_lo, ci_hi = np.clip(ci_lo, lo_end, m.limits[1]), np.clip(ci_hi, lo_end, m.limits[1])
+        with np.errstate(invalid="ignore"):            # never short of the estimate (it may lie past an end)
+            ci_lo = np.maximum(ci_lo, np.fmin(lo_end, est))
+            ci_hi = np.minimum(ci_hi, np.fmax(m.limits[1], est))
     return {"mu": mu, "sigma": sig, "estimate": est, "ci_low": ci_lo, "ci_high": ci_hi, "favours": favours,
             "absolute": absolute, "extra_flags": extra_flags}
 

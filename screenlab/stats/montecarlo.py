@@ -89,10 +89,12 @@ class RankDraws:
     each chunk is ranked (one integer-key sort per draw, :func:`order_desc`) and folded into running
     counts, so memory does not grow with ``draws``. The steps, one method each:
 
-    1. :meth:`_draw_and_count`: the chunks are tasks of the worker threads; the first ones (the
-       pilot, at least ``pilot_draws`` draws) hand their ranks back, :meth:`_place_windows` places a
-       banded rank histogram per candidate from them (and asks ``plan`` how many draws to make),
-       and every later chunk folds its ranks into that histogram (:meth:`_fold`, :meth:`_count`);
+    1. :meth:`_draw_and_count`: the chunks are drawn and ranked on the worker threads and this
+       one; the first ones (the pilot, at least ``pilot_draws`` draws) hand their ranks back,
+       :meth:`_place_windows` places a banded rank histogram per candidate from them (and asks
+       ``plan`` how many draws to make), the pilot is counted into it from its sorted ranks
+       (:meth:`_count_sorted`) and every later chunk folds its ranks into it (:meth:`_fold`,
+       :meth:`_count`);
     2. :meth:`_read_bounds`: each rank quantile (and its confidence interval's order statistics)
        read off the histogram's cumulative counts (:meth:`_read`);
     3. :meth:`_fallback`: a candidate whose quantile fell outside its window is resolved exactly by
@@ -192,37 +194,41 @@ class RankDraws:
         return ranks, t_c, b_c, r_c, k_c
 
     def _draw_and_count(self, out: dict):
-        """Every chunk a task of the worker threads.
+        """Every chunk drawn, ranked and counted, on the worker threads and this one.
 
-        The first chunks (at least ``pilot_rows`` draws) place the rank windows. Every chunk is a
-        task of the worker threads (numpy's generators, sorts and ufuncs release the GIL), taken in
-        order, so the workers draw and rank the next chunks while this thread places the windows and
-        counts the pilot; each chunk has its own seed, so the result does not depend on the threads.
+        The first chunks (at least ``pilot_rows`` draws, the pilot) place the rank windows: the
+        worker threads take all of them but the last, which this thread draws and ranks meanwhile
+        (numpy's generators, sorts and ufuncs release the GIL), so no core waits for the last pilot
+        chunk alone. Once the windows are placed the plan says how many chunks to count in all:
+        only those are handed to the workers (none is drawn in vain), which fold them into the
+        histogram while this thread counts the pilot. Each chunk has its own seed, so the result
+        does not depend on the threads or on which one drew a chunk.
         """
         chunks = self.chunks
         n_first = 0
         while n_first < len(chunks) and sum(c[0] for c in chunks[:n_first]) < self.pilot_rows:
             n_first += 1
         with executor(len(chunks)) as pool:
-            futures = [pool.submit(self._task, c, i < n_first, i) for i, c in enumerate(chunks)]
+            others = [pool.submit(self._task, c, True, i) for i, c in enumerate(chunks[:n_first - 1])]
             try:
-                firsts = [f.result() for f in futures[:n_first]]
+                last = self._task(chunks[n_first - 1], True, n_first - 1)
+                firsts = [f.result() for f in others] + [last]
                 self._place_windows([f[0] for f in firsts])
             finally:
                 self.windows_ready.set()             # never leave a worker waiting
-            for f in futures[self.n_used:]:          # beyond the plan: those not started are dropped
-                if hasattr(f, "cancel"):
-                    f.cancel()
-            self._count([f[0] for f in firsts])
+            rest = [pool.submit(self._task, c, False, i)
+                    for i, c in enumerate(chunks[n_first:self.n_used], start=n_first)]
+            self._count_sorted(self.pilot_sorted)   # the pilot, from its ranks sorted for the windows
+            del self.pilot_sorted
             kths = []
-            for f in firsts + [f.result() for f in futures[n_first:self.n_used]]:
+            for f in firsts + [f.result() for f in rest]:
                 self.top += f[1]
                 self.best += f[2]
                 self.beats += f[3]
                 kths.append(f[4])
             if self.kth:
                 out["kth_score"] = np.concatenate(kths)
-            del firsts, futures
+            del firsts, others, rest
 
     # -- the banded rank histogram -------------------------------------------------------------
 
@@ -265,13 +271,13 @@ class RankDraws:
         # each candidate's pilot ranks, sorted; as int16 when the ranks fit (numpy sorts those by
         # radix, a few times faster than a comparison sort of int32; the same sorted values)
         small = k < np.iinfo(np.int16).max
-        by_col = np.concatenate([r.T for r in pilot], axis=1, dtype=np.int16 if small else pilot[0].dtype,
-                                casting="same_kind")
+        by_col = np.ascontiguousarray(np.concatenate([r.T for r in pilot], axis=1, casting="same_kind",
+                                                     dtype=np.int16 if small else pilot[0].dtype))   # rows contiguous
         by_col.sort(axis=1, kind="stable" if small else None)
         if self.plan is not None:                     # how many draws in all, from the pilot
             self._plan_draws(by_col, n_pilot)
         first, wid = self._window_spans(by_col, n_pilot)
-        del by_col
+        self.pilot_sorted = by_col                    # counted into the histogram by _count_sorted
         s1, e1 = first["low"], first["low"] + wid["low"]
         s2, e2 = first["high"], first["high"] + wid["high"]
         apart = s2 >= e1                              # window 2 starts after window 1 ends
@@ -295,6 +301,38 @@ class RankDraws:
                     "wid": {"low": w1, "high": np.where(apart, e2 - s2, w1)},
                     "off": {"low": np.ones(k, np.int64), "high": np.where(apart, w1 + 2, 1)},
                     "flush": -(-hist.size // k)}    # draws per count: at least the histogram's cells
+
+    def _count_sorted(self, by_col: np.ndarray):
+        """Fold the pilot into the histogram from its ranks already sorted per candidate (rows of
+        ``by_col``): the same counts as :meth:`_count`, by binary search instead of a bincount.
+
+        A rank r falls in cell ``#{t in T_c: t <= r}`` of candidate c, T_c being the thresholds
+        lo1+1..hi1 and lo2+1..hi2 (the two clipped ramps of :meth:`_place_windows`), so the count of
+        cell j is F(t_(j+1)) - F(t_j) with F(t) the number of c's ranks below t. With every row
+        shifted by c (k + 2) the rows form one sorted array, and one searchsorted of all thresholds
+        (each candidate's closed by the start of the next) gives every count at once; done one
+        block of columns at a time (as :meth:`_count`), so the temporaries stay a block's size."""
+        win, k = self.win, self.k
+        base, size = win["base"], win["size"]
+        lo1_all, hi1_all = win["lo1"].astype(np.int64), win["hi1"].astype(np.int64)
+        lo2_all, hi2_all = win["lo2"].astype(np.int64), win["hi2"].astype(np.int64)
+        for c0, c1 in win["blocks"]:
+            m = c1 - c0
+            flat = (by_col[c0:c1].astype(np.int64) + (np.arange(m, dtype=np.int64) * (k + 2))[:, None]).ravel()
+            lo1, hi1, lo2, hi2 = lo1_all[c0:c1], hi1_all[c0:c1], lo2_all[c0:c1], hi2_all[c0:c1]
+            n1 = hi1 - lo1                            # thresholds of each ramp per candidate
+            per = n1 + (hi2 - lo2) + 1                # and the closing one (the next candidate's start)
+            start = np.concatenate([[0], np.cumsum(per)[:-1]])
+            j = np.arange(int(per.sum())) - np.repeat(start, per)     # position within the candidate
+            r1 = np.repeat(n1, per)
+            t = np.where(j < r1, np.repeat(lo1 + 1, per) + j, np.repeat(lo2 + 1, per) + (j - r1))
+            t[start + per - 1] = k + 2                # closing query: above every rank
+            t += np.repeat(np.arange(m, dtype=np.int64) * (k + 2), per)
+            pos = np.searchsorted(flat, t, side="left")
+            counts = np.diff(pos, prepend=0)
+            h0, h1 = int(base[c0]), int(base[c1 - 1] + size[c1 - 1])
+            with self.lock:
+                self.hist[h0:h1] += counts.astype(np.int32)
 
     def _count(self, batch: list[np.ndarray]):
         """Fold ranked chunks into the shared histogram, one block of columns at a time (the
