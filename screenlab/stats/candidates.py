@@ -153,12 +153,26 @@ def merge_codes(*cols) -> list[str]:
 
 
 def _roles(kin) -> pd.Series:
-    """catalyst -> role ('reference' wins over 'sample' when a catalyst is both)."""
-    frames = [f[["catalyst", "role"]] for f in (kin.rates, kin.wells) if f is not None and len(f) and "role" in f]
-    both = pd.concat(frames) if frames else pd.DataFrame(columns=["catalyst", "role"])
-    both = both[both["role"].astype(str).isin(["sample", "reference"]) & both["catalyst"].notna()]
-    both = both.assign(catalyst=both["catalyst"].astype(str), _r=(both["role"].astype(str) == "reference"))
-    return both.groupby("catalyst")["_r"].any().map({True: "reference", False: "sample"})
+    """catalyst -> role ('reference' wins over 'sample' when a catalyst is both), sorted by name;
+    from the sample and reference rows of the rates table and the wells (codes: no string group-by)."""
+    ref: dict[str, bool] = {}
+    for f in (kin.rates, kin.wells):
+        if f is None or not len(f) or "role" not in f:
+            continue
+        rc, ru = grp.factorize(f["role"])
+        words = np.array([str(x) for x in ru] + [""], dtype=object)   # a missing role: none of the two
+        rc = np.where(rc >= 0, rc, len(ru))
+        is_ref = (words == "reference")[rc]
+        cc, cu = grp.factorize(f["catalyst"])          # a missing catalyst: -1, left out
+        ok = ((words == "sample") | (words == "reference"))[rc] & (cc >= 0)
+        any_ref = np.bincount(cc[ok], weights=is_ref[ok], minlength=len(cu)) > 0
+        seen = np.bincount(cc[ok], minlength=len(cu)) > 0
+        cu, any_ref = np.asarray(cu, dtype=object)[seen], any_ref[seen]
+        for name, r in zip([str(x) for x in cu], any_ref.tolist()):   # a loop over catalysts
+            ref[name] = ref.get(name, False) or r
+    names = sorted(ref)
+    return pd.Series(["reference" if ref[c] else "sample" for c in names],
+                     index=pd.Index(names, dtype="str", name="catalyst"), name="_r", dtype="str")
 
 
 def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFrame:
@@ -465,19 +479,27 @@ def _missing_texts(m: Metric, t: pd.DataFrame, arr: pd.DataFrame, measured_t: pd
     names_arr = t["catalyst"].to_numpy(dtype=object)
     basis = t["basis"].fillna("").to_numpy(dtype=object)
     est, n = t["estimate"].to_numpy(float), t["n"].to_numpy(float)
+    def reasons_where(need, purpose):
+        """:func:`_fit_reasons` for the rows ``need`` (the texts are read only there), '' elsewhere."""
+        fr = np.full(len(t), "", dtype=object)
+        if need.any():
+            fr[need] = _fit_reasons(names_arr[need], arr, measured_t, purpose=purpose)
+        return fr
+
+    no_row = ~np.isfinite(est) & (basis == "")
     if m.source == "rates":
         lead = f"not measured at {at_temperature_c:g} degC"
         what = np.full(len(t), lead, dtype=object)
         fit_missing = np.zeros(len(t), bool)
         if m.predict:
-            fr = _fit_reasons(names_arr, arr, measured_t, purpose="no Arrhenius line to predict from")
-            what = np.where(fr != "", lead + "; " + fr, lead + " and no Arrhenius fit").astype(object)
             # an Arrhenius prediction without a usable fit: say what the fit lacks (never "no activity")
             fit_missing = (basis == "arrhenius") & (~np.isfinite(est) | no_sig)
+            fr = reasons_where(no_row | fit_missing, "no Arrhenius line to predict from")
+            what = np.where(fr != "", lead + "; " + fr, lead + " and no Arrhenius fit").astype(object)
     else:
-        fr = _fit_reasons(names_arr, arr, measured_t, purpose="no Ea")
-        what = np.where(fr != "", fr, "no Arrhenius fit (needs at least two temperatures)").astype(object)
         fit_missing = (basis == "fit") & (~np.isfinite(est) | no_sig | (n < 3))
+        fr = reasons_where(no_row | fit_missing, "no Ea")
+        what = np.where(fr != "", fr, "no Arrhenius fit (needs at least two temperatures)").astype(object)
     return what, fit_missing
 
 
