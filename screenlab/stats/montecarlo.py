@@ -730,19 +730,22 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
         if has_ref:
             se_beats[reference] = 0.0
         worst = max(float(se_top.max()), float(se_best.max()), float(se_beats.max()))
-        if worst <= mc_se or max(n, n_beats_draws) >= max_draws:
+        # each kind of probability draws on its own budget: one spent does not stop the other
+        top_open = max(float(se_top.max()), float(se_best.max())) > mc_se and n < max_draws
+        unsure = (se_beats > mc_se) & (n_beats < max_draws)
+        if worst <= mc_se or not (top_open or unsure.any()):
             break
         seq = np.random.SeedSequence(root.entropy, spawn_key=(1 << 30, it))
         # the top K and the best: the contenders drawn, the others' draws above the threshold sampled
         want = max(float(needed(top, n).max()), float(needed(best, n).max()))
-        if want > n:
+        n_before, beats_before = n, int(n_beats.sum())
+        if top_open and want > n:
             add = int(min(max_draws - n, max(1000, np.ceil(1.1 * want) - n)))
             t_c, b_c = _phase_b(mu, sigma, df, absolute, pos, D, R, p_exc[R], thr, add, seq, kk)
             top += t_c
             best += b_c
             n += add
         # P(beats the benchmark), pairwise: only the still uncertain ones, against the benchmark's own draws
-        unsure = se_beats > mc_se
         if unsure.any():
             want_b = float((needed(beats, n_beats)[unsure]).max())
             U = np.flatnonzero(unsure)
@@ -751,6 +754,8 @@ def adaptive_rank_summary(mu, sigma, df, seed=0, *, top_k: int = 5, confidence: 
                                       np.random.SeedSequence(root.entropy, spawn_key=(1 << 30, it, 1)))
             n_beats[U] += add_b
             n_beats_draws = max(n_beats_draws, int(n_beats[U].max()))
+        if n == n_before and int(n_beats.sum()) == beats_before:
+            break                                    # nothing more could be drawn (rounding at a budget's end)
         it += 1
     out["p_top"] = top / n
     out["p_best"] = best / n
