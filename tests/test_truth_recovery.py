@@ -50,6 +50,15 @@ def test_ton_past_half_conversion_and_its_interval(mixed):
     assert 0.9 <= f["TON 95 % interval coverage"] <= 0.995
 
 
+def test_rate_enhancement_interval_and_its_lower_bounds(mixed):
+    # the true enhancement (catalysed + background initial rate over the background) inside the
+    # two-sided intervals; over a blank below its detection limit the estimate is a lower bound,
+    # and it must not exceed the truth (the blank's df from its fits: 99.8 % coverage with n - 1)
+    f = _figures(mixed)
+    assert 0.9 <= f["rate enhancement 95 % interval coverage"] <= 0.99
+    assert f["rate enhancement lower bounds that hold"] >= 0.98
+
+
 def test_activation_energies_and_their_intervals(mixed):
     f = _figures(mixed)
     assert f["Ea |error| kJ/mol, median"] <= 1.5

@@ -110,12 +110,14 @@ def test_no_blank_plate_and_lod_lower_bound():
     assert nb.net_rate_mM_per_h == 10.0                 # not corrected, and says so
     lb = t.loc[("P2", "B1")]
     # a blank below its detection limit may be anywhere below its upper confidence limit: the
-    # enhancement over that limit (mean + t(0.975, n - 1) SE; scipy.stats as the reference) is a
+    # enhancement over that limit (mean + t(0.975, df) SE; scipy.stats as the reference) is a
     # lower bound, never the detection limit taken as a point
     blanks = [0.01, -0.02, 0.02, 0.0]
-    # the blank SE: the scatter, never below the blanks' own fit SEs (0.1 each here)
+    # the blank SE: the scatter, never below the blanks' own fit SEs (0.1 each here); the fit SEs
+    # set it, so its df is theirs, 4 fits x 3 df (not the 3 of four blanks' scatter)
     se_blank = max(np.std(blanks, ddof=1), 0.1) / np.sqrt(4)
-    upper = max(np.mean(blanks), 0.0) + stats.t.ppf(0.975, 3) * se_blank
+    assert b.set_index("plate").loc["P2", "blank_df"] == 12
+    upper = max(np.mean(blanks), 0.0) + stats.t.ppf(0.975, 12) * se_blank
     assert "enhancement_lower_bound" in lb["flags"].split(";")
     assert lb.enhancement == pytest.approx(10.0 / upper)
     assert lb.enhancement_ci_high == np.inf
