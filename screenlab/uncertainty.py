@@ -61,6 +61,14 @@ def welch_df(var_a, df_a, var_b, df_b) -> np.ndarray:
         return np.where(den > 0, (va + vb) ** 2 / den, np.inf)
 
 
+def within_range(lo, hi, estimate, low_end: float, high_end: float):
+    """An interval ``(lo, hi)`` cut at the ends of the quantity's range (a percentage: 0..100 or
+    -100..100), never short of the estimate itself, which may lie past an end (reading noise):
+    ``(max(lo, min(low_end, est)), min(hi, max(high_end, est)))``, NaN kept (common practice, no source)."""
+    with np.errstate(invalid="ignore"):
+        return (np.maximum(lo, np.fmin(low_end, estimate)), np.minimum(hi, np.fmax(high_end, estimate)))
+
+
 def norm_ppf(q):
     """Standard normal quantile at probability ``q`` (``scipy.stats.norm.ppf(q)``: ``special.ndtri``)."""
     return special.ndtri(q)
@@ -69,4 +77,4 @@ def norm_ppf(q):
 #: ``quantiles.t.ppf`` and ``quantiles.norm.ppf``, named as in ``scipy.stats``
 quantiles = SimpleNamespace(t=SimpleNamespace(ppf=t_ppf), norm=SimpleNamespace(ppf=norm_ppf))
 
-__all__ = ["t_ppf", "t_quantile", "welch_df", "norm_ppf", "quantiles"]
+__all__ = ["t_ppf", "t_quantile", "welch_df", "within_range", "norm_ppf", "quantiles"]

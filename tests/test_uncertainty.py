@@ -48,3 +48,18 @@ def test_t_and_normal_quantiles_equal_scipy_stats():
     np.testing.assert_array_equal(quantiles.norm.ppf(q), stats.norm.ppf(q))
     # scalar in, scalar out, as the callers use it (the Shewhart limit: 3-sigma tail, df 5)
     assert float(t_ppf(1 - 0.0027 / 2, 5)) == float(stats.t.ppf(1 - 0.0027 / 2, 5))
+
+
+def test_within_range_cuts_an_interval_at_the_range_but_keeps_the_estimate():
+    # the rule written out per element (common practice, no source): cut at the ends, never short
+    # of the estimate, which reading noise may put past an end
+    from screenlab.uncertainty import within_range
+
+    lo = np.array([-3.0, 95.0, 100.1, np.nan, -101.0])
+    hi = np.array([4.0, 103.0, 100.5, np.nan, -99.0])
+    est = np.array([0.5, 99.0, 100.3, np.nan, -100.2])
+    got_lo, got_hi = within_range(lo, hi, est, -100.0, 100.0)
+    want = [(max(a, min(-100.0, e)), min(b, max(100.0, e))) for a, b, e in zip(lo, hi, est)]
+    np.testing.assert_array_equal(got_lo, [w[0] for w in want])
+    np.testing.assert_array_equal(got_hi, [w[1] for w in want])
+    assert got_lo[2] < est[2] == got_hi[2] and got_lo[4] == est[4] < got_hi[4]

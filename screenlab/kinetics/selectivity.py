@@ -75,7 +75,7 @@ from screenlab import _groups as grp
 from screenlab._groups import FlagIndex
 from screenlab.kinetics.sites import join_flags, text_array
 from screenlab.settings import AnalysisSettings
-from screenlab.uncertainty import t_quantile, welch_df
+from screenlab.uncertainty import t_quantile, welch_df, within_range
 
 #: flag codes set here (code -> one plain sentence)
 FLAGS: dict[str, str] = {
@@ -489,10 +489,8 @@ def summarise_groups(rows: pd.DataFrame, codes: np.ndarray, n_groups: int,
         out[f"{key}_df"] = df
         # a percentage interval stays within the quantity's range (selectivity 0..100 %, ee -100..100 %;
         # common practice, no source), but always holds the estimate (which may lie past an end)
-        lo_end = 0.0 if key == "selectivity" else -100.0
-        with np.errstate(invalid="ignore"):
-            out[f"{key}_ci_low"] = np.maximum(mean - q * se, np.fmin(lo_end, mean))
-            out[f"{key}_ci_high"] = np.minimum(mean + q * se, np.fmax(100.0, mean))
+        out[f"{key}_ci_low"], out[f"{key}_ci_high"] = within_range(
+            mean - q * se, mean + q * se, mean, 0.0 if key == "selectivity" else -100.0, 100.0)
         any_value |= ok
     # group flags: carried by at least half of the wells that have a selectivity or an ee
     c_any = codes[any_value].astype(np.int64)

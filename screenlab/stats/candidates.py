@@ -47,7 +47,7 @@ import pandas as pd
 
 from screenlab import _groups as grp
 from screenlab.errors import UsageError
-from screenlab.uncertainty import t_quantile
+from screenlab.uncertainty import t_quantile, within_range
 
 #: Flag codes set by the candidate tables (code -> one plain sentence).
 FLAGS: dict[str, str] = {
@@ -216,8 +216,8 @@ def _plate_info(kin, quality, plates_used: pd.Series | None = None) -> pd.DataFr
     status = q["status"].to_numpy(dtype=object)
     q_row = pd.Index(q["plate"]).get_indexer(plates)              # -1: a plate without a quality row
     has_q = q_row >= 0
-    failed = has_q & (np.where(has_q, status[q_row], "") == "failed")
-    unchecked = has_q & (np.where(has_q, status[q_row], "") == "unchecked")
+    st = np.where(has_q, status[q_row], "")
+    failed, unchecked = st == "failed", st == "unchecked"
     flags = np.where(has_q, pf[q_row], "")
     # per catalyst, by name as groupby sorts: all / any of its pairs
     code, names = grp.factorize(pd.Series(cats, dtype=object))
@@ -465,20 +465,19 @@ def _draw_parameters(t: pd.DataFrame, m: Metric, confidence: float, enantiomers,
                 mu, est = sign_ee * mu, sign_ee * est
                 ci_lo, ci_hi = (ci_lo, ci_hi) if sign_ee > 0 else (-ci_hi, -ci_lo)
     if m.limits is not None:                          # a percentage's interval within its range
-        lo_end = 0.0 if absolute.any() else m.limits[0]
-        with np.errstate(invalid="ignore"):            # never short of the estimate (it may lie past an end)
-            ci_lo = np.maximum(ci_lo, np.fmin(lo_end, est))
-            ci_hi = np.minimum(ci_hi, np.fmax(m.limits[1], est))
+        ci_lo, ci_hi = within_range(ci_lo, ci_hi, est, 0.0 if absolute.any() else m.limits[0], m.limits[1])
     return {"mu": mu, "sigma": sig, "estimate": est, "ci_low": ci_lo, "ci_high": ci_hi, "favours": favours,
             "absolute": absolute, "extra_flags": extra_flags}
 
 
 def _missing_texts(m: Metric, t: pd.DataFrame, arr: pd.DataFrame, measured_t: pd.Series, at_temperature_c: float,
-                   no_sig: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(what is missing, in words; where an Arrhenius-based estimate lacks a usable fit)."""
+                   no_sig: np.ndarray, no_row: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(what is missing, in words; where an Arrhenius-based estimate lacks a usable fit). The
+    texts are read where ``no_row`` (no source row) or the fit is missing, and made only there."""
     names_arr = t["catalyst"].to_numpy(dtype=object)
     basis = t["basis"].fillna("").to_numpy(dtype=object)
     est, n = t["estimate"].to_numpy(float), t["n"].to_numpy(float)
+
     def reasons_where(need, purpose):
         """:func:`_fit_reasons` for the rows ``need`` (the texts are read only there), '' elsewhere."""
         fr = np.full(len(t), "", dtype=object)
@@ -486,7 +485,6 @@ def _missing_texts(m: Metric, t: pd.DataFrame, arr: pd.DataFrame, measured_t: pd
             fr[need] = _fit_reasons(names_arr[need], arr, measured_t, purpose=purpose)
         return fr
 
-    no_row = ~np.isfinite(est) & (basis == "")
     if m.source == "rates":
         lead = f"not measured at {at_temperature_c:g} degC"
         what = np.full(len(t), lead, dtype=object)
@@ -512,7 +510,7 @@ def _reasons(t: pd.DataFrame, m: Metric, arr: pd.DataFrame, measured_t: pd.Serie
     mu, sig = t["mu"].to_numpy(float), t["sigma"].to_numpy(float)
     basis = t["basis"].fillna("").to_numpy(dtype=object)
     no_sig = ~(np.isfinite(sig) & (sig > 0) & np.isfinite(mu))
-    what, fit_missing = _missing_texts(m, t, arr, measured_t, at_temperature_c, no_sig)
+    what, fit_missing = _missing_texts(m, t, arr, measured_t, at_temperature_c, no_sig, no_row)
     all_failed = t["all_failed"].fillna(False).to_numpy(bool)
     few = (n < 2) & (basis == "measured")
     few_txt = "too few wells (fewer than 2 at this condition)"

@@ -213,13 +213,13 @@ class RankDraws:
             try:
                 last = self._task(chunks[n_first - 1], True, n_first - 1)
                 firsts = [f.result() for f in others] + [last]
-                self._place_windows([f[0] for f in firsts])
+                pilot_sorted = self._place_windows([f[0] for f in firsts])
             finally:
                 self.windows_ready.set()             # never leave a worker waiting
             rest = [pool.submit(self._task, c, False, i)
                     for i, c in enumerate(chunks[n_first:self.n_used], start=n_first)]
-            self._count_sorted(self.pilot_sorted)   # the pilot, from its ranks sorted for the windows
-            del self.pilot_sorted
+            self._count_sorted(pilot_sorted)         # the pilot, from its ranks sorted for the windows
+            del pilot_sorted
             kths = []
             for f in firsts + [f.result() for f in rest]:
                 self.top += f[1]
@@ -264,7 +264,7 @@ class RankDraws:
         cell of a rank r is ``clip(r, lo1, hi1) + clip(r, lo2, hi2) + key0``, a sum of two clipped
         ramps that is strictly increasing over those classes, so one bincount counts both sides.
         When the two windows overlap they are merged into one (window 2 empty: lo2 = hi2), which
-        both sides then read.
+        both sides then read. Returns each candidate's pilot ranks, sorted (k x n_pilot).
         """
         k = self.k
         n_pilot = sum(len(r) for r in pilot)
@@ -277,7 +277,6 @@ class RankDraws:
         if self.plan is not None:                     # how many draws in all, from the pilot
             self._plan_draws(by_col, n_pilot)
         first, wid = self._window_spans(by_col, n_pilot)
-        self.pilot_sorted = by_col                    # counted into the histogram by _count_sorted
         s1, e1 = first["low"], first["low"] + wid["low"]
         s2, e2 = first["high"], first["high"] + wid["high"]
         apart = s2 >= e1                              # window 2 starts after window 1 ends
@@ -301,6 +300,7 @@ class RankDraws:
                     "wid": {"low": w1, "high": np.where(apart, e2 - s2, w1)},
                     "off": {"low": np.ones(k, np.int64), "high": np.where(apart, w1 + 2, 1)},
                     "flush": -(-hist.size // k)}    # draws per count: at least the histogram's cells
+        return by_col                                 # the pilot's ranks, sorted: :meth:`_count_sorted` counts them
 
     def _count_sorted(self, by_col: np.ndarray):
         """Fold the pilot into the histogram from its ranks already sorted per candidate (rows of

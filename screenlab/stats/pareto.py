@@ -80,10 +80,10 @@ def pareto(kin, quality=None, metrics=("tof", "enhancement", "ea"), *, at_temper
         # t draws are symmetric, so sign * (mu + sigma T) is drawn as (sign * mu) + sigma T; an ee by
         # magnitude is folded as the ranking folds it, sign * |ee + sigma T| (it matters for an
         # interval that spans 0: drawing |ee| + sigma T would halve such a candidate's chances)
-        params = [(sign[i] * x, sig, df) if not a else (x, sig, df, sign[i])
-                  for i, (x, a, sig, df) in enumerate(zip(
-                      mus, absolute, (tb["sigma"].reindex(names).to_numpy(float) for tb in tabs),
-                      (tb["df"].reindex(names).to_numpy(float) for tb in tabs)))]
+        params = []
+        for tb, mu_i, fold, sg in zip(tabs, mus, absolute, sign):
+            sig_i, df_i = (tb[c].reindex(names).to_numpy(float) for c in ("sigma", "df"))
+            params.append((mu_i, sig_i, df_i, sg) if fold else (sg * mu_i, sig_i, df_i))
         base.loc[ok, "p_front"] = front_share(params, draws, seed)
     base = base.reset_index().rename(columns={"index": "catalyst"})
     base["_o"] = np.where(ok, 0, 1)
