@@ -18,6 +18,7 @@ import pytest
 from scipy import integrate, stats
 
 from screenlab.stats import montecarlo as M
+from screenlab import _parallel
 from screenlab.stats import sampling as S
 
 
@@ -336,7 +337,7 @@ def test_rank_summary_paths(monkeypatch, patch, kind):
 def test_rank_summary_workers_give_the_same_numbers(monkeypatch, workers):
     monkeypatch.setattr(S, "CHUNK_CELLS", 64)                 # ~ 3 draws per chunk at k = 20
     mu, sigma, df = _case(20, "mixed", 4)
-    monkeypatch.setattr(S, "n_workers", lambda n: workers)
+    monkeypatch.setattr(_parallel, "n_workers", lambda n: workers)
     got = M.rank_summary(mu, sigma, df, 400, seed=9, top_k=2, confidence=0.8, reference=19, pilot_draws=10)
     _check(got, _ref_summary(mu, sigma, df, 400, 9, 2, 0.8, 19))
     monkeypatch.setattr(M, "WINDOW_CELLS", 3)                 # and through the fallback
@@ -367,7 +368,7 @@ def test_rank_summary_worker_exception_raises(monkeypatch, workers, where):
     calls = {"n": 0}
     k, draws = 10, 200
     monkeypatch.setattr(S, "CHUNK_CELLS", 10 * k)            # 10 draws per chunk: 20 chunks
-    monkeypatch.setattr(S, "n_workers", lambda n: workers)
+    monkeypatch.setattr(_parallel, "n_workers", lambda n: workers)
     pilot = M.PILOT_DRAWS
     if where == "pilot":
         pilot, fail_at = 100, 3                               # 10 pilot chunks; the 3rd fails

@@ -1,5 +1,5 @@
 """``python -m screenlab.cli``: the same command line as the ``screenlab`` console script."""
-from screenlab.cli import main
+from screenlab.cli import console_main
 
 if __name__ == "__main__":
-    raise SystemExit(main())
+    console_main()

@@ -793,14 +793,25 @@ def fit_all(c: Courses, window_frac: float = 0.5, min_points: int = 3, iterative
     """Every law fitted to every well: ``{law: LawFit}`` (integrated laws and the early polynomial).
 
     ``iterative_rows``: fit the :data:`ITERATIVE` laws to these wells only (index array; the
-    others get a not-ok fit, to be completed by :func:`fit_iterative`); default all wells."""
-    zero = fit_zero_order(c)
-    first = fit_first_order(c)
-    out = {"zero_order": zero, "first_order": first}
+    others get a not-ok fit, to be completed by :func:`fit_iterative`); default all wells.
+
+    The laws are fitted two at a time where there are two CPUs (:mod:`screenlab._parallel`): zero
+    order beside first order, then the saturation law beside the other iterative ones, each on
+    its own copy of nothing but the courses and the one-parameter fits (the same numbers as one
+    after the other)."""
+    from screenlab._parallel import executor
+
     rows = np.arange(c.shape[0]) if iterative_rows is None else np.asarray(iterative_rows, dtype=np.int64)
-    for law in ITERATIVE:
-        out[law] = fit_iterative(law, c, rows, out)
-    out[GENERIC] = fit_early_polynomial(c, early_window(c, window_frac, min_points))
+    with executor(2) as pool:
+        zero = pool.submit(fit_zero_order, c)
+        first = fit_first_order(c)
+        one_param = {"zero_order": zero.result(), "first_order": first}
+        side = pool.submit(fit_iterative, ITERATIVE[0], c, rows, dict(one_param))
+        out = dict(one_param)
+        for law in ITERATIVE[1:]:
+            out[law] = fit_iterative(law, c, rows, one_param)
+        out[GENERIC] = fit_early_polynomial(c, early_window(c, window_frac, min_points))
+        out[ITERATIVE[0]] = side.result()
     return {law: out[law] for law in (*INTEGRATED, GENERIC)}
 
 

@@ -7,15 +7,14 @@
 * :func:`order_stat_index`: the order statistic numpy's ``inverted_cdf`` quantile reads;
 * :func:`draw_chunks`: draws split into chunks of at most :data:`CHUNK_CELLS` numbers, one child
   seed each (so a chunk can be drawn again with the same numbers);
-* :func:`executor`: a thread pool over those chunks (or, with one CPU or one task, an inline
-  stand-in that runs each task when its result is asked for).
+* :func:`executor` (from :mod:`screenlab._parallel`): a thread pool over those chunks (or, with one
+  CPU or one task, an inline stand-in that runs each task when its result is asked for).
 """
 from __future__ import annotations
 
-import os
-from concurrent.futures import ThreadPoolExecutor
-
 import numpy as np
+
+from screenlab._parallel import executor
 
 #: elements per chunk of draws (draws x candidates); bounds the memory of every Monte Carlo step
 CHUNK_CELLS = 1 << 21
@@ -140,49 +139,5 @@ def draw_chunks(draws: int, k: int, seed, per_cell: int = 1) -> list[tuple[int, 
     return list(zip(sizes, np.random.SeedSequence(seed).spawn(len(sizes))))
 
 
-def n_workers(n_tasks: int) -> int:
-    """Worker threads for ``n_tasks`` independent chunks: at most the usable CPUs, at most 4."""
-    try:
-        cpus = len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        cpus = os.cpu_count() or 1
-    return max(1, min(n_tasks, cpus, 4))
-
-
-class _Deferred:
-    """A future run in the calling thread when its result is first asked for."""
-
-    def __init__(self, fn, args):
-        self._fn, self._args, self._done, self._value = fn, args, False, None
-
-    def result(self):
-        if not self._done:
-            self._value, self._done = self._fn(*self._args), True
-            self._fn = self._args = None
-        return self._value
-
-
-class _Inline:
-    """The part of a thread pool's interface used here, run in the calling thread (one task or one
-    CPU): ``submit`` is deferred until its result is asked for, so tasks run in the order their
-    results are read, as a pool's workers would let them finish."""
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        return False
-
-    @staticmethod
-    def submit(fn, *args):
-        return _Deferred(fn, args)
-
-
-def executor(n_tasks: int):
-    """A thread pool of :func:`n_workers` threads, or the inline stand-in when that is one."""
-    n = n_workers(n_tasks)
-    return ThreadPoolExecutor(max_workers=n) if n > 1 else _Inline()
-
-
-__all__ = ["CHUNK_CELLS", "NORMAL_DF", "desc_int32", "draw_chunks", "draw_matrix", "executor", "n_workers",
+__all__ = ["CHUNK_CELLS", "NORMAL_DF", "desc_int32", "draw_chunks", "draw_matrix", "executor",
            "order_desc", "order_stat_index", "rank_draws", "ranks_from_order"]

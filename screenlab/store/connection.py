@@ -16,6 +16,7 @@ from __future__ import annotations
 import os
 import re
 import time
+import weakref
 from importlib import resources
 from pathlib import Path
 
@@ -32,6 +33,14 @@ BUILTIN_EXTENSIONS = frozenset({"core_functions", "icu", "json", "parquet"})
 
 _CONFIG = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 _LOCK_WORDS = ("could not set lock", "conflicting lock")
+#: every connection :func:`open_connection` handed out that is still alive (closed ones drop out
+#: when their last reference goes); the command line ends its process early only when it is empty
+_LIVE: weakref.WeakSet = weakref.WeakSet()
+
+
+def live_connections() -> int:
+    """How many connections from :func:`open_connection` are still referenced."""
+    return len(_LIVE)
 
 
 def busy_timeout(value: float | None) -> float:
@@ -55,7 +64,9 @@ def open_connection(path: Path, read_only: bool, busy_timeout_s: float) -> duckd
     delay = 0.05
     while True:
         try:
-            return duckdb.connect(str(path), read_only=read_only, config=dict(_CONFIG))
+            con = duckdb.connect(str(path), read_only=read_only, config=dict(_CONFIG))
+            _LIVE.add(con)
+            return con
         except duckdb.IOException as exc:
             text = str(exc)
             if not any(w in text.lower() for w in _LOCK_WORDS):
