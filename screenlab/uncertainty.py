@@ -37,12 +37,30 @@ def t_ppf(p, df) -> np.ndarray:
         # blank rows of a well column, cost nothing); the same element-wise numbers
         out = np.full(df.shape, np.nan)
         with np.errstate(invalid="ignore"):
-            out[finite] = special.stdtrit(df[finite], p)
+            out[finite] = _stdtrit_split(df[finite], float(p))
         out[np.isposinf(df)] = special.ndtri(p)
         return out
     with np.errstate(invalid="ignore"):
         out = np.where(finite, special.stdtrit(np.where(finite, df, 1.0), p), np.nan)
     return np.where(np.isposinf(df), special.ndtri(p), out)
+
+
+#: above this many quantiles in one call, :func:`t_ppf` splits them over two worker threads
+#: (``stdtrit`` is element-wise and runs without the GIL: the same numbers, in about half the time)
+SPLIT_MIN = 8192
+
+
+def _stdtrit_split(df: np.ndarray, p: float) -> np.ndarray:
+    """``special.stdtrit(df, p)`` for a 1-D ``df``, in two halves side by side when it is long."""
+    if df.size < SPLIT_MIN:
+        return special.stdtrit(df, p)
+    from screenlab._parallel import executor
+
+    half = df.size // 2
+    with executor(2) as pool:
+        first = pool.submit(special.stdtrit, df[:half], p)
+        second = special.stdtrit(df[half:], p)
+        return np.concatenate([first.result(), second])
 
 
 def t_quantile(confidence: float, df) -> np.ndarray:

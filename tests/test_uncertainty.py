@@ -36,6 +36,21 @@ def test_t_quantile_of_a_long_column_of_repeated_dfs_is_scipy_stats_elementwise(
     np.testing.assert_allclose(got, ref, rtol=1e-12, equal_nan=True)
 
 
+def test_a_long_column_of_distinct_dfs_is_scipy_stats_bit_for_bit(monkeypatch):
+    # a column too long and too varied for the distinct-df shortcut (Welch dfs of every well) goes
+    # through the two-thread split: each element still what scipy.stats.t.ppf gives it, in order
+    from screenlab import _parallel, uncertainty
+
+    monkeypatch.setattr(_parallel, "n_workers", lambda n: 2)
+    rng = np.random.default_rng(5)
+    df = rng.uniform(0.8, 80.0, uncertainty.SPLIT_MIN * 2 + 7)
+    df[::97] = np.nan
+    df[::101] = np.inf
+    ref = np.where(np.isfinite(df), stats.t.ppf(0.975, np.where(np.isfinite(df), df, 1.0)), np.nan)
+    ref = np.where(np.isposinf(df), stats.norm.ppf(0.975), ref)
+    np.testing.assert_array_equal(t_quantile(0.95, df), ref)
+
+
 # t_ppf / norm_ppf / quantiles: the numbers of scipy.stats.t.ppf and norm.ppf without loading
 # scipy.stats (reference: scipy.stats itself, bit for bit, where the core calls them)
 def test_t_and_normal_quantiles_equal_scipy_stats():
