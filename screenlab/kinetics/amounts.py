@@ -256,9 +256,8 @@ def _add_enantiomer_sum(out: pd.DataFrame, pair, main: str, wells: pd.DataFrame,
     both = out[out["analyte"].isin(list(pair))]
     if both.empty:
         return out
-    summed = (both.groupby(["plate", "well", "time_h"], sort=False, dropna=False)
-              .agg(product_mM=("product_mM", "sum"), n=("product_mM", "count"))
-              .reset_index())
+    by = both.groupby(["plate", "well", "time_h"], sort=False, dropna=False)["product_mM"]
+    summed = pd.DataFrame({"product_mM": by.sum(), "n": by.count()}).reset_index()
     # a sum is only meaningful where both enantiomers have a value at that time
     summed.loc[summed["n"] < 2, "product_mM"] = np.nan
     summed = summed.merge(wells, on=["plate", "well"], how="left")
