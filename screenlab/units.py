@@ -22,13 +22,19 @@ boundary. Unit words are matched case-insensitively; ``µ`` and ``u`` are the sa
 from __future__ import annotations
 
 import numpy as np
-from scipy import constants as _c
 
-#: Molar gas constant, J mol-1 K-1 (CODATA, exact since the 2019 SI; via scipy.constants).
-R_J_MOL_K: float = _c.R
-#: Boltzmann constant, J K-1, and Planck constant, J s (exact; via scipy.constants).
-KB_J_K: float = _c.k
-H_J_S: float = _c.h
+# The defining constants of the 2019 SI are exact (BIPM, The International System of Units,
+# 9th ed., 2019, Table 1); CODATA lists them as exact. Written here rather than read from
+# scipy.constants at import (which parses the whole CODATA table, a few ms of every command's
+# start-up); tests/test_units_plates.py checks each against scipy.constants, bit for bit.
+#: Boltzmann constant, J K-1 (exact).
+KB_J_K: float = 1.380649e-23
+#: Planck constant, J s (exact).
+H_J_S: float = 6.62607015e-34
+#: Avogadro constant, mol-1 (exact).
+NA_PER_MOL: float = 6.02214076e23
+#: Molar gas constant, J mol-1 K-1: N_A k, exact since the 2019 SI.
+R_J_MOL_K: float = NA_PER_MOL * KB_J_K
 #: 0 degC in kelvin (exact by definition).
 ZERO_C_IN_K: float = 273.15
 

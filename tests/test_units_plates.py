@@ -17,6 +17,9 @@ def test_gas_constant_is_codata():
     # CODATA (exact since the 2019 SI), via scipy.constants: R = N_A k_B = 8.31446261815324 J/mol/K
     assert units.R_J_MOL_K == pytest.approx(8.31446261815324, rel=1e-15)
     assert units.R_J_MOL_K == pytest.approx(constants.N_A * constants.k, rel=1e-15)
+    # the constants written in units.py are CODATA's, via scipy.constants, to the last bit
+    assert units.R_J_MOL_K == constants.R == constants.physical_constants["molar gas constant"][0]
+    assert units.KB_J_K == constants.k and units.H_J_S == constants.h and units.NA_PER_MOL == constants.N_A
 
 
 def test_celsius_to_kelvin_uses_273_15():
