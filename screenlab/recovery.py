@@ -114,8 +114,9 @@ def run_study(seeds, spec: KineticsSpec | None = None, settings=None, *, plain: 
         # a lower bound (the blank below its detection limit): the estimate must not exceed the truth
         r["enh_bound_holds"] = np.where(np.isposinf(r["enhancement_ci_high"]), r["enhancement"] <= r["enh_true"],
                                         np.nan)
-        # TON's interval as the ranking draws it: log-normal, ton_se / ton on t(ton_df)
-        with np.errstate(invalid="ignore", divide="ignore"):
+        # TON's interval as the ranking draws it: log-normal, ton_se / ton on t(ton_df) (a TON near
+        # zero with an SE hundreds of times itself: exp overflows to an upper end at infinity)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             q_ton = t_quantile(st.confidence, r["ton_df"].to_numpy(float))
             ln_half = q_ton * r["ton_se"].to_numpy(float) / r["ton"].to_numpy(float)
             ton_lo, ton_hi = r["ton"] * np.exp(-ln_half), r["ton"] * np.exp(ln_half)
