@@ -51,6 +51,16 @@ def test_one_cpu_runs_each_task_when_its_result_is_read(monkeypatch):
     assert ran == ["b", "a"]
 
 
+def test_small_fits_stay_on_one_thread(monkeypatch):
+    # below PARALLEL_MIN_WELLS the fits run inline: no pool is started
+    started = []
+    real = _parallel.executor
+    monkeypatch.setattr(_parallel, "executor", lambda n: started.append(n) or real(n))
+    with np.errstate(all="ignore"):
+        RL.fit_all(_mixed_courses(G=60))
+    assert started == [1]
+
+
 def test_n_workers_is_bounded_by_tasks_cpus_and_the_cap():
     assert _parallel.n_workers(1) == 1
     assert 1 <= _parallel.n_workers(100) <= _parallel.MAX_WORKERS
@@ -77,6 +87,7 @@ def _mixed_courses(seed=3, G=240):
 @pytest.mark.parametrize("rows", ["all", "some"])
 def test_fit_all_gives_the_same_numbers_on_one_thread_and_on_two(monkeypatch, rows):
     c = _mixed_courses()
+    monkeypatch.setattr(RL, "PARALLEL_MIN_WELLS", 1)          # threads at this size too
     iterative_rows = None if rows == "all" else np.arange(0, c.shape[0], 3)
     fits = {}
     for workers in (1, 2):

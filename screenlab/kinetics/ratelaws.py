@@ -789,20 +789,27 @@ def fit_iterative(law: str, c: Courses, rows: np.ndarray, fits: dict[str, LawFit
     return scatter(f, rows, fits.get(law), c.n)
 
 
+#: wells from which :func:`fit_all` fits two laws at a time: below it the fits are bound by
+#: numpy's per-call overhead, which holds the GIL, and two threads only slow each other down
+#: (measured with scripts/benchmark.py's campaigns: 4 plates 24 -> 30 ms on two threads;
+#: 400 plates, 38,000 wells, about 0.1 s faster)
+PARALLEL_MIN_WELLS = 8000
+
+
 def fit_all(c: Courses, window_frac: float = 0.5, min_points: int = 3, iterative_rows=None) -> dict[str, LawFit]:
     """Every law fitted to every well: ``{law: LawFit}`` (integrated laws and the early polynomial).
 
     ``iterative_rows``: fit the :data:`ITERATIVE` laws to these wells only (index array; the
     others get a not-ok fit, to be completed by :func:`fit_iterative`); default all wells.
 
-    The laws are fitted two at a time where there are two CPUs (:mod:`screenlab._parallel`): zero
-    order beside first order, then the saturation law beside the other iterative ones, each on
-    its own copy of nothing but the courses and the one-parameter fits (the same numbers as one
-    after the other)."""
+    With two CPUs and at least :data:`PARALLEL_MIN_WELLS` wells the laws are fitted two at a time
+    (:mod:`screenlab._parallel`): zero order beside first order, then the saturation law beside
+    the other iterative ones, sharing nothing but the (read-only) courses and one-parameter fits,
+    so the numbers are those of one after the other."""
     from screenlab._parallel import executor
 
     rows = np.arange(c.shape[0]) if iterative_rows is None else np.asarray(iterative_rows, dtype=np.int64)
-    with executor(2) as pool:
+    with executor(2 if c.shape[0] >= PARALLEL_MIN_WELLS else 1) as pool:
         zero = pool.submit(fit_zero_order, c)
         first = fit_first_order(c)
         one_param = {"zero_order": zero.result(), "first_order": first}
