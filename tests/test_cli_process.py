@@ -67,3 +67,39 @@ def test_exit_handlers_still_run(tmp_path):
         out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120, cwd=tmp_path)
         assert out.returncode == code_expected, out.stderr
         assert marker.read_text() == "yes"
+
+
+def _shell(command: str, cwd):
+    env = {k: v for k, v in __import__("os").environ.items() if k != "PYTHONUNBUFFERED"}  # buffered, as usual
+    return subprocess.run(["sh", "-c", command], capture_output=True, text=True, timeout=300, cwd=cwd, env=env)
+
+
+def test_output_that_cannot_be_written_is_an_error(tmp_path, write_sample_campaign):
+    # a full disk (Linux's /dev/full): the lost output is reported and the status is Python's 120
+    import pytest
+
+    if not Path("/dev/full").exists():
+        pytest.skip("no /dev/full on this system")
+    folder = write_sample_campaign(tmp_path / "campaign", name="proc-full")
+    store = tmp_path / "s.duckdb"
+    _screenlab("ingest", folder, "--store", store, cwd=tmp_path)
+    out = _shell(f"{sys.executable} -W ignore -m screenlab campaigns --store {store} > /dev/full", cwd=tmp_path)
+    assert out.returncode == 120 and "cannot write the output" in out.stderr, (out.returncode, out.stderr)
+
+
+def test_a_closed_stdout_or_a_profiler_take_the_usual_ending(tmp_path, write_sample_campaign):
+    folder = write_sample_campaign(tmp_path / "campaign", name="proc-close")
+    store = tmp_path / "s.duckdb"
+    _screenlab("ingest", folder, "--store", store, cwd=tmp_path)
+    # started with stdout closed (cron, >&-): the backup is written and the status is 0
+    closed = _shell(f"{sys.executable} -W ignore -m screenlab backup --store {store} --out {tmp_path / 'bk'} >&-",
+                    cwd=tmp_path)
+    assert closed.returncode == 0, closed.stderr
+    assert any((tmp_path / "bk").iterdir())
+    # a profiler writes its results after the program returns: the early end must leave it room
+    prof = tmp_path / "rank.prof"
+    run = subprocess.run([sys.executable, "-W", "ignore", "-m", "cProfile", "-o", str(prof), "-m", "screenlab",
+                          "rank", "--store", str(store), "--campaign", "proc-close", "--format", "csv"],
+                         capture_output=True, text=True, timeout=300, cwd=tmp_path)
+    assert run.returncode == 0, run.stderr
+    assert prof.stat().st_size > 0

@@ -81,34 +81,50 @@ def console_main() -> None:
     the process.
 
     The process ends with :func:`os._exit` after its output is flushed and its exit handlers have
-    run, where nothing else is left to finish: no other thread, no store connection still open. What
-    that skips is the interpreter's teardown, which frees the tens of thousands of objects pandas,
+    run, where nothing else is left to finish: no other thread, no store connection still open, no
+    profiler or tracer attached (they write their results after the program returns). What that
+    skips is the interpreter's teardown, which frees the tens of thousands of objects pandas,
     pyarrow and DuckDB leave behind one by one (0.1-0.2 s of a 4-plate ``screenlab rank``) for
     memory the operating system takes back anyway. Elsewhere (or where ``atexit`` cannot be run by
-    hand) the usual :func:`sys.exit`. :func:`main` itself never ends the process: tests and the
-    Python API call it in-process.
+    hand) the usual :func:`sys.exit`. Output that cannot be written (a full disk, an I/O error) is
+    reported on stderr and ends the process with status 120, as Python's own exit would; a reader
+    that closed the pipe (``| head``) is not an error. :func:`main` itself never ends the process:
+    tests and the Python API call it in-process.
     """
-    code = main()
-    _flush_output()
+    code = _flushed(main())
     connection = sys.modules.get("screenlab.store.connection")
     if (threading.active_count() == 1 and (connection is None or connection.live_connections() == 0)
-            and hasattr(atexit, "_run_exitfuncs")):
+            and sys.getprofile() is None and sys.gettrace() is None and hasattr(atexit, "_run_exitfuncs")):
         atexit._run_exitfuncs()
-        _flush_output()
-        os._exit(code)
+        os._exit(_flushed(code))
     sys.exit(code)
 
 
-def _flush_output() -> None:
-    """Flush stdout and stderr; a reader that closed the pipe (``| head``) is not an error of ours."""
+#: exit status when the output could not be written (Python's own, for a failed flush at exit)
+OUTPUT_ERROR_STATUS = 120
+
+
+def _flushed(code: int) -> int:
+    """Flush stdout and stderr and return the exit status: ``code``, or
+    :data:`OUTPUT_ERROR_STATUS` when stdout could not be written (reported on stderr)."""
     for stream in (sys.stdout, sys.stderr):
+        if stream is None:                       # started with the stream closed (cron, >&-)
+            continue
         try:
             stream.flush()
-        except BrokenPipeError:
+        except BrokenPipeError:                  # the reader went away (| head): not an error of ours
             try:
                 devnull = os.open(os.devnull, os.O_WRONLY)
                 os.dup2(devnull, stream.fileno())
             except (OSError, ValueError):
                 pass
-        except (OSError, ValueError):  # closed or detached: nothing left to write to
+        except ValueError:                       # closed or detached by the command: nothing to write
             pass
+        except OSError as exc:                   # a full disk, a quota, an I/O error: the output is lost
+            if stream is sys.stdout:
+                try:
+                    os.write(2, f"screenlab: cannot write the output: {exc}\n".encode())
+                except OSError:
+                    pass
+                code = OUTPUT_ERROR_STATUS
+    return code

@@ -54,7 +54,7 @@ def molar_mass(formula: str) -> float:
 
 
 def arrhenius_factor(ea_kj_mol, t_c, tref_c):
-    """k(T) / k(Tref) = exp(-Ea/R (1/T - 1/Tref)) (R from scipy.constants via screenlab.units)."""
+    """k(T) / k(Tref) = exp(-Ea/R (1/T - 1/Tref)) (R = N_A k_B, exact in the 2019 SI: screenlab.units)."""
     ea = np.asarray(ea_kj_mol, dtype=float) * 1e3
     t = np.asarray(t_c, dtype=float) + ZERO_C_IN_K
     tr = np.asarray(tref_c, dtype=float) + ZERO_C_IN_K

@@ -72,7 +72,7 @@ at the campaign's standard substrate concentration), so courses saturate and fas
 first-order fit rather than the initial slope. `I(t)` integrates the activity
 `a(t) = (1 - exp(-t/tau)) exp(-kd t)` (induction time tau, deactivation constant kd; `a = 1` for
 ordinary catalysts). `k2`, `kd`, `1/tau` and `k_blank` follow Arrhenius about the reference
-temperature (R from scipy.constants). Active sites follow the campaign-format rules (umol x
+temperature (R = N_A k_B, exact in the 2019 SI). Active sites follow the campaign-format rules (umol x
 sites_per_unit; mg / molar mass; mg x metal_wt_pct/100 / metal molar mass x dispersion; mol% of
 the substrate). Each well's catalyst amount scatters log-normally (6 % for stock solutions, 10 % for
 weighed solids, 8 % for supported metals) to mimic dispensing. Molar masses come from IUPAC

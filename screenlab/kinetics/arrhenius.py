@@ -15,7 +15,7 @@ one point per temperature: y = ln TOF (TOF in h-1) against x = 1/T, T = t + 273.
   replicates' and intervals use the normal quantile (``fit_df`` = inf). Unweighted fits use the
   residual variance (OLS) and t with df = n_T - 2. With two temperatures the line goes through both points: estimates
   without SE or CI (flag ``two_temperatures``); with one there is no estimate (``one_temperature``).
-* Ea = -slope x R (R from scipy.constants), ln A = intercept (A in h-1).
+* Ea = -slope x R (R = N_A k_B, exact in the 2019 SI: :data:`screenlab.units.R_J_MOL_K`), ln A = intercept (A in h-1).
 * **Eyring** (transition-state theory, transmission coefficient kappa = 1): ln(TOF/T) with TOF in
   s-1 against 1/T, same weights: dH = -slope x R, dS = R (intercept - ln(kB/h)),
   dG(T_ref) = dH - T_ref dS, SEs from the parameter covariance. TOF is treated as a first-order
