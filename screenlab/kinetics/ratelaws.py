@@ -812,8 +812,8 @@ def fit_all(c: Courses, window_frac: float = 0.5, min_points: int = 3, iterative
     with executor(2 if c.shape[0] >= PARALLEL_MIN_WELLS else 1) as pool:
         zero = pool.submit(fit_zero_order, c)
         first = fit_first_order(c)
-        one_param = {"zero_order": zero.result(), "first_order": first}
-        side = pool.submit(fit_iterative, ITERATIVE[0], c, rows, dict(one_param))
+        one_param = {"zero_order": zero.result(), "first_order": first}   # read by both threads, written by neither
+        side = pool.submit(fit_iterative, ITERATIVE[0], c, rows, one_param)
         out = dict(one_param)
         for law in ITERATIVE[1:]:
             out[law] = fit_iterative(law, c, rows, one_param)
