@@ -110,3 +110,20 @@ def test_arrhenius_axes_share_their_span_so_slopes_compare():
     r1, r2 = f.layout.yaxis.range, f.layout.yaxis2.range
     assert abs((r1[1] - r1[0]) - (r2[1] - r2[0])) < 1e-12
     assert r2[0] <= np.log(0.01) and np.log(0.3) <= r2[1] and r1[0] <= np.log(10) and np.log(40) <= r1[1]
+    # both axes tick at round values from 0 with one step, so the right axis reads 0, -1, -2, ...
+    # rather than offsets of the left axis' grid
+    for ax in (f.layout.yaxis, f.layout.yaxis2):
+        assert ax.tickmode == "linear" and ax.tick0 == 0 and ax.dtick == f.layout.yaxis.dtick
+
+
+def test_nice_step_is_one_two_or_five_times_a_power_of_ten():
+    from screenlab.viz.figures import nice_step
+
+    # the rule in plain lines (common practice, no source): the smallest 1/2/5 x 10^k at least span/7
+    for span, want in [(7.0, 1.0), (3.5, 0.5), (4.4, 1.0), (1.0, 0.2), (70.0, 10.0), (0.07, 0.01), (15.0, 5.0)]:
+        assert np.isclose(nice_step(span), want), (span, nice_step(span))
+    rng = np.random.default_rng(0)
+    for span in 10 ** rng.uniform(-3, 3, 200):
+        step = nice_step(span)
+        mant = step / 10 ** np.floor(np.log10(step) + 1e-9)
+        assert np.isclose(mant, [1, 2, 5, 10]).any() and span / step <= 7 * (1 + 1e-9) and span / step > 7 / 2.5 - 1e-9

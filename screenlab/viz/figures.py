@@ -59,6 +59,14 @@ def _layout(fig: go.Figure, title: str | None = None, **kw) -> go.Figure:
     return fig
 
 
+def nice_step(span: float, target: int = 7) -> float:
+    """A tick step of 1, 2 or 5 x 10^k giving about ``target`` ticks (at most that many intervals)
+    over ``span`` (> 0)."""
+    raw = float(span) / target
+    mag = 10.0 ** math.floor(math.log10(raw))
+    return next(m * mag for m in (1.0, 2.0, 5.0, 10.0) if m * mag >= raw * (1 - 1e-12))
+
+
 def series_colours(n: int) -> list[str]:
     """n evenly spaced Viridis colours (stopping short of the pale yellow end)."""
     return list(_series_colours(int(n)))
@@ -297,9 +305,12 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
         (l0, l1), (r0, r1) = _span(False), _span(True)
         half = 0.55 * max(l1 - l0, r1 - r0, 0.5)
         lm, rm = (l0 + l1) / 2, (r0 + r1) / 2
-        fig.update_yaxes(range=[lm - half, lm + half])
+        # and the same round tick step from 0 (left alone, the right axis took ticks offset to the
+        # left one's grid lines, labelled 2.068, 1.568, ...)
+        step = nice_step(2 * half)
+        fig.update_yaxes(range=[lm - half, lm + half], tickmode="linear", tick0=0.0, dtick=step)
         extra["yaxis2"] = dict(title="ln(blank rate / mM h⁻¹)", overlaying="y", side="right", showgrid=False,
-                               range=[rm - half, rm + half])
+                               range=[rm - half, rm + half], tickmode="linear", tick0=0.0, dtick=step)
     fig = _layout(fig, title, height=480, **extra)
     # the top axis in °C helps reading; plotly cannot map it non-linearly, so ticks are placed by hand
     return fig
