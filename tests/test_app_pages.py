@@ -84,6 +84,13 @@ def test_rates(monkeypatch, demo_store):
     assert "Replicate time courses" in _texts(at)
     table = at.dataframe[0].value
     assert {"catalyst", "temperature_c", "tof_per_h", "tof_ci_low"} <= set(table.columns)
+    # the bounds line counts each kind the table holds and leaves out a kind it has none of
+    kinds = table["censored"].astype(str).value_counts() if "censored" in table else {}
+    line = next(t for t in _texts(at).splitlines() if t.startswith("Bounds:"))
+    for kind, words in (("lower", "faster than the first reading"), ("upper", "not distinguishable from the blank")):
+        n_kind = int(kinds.get(kind, 0))
+        assert (f"{n_kind} row" in line and words in line) if n_kind else words not in line, line
+    assert "0 row" not in line
     n = len(table)
     at.toggle(key="rates_standard").set_value(True).run()
     assert not at.exception
