@@ -33,11 +33,18 @@ def test_heatmap_puts_a1_top_left_and_values_in_place():
 
 def test_roles_differ_by_shape_and_not_only_by_colour():
     fig = figures.plate_heatmap(_plate(), "rate_mM_per_h", n_rows=8, n_cols=12)
-    symbols = {t.name: t.marker.symbol for t in fig.data[1:]}
+    wells = [t for t in fig.data[1:] if t.customdata is not None]     # the traces that draw wells
+    symbols = {t.name: t.marker.symbol for t in wells}
     assert len(set(symbols.values())) == len(symbols) == 4
     # every well name is there for click selection
-    names = np.concatenate([np.asarray(t.customdata) for t in fig.data[1:]])
+    names = np.concatenate([np.asarray(t.customdata) for t in wells])
     assert len(names) == 96
+    # each role has one legend entry, in its own shape and in a colour that shows on the white legend
+    entries = [t for t in fig.data[1:] if t.showlegend is not False]
+    assert sorted(t.name for t in entries) == sorted(symbols)
+    for t in entries:
+        assert t.marker.symbol == symbols[t.name]
+        assert not (t.marker.symbol.endswith("-open") and str(t.marker.color).lower() == "#ffffff"), t.name
 
 
 def test_viridis_is_the_perceptually_uniform_map():
@@ -83,7 +90,7 @@ def test_fitted_course_follows_the_core_parameters():
                                                     "law_p2": np.nan, "law_capped": True,
                                                     "substrate_conc_mM": 100.0}), t_end_h=10.0)
     assert np.isclose(curve["product_mM"].iloc[-1], 100.0 * (1 - np.exp(-2.0)))
-    assert "first order" in label
+    assert label == "first order: rate at t = 0 is 20 mM h⁻¹"
     # zero order runs out at t = 1/r: 0.25 h-1 -> flat at 100 mM from 4 h
     curve, _ = figures.fitted_course(pd.Series({"method": "zero_order", "rate_mM_per_h": 25.0, "law_p1": 0.25,
                                                 "law_capped": True, "substrate_conc_mM": 100.0}), t_end_h=10.0)

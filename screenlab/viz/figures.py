@@ -126,12 +126,19 @@ def plate_heatmap(wells: pd.DataFrame, value_col: str, *, n_rows: int, n_cols: i
         sub = wells[ok & (wells["role"].astype(str) == role).to_numpy()]
         if sub.empty:
             continue
+        # an open marker is drawn in its colour; a white one, made to show on the dark cells, would
+        # be invisible in the legend, which then gets a grey twin of it (same group: one click hides both)
+        white_open = symbol.endswith("-open") and colour.lower() == "#ffffff"
         fig.add_trace(go.Scatter(
             x=[x_labels[i] for i in sub["col"].astype(int)], y=[y_labels[i] for i in sub["row"].astype(int)],
             mode="markers", name=role_label, customdata=sub["well"].astype(str).to_numpy(),
             marker=dict(symbol=symbol, size=size, color=colour, line=dict(width=1.5, color="#444444")),
-            hovertemplate="%{customdata}<extra>" + role_label + "</extra>",
+            hovertemplate="%{customdata}<extra>" + role_label + "</extra>", legendgroup=role,
+            showlegend=not white_open,
         ))
+        if white_open:
+            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=role_label, legendgroup=role,
+                                     hoverinfo="skip", marker=dict(symbol=symbol, size=size, color="#444444")))
     if selected is not None:
         hit = wells[wells["well"].astype(str) == str(selected)]
         if not hit.empty and ok[wells.index.get_indexer(hit.index)].all():
@@ -514,7 +521,7 @@ def fitted_course(well: pd.Series, *, t_end_h: float, n: int = 60) -> tuple[pd.D
         else:
             y = np.asarray(ratelaws.predict(method, p1, p2, t), dtype=float) * scale
         return (pd.DataFrame({"time_h": t, "product_mM": y}),
-                f"{method.replace('_', ' ')}: rate at t = 0 {_fmt(rate)} mM h⁻¹")
+                f"{method.replace('_', ' ')}: rate at t = 0 is {_fmt(rate)} mM h⁻¹")
     return pd.DataFrame(columns=["time_h", "product_mM"]), "no rate"
 
 
