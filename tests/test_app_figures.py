@@ -123,6 +123,22 @@ def test_arrhenius_axes_share_their_span_so_slopes_compare():
         assert ax.tickmode == "linear" and ax.tick0 == 0 and ax.dtick == f.layout.yaxis.dtick
 
 
+def test_arrhenius_blanks_not_fitted_are_drawn_open():
+    import pandas as pd
+
+    from screenlab.viz.figures import arrhenius_plot
+
+    pts = pd.DataFrame({"catalyst": ["A"] * 3, "temperature_c": [40, 50, 60], "tof_per_h": [10, 20, 40.0]})
+    bp = pd.DataFrame({"temperature_c": [40, 50, 60], "blank_rate_mM_per_h": [0.01, 0.05, 0.3],
+                       "in_fit": [False, True, True]})
+    marks = {t.marker.symbol: len(t.x) for t in arrhenius_plot(pts, blank_points=bp).data if t.yaxis == "y2"}
+    assert marks == {"square": 2, "square-open": 1}
+    # without in_fit every blank point is drawn as fitted
+    bp_all = bp.drop(columns="in_fit")
+    assert {t.marker.symbol: len(t.x) for t in arrhenius_plot(pts, blank_points=bp_all).data
+            if t.yaxis == "y2"} == {"square": 3}
+
+
 def test_nice_step_is_one_two_or_five_times_a_power_of_ten():
     from screenlab.viz.figures import nice_step
 

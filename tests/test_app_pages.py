@@ -14,6 +14,17 @@ import pytest
 from apptest_pages import CAMPAIGN, _app, _page, _texts
 
 
+def _values(v) -> list:
+    """A plotly JSON array: a list, or numbers packed as base64 (``{"dtype", "bdata"}``)."""
+    if isinstance(v, dict) and "bdata" in v:
+        import base64
+
+        import numpy as np
+
+        return list(np.frombuffer(base64.b64decode(v["bdata"]), dtype=v["dtype"]))
+    return list(v)
+
+
 def _figures(at) -> list[dict]:
     return [json.loads(el.proto.spec) for el in at.get("plotly_chart")]
 
@@ -108,12 +119,18 @@ def test_temperature_series(monkeypatch, demo_store):
     at = _page(monkeypatch, demo_store, "temperature")
     text = _texts(at)
     assert "Activation parameters" in text and "Activation-energy lowering" in text
+    ea = next(df.value for df in at.dataframe if "ea_kj_mol" in df.value.columns)
+    assert "(uncatalysed)" in set(ea["catalyst"].astype(str))
     fig = _figures(at)[0]
     assert fig["layout"]["xaxis"]["title"]["text"] == "1000/T / K⁻¹"
     assert any(t.get("fill") == "toself" for t in fig["data"])  # confidence bands
     assert any(t.get("yaxis") == "y2" for t in fig["data"])  # the uncatalysed line
-    ea = next(df.value for df in at.dataframe if "ea_kj_mol" in df.value.columns)
-    assert "(uncatalysed)" in set(ea["catalyst"].astype(str))
+    # its points are those the line is fitted to: one per plate x temperature at the main substrate
+    # level (the gradient plate's scaled blanks at other levels are not on it), open where not fitted
+    marks = [t for t in fig["data"] if t.get("yaxis") == "y2" and t.get("mode") == "markers"]
+    shown = sum(len(_values(t["x"])) for t in marks)
+    fitted = sum(len(_values(t["x"])) for t in marks if t["marker"]["symbol"] == "square")
+    assert shown == 5 and fitted == 4, (shown, fitted)   # demo: 5 plates (two at 60 C), the 40 C blank below its LOD
 
 
 def test_ranking_metric_change(monkeypatch, demo_store):

@@ -423,3 +423,26 @@ def test_empty_and_unnamed_catalysts():
     a = arrhenius_table(g, pd.DataFrame(columns=["n_blanks"]), AnalysisSettings())
     assert len(a) == 0 and list(a.columns) == COLUMNS
     assert len(arrhenius_table(g.iloc[:0], pd.DataFrame(columns=["n_blanks"]))) == 0
+
+
+def test_uncatalysed_points_are_one_substrate_level_without_scaled_blanks():
+    # the rule in plain lines (common practice, no source): a background rate belongs on the
+    # uncatalysed Arrhenius line only at the campaign's main substrate level, measured there (a
+    # level scaled from another is not a point of its own); a blank below its LOD is not fitted
+    from screenlab.kinetics.arrhenius import uncatalysed_points
+
+    blanks = pd.DataFrame({
+        "plate": ["P40", "P50", "P60", "G60", "G60", "G60"],
+        "temperature_c": [40.0, 50.0, 60.0, 60.0, 60.0, 60.0],
+        "substrate_conc_mM": [200.0, 200.0, 200.0, 50.0, 200.0, 400.0],
+        "n_blanks": [6, 6, 6, 6, 6, 6],
+        "blank_rate_mM_per_h": [0.1, 0.5, 1.9, 0.49, 2.0, 3.9],
+        "blank_se_mM_per_h": [0.07, 0.1, 0.08, 0.02, 0.07, 0.15],
+        "blank_detected": [False, True, True, True, True, True],
+        "flags": ["blank_below_lod", "", "", "blank_scaled", "", "blank_scaled"]})
+    pts = uncatalysed_points(blanks)
+    assert list(pts["plate"]) == ["P40", "P50", "P60", "G60"]
+    assert list(pts["rate"]) == [0.1, 0.5, 1.9, 2.0] and list(pts["active"]) == [False, True, True, True]
+    # a level measured (not scaled) but less used than the main one stays off the line as well
+    other = blanks.assign(flags=["blank_below_lod", "", "", "", "", ""])
+    assert set(uncatalysed_points(other)["rate"]) == {0.1, 0.5, 1.9, 2.0}

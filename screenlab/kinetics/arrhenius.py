@@ -351,10 +351,12 @@ def plate_scatter(group_codes, n_groups: int, temperature_c, value, se) -> tuple
     return max(0.0, (float(np.sum(q[good])) - df) / denom), df
 
 
-def _uncatalysed_points(blanks: pd.DataFrame) -> pd.DataFrame:
-    """One point per plate x temperature at the blanks' most used substrate level: the blank mean
-    and its SE, ``active`` where the blank is above its detection limit. Levels scaled from another
-    level (flag ``blank_scaled``) are not points of their own."""
+def uncatalysed_points(blanks: pd.DataFrame) -> pd.DataFrame:
+    """The points of the uncatalysed Arrhenius line: one per plate x temperature at the blanks'
+    most used substrate level (``temperature_c, rate`` in mM/h, ``se``, ``active``, ``plate``), the
+    blank mean and its SE. Only ``active`` points (blank above its detection limit) are fitted.
+    Levels scaled from another level (flag ``blank_scaled``) are not points of their own, nor are
+    other substrate levels: a background rate at another concentration is not on this line."""
     b = blanks[blanks["n_blanks"] > 0].copy()
     if "flags" in b.columns:
         b = b[~has_flag(b["flags"], "blank_scaled")]
@@ -481,7 +483,7 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
         r["catalyst"] = np.asarray(cats, dtype=object)
         r["role"] = std["role"].to_numpy(dtype=object)[keep][first].astype(str)
         parts.append(pd.DataFrame(r, columns=COLUMNS))
-    pts = _uncatalysed_points(blanks)
+    pts = uncatalysed_points(blanks)
     if len(pts):
         act = pts["active"].to_numpy(bool)
         r = fit_temperature_series(pts["temperature_c"].to_numpy(float)[act], pts["rate"].to_numpy(float)[act],

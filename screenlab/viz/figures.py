@@ -225,9 +225,9 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
     value can lie (up for >=, down for <=; no series symbol looks like it), without error bars).
     prediction: the output of ``kinetics.arrhenius.predict_tof`` over a temperature grid
     (``catalyst, temperature_c, tof_per_h, tof_ci_low, tof_ci_high``): the fitted line and band.
-    blank_points (``temperature_c, blank_rate_mM_per_h``) and blank_prediction (predict_tof rows of
-    the uncatalysed fit, in mM h⁻¹) go on a second y axis, because the uncatalysed reaction has no
-    sites and so no TOF; both axes span the same number of ln units, so its slope (hence Ea) is
+    blank_points (``temperature_c, blank_rate_mM_per_h``, optional ``in_fit``: open squares where
+    false) and blank_prediction (predict_tof rows of the uncatalysed fit, in mM h⁻¹) go on a second
+    y axis, because the uncatalysed reaction has no sites and so no TOF; both axes span the same number of ln units, so its slope (hence Ea) is
     comparable by eye, its level is not.
     """
     fig = go.Figure()
@@ -287,11 +287,18 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
             ))
     has_blank = blank_points is not None and not blank_points.empty
     if has_blank:
-        fig.add_trace(go.Scatter(
-            x=_inv_t(blank_points["temperature_c"]), y=_ln(blank_points["blank_rate_mM_per_h"]), mode="markers",
-            name="uncatalysed (blank rate, right axis)", yaxis="y2", legendgroup="(uncatalysed)",
-            marker=dict(symbol="square", size=9, color="#000000"),
-        ))
+        fitted = (blank_points["in_fit"].fillna(False).astype(bool).to_numpy() if "in_fit" in blank_points
+                  else np.ones(len(blank_points), dtype=bool))
+        for use, name, symbol in ((fitted, "uncatalysed (blank rate, right axis)", "square"),
+                                  (~fitted, "uncatalysed, below detection limit (not fitted)", "square-open")):
+            bp_sub = blank_points[use]
+            if bp_sub.empty:
+                continue
+            fig.add_trace(go.Scatter(
+                x=_inv_t(bp_sub["temperature_c"]), y=_ln(bp_sub["blank_rate_mM_per_h"]), mode="markers",
+                name=name, yaxis="y2", legendgroup="(uncatalysed)",
+                marker=dict(symbol=symbol, size=9, color="#000000", line=dict(width=1.5, color="#000000")),
+            ))
     if blank_prediction is not None and not blank_prediction.empty:
         bp = blank_prediction.sort_values("temperature_c")
         fig.add_trace(go.Scatter(x=_inv_t(bp["temperature_c"]), y=_ln(bp["tof_per_h"]), mode="lines",

@@ -7,6 +7,7 @@ import streamlit as st
 
 from screenlab.app import cache, widgets
 from screenlab.app.app_pages import _common
+from screenlab.kinetics.arrhenius import uncatalysed_points
 from screenlab.viz import figures
 
 from screenlab.model import UNCATALYSED as UNCAT  # noqa: E402
@@ -45,7 +46,11 @@ pred = cache.arrhenius_prediction(ctx.path, ctx.read_only, ctx.version, ctx.camp
 cat_pred = pred[pred["catalyst"].astype(str).isin(chosen)]
 blank_pts = blank_pred = None
 if show_blank:
-    blank_pts = kin.blanks[["temperature_c", "blank_rate_mM_per_h"]]
+    # the points the uncatalysed line is fitted to (one substrate level, no scaled blanks), those
+    # below their detection limit drawn open
+    up = uncatalysed_points(kin.blanks)
+    blank_pts = pd.DataFrame({"temperature_c": up["temperature_c"], "blank_rate_mM_per_h": up["rate"],
+                              "in_fit": up["active"]})
     blank_pred = pred[pred["catalyst"].astype(str) == UNCAT]
 point_cols = [c for c in ("catalyst", "temperature_c", "tof_per_h", "tof_ci_low", "tof_ci_high", "in_arrhenius_fit",
                           "censored") if c in pts]
@@ -57,7 +62,8 @@ st.caption(f"Points: mean initial TOF per temperature at each catalyst's standar
            "Open symbols: points left out of the fit; barred arrows: bounds, not measured values (pointing up: "
            "faster than the first reading allows; down: not distinguishable from the blank), without intervals. "
            "The uncatalysed reaction (blank wells) has no sites, so it is drawn as ln(rate / mM h⁻¹) on the right "
-           "axis: compare its slope, not its height.")
+           "axis: compare its slope, not its height; its points are the blanks at the campaign's main substrate "
+           "level, open where a blank is below its detection limit (not fitted).")
 from screenlab.export.display import censored_values, show_bounds  # noqa: E402
 
 excluded = ~pts["in_arrhenius_fit"].astype(object).where(pts["in_arrhenius_fit"].notna(), True).astype(bool) \
