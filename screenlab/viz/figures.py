@@ -227,8 +227,9 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
     (``catalyst, temperature_c, tof_per_h, tof_ci_low, tof_ci_high``): the fitted line and band.
     blank_points (``temperature_c, blank_rate_mM_per_h``, optional ``in_fit``: open squares where
     false) and blank_prediction (predict_tof rows of the uncatalysed fit, in mM h⁻¹) go on a second
-    y axis, because the uncatalysed reaction has no sites and so no TOF; both axes span the same number of ln units, so its slope (hence Ea) is
-    comparable by eye, its level is not.
+    y axis, because the uncatalysed reaction has no sites and so no TOF; both axes span the same
+    number of ln units with the same tick step, so its slope (hence Ea) is comparable by eye, its
+    level is not.
     """
     fig = go.Figure()
     cats = list(dict.fromkeys(points["catalyst"].astype(str)))

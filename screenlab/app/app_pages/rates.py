@@ -69,10 +69,13 @@ if has_bounds:
     shown_view["censored"] = cens
     shown_view["bound_reason"] = pd.Series(cens).map({"lower": TOO_FAST, "upper": NOT_SHOWN_ACTIVE}).fillna("").to_numpy()
     n_low, n_up = int((cens == "lower").sum()), int((cens == "upper").sum())
-    parts = [f"{n_low} {'row' if n_low == 1 else 'rows'} faster than the first reading allows (≥, rerun at "
-             f"lower loading or temperature)" if n_low else "",
-             f"{n_up} {'row' if n_up == 1 else 'rows'} not distinguishable from the blank (≤)" if n_up else ""]
-    st.caption(f"Bounds: {', '.join(p for p in parts if p)}; their intervals are left empty.")
+    parts = []  # only the kinds of bound the table holds
+    if n_low:
+        parts.append(f"{n_low} row{'s' if n_low != 1 else ''} faster than the first reading allows (≥, rerun at "
+                     "lower loading or temperature)")
+    if n_up:
+        parts.append(f"{n_up} row{'s' if n_up != 1 else ''} not distinguishable from the blank (≤)")
+    st.caption(f"Bounds: {', '.join(parts)}; their intervals are left empty.")
 show = ["catalyst", "family", "role", "temperature_c", "TOF", *(["censored", "bound_reason"] if has_bounds else []),
         "loading", "loading_unit", "substrate_conc_mM", *factors,
         "n_wells", "rate_mM_per_h", "rate_sd_mM_per_h", "tof_per_h", "tof_ci_low", "tof_ci_high", "ton",
