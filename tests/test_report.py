@@ -3,8 +3,10 @@ plots that are well-formed SVG drawn to scale, flags in words, provenance and th
 from __future__ import annotations
 
 import math
+import re
 import shutil
 import xml.etree.ElementTree as ET
+from html import escape
 from html.parser import HTMLParser
 
 import numpy as np
@@ -39,7 +41,8 @@ class _Refs(HTMLParser):
     def handle_starttag(self, tag, attrs):
         self.tags.append(tag)
         for k, v in attrs:
-            if k in ("src", "href", "srcset", "data", "poster", "action", "xlink:href") and v:
+            if k in ("src", "href", "srcset", "data", "poster", "action", "xlink:href") and v \
+                    and not (k == "href" and v.startswith("#")):        # a link within the page fetches nothing
                 self.fetching.append((tag, k, v))
 
 
@@ -52,6 +55,59 @@ def _check_self_contained(html: str) -> _Refs:
     assert "http://" not in low and "https://" not in low and "@import" not in low and "url(" not in \
         low.replace("url(#", "")
     return p
+
+
+class _FlagCells(HTMLParser):
+    """The flag codes in table cells (``<code>`` inside ``<td>``, with their tooltip) and every
+    ``<code>``/meaning pair of the section after ``id='flags'``."""
+
+    def __init__(self):
+        super().__init__()
+        self.in_td = self.in_code = self.after = False
+        self.cells: list[tuple[str, str]] = []       # (code, tooltip) in the tables above the section
+        self.explained: dict[str, str] = {}          # code -> the row's meaning cell, in the section
+        self._row: list[str] = []
+        self._tip = ""
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if a.get("id") == "flags":
+            self.after = True
+        if tag == "td":
+            self.in_td = True
+            self._row.append("")
+        elif tag == "code":
+            self.in_code, self._tip = True, a.get("title", "")
+        elif tag == "tr":
+            self._row = []
+
+    def handle_endtag(self, tag):
+        if tag == "td":
+            self.in_td = False
+        elif tag == "code":
+            self.in_code = False
+        elif tag == "tr" and self.after and len(self._row) == 4:     # level, flag, rows, meaning
+            self.explained[self._row[1]] = self._row[3]
+
+    def handle_data(self, data):
+        if self.in_td and self._row:
+            self._row[-1] += data
+        if self.in_code and self.in_td and not self.after:
+            self.cells.append((data, self._tip))
+
+
+def _check_flag_cells(html: str, help_: dict[str, str]) -> None:
+    """The rule: a table cell shows a flag's code with its sentence as the tooltip, not the sentence
+    itself, and every code shown is explained once under "Flags in plain words"."""
+    p = _FlagCells()
+    p.feed(html)
+    assert p.cells, "no flag code in any table"
+    for code, tip in p.cells:
+        assert tip == help_[code], code
+        assert p.explained.get(code) == help_[code], f"{code} is not explained under 'Flags in plain words'"
+    above = html.split("id='flags'")[0]
+    for code in {c for c, _ in p.cells}:                       # each sentence only as a tooltip above
+        assert above.count(escape(help_[code])) == above.count(f">{code}</code>"), code
 
 
 def test_report_of_the_decision_is_self_contained_and_complete(two_rounds):
@@ -69,6 +125,11 @@ def test_report_of_the_decision_is_self_contained_and_complete(two_rounds):
     from screenlab.flags import flag_help
 
     assert flag_help()["edge_effect"] in html
+    _check_flag_cells(html, flag_help())
+    # the decision's constraints: no option left empty ("enantiomer: ;"), no float printed to 16 digits
+    cons = re.search(r"Constraints: ([^<]*)</p>", html).group(1)
+    assert not re.search(r": (;|$)", cons), cons
+    assert not re.search(r"\d\.\d{5,}", cons), cons
     # every SVG is well-formed XML
     for block in html.split("<svg")[1:]:
         ET.fromstring("<svg" + block.split("</svg>")[0] + "</svg>")

@@ -31,6 +31,13 @@ from screenlab.model import UNCATALYSED  # noqa: E402  (the one reserved name)
 #: benchmark always); the rest are counted
 MAX_RANKED_ROWS = 40
 MAX_UNRANKED_ROWS = 30
+#: the flags column's header: a link to the sentences (the cells hold the codes)
+_FLAGS_HEAD = "<a href='#flags'>flags</a>"
+#: how the report names a recorded decision's constraints where the key itself reads poorly
+_CONSTRAINT_LABELS = {"top_k": "top K", "monte_carlo_se": "largest Monte Carlo SE of a probability",
+                      "next_round_temperatures_c": "next-round temperatures / °C",
+                      "next_round_replicates": "next-round replicates",
+                      "include_transport_limited": "transport-limited candidates included"}
 
 _CSS = """
 :root { color-scheme: light; }
@@ -56,6 +63,7 @@ tr.bench td { background: #f3f3f3; }
 figure { margin: 10px 0; break-inside: avoid; }
 figcaption { font-size: 12px; color: #444; }
 code, .hash { font-family: "Courier New", monospace; font-size: 11.5px; word-break: break-all; }
+td code { word-break: normal; white-space: nowrap; }
 .muted { color: #666; }
 @page { size: A4; margin: 14mm; }
 @media print { body { margin: 0; max-width: none; font-size: 11.5px; } h2 { margin-top: 18px; }
@@ -107,11 +115,10 @@ def _codes(flags) -> list[str]:
     return [c for c in str(flags).split(";") if c]
 
 
-def _flag_words(flags, help_: dict[str, str]) -> str:
-    codes = _codes(flags)
-    if not codes:
-        return ""
-    return " ".join(_e(help_.get(c, c)) for c in codes)
+def _flag_cell(flags, help_: dict[str, str]) -> str:
+    """A table cell's flags: the codes, each with its sentence as a tooltip; the sentences
+    themselves are written once, under "Flags in plain words" (:func:`_flag_section`)."""
+    return " ".join(f"<code title='{_e(help_.get(c, 'no description'))}'>{_e(c)}</code>" for c in _codes(flags))
 
 
 def _metric_info(metric: str):
@@ -218,7 +225,7 @@ def _decision(rec: dict | None, rows: pd.DataFrame | None, help_: dict, current_
                    "on; the ranking further down is of the current data.</div>")
     if rows is not None and len(rows):
         hdr = ["#", "catalyst", "name", f"{_e(label)}{(' / ' + _e(unit)) if unit else ''} (interval)",
-               "rank (interval)", f"P(top {_e(rec.get('top_k'))})", "P(beats benchmark)", "basis", "flags"]
+               "rank (interval)", f"P(top {_e(rec.get('top_k'))})", "P(beats benchmark)", "basis", _FLAGS_HEAD]
         body, cls = [], []
         cens = censored_of(rows).tolist()
         for (_, r), c in zip(rows.iterrows(), cens):  # the chosen few and the benchmark
@@ -228,20 +235,22 @@ def _decision(rec: dict | None, rows: pd.DataFrame | None, help_: dict, current_
                          _e(estimate_text(r.get("estimate"), r.get("ci_low"), r.get("ci_high"), c)),
                          _e(f"{_int(r.get('rank'))} ({_int(r.get('rank_low'))}–{_int(r.get('rank_high'))})"),
                          _p(r.get("p_top")), _p(r.get("p_beats_reference")), _e(r.get("basis")),
-                         _flag_words(r.get("flags"), help_)])
+                         _flag_cell(r.get("flags"), help_)])
             cls.append("bench" if bench else "chosen")
         out.append(_table(hdr, body, classes=cls, numeric={3, 4, 5, 6}))
     cons = rec.get("constraints") or {}
     if cons:
         parts = []
         for k, v in cons.items():
-            if v is None:
+            if v is None or v == "":                              # an option that was not given
                 continue
             if isinstance(v, bool):
                 v = "yes" if v else "no"
+            elif isinstance(v, float):
+                v = number_text(v, 2)                             # e.g. a Monte Carlo SE, not 16 digits
             elif isinstance(v, (list, tuple)):
                 v = ", ".join(f"{x:g}" if isinstance(x, float) else str(x) for x in v) or "none"
-            parts.append(f"{_e(k.replace('_', ' '))}: {_e(v)}")
+            parts.append(f"{_e(_CONSTRAINT_LABELS.get(k, k.replace('_', ' ')))}: {_e(v)}")
         out.append("<p class='muted'>Constraints: " + "; ".join(parts) + "</p>")
     return "\n".join(out)
 
@@ -275,13 +284,13 @@ def _ranking(ranking: pd.DataFrame, metric: str, temperature_c, top_k: int, chos
                    f"and P(top {int(top_k)}) come from draws of every estimate's sampling distribution.</figcaption>"
                    f"</figure>")
         hdr = ["rank", "catalyst", "family", f"estimate{(' / ' + _e(unit)) if unit else ''} (interval)",
-               "rank interval", f"P(top {int(top_k)})", "P(best)", "basis", "flags"]
+               "rank interval", f"P(top {int(top_k)})", "P(best)", "basis", _FLAGS_HEAD]
         body, cls = [], []
         for (_, x), c in zip(shown.iterrows(), censored_of(shown).tolist()):  # display rows
             body.append([_int(x["rank"]), _e(x["catalyst"]), _e(x.get("family")),
                          _e(estimate_text(x["estimate"], x["ci_low"], x["ci_high"], c)),
                          _e(f"{_int(x['rank_low'])}–{_int(x['rank_high'])}"), _p(x["p_top"]), _p(x["p_best"]),
-                         _e(x.get("basis")), _flag_words(x.get("flags"), help_)])
+                         _e(x.get("basis")), _flag_cell(x.get("flags"), help_)])
             cls.append("chosen" if x["catalyst"] in chosen else ("bench" if str(x["role"]) == "reference" else ""))
         out.append(_table(hdr, body, classes=cls, numeric={0, 3, 4, 5, 6}))
         if len(ranked) > len(shown):
@@ -336,7 +345,7 @@ def _arrhenius(analysis, chosen: list[str], benchmark: list[str], help_: dict) -
     if len(fits):
         hdr = ["catalyst", "temperatures", "Ea / kJ mol⁻¹ (interval)",
                f"TOF at {analysis.settings.reference_temperature_c:g} °C / h⁻¹ (interval)", "ΔH‡ / kJ mol⁻¹",
-               "ΔS‡ / J mol⁻¹ K⁻¹", "flags"]
+               "ΔS‡ / J mol⁻¹ K⁻¹", _FLAGS_HEAD]
         rows = []
         for name in names:  # the chosen few
             f = fits[fits["catalyst"] == name]
@@ -346,7 +355,7 @@ def _arrhenius(analysis, chosen: list[str], benchmark: list[str], help_: dict) -
             rows.append([_e(name), _e(f"{_int(x['n_temperatures'])} ({_num(x['t_min_c'])}–{_num(x['t_max_c'])} °C)"),
                          _e(estimate_text(x["ea_kj_mol"], x["ea_ci_low"], x["ea_ci_high"])),
                          _e(estimate_text(x["tof_ref_per_h"], x["tof_ref_ci_low"], x["tof_ref_ci_high"])),
-                         _num(x["dh_kj_mol"]), _num(x["ds_j_mol_k"]), _flag_words(x["flags"], help_)])
+                         _num(x["dh_kj_mol"]), _num(x["ds_j_mol_k"]), _flag_cell(x["flags"], help_)])
         out.append(_table(hdr, rows, numeric={2, 3, 4, 5}))
     return "\n".join(out)
 
@@ -363,15 +372,19 @@ def _quality(analysis, help_: dict) -> str:
                f"flagged).</p>")
     rows = [[_e(x["plate"]), _num(x.get("temperature_c"), 4), _num(x.get("zprime")),
              _num(x.get("replicate_cv_median_pct")), _num(x.get("edge_p")), _e(x.get("status")),
-             _flag_words(x.get("flags"), help_)] for _, x in q.iterrows()]  # one per plate
-    out.append(_table(["plate", "T / °C", "Z'", "replicate CV (median) / %", "edge p", "status", "flags"], rows,
+             _flag_cell(x.get("flags"), help_)] for _, x in q.iterrows()]  # one per plate
+    out.append(_table(["plate", "T / °C", "Z'", "replicate CV (median) / %", "edge p", "status", _FLAGS_HEAD], rows,
                       numeric={1, 2, 3, 4}))
     return "\n".join(out)
 
 
-def _flag_section(analysis, ranking: pd.DataFrame, chosen: list[str], help_: dict) -> str:
+def _flag_section(analysis, ranking: pd.DataFrame, chosen: list[str], help_: dict,
+                  decision_rows: pd.DataFrame | None = None) -> str:
+    """Every flag code the report's tables show, with its sentence: per shortlisted candidate, then
+    counted at each level of the campaign (wells, groups, plates, Arrhenius fits, ranked candidates,
+    and the decision's rows as recorded)."""
     kin = analysis.kinetics
-    out = ["<h2>Flags in plain words</h2>"]
+    out = ["<h2 id='flags'>Flags in plain words</h2>"]
     if chosen:
         items = []
         rates = kin.rates.assign(catalyst=kin.rates["catalyst"].astype(str))
@@ -388,8 +401,12 @@ def _flag_section(analysis, ranking: pd.DataFrame, chosen: list[str], help_: dic
             items.append(f"<li><b>{_e(name)}</b>: " + (f"<ul>{words}</ul>" if codes else "no flag") + "</li>")
         out.append("<h3>Shortlisted candidates</h3><ul>" + "".join(items) + "</ul>")
     counts = []
-    for level, flags in (("wells", kin.wells["flags"]), ("catalyst x temperature groups", kin.rates["flags"]),
-                         ("plates", analysis.quality["flags"]), ("Arrhenius fits", kin.arrhenius["flags"])):
+    levels = [("wells", kin.wells["flags"]), ("catalyst x temperature groups", kin.rates["flags"]),
+              ("plates", analysis.quality["flags"]), ("Arrhenius fits", kin.arrhenius["flags"]),
+              ("ranked candidates", ranking["flags"] if "flags" in ranking else [])]
+    if decision_rows is not None and "flags" in decision_rows:
+        levels.append(("the decision's rows (as recorded)", decision_rows["flags"]))
+    for level, flags in levels:
         s = pd.Series(list(flags), dtype=object).dropna().astype(str)
         codes = s[s.str.len() > 0].str.split(";").explode()
         codes = codes[codes.str.len() > 0]
@@ -464,14 +481,14 @@ def campaign_report(analysis, ranking: pd.DataFrame, *, campaign: str, metric: s
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
         f"<title>{_e(title)}</title>", f"<style>{_CSS}</style>", "</head>", "<body>",
         f"<h1>{_e(title)}</h1>",
-        f"<p class='sub'>{_e(state)} · written {_e(created)} · every number with its interval; flags explained "
-        f"below</p>",
+        f"<p class='sub'>{_e(state)} · written {_e(created)} · every number with its interval; flags "
+        f"<a href='#flags'>explained below</a></p>",
         _summary(analysis, campaign, parent, list(children or [])),
         _decision(decision, decision_rows, help_, campaign_version),
         _ranking(ranking, metric, temperature_c, top_k, chosen, help_),
         _arrhenius(analysis, chosen, bench, help_),
         _quality(analysis, help_),
-        _flag_section(analysis, ranking, chosen, help_),
+        _flag_section(analysis, ranking, chosen, help_, decision_rows),
         _provenance(analysis, imports, files, campaign_version, decision, created),
         "<h2>Safety</h2>", f"<div class='safety'>{_e(SAFETY_NOTE.strip())}</div>",
         "</body>", "</html>",
