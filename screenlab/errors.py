@@ -54,8 +54,59 @@ class Problem:
         return f"{where}: {self.message}{val}"
 
 
+@dataclass(frozen=True)
+class ProblemGroup:
+    """The problems of one file that say the same thing about the same column and value on
+    several rows (one mistyped plate id or well name reported on each of its readings, say):
+    ``first`` (the one at the lowest row) and every ``rows`` it was found on, ascending."""
+
+    first: Problem
+    rows: tuple[int, ...]
+
+    def __str__(self) -> str:
+        p = self.first
+        if len(self.rows) <= 1:
+            return str(p)
+        where = f"{p.file}, rows {row_ranges(self.rows)} ({len(self.rows)} rows)"
+        if p.column is not None:
+            where += f", column '{p.column}'"
+        val = "" if p.value is None else f" (value {p.value!r})"
+        return f"{where}: {p.message}{val}"
+
+
+def row_ranges(rows, most: int = 6) -> str:
+    """Ascending row numbers as runs: ``2-9, 14, 20-25``; after ``most`` runs, ``and N more``."""
+    runs: list[list[int]] = []
+    for r in rows:
+        if runs and r == runs[-1][1] + 1:
+            runs[-1][1] = r
+        else:
+            runs.append([r, r])
+    text = [f"{a}" if a == b else f"{a}–{b}" for a, b in runs[:most]]
+    if len(runs) > most:
+        text.append(f"and {sum(b - a + 1 for a, b in runs[most:])} more")
+    return ", ".join(text)
+
+
+def group_problems(problems) -> list[ProblemGroup]:
+    """``problems`` with the same file, column, value and message on different rows gathered into
+    one :class:`ProblemGroup` each, in the order their first row was found; a problem of a whole
+    file (no row) stays alone."""
+    groups: dict[tuple, list[Problem]] = {}
+    for i, p in enumerate(problems):
+        key = (p.file, p.column, p.value, p.message) if p.row is not None else (i,)
+        groups.setdefault(key, []).append(p)
+    out = []
+    for members in groups.values():
+        rows = sorted({p.row for p in members if p.row is not None})
+        first = min(members, key=lambda p: (p.row is None, p.row or 0))
+        out.append(ProblemGroup(first, tuple(rows)))
+    return out
+
+
 class ValidationError(ScreenlabError, ValueError):
-    """A campaign folder failed validation; ``problems`` lists everything that was found."""
+    """A campaign folder failed validation; ``problems`` lists everything that was found (its
+    message gathers the problems that repeat over rows, :func:`group_problems`)."""
 
     def __init__(self, problems: list[Problem], *, source: str = "", cap: int = 50):
         self.problems = list(problems)
@@ -67,10 +118,12 @@ class ValidationError(ScreenlabError, ValueError):
         n = len(self.problems)
         head = f"{self.source}: " if self.source else ""
         lines = [f"{head}{n} problem{'s' if n != 1 else ''} found; nothing was written"]
-        for p in self.problems[: self.cap]:
-            lines.append(f"  - {p}")
-        if n > self.cap:
-            lines.append(f"  ... and {n - self.cap} more")
+        groups = group_problems(self.problems)
+        for g in groups[: self.cap]:
+            lines.append(f"  - {g}")
+        if len(groups) > self.cap:
+            rest = sum(max(len(g.rows), 1) for g in groups[self.cap:])
+            lines.append(f"  ... and {rest} more")
         return "\n".join(lines)
 
 

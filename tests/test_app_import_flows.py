@@ -88,7 +88,7 @@ def test_readings_flow_refuses_and_writes_nothing(setup, tmp_path):
     rd.to_csv(bad, index=False)
     _upload(at, "addr_files", [bad])
     problems = next(d.value for d in at.dataframe if "problem" in d.value.columns)
-    assert list(problems["row"]) == [5] and list(problems["column"]) == ["value"]
+    assert list(problems["rows"]) == ["5"] and list(problems["column"]) == ["value"]
     assert not [b for b in at.button if b.key == "addr_commit"]
     assert Store(store).table_counts() == before
 
@@ -111,7 +111,7 @@ def test_build_flow_assembles_checks_downloads_and_commits(setup, tmp_path):
     _upload(at, "build_layout", [bad])
     _upload(at, "build_readings", [sample / "readings.csv"])
     problems = next(d.value for d in at.dataframe if "problem" in d.value.columns)
-    assert ("layout.csv", 4, "well") in set(zip(problems["file"], problems["row"], problems["column"]))
+    assert ("layout.csv", "4", "well") in set(zip(problems["file"], problems["rows"], problems["column"]))
     assert not [b for b in at.button if b.key == "build_commit"]
     assert not Path(store).exists() or "built-in-app" not in Store(store).campaign_names()
     # the good layout: no problem, the zip holds the assembled folder, the commit imports it

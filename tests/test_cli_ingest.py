@@ -188,3 +188,51 @@ def test_busy_store_from_a_real_subprocess(tmp_path, write_sample_campaign):
     res = subprocess.run(CLI + ["ingest", str(folder), "--store", str(db)], capture_output=True, text=True,
                          timeout=120)
     assert res.returncode == 0 and "busy: new campaign" in res.stdout
+
+
+def test_a_mistyped_plate_id_is_one_line_of_the_message_with_its_rows(tmp_path, capsys, write_sample_campaign):
+    """A plate id mistyped in readings.csv is a problem on every reading of that plate; the message
+    gives it once, with its rows as runs, so that the other problems are not buried under it (the
+    problem list itself keeps one entry per row)."""
+    from screenlab.errors import ValidationError
+    from screenlab.ingest import read_campaign
+
+    folder = write_sample_campaign(tmp_path / "typo", name="typo")
+    text = (folder / "readings.csv").read_text().splitlines()
+    bad_rows = [i + 1 for i, line in enumerate(text) if line.startswith("P1,")]     # 1-based, header = row 1
+    text = [("PI," + line[3:]) if line.startswith("P1,") else line for line in text]
+    (folder / "readings.csv").write_text("\n".join(text) + "\n")
+    with open(folder / "readings.csv", "a") as fh:
+        fh.write("P2,Z99,1,5\n")                                                   # an unrelated problem after them
+    with pytest.raises(ValidationError) as exc:
+        read_campaign(folder)
+    unknown = [p for p in exc.value.problems if "unknown plate" in p.message]
+    assert sorted(p.row for p in unknown) == bad_rows and len(bad_rows) > 50       # every row still listed
+    db = tmp_path / "s.duckdb"
+    code, _, err = run(capsys, "ingest", str(folder), "--store", str(db))
+    lines = [ln for ln in err.splitlines() if ln.startswith("  - ")]
+    typo = [ln for ln in lines if "unknown plate" in ln]
+    assert code == 1 and len(typo) == 1, lines[:5]
+    assert f"({len(bad_rows)} rows)" in typo[0] and "'PI'" in typo[0]
+    assert any("'Z99'" in ln for ln in lines) and "... and" not in err            # the other problem is shown
+    assert Store(db).campaign_names() == []
+
+
+def test_problem_groups_state_their_rule():
+    """The rule in plain lines: same file, column, value and message -> one group, its rows
+    ascending; a problem of a whole file (no row) alone; runs of consecutive rows joined."""
+    from screenlab.errors import Problem, group_problems, row_ranges
+
+    probs = [Problem("r.csv", 5, "plate", "PI", "unknown plate"), Problem("r.csv", 2, "plate", "PI", "unknown plate"),
+             Problem("r.csv", 3, "plate", "PI", "unknown plate"), Problem("r.csv", 4, "well", "Z9", "not a well"),
+             Problem("l.csv", 3, "plate", "PI", "unknown plate"), Problem("r.csv", None, None, None, "empty"),
+             Problem("r.csv", None, None, None, "empty"), Problem("r.csv", 9, "plate", "PI", "unknown plate")]
+    groups = group_problems(probs)
+    assert [(g.first.file, g.first.column, g.rows) for g in groups] == [
+        ("r.csv", "plate", (2, 3, 5, 9)), ("r.csv", "well", (4,)), ("l.csv", "plate", (3,)),
+        ("r.csv", None, ()), ("r.csv", None, ())]
+    assert groups[0].first.row == 2
+    assert str(groups[0]) == "r.csv, rows 2–3, 5, 9 (4 rows), column 'plate': unknown plate (value 'PI')"
+    assert str(groups[1]) == str(probs[3])                                       # a single row reads as before
+    assert row_ranges([1, 2, 3, 7, 9, 10]) == "1–3, 7, 9–10"
+    assert row_ranges(list(range(2, 40, 2)), most=3) == "2, 4, 6, and 16 more"

@@ -87,6 +87,17 @@ def _aligned(frame) -> str:
                            justify="left")
 
 
+def print_problems(label: str, problems) -> None:
+    """Every problem of a refused import on stderr, those that repeat over rows (a mistyped plate id
+    on each of its readings, say) on one line with their rows (:func:`screenlab.errors.group_problems`)."""
+    from screenlab.errors import group_problems
+
+    n = len(problems)
+    print(f"{label}: {n} problem{'s' if n != 1 else ''} found; nothing was written", file=sys.stderr)
+    for g in group_problems(problems):
+        print(f"  - {g}", file=sys.stderr)
+
+
 def load_stored_campaign(store_arg: str | None, campaign: str, *, history: bool = False):
     """The campaign's data from the store (and, with ``history``, its import records and file hashes).
 

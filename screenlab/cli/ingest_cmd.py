@@ -13,7 +13,7 @@ import sys
 import warnings
 from pathlib import Path
 
-from screenlab.cli.common import add_format_option, add_store_option, emit, resolve_store_path
+from screenlab.cli.common import add_format_option, add_store_option, emit, print_problems, resolve_store_path
 
 
 def register(sub) -> None:
@@ -106,13 +106,10 @@ def run_ingest(args) -> int:
 
 def _print_problems(label: str, exc) -> None:
     problems = list(getattr(exc, "problems", ()) or ())
-    n = len(problems)
-    if not n:
+    if not problems:
         _err(f"{label}: {exc}")
         return
-    _err(f"{label}: {n} problem{'s' if n != 1 else ''} found; nothing was written")
-    for p in problems:  # every problem, not just the first few
-        _err(f"  - {p}")
+    print_problems(label, problems)
 
 
 def run_campaigns(args) -> int:

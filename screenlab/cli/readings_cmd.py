@@ -13,7 +13,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from screenlab.cli.common import add_store_option, resolve_store_path
+from screenlab.cli.common import add_store_option, print_problems, resolve_store_path
 
 
 def register(sub) -> None:
@@ -50,7 +50,7 @@ def run_add_readings(args) -> int:
     try:
         files = readings_files(args.paths)
     except ValidationError as exc:
-        _print_problems("readings", exc.problems)
+        print_problems("readings", exc.problems)
         return 1
     store = Store(store_path)
     for attempt in range(3):  # the store may change between the check and the write: check again
@@ -66,7 +66,7 @@ def run_add_readings(args) -> int:
         for note in new.notes:
             print(f"note: {note}")
         if new.problems:
-            _print_problems(f"{args.campaign}", new.problems)
+            print_problems(f"{args.campaign}", new.problems)
             return 1
         try:
             report = add_readings(store, data, new, data_version=version, dry_run=args.dry_run,
@@ -97,8 +97,3 @@ def _summary(new) -> str:
     return "\n".join(rows)
 
 
-def _print_problems(label: str, problems) -> None:
-    n = len(problems)
-    _err(f"{label}: {n} problem{'s' if n != 1 else ''} found; nothing was written")
-    for p in problems:
-        _err(f"  - {p}")

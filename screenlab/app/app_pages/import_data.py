@@ -41,13 +41,24 @@ def _problems_frame(problems) -> pd.DataFrame:
                         columns=["file", "row", "column", "value", "problem"]).astype({"row": "Int64"})
 
 
+def _grouped_frame(problems) -> pd.DataFrame:
+    """The problems as shown: one line per problem that repeats over rows (the rows as runs, e.g.
+    ``2–9``), :func:`screenlab.errors.group_problems`."""
+    from screenlab.errors import group_problems, row_ranges
+
+    return pd.DataFrame([{"file": g.first.file, "rows": row_ranges(g.rows) if g.rows else "",
+                          "n rows": len(g.rows), "column": g.first.column, "value": g.first.value,
+                          "problem": g.first.message} for g in group_problems(problems)],
+                        columns=["file", "rows", "n rows", "column", "value", "problem"])
+
+
 def _show_problems(problems, key: str, source: str = "") -> None:
     n = len(problems)
     st.error(f"{n} problem{'s' if n != 1 else ''} found; nothing was written." if n else source)
     if n:
         frame = _problems_frame(problems)
-        widgets.table(frame, key=f"{key}_table")
-        st.download_button("Download the problem list (CSV)", data=frame.to_csv(index=False),
+        widgets.table(_grouped_frame(problems), key=f"{key}_table")
+        st.download_button("Download the problem list (CSV, one line per problem)", data=frame.to_csv(index=False),
                            file_name="import-problems.csv", mime="text/csv", on_click="ignore", key=f"{key}_csv")
 
 
