@@ -152,6 +152,22 @@ def test_changed_plate_refused_then_replaced_and_dry_run(tmp_path, capsys, write
     assert code == 0 and "added 1 plate (P3)" in out
 
 
+def test_a_dry_run_creates_no_store(tmp_path, capsys, write_sample_campaign):
+    """A dry run against a store file that does not exist yet checks the folder as new and leaves no
+    file behind; the store object can import for real afterwards (its schema checked on the file)."""
+    db = tmp_path / "new.duckdb"
+    folder = write_sample_campaign(tmp_path / "c", name="fresh")
+    code, out, _ = run(capsys, "ingest", str(folder), "--store", str(db), "--dry-run")
+    assert code == 0 and "dry run, nothing written" in out and "would be new campaign" in out
+    assert not list(tmp_path.glob("new.duckdb*"))
+    from screenlab.ingest import read_campaign
+
+    store = Store(db)
+    assert store.import_campaign(read_campaign(folder), dry_run=True).status == "dry_run"
+    assert not db.exists()
+    assert store.import_campaign(read_campaign(folder)).status == "imported" and store.campaign_names() == ["fresh"]
+
+
 def test_store_from_the_environment(tmp_path, capsys, monkeypatch, write_sample_campaign):
     monkeypatch.setenv("SCREENLAB_STORE", str(tmp_path / "env.duckdb"))
     folder = write_sample_campaign(tmp_path / "c", name="envy", plates=("P1",))

@@ -39,6 +39,7 @@ from pathlib import Path
 import duckdb
 
 from screenlab.errors import NotFoundError, ScreenlabError, StoreBusyError
+from screenlab.store import connection
 
 BACKUP_FORMAT = "screenlab-store-backup"
 BACKUP_FORMAT_VERSION = 1
@@ -46,7 +47,6 @@ MANIFEST_NAME = "manifest.json"
 DATABASE_NAME = "store.duckdb"
 TABLES_DIR = "tables"
 
-_CONFIG = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 
 
 class BackupError(ScreenlabError):
@@ -329,7 +329,7 @@ def restore_store(backup, store_path, *, force: bool = False, busy_timeout_s: fl
         os.chmod(tmp, _default_mode(False))
         shutil.copyfile(backup / m["database"], tmp)
         try:
-            con = duckdb.connect(str(tmp), read_only=False, config=dict(_CONFIG))
+            con = duckdb.connect(str(tmp), read_only=False, config=dict(connection.CONFIG))
         except duckdb.Error as exc:
             raise BackupError(f"{backup / m['database']} cannot be opened as a DuckDB database: {exc}") from exc
         try:

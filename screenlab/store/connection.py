@@ -31,7 +31,8 @@ BUSY_TIMEOUT_ENV = "SCREENLAB_BUSY_TIMEOUT_S"
 #: extensions compiled into the duckdb wheel; nothing else may load (offline machines)
 BUILTIN_EXTENSIONS = frozenset({"core_functions", "icu", "json", "parquet"})
 
-_CONFIG = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
+#: every DuckDB connection ScreenLab opens: no extension fetched or loaded behind its back
+CONFIG = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 _LOCK_WORDS = ("could not set lock", "conflicting lock")
 #: every connection :func:`open_connection` handed out that is still alive (closed ones drop out
 #: when their last reference goes); the command line ends its process early only when it is empty
@@ -64,7 +65,7 @@ def open_connection(path: Path, read_only: bool, busy_timeout_s: float) -> duckd
     delay = 0.05
     while True:
         try:
-            con = duckdb.connect(str(path), read_only=read_only, config=dict(_CONFIG))
+            con = duckdb.connect(str(path), read_only=read_only, config=dict(CONFIG))
             _LIVE.add(con)
             return con
         except duckdb.IOException as exc:

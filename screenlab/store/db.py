@@ -82,12 +82,13 @@ class Store:
         self._schema_ok = True
 
     @contextmanager
-    def _connect(self, opened: Future | None = None):
+    def _connect(self, opened: Future | None = None, *, scratch: bool = False):
         """A connection with the schema checked (``opened``: one being opened by
-        :meth:`_open_checked` in another thread), closed on exit."""
+        :meth:`_open_checked` in another thread; ``scratch``: its in-memory stand-in, whose schema
+        says nothing of the file's), closed on exit."""
         con = self._open() if opened is None else opened.result()
         try:
-            if not self._schema_ok:
+            if not self._schema_ok and not scratch:
                 self._check_schema(con)
             yield con
         except duckdb.Error as exc:
@@ -95,9 +96,15 @@ class Store:
         finally:
             con.close()
 
-    def _open_checked(self) -> duckdb.DuckDBPyConnection:
+    def _open_checked(self, scratch: bool = False) -> duckdb.DuckDBPyConnection:
         """:meth:`_open` and the schema check (migrations, fingerprint upgrade) as :meth:`_connect`
-        does them, for a thread that opens the store while another prepares the data."""
+        does them, for a thread that opens the store while another prepares the data. ``scratch``:
+        an empty store in memory instead (a dry run against a store file that does not exist yet,
+        which must not create it)."""
+        if scratch:
+            con = duckdb.connect(":memory:", config=dict(connection.CONFIG))
+            connection.apply_migrations(con, self.path, read_only=False)
+            return con
         con = self._open()
         try:
             if not self._schema_ok:
@@ -241,7 +248,8 @@ class Store:
         # Arrow tables made before the fingerprint worker starts, which alone reads the prepared
         # frames meanwhile.
         with ThreadPoolExecutor(max_workers=2, thread_name_prefix="screenlab-import") as pool:
-            opened = pool.submit(self._open_checked)
+            scratch = dry_run and not self.path.exists()     # a dry run creates no store file
+            opened = pool.submit(self._open_checked, scratch)
             try:
                 prep = prepare(data, validated=True)
                 whole = {"wells": to_arrow(prep.wells), "well_factors": to_arrow(prep.factors),
@@ -256,7 +264,8 @@ class Store:
                                 fingerprints=lambda: fingerprints.with_text(pending.result()))
             try:
                 report = self._import_connected(data, incoming, files, replace=replace, dry_run=dry_run,
-                                                source=source or "", whole=whole, opened=opened)
+                                                source=source or "", whole=whole, opened=opened,
+                                                scratch=scratch)
             except BaseException:  # e.g. interrupted while waiting for the store: close it (closing twice is harmless)
                 if opened.exception() is None:
                     opened.result().close()
@@ -265,8 +274,9 @@ class Store:
         return report
 
     def _import_connected(self, data: CampaignData, incoming: Incoming, files, *, replace: bool, dry_run: bool,
-                          source: str, whole: dict[str, pa.Table], opened: Future) -> ImportReport:
-        with self._connect(opened) as con:
+                          source: str, whole: dict[str, pa.Table], opened: Future,
+                          scratch: bool = False) -> ImportReport:
+        with self._connect(opened, scratch=scratch) as con:
             con.begin()
             try:
                 from screenlab.store.decisions import check_round_link
