@@ -244,10 +244,10 @@ def test_grid_problems_name_file_row_and_column(grid_campaign, what):
     name = f"readings/{f.name}"
     if what == "repeated letter":
         _edit(f, lambda L: [("C" + x[1:]) if i == d_row - 1 else x for i, x in enumerate(L)])
-        expect = {(name, d_row, None, "C"), (name, label, None, "D")}
+        expect = {(name, d_row, "row letter", "C"), (name, label, None, "D")}
     elif what == "letter outside the format":
         _edit(f, lambda L: [("I" + x[1:]) if i == d_row - 1 else x for i, x in enumerate(L)])
-        expect = {(name, d_row, None, "I"), (name, label, None, "D")}
+        expect = {(name, d_row, "row letter", "I"), (name, label, None, "D")}
     elif what == "column out of range":
         _edit(f, lambda L: [x.replace(",12", ",13") if i == header - 1 else x for i, x in enumerate(L)])
         expect = {(name, header, "13", "13"), (name, header, None, "12")}
@@ -271,7 +271,7 @@ def test_grid_problems_name_file_row_and_column(grid_campaign, what):
         return
     elif what == "value beside the header":
         _edit(f, lambda L: [(x + ",0.5") if i == c_row - 1 else x for i, x in enumerate(L)])
-        expect = {(name, c_row, None, "0.5")}
+        expect = {(name, c_row, "right of 12", "0.5")}         # no number above it: named by its place
     else:
         _edit(f, lambda L: [x for i, x in enumerate(L) if i != header - 1])
         expect = {(name, header, None, "A")}

@@ -370,14 +370,14 @@ def _grid_piece(s: _Sheet, plate: str, fmt: int, problems: list[Problem], notes:
         # the plate rows: their letters
         rb = ridx[data]
         for k in np.flatnonzero(rb < 0):  # the bad rows only
-            bad(rows[data[k]], None, F[data[k], 0],
+            bad(rows[data[k]], "row letter", F[data[k], 0],
                 f"not a row letter of the plate's {fmt}-well format (A-{last}); after the header row a block holds "
                 "one row per plate row, its letter first")
         per_row = np.bincount(rb[rb >= 0], minlength=n_rows)
         for i in np.flatnonzero(per_row > 1):
             at = data[rb == i]
             for j in at[1:]:
-                bad(rows[j], None, F[j, 0], f"row {letters_ok[i]} appears twice in this block (first on row "
+                bad(rows[j], "row letter", F[j, 0], f"row {letters_ok[i]} appears twice in this block (first on row "
                                            f"{rows[at[0]]})")
         absent = [letters_ok[i] for i in np.flatnonzero(per_row == 0)]
         if absent:
@@ -392,8 +392,10 @@ def _grid_piece(s: _Sheet, plate: str, fmt: int, problems: list[Problem], notes:
             side = ~empty[np.ix_(data, np.flatnonzero(spare))]
             for k in np.flatnonzero(side.any(axis=1)):
                 j = np.flatnonzero(spare)[np.flatnonzero(side[k])[0]]
-                bad(rows[data[k]], None, F[data[k], j], "a value in a column without a column number in the "
-                                                        "header row")
+                left = filled[1 + filled < j]                   # the numbered header cells left of it
+                where = f"right of {F[hdr, 1 + left[-1]]}" if len(left) else "left of the column numbers"
+                bad(rows[data[k]], where, F[data[k], j], "a value in a column without a column number in the "
+                                                         "header row")
         if not (block_ok and header_ok) or len(problems) > n0:
             continue  # nothing is written anyway; the other blocks are still checked
         try:
