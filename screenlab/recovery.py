@@ -131,6 +131,12 @@ def run_study(seeds, spec: KineticsSpec | None = None, settings=None, *, plain: 
         a["behaviour"] = a["catalyst"].map(ea_true["behaviour"])
         a["ea_err_kj_mol"] = a["ea_kj_mol"] - a["ea_true"]
         a["ea_covered"] = (a["ea_ci_low"] <= a["ea_true"]) & (a["ea_true"] <= a["ea_ci_high"])
+        # TOF at the reference temperature from the Arrhenius line, against the nominal TOF there
+        at_ref = truth[np.isclose(truth["temperature_c"], st.reference_temperature_c)].drop_duplicates("catalyst")
+        a["tof_ref_true"] = a["catalyst"].map(at_ref.set_index("catalyst")["tof_true"])
+        a["tof_ref_covered"] = np.where(np.isfinite(a["tof_ref_ci_low"]) & np.isfinite(a["tof_ref_true"]),
+                                        (a["tof_ref_ci_low"] <= a["tof_ref_true"])
+                                        & (a["tof_ref_true"] <= a["tof_ref_ci_high"]), np.nan)
         a["seed"] = int(seed)
         arr_parts.append(a)
         row = {"seed": int(seed), "plate_scatter_ln": res.arrhenius.attrs.get("plate_scatter_ln", np.nan)}
@@ -167,6 +173,7 @@ def summary(study: Study) -> pd.DataFrame:
     inactive = cat[cat["behaviour"] == "inactive"]
     odd = cat[cat["behaviour"].isin(["induction", "consecutive"])]
     covered = ea_meas["ea_covered"].dropna()
+    ref_cov = ea_meas["tof_ref_covered"].dropna().astype(bool)
     rows = [
         ("TOF |rel. error|, median (measurable rows)", err.median(), len(err)),
         ("TOF |rel. error|, 90th percentile", err.quantile(0.9), len(err)),
@@ -179,6 +186,8 @@ def summary(study: Study) -> pd.DataFrame:
         ("Ea |error| kJ/mol, median", ea_meas["ea_err_kj_mol"].abs().median(), len(ea_meas)),
         ("Ea |error| kJ/mol, 90th percentile", ea_meas["ea_err_kj_mol"].abs().quantile(0.9), len(ea_meas)),
         ("Ea 95 % interval coverage", covered.mean() if len(covered) else np.nan, len(covered)),
+        ("TOF at the reference T from the Arrhenius line, 95 % interval coverage", ref_cov.mean()
+         if len(ref_cov) else np.nan, len(ref_cov)),
         ("too fast: rows censored lower", (fast["censored"].astype(str) == "lower").mean(), len(fast)),
         ("inactive: rows censored upper", (inactive["censored"].astype(str) == "upper").mean(), len(inactive)),
         ("induction / consecutive: rows with a course flag", odd["irregular"].mean(), len(odd)),

@@ -323,7 +323,8 @@ ARRHENIUS = FrameSchema("arrhenius", "screenlab.kinetics.arrhenius.arrhenius_tab
     ("cov_ii", "float", "", "variance of the intercept"),
     ("cov_is", "float", "K", "covariance of intercept and slope"),
     ("cov_ss", "float", "K^2", "variance of the slope"),
-    ("fit_df", "float", "", "degrees of freedom of the fit's error scale (pooled df of the plate scatter)"),
+    ("fit_df", "float", "", "degrees of freedom of the intervals: n - 2 where the scatter scales the covariance, "
+                            "else the effective df of the point variances"),
     ("flags", "text", "", "flag codes joined with ';'"),
     ("dg_ref_se", "float", "kJ/mol", "SE of dg_ref_kj_mol"),
     ("fit_weighted", "bool", "", "weighted fit (1/(var + tau^2)); else unweighted"),

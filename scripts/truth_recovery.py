@@ -20,6 +20,7 @@ VARIANTS = {
     "noisy": KineticsSpec(noise_pct=1.0),
     "sparse": KineticsSpec(times_min=(10.0, 20.0, 40.0, 80.0, 160.0, 320.0)),
     "scatter": KineticsSpec(replicate_cv=0.08, plate_sd=0.06),
+    "dispense": KineticsSpec(replicate_cv=0.08, plate_sd=0.0),
     "first-order": KineticsSpec(behaviours=("first_order",)),
 }
 

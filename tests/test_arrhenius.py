@@ -114,6 +114,31 @@ def _dl_tau2(x, y, v):
     return max(0.0, (q - (len(x) - 2)) / (np.sum(1 / v) - tr))
 
 
+def _interval_rule(x, y, v_rep, tau2, tau2_df, x_ref, rep_df=None):
+    """The rule of the Arrhenius line's intervals in plain lines, on statsmodels WLS with weights
+    1/(v_rep + tau^2): where chi^2/(n - 2) > 1 the covariance is scaled by it and t has n - 2 df
+    (statsmodels' default WLS covariance); else the covariance is the weights' own (scale 1) and t
+    has the Welch-Satterthwaite df (GUM, JCGM 100:2008, G.4) of the slope's variance and of the
+    line's variance at x_ref, the smaller, each sum a_i^2 (v_rep_i + tau^2) with the WLS
+    coefficients a = (X'WX)^-1 X'W, v_rep_i on rep_df_i df (exact where None) and tau^2 on tau2_df.
+    Returns (params, covariance, df)."""
+    X = sm.add_constant(x)
+    v = v_rep + tau2
+    fit = sm.WLS(y, X, weights=1 / v).fit()
+    if fit.scale > 1:
+        return fit.params, fit.cov_params(), len(x) - 2.0
+    W = np.diag(1 / v)
+    A = np.linalg.solve(X.T @ W @ X, X.T @ W)
+    rdf = np.full(len(x), np.inf) if rep_df is None else np.asarray(rep_df, float)
+
+    def nu(a):
+        tau_part = np.sum(a ** 2 * tau2) ** 2 / tau2_df if np.isfinite(tau2_df) else 0.0
+        den = np.sum((a ** 2 * v_rep) ** 2 / rdf) + tau_part
+        return np.sum(a ** 2 * v) ** 2 / den if den > 0 else np.inf
+
+    return fit.params, fit.cov_params(scale=1.0), min(nu(A[1]), nu(np.array([1.0, x_ref]) @ A))
+
+
 def test_weighted_fit_matches_statsmodels_wls_with_the_plate_scatter_added():
     temps = np.array([30.0, 40.0, 50.0, 60.0, 70.0])
     tof = np.array([12.0, 30.0, 60.0, 150.0, 290.0])
@@ -134,9 +159,17 @@ def test_weighted_fit_matches_statsmodels_wls_with_the_plate_scatter_added():
     assert row.fit_intercept == pytest.approx(fit.params[0], rel=1e-10)
     assert row.fit_slope_k == pytest.approx(fit.params[1], rel=1e-10)
     assert row.ea_se == pytest.approx(fit.bse[1] * R / 1000, rel=1e-8)
-    q = stats.t.ppf(0.975, 3)
+    # t on the Welch-Satterthwaite df (GUM, JCGM 100:2008, G.4) of the slope's variance and of the
+    # line's variance at the reference temperature, the smaller: each is sum a_i^2 (v_i + tau^2)
+    # with the WLS coefficients a = (X'WX)^-1 X'W; v_i is exact here (no tof_df), tau^2 rests on 3 df
+    Wd = np.diag(1 / (v + tau2))
+    A = np.linalg.solve(X.T @ Wd @ X, X.T @ Wd)
+    nu = lambda a: np.sum(a ** 2 * (v + tau2)) ** 2 / (np.sum(a ** 2 * tau2) ** 2 / 3)  # noqa: E731
+    df = min(nu(A[1]), nu(np.array([1.0, 1 / (55 + 273.15)]) @ A))
+    assert df > 3                                       # the replicate parts count as exact
+    q = stats.t.ppf(0.975, df)
     assert row.ea_ci_high - row.ea_kj_mol == pytest.approx(q * fit.bse[1] * R / 1000, rel=1e-8)
-    assert row.fit_df == 3 and row.fit_weighted
+    assert row.fit_df == pytest.approx(df, rel=1e-9) and row.fit_weighted
     # chi^2 / df of the line with those weights: statsmodels' scale of the plain WLS fit
     assert row.chi2_per_df == pytest.approx(sm.WLS(np.log(tof), X, weights=1 / (v + tau2)).fit().scale, rel=1e-8)
     ln_ref = fit.params[0] + fit.params[1] / (55 + 273.15)
@@ -190,9 +223,15 @@ def test_plate_scatter_makes_ea_intervals_hold_where_replicates_alone_do_not():
     cat = arr[arr.catalyst != UNCATALYSED]
     cover = np.mean((cat.ea_ci_low <= 70.0) & (70.0 <= cat.ea_ci_high))
     assert 0.92 <= cover <= 0.98
-    naive = [fit_temperature_series(temps, tof[i], 0.03 * tof[i], tau2=0.0, tau2_df=np.inf) for i in range(n)]
-    naive_cover = np.mean([(r["ea_ci_low"] <= 70.0 <= r["ea_ci_high"]) for r in naive])
+    # the replicates' SE alone, taken as exact and never rescaled: far too narrow
+    X = sm.add_constant(1 / (temps + 273.15))
+    naive_cover = np.mean([abs(-(f := sm.WLS(np.log(tof[i]), X, weights=1 / 0.03 ** 2).fit(
+        cov_type="fixed scale", cov_kwds={"scale": 1.0})).params[1] * R / 1000 - 70.0) <= 1.96 * f.bse[1] * R / 1000
+        for i in range(n)])
     assert naive_cover < 0.6
+    # without the campaign's plate scatter, the series' own chi^2 (Birge ratio) still rescues most
+    alone = [fit_temperature_series(temps, tof[i], 0.03 * tof[i], tau2=0.0, tau2_df=np.inf) for i in range(n)]
+    assert np.mean([(r["ea_ci_low"] <= 70.0 <= r["ea_ci_high"]) for r in alone]) > 0.85
 
 
 def test_weighted_fit_never_claims_less_scatter_than_the_replicates():
@@ -240,7 +279,12 @@ def test_uncatalysed_row_delta_ea_left_out_points_and_low_ea():
     assert se_b > 0                      # the blanks' replicate SEs although the line is exact
     # Welch-Satterthwaite df for the difference of two independent estimates (Welch, Biometrika 1947)
     df_b, df_c = a.loc[UNCATALYSED, "fit_df"], a.loc["C1", "fit_df"]
-    assert df_b == df_c == 4             # the pooled df of the plate-scatter estimate: C1 and LOW, 2 each
+    tau2 = a.loc["C1", "plate_scatter_ln"] ** 2
+    assert tau2 == 0 and np.isposinf(df_c)   # no plate scatter found, C1's SEs exact (no tof_df given)
+    xb = x[1:]
+    _, _, df_rule = _interval_rule(xb, np.log(blank[1:]), np.full(3, 0.03 ** 2), 0.0, 4.0, 1 / (60 + 273.15),
+                                   rep_df=np.full(3, 2.0))                 # the blanks' n - 1 = 2 df each
+    assert df_b == pytest.approx(df_rule, rel=1e-9) and 2 < df_b < 6
     df = (se_b ** 2 + se_c ** 2) ** 2 / (se_b ** 4 / df_b + se_c ** 4 / df_c)
     half = stats.t.ppf(0.975, df) * np.hypot(se_b, se_c)
     assert a.loc["C1", "delta_ea_ci_high"] - d == pytest.approx(half, rel=1e-6)
@@ -327,9 +371,10 @@ def random_groups(rng, n_cat=60):
         if rng.random() < 0.1:
             lo[-1] = -1.0                                      # CI reaches zero -> inactive point
         flags = np.where(rng.random(len(temps)) < 0.05, "no_blank;no_sites", "")
+        rep_df = rng.choice([1.0, 2.0, 5.0, np.inf], len(temps))          # the df each replicate SE rests on
         parts.append(pd.DataFrame({"catalyst": f"C{i:03d}", "role": "sample", "temperature_c": temps,
                                    "tof_per_h": tof, "tof_se_per_h": se, "tof_ci_low": lo, "tof_ci_high": tof + 2 * se,
-                                   "is_standard": True, "flags": flags}))
+                                   "tof_df": rep_df, "is_standard": True, "flags": flags}))
         if rng.random() < 0.2:                                 # a non-standard series that must be ignored
             parts.append(parts[-1].assign(is_standard=False, tof_per_h=parts[-1]["tof_per_h"] * 10))
     return pd.concat(parts, ignore_index=True).sample(frac=1.0, random_state=1).reset_index(drop=True)
@@ -357,13 +402,13 @@ def test_batched_table_matches_statsmodels_per_catalyst(seed):
             continue
         x = 1 / (g["temperature_c"].to_numpy() + 273.15)
         y = np.log(g["tof_per_h"].to_numpy())
-        v = (g["tof_se_per_h"].to_numpy() / g["tof_per_h"].to_numpy()) ** 2 + tau2
-        fit = sm.WLS(y, sm.add_constant(x), weights=1 / v).fit(cov_type="fixed scale", cov_kwds={"scale": 1.0})
-        assert row["fit_slope_k"] == pytest.approx(fit.params[1], rel=1e-9)
-        assert row["ea_se"] == pytest.approx(fit.bse[1] * R / 1000, rel=1e-8)
-        q = stats.t.ppf(0.975, df_pool)
-        assert row["ea_ci_high"] - row["ea_kj_mol"] == pytest.approx(q * fit.bse[1] * R / 1000, rel=1e-8)
-        assert row["fit_df"] == df_pool
+        v_rep = (g["tof_se_per_h"].to_numpy() / g["tof_per_h"].to_numpy()) ** 2
+        params, cov, df = _interval_rule(x, y, v_rep, tau2, df_pool, 1 / (55 + 273.15), rep_df=g["tof_df"].to_numpy())
+        assert row["fit_slope_k"] == pytest.approx(params[1], rel=1e-9)
+        assert row["ea_se"] == pytest.approx(np.sqrt(cov[1, 1]) * R / 1000, rel=1e-8)
+        q = stats.t.ppf(0.975, df)
+        assert row["ea_ci_high"] - row["ea_kj_mol"] == pytest.approx(q * np.sqrt(cov[1, 1]) * R / 1000, rel=1e-8)
+        assert row["fit_df"] == pytest.approx(df, rel=1e-9)
         checked += 1
     assert checked > 20
     fl = ";".join(got["flags"])

@@ -62,7 +62,19 @@ def test_rate_enhancement_interval_and_its_lower_bounds(mixed):
 def test_activation_energies_and_their_intervals(mixed):
     f = _figures(mixed)
     assert f["Ea |error| kJ/mol, median"] <= 1.5
-    assert f["Ea 95 % interval coverage"] >= 0.85
+    assert 0.9 <= f["Ea 95 % interval coverage"] <= 0.995
+    # TOF at the reference temperature read off the line: with the replicate variances (three wells,
+    # about 2 df each) taken as exact this held 87-90 % (160 series); on their effective df, ~94 %
+    assert 0.9 <= f["TOF at the reference T from the Arrhenius line, 95 % interval coverage"] <= 0.99
+
+
+def test_arrhenius_intervals_hold_when_dispensing_scatter_dominates():
+    # 8 % dispensing scatter per well and no plate effect (the demo's situation): each point's SE
+    # rests on three wells, the weights are noisy, and the intervals must still hold
+    study = run_study(range(16), KineticsSpec(replicate_cv=0.08, plate_sd=0.0))
+    f = _figures(study)
+    assert 0.9 <= f["Ea 95 % interval coverage"] <= 0.995
+    assert 0.9 <= f["TOF at the reference T from the Arrhenius line, 95 % interval coverage"] <= 0.99
 
 
 def test_bounds_and_course_flags(mixed):
