@@ -500,7 +500,8 @@ def test_conversion_readout_with_several_analytes():
 
 # ----------------------------------------------------------------------------------- all at once
 def test_every_problem_is_reported_and_message_capped_at_50():
-    rd = add_lines(good_readings(), *[f"P1,A1,{100 + i},-50" for i in range(70)])
+    # 70 different bad values (the same value on many rows would be one line with its rows)
+    rd = add_lines(good_readings(), *[f"P1,A1,{100 + i},{-50 - i}" for i in range(70)])
     with pytest.raises(ValidationError) as ei:
         read_campaign(files(readings_csv=rd, plates_csv=replace_line(GOOD_PLATES, 2, "P1,97,60,,")))
     err = ei.value
