@@ -491,3 +491,27 @@ def test_uncatalysed_points_are_one_substrate_level_without_scaled_blanks():
     # a level measured (not scaled) but less used than the main one stays off the line as well
     other = blanks.assign(flags=["blank_below_lod", "", "", "", "", ""])
     assert set(uncatalysed_points(other)["rate"]) == {0.1, 0.5, 1.9, 2.0}
+
+
+def test_uncatalysed_eyring_is_of_the_pseudo_first_order_constant():
+    """The background's Eyring dS and dG are those of k = rate / [S] (s-1 from mM/h over mM), not of
+    the rate in mM/h: blanks made exactly from transition-state theory, k = (kB T / h) exp(dS/R)
+    exp(-dH/RT) with kB and h from scipy.constants (CODATA), at [S] = 200 mM, give back dH and dS."""
+    temps = np.array([40.0, 50.0, 60.0, 70.0])
+    T = temps + 273.15
+    dh, ds = 95e3, -40.0
+    k = constants.k * T / constants.h * np.exp(ds / R) * np.exp(-dh / (R * T))      # s-1
+    rate = k * 3600 * 200.0                                                          # mM/h at 200 mM
+    bl = _blanks(temps, rate, rate * 0.02).assign(substrate_conc_mM=200.0)
+    s = AnalysisSettings(reference_temperature_c=60.0)
+    row = arrhenius_table(_groups("C1", temps, 1e3 * rate, 1e3 * rate * 0.03), bl, s).set_index("catalyst").loc[
+        UNCATALYSED]
+    assert row["dh_kj_mol"] == pytest.approx(dh / 1000, rel=1e-9)
+    assert row["ds_j_mol_k"] == pytest.approx(ds, abs=1e-6)
+    assert row["dg_ref_kj_mol"] == pytest.approx((dh - (60 + 273.15) * ds) / 1000, rel=1e-9)
+    assert "eyring_pseudo_first_order" in row["flags"]
+    assert row["tof_ref_per_h"] == pytest.approx(rate[2], rel=1e-3)   # the blank rate, mM/h (an Eyring law is not quite a line in ln r, 1/T)
+    # without a substrate level there is no rate constant: no dS or dG
+    row = arrhenius_table(_groups("C1", temps, 1e3 * rate, 1e3 * rate * 0.03), _blanks(temps, rate, rate * 0.02),
+                          s).set_index("catalyst").loc[UNCATALYSED]
+    assert np.isnan(row["ds_j_mol_k"]) and np.isnan(row["dg_ref_kj_mol"]) and row["dh_kj_mol"] > 0

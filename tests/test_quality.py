@@ -608,3 +608,23 @@ def test_plate_quality_takes_kinetics_first_like_control_chart(quality_campaign)
     data, kin, _ = quality_campaign(seed=10)
     with pytest.raises(TypeError, match="kinetics result comes first"):
         plate_quality(data, kin, kin.settings)
+
+
+def test_a_gradient_plate_is_judged_on_its_main_level_blanks(demo_store):
+    """The blank trend compares a plate's blanks with the uncatalysed Arrhenius line at the level
+    that line is fitted on (the blanks' most used substrate level); a substrate-gradient plate's
+    levels scaled from it (flag blank_scaled) are not on that line. On the demo, TH-60S (gradient
+    at 60 C, blanks only at 200 mM) was flagged blank_off_trend from its 50 mM level (ratio 0.26)."""
+    from screenlab.store import Store
+
+    a = analyse(Store(demo_store, read_only=True).load_campaign("th-screen-2026"))
+    q = a.quality.set_index("plate")
+    bl = a.kinetics.blanks
+    main = bl[(bl["substrate_conc_mM"] == 200.0) & ~bl["flags"].fillna("").str.contains("blank_scaled")]
+    arr = a.kinetics.arrhenius.set_index("catalyst").loc["(uncatalysed)"]
+    for plate, row in main.set_index("plate").iterrows():     # one main-level row per plate here
+        x = 1 / (row["temperature_c"] + 273.15)
+        expected = np.exp(arr["fit_intercept"] + arr["fit_slope_k"] * x)
+        assert q.loc[plate, "blank_ratio"] == pytest.approx(row["blank_rate_mM_per_h"] / expected, rel=1e-9)
+    assert 0.8 < q.loc["TH-60S", "blank_ratio"] < 1.25
+    assert "blank_off_trend" not in q.loc["TH-60S", "flags"]

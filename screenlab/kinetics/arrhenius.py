@@ -32,7 +32,11 @@ one point per temperature: y = ln TOF (TOF in h-1) against x = 1/T, T = t + 273.
 * Temperatures where the group's net TOF is <= 0 or its CI reaches 0 are left out and flagged
   ``no_activity`` (the whole row when no temperature remains active).
 * The ``(uncatalysed)`` row fits ln(blank rate, mM/h) on 1/T from the blanks table (plates at the
-  same temperature pooled by well count); blanks below their detection limit are left out.
+  same temperature pooled by well count); blanks below their detection limit are left out. Its
+  ``ln_a`` and ``tof_ref_*`` are of the blank rate in mM/h (not a TOF: there are no sites), but
+  its Eyring dS and dG are of the pseudo-first-order constant k = rate / [S] (h-1, [S] the blanks'
+  substrate level), since a rate in mM/h is no rate constant and would shift dS by R ln([S]/mM)
+  (flag ``eyring_pseudo_first_order``); dH is the same either way.
   ``delta_ea_kj_mol`` = Ea(uncatalysed) - Ea(catalyst); SE in quadrature (independent fits) and
   a t interval with Welch-Satterthwaite df.
 * ``low_ea``: Ea below settings.low_ea_kj_mol (transport control likely; common practice, no
@@ -68,6 +72,9 @@ FLAGS: dict[str, str] = {
                          "plate-to-plate scatter explain (chi-square p < 0.01).",
     "low_ea": "The apparent Ea is below the low-Ea limit: transport (diffusion) control is likely.",
     "unweighted": "Some points had no standard error, so the Arrhenius fit is unweighted.",
+    "eyring_pseudo_first_order": "The uncatalysed row's Eyring dS and dG are of k = blank rate / substrate "
+                                 "concentration (a pseudo-first-order constant); its TOF columns hold the blank "
+                                 "rate in mM/h.",
 }
 
 COLUMNS = ["catalyst", "role", "n_temperatures", "t_min_c", "t_max_c", "ea_kj_mol", "ea_se", "ea_ci_low",
@@ -396,7 +403,7 @@ def plate_scatter(group_codes, n_groups: int, temperature_c, value, se) -> tuple
 def uncatalysed_points(blanks: pd.DataFrame) -> pd.DataFrame:
     """The points of the uncatalysed Arrhenius line: one per plate x temperature at the blanks'
     most used substrate level (``temperature_c, rate`` in mM/h, ``se``, ``df`` of that SE,
-    ``active``, ``plate``), the blank mean and its SE. Only ``active`` points (blank above its
+    ``active``, ``plate``, ``conc_mM`` that level), the blank mean and its SE. Only ``active`` points (blank above its
     detection limit) are fitted.
     Levels scaled from another level (flag ``blank_scaled``) are not points of their own, nor are
     other substrate levels: a background rate at another concentration is not on this line."""
@@ -404,7 +411,8 @@ def uncatalysed_points(blanks: pd.DataFrame) -> pd.DataFrame:
     if "flags" in b.columns:
         b = b[~has_flag(b["flags"], "blank_scaled")]
     if b.empty:
-        return pd.DataFrame(columns=["temperature_c", "rate", "se", "df", "active", "plate"])
+        return pd.DataFrame(columns=["temperature_c", "rate", "se", "df", "active", "plate", "conc_mM"])
+    level = np.nan
     if "substrate_conc_mM" in b.columns:
         conc = pd.to_numeric(b["substrate_conc_mM"], errors="coerce")
         counts = b.assign(_c=conc).groupby("_c", dropna=False)["n_blanks"].sum()
@@ -416,7 +424,7 @@ def uncatalysed_points(blanks: pd.DataFrame) -> pd.DataFrame:
                          "se": b["blank_se_mM_per_h"].to_numpy(float),
                          "df": (b["blank_df"].to_numpy(float) if "blank_df" in b else np.full(len(b), np.inf)),
                          "active": det & (rate > 0),
-                         "plate": b["plate"].to_numpy(dtype=object)})
+                         "plate": b["plate"].to_numpy(dtype=object), "conc_mM": float(level)})
 
 
 #: group flags of the rates table whose courses are not initial-rate kinetics: kept out of the
@@ -544,6 +552,14 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
         if (~act).any():
             r["flags"] = ";".join([c for c in [*r["flags"].split(";"), "left_out_below_lod"] if c])
         r["plate_scatter_ln"] = float(np.sqrt(tau2))
+        # Eyring of k = rate / [S] (h-1): ln k = ln rate - ln([S]/mM), so dS moves by -R ln([S]/mM)
+        conc = float(pts["conc_mM"].iloc[0])
+        shift = np.log(conc) if np.isfinite(conc) and conc > 0 else np.nan
+        r["ds_j_mol_k"] = r["ds_j_mol_k"] - units.R_J_MOL_K * shift
+        t_ref = float(units.c_to_k(settings.reference_temperature_c))
+        r["dg_ref_kj_mol"] = r["dg_ref_kj_mol"] + t_ref * units.R_J_MOL_K * shift / 1000.0
+        if np.isfinite(r["ds_j_mol_k"]):
+            r["flags"] = ";".join([c for c in [*r["flags"].split(";"), "eyring_pseudo_first_order"] if c])
         r.update(catalyst=UNCATALYSED, role="blank")
         parts.append(pd.DataFrame([r], columns=COLUMNS))
     out = pd.concat(parts, ignore_index=True) if len(parts) > 1 else (parts[0] if parts else

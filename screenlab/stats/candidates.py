@@ -47,6 +47,7 @@ import pandas as pd
 
 from screenlab import _groups as grp
 from screenlab.errors import UsageError
+from screenlab.model import UNCATALYSED
 from screenlab.uncertainty import t_quantile, within_range
 
 #: Flag codes set by the candidate tables (code -> one plain sentence).
@@ -62,7 +63,6 @@ FLAGS: dict[str, str] = {
                             "may or may not meet it, so it is kept.",
     "reference": "This is the benchmark (reference) catalyst, ranked alongside the candidates for comparison.",
 }
-UNCATALYSED = "(uncatalysed)"
 #: tolerance when matching a measured temperature to the ranking temperature, degC
 T_MATCH_C = 0.05
 

@@ -82,6 +82,7 @@ from scipy import special as _sp_special
 
 from screenlab import _groups
 from screenlab.errors import DataQualityWarning
+from screenlab.model import UNCATALYSED
 from screenlab.plates import format_dims, is_edge
 from screenlab.uncertainty import t_ppf
 
@@ -125,7 +126,6 @@ SEP_MIN_BLANKS = 3
 SEP_MIN_UPPER = 4
 #: share of the plate's sample wells (by rate) that form its upper distribution
 UPPER_QUANTILE = 0.75
-UNCATALYSED = "(uncatalysed)"
 
 
 # --------------------------------------------------------------------------- Z'-factor
@@ -726,9 +726,14 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     out["blank_z"] = np.nan
     bl = getattr(kin, "blanks", None)
     if bl is not None and len(bl):
-        bl = bl.assign(plate=bl["plate"].astype(str))
-        obs = pd.to_numeric(bl["blank_rate_mM_per_h"], errors="coerce")
-        se = pd.to_numeric(bl["blank_se_mM_per_h"], errors="coerce")
+        from screenlab.kinetics.arrhenius import uncatalysed_points
+
+        # the points the line is fitted on: the main substrate level, no level scaled from another
+        # (a gradient plate's 50 mM blanks are not on the 200 mM line)
+        pts = uncatalysed_points(bl)
+        bl = pd.DataFrame({"plate": pts["plate"].astype(str), "temperature_c": pts["temperature_c"]})
+        obs = pd.to_numeric(pts["rate"], errors="coerce")
+        se = pd.to_numeric(pts["se"], errors="coerce")
         ln_pred, ln_pred_se = predict_ln(kin.arrhenius, UNCATALYSED, bl["temperature_c"].to_numpy())
         with np.errstate(divide="ignore", invalid="ignore"):
             ln_obs = np.log(obs.where(obs > 0))
