@@ -351,3 +351,66 @@ def test_well_rates_reach_the_per_well_curve_fit_minimum_of_their_law():
         seen[method] = seen.get(method, 0) + 1
     assert {m for m, k in seen.items() if k >= 5} >= {"first_order", "zero_order", "saturation",
                                                       "first_order_deactivating"}, seen
+
+
+def test_lone_spike_rule_in_plain_lines():
+    """The rule on small courses: a lone peak far above the course's other kinks is the spike; a
+    smooth maximum, a course at its plateau at once and a monotone kink are not; one per well."""
+    t = np.arange(8.0)
+    courses = {
+        "peak": [0, 1, 2, 3, 9, 5, 6, 7],                       # reading 4 displaced by +5
+        "dip": [0, 2, 4, 6, 1, 10, 12, 14],                     # reading 4 displaced by -7
+        "smooth maximum": [0, 4, 7, 9, 10, 9, 7, 4],            # product decline: no lone peak
+        "plateau at once": [0, 100, 100.2, 99.9, 100.1, 100, 99.8, 100.1],
+        "induction kink": [0, 0, 0, 0, 2, 4, 6, 8],
+        "short": [0, 1, 9, 3, 4],                               # under SPIKE_MIN_READINGS readings
+    }
+    y = np.concatenate([np.asarray(v, float) for v in courses.values()])
+    g = np.repeat(np.arange(len(courses)), [len(v) for v in courses.values()])
+    tt = np.concatenate([t[:len(v)] for v in courses.values()])
+    spike = rates.lone_spikes(tt, y, g, np.zeros(len(courses), int), np.ones(len(courses)))
+    hit = {name: list(np.flatnonzero(spike[g == i])) for i, name in enumerate(courses)}
+    assert hit == {"peak": [4], "dip": [4], "smooth maximum": [], "plateau at once": [], "induction kink": [],
+                   "short": []}
+
+
+def test_a_spiked_reading_is_found_and_left_out():
+    """Seeded campaign of mixed rate laws (invented): one interior reading of 40 sample wells raised
+    by 25 points of yield (a bubble in the cuvette, a mis-injection). Those wells and no other get
+    flag reading_spike, and their rates come back close to what the clean courses give; on the
+    clean campaign no well is flagged."""
+    from dataclasses import replace as dc_replace
+
+    from screenlab.synthetic import KineticsSpec, kinetics_campaign
+
+    kc = kinetics_campaign(KineticsSpec(seed=4))
+    data = kc.data
+    s = settings_for(data)
+    clean = well_rates(data, s)
+    assert not _has_flag(clean, "reading_spike").any()
+    rd = data.readings.reset_index(drop=True)
+    rng = np.random.default_rng(4)
+    sample = data.wells.loc[data.wells["role"] == "sample", ["plate", "well"]]
+    measured = clean.loc[(clean["censored"] == "") & (clean["last_conversion_pct"] > 20), ["plate", "well"]]
+    pick = sample.merge(measured).sample(40, random_state=1)
+    spiked_rows = []
+    for _, w in pick.iterrows():                    # a test loop over the 40 chosen wells
+        idx = rd.index[(rd["plate"] == w["plate"]) & (rd["well"] == w["well"])]
+        spiked_rows.append(int(rng.choice(idx[2:-2])))
+    rd.loc[spiked_rows, "value"] += 25.0
+    got = well_rates(dc_replace(data, readings=rd), s)
+    flagged = got.loc[_has_flag(got, "reading_spike"), ["plate", "well"]]
+    key = lambda f: set(zip(f["plate"].astype(str), f["well"].astype(str)))  # noqa: E731
+    assert key(flagged) <= key(pick) and len(flagged) >= 36
+    # their rates as the clean courses give them (where the rate is an initial rate at all: an
+    # induction course's early-window quadratic moves with any reading of its window)
+    both = got.merge(clean, on=["plate", "well"], suffixes=("", "_clean")).merge(flagged)
+    regular = ~(_has_flag(both.rename(columns={"flags": "_", "flags_clean": "flags"}), "induction")
+                | _has_flag(both.rename(columns={"flags": "_", "flags_clean": "flags"}), "law_misfit"))
+    rel = (both["rate_mM_per_h"] / both["rate_mM_per_h_clean"] - 1).abs()[regular]
+    assert len(rel) >= 25 and rel.median() < 0.02 and rel.max() < 0.1
+
+
+def _has_flag(frame, code):
+    return pd.Series(list(frame["flags"]), dtype=object).fillna("").astype(str).str.split(";").apply(
+        lambda c: code in c).to_numpy(bool)

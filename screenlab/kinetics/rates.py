@@ -6,7 +6,8 @@
    its theoretical maximum (substrate x stoichiometry), or in mM where the well has no substrate
    concentration. Absorbance readings above the detector's linear range are left out of the fit
    (flag ``above_linear_range``); values above full scale stay in, as measured (flag
-   ``above_full_scale``).
+   ``above_full_scale``). A lone spike (one reading far off the course its neighbours draw: a
+   bubble, a mis-injection; :func:`lone_spikes`) is left out too (flag ``reading_spike``).
 2. **Every rate law fitted to every well** (:mod:`screenlab.kinetics.ratelaws`): zero order with
    substrate run-out, first order, saturation (integrated Michaelis-Menten), first order to a
    plateau, first order with catalyst decay, and the generic quadratic over the early window.
@@ -109,6 +110,9 @@ FLAGS: dict[str, str] = {
                         "within the 110 % accepted as instrument overshoot); taken as measured.",
     "above_linear_range": "At least one absorbance lies above the detector's linear range "
                           "([readout].linear_range_max); those readings are left out of the rate fit.",
+    "reading_spike": "One reading lies far off the course its neighbours draw (a bubble, a mis-injection): a lone "
+                     "peak or dip much larger than the course's other kinks and the plate's noise. It is left out of "
+                     "the rate fit (it stays in the store).",
 }
 
 #: a well at this fraction of its largest reading at its first reading is done (common practice,
@@ -155,6 +159,81 @@ def _flag_codes(flags: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.nd
     text = np.array([";".join(nm for i, nm in enumerate(names) if int(c) >> i & 1) for c in combos]
                     + [""], dtype=object)   # the trailing "" keeps the array 1-d of str when empty
     return text, inv.ravel()
+
+
+#: a lone spike: its kink (distance from the chord of its two neighbours) is this many times the
+#: course's fourth largest kink and the plate's robust kink scale (common practice, no source)
+SPIKE_RATIO = 5.0
+SPIKE_NOISE_SDS = 6.0
+#: courses with fewer readings have too few kinks to tell a spike from the course
+SPIKE_MIN_READINGS = 6
+#: ... and each neighbour's kink, of the other sign, at least this share of the spike's
+SPIKE_NEIGHBOUR_SHARE = 0.2
+
+
+def lone_spikes(t: np.ndarray, y: np.ndarray, g: np.ndarray, plate_of_well: np.ndarray,
+                scale: np.ndarray) -> np.ndarray:
+    """One bool per reading (flat arrays sorted by well code ``g``, then time): the reading that is a
+    lone spike of its course, at most one per well.
+
+    Each interior reading's kink is its distance from the chord through its two neighbours, in mM
+    (``y`` x the well's ``scale``). A reading is a spike when it is a local peak or dip, a
+    neighbour's kink has the other sign and at least :data:`SPIKE_NEIGHBOUR_SHARE` of its size (as
+    one displaced reading pulls them; with uneven reading times one of them may be small), no
+    neighbour's kink goes its way by half that share, and its kink
+    exceeds :data:`SPIKE_RATIO` times the course's fourth largest kink (the three largest being the
+    spike and its neighbours) and :data:`SPIKE_NOISE_SDS` times the plate's robust kink scale
+    (1.4826 x the median |kink| of its readings). A smooth maximum (product decline) has kinks of one
+    sign around it; a kink in a monotone course (the end of an induction) is no peak."""
+    n = len(y)
+    out = np.zeros(n, dtype=bool)
+    if n < 3:
+        return out
+    same_prev = np.zeros(n, dtype=bool)
+    same_prev[1:] = g[1:] == g[:-1]
+    same_next = np.zeros(n, dtype=bool)
+    same_next[:-1] = g[:-1] == g[1:]
+    inner = same_prev & same_next
+    i = np.flatnonzero(inner)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = (t[i] - t[i - 1]) / (t[i + 1] - t[i - 1])
+        kink_i = (y[i] - (y[i - 1] + (y[i + 1] - y[i - 1]) * frac)) * scale[g[i]]
+    kink = np.full(n, np.nan)
+    kink[i] = kink_i
+    ok = np.isfinite(kink)
+    counts = np.bincount(g, minlength=int(g.max()) + 1 if n else 0)
+    if not ok.any():
+        return out
+    # the plate's robust kink scale
+    pl = plate_of_well[g]
+    k_abs = np.abs(kink)
+    plate_scale = pd.Series(k_abs[ok]).groupby(pl[ok]).median() * 1.4826
+    noise = plate_scale.reindex(pl).to_numpy(dtype=float)
+    # per well: the largest |kink| and the fourth largest
+    order = np.lexsort((-np.where(ok, k_abs, -1.0), g))
+    gs = g[order]
+    start = np.searchsorted(gs, gs, side="left")
+    rank = np.arange(n) - start
+    top = order[rank == 0]
+    fourth = np.full(len(counts), np.nan)
+    r4 = order[(rank == 3) & ok[order]]
+    fourth[g[r4]] = k_abs[r4]
+    cand = top[ok[top] & (counts[g[top]] >= SPIKE_MIN_READINGS)]
+    if not cand.size:
+        return out
+    peak = (y[cand] - y[cand - 1]) * (y[cand] - y[cand + 1]) > 0
+    # one displaced reading pulls its neighbours' kinks the other way, by a fair share of its own
+    # (a course at its plateau at once has a kink there, but a flat neighbour after it)
+    s = np.sign(kink[cand])
+    prev_k, next_k = kink[cand - 1], kink[cand + 1]
+    size = k_abs[cand]
+    pulled = lambda k: np.isfinite(k) & (np.sign(k) == -s) & (np.abs(k) >= SPIKE_NEIGHBOUR_SHARE * size)  # noqa: E731
+    along = lambda k: np.isfinite(k) & (np.sign(k) == s) & (np.abs(k) >= 0.5 * SPIKE_NEIGHBOUR_SHARE * size)  # noqa: E731
+    other_sign = (pulled(prev_k) | pulled(next_k)) & ~along(prev_k) & ~along(next_k)
+    with np.errstate(invalid="ignore"):
+        big = (k_abs[cand] > SPIKE_RATIO * fourth[g[cand]]) & (k_abs[cand] > SPIKE_NOISE_SDS * noise[cand])
+    out[cand[peak & other_sign & np.nan_to_num(big, nan=False).astype(bool)]] = True
+    return out
 
 
 def _order_by_well(code: np.ndarray, t: np.ndarray) -> np.ndarray | None:
@@ -374,7 +453,10 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
     share = _main_share(data, amounts, rows, g, t, prod, G)
     with np.errstate(invalid="ignore", divide="ignore"):
         substrate_h = _substrate_integral(t, y / share[g], g, G, capped)
-    c = ratelaws.dense_courses(t, y, g, G, capped, keep=rc != ABOVE_LINEAR_RANGE)
+    plate_code = pd.factorize(wells["plate"].iloc[rows])[0]
+    spike = lone_spikes(t, y, g, plate_code, np.where(capped, theo, 1.0))
+    spiked = np.bincount(g[spike], minlength=G) > 0
+    c = ratelaws.dense_courses(t, y, g, G, capped, keep=(rc != ABOVE_LINEAR_RANGE) & ~spike)
     del t, prod, rc, y, g, code, t_all, p_all, rc_all, use
     if baselined.any():
         c = _baseline_offset(c, baselined)
@@ -596,6 +678,7 @@ def _well_rates(data, settings, amounts) -> pd.DataFrame:
         "no_substrate": ~capped & (n_points > 0),
         "above_full_scale": above_full,
         "above_linear_range": above_lin,
+        "reading_spike": spiked,
     }
     flag_words, flag_codes = _flag_codes(flags, G)
     censored = np.where(done, "lower", "")
