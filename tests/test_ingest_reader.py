@@ -113,6 +113,35 @@ def test_cp1252_file_is_read_and_said_so():
     assert set(res.data.wells["loading_unit"].dropna()) == {"umol", "mg", "mol%"}
 
 
+def test_utf16_export_is_read_and_said_so():
+    """Excel's "Unicode text" export: UTF-16 with its byte-order mark (here tab-separated), read as
+    the UTF-8 file it stands for, with a note; before, its NUL bytes read as mojibake headers."""
+    f = enc(good_files())
+    f["readings.csv"] = good_readings().replace(",", "\t").encode("utf-16")      # BOM + UTF-16 (LE here)
+    assert f["readings.csv"][:2] in (b"\xff\xfe", b"\xfe\xff")
+    with pytest.warns(DataQualityWarning, match="UTF-16"):
+        res = read_campaign(f)
+    assert any("readings.csv: read as UTF-16" in n for n in res.notes)
+    same_data(res.data, baseline())
+
+
+def test_excel_sep_line_names_the_delimiter_and_is_not_a_row():
+    """A first line ``sep=;`` (Excel writes and reads it) gives the delimiter; rows are counted from
+    the header, as Excel shows the file (a problem on the first data row is at row 2)."""
+    f = {k: (to_semicolon(v) if k.endswith(".csv") else v) for k, v in good_files().items()}
+    f["readings.csv"] = "sep=;\n" + f["readings.csv"]
+    with pytest.warns(DataQualityWarning, match="delimiter line"):
+        res = read_campaign(enc(f))
+    assert any("Excel's delimiter line" in n for n in res.notes)
+    same_data(res.data, baseline())
+    lines = f["readings.csv"].splitlines()
+    lines[2] = ";".join(lines[2].split(";")[:-1] + ["x"])                        # the first data row
+    f["readings.csv"] = "\n".join(lines) + "\n"
+    with pytest.raises(ValidationError) as exc:
+        read_campaign(enc(f))
+    assert [(p.file, p.row, p.column) for p in exc.value.problems] == [("readings.csv", 2, "value")]
+
+
 def to_semicolon(text: str) -> str:
     """European export: ';' between cells, ',' as decimal mark."""
     return "\n".join(line.replace(".", ",").replace(",", ";") if False else

@@ -3,8 +3,10 @@
 Every cell is kept as text here; numbers are parsed (and reported) by :mod:`.validate`, so a bad
 cell never stops the reading of the others. Accepted spreadsheet quirks:
 
-* UTF-8 with or without a byte-order mark; cp1252 (Windows "ANSI") when the bytes are not UTF-8,
-  with a note saying so;
+* UTF-8 with or without a byte-order mark; UTF-16 with its byte-order mark (Excel's "Unicode
+  text"); cp1252 (Windows "ANSI") when the bytes are not UTF-8, with a note saying so;
+* Excel's first line ``sep=;`` (its delimiter hint): read as the delimiter and not counted as a
+  row, as Excel shows the file;
 * comma, semicolon or tab as delimiter (the one that occurs most often in the header line wins);
   with semicolon or tab, a comma inside a number is a decimal comma;
 * CRLF line ends, padded cells and headers, header names in any case (``Substrate Conc`` is
@@ -93,7 +95,15 @@ def normalise_header(name: str) -> str:
 
 
 def decode_text(name: str, data: bytes, notes: list[str]) -> str:
-    """UTF-8 (BOM or not), else cp1252 with a note; never raises."""
+    """UTF-16 with its byte-order mark (Excel's "Unicode text"), UTF-8 (BOM or not), else cp1252
+    with a note; never raises."""
+    if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        try:
+            text = data.decode("utf-16")
+            notes.append(f"{name}: read as UTF-16 (its byte-order mark says so).")
+            return text
+        except UnicodeDecodeError:
+            pass
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError:
@@ -104,6 +114,10 @@ def decode_text(name: str, data: bytes, notes: list[str]) -> str:
         notes.append(f"{name}: not UTF-8; read as Windows-1252 (cp1252). Save as UTF-8 to be sure of "
                      "non-ASCII characters.")
     return text
+
+
+#: the first line ``sep=;`` that Excel writes and reads as the delimiter of the lines after it
+_SEP_HINT = re.compile(r"\s*sep=([,;\t|])\s*", re.IGNORECASE)
 
 
 def _pick_delimiter(header_line: str) -> str:
@@ -225,6 +239,9 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     The frame from the Arrow fast path is already stripped and guard-cleaned (record index given);
     the pandas path returns raw cells (record index None)."""
     lines = text.splitlines()
+    hint = _SEP_HINT.fullmatch(lines[0]) if lines else None
+    if hint:                      # Excel's delimiter line: not a row (Excel does not show it either)
+        lines = lines[1:]
     lead = 0
     while lead < len(lines) and not lines[lead].strip():
         lead += 1
@@ -232,7 +249,7 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
         problems.append(Problem(name, None, None, None, "the file is empty"))
         return None
     body = "\n".join(lines[lead:])
-    delim = _pick_delimiter(lines[lead])
+    delim = hint.group(1) if hint else _pick_delimiter(lines[lead])
     fast = _arrow_cells(body, delim, lines[lead].count(delim) + 1)
     if fast is not None:
         return fast[0], lead, delim, fast[1], fast[2]
@@ -306,10 +323,13 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
         if cells is None:
             return None
     else:
-        got = _read_plain_csv(data)
+        got = _read_plain_csv(data) if not data.lstrip(b"\xef\xbb\xbf \t").lower().startswith(b"sep=") else None
         if got is None:
             text = decode_text(name, data, notes)
             got = _read_csv_cells(name, text, problems)
+            if got is not None and text.splitlines() and _SEP_HINT.fullmatch(text.splitlines()[0]):
+                notes.append(f"{name}: its first line {text.splitlines()[0].strip()!r} (Excel's delimiter line) "
+                             "names the delimiter; rows are counted from the header, as Excel shows them.")
         if got is None:
             return None
         cells, offset, delim, records, nonblank = got
