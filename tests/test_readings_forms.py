@@ -304,6 +304,33 @@ def test_workbook_problem_names_the_sheet(campaigns, tmp_path):
     assert [(p.file, p.row, p.column, p.value) for p in problems] == [(f"readings.xlsx [sheet {plate}]", 8, "2", "n.d.")]
 
 
+def test_spreadsheet_error_cells_are_reported_as_what_they_are(campaigns, tmp_path):
+    """A cell holding a spreadsheet error (#DIV/0!, #N/A: a formula that failed) is given by the
+    workbook reader as empty; it is reported with its error text, on its sheet, row and column,
+    not as 'a value is required (value '')'. Also on a sheet that is not the workbook's first."""
+    wb = to_workbook(campaigns["syn96"], tmp_path / "w")
+    book = openpyxl.load_workbook(wb / "readings.xlsx")
+    ws = book.worksheets[1]
+    ws.cell(row=8, column=5, value="#DIV/0!")
+    assert ws.cell(row=8, column=5).data_type == "e"              # stored as an error cell (t="e")
+    book.save(wb / "readings.xlsx")
+    problems = _problems(wb)
+    assert [(p.file, p.row, p.column, p.value) for p in problems] == [
+        (f"readings.xlsx [sheet {ws.title}]", 8, "4", "#DIV/0!")]
+    # the long form as a workbook: the value cell of one reading is #N/A
+    lf = tmp_path / "long"
+    shutil.copytree(campaigns["syn96"], lf)
+    rows = [line.split(",") for line in (lf / "readings.csv").read_text().splitlines()]
+    (lf / "readings.csv").unlink()
+    book = openpyxl.Workbook()
+    for r in rows:
+        book.active.append([float(c) if c.replace(".", "", 1).replace("-", "", 1).isdigit() else c for c in r])
+    book.active.cell(row=5, column=len(rows[0]), value="#N/A")
+    book.save(lf / "readings.xlsx")
+    problems = _problems(lf)
+    assert [(p.file, p.row, p.value) for p in problems] == [("readings.xlsx", 5, "#N/A")]
+
+
 def test_both_readings_csv_and_folder_refused(campaigns, tmp_path):
     g = to_grid_folder(campaigns["syn96"], tmp_path / "g")
     shutil.copy2(campaigns["syn96"] / "readings.csv", g / "readings.csv")

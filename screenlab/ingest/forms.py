@@ -55,7 +55,7 @@ import pandas as pd
 from screenlab import plates as platelib
 from screenlab.errors import Problem
 
-from .tables import Origin, RawTable, decode_text, normalise_header, read_table
+from .tables import Origin, RawTable, decode_text, normalise_header, read_table, with_error_cells, xlsx_error_cells
 from .validate import NA_WORDS, READING_COLUMNS, SAMPLE_COLUMN, parse_names
 
 #: the columns of the reshaped long table
@@ -524,6 +524,10 @@ def _xlsx_sheets(name: str, data: bytes, problems: list[Problem]) -> dict[str, n
     except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
         problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
         return None
+    errors = xlsx_error_cells(data)
+    if any(errors):
+        book = {k: (with_error_cells(v.astype(object), errors[i]) if i < len(errors) and errors[i] else v)
+                for i, (k, v) in enumerate(book.items())}
     return {str(k): v.to_numpy(dtype=object) for k, v in book.items()}
 
 

@@ -12,7 +12,8 @@ cell never stops the reading of the others. Accepted spreadsheet quirks:
 * CRLF line ends, padded cells and headers, header names in any case (``Substrate Conc`` is
   ``substrate_conc``), blank rows anywhere, trailing delimiters and empty trailing columns;
 * XLSX: first sheet, read with ``pandas.read_excel(engine="calamine")`` as text; date cells become
-  ISO dates.
+  ISO dates; a cell holding a spreadsheet error (``#DIV/0!``, ``#N/A``), which the reader gives as
+  empty, is given its error text back (:func:`xlsx_error_cells`), so it is reported as what it is.
 
 Row numbers follow the spreadsheet: the header is row 1, the first data row is row 2.
 """
@@ -284,13 +285,64 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     return cells.fillna(""), lead, delim, None, None
 
 
+_SHEET_ENTRY = re.compile(rb'<sheet\b[^>]*?\br:id="([^"]+)"')
+_REL_TAG = re.compile(rb'<Relationship\b[^>]*>')
+_REL_ID = re.compile(rb'\bId="([^"]+)"')
+_REL_TARGET = re.compile(rb'\bTarget="([^"]+)"')
+_ERROR_CELL = re.compile(rb'<c r="([A-Z]+)([0-9]+)"[^>]*?\bt="e"[^>]*>(?:<f[^>]*/>|<f[^>]*>.*?</f>)?<v>([^<]*)</v>',
+                         re.S)
+
+
+def xlsx_error_cells(data: bytes) -> list[dict[tuple[int, int], str]]:
+    """Per sheet, in the workbook's order: the cells holding a spreadsheet error (``#DIV/0!``,
+    ``#N/A``, ...) as {(row, column) 0-based from A1: its text}. The workbook reader gives such
+    cells as empty; put back, they are reported as what they are. [] when the file is no workbook."""
+    import zipfile
+
+    try:
+        with zipfile.ZipFile(io.BytesIO(data)) as z:
+            book = z.read("xl/workbook.xml")
+            rels = {}
+            for tag in _REL_TAG.findall(z.read("xl/_rels/workbook.xml.rels")):   # attributes in any order
+                i, t = _REL_ID.search(tag), _REL_TARGET.search(tag)
+                if i and t:
+                    rels[i.group(1)] = t.group(1)
+            out = []
+            for rid in _SHEET_ENTRY.findall(book):
+                target = rels.get(rid, b"").decode()
+                member = target.lstrip("/") if target.startswith("/") else "xl/" + target
+                raw = z.read(member) if member in z.namelist() else b""
+                found = {}
+                if b't="e"' in raw:
+                    for col, row, text in _ERROR_CELL.findall(raw):
+                        c = 0
+                        for ch in col.decode():
+                            c = c * 26 + ord(ch) - 64
+                        found[(int(row) - 1, c - 1)] = text.decode("utf-8", "replace")
+                out.append(found)
+            return out
+    except (zipfile.BadZipFile, KeyError, OSError, ValueError):
+        return []
+
+
+def with_error_cells(cells: pd.DataFrame, errors: dict[tuple[int, int], str]) -> pd.DataFrame:
+    """``cells`` (0-based from A1) with the spreadsheet errors written into their empty cells."""
+    for (r, c), text in errors.items():            # a loop over error cells (a handful)
+        if r < cells.shape[0] and c < cells.shape[1] and (pd.isna(cells.iat[r, c]) or cells.iat[r, c] == ""):
+            cells.iat[r, c] = text
+    return cells
+
+
 def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.DataFrame | None:
     try:
         cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=0, header=None, dtype=str)
     except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
         problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
         return None
+    errors = xlsx_error_cells(data)
     cells = cells.fillna("").astype(str)
+    if errors and errors[0]:
+        cells = with_error_cells(cells, errors[0])
     # date cells arrive as 'YYYY-MM-DD 00:00:00'; keep the ISO date
     for c in cells.columns:
         cells[c] = cells[c].str.replace(r"^(\d{4}-\d{2}-\d{2})[ T]00:00:00$", r"\1", regex=True)
