@@ -53,7 +53,8 @@ def _kinetics_and_edge(data: CampaignData, settings: AnalysisSettings):
     amounts, per_well, selectivity = rate_stage(data, settings)
     edge = edge_test(per_well, data) if len(per_well) and len(data.plates) else None
     drop = edge_blanks(per_well, data, edge=edge)
-    return after_rates(data, settings, amounts, per_well, selectivity, drop_blank=drop), edge
+    ring = edge_ring_wells(per_well, data, edge=edge)
+    return after_rates(data, settings, amounts, per_well, selectivity, drop_blank=drop, drop_wells=ring), edge
 
 
 def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **overrides: Any) -> Analysis:
@@ -77,12 +78,9 @@ def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **over
     return Analysis(data=data, settings=settings, kinetics=kin, quality=quality, control=control)
 
 
-def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFrame | None = None):
-    """One bool per row of ``per_well`` (the rate step's frame, or ``kin.wells``): the blank wells
-    on the outer ring of a plate whose edge test finds an edge effect
-    (:func:`screenlab.stats.quality.edge_test`, the test behind plate quality's ``edge_effect``)
-    and that has blanks in its interior too (else None: nothing to leave out). ``edge``: that test
-    when it is already made on ``per_well``."""
+def _ring_of_flagged_plates(per_well: pd.DataFrame, data: CampaignData, edge: pd.DataFrame | None):
+    """(on the ring of a plate whose edge test finds an edge effect, plate code per row, number of
+    plates) for the rows of ``per_well``; None when no plate has an edge effect."""
     import numpy as np
 
     from screenlab._groups import factorize
@@ -107,12 +105,58 @@ def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFram
     ring = np.zeros(len(w), dtype=bool)
     known = ~np.isnan(fmt)
     ring[known] = is_edge(w["row"].to_numpy()[known], w["col"].to_numpy()[known], fmt[known].astype(np.int64))
-    blank = (w["role"].astype(str) == "blank").to_numpy()
     on_plate = w["plate"].isin(set(flagged.astype(str))).to_numpy()
-    drop = blank & ring & on_plate
-    # keep a plate's ring blanks when it has no interior blank to take their place
     key = np.where(code >= 0, code, len(names))                   # a missing plate: one more key
-    has_interior = np.zeros(len(names) + 1, dtype=bool)
-    has_interior[key[blank & ~ring & on_plate]] = True
+    return ring & on_plate, key, len(names) + 1
+
+
+def edge_ring_wells(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFrame | None = None):
+    """One bool per row of ``per_well``: the sample and benchmark wells on the outer ring of a plate
+    whose edge test finds an edge effect, whose group (catalyst, loading, substrate level, factor
+    levels) has a well in that plate's interior too (else None: nothing to leave out). Their rates
+    read off as the ring does (evaporation, a warmer rim), while the interior wells carry the group:
+    kept, a biased ring can outvote a correct interior well and make it look like a failed one. A
+    group with ring wells only keeps them (``edge_effect`` on the plate says why to doubt them)."""
+    import numpy as np
+
+    from screenlab import _groups as grp
+
+    got = _ring_of_flagged_plates(per_well, data, edge)
+    if got is None:
+        return None
+    on_ring, plate_key, _ = got
+    w = per_well
+    role = w["role"].astype(str).to_numpy()
+    catalysed = (role == "sample") | (role == "reference")
+    cols = ["catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
+            *[f for f in data.factor_names if f in w.columns]]
+    group = grp.group_index([plate_key, *[grp.codes(w[c]) for c in cols]])
+    interior = catalysed & ~on_ring & (plate_key >= 0)
+    has_interior = np.zeros(int(group.max()) + 1 if len(group) else 0, dtype=bool)
+    has_interior[group[interior]] = True
+    drop = catalysed & on_ring & has_interior[group]
+    return drop if drop.any() else None
+
+
+def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFrame | None = None):
+    """One bool per row of ``per_well`` (the rate step's frame, or ``kin.wells``): the blank wells
+    on the outer ring of a plate whose edge test finds an edge effect
+    (:func:`screenlab.stats.quality.edge_test`, the test behind plate quality's ``edge_effect``)
+    and that has blanks in its interior too (else None: nothing to leave out). ``edge``: that test
+    when it is already made on ``per_well``."""
+    import numpy as np
+
+    got = _ring_of_flagged_plates(per_well, data, edge)
+    if got is None:
+        return None
+    on_ring, key, n_keys = got
+    w = per_well
+    blank = (w["role"].astype(str) == "blank").to_numpy()
+    flagged_plate = np.zeros(n_keys, dtype=bool)
+    flagged_plate[key[on_ring]] = True
+    drop = blank & on_ring
+    # keep a plate's ring blanks when it has no interior blank to take their place
+    has_interior = np.zeros(n_keys, dtype=bool)
+    has_interior[key[blank & ~on_ring & flagged_plate[key]]] = True
     drop &= has_interior[key]
     return drop if drop.any() else None

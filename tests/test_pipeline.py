@@ -45,6 +45,38 @@ def _ring_blanks(w: pd.DataFrame, data, plates: set[str]) -> np.ndarray:
     return blank & ring & on & interior_blank
 
 
+def _ring_samples(w: pd.DataFrame, data, plates: set[str]) -> np.ndarray:
+    """The rule in plain steps: sample and benchmark wells on the outer ring of ``plates`` whose
+    group (plate, catalyst, temperature, loading, substrate level, factor levels) has a well in
+    the plate's interior too."""
+    fmt = w["plate"].map(data.plates.set_index("plate")["format"]).to_numpy(dtype=np.int64)
+    ring = is_edge(w["row"].to_numpy(), w["col"].to_numpy(), fmt)
+    cat = w["role"].isin(["sample", "reference"]).to_numpy()
+    on = w["plate"].astype(str).isin(plates).to_numpy()
+    keys = ["plate", "catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
+            *data.factor_names]
+    interior = pd.Series(cat & ~ring & on).groupby([w[k] for k in keys], dropna=False).transform("any").to_numpy()
+    return cat & ring & on & interior
+
+
+def test_ring_samples_of_edge_effect_plates_are_left_out_where_the_interior_carries_them(th_screen):
+    """On the demo's TH-70 (its ring evaporates and reads high), the ring wells of a group with an
+    interior well on that plate are left out of the group; S-NI-SI, inactive, read active from its
+    two ring wells while its interior well, reading like the blank, was taken for a failed well."""
+    data = th_screen
+    a = analyse(data)
+    w = a.kinetics.wells
+    expected = _ring_samples(w, data, _edge_plates(a.quality))
+    left_out = w["flags"].astype(str).str.split(";").apply(lambda f: "edge_left_out" in f).to_numpy()
+    assert expected.sum() > 10
+    np.testing.assert_array_equal(left_out, expected)
+    r = a.kinetics.rates
+    ni = r[(r["catalyst"] == "S-NI-SI") & (r["temperature_c"] == 70.0)].iloc[0]
+    assert ni["censored"] == "upper" and "excluded_edge_wells" in ni["flags"]
+    ni_wells = w[(w["catalyst"] == "S-NI-SI") & (w["plate"] == "TH-70")]
+    assert not ni_wells["flags"].astype(str).str.contains("failed_well").any()
+
+
 def test_ring_blanks_of_edge_effect_plates_are_left_out(th_screen):
     data = th_screen
     a = analyse(data)
@@ -65,7 +97,9 @@ def test_one_pass_equals_the_analysis_repeated_without_those_blanks(th_screen):
     a = analyse(data, settings)
     full = analyse_kinetics(data, settings)
     drop = _ring_blanks(full.per_well, data, _edge_plates(a.quality))
-    two_pass = after_rates(data, settings, full.amounts, full.per_well, full.selectivity, drop_blank=drop)
+    ring = _ring_samples(full.per_well, data, _edge_plates(a.quality))
+    two_pass = after_rates(data, settings, full.amounts, full.per_well, full.selectivity, drop_blank=drop,
+                           drop_wells=ring)
     one_pass = kinetics(data, settings)
     for name in ("wells", "blanks", "rates", "arrhenius", "orders"):
         pd.testing.assert_frame_equal(getattr(one_pass, name), getattr(two_pass, name), check_exact=True, obj=name)

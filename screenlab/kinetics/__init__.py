@@ -73,10 +73,11 @@ def rate_stage(data, settings: AnalysisSettings):
     return amounts, per_well, selectivity
 
 
-def after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None) -> KineticsResult:
+def after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None, drop_wells=None) -> KineticsResult:
     """Blanks, turnover, groups, Arrhenius and orders on top of the per-well rates. ``drop_blank``
     (one bool per row of ``per_well``) leaves blank wells out of the blank means; they keep their
-    rows, flagged ``blank_left_out``."""
+    rows, flagged ``blank_left_out``. ``drop_wells`` (the same) leaves catalysed wells out of their
+    group statistics, flagged ``edge_left_out``."""
     from screenlab.kinetics.arrhenius import arrhenius_table
     from screenlab.kinetics.orders import apparent_orders
     from screenlab.kinetics.turnover import blank_rates, group_rates, well_turnover
@@ -84,7 +85,7 @@ def after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None)
     if drop_blank is not None:
         drop_blank = np.asarray(drop_blank, dtype=bool)
     blanks = blank_rates(per_well, settings, exclude=drop_blank)
-    wells = well_turnover(data, per_well, blanks, settings, excluded_blanks=drop_blank)
+    wells = well_turnover(data, per_well, blanks, settings, excluded_blanks=drop_blank, excluded_wells=drop_wells)
     groups = group_rates(wells, settings, factor_names=data.factor_names, selectivity=selectivity)
     arr = arrhenius_table(groups, blanks, settings)
     groups = with_plate_scatter(groups, arr, settings)

@@ -66,6 +66,11 @@ FLAGS: dict[str, str] = {
     "failed_well": "No product above the blank while this well's replicates are active (e.g. a dispensing "
                    "failure): left out of the group statistics, kept in the per-well table.",
     "excluded_failed_well": "One or more failed wells (flag failed_well) were left out of this group's statistics.",
+    "edge_left_out": "This well is on the outer ring of a plate whose ring reads differently from its interior "
+                     "(edge effect), and its group has interior wells on that plate: it is left out of the group's "
+                     "statistics, kept in the per-well table.",
+    "excluded_edge_wells": "Ring wells of a plate with an edge effect were left out of this group's statistics; "
+                           "its interior wells on that plate carry it.",
     "single_well": "Only one well in this group: its SE is the well's own fit SE.",
     "not_above_blank": "The group's net TOF confidence interval reaches zero or below: no activity shown over "
                        "the blank.",
@@ -388,7 +393,7 @@ def _robust_z(values: np.ndarray, group_codes: np.ndarray, se: np.ndarray | None
 
 
 def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
-                  settings: AnalysisSettings | None = None, excluded_blanks=None) -> pd.DataFrame:
+                  settings: AnalysisSettings | None = None, excluded_blanks=None, excluded_wells=None) -> pd.DataFrame:
     """The well_rates columns plus sites, blank correction, TOF, TON, enhancement and outliers.
 
     ``data`` is the :class:`CampaignData` (its ``catalysts`` give the site counts; a bare
@@ -397,6 +402,10 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     enhancement_ci_low, enhancement_ci_high, outlier`` and also ``site_basis,
     blank_lod_mM_per_h, blank_df, tof_per_s, ln_enhancement_se, enhancement_df``. Blank and empty
     wells keep NaN TOF. ``flags`` gains this module's codes. A new frame is returned.
+    ``excluded_blanks`` / ``excluded_wells`` (one bool per row): blank wells left out of the blank
+    means, catalysed wells left out of their group statistics on purpose (the pipeline's ring wells
+    of a plate with an edge effect; flags ``blank_left_out`` / ``edge_left_out``); neither takes part
+    in the replicate outlier test.
     """
     settings = settings or AnalysisSettings()
     catalysts = data if isinstance(data, pd.DataFrame) else data.catalysts
@@ -419,11 +428,13 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     known = {"temperature_c": grp.codes(tkey), "role": roles.key, **{c: grp.with_missing(*v) for c, v in parts.items()},
              "substrate_conc_mM": grp.codes(_ckey(_f(wells, "substrate_conc_mM")))}
     replicates = np.where(catalysed, grp.group_index([known[k] if k in known else wells[k] for k in keys]), -1)
-    outlier, metric = _replicate_outliers(w, sites, catalysed, replicates, np.where(is_blank, bl["pt_code"], -1),
-                                          settings, excluded_blanks)
+    left_out = (np.zeros(len(wells), dtype=bool) if excluded_wells is None
+                else catalysed & np.asarray(excluded_wells, dtype=bool))
+    outlier, metric = _replicate_outliers(w, sites, catalysed, np.where(left_out, -1, replicates),
+                                          np.where(is_blank, bl["pt_code"], -1), settings, excluded_blanks)
 
     flag_words, flag_codes = _well_flags(wells, catalysed, is_blank, sites, (site_words, site_codes), bl, w, e,
-                                         outlier, metric, excluded_blanks)
+                                         outlier, metric, excluded_blanks, left_out)
     censored = np.where(catalysed & w["lower_w"], "lower", np.where(w["upper_w"], "upper", ""))
     with np.errstate(invalid="ignore"):
         tof_bound = (np.where(w["upper_w"], np.maximum(w["net"], 0.0) + w["q_w"] * w["net_se"], w["net"])
@@ -460,7 +471,7 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
 
 def _well_flags(wells: pd.DataFrame, catalysed: np.ndarray, is_blank: np.ndarray, sites: np.ndarray, site_flags,
                 bl: dict, w: dict, e: dict, outlier: np.ndarray, metric: np.ndarray,
-                excluded_blanks) -> tuple[np.ndarray, np.ndarray]:
+                excluded_blanks, left_out: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Each well's flags (distinct texts and a code per well): its incoming flags, its site flags
     (``site_flags``: words and codes of :func:`screenlab.kinetics.sites.site_arrays`), then this
     module's codes."""
@@ -482,6 +493,7 @@ def _well_flags(wells: pd.DataFrame, catalysed: np.ndarray, is_blank: np.ndarray
         "ton_capped": w["ton_capped"] & np.isfinite(w["ton"]),
         "blank_left_out": (is_blank & np.asarray(excluded_blanks, dtype=bool)) if excluded_blanks is not None
         else np.zeros(n_wells, dtype=bool),
+        "edge_left_out": left_out,
     })
 
 
@@ -686,7 +698,9 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
       bound if any of the replicates the statistics use is one (upper limit +inf).
     * Outliers stay in every statistic; the group carries ``has_outlier``. Failed wells (flag
       ``failed_well``: no product above the blank among active replicates) are left out of the
-      statistics, counted out of ``n_wells`` and named by the group flag ``excluded_failed_well``.
+      statistics, counted out of ``n_wells`` and named by the group flag ``excluded_failed_well``;
+      so are the ring wells left out for an edge effect (flag ``edge_left_out``; group flag
+      ``excluded_edge_wells``).
     """
     settings = settings or AnalysisSettings()
     factors = _infer_factors(turnover, factor_names)
@@ -704,7 +718,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     col_codes = {k: special[k]() if k in special else grp.codes(turnover[k]) for k in keys}
     gcode = grp.group_index([col_codes[k] for k in keys], rows)   # = groupby(keys, dropna=False, sort=False).ngroup()
     n_groups = int(gcode.max()) + 1
-    cw = _censored_wells(turnover, rows, gcode, n_groups, fi.has("failed_well")[rows])
+    cw = _censored_wells(turnover, rows, gcode, n_groups, (fi.has("failed_well") | fi.has("edge_left_out"))[rows])
     stat = _well_statistics(turnover, rows, fi.has("enhancement_lower_bound")[rows], cw["skip"])
     s = _group_summaries(turnover, rows, gcode, n_groups, stat, fi, settings)
     first_row = s["first_row"]
@@ -851,7 +865,7 @@ def _group_summaries(turnover: pd.DataFrame, rows: np.ndarray, gcode: np.ndarray
         rate_se = np.where(n_wells >= 2, sdev["rate"] / np.sqrt(n_wells.astype(float)), np.nan)
     return {
         "mean": mean, "sdev": sdev, "n_wells": n_wells, "n": n, "n_out": count(outlier),
-        "n_failed": count(has("failed_well")), "lower_bound": lb,
+        "n_failed": count(has("failed_well")), "n_edge": count(has("edge_left_out")), "lower_bound": lb,
         "no_blank": count(has("no_blank")) > 0, "no_sites": count(~has("no_sites")) == 0,
         "n_plates": n_plates, "plates": plates, "first_pos": order[starts], "first_row": rows[order[starts]],
         "tof": _tof_intervals(mean, sdev, n, k, bdf, first("tof_se1"), first("rate_df1"), settings),
@@ -875,6 +889,7 @@ def _group_flags(has, rows: np.ndarray, gcode: np.ndarray, n_groups: int, cw: di
         "single_well": s["n"] == 1,
         "has_outlier": s["n_out"] > 0,
         "excluded_failed_well": s["n_failed"] > 0,
+        "excluded_edge_wells": s["n_edge"] > 0,
         "no_blank": s["no_blank"],
         "no_sites": s["no_sites"],
         "enhancement_lower_bound": (s["lower_bound"] | c["is_low"]) & np.isfinite(e["mean"]),
@@ -883,7 +898,7 @@ def _group_flags(has, rows: np.ndarray, gcode: np.ndarray, n_groups: int, cw: di
         "censored_replicate": cw["part_lower"],
         **{code: 2 * hits(code) > base for code in ("induction", "deactivation", "product_decline", "law_misfit",
                                                     "ton_capped")},
-        **{code: hits(code) > 0 for code in ("above_full_scale", "above_linear_range")},
+        **{code: hits(code) > 0 for code in ("above_full_scale", "above_linear_range", "reading_spike")},
     })
 
 
