@@ -353,6 +353,19 @@ def test_well_rates_reach_the_per_well_curve_fit_minimum_of_their_law():
                                                       "first_order_deactivating"}, seen
 
 
+def test_genuine_turns_of_a_course_are_not_spikes():
+    """Courses whose turning reading is genuine (a reviewer's counterexamples): an induction on
+    sparse log-spaced times reaching its plateau, a product maximum at the first interior reading
+    (A -> B -> C with k2 = 1.5 k1), a zero-order rise into a sharp decline; none is taken out."""
+    cases = [([0, 2, 5, 10, 15, 30, 60, 120], [0.1, -0.3, 0.5, -0.1, -0.1, 7.9, 100.1, 99.9]),
+             ([0, 1, 2, 3, 4, 5, 6], [0, 48.3, 20.1, 7.6, 3.0, 0.9, 0.6]),
+             (list(range(9)), [0, 10, 20, 30, 40, 20, 10, 5, 2.5]),
+             ([0, 15, 30, 60, 120, 240], [0, 20, 40, 80, 30, 10])]
+    for t, y in cases:
+        t, y = np.asarray(t, float), np.asarray(y, float)
+        assert not rates.lone_spikes(t, y, np.zeros(len(t), int), np.zeros(1, int), np.ones(1)).any(), y
+
+
 def test_lone_spike_rule_in_plain_lines():
     """The rule on small courses: a lone peak far above the course's other kinks is the spike; a
     smooth maximum, a course at its plateau at once and a monotone kink are not; one per well."""
@@ -401,7 +414,9 @@ def test_a_spiked_reading_is_found_and_left_out():
     got = well_rates(dc_replace(data, readings=rd), s)
     flagged = got.loc[_has_flag(got, "reading_spike"), ["plate", "well"]]
     key = lambda f: set(zip(f["plate"].astype(str), f["well"].astype(str)))  # noqa: E731
-    assert key(flagged) <= key(pick) and len(flagged) >= 36
+    # (a few sit where the course itself rises steeply into its plateau: there one reading cannot
+    # be told from a sharp turn of the course, and the rule leaves it in)
+    assert key(flagged) <= key(pick) and len(flagged) >= 32
     # their rates as the clean courses give them (where the rate is an initial rate at all: an
     # induction course's early-window quadratic moves with any reading of its window)
     both = got.merge(clean, on=["plate", "well"], suffixes=("", "_clean")).merge(flagged)

@@ -180,7 +180,9 @@ def lone_spikes(t: np.ndarray, y: np.ndarray, g: np.ndarray, plate_of_well: np.n
     (``y`` x the well's ``scale``). A reading is a spike when it is a local peak or dip, a
     neighbour's kink has the other sign and at least :data:`SPIKE_NEIGHBOUR_SHARE` of its size (as
     one displaced reading pulls them; with uneven reading times one of them may be small), no
-    neighbour's kink goes its way by half that share, and its kink
+    neighbour's kink goes its way by half that share, both neighbours are interior readings, the
+    course without it is as smooth as the rest (its neighbours' kinks on the new chords within the
+    course's own kink scale), the trend of neither side carried on to it reaches it, and its kink
     exceeds :data:`SPIKE_RATIO` times the course's fourth largest kink (the three largest being the
     spike and its neighbours) and :data:`SPIKE_NOISE_SDS` times the plate's robust kink scale
     (1.4826 x the median |kink| of its readings). A smooth maximum (product decline) has kinks of one
@@ -229,7 +231,29 @@ def lone_spikes(t: np.ndarray, y: np.ndarray, g: np.ndarray, plate_of_well: np.n
     size = k_abs[cand]
     pulled = lambda k: np.isfinite(k) & (np.sign(k) == -s) & (np.abs(k) >= SPIKE_NEIGHBOUR_SHARE * size)  # noqa: E731
     along = lambda k: np.isfinite(k) & (np.sign(k) == s) & (np.abs(k) >= 0.5 * SPIKE_NEIGHBOUR_SHARE * size)  # noqa: E731
-    other_sign = (pulled(prev_k) | pulled(next_k)) & ~along(prev_k) & ~along(next_k)
+    # both neighbours interior (a reading beside the course's first or last one is never taken out:
+    # there the course itself may turn, at a maximum or a plateau, with nothing to check it by)
+    other_sign = (np.isfinite(prev_k) & np.isfinite(next_k) & (pulled(prev_k) | pulled(next_k))
+                  & ~along(prev_k) & ~along(next_k))
+    # leave it out: the course its neighbours then draw must be as smooth as the rest of it (a
+    # reading at a genuine turn of the course leaves a kink behind; a displaced one does not)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        def kink_without(j, a, b):        # kink of reading j on the chord through readings a and b
+            f = (t[j] - t[a]) / (t[b] - t[a])
+            return (y[j] - (y[a] + (y[b] - y[a]) * f)) * scale[g[j]]
+        ok2 = other_sign & (cand >= 2) & (cand + 2 < n)
+        c2 = np.where(ok2, cand, 2)
+        left = np.abs(kink_without(c2 - 1, c2 - 2, c2 + 1))
+        right = np.abs(kink_without(c2 + 1, c2 - 1, c2 + 2))
+        floor = np.fmax(SPIKE_RATIO * np.nan_to_num(fourth[g[cand]]), SPIKE_NOISE_SDS * np.nan_to_num(noise[cand]))
+        smooth = ok2 & (np.fmax(left, right) <= np.fmax(0.5 * size, 0.0)) & (np.fmax(left, right) <= floor)
+        # and neither side's trend, carried on to it, reaches it (a course rising straight into a
+        # sharp maximum between sparse readings: its peak is where the rise was heading)
+        from_left = y[c2 - 1] + (y[c2 - 1] - y[c2 - 2]) * (t[c2] - t[c2 - 1]) / (t[c2 - 1] - t[c2 - 2])
+        from_right = y[c2 + 1] + (y[c2 + 1] - y[c2 + 2]) * (t[c2 + 1] - t[c2]) / (t[c2 + 2] - t[c2 + 1])
+        off = np.fmin(np.abs(y[c2] - from_left), np.abs(y[c2] - from_right)) * scale[g[c2]]
+        smooth &= (off >= 0.5 * size) & (off > floor)
+    other_sign = smooth
     with np.errstate(invalid="ignore"):
         big = (k_abs[cand] > SPIKE_RATIO * fourth[g[cand]]) & (k_abs[cand] > SPIKE_NOISE_SDS * noise[cand])
     out[cand[peak & other_sign & np.nan_to_num(big, nan=False).astype(bool)]] = True
