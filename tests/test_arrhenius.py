@@ -510,7 +510,13 @@ def test_uncatalysed_eyring_is_of_the_pseudo_first_order_constant():
     assert row["ds_j_mol_k"] == pytest.approx(ds, abs=1e-6)
     assert row["dg_ref_kj_mol"] == pytest.approx((dh - (60 + 273.15) * ds) / 1000, rel=1e-9)
     assert "eyring_pseudo_first_order" in row["flags"]
-    assert row["tof_ref_per_h"] == pytest.approx(rate[2], rel=1e-3)   # the blank rate, mM/h (an Eyring law is not quite a line in ln r, 1/T)
+    # the blank rate itself, mM/h (an Eyring law is not quite a straight line in ln r against 1/T)
+    assert row["tof_ref_per_h"] == pytest.approx(rate[2], rel=1e-3)
+    # two products per substrate (as k_per_h counts them): twice the rate from the same k
+    row2 = arrhenius_table(_groups("C1", temps, 1e3 * rate, 1e3 * rate * 0.03), bl.assign(
+        blank_rate_mM_per_h=2 * rate, blank_se_mM_per_h=2 * rate * 0.02), s, product_per_substrate=2.0).set_index(
+        "catalyst").loc[UNCATALYSED]
+    assert row2["ds_j_mol_k"] == pytest.approx(ds, abs=1e-6)
     # without a substrate level there is no rate constant: no dS or dG
     row = arrhenius_table(_groups("C1", temps, 1e3 * rate, 1e3 * rate * 0.03), _blanks(temps, rate, rate * 0.02),
                           s).set_index("catalyst").loc[UNCATALYSED]

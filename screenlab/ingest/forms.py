@@ -55,7 +55,8 @@ import pandas as pd
 from screenlab import plates as platelib
 from screenlab.errors import Problem
 
-from .tables import Origin, RawTable, decode_text, normalise_header, read_table, with_error_cells, xlsx_error_cells
+from .tables import (SEP_HINT, Origin, RawTable, decode_text, normalise_header, read_table, with_error_cells,
+                     xlsx_error_cells)
 from .validate import NA_WORDS, READING_COLUMNS, SAMPLE_COLUMN, parse_names
 
 #: the columns of the reshaped long table
@@ -262,10 +263,13 @@ def _rectangle(records: list[list[str]]) -> np.ndarray:
 
 
 def _first_record(text: str) -> list[str] | None:
-    """The first non-blank line of a CSV text as cells (delimiter picked as for a table)."""
-    for line in text.splitlines():
+    """The first non-blank line of a CSV text as cells (delimiter picked as for a table, or named
+    by Excel's first line ``sep=;``, which is not a record)."""
+    lines = text.splitlines()
+    hint = SEP_HINT.fullmatch(lines[0]) if lines else None
+    for line in lines[1:] if hint else lines:
         if line.strip():
-            delim = max((",", ";", "\t"), key=lambda d: (line.count(d), d == ","))
+            delim = hint.group(1) if hint else max((",", ";", "\t"), key=lambda d: (line.count(d), d == ","))
             return next(csv.reader([line], delimiter=delim if line.count(delim) else ","), [])
     return None
 
@@ -525,9 +529,9 @@ def _xlsx_sheets(name: str, data: bytes, problems: list[Problem]) -> dict[str, n
         problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
         return None
     errors = xlsx_error_cells(data)
-    if any(errors):
-        book = {k: (with_error_cells(v.astype(object), errors[i]) if i < len(errors) and errors[i] else v)
-                for i, (k, v) in enumerate(book.items())}
+    if errors:
+        book = {k: (with_error_cells(v.astype(object), errors[str(k)]) if str(k) in errors else v)
+                for k, v in book.items()}
     return {str(k): v.to_numpy(dtype=object) for k, v in book.items()}
 
 

@@ -118,7 +118,7 @@ def decode_text(name: str, data: bytes, notes: list[str]) -> str:
 
 
 #: the first line ``sep=;`` that Excel writes and reads as the delimiter of the lines after it
-_SEP_HINT = re.compile(r"\s*sep=([,;\t|])\s*", re.IGNORECASE)
+SEP_HINT = re.compile(r"\s*\"?sep=([,;\t|])\"?[,;\t|]*\s*", re.IGNORECASE)
 
 
 def _pick_delimiter(header_line: str) -> str:
@@ -240,7 +240,7 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     The frame from the Arrow fast path is already stripped and guard-cleaned (record index given);
     the pandas path returns raw cells (record index None)."""
     lines = text.splitlines()
-    hint = _SEP_HINT.fullmatch(lines[0]) if lines else None
+    hint = SEP_HINT.fullmatch(lines[0]) if lines else None
     if hint:                      # Excel's delimiter line: not a row (Excel does not show it either)
         lines = lines[1:]
     lead = 0
@@ -285,44 +285,59 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     return cells.fillna(""), lead, delim, None, None
 
 
-_SHEET_ENTRY = re.compile(rb'<sheet\b[^>]*?\br:id="([^"]+)"')
-_REL_TAG = re.compile(rb'<Relationship\b[^>]*>')
-_REL_ID = re.compile(rb'\bId="([^"]+)"')
-_REL_TARGET = re.compile(rb'\bTarget="([^"]+)"')
-_ERROR_CELL = re.compile(rb'<c r="([A-Z]+)([0-9]+)"[^>]*?\bt="e"[^>]*>(?:<f[^>]*/>|<f[^>]*>.*?</f>)?<v>([^<]*)</v>',
-                         re.S)
+_SHEET_TAG = re.compile(rb"<(?:\w+:)?sheet\b[^>]*>")
+_REL_TAG = re.compile(rb"<(?:\w+:)?Relationship\b[^>]*>")
+_CELL = re.compile(rb"<(?:\w+:)?c\b([^>]*?)(?:/>|>(.*?)</(?:\w+:)?c>)", re.S)
+_VALUE = re.compile(rb"<(?:\w+:)?v\b[^>]*>([^<]*)</(?:\w+:)?v>")
+_ANY_ERROR = re.compile(rb"""\st\s*=\s*["']e["']""")
 
 
-def xlsx_error_cells(data: bytes) -> list[dict[tuple[int, int], str]]:
-    """Per sheet, in the workbook's order: the cells holding a spreadsheet error (``#DIV/0!``,
-    ``#N/A``, ...) as {(row, column) 0-based from A1: its text}. The workbook reader gives such
-    cells as empty; put back, they are reported as what they are. [] when the file is no workbook."""
+def _attr(tag: bytes, name: bytes) -> str | None:
+    """An XML attribute's value in a tag (either quote; a namespace prefix allowed, ``r:id``)."""
+    m = re.search(rb"(?:^|\s)" + re.escape(name) + rb"""\s*=\s*(["'])(.*?)\1""", tag, re.S)
+    return m.group(2).decode("utf-8", "replace") if m else None
+
+
+def xlsx_error_cells(data: bytes) -> dict[str, dict[tuple[int, int], str]]:
+    """Per worksheet name: the cells holding a spreadsheet error (``#DIV/0!``, ``#N/A``, ...) as
+    {(row, column) 0-based from A1: its text}. The workbook reader gives such cells as empty; put
+    back, they are reported as what they are. {} when the file is no workbook."""
     import zipfile
 
     try:
         with zipfile.ZipFile(io.BytesIO(data)) as z:
-            book = z.read("xl/workbook.xml")
+            names = set(z.namelist())
             rels = {}
-            for tag in _REL_TAG.findall(z.read("xl/_rels/workbook.xml.rels")):   # attributes in any order
-                i, t = _REL_ID.search(tag), _REL_TARGET.search(tag)
-                if i and t:
-                    rels[i.group(1)] = t.group(1)
-            out = []
-            for rid in _SHEET_ENTRY.findall(book):
-                target = rels.get(rid, b"").decode()
+            for tag in _REL_TAG.findall(z.read("xl/_rels/workbook.xml.rels")):
+                rid, target = _attr(tag, b"Id"), _attr(tag, b"Target")
+                if rid and target:
+                    rels[rid] = target
+            out = {}
+            for tag in _SHEET_TAG.findall(z.read("xl/workbook.xml")):
+                name, rid = _attr(tag, b"name"), _attr(tag, b"r:id")
+                target = rels.get(rid or "", "")
                 member = target.lstrip("/") if target.startswith("/") else "xl/" + target
-                raw = z.read(member) if member in z.namelist() else b""
+                if name is None or "worksheets/" not in member or member not in names:
+                    continue                                  # a chartsheet or a dangling entry
+                raw = z.read(member)
                 found = {}
-                if b't="e"' in raw:
-                    for col, row, text in _ERROR_CELL.findall(raw):
+                if _ANY_ERROR.search(raw):                     # most sheets have none: no cell-by-cell pass
+                    for attrs, body in _CELL.findall(raw):
+                        if _attr(attrs, b"t") != "e":
+                            continue
+                        ref, v = _attr(attrs, b"r"), _VALUE.search(body or b"")
+                        m = re.fullmatch(r"([A-Z]+)([0-9]+)", ref or "")
+                        if not m or not v:
+                            continue
                         c = 0
-                        for ch in col.decode():
+                        for ch in m.group(1):
                             c = c * 26 + ord(ch) - 64
-                        found[(int(row) - 1, c - 1)] = text.decode("utf-8", "replace")
-                out.append(found)
+                        found[(int(m.group(2)) - 1, c - 1)] = v.group(1).decode("utf-8", "replace")
+                if found:
+                    out[name] = found
             return out
     except (zipfile.BadZipFile, KeyError, OSError, ValueError):
-        return []
+        return {}
 
 
 def with_error_cells(cells: pd.DataFrame, errors: dict[tuple[int, int], str]) -> pd.DataFrame:
@@ -333,6 +348,16 @@ def with_error_cells(cells: pd.DataFrame, errors: dict[tuple[int, int], str]) ->
     return cells
 
 
+def _first_sheet_name(data: bytes) -> str | None:
+    """The name of the sheet the workbook reader reads as sheet 0."""
+    try:
+        from python_calamine import CalamineWorkbook
+
+        return CalamineWorkbook.from_filelike(io.BytesIO(data)).sheet_names[0]
+    except Exception:  # any reader failure: no name (the read itself reports it)
+        return None
+
+
 def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.DataFrame | None:
     try:
         cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=0, header=None, dtype=str)
@@ -341,8 +366,10 @@ def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.Data
         return None
     errors = xlsx_error_cells(data)
     cells = cells.fillna("").astype(str)
-    if errors and errors[0]:
-        cells = with_error_cells(cells, errors[0])
+    if errors:
+        first = _first_sheet_name(data)
+        if first in errors:
+            cells = with_error_cells(cells, errors[first])
     # date cells arrive as 'YYYY-MM-DD 00:00:00'; keep the ISO date
     for c in cells.columns:
         cells[c] = cells[c].str.replace(r"^(\d{4}-\d{2}-\d{2})[ T]00:00:00$", r"\1", regex=True)
@@ -379,7 +406,7 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
         if got is None:
             text = decode_text(name, data, notes)
             got = _read_csv_cells(name, text, problems)
-            if got is not None and text.splitlines() and _SEP_HINT.fullmatch(text.splitlines()[0]):
+            if got is not None and text.splitlines() and SEP_HINT.fullmatch(text.splitlines()[0]):
                 notes.append(f"{name}: its first line {text.splitlines()[0].strip()!r} (Excel's delimiter line) "
                              "names the delimiter; rows are counted from the header, as Excel shows them.")
         if got is None:

@@ -34,8 +34,9 @@ one point per temperature: y = ln TOF (TOF in h-1) against x = 1/T, T = t + 273.
 * The ``(uncatalysed)`` row fits ln(blank rate, mM/h) on 1/T from the blanks table (plates at the
   same temperature pooled by well count); blanks below their detection limit are left out. Its
   ``ln_a`` and ``tof_ref_*`` are of the blank rate in mM/h (not a TOF: there are no sites), but
-  its Eyring dS and dG are of the pseudo-first-order constant k = rate / [S] (h-1, [S] the blanks'
-  substrate level), since a rate in mM/h is no rate constant and would shift dS by R ln([S]/mM)
+  its Eyring dS and dG are of the pseudo-first-order constant k = rate / (pps [S]) (h-1, [S] the
+  blanks' substrate level, pps the manifest's product per substrate, as for the wells' k_per_h),
+  since a rate in mM/h is no rate constant and would shift dS by R ln(pps [S]/mM)
   (flag ``eyring_pseudo_first_order``); dH is the same either way.
   ``delta_ea_kj_mol`` = Ea(uncatalysed) - Ea(catalyst); SE in quadrature (independent fits) and
   a t interval with Welch-Satterthwaite df.
@@ -488,7 +489,7 @@ def _left_out_text(codes, k: int, temps, reasons) -> np.ndarray:
 
 
 def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
-                    settings: AnalysisSettings | None = None) -> pd.DataFrame:
+                    settings: AnalysisSettings | None = None, product_per_substrate: float = 1.0) -> pd.DataFrame:
     """One row per catalyst (at its standard condition) plus the ``(uncatalysed)`` row.
 
     Columns: see :data:`COLUMNS` (the contract's, plus ``dg_ref_se``, ``fit_weighted``,
@@ -552,8 +553,9 @@ def arrhenius_table(groups: pd.DataFrame, blanks: pd.DataFrame,
         if (~act).any():
             r["flags"] = ";".join([c for c in [*r["flags"].split(";"), "left_out_below_lod"] if c])
         r["plate_scatter_ln"] = float(np.sqrt(tau2))
-        # Eyring of k = rate / [S] (h-1): ln k = ln rate - ln([S]/mM), so dS moves by -R ln([S]/mM)
-        conc = float(pts["conc_mM"].iloc[0])
+        # Eyring of k = rate / (pps [S]) (h-1; pps the product per substrate, as for k_per_h):
+        # ln k = ln rate - ln(pps [S]/mM), so dS moves by -R ln(pps [S]/mM)
+        conc = float(pts["conc_mM"].iloc[0]) * float(product_per_substrate)
         shift = np.log(conc) if np.isfinite(conc) and conc > 0 else np.nan
         r["ds_j_mol_k"] = r["ds_j_mol_k"] - units.R_J_MOL_K * shift
         t_ref = float(units.c_to_k(settings.reference_temperature_c))

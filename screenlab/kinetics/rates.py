@@ -229,8 +229,9 @@ def lone_spikes(t: np.ndarray, y: np.ndarray, g: np.ndarray, plate_of_well: np.n
     s = np.sign(kink[cand])
     prev_k, next_k = kink[cand - 1], kink[cand + 1]
     size = k_abs[cand]
-    pulled = lambda k: np.isfinite(k) & (np.sign(k) == -s) & (np.abs(k) >= SPIKE_NEIGHBOUR_SHARE * size)  # noqa: E731
-    along = lambda k: np.isfinite(k) & (np.sign(k) == s) & (np.abs(k) >= 0.5 * SPIKE_NEIGHBOUR_SHARE * size)  # noqa: E731
+    share = SPIKE_NEIGHBOUR_SHARE * size
+    pulled = lambda k: np.isfinite(k) & (np.sign(k) == -s) & (np.abs(k) >= share)  # noqa: E731
+    along = lambda k: np.isfinite(k) & (np.sign(k) == s) & (np.abs(k) >= 0.5 * share)  # noqa: E731
     # both neighbours interior (a reading beside the course's first or last one is never taken out:
     # there the course itself may turn, at a maximum or a plateau, with nothing to check it by)
     other_sign = (np.isfinite(prev_k) & np.isfinite(next_k) & (pulled(prev_k) | pulled(next_k))

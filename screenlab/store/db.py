@@ -103,7 +103,14 @@ class Store:
         which must not create it)."""
         if scratch:
             con = duckdb.connect(":memory:", config=dict(connection.CONFIG))
-            connection.apply_migrations(con, self.path, read_only=False)
+            try:
+                connection.apply_migrations(con, self.path, read_only=False)
+            except duckdb.Error as exc:
+                con.close()
+                raise ScreenlabError(f"store {self.path}: {exc}") from exc
+            except BaseException:
+                con.close()
+                raise
             return con
         con = self._open()
         try:
