@@ -331,6 +331,26 @@ def test_spreadsheet_error_cells_are_reported_as_what_they_are(campaigns, tmp_pa
     assert [(p.file, p.row, p.value) for p in problems] == [("readings.xlsx", 5, "#N/A")]
 
 
+def test_a_long_table_with_excels_sep_line_in_the_readings_folder(campaigns, tmp_path, capsys):
+    """readings/ holding the long table as Excel saves it for a semicolon locale (first line
+    ``sep=;``, decimal commas): classified as the table it is, and stored as the plain folder is."""
+    src = campaigns["syn96"]
+    dst = tmp_path / "sep"
+    copy_without_readings(src, dst)
+    (dst / "readings").mkdir()
+    lines = (src / "readings.csv").read_text().splitlines()
+    body = "\n".join(";".join(c.replace(".", ",") for c in ln.split(",")) for ln in lines)
+    (dst / "readings" / "export.csv").write_text("sep=;\n" + body + "\n")
+    a = _ingest_store(src, tmp_path / "a.duckdb", capsys)
+    b = _ingest_store(dst, tmp_path / "b.duckdb", capsys)
+    _assert_same_store(a, b, _quiet_read(src).data.manifest.name, capsys)
+
+
+def _ingest_store(folder: Path, store: Path, capsys) -> Path:
+    _ingest(folder, store, capsys)
+    return store
+
+
 def test_both_readings_csv_and_folder_refused(campaigns, tmp_path):
     g = to_grid_folder(campaigns["syn96"], tmp_path / "g")
     shutil.copy2(campaigns["syn96"] / "readings.csv", g / "readings.csv")
