@@ -101,20 +101,11 @@ class Store:
         does them, for a thread that opens the store while another prepares the data. ``scratch``:
         an empty store in memory instead (a dry run against a store file that does not exist yet,
         which must not create it)."""
-        if scratch:
-            con = duckdb.connect(":memory:", config=dict(connection.CONFIG))
-            try:
-                connection.apply_migrations(con, self.path, read_only=False)
-            except duckdb.Error as exc:
-                con.close()
-                raise ScreenlabError(f"store {self.path}: {exc}") from exc
-            except BaseException:
-                con.close()
-                raise
-            return con
-        con = self._open()
+        con = duckdb.connect(":memory:", config=dict(connection.CONFIG)) if scratch else self._open()
         try:
-            if not self._schema_ok:
+            if scratch:                          # its schema says nothing of the file's: _schema_ok stays
+                connection.apply_migrations(con, self.path, read_only=False)
+            elif not self._schema_ok:
                 self._check_schema(con)
         except duckdb.Error as exc:
             con.close()
