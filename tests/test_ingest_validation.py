@@ -310,6 +310,14 @@ def test_blank_with_a_catalyst():
     find(problems(**L(5, "P1,A4,blank,C1,,,100,200,,DMSO")), "layout.csv", "a blank well must not name a catalyst", row=5)
 
 
+@pytest.mark.parametrize("word", ["-", "None", " n/a ", "(uncatalysed)", "no catalyst"])
+def test_a_blank_saying_it_has_no_catalyst_is_read_as_empty(word):
+    """What a chemist writes in a blank's catalyst cell to say "none" is read as empty."""
+    res = read_campaign(files(layout_csv=replace_line(GOOD_LAYOUT, 5, f"P1,A4,blank,{word},,,100,200,,DMSO")))
+    w = res.data.wells
+    assert w.loc[(w["plate"] == "P1") & (w["well"] == "A4"), "catalyst"].isna().all()
+
+
 def test_loading_must_be_positive_and_unit_known():
     probs = problems(**L(2, "P1,A1,sample,C1,0,mmol,100,200,,DMSO"))
     find(probs, "layout.csv", "loading must be > 0", row=2)
@@ -543,7 +551,7 @@ _LAYOUT_ROW = st.fixed_dictionaries({
     "plate": st.sampled_from(["P1", "P2", "P 3", "PX", "", "p1"]),
     "well": st.sampled_from(["A1", "A2", "B3", "H12", "a01", " b2 ", "Z99", "", "H13", "P24", "A 1"]),
     "role": st.sampled_from(["sample", "Sample", "blank", "BLANK", "reference", "empty", "", "smaple"]),
-    "catalyst": st.sampled_from(["C1", "C2", "REF", "CX", ""]),
+    "catalyst": st.sampled_from(["C1", "C2", "REF", "CX", "", "-", "None", "(uncatalysed)"]),
     "loading": st.sampled_from(NUMBERS),
     "loading_unit": st.sampled_from(["umol", "µmol", "mg", "mol%", "kg", ""]),
     "substrate_conc": st.sampled_from(NUMBERS),
@@ -579,7 +587,10 @@ def test_layout_rules_on_random_tables(rows, delim, presorted):
     assert _rows(problems, "a plate id is required") == at(f["plate"] == "")
     assert _rows(problems, "unknown plate") == at((f["plate"] != "") & ~known)
     assert _rows(problems, "not a well name") == at(parsed["well"].isna())
-    assert _rows(problems, "a blank well must not name a catalyst") == at((role == "blank") & (f["catalyst"] != ""))
+    # a blank may say it has no catalyst in words ("-", "none", the background's own name)
+    says_none = f["catalyst"].str.strip().str.lower().isin(["-", "none", "(uncatalysed)"])
+    assert _rows(problems, "a blank well must not name a catalyst") == at((role == "blank") & (f["catalyst"] != "")
+                                                                          & ~says_none)
     known_cat = f["catalyst"].isin(["C1", "C2", "REF"])
     assert _rows(problems, "unknown catalyst") == at(cat & (f["catalyst"] != "") & ~known_cat)
     valid = parsed["well"].notna().to_numpy() & (f["plate"] != "").to_numpy()

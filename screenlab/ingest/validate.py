@@ -54,6 +54,9 @@ CATALYST_COLUMNS = ("catalyst", "name", "family", "molar_mass_g_mol", "sites_per
 #: optional catalysts.csv column (a key of our own): the id the catalyst had in an earlier campaign
 ALIAS_COLUMN = "alias"
 PLATE_COLUMNS = ("plate", "format", "temperature_c", "run_date", "notes")
+#: what a blank's catalyst cell may hold to say it has none (read as empty; case and padding ignored)
+NO_CATALYST_WORDS = frozenset({"-", "–", "—", "none", "n/a", "na", "no catalyst", "uncatalysed", "uncatalyzed",
+                               UNCATALYSED, "(uncatalyzed)"})
 LAYOUT_COLUMNS = ("plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc", "volume",
                   "temperature_c")
 #: names a factor column may not take (they are columns of the wells frame)
@@ -500,7 +503,9 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
         if check_catalyst_ids:
             ch.report(is_cat & has_cat & ~cd.spread(cd.isin(catalysts["catalyst"])), "catalyst",
                       "unknown catalyst (not in catalysts.csv)")
-        ch.report(is_blank & has_cat, "catalyst",
+        # a blank's cell may say it has none ("-", "none", the background's own name): read as empty
+        says_none = cd.spread(cat_u.str.strip().str.lower().isin(NO_CATALYST_WORDS).to_numpy())
+        ch.report(is_blank & has_cat & ~says_none, "catalyst",
                   "a blank well must not name a catalyst (a blank is everything but the catalyst)")
     loading = np.full(n, np.nan)
     if "loading" in f.columns:
