@@ -195,70 +195,68 @@ def lone_spikes(t: np.ndarray, y: np.ndarray, g: np.ndarray, plate_of_well: np.n
     same_prev[1:] = g[1:] == g[:-1]
     same_next = np.zeros(n, dtype=bool)
     same_next[:-1] = g[:-1] == g[1:]
-    inner = same_prev & same_next
-    i = np.flatnonzero(inner)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        frac = (t[i] - t[i - 1]) / (t[i + 1] - t[i - 1])
-        kink_i = (y[i] - (y[i - 1] + (y[i + 1] - y[i - 1]) * frac)) * scale[g[i]]
+    i = np.flatnonzero(same_prev & same_next)
     kink = np.full(n, np.nan)
-    kink[i] = kink_i
+    kink[i] = _chord_kink(t, y, scale, g, i, i - 1, i + 1)
     ok = np.isfinite(kink)
-    counts = np.bincount(g, minlength=int(g.max()) + 1 if n else 0)
     if not ok.any():
         return out
+    k_abs = np.abs(kink)
     # the plate's robust kink scale
     pl = plate_of_well[g]
-    k_abs = np.abs(kink)
-    plate_scale = pd.Series(k_abs[ok]).groupby(pl[ok]).median() * 1.4826
-    noise = plate_scale.reindex(pl).to_numpy(dtype=float)
-    # per well: the largest |kink| and the fourth largest
+    noise = (pd.Series(k_abs[ok]).groupby(pl[ok]).median() * 1.4826).reindex(pl).to_numpy(dtype=float)
+    # per well: the largest |kink| (the candidate) and the fourth largest
+    counts = np.bincount(g)
     order = np.lexsort((-np.where(ok, k_abs, -1.0), g))
     gs = g[order]
-    start = np.searchsorted(gs, gs, side="left")
-    rank = np.arange(n) - start
-    top = order[rank == 0]
+    rank = np.arange(n) - np.searchsorted(gs, gs, side="left")
     fourth = np.full(len(counts), np.nan)
     r4 = order[(rank == 3) & ok[order]]
     fourth[g[r4]] = k_abs[r4]
-    cand = top[ok[top] & (counts[g[top]] >= SPIKE_MIN_READINGS)]
-    if not cand.size:
-        return out
-    peak = (y[cand] - y[cand - 1]) * (y[cand] - y[cand + 1]) > 0
-    # one displaced reading pulls its neighbours' kinks the other way, by a fair share of its own
-    # (a course at its plateau at once has a kink there, but a flat neighbour after it)
-    s = np.sign(kink[cand])
-    prev_k, next_k = kink[cand - 1], kink[cand + 1]
-    size = k_abs[cand]
-    share = SPIKE_NEIGHBOUR_SHARE * size
-    pulled = lambda k: np.isfinite(k) & (np.sign(k) == -s) & (np.abs(k) >= share)  # noqa: E731
-    along = lambda k: np.isfinite(k) & (np.sign(k) == s) & (np.abs(k) >= 0.5 * share)  # noqa: E731
+    top = order[rank == 0]
     # both neighbours interior (a reading beside the course's first or last one is never taken out:
     # there the course itself may turn, at a maximum or a plateau, with nothing to check it by)
-    other_sign = (np.isfinite(prev_k) & np.isfinite(next_k) & (pulled(prev_k) | pulled(next_k))
-                  & ~along(prev_k) & ~along(next_k))
-    # leave it out: the course its neighbours then draw must be as smooth as the rest of it (a
-    # reading at a genuine turn of the course leaves a kink behind; a displaced one does not)
+    cand = top[ok[top] & (counts[g[top]] >= SPIKE_MIN_READINGS) & ok[np.maximum(top - 1, 0)]
+               & ok[np.minimum(top + 1, n - 1)]]
+    if not cand.size:
+        return out
+    size = k_abs[cand]
     with np.errstate(invalid="ignore", divide="ignore"):
-        def kink_without(j, a, b):        # kink of reading j on the chord through readings a and b
-            f = (t[j] - t[a]) / (t[b] - t[a])
-            return (y[j] - (y[a] + (y[b] - y[a]) * f)) * scale[g[j]]
-        ok2 = other_sign & (cand >= 2) & (cand + 2 < n)
-        c2 = np.where(ok2, cand, 2)
-        left = np.abs(kink_without(c2 - 1, c2 - 2, c2 + 1))
-        right = np.abs(kink_without(c2 + 1, c2 - 1, c2 + 2))
-        floor = np.fmax(SPIKE_RATIO * np.nan_to_num(fourth[g[cand]]), SPIKE_NOISE_SDS * np.nan_to_num(noise[cand]))
-        smooth = ok2 & (np.fmax(left, right) <= np.fmax(0.5 * size, 0.0)) & (np.fmax(left, right) <= floor)
+        # the bar the tests below set: the course's own kinks and the plate's noise (NaN, no bar
+        # to pass: too few kinks to judge)
+        floor = np.maximum(SPIKE_RATIO * fourth[g[cand]], SPIKE_NOISE_SDS * noise[cand])
+        peak = (y[cand] - y[cand - 1]) * (y[cand] - y[cand + 1]) > 0
+        # one displaced reading pulls its neighbours' kinks the other way, by a fair share of its
+        # own (a course at its plateau at once has a kink there, but a flat neighbour after it)
+        s, share = np.sign(kink[cand]), SPIKE_NEIGHBOUR_SHARE * size
+        prev_k, next_k = kink[cand - 1], kink[cand + 1]
+        pulled = ((np.sign(prev_k) == -s) & (np.abs(prev_k) >= share)) | ((np.sign(next_k) == -s)
+                                                                         & (np.abs(next_k) >= share))
+        along = ((np.sign(prev_k) == s) & (np.abs(prev_k) >= 0.5 * share)) | ((np.sign(next_k) == s)
+                                                                             & (np.abs(next_k) >= 0.5 * share))
+        # left out, the course its neighbours then draw must be as smooth as the rest of it (a
+        # reading at a genuine turn of the course leaves a kink behind; a displaced one does not)
+        inside = (cand >= 2) & (cand + 2 < n)
+        c = np.where(inside, cand, 2)
+        left = np.abs(_chord_kink(t, y, scale, g, c - 1, c - 2, c + 1))
+        right = np.abs(_chord_kink(t, y, scale, g, c + 1, c - 1, c + 2))
+        smooth = inside & (np.fmax(left, right) <= 0.5 * size) & (np.fmax(left, right) <= floor)
         # and neither side's trend, carried on to it, reaches it (a course rising straight into a
         # sharp maximum between sparse readings: its peak is where the rise was heading)
-        from_left = y[c2 - 1] + (y[c2 - 1] - y[c2 - 2]) * (t[c2] - t[c2 - 1]) / (t[c2 - 1] - t[c2 - 2])
-        from_right = y[c2 + 1] + (y[c2 + 1] - y[c2 + 2]) * (t[c2 + 1] - t[c2]) / (t[c2 + 2] - t[c2 + 1])
-        off = np.fmin(np.abs(y[c2] - from_left), np.abs(y[c2] - from_right)) * scale[g[c2]]
-        smooth &= (off >= 0.5 * size) & (off > floor)
-    other_sign = smooth
-    with np.errstate(invalid="ignore"):
-        big = (k_abs[cand] > SPIKE_RATIO * fourth[g[cand]]) & (k_abs[cand] > SPIKE_NOISE_SDS * noise[cand])
-    out[cand[peak & other_sign & np.nan_to_num(big, nan=False).astype(bool)]] = True
+        from_left = y[c - 1] + (y[c - 1] - y[c - 2]) * (t[c] - t[c - 1]) / (t[c - 1] - t[c - 2])
+        from_right = y[c + 1] + (y[c + 1] - y[c + 2]) * (t[c + 1] - t[c]) / (t[c + 2] - t[c + 1])
+        off = np.fmin(np.abs(y[c] - from_left), np.abs(y[c] - from_right)) * scale[g[c]]
+        spike = peak & pulled & ~along & smooth & (off >= 0.5 * size) & (off > floor) & (size > floor)
+    out[cand[spike]] = True
     return out
+
+
+def _chord_kink(t, y, scale, g, j, a, b):
+    """The kink of readings ``j``: their distance from the chord through readings ``a`` and ``b``
+    (index arrays into the flat courses), in mM (``y`` x the well's ``scale``)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        f = (t[j] - t[a]) / (t[b] - t[a])
+        return (y[j] - (y[a] + (y[b] - y[a]) * f)) * scale[g[j]]
 
 
 def _order_by_well(code: np.ndarray, t: np.ndarray) -> np.ndarray | None:
