@@ -79,8 +79,8 @@ def analyse(data: CampaignData, settings: AnalysisSettings | None = None, **over
 
 
 def _ring_of_flagged_plates(per_well: pd.DataFrame, data: CampaignData, edge: pd.DataFrame | None):
-    """(on the ring of a plate whose edge test finds an edge effect, plate code per row, number of
-    plates) for the rows of ``per_well``; None when no plate has an edge effect."""
+    """For the rows of ``per_well``: (on the outer ring of its plate, on a plate whose edge test
+    finds an edge effect, a plate code per row); None when no plate has an edge effect."""
     import numpy as np
 
     from screenlab._groups import factorize
@@ -107,34 +107,35 @@ def _ring_of_flagged_plates(per_well: pd.DataFrame, data: CampaignData, edge: pd
     ring[known] = is_edge(w["row"].to_numpy()[known], w["col"].to_numpy()[known], fmt[known].astype(np.int64))
     on_plate = w["plate"].isin(set(flagged.astype(str))).to_numpy()
     key = np.where(code >= 0, code, len(names))                   # a missing plate: one more key
-    return ring & on_plate, key, len(names) + 1
+    return ring, on_plate, key
 
 
 def edge_ring_wells(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFrame | None = None):
     """One bool per row of ``per_well``: the sample and benchmark wells on the outer ring of a plate
-    whose edge test finds an edge effect, whose group (catalyst, loading, substrate level, factor
-    levels) has a well in that plate's interior too (else None: nothing to leave out). Their rates
-    read off as the ring does (evaporation, a warmer rim), while the interior wells carry the group:
-    kept, a biased ring can outvote a correct interior well and make it look like a failed one. A
-    group with ring wells only keeps them (``edge_effect`` on the plate says why to doubt them)."""
+    whose edge test finds an edge effect, whose replicate group (catalyst, role, temperature,
+    loading, substrate level, factor levels) has a well in that plate's interior too (else None:
+    nothing to leave out). Their rates read off as the ring does (evaporation, a warmer rim), while
+    the interior wells carry the group: kept, a biased ring can outvote a correct interior well and
+    make it look like a failed one. A group with ring wells only keeps them (``edge_effect`` on the
+    plate says why to doubt them)."""
     import numpy as np
 
     from screenlab import _groups as grp
+    from screenlab.kinetics.turnover import replicate_keys
 
     got = _ring_of_flagged_plates(per_well, data, edge)
     if got is None:
         return None
-    on_ring, plate_key, _ = got
+    ring, on_plate, plate_key = got
     w = per_well
     role = w["role"].astype(str).to_numpy()
     catalysed = (role == "sample") | (role == "reference")
-    cols = ["catalyst", "temperature_c", "loading", "loading_unit", "substrate_conc_mM",
-            *[f for f in data.factor_names if f in w.columns]]
-    group = grp.group_index([plate_key, *[grp.codes(w[c]) for c in cols]])
-    interior = catalysed & ~on_ring & (plate_key >= 0)
+    # the replicate groups of the turnover step, on one plate
+    keys = replicate_keys(w, [f for f in data.factor_names if f in w.columns])
+    group = grp.group_index([plate_key, *[grp.codes(w[c]) for c in keys]])
     has_interior = np.zeros(int(group.max()) + 1 if len(group) else 0, dtype=bool)
-    has_interior[group[interior]] = True
-    drop = catalysed & on_ring & has_interior[group]
+    has_interior[group[catalysed & ~ring & on_plate]] = True
+    drop = catalysed & ring & on_plate & has_interior[group]
     return drop if drop.any() else None
 
 
@@ -149,14 +150,10 @@ def edge_blanks(per_well: pd.DataFrame, data: CampaignData, *, edge: pd.DataFram
     got = _ring_of_flagged_plates(per_well, data, edge)
     if got is None:
         return None
-    on_ring, key, n_keys = got
-    w = per_well
-    blank = (w["role"].astype(str) == "blank").to_numpy()
-    flagged_plate = np.zeros(n_keys, dtype=bool)
-    flagged_plate[key[on_ring]] = True
-    drop = blank & on_ring
+    ring, on_plate, key = got
+    blank = (per_well["role"].astype(str) == "blank").to_numpy()
     # keep a plate's ring blanks when it has no interior blank to take their place
-    has_interior = np.zeros(n_keys, dtype=bool)
-    has_interior[key[blank & ~on_ring & flagged_plate[key]]] = True
-    drop &= has_interior[key]
+    has_interior = np.zeros(int(key.max()) + 1, dtype=bool)
+    has_interior[key[blank & ~ring & on_plate]] = True
+    drop = blank & ring & on_plate & has_interior[key]
     return drop if drop.any() else None

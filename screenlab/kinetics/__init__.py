@@ -87,8 +87,7 @@ def after_rates(data, settings, amounts, per_well, selectivity, drop_blank=None,
     blanks = blank_rates(per_well, settings, exclude=drop_blank)
     wells = well_turnover(data, per_well, blanks, settings, excluded_blanks=drop_blank, excluded_wells=drop_wells)
     groups = group_rates(wells, settings, factor_names=data.factor_names, selectivity=selectivity)
-    arr = arrhenius_table(groups, blanks, settings,
-                          product_per_substrate=float(getattr(data.manifest, "product_per_substrate", 1.0) or 1.0))
+    arr = arrhenius_table(groups, blanks, settings, product_per_substrate=data.manifest.product_per_substrate)
     groups = with_plate_scatter(groups, arr, settings)
     orders = apparent_orders(wells, settings, factor_names=data.factor_names)
     return KineticsResult(amounts=amounts, wells=wells, blanks=blanks, rates=groups, arrhenius=arr,

@@ -311,7 +311,8 @@ def _ckey(conc) -> np.ndarray:
 
 # ----------------------------------------------------------------------------------------- per well
 
-def _group_keys(frame: pd.DataFrame, factor_names) -> list[str]:
+def replicate_keys(frame: pd.DataFrame, factor_names) -> list[str]:
+    """The columns whose values make wells replicates of one another (one group of the rates table)."""
     return ["catalyst", "role", "temperature_c", "loading", "loading_unit", "substrate_conc_mM", *factor_names]
 
 
@@ -424,7 +425,7 @@ def well_turnover(data, wells: pd.DataFrame, blanks: pd.DataFrame,
     e = _enhancements(w, bl, catalysed, settings)
 
     # outliers among replicates (catalysed wells by condition; blanks by plate x temperature)
-    keys = _group_keys(wells, factor_names)
+    keys = replicate_keys(wells, factor_names)
     known = {"temperature_c": grp.codes(tkey), "role": roles.key, **{c: grp.with_missing(*v) for c, v in parts.items()},
              "substrate_conc_mM": grp.codes(_ckey(_f(wells, "substrate_conc_mM")))}
     replicates = np.where(catalysed, grp.group_index([known[k] if k in known else wells[k] for k in keys]), -1)
@@ -707,7 +708,7 @@ def group_rates(turnover: pd.DataFrame, settings: AnalysisSettings | None = None
     roles = _Roles(turnover)
     # the catalysed wells with a rate, by position (no copy of the wide per-well frame)
     rows = np.flatnonzero(roles.is_("sample", "reference") & np.isfinite(_f(turnover, "rate_mM_per_h")))
-    keys = _group_keys(turnover, factors)
+    keys = replicate_keys(turnover, factors)
     if not rows.size:
         return pd.DataFrame(columns=[*keys, *_RATES_COLUMNS])
     fi = FlagIndex(turnover["flags"])                # the flag column parsed once per distinct string
