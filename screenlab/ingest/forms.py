@@ -55,7 +55,7 @@ import pandas as pd
 from screenlab import plates as platelib
 from screenlab.errors import Problem
 
-from .tables import (SEP_HINT, Origin, RawTable, decode_text, normalise_header, read_table, with_error_cells,
+from .tables import (Origin, RawTable, decode_text, normalise_header, read_table, sep_hint, with_error_cells,
                      xlsx_error_cells)
 from .validate import NA_WORDS, READING_COLUMNS, SAMPLE_COLUMN, parse_names
 
@@ -266,7 +266,7 @@ def _first_record(text: str) -> list[str] | None:
     """The first non-blank line of a CSV text as cells (delimiter picked as for a table, or named
     by Excel's first line ``sep=;``, which is not a record)."""
     lines = text.splitlines()
-    hint = SEP_HINT.fullmatch(lines[0]) if lines else None
+    hint = sep_hint(text)
     for line in lines[1:] if hint else lines:
         if line.strip():
             delim = hint.group(1) if hint else max((",", ";", "\t"), key=lambda d: (line.count(d), d == ","))

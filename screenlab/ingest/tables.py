@@ -121,6 +121,11 @@ def decode_text(name: str, data: bytes, notes: list[str]) -> str:
 SEP_HINT = re.compile(r"\s*\"?sep=([,;\t|])\"?[,;\t|]*\s*", re.IGNORECASE)
 
 
+def sep_hint(text: str) -> re.Match | None:
+    """Excel's delimiter line, when it is the first line of ``text`` (its delimiter: ``group(1)``)."""
+    return SEP_HINT.fullmatch(re.match(r"[^\r\n]*", text).group(0))      # the first line, not a copy of the rest
+
+
 def _pick_delimiter(header_line: str) -> str:
     counts = {d: header_line.count(d) for d in (",", ";", "\t")}
     best = max(counts, key=lambda d: (counts[d], d == ","))
@@ -240,7 +245,7 @@ def _read_csv_cells(name: str, text: str, problems: list[Problem]
     The frame from the Arrow fast path is already stripped and guard-cleaned (record index given);
     the pandas path returns raw cells (record index None)."""
     lines = text.splitlines()
-    hint = SEP_HINT.fullmatch(lines[0]) if lines else None
+    hint = sep_hint(text)
     if hint:                      # Excel's delimiter line: not a row (Excel does not show it either)
         lines = lines[1:]
     lead = 0
@@ -348,28 +353,18 @@ def with_error_cells(cells: pd.DataFrame, errors: dict[tuple[int, int], str]) ->
     return cells
 
 
-def _first_sheet_name(data: bytes) -> str | None:
-    """The name of the sheet the workbook reader reads as sheet 0."""
-    try:
-        from python_calamine import CalamineWorkbook
-
-        return CalamineWorkbook.from_filelike(io.BytesIO(data)).sheet_names[0]
-    except Exception:  # any reader failure: no name (the read itself reports it)
-        return None
-
-
 def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.DataFrame | None:
     try:
-        cells = pd.read_excel(io.BytesIO(data), engine="calamine", sheet_name=0, header=None, dtype=str)
+        with pd.ExcelFile(io.BytesIO(data), engine="calamine") as book:     # opened once: sheet 0 and its name
+            first = book.sheet_names[0]
+            cells = book.parse(first, header=None, dtype=str)
     except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
         problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
         return None
-    errors = xlsx_error_cells(data)
     cells = cells.fillna("").astype(str)
+    errors = xlsx_error_cells(data).get(first)
     if errors:
-        first = _first_sheet_name(data)
-        if first in errors:
-            cells = with_error_cells(cells, errors[first])
+        cells = with_error_cells(cells, errors)
     # date cells arrive as 'YYYY-MM-DD 00:00:00'; keep the ISO date
     for c in cells.columns:
         cells[c] = cells[c].str.replace(r"^(\d{4}-\d{2}-\d{2})[ T]00:00:00$", r"\1", regex=True)
@@ -402,12 +397,14 @@ def read_table(name: str, data: bytes, problems: list[Problem]) -> RawTable | No
         if cells is None:
             return None
     else:
-        got = _read_plain_csv(data) if not data.lstrip(b"\xef\xbb\xbf \t").lower().startswith(b"sep=") else None
+        # the fast path takes no delimiter line (a quoted one it refuses anyway, for its quote)
+        got = _read_plain_csv(data) if b"sep=" not in data[:16].lower() else None
         if got is None:
             text = decode_text(name, data, notes)
             got = _read_csv_cells(name, text, problems)
-            if got is not None and text.splitlines() and SEP_HINT.fullmatch(text.splitlines()[0]):
-                notes.append(f"{name}: its first line {text.splitlines()[0].strip()!r} (Excel's delimiter line) "
+            hint = sep_hint(text)
+            if got is not None and hint:
+                notes.append(f"{name}: its first line {hint.group(0).strip()!r} (Excel's delimiter line) "
                              "names the delimiter; rows are counted from the header, as Excel shows them.")
         if got is None:
             return None

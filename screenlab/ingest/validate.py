@@ -55,8 +55,8 @@ CATALYST_COLUMNS = ("catalyst", "name", "family", "molar_mass_g_mol", "sites_per
 ALIAS_COLUMN = "alias"
 PLATE_COLUMNS = ("plate", "format", "temperature_c", "run_date", "notes")
 #: what a blank's catalyst cell may hold to say it has none (read as empty; case and padding ignored)
-NO_CATALYST_WORDS = frozenset({"-", "–", "—", "none", "n/a", "na", "no catalyst", "uncatalysed", "uncatalyzed",
-                               UNCATALYSED, "(uncatalyzed)"})
+NO_CATALYST_WORDS = frozenset(w for w in NA_WORDS if w) | {"-", "–", "—", "no catalyst", "uncatalysed",
+                                                             "uncatalyzed", UNCATALYSED, "(uncatalyzed)"}
 LAYOUT_COLUMNS = ("plate", "well", "role", "catalyst", "loading", "loading_unit", "substrate_conc", "volume",
                   "temperature_c")
 #: names a factor column may not take (they are columns of the wells frame)

@@ -48,7 +48,6 @@ DATABASE_NAME = "store.duckdb"
 TABLES_DIR = "tables"
 
 
-
 class BackupError(ScreenlabError):
     """A backup could not be written, or a backup folder is damaged or incomplete."""
 
