@@ -280,7 +280,7 @@ def _effective_df(g, G, w, dx, sxx, s0, xbar, x_ref, var_rep, se_df, tau2: float
             tau_part = grp.group_sum(g, G, a2 * tau2) ** 2 / tau2_df if np.isfinite(tau2_df) else 0.0
             out.append(total ** 2 / (rep_part + tau_part))
         eff = np.fmin(out[0], out[1])
-    return np.where(np.isfinite(eff) | np.isposinf(eff), eff, np.inf)
+    return np.where(np.isnan(eff), np.inf, eff)       # 0/0: no uncertain part at all, the variance is exact
 
 
 def _curvature_batch(g, G, x, y, w, n_pts, mask) -> np.ndarray:
@@ -404,10 +404,10 @@ def plate_scatter(group_codes, n_groups: int, temperature_c, value, se) -> tuple
 def uncatalysed_points(blanks: pd.DataFrame) -> pd.DataFrame:
     """The points of the uncatalysed Arrhenius line: one per plate x temperature at the blanks'
     most used substrate level (``temperature_c, rate`` in mM/h, ``se``, ``df`` of that SE,
-    ``active``, ``plate``, ``conc_mM`` that level), the blank mean and its SE. Only ``active`` points (blank above its
-    detection limit) are fitted.
-    Levels scaled from another level (flag ``blank_scaled``) are not points of their own, nor are
-    other substrate levels: a background rate at another concentration is not on this line."""
+    ``active``, ``plate``, ``conc_mM`` that level), the blank mean and its SE. Only ``active``
+    points (blank above its detection limit) are fitted. Levels scaled from another level (flag
+    ``blank_scaled``) are not points of their own, nor are other substrate levels: a background
+    rate at another concentration is not on this line."""
     b = blanks[blanks["n_blanks"] > 0].copy()
     if "flags" in b.columns:
         b = b[~has_flag(b["flags"], "blank_scaled")]

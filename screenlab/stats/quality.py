@@ -731,14 +731,14 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
         # the points the line is fitted on: the main substrate level, no level scaled from another
         # (a gradient plate's 50 mM blanks are not on the 200 mM line)
         pts = uncatalysed_points(bl)
-        bl = pd.DataFrame({"plate": pts["plate"].astype(str), "temperature_c": pts["temperature_c"]})
         obs = pd.to_numeric(pts["rate"], errors="coerce")
         se = pd.to_numeric(pts["se"], errors="coerce")
-        ln_pred, ln_pred_se = predict_ln(kin.arrhenius, UNCATALYSED, bl["temperature_c"].to_numpy())
+        ln_pred, ln_pred_se = predict_ln(kin.arrhenius, UNCATALYSED, pts["temperature_c"].to_numpy(dtype=float))
         with np.errstate(divide="ignore", invalid="ignore"):
             ln_obs = np.log(obs.where(obs > 0))
             z = (ln_obs - ln_pred) / np.sqrt((se / obs) ** 2 + ln_pred_se ** 2)
-        b = pd.DataFrame({"plate": bl["plate"], "expected": np.exp(ln_pred), "ratio": obs / np.exp(ln_pred), "z": z})
+        b = pd.DataFrame({"plate": pts["plate"].astype(str), "expected": np.exp(ln_pred),
+                          "ratio": obs / np.exp(ln_pred), "z": z})
         b = b.assign(_a=b["z"].abs().fillna(-1)).sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")
         out["blank_expected_mM_per_h"] = b["expected"].reindex(out.index)
         out["blank_ratio"] = b["ratio"].reindex(out.index)
