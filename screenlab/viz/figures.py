@@ -25,6 +25,7 @@ from plotly.colors import sample_colorscale
 
 from screenlab.plates import ROW_LETTERS
 from screenlab.units import c_to_k
+from screenlab.viz.svg import nice_step
 
 COLORSCALE = "Viridis"
 DIVERGING = "Cividis"  # for signed quantities (B-score, residuals): still no red/green
@@ -57,14 +58,6 @@ def _layout(fig: go.Figure, title: str | None = None, **kw) -> go.Figure:
     fig.update_layout(title=title, template="plotly_white", margin=dict(l=60, r=20, t=50 if title else 20, b=50),
                       legend=dict(orientation="h", yanchor="bottom", y=1.02, x=0), **kw)
     return fig
-
-
-def nice_step(span: float, target: int = 7) -> float:
-    """A tick step of 1, 2 or 5 x 10^k giving about ``target`` ticks (at most that many intervals)
-    over ``span`` (> 0)."""
-    raw = float(span) / target
-    mag = 10.0 ** math.floor(math.log10(raw))
-    return next(m * mag for m in (1.0, 2.0, 5.0, 10.0) if m * mag >= raw * (1 - 1e-12))
 
 
 def series_colours(n: int) -> list[str]:

@@ -30,15 +30,21 @@ def _f(v: float) -> str:
     return f"{v:.1f}"
 
 
+def nice_step(span: float, target: int = 7) -> float:
+    """A tick step of 1, 2 or 5 x 10^k giving about ``target`` ticks (at most that many intervals)
+    over ``span`` (> 0); the one step rule of the report's and the app's axes."""
+    raw = float(span) / max(target, 1)
+    mag = 10.0 ** math.floor(math.log10(raw))
+    return next(m * mag for m in (1.0, 2.0, 5.0, 10.0) if m * mag >= raw * (1 - 1e-12))
+
+
 def nice_ticks(lo: float, hi: float, n: int = 5) -> list[float]:
-    """About ``n`` round ticks (1, 2 or 5 x 10^k steps) covering [lo, hi]."""
+    """About ``n`` round ticks (1, 2 or 5 x 10^k steps, :func:`nice_step`) covering [lo, hi]."""
     if not (math.isfinite(lo) and math.isfinite(hi)):
         return []
     if hi <= lo:
         hi = lo + (abs(lo) * 0.1 or 1.0)
-    raw = (hi - lo) / max(n, 1)
-    mag = 10 ** math.floor(math.log10(raw))
-    step = next(m * mag for m in (1, 2, 5, 10) if m * mag >= raw)
+    step = nice_step(hi - lo, n)
     start = math.ceil(lo / step - 1e-9) * step
     ticks, t = [], start
     while t <= hi + 1e-9 * step:
