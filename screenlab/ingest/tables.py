@@ -357,7 +357,7 @@ def _read_xlsx_cells(name: str, data: bytes, problems: list[Problem]) -> pd.Data
     try:
         with pd.ExcelFile(io.BytesIO(data), engine="calamine") as book:     # opened once: sheet 0 and its name
             first = book.sheet_names[0]
-            cells = book.parse(first, header=None, dtype=str)
+            cells = pd.read_excel(book, sheet_name=first, header=None, dtype=str)
     except Exception as exc:  # the parser raises many types; any of them means "not a readable workbook"
         problems.append(Problem(name, None, None, None, f"cannot be read as an Excel workbook: {exc}"))
         return None
