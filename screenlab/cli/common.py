@@ -74,17 +74,32 @@ def _aligned(frame) -> str:
     for col in frame.columns:
         s = frame[col]
         if not (pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)):
-            text = s.astype(object).where(s.notna(), "").astype(str)
-            width = max([len(str(col))] + [len(t) for t in text])
-            formatters[col] = (lambda w: lambda x: f"{'' if x is None or x is pd.NA or (isinstance(x, float) and x != x) else x!s:<{w}}")(width)
+            width = max([len(str(col))] + [len(t) for t in _cell_texts(s)])
+            formatters[col] = _left_justified(width)
         elif isinstance(s.dtype, pd.api.extensions.ExtensionDtype) and s.isna().any():
             # nullable integers: a missing cell is blank (as na_rep makes it for floats), not "<NA>";
             # to_string passes missing cells by the formatters, so the column goes in as padded text
-            text = s.astype(object).where(s.notna(), "").astype(str)
+            text = _cell_texts(s)
             width = max([len(str(col))] + [len(t) for t in text])
-            frame = frame.assign(**{col: text.str.rjust(width)})
+            frame = frame.assign(**{col: [t.rjust(width) for t in text]})
     return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", formatters=formatters,
                            justify="left")
+
+
+def _left_justified(width: int):
+    """A to_string formatter: the cell as text (a missing one blank), left-justified to ``width``."""
+    import pandas as pd
+
+    def fmt(x) -> str:
+        missing = x is None or x is pd.NA or (isinstance(x, float) and x != x)
+        return f"{'' if missing else x!s:<{width}}"
+    return fmt
+
+
+def _cell_texts(s) -> list[str]:
+    """The cells of the column ``s`` as ``str`` gives them, a missing cell as ''."""
+    missing = s.isna().to_numpy(dtype=bool)
+    return ["" if m else str(v) for v, m in zip(s.astype(object).tolist(), missing)]
 
 
 def print_problems(label: str, problems) -> None:

@@ -80,7 +80,7 @@ import numpy as np
 import pandas as pd
 from scipy import special as _sp_special
 
-from screenlab import _groups
+from screenlab import _groups, schema
 from screenlab.errors import DataQualityWarning
 from screenlab.model import UNCATALYSED
 from screenlab.plates import format_dims, is_edge
@@ -674,12 +674,14 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     role = w["role"].astype(str).to_numpy()
     rate = pd.to_numeric(w["rate_mM_per_h"], errors="coerce").to_numpy(dtype=float)
     finite = np.isfinite(rate)
-    plates = data.plates.drop_duplicates("plate").assign(plate=lambda d: d["plate"].astype(str))
-    out = plates[["plate", "format", "temperature_c"]].reset_index(drop=True)
-    out = out.set_index("plate")
-    n_pl = len(out)
-    p_i = out.index.get_indexer(w["plate"].astype(str))   # each well's plate position, -1 for an unknown plate
+    plates = data.plates.drop_duplicates("plate")
+    index = pd.Index(plates["plate"].astype(str), name="plate")   # the plates, first occurrence, as text
+    n_pl = len(index)
+    p_i = index.get_indexer(w["plate"].astype(str))   # each well's plate position, -1 for an unknown plate
     known = p_i >= 0
+    # the table's columns, one array per column (one frame built at the end: a column set on a
+    # frame costs more than the arithmetic behind it)
+    out: dict = {"format": plates["format"].array, "temperature_c": plates["temperature_c"].array}
 
     for r in ("sample", "reference", "blank"):
         out[f"n_{r}"] = np.bincount(p_i[known & finite & (role == r)], minlength=n_pl).astype(np.int64)
@@ -698,8 +700,8 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     enough = has_ref & has_blank
     out["zprime"] = np.where(enough, _zprime_from_moments(mp, sp, mn, sn), np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
-        out["signal_window"] = np.where(enough, ((mp - mn).abs() - 3 * (sp + sn)) / sp, np.nan)
-        out["reference_cv_pct"] = np.where(out["n_reference"] >= 2, 100 * sp / mp.abs(), np.nan)
+        out["signal_window"] = np.where(enough, (np.abs(mp - mn) - 3 * (sp + sn)) / sp, np.nan)
+        out["reference_cv_pct"] = np.where(has_ref, 100 * sp / np.abs(mp), np.nan)
 
     is_samp, gid = _replicate_groups(w, data, p_i, role)
     s_rate, s_plate = rate[is_samp], p_i[is_samp]
@@ -717,13 +719,12 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
         out["n_replicate_groups"] = cv["count"].reindex(range(n_pl)).fillna(0).astype(int).to_numpy()
         out["replicate_cv_median_pct"] = cv["median"].reindex(range(n_pl)).to_numpy(dtype=float)
     else:
-        out["n_replicate_groups"] = 0
-        out["replicate_cv_median_pct"] = np.nan
+        out["n_replicate_groups"] = np.zeros(n_pl, dtype=np.int64)
+        out["replicate_cv_median_pct"] = np.full(n_pl, np.nan)
 
     # blank against the campaign's blank Arrhenius line
-    out["blank_expected_mM_per_h"] = np.nan
-    out["blank_ratio"] = np.nan
-    out["blank_z"] = np.nan
+    for c in ("blank_expected_mM_per_h", "blank_ratio", "blank_z"):
+        out[c] = np.full(n_pl, np.nan)
     bl = getattr(kin, "blanks", None)
     if bl is not None and len(bl):
         from screenlab.kinetics.arrhenius import uncatalysed_points
@@ -731,79 +732,85 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
         # the points the line is fitted on: the main substrate level, no level scaled from another
         # (a gradient plate's 50 mM blanks are not on the 200 mM line)
         pts = uncatalysed_points(bl)
-        obs = pd.to_numeric(pts["rate"], errors="coerce")
-        se = pd.to_numeric(pts["se"], errors="coerce")
+        obs = pd.to_numeric(pts["rate"], errors="coerce").to_numpy(dtype=float)
+        se = pd.to_numeric(pts["se"], errors="coerce").to_numpy(dtype=float)
         ln_pred, ln_pred_se = predict_ln(kin.arrhenius, UNCATALYSED, pts["temperature_c"].to_numpy(dtype=float))
         with np.errstate(divide="ignore", invalid="ignore"):
-            ln_obs = np.log(obs.where(obs > 0))
+            ln_obs = np.log(np.where(obs > 0, obs, np.nan))
             z = (ln_obs - ln_pred) / np.sqrt((se / obs) ** 2 + ln_pred_se ** 2)
-        b = pd.DataFrame({"plate": pts["plate"].astype(str), "expected": np.exp(ln_pred),
-                          "ratio": obs / np.exp(ln_pred), "z": z})
-        b = b.assign(_a=b["z"].abs().fillna(-1)).sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")
-        out["blank_expected_mM_per_h"] = b["expected"].reindex(out.index)
-        out["blank_ratio"] = b["ratio"].reindex(out.index)
-        out["blank_z"] = b["z"].reindex(out.index)
+        # each plate's worst temperature (largest |z|; the last of equals, a missing z below any)
+        at = index.get_indexer(pts["plate"].astype(str))
+        row = _last_of_largest(at, np.where(np.isnan(z), -1.0, np.abs(z)), n_pl)
+        hit = row >= 0
+        for c, v in (("blank_expected_mM_per_h", np.exp(ln_pred)), ("blank_ratio", obs / np.exp(ln_pred)),
+                     ("blank_z", z)):
+            out[c][hit] = v[row[hit]]
 
     # the blanks' detection limit, the share of detectably active sample wells, and the separation
     # of the upper-quartile sample wells from the blanks (robust Z', robust SSMD)
-    sep = _separation(w, role, rate, p_i, n_pl, getattr(kin, "blanks", None), out.index, is_samp, gid)
+    sep = _separation(w, role, rate, p_i, n_pl, getattr(kin, "blanks", None), index, is_samp, gid)
     for c in ("blank_lod_mM_per_h", "sample_active_pct", "upper_n", "upper_median_mM_per_h", "upper_cv_pct",
               "separation_basis", "robust_zprime", "ssmd"):
         out[c] = sep[c]
 
-    # B-scores and the edge test, every plate at once (the B-score stack indexes plates as ``out``:
-    # data.plates' plates, first occurrence, as text)
+    # B-scores and the edge test, every plate at once (the B-score stack indexes plates as
+    # ``index``: data.plates' plates, first occurrence, as text)
     if edge is None:
         cb = _bscore_cube(w, data, bscore_value, MAD_NORMAL)
         e = _edge_test(cb, rate, n_pl, is_samp, gid)
     else:
-        e = edge.set_index("plate").reindex(out.index)
+        e = edge.set_index("plate").reindex(index)
     for c in EDGE_COLUMNS:
         out[c] = np.asarray(e[c])
     bscore_undefined = np.asarray(e["bscore_undefined"], dtype=bool)
 
     # control chart of the benchmark
     cc = control if control is not None else control_chart(kin, data)
+    out["reference_loo_t"] = np.full(n_pl, np.nan)
+    out_of_limits = np.zeros(n_pl, dtype=bool)
     if len(cc):
-        worst = cc.assign(_a=(cc["loo_t"].abs() / cc["loo_limit"]).fillna(-1), plate=cc["plate"].astype(str))
-        worst = worst.sort_values("_a").drop_duplicates("plate", keep="last").set_index("plate")
-        out["reference_loo_t"] = worst["loo_t"].reindex(out.index)
-        out_of_limits = worst["flags"].reindex(out.index).fillna("").str.contains("reference_out_of_limits")
-    else:
-        out["reference_loo_t"] = np.nan
-        out_of_limits = pd.Series(False, index=out.index)
+        # each plate's worst benchmark (largest |loo_t| / limit; the last of equals)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            a = np.abs(cc["loo_t"].to_numpy(dtype=float)) / cc["loo_limit"].to_numpy(dtype=float)
+        row = _last_of_largest(index.get_indexer(cc["plate"].astype(str)), np.where(np.isnan(a), -1.0, a), n_pl)
+        hit = row >= 0
+        out["reference_loo_t"][hit] = cc["loo_t"].to_numpy(dtype=float)[row[hit]]
+        cc_flags = cc["flags"].fillna("").astype(str).to_numpy(dtype=object)
+        out_of_limits[hit] = ["reference_out_of_limits" in f for f in cc_flags[row[hit]]]   # a few plates
 
     zp = out["zprime"]
     no_ctrl = ~has_blank
     unchecked = has_blank & ~has_ref
     failed = no_ctrl | (enough & (zp < 0))
-    fl = pd.DataFrame(index=out.index)
-    fl["no_controls"] = no_ctrl
-    fl["no_benchmark"] = ~has_ref
-    fl["failed"] = failed
-    fl["zprime_low"] = zp < settings.zprime_min
-    fl["edge_effect"] = out["edge_p"] < EDGE_ALPHA
-    fl["high_cv"] = out["replicate_cv_median_pct"] > CV_MAX_PCT
-    fl["blank_off_trend"] = out["blank_z"].abs() > BLANK_Z_MAX
-    fl["reference_out_of_limits"] = out_of_limits
-    fl["bscore_undefined"] = bscore_undefined
-    fl["low_separation"] = unchecked & (out["ssmd"] < SSMD_MIN)
-    fl["no_detectable_activity"] = unchecked & (out["n_sample"] > 0) & (out["sample_active_pct"] == 0)
-    codes = np.array(fl.columns)
-    m = fl.fillna(False).to_numpy(dtype=bool)
-    flags = np.full(len(m), "", dtype=object)
-    for j, code in enumerate(codes):  # a loop over the eight flag codes
+    with np.errstate(invalid="ignore"):
+        fl = {"no_controls": no_ctrl, "no_benchmark": ~has_ref, "failed": failed,
+              "zprime_low": zp < settings.zprime_min,
+              "edge_effect": out["edge_p"].astype(float) < EDGE_ALPHA,
+              "high_cv": out["replicate_cv_median_pct"] > CV_MAX_PCT,
+              "blank_off_trend": np.abs(out["blank_z"]) > BLANK_Z_MAX,
+              "reference_out_of_limits": out_of_limits, "bscore_undefined": bscore_undefined,
+              "low_separation": unchecked & (out["ssmd"] < SSMD_MIN),
+              "no_detectable_activity": unchecked & (out["n_sample"] > 0) & (out["sample_active_pct"] == 0)}
+    m = np.column_stack([np.asarray(v, dtype=bool) for v in fl.values()]) if n_pl else np.zeros((0, len(fl)), bool)
+    flags = np.full(n_pl, "", dtype=object)
+    for j, code in enumerate(fl):  # a loop over the flag codes
         flags = np.where(m[:, j], np.where(flags == "", code, flags + ";" + code), flags)
     out["flags"] = flags
     out["status"] = np.where(failed, "failed", np.where(unchecked, "unchecked",
                                                          np.where(m.any(axis=1), "flagged", "ok")))
-    return out.reset_index()[[
-        "plate", "format", "temperature_c", "n_sample", "n_reference", "n_blank",
-        "reference_mean_mM_per_h", "reference_sd_mM_per_h", "blank_mean_mM_per_h", "blank_sd_mM_per_h",
-        "zprime", "signal_window", "blank_lod_mM_per_h", "sample_active_pct", "upper_n", "upper_median_mM_per_h",
-        "upper_cv_pct", "separation_basis", "robust_zprime", "ssmd", "n_replicate_groups", "replicate_cv_median_pct", "reference_cv_pct",
-        "blank_expected_mM_per_h", "blank_ratio", "blank_z", "edge_basis", "edge_n", "interior_n", "edge_shift_pct",
-        "edge_p", "bscore_max_abs", "reference_loo_t", "status", "flags"]]
+    return pd.DataFrame({"plate": index, **{c: out[c] for c in schema.QUALITY.names[1:]}})
+
+
+def _last_of_largest(pos: np.ndarray, key: np.ndarray, n: int) -> np.ndarray:
+    """For positions ``0 .. n-1``: the row (into ``pos``/``key``) with the largest ``key`` among the
+    rows at that position, the last of equal keys (a stable sort by key, then the last row of each
+    position), -1 where no row is there; rows at position -1 are left out."""
+    order = np.lexsort((key, pos))                 # by position, then key; equal keys keep their order
+    p = pos[order]
+    last = np.append(p[1:] != p[:-1], True) & (p >= 0)
+    best = np.full(n, -1, dtype=np.int64)
+    best[p[last]] = order[last]
+    return best
 
 
 def _separation(w, role, rate, p_i, n_pl: int, blanks, plate_index, is_samp, gid) -> dict[str, np.ndarray]:

@@ -4,11 +4,25 @@ links and cross-campaign catalyst look-ups: :mod:`screenlab.store.decisions`; re
 planned plates: :mod:`screenlab.store.addreadings`; backups: :mod:`screenlab.store.backup`."""
 from __future__ import annotations
 
-from screenlab.store.addreadings import add_readings, campaigns_awaiting_readings, plate_readings
-from screenlab.store.connection import BUILTIN_EXTENSIONS
-from screenlab.store.db import Store
-from screenlab.store.fingerprints import plate_fingerprints
-from screenlab.store.planner import ImportPlan, ImportRefusedError, ImportReport, plan_import
+from importlib import import_module
 
-__all__ = ["BUILTIN_EXTENSIONS", "ImportPlan", "ImportRefusedError", "ImportReport", "Store", "add_readings",
-           "campaigns_awaiting_readings", "plan_import", "plate_fingerprints", "plate_readings"]
+#: the package's public names and the module each lives in: imported when first asked for, so a
+#: command that only reads (``Store.load_campaign``) does not load the import planner and writer
+_EXPORTS = {"add_readings": "addreadings", "campaigns_awaiting_readings": "addreadings",
+            "plate_readings": "addreadings", "BUILTIN_EXTENSIONS": "connection", "Store": "db",
+            "plate_fingerprints": "fingerprints", "ImportPlan": "planner", "ImportRefusedError": "planner",
+            "ImportReport": "planner", "plan_import": "planner"}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    if name in _EXPORTS:
+        value = getattr(import_module(f"screenlab.store.{_EXPORTS[name]}"), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'screenlab.store' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_EXPORTS))

@@ -103,13 +103,12 @@ def _statements(sql: str) -> list[str]:
 def apply_migrations(con, path: Path, read_only: bool) -> None:
     """Apply the shipped migrations the store lacks, each in one transaction (refused for a store
     newer than this screenlab, and on a read-only connection)."""
-    from screenlab import __version__
-    from screenlab.store.fingerprints import FINGERPRINT_VERSION
-
     shipped = migrations()
     latest = shipped[-1][0]
-    has = con.execute(Q.HAS_MIGRATIONS_TABLE).fetchall()[0][0]
-    applied = {r[0] for r in con.execute(Q.APPLIED_VERSIONS).fetchall()} if has else set()
+    try:
+        applied = {r[0] for r in con.execute(Q.APPLIED_VERSIONS).fetchall()}
+    except duckdb.CatalogException:   # no migrations table: a new (empty) store
+        applied = set()
     if applied and max(applied) > latest:
         raise ScreenlabError(f"store {path} has schema version {max(applied)}, newer than this "
                              f"screenlab understands ({latest}); upgrade screenlab")
@@ -117,6 +116,11 @@ def apply_migrations(con, path: Path, read_only: bool) -> None:
     if pending and read_only:
         raise ScreenlabError(f"store {path} needs a schema upgrade (to version {latest}); "
                              f"open it once for writing (e.g. screenlab ingest) first")
+    if not pending:
+        return
+    from screenlab import __version__
+    from screenlab.store.fingerprints import FINGERPRINT_VERSION
+
     for version, name, sql in pending:
         con.begin()
         try:

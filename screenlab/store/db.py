@@ -37,6 +37,7 @@ import json
 from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import duckdb
 import pandas as pd
@@ -44,11 +45,13 @@ import pyarrow as pa
 
 from screenlab.errors import NotFoundError, ScreenlabError
 from screenlab.model import CampaignData
-from screenlab.store import connection, fingerprints, writer
+from screenlab.store import connection
 from screenlab.store import queries as Q
-from screenlab.store.planner import STATUSES, ImportReport, Incoming, Stored, names_text, plan_import
 from screenlab.store.storage import (CATALYST_COLS, check_campaign_frames, manifest_from_json, prepare, restore,
                                      storage_form, to_arrow)
+
+if TYPE_CHECKING:  # imported where an import runs (a command that only reads never loads them)
+    from screenlab.store.planner import ImportReport, Incoming, Stored
 
 
 class Store:
@@ -190,6 +193,8 @@ class Store:
         with self._connect() as con:
             head = con.execute(Q.CURRENT_HEADER, [name]).df()
             if head.empty:
+                from screenlab.store.planner import names_text
+
                 known = [r[0] for r in con.execute(Q.CAMPAIGN_NAMES).fetchall()]
                 hint = f"; stored campaigns: {names_text(known)}" if known else "; the store is empty"
                 raise NotFoundError(f"no campaign {name!r} in store {self.path}{hint}")
@@ -227,6 +232,9 @@ class Store:
         stored plates, catalysts or the manifest would change and ``replace`` is false (also on a
         dry run), and :class:`~screenlab.errors.ValidationError` for frames that break the contract.
         """
+        from screenlab.store import fingerprints
+        from screenlab.store.planner import STATUSES, Incoming
+
         if isinstance(result_or_data, CampaignData):
             data = result_or_data
         elif hasattr(result_or_data, "data") and isinstance(result_or_data.data, CampaignData):
@@ -274,6 +282,9 @@ class Store:
     def _import_connected(self, data: CampaignData, incoming: Incoming, files, *, replace: bool, dry_run: bool,
                           source: str, whole: dict[str, pa.Table], opened: Future,
                           scratch: bool = False) -> ImportReport:
+        from screenlab.store import writer
+        from screenlab.store.planner import plan_import
+
         with self._connect(opened, scratch=scratch) as con:
             con.begin()
             try:
@@ -295,6 +306,8 @@ class Store:
     @staticmethod
     def _stored(con, name: str) -> Stored:
         """What the store holds for campaign ``name`` (read in the import's transaction)."""
+        from screenlab.store.planner import Stored
+
         head = con.execute(Q.CURRENT_HEADER, [name]).df()
         if head.empty:
             return Stored()

@@ -15,9 +15,6 @@ CREATE TABLE IF NOT EXISTS schema_migrations (
     applied_at TIMESTAMP NOT NULL
 )"""
 APPLIED_VERSIONS = "SELECT version FROM schema_migrations ORDER BY version"
-HAS_MIGRATIONS_TABLE = (
-    "SELECT count(*) FROM duckdb_tables() WHERE table_name = 'schema_migrations' AND database_name = current_database()"
-)
 RECORD_MIGRATION = "INSERT INTO schema_migrations VALUES (?, ?, now()::TIMESTAMP)"
 UPSERT_META = "INSERT OR REPLACE INTO metadata VALUES (?, ?)"
 #: several metadata entries in one statement: parameters are the list of keys and the list of values
