@@ -492,28 +492,34 @@ def control_chart(kin, data=None) -> pd.DataFrame:
     by = ref.groupby(["catalyst", "plate"], sort=True)   # one reduction each: cheaper than a named .agg
     per = pd.DataFrame({"temperature_c": by["temperature_c"].median(), "n_wells": by["_v"].count(),
                         "_lnv": by["_ln"].mean()}).reset_index()
-    per["value"] = np.exp(per["_lnv"])
-    out = []
-    for cat, g in per.groupby("catalyst", sort=True):  # a loop over benchmarks (one or two)
-        g = g.copy()
-        ln_pred, _ = predict_ln(kin.arrhenius, str(cat), g["temperature_c"].to_numpy()) if use_tof else (
-            np.full(len(g), np.nan), None)
+    lnv = per["_lnv"].to_numpy(dtype=float)
+    temp = per["temperature_c"].to_numpy(dtype=float)
+    n_rows = len(per)
+    lnexp, log_ratio, loo_t = (np.full(n_rows, np.nan) for _ in range(3))
+    centre, lower, upper, loo_limit = (np.full(n_rows, np.nan) for _ in range(4))
+    basis = np.full(n_rows, "", dtype=object)
+    cat_text = per["catalyst"].astype(str).to_numpy(dtype=object)
+    starts = np.flatnonzero(np.append(True, cat_text[1:] != cat_text[:-1])) if n_rows else np.array([], dtype=int)
+    for a, b in zip(starts, np.append(starts[1:], n_rows)):   # a loop over benchmarks (one or two; rows sorted)
+        t = temp[a:b]
+        ln_pred = predict_ln(kin.arrhenius, cat_text[a], t)[0] if use_tof else np.full(b - a, np.nan)
+        t1 = np.round(t, 1)
         if use_tof and np.isfinite(ln_pred).all():
-            g["basis"] = "arrhenius"
-            g["_lnexp"] = ln_pred
+            basis[a:b] = "arrhenius"
+            lnexp[a:b] = ln_pred
         else:
-            g["basis"] = "per_temperature"
-            g["_lnexp"] = g.groupby(g["temperature_c"].round(1))["_lnv"].transform("mean")
-        g["log_ratio"] = g["_lnv"] - g["_lnexp"]
-        x = g["log_ratio"].to_numpy()
+            basis[a:b] = "per_temperature"
+            lnexp[a:b] = pd.Series(lnv[a:b]).groupby(t1).transform("mean").to_numpy(dtype=float)
+        x = lnv[a:b] - lnexp[a:b]
+        log_ratio[a:b] = x
         ok = np.isfinite(x)
         n = int(ok.sum())
         # per_temperature: each temperature's mean was used up, so the SD has n - (groups) df
-        n_groups = int(g.loc[ok, "temperature_c"].round(1).nunique()) if g["basis"].iloc[0] == "per_temperature" else 1
+        n_groups = (int(pd.Series(t1[ok]).nunique()) if basis[a] == "per_temperature" else 1)
         dof = n - n_groups
-        centre = float(np.nanmean(x)) if n else np.nan
-        sd = float(np.sqrt(np.nansum((x - centre) ** 2) / dof)) if dof >= 1 else np.nan
-        g["centre"], g["lower"], g["upper"] = centre, centre - 3 * sd, centre + 3 * sd
+        c = float(np.nanmean(x)) if n else np.nan
+        sd = float(np.sqrt(np.nansum((x - c) ** 2) / dof)) if dof >= 1 else np.nan
+        centre[a:b], lower[a:b], upper[a:b] = c, c - 3 * sd, c + 3 * sd
         # leave-one-out mean and SD from running sums (vectorised over plates)
         s1, s2 = np.nansum(x), np.nansum(x * x)
         m = n - 1
@@ -521,17 +527,20 @@ def control_chart(kin, data=None) -> pd.DataFrame:
         loo_dof = m - n_groups
         with np.errstate(invalid="ignore", divide="ignore"):
             loo_var = (s2 - x * x - m * loo_mean ** 2) / loo_dof if loo_dof >= 2 else np.full_like(x, np.nan)
-            g["loo_t"] = (x - loo_mean) / np.sqrt(np.where(loo_var > 0, loo_var, np.nan) * (1 + 1 / max(m, 1)))
-        g["loo_limit"] = float(t_ppf(1 - SHEWHART_TAIL / 2, loo_dof)) if loo_dof >= 2 else np.nan
-        g["expected"] = np.exp(g["_lnexp"])
-        g["lower_tof_per_h"] = g["expected"] * np.exp(g["lower"])
-        g["upper_tof_per_h"] = g["expected"] * np.exp(g["upper"])
-        out.append(g)
-    res = pd.concat(out, ignore_index=True)
-    res["value_unit"] = "h-1" if use_tof else "mM/h"
-    if not use_tof:
-        res[["lower_tof_per_h", "upper_tof_per_h"]] = np.nan
-    res["flags"] = np.where(np.abs(res["loo_t"]) > res["loo_limit"], "reference_out_of_limits", "")
+            loo_t[a:b] = (x - loo_mean) / np.sqrt(np.where(loo_var > 0, loo_var, np.nan) * (1 + 1 / max(m, 1)))
+        loo_limit[a:b] = float(t_ppf(1 - SHEWHART_TAIL / 2, loo_dof)) if loo_dof >= 2 else np.nan
+    expected = np.exp(lnexp)
+    with np.errstate(invalid="ignore"):
+        beyond = np.abs(loo_t) > loo_limit
+    res = pd.DataFrame({
+        "plate": per["plate"].array, "catalyst": per["catalyst"].array, "temperature_c": temp,
+        "n_wells": per["n_wells"].to_numpy(), "value": np.exp(lnv),
+        "value_unit": pd.array(["h-1" if use_tof else "mM/h"] * n_rows, dtype="str"), "expected": expected,
+        "log_ratio": log_ratio, "centre": centre, "lower": lower, "upper": upper,
+        "lower_tof_per_h": expected * np.exp(lower) if use_tof else np.full(n_rows, np.nan),
+        "upper_tof_per_h": expected * np.exp(upper) if use_tof else np.full(n_rows, np.nan),
+        "loo_t": loo_t, "loo_limit": loo_limit, "basis": pd.array(basis, dtype="str"),
+        "flags": pd.array(np.where(beyond, "reference_out_of_limits", ""), dtype="str")})
     if data is not None and "run_date" in data.plates:
         rd = data.plates.drop_duplicates("plate").set_index("plate")["run_date"]
         res["run_date"] = res["plate"].map(rd)

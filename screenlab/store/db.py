@@ -47,8 +47,8 @@ from screenlab.errors import NotFoundError, ScreenlabError
 from screenlab.model import CampaignData
 from screenlab.store import connection
 from screenlab.store import queries as Q
-from screenlab.store.storage import (CATALYST_COLS, check_campaign_frames, manifest_from_json, prepare, restore,
-                                     storage_form, to_arrow)
+from screenlab.store.storage import (CATALYST_COLS, WELL_COLS, check_campaign_frames, manifest_from_json, prepare,
+                                     restore, storage_form, to_arrow)
 
 if TYPE_CHECKING:  # imported where an import runs (a command that only reads never loads them)
     from screenlab.store.planner import ImportReport, Incoming, Stored
@@ -198,16 +198,18 @@ class Store:
                 known = [r[0] for r in con.execute(Q.CAMPAIGN_NAMES).fetchall()]
                 hint = f"; stored campaigns: {names_text(known)}" if known else "; the store is empty"
                 raise NotFoundError(f"no campaign {name!r} in store {self.path}{hint}")
+            h = head.iloc[0]
+            schema = json.loads(h["frame_schema_json"])
             catalysts = con.execute(Q.CURRENT_CATALYSTS, [name]).df()
             plates = con.execute(Q.CURRENT_PLATES, [name]).df()
             wells = con.execute(Q.CURRENT_WELLS, [name]).df()
-            factors = con.execute(Q.CURRENT_FACTORS, [name]).df()
+            # the named factors' values, when the wells were imported with any (else none are read)
+            with_factors = any(c not in WELL_COLS for c, _ in schema["wells"])
+            factors = con.execute(Q.CURRENT_FACTORS, [name]).df() if with_factors else None
             readings = con.execute(Q.CURRENT_READINGS, [name]).df()
-        h = head.iloc[0]
-        schema = json.loads(h["frame_schema_json"])
         manifest = manifest_from_json(h["manifest_json"])
         factor_names = tuple(h["factor_names"]) if h["factor_names"] is not None else ()
-        if not factors.empty:
+        if factors is not None and not factors.empty:
             wide = factors.pivot(index=["import_id", "seq"], columns="factor", values="value").reset_index()
             wide.columns.name = None
             wells = wells.merge(wide, on=["import_id", "seq"], how="left", sort=False)

@@ -66,15 +66,20 @@ def _dtype_from_spec(spec) -> Any:
 def restore(frame: pd.DataFrame, spec: list[list]) -> pd.DataFrame:
     """``frame`` (as read from the store) with the columns and dtypes of ``spec``
     (``[[column, dtype spec], ...]``, as recorded at import)."""
+    if not spec:
+        return pd.DataFrame(index=range(len(frame)))
+    frame = frame.reset_index(drop=True)    # by position: the frame's index is not carried over
     out = {}
     for col, dspec in spec:
         s = frame[col] if col in frame.columns else pd.Series([pd.NA] * len(frame), dtype=object)
-        try:
-            out[col] = s.astype(_dtype_from_spec(dspec))
-        except (TypeError, ValueError):
-            out[col] = s
-        out[col] = out[col].reset_index(drop=True)
-    return pd.DataFrame(out, columns=[c for c, _ in spec]) if out else pd.DataFrame(index=range(len(frame)))
+        dtype = _dtype_from_spec(dspec)
+        if s.dtype != dtype:                 # most columns come back from DuckDB in their dtype already
+            try:
+                s = s.astype(dtype)
+            except (TypeError, ValueError):
+                pass
+        out[col] = s
+    return pd.DataFrame(out, columns=[c for c, _ in spec])
 
 
 # --------------------------------------------------------------------------------------------
