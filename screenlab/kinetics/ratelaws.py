@@ -372,6 +372,11 @@ def fit_first_order_plateau(c: Courses) -> LawFit:
 
 
 # ---------------------------------------------------------------------------- two-parameter engine
+def _nan_to_zero(x: np.ndarray) -> np.ndarray:
+    """``x`` with NaN as 0.0 (infinities kept)."""
+    return np.where(np.isnan(x), 0.0, x)
+
+
 def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40, start=None):
     """Levenberg-Marquardt on two parameters per well (Marquardt 1963), all wells at once.
 
@@ -445,12 +450,14 @@ def _levenberg_marquardt(c: Courses, model, th1, th2, bounds, n_iter: int = 40, 
             d1 = a11 * (1.0 + la) + 1e-300
             d2 = a22 * (1.0 + la) + 1e-300
             det = d1 * d2 - a12 * a12
-            s1 = np.nan_to_num((d2 * g1 - a12 * g2) / det)
-            s2 = np.nan_to_num((d1 * g2 - a12 * g1) / det)
+            # an undefined step is no step (NaN -> 0; an infinite one is clipped below, as
+            # np.nan_to_num's largest float would be)
+            s1 = _nan_to_zero((d2 * g1 - a12 * g2) / det)
+            s2 = _nan_to_zero((d1 * g2 - a12 * g1) / det)
             out2 = ((t2 <= l2) & (s2 < 0)) | ((t2 >= h2) & (s2 > 0))
             out1 = ((t1 <= l1) & (s1 < 0)) | ((t1 >= h1) & (s1 > 0))
-            s1 = np.where(out2 & ~out1, np.nan_to_num(g1 / d1), np.where(out1, 0.0, s1))
-            s2 = np.where(out1 & ~out2, np.nan_to_num(g2 / d2), np.where(out2, 0.0, s2))
+            s1 = np.where(out2 & ~out1, _nan_to_zero(g1 / d1), np.where(out1, 0.0, s1))
+            s2 = np.where(out1 & ~out2, _nan_to_zero(g2 / d2), np.where(out2, 0.0, s2))
         s1 = np.clip(s1, -3.0, 3.0)               # at most a factor e^3 per step on log parameters
         s2 = np.clip(s2, -3.0, 3.0)
         n1 = np.clip(t1 + s1, l1, h1)
