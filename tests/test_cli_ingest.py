@@ -69,6 +69,9 @@ def test_ingest_a_folder_of_campaigns_and_a_zip(tmp_path, capsys, write_sample_c
     assert {d["campaign"]: d["wells"] for d in data} == {"alpha": 192, "beta": 96, "gamma": 96}
     code, out, _ = run(capsys, "campaigns", "--store", db)
     assert code == 0 and "alpha" in out and "readings" in out.splitlines()[0]
+    # first rounds have no parent: a blank cell, not the word None (the table prints what a
+    # chemist reads; csv and json say empty / null)
+    assert "None" not in out and "<NA>" not in out
 
 
 def test_bad_file_lists_every_problem_and_writes_nothing(tmp_path, capsys, write_sample_campaign):

@@ -67,33 +67,23 @@ def _plain(v):
 
 
 def _aligned(frame) -> str:
-    """Fixed-width text: numbers right-aligned (4 significant digits), text left-aligned."""
+    """Fixed-width text: numbers right-aligned (4 significant digits), text left-aligned, a missing
+    cell blank."""
     import pandas as pd
 
-    formatters = {}
+    padded = {}
     for col in frame.columns:
         s = frame[col]
-        if not (pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)):
-            width = max([len(str(col))] + [len(t) for t in _cell_texts(s)])
-            formatters[col] = _left_justified(width)
-        elif isinstance(s.dtype, pd.api.extensions.ExtensionDtype) and s.isna().any():
-            # nullable integers: a missing cell is blank (as na_rep makes it for floats), not "<NA>";
-            # to_string passes missing cells by the formatters, so the column goes in as padded text
+        is_text = not (pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s))
+        if is_text or (isinstance(s.dtype, pd.api.extensions.ExtensionDtype) and s.isna().any()):
+            # text, and nullable integers with a missing cell, go in as padded text (to_string
+            # prints a None of a text column as 'None' and a missing integer as '<NA>')
             text = _cell_texts(s)
             width = max([len(str(col))] + [len(t) for t in text])
-            frame = frame.assign(**{col: [t.rjust(width) for t in text]})
-    return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", formatters=formatters,
-                           justify="left")
-
-
-def _left_justified(width: int):
-    """A to_string formatter: the cell as text (a missing one blank), left-justified to ``width``."""
-    import pandas as pd
-
-    def fmt(x) -> str:
-        missing = x is None or x is pd.NA or (isinstance(x, float) and x != x)
-        return f"{'' if missing else x!s:<{width}}"
-    return fmt
+            padded[col] = [t.ljust(width) if is_text else t.rjust(width) for t in text]
+    if padded:
+        frame = frame.assign(**padded)
+    return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", justify="left")
 
 
 def _cell_texts(s) -> list[str]:
