@@ -367,6 +367,18 @@ def test_reading_unknown_plate_bad_well_and_not_in_layout():
     find(probs, "readings.csv", "reading for a well that is not in layout.csv", row=32)
 
 
+def test_a_plate_id_in_the_wrong_letter_case_is_refused_with_the_id_meant():
+    # plate ids match exactly (a readings file may name plates of several campaigns); the message
+    # says which id of plates.csv differs only in case, in readings.csv and in layout.csv alike
+    probs = problems(**R("p1,A1,5,1"))
+    hit = find(probs, "readings.csv", r"unknown plate \(not in plates.csv; plates.csv has 'P1'", row=30, column="plate")
+    assert hit[0].value == "p1"
+    find(problems(**L(2, "p1,A1,sample,C1,1.5,umol,100,200,,DMSO")), "layout.csv", "plates.csv has 'P1'", row=2)
+    # an id that matches none, in any case, keeps the plain message
+    plain = find(problems(**R("P9,A1,0,1")), "readings.csv", "unknown plate", row=30)
+    assert plain[0].message == "unknown plate (not in plates.csv)"
+
+
 def test_reading_on_empty_well():
     find(problems(**R("P1,A5,0,1")), "readings.csv", "reading on a well marked empty", row=30)
 

@@ -67,6 +67,24 @@ READING_COLUMNS = ("plate", "well", "time", "value", "analyte")
 SAMPLE_COLUMN = "sample"
 
 
+def unknown_plate_messages(values, plate_ids) -> np.ndarray:
+    """For each value (distinct plate cells): the message for a plate id plates.csv does not have,
+    naming the id it has that differs only in letter case (plate ids are compared exactly: an
+    instrument export that writes ``uv-25`` for ``UV-25`` is told which one was meant)."""
+    by_lower: dict[str, list[str]] = {}
+    for pid in pd.unique(pd.Series(plate_ids, dtype=object).dropna().astype(str)).tolist():  # a few plates
+        by_lower.setdefault(pid.lower(), []).append(pid)
+    out = []
+    for v in pd.Series(values, dtype=object).tolist():                     # one per distinct cell
+        near = by_lower.get(str(v).lower(), []) if isinstance(v, str) else []
+        if len(near) == 1 and near[0] != v:
+            out.append(f"unknown plate (not in plates.csv; plates.csv has {near[0]!r}: plate ids must match "
+                       f"exactly, letter case included)")
+        else:
+            out.append("unknown plate (not in plates.csv)")
+    return np.array(out, dtype=object)
+
+
 class Distinct:
     """A text column as integer codes into its distinct values, so that elementwise work (lower
     case, membership, lookups, number parsing) runs once per distinct value and is spread back to
@@ -469,7 +487,8 @@ def check_layout(table: RawTable, problems: list[Problem], *, plates: pd.DataFra
     if "plate" in f.columns:
         ch.report(pid_blank, "plate", "a plate id is required")
         if check_plate_ids:
-            ch.report(pd_.spread((pid_u != "").to_numpy()) & ~known_plate, "plate", "unknown plate (not in plates.csv)")
+            ch.report(pd_.spread((pid_u != "").to_numpy()) & ~known_plate, "plate",
+                      pd_.spread(unknown_plate_messages(pid_u, plates["plate"])))
     wd = ch.distinct("well")
     parsed_u = parse_names(wd.values, well_names)
     well_u = parsed_u["well"].astype("str")
@@ -681,7 +700,7 @@ def check_readings(table: RawTable, problems: list[Problem], *, wells: pd.DataFr
     if "plate" in f.columns:
         ch.report(p_blank, "plate", "a plate id is required")
         if check_plate_ids:
-            ch.report(~p_blank & ~known_plate, "plate", "unknown plate (not in plates.csv)")
+            ch.report(~p_blank & ~known_plate, "plate", pd_.spread(unknown_plate_messages(p_u, plates["plate"])))
     wd = ch.distinct("well")
     w_name = parse_names(wd.values, well_names)["well"].astype("str")
     c_of_w, c_uniq = pd.factorize(w_name, use_na_sentinel=True)  # distinct raw name -> canonical name code
