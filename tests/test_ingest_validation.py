@@ -149,6 +149,10 @@ def test_empty_file_and_header_only_file():
     find(problems(catalysts_csv=""), "catalysts.csv", "the file is empty")
     find(problems(catalysts_csv="\n\n  \n"), "catalysts.csv", "the file is empty")
     find(problems(plates_csv="plate,format,temperature_c\n"), "plates.csv", "header but no data rows")
+    # a readings file without rows is refused too (it may be an export that went wrong), and the
+    # message says how a round that has not run yet is imported
+    (p,) = find(problems(readings_csv="plate,well,time,value\n"), "readings.csv", "header but no data rows")
+    assert "leave the readings out" in p.message and "add-readings" in p.message
 
 
 def test_missing_required_columns_listed_at_once():

@@ -51,6 +51,11 @@ class ReadResult:
     notes: tuple[str, ...] = ()
 
 
+
+#: said of a readings file without rows: how to import a round whose plates are not run yet
+_PLANNED_HINT = ("; for a planned round whose plates are not run yet, leave the readings out (the layout "
+                 "imports alone; add the readings later with screenlab add-readings)")
+
 def _gather(source) -> tuple[dict[str, bytes], str]:
     if isinstance(source, dict):
         return campaign_files_from_upload(source), "upload"
@@ -149,7 +154,8 @@ def read_campaign(source) -> ReadResult:
         n_before = len(problems)
         raw = read_table(name, files[name], problems)
         if raw is not None and raw.n_rows == 0:
-            problems.append(Problem(name, None, None, None, "has a header but no data rows"))
+            problems.append(Problem(name, None, None, None, "has a header but no data rows"
+                                    + (_PLANNED_HINT if t == "readings" else "")))
         if raw is not None:
             notes.extend(raw.notes)
             record(name, raw.n_rows)
@@ -188,7 +194,8 @@ def read_campaign(source) -> ReadResult:
             record(fname, n_rows)
         if got.table is not None and not got.reshaped:
             if got.table.n_rows == 0:
-                problems.append(Problem(got.table.name, None, None, None, "has a header but no data rows"))
+                problems.append(Problem(got.table.name, None, None, None,
+                                        "has a header but no data rows" + _PLANNED_HINT))
             readings, nt = v.check_readings(got.table, problems, wells=wells, plates=plates, info=info,
                                             well_names=well_names)
             notes.extend(nt)
