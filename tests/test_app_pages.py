@@ -39,12 +39,11 @@ def test_campaigns_overview(monkeypatch, demo_store):
     assert {m.label for m in at.metric} >= {"Plates", "Catalysts", "Blank wells", "Benchmark wells"}
     # the campaign picker lists every stored campaign
     assert set(at.selectbox(key="sl_campaign").options) >= {CAMPAIGN, "ester-hydrolysis-uv", "henry-chiral-2026"}
-    # a campaign without a parent shows blank cells there, not the grid's 'None'
+    # a campaign without a parent (and its missing parent decision) shows blank cells there, not
+    # the grid's 'None': every table of the app says a missing value with an empty placeholder
     listed = at.dataframe[0].value
-    assert "parent" in listed and (listed["parent"] == "").any()
-    text_cols = [c for c in listed if not (pd.api.types.is_numeric_dtype(listed[c])
-                                           or pd.api.types.is_datetime64_any_dtype(listed[c]))]
-    assert text_cols and not listed[text_cols].isna().any().any()
+    assert "parent" in listed and listed["parent"].isna().any() and listed["parent_decision"].isna().any()
+    assert all(d.proto.HasField("placeholder") and d.proto.placeholder == "" for d in at.dataframe)
 
 
 def test_read_only_hides_import(monkeypatch, demo_store):

@@ -169,24 +169,17 @@ def nice_label(col: str) -> str:
 
 def table(frame: pd.DataFrame, key: str, *, columns: list[str] | None = None, height: int | None = None,
           **kw):
-    """A dataframe whose headers carry units; numbers shown to 4 significant digits; a missing
-    text cell is blank (the grid would print 'None'; a missing number still shows so, greyed)."""
+    """A dataframe whose headers carry units; numbers shown to 4 significant digits; a missing cell
+    (a number without a value, a bound's open side, an empty text cell) is blank, not 'None'."""
     cols = [c for c in (columns or list(frame.columns)) if c in frame.columns]
     show = frame[cols]
     cfg = {}
-    blanked = {}
     for c in cols:
-        s = show[c]
-        if pd.api.types.is_float_dtype(s):
+        if pd.api.types.is_float_dtype(show[c]):
             cfg[c] = st.column_config.NumberColumn(nice_label(c), format="%.4g")
         else:
-            if (s.hasnans and not pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
-                    and not pd.api.types.is_datetime64_any_dtype(s)):
-                blanked[c] = s.astype(object).where(s.notna(), "")
             cfg[c] = st.column_config.Column(nice_label(c))
-    if blanked:
-        show = show.assign(**blanked)
-    args = dict(hide_index=True, column_config=cfg, key=key, width="stretch")
+    args = dict(hide_index=True, column_config=cfg, key=key, width="stretch", placeholder="")
     if height:
         args["height"] = height
     args.update(kw)
