@@ -14,6 +14,8 @@ import sys
 import zipfile
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 
 from screenlab.cli import main
@@ -72,6 +74,18 @@ def test_ingest_a_folder_of_campaigns_and_a_zip(tmp_path, capsys, write_sample_c
     # first rounds have no parent: a blank cell, not the word None (the table prints what a
     # chemist reads; csv and json say empty / null)
     assert "None" not in out and "<NA>" not in out
+
+
+def test_table_output_blanks_missing_cells_whatever_the_column_labels():
+    from screenlab.cli.common import emit
+
+    frame = pd.DataFrame({0: ["a", None], "tof_per_h": [1.25, np.nan],
+                          ("n", "wells"): pd.array([3, None], dtype="Int64")})
+    out = io.StringIO()
+    emit(frame, "table", out)
+    lines = out.getvalue().splitlines()
+    assert lines[1].split() == ["a", "1.25", "3"]
+    assert lines[2].strip() == "" and len(lines) == 3          # the second row: every cell missing
 
 
 def test_bad_file_lists_every_problem_and_writes_nothing(tmp_path, capsys, write_sample_campaign):

@@ -628,3 +628,19 @@ def test_a_gradient_plate_is_judged_on_its_main_level_blanks(demo_store):
         assert q.loc[plate, "blank_ratio"] == pytest.approx(row["blank_rate_mM_per_h"] / expected, rel=1e-9)
     assert 0.8 < q.loc["TH-60S", "blank_ratio"] < 1.25
     assert "blank_off_trend" not in q.loc["TH-60S", "flags"]
+
+
+def test_a_plates_worst_row_is_its_largest_key_the_last_of_equals():
+    # the rule plate_quality picks a plate's worst blank temperature and worst benchmark by,
+    # written out plainly: per position, the row with the largest key, the last one among equals;
+    # rows at position -1 belong to no plate
+    from screenlab.stats.quality import _last_of_largest
+
+    rng = np.random.default_rng(3)
+    for _ in range(200):
+        n, n_pos = int(rng.integers(0, 30)), int(rng.integers(1, 6))
+        pos = rng.integers(-1, n_pos, n)
+        key = rng.choice([-1.0, 0.5, 2.0, 3.0], n)            # many ties, as NaN z (-1) gives
+        want = [max((i for i in range(n) if pos[i] == p), key=lambda i: (key[i], i), default=-1)
+                for p in range(n_pos)]
+        assert _last_of_largest(pos, key, n_pos).tolist() == want

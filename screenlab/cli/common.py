@@ -82,7 +82,9 @@ def _aligned(frame) -> str:
             width = max([len(str(col))] + [len(t) for t in text])
             padded[col] = [t.ljust(width) if is_text else t.rjust(width) for t in text]
     if padded:
-        frame = frame.assign(**padded)
+        frame = frame.copy()
+        for col, values in padded.items():   # by label, whatever its type (assign takes text only)
+            frame[col] = values
     return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", justify="left")
 
 

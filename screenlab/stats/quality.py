@@ -660,7 +660,8 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     groups: same catalyst, loading, substrate concentration, temperature and factor levels;
     groups of 2 or more wells), ``reference_cv_pct``, ``blank_expected_mM_per_h,
     blank_ratio, blank_z`` (the plate's blank against the blank Arrhenius line; the worst
-    temperature on a gradient plate), ``edge_basis`` (replicates | bscore | '' when untested),
+    temperature on a gradient plate, largest |z|, the last in the blanks table's order among
+    equals, e.g. temperatures without a z), ``edge_basis`` (replicates | bscore | '' when untested),
     ``edge_n, interior_n``, ``edge_shift_pct`` (replicates basis: how much higher ring wells
     run than interior ones relative to their replicate groups, geometric mean, percent), ``edge_p`` (Mann-Whitney U),
     ``bscore_max_abs``, ``reference_loo_t`` (control chart), ``blank_lod_mM_per_h`` (detection limit

@@ -16,13 +16,22 @@ _EXPORTS = {"add_readings": "addreadings", "campaigns_awaiting_readings": "addre
 __all__ = sorted(_EXPORTS)
 
 
+#: the package's modules, reachable as attributes after ``import screenlab.store`` (as when the
+#: package imported them all)
+_MODULES = ("addreadings", "backup", "connection", "db", "decisions", "fingerprints", "planner", "queries",
+            "storage", "writer")
+
+
 def __getattr__(name: str):
     if name in _EXPORTS:
         value = getattr(import_module(f"screenlab.store.{_EXPORTS[name]}"), name)
-        globals()[name] = value
-        return value
-    raise AttributeError(f"module 'screenlab.store' has no attribute {name!r}")
+    elif name in _MODULES:
+        value = import_module(f"screenlab.store.{name}")
+    else:
+        raise AttributeError(f"module 'screenlab.store' has no attribute {name!r}")
+    globals()[name] = value
+    return value
 
 
 def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_EXPORTS))
+    return sorted(set(globals()) | set(_EXPORTS) | set(_MODULES))
