@@ -86,6 +86,11 @@ def test_table_output_blanks_missing_cells_whatever_the_column_labels():
     lines = out.getvalue().splitlines()
     assert lines[1].split() == ["a", "1.25", "3"]
     assert lines[2].strip() == "" and len(lines) == 3          # the second row: every cell missing
+    # text left-aligned under its header, numbers right-aligned under theirs, two spaces apart
+    head = lines[0]
+    assert head.startswith("0  ") and lines[1].startswith("a  ")
+    end = head.index("tof_per_h") + len("tof_per_h")
+    assert lines[1][:end].endswith("1.25") and lines[1].endswith(" 3") and head.endswith("('n', 'wells')")
 
 
 def test_bad_file_lists_every_problem_and_writes_nothing(tmp_path, capsys, write_sample_campaign):

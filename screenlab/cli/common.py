@@ -67,25 +67,22 @@ def _plain(v):
 
 
 def _aligned(frame) -> str:
-    """Fixed-width text: numbers right-aligned (4 significant digits), text left-aligned, a missing
-    cell blank."""
+    """Fixed-width text, columns two spaces apart: text left-aligned, numbers right-aligned (floats
+    to 4 significant digits), each header aligned as its column, a missing cell blank."""
     import pandas as pd
 
-    padded = {}
+    columns = []
     for col in frame.columns:
         s = frame[col]
         is_text = not (pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s))
-        if is_text or (isinstance(s.dtype, pd.api.extensions.ExtensionDtype) and s.isna().any()):
-            # text, and nullable integers with a missing cell, go in as padded text (to_string
-            # prints a None of a text column as 'None' and a missing integer as '<NA>')
+        if pd.api.types.is_float_dtype(s):
+            text = ["" if v != v else f"{v:.4g}" for v in s.to_numpy(dtype=float).tolist()]
+        else:
             text = _cell_texts(s)
-            width = max([len(str(col))] + [len(t) for t in text])
-            padded[col] = [t.ljust(width) if is_text else t.rjust(width) for t in text]
-    if padded:
-        frame = frame.copy()
-        for col, values in padded.items():   # by label, whatever its type (assign takes text only)
-            frame[col] = values
-    return frame.to_string(index=False, float_format=lambda v: f"{v:.4g}", na_rep="", justify="left")
+        cells = [str(col), *text]
+        width = max(len(t) for t in cells)
+        columns.append([t.ljust(width) if is_text else t.rjust(width) for t in cells])
+    return "\n".join("  ".join(row).rstrip() for row in zip(*columns))
 
 
 def _cell_texts(s) -> list[str]:
