@@ -644,3 +644,44 @@ def test_a_plates_worst_row_is_its_largest_key_the_last_of_equals():
         want = [max((i for i in range(n) if pos[i] == p), key=lambda i: (key[i], i), default=-1)
                 for p in range(n_pos)]
         assert _last_of_largest(pos, key, n_pos).tolist() == want
+
+
+def test_plates_whose_blank_trend_is_not_checked_say_why(demo_store):
+    # every plate of the transfer-hydrogenation demo is checked against its blank line (four
+    # temperatures); the nitroaldol demo has two, and a line through two points has no error
+    from screenlab.stats.quality import blank_trend_gaps
+    from screenlab.store import Store
+
+    store = Store(demo_store, read_only=True)
+    th = analyse(store.load_campaign("th-screen-2026"))
+    assert th.quality["blank_z"].notna().all() and blank_trend_gaps(th.kinetics, th.quality).empty
+    hn = analyse(store.load_campaign("henry-chiral-2026"))
+    gaps = blank_trend_gaps(hn.kinetics, hn.quality)
+    assert sorted(gaps["plate"]) == sorted(hn.quality["plate"])
+    assert gaps["reason"].str.contains("two temperatures").all()
+    # a plate whose blanks all sit at another substrate level than the line's is named with both levels
+    k = th.kinetics
+    plate = "TH-70"
+    blanks = k.blanks.assign(substrate_conc_mM=np.where(k.blanks["plate"] == plate, 50.0,
+                                                        k.blanks["substrate_conc_mM"]))
+    q = th.quality.assign(blank_z=np.where(th.quality["plate"] == plate, np.nan, th.quality["blank_z"]))
+    gaps = blank_trend_gaps(dataclasses.replace(k, blanks=blanks), q)
+    assert gaps["plate"].tolist() == [plate]
+    assert "at 50 mM substrate, the blank line at 200 mM" in gaps["reason"].iloc[0]
+
+
+def test_quality_command_says_which_plates_the_blank_trend_skips(demo_store, capsys):
+    import csv
+    import io
+
+    from screenlab.cli import main
+
+    assert main(["quality", "--store", str(demo_store), "--campaign", "henry-chiral-2026"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[-1].startswith("blank trend not checked on HN-25, HN-40: the blank Arrhenius line is drawn through two")
+    assert main(["quality", "--store", str(demo_store), "--campaign", "henry-chiral-2026", "--format", "csv"]) == 0
+    got = capsys.readouterr()
+    assert [r["plate"] for r in csv.DictReader(io.StringIO(got.out))] == ["HN-25", "HN-40"]   # csv stays a table
+    assert "blank trend not checked" in got.err
+    assert main(["quality", "--store", str(demo_store), "--campaign", "th-screen-2026"]) == 0
+    assert "blank trend not checked" not in capsys.readouterr().out

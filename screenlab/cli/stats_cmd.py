@@ -160,6 +160,12 @@ def run_quality(args) -> int:
         emit(a.control, args.format)
     else:
         emit(a.quality[[c for c in QUALITY_COLUMNS if c in a.quality]], args.format)
+        from screenlab.stats.quality import blank_trend_gaps
+
+        gaps = blank_trend_gaps(a.kinetics, a.quality)
+        for why, plates in gaps.groupby("reason", sort=False)["plate"]:   # a line per reason
+            print(f"blank trend not checked on {', '.join(plates)}: {why}",
+                  file=sys.stdout if args.format == "table" else sys.stderr)
     return 0
 
 

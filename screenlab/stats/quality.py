@@ -811,6 +811,49 @@ def plate_quality(kin, data, settings=None, *, bscore_value: str = "rate", contr
     return pd.DataFrame({"plate": index, **{c: out[c] for c in schema.QUALITY.names[1:]}})
 
 
+def blank_trend_gaps(kin, quality: pd.DataFrame) -> pd.DataFrame:
+    """The plates with blank wells whose blank is not checked against the campaign's blank
+    Arrhenius line (``blank_z`` missing in ``quality``, from :func:`plate_quality`), each with the
+    reason in words. Columns ``plate, reason``; no rows when every such plate was checked."""
+    from screenlab.kinetics.arrhenius import uncatalysed_points
+    from screenlab.kinetics.sites import has_flag
+
+    empty = pd.DataFrame({"plate": pd.Series(dtype=object), "reason": pd.Series(dtype=object)})
+    if quality is None or quality.empty:
+        return empty
+    n_blank = pd.to_numeric(quality["n_blank"], errors="coerce").to_numpy(dtype=float)
+    untested = quality.loc[(n_blank > 0) & quality["blank_z"].isna().to_numpy(), "plate"].astype(str).tolist()
+    if not untested:
+        return empty
+    ln_pred, ln_se = predict_ln(kin.arrhenius, UNCATALYSED, [25.0])   # is there a line, with an error?
+    why = None
+    if not np.isfinite(ln_pred).all():
+        why = ("no blank Arrhenius line to compare with (blanks above their detection limit at fewer than two "
+               "temperatures)")
+    elif not np.isfinite(ln_se).all():
+        why = ("the blank Arrhenius line is drawn through two temperatures only: it has no error to judge a "
+               "plate's blank by")
+    if why is not None:
+        return pd.DataFrame({"plate": untested, "reason": [why] * len(untested)})
+    bl = kin.blanks
+    pts = uncatalysed_points(bl)
+    on_line = set(pts["plate"].astype(str).tolist())
+    level = float(pts["conc_mM"].iloc[0]) if len(pts) else np.nan
+    own = bl[bl["n_blanks"] > 0]
+    if "flags" in own:
+        own = own[~has_flag(own["flags"], "blank_scaled")]
+    reasons = []
+    for plate in untested:                                   # a loop over the few plates not checked
+        if plate in on_line:
+            reasons.append("its blank rate is not positive, or has no standard error")
+            continue
+        conc = pd.to_numeric(own.loc[own["plate"].astype(str) == plate, "substrate_conc_mM"], errors="coerce")
+        levels = ", ".join(f"{c:g}" for c in sorted(conc.dropna().unique()))
+        reasons.append(f"its blanks are at {levels or 'an unknown'} mM substrate, the blank line at {level:g} mM (the "
+                       f"level most blanks have): a background rate at another level is not on that line")
+    return pd.DataFrame({"plate": untested, "reason": reasons})
+
+
 def _last_of_largest(pos: np.ndarray, key: np.ndarray, n: int) -> np.ndarray:
     """For positions ``0 .. n-1``: the row (into ``pos``/``key``) with the largest ``key`` among the
     rows at that position, the last of equal keys (a stable sort by key, then the last row of each
@@ -893,5 +936,7 @@ def _separation(w, role, rate, p_i, n_pl: int, blanks, plate_index, is_samp, gid
             "robust_zprime": rz, "ssmd": sd}
 
 
-__all__ = ["FLAGS", "zprime", "z_factor", "robust_zprime", "ssmd", "median_polish", "bscores", "well_bscores", "mannwhitneyu_grouped", "predict_ln",
-           "control_chart", "plate_quality"]
+__all__ = [
+    "FLAGS", "blank_trend_gaps", "zprime", "z_factor", "robust_zprime", "ssmd", "median_polish", "bscores",
+    "well_bscores", "mannwhitneyu_grouped", "predict_ln", "control_chart", "plate_quality"
+]

@@ -6,6 +6,7 @@ import pandas as pd
 import streamlit as st
 
 from screenlab.app import cache, widgets
+from screenlab.stats.quality import blank_trend_gaps
 from screenlab.viz import figures
 
 ctx = widgets.context()
@@ -41,6 +42,9 @@ widgets.table(q, key="quality_table", columns=[
     "blank_lod_mM_per_h", "sample_active_pct", "upper_median_mM_per_h", "upper_cv_pct", "replicate_cv_median_pct",
     "reference_cv_pct", "blank_ratio", "blank_z", "edge_basis", "edge_p", "edge_shift_pct", "bscore_max_abs",
     "reference_loo_t", "flags"])
+gaps = blank_trend_gaps(a.kinetics, q)
+for why, plates in gaps.groupby("reason", sort=False)["plate"]:
+    st.caption(f"Blank trend (blank z, blank ratio) not checked on {', '.join(plates)}: {why}.")
 widgets.flag_glossary(q["flags"])
 
 st.subheader("Benchmark control chart")
