@@ -168,6 +168,11 @@ def test_plate_quality(monkeypatch, demo_store):
     assert "Z' per plate" in text and "Benchmark control chart" in text and "Edge map" in text
     q = at.dataframe[0].value
     assert {"plate", "zprime", "status"} <= set(q.columns)
+    assert "Blank trend" not in text                      # every plate checked against its blank line
+    # the nitroaldol demo's blank line runs through two temperatures: the page says so
+    hn = _page(monkeypatch, demo_store, "quality", campaign="henry-chiral-2026")
+    assert "Blank trend (blank z, blank ratio) not checked on HN-25, HN-40: the blank Arrhenius line is drawn " \
+           "through two temperatures only" in _texts(hn)
 
 
 def test_shortlist_selection_to_download(monkeypatch, demo_store):
