@@ -51,10 +51,10 @@ class ReadResult:
     notes: tuple[str, ...] = ()
 
 
-
 #: said of a readings file without rows: how to import a round whose plates are not run yet
 _PLANNED_HINT = ("; for a planned round whose plates are not run yet, leave the readings out (the layout "
                  "imports alone; add the readings later with screenlab add-readings)")
+
 
 def _gather(source) -> tuple[dict[str, bytes], str]:
     if isinstance(source, dict):

@@ -499,8 +499,8 @@ def control_chart(kin, data=None) -> pd.DataFrame:
     centre, lower, upper, loo_limit = (np.full(n_rows, np.nan) for _ in range(4))
     basis = np.full(n_rows, "", dtype=object)
     cat_text = per["catalyst"].astype(str).to_numpy(dtype=object)
-    starts = np.flatnonzero(np.append(True, cat_text[1:] != cat_text[:-1])) if n_rows else np.array([], dtype=int)
-    for a, b in zip(starts, np.append(starts[1:], n_rows)):   # a loop over benchmarks (one or two; rows sorted)
+    starts = _groups.first_rows(_groups.factorize(cat_text)[0])    # rows come sorted by benchmark
+    for a, b in zip(starts, np.append(starts[1:], n_rows)):   # a loop over benchmarks (one or two)
         t = temp[a:b]
         ln_pred = predict_ln(kin.arrhenius, cat_text[a], t)[0] if use_tof else np.full(b - a, np.nan)
         t1 = np.round(t, 1)
