@@ -78,6 +78,10 @@ def streamlit_argv(store: Path, *, port: int, read_only: bool = False,
 def _launch(args: list[str]) -> int:
     from streamlit.web import cli as stcli
 
+    from screenlab.cli import restore_gc_threshold
+
+    restore_gc_threshold()      # a server that runs for hours: the interpreter's collector settings
+
     try:
         stcli.main(args=args, prog_name="streamlit", standalone_mode=True)
     except SystemExit as exc:  # click ends with SystemExit; pass its code on
