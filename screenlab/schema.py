@@ -365,6 +365,20 @@ ORDERS = FrameSchema("orders", "screenlab.kinetics.orders.apparent_orders (Kinet
     ("order_df", "float", "", "degrees of freedom"),
 ))
 
+ORDER_POINTS = FrameSchema("order_points", "screenlab.kinetics.orders.order_points", _cols(
+    ("series", "int", "", "the row of the orders table this well belongs to"),
+    ("catalyst", "text", "", "catalyst id"),
+    ("temperature_c", "float", "degC", "temperature"),
+    ("variable", "text", "", "substrate_conc or loading"),
+    ("plate", "text", "", "plate id"),
+    ("well", "text", "", "well name"),
+    ("level", "float", "", "the well's substrate concentration or loading, in level_unit"),
+    ("level_unit", "text", "", "mM, or the loading unit"),
+    ("net_rate_mM_per_h", "float", "mM/h", "blank-corrected initial rate"),
+    ("tof_per_h", "float", "h-1", "initial TOF"),
+    ("in_fit", "bool", "", "in the log-log fit (net rate and level > 0)"),
+))
+
 SELECTIVITY = FrameSchema("selectivity", "screenlab.kinetics.selectivity.well_selectivity (KineticsResult.selectivity)",
                           _cols(
     ("plate", "text", "", "plate id"),

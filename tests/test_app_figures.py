@@ -150,3 +150,39 @@ def test_nice_step_is_one_two_or_five_times_a_power_of_ten():
         step = nice_step(span)
         mant = step / 10 ** np.floor(np.log10(step) + 1e-9)
         assert np.isclose(mant, [1, 2, 5, 10]).any() and span / step <= 7 * (1 + 1e-9) and span / step > 7 / 2.5 - 1e-9
+
+
+def test_order_plot_is_log_log_with_the_fitted_slope_and_ticks_written_out():
+    # a substrate series of order 0.5 (rate = 3 c^0.5): the fit line drawn has slope 0.5 in logs,
+    # the dotted guides 0 and 1, and the axes are labelled with whole numbers (200, not "2")
+    conc = np.repeat([25.0, 50.0, 100.0, 200.0], 2)
+    rate = 3.0 * conc ** 0.5 * np.tile([1.02, 0.98], 4)
+    pts = pd.DataFrame({"level": [*conc, 400.0], "net_rate_mM_per_h": [*rate, -1.0], "in_fit": [True] * 8 + [False],
+                        "plate": "P1", "well": [f"A{i + 1}" for i in range(9)]})
+    fig = figures.order_plot(pts, 0.5, variable="substrate_conc", unit="mM")
+    assert fig.layout.xaxis.type == "log" and fig.layout.yaxis.type == "log"
+    assert fig.layout.xaxis.title.text == "substrate / mM"
+    slopes = {}
+    for t in fig.data:
+        if t.mode == "lines":
+            x, y = np.log(np.asarray(t.x, float)), np.log(np.asarray(t.y, float))
+            slopes[t.name] = (y[1] - y[0]) / (x[1] - x[0])
+    assert abs(slopes["fit: order 0.50"] - 0.5) < 1e-12
+    assert abs(slopes["order 0"]) < 1e-12 and abs(slopes["order 1"] - 1) < 1e-12
+    wells = next(t for t in fig.data if t.name == "wells")
+    assert len(wells.x) == 8                         # the well with a negative rate has no log
+    assert list(fig.layout.xaxis.ticktext) == ["25", "50", "100", "200"]   # the levels themselves
+    assert all("." not in s or float(s) < 1 for s in fig.layout.yaxis.ticktext)
+    # the line passes through the centre of the logs, where a least-squares line passes
+    fit = next(t for t in fig.data if t.name == "fit: order 0.50")
+    lx, ly = np.log(conc), np.log(rate)
+    x0 = np.log(fit.x[0])
+    assert abs(np.log(fit.y[0]) - (ly.mean() + 0.5 * (x0 - lx.mean()))) < 1e-12
+
+
+def test_log_ticks_are_one_two_five_times_powers_of_ten():
+    # the rule in plain words: 1, 2, 5 x 10^k across the span; 10^k alone over a wide span; every
+    # digit over a narrow span
+    assert list(figures._log_ticks(0.1, 30)) == [0.1, 0.2, 0.5, 1.0, 2.0, 5.0, 10.0, 20.0]
+    assert list(figures._log_ticks(0.001, 500)) == [0.001, 0.01, 0.1, 1.0, 10.0, 100.0]
+    assert list(figures._log_ticks(36.0, 60.0)) == [40.0, 50.0, 60.0]

@@ -133,6 +133,33 @@ def test_temperature_series(monkeypatch, demo_store):
     assert shown == 5 and fitted == 4, (shown, fitted)   # demo: 5 plates (two at 60 C), the 40 C blank below its LOD
 
 
+def test_reaction_orders(monkeypatch, demo_store):
+    # the transfer-hydrogenation demo has a substrate series (MN-01) and a loading series (RU-04) at
+    # 60 C: the table lists both, the first is plotted on log-log axes with its wells, and the slope
+    # of its drawn fit line is the table's order
+    import numpy as np
+
+    at = _page(monkeypatch, demo_store, "orders")
+    text = _texts(at)
+    assert "Reaction orders" in text and "MN-01 at 60 °C: order in substrate" in text
+    table = next(df.value for df in at.dataframe if "order" in df.value.columns)
+    assert sorted(table["catalyst"].astype(str)) == ["MN-01", "RU-04"]
+    fig = _figures(at)[0]
+    assert fig["layout"]["xaxis"]["type"] == "log" and fig["layout"]["yaxis"]["type"] == "log"
+    assert fig["layout"]["xaxis"]["title"]["text"] == "substrate / mM"
+    wells = next(t for t in fig["data"] if t.get("name") == "wells")
+    points = next(df.value for df in at.dataframe if "in_fit" in df.value.columns)
+    assert len(_values(wells["x"])) == int(points["in_fit"].sum()) == int(table["n_wells"].iloc[0])
+    fit = next(t for t in fig["data"] if str(t.get("name", "")).startswith("fit: order"))
+    x, y = np.log(_values(fit["x"])), np.log(_values(fit["y"]))
+    assert (y[1] - y[0]) / (x[1] - x[0]) == pytest.approx(float(table["order"].iloc[0]), rel=1e-9)
+
+
+def test_reaction_orders_without_series_says_what_to_run(monkeypatch, demo_store):
+    at = _page(monkeypatch, demo_store, "orders", campaign="ester-hydrolysis-uv")
+    assert "there are no apparent orders" in _texts(at) and not _figures(at)
+
+
 def test_ranking_metric_change(monkeypatch, demo_store):
     at = _page(monkeypatch, demo_store, "ranking")
     assert at.radio(key="rank_view").options == ["Ranking", "Pareto view"]

@@ -33,6 +33,7 @@ PAGES = {
     "plate_map": ["Plate map", "Method"],
     "rates": ["Rates", "Replicate time courses"],
     "temperature": ["Temperature series", "Activation parameters", "Activation-energy lowering"],
+    "orders": ["Reaction orders", "order in substrate"],
     "ranking": ["Ranking", "Pareto view"],
     "quality": ["Plate quality", "Benchmark control chart", "Edge map"],
     "shortlist": ["Shortlist", "scale-up", "Record the decision"],

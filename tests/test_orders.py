@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from screenlab.kinetics.orders import COLUMNS, apparent_orders
+from screenlab.kinetics.orders import COLUMNS, POINT_COLUMNS, apparent_orders, order_points
 from screenlab.settings import AnalysisSettings
 
 
@@ -170,3 +170,43 @@ def test_no_series_gives_the_empty_frame_with_columns():
     t["loading"] = 0.5
     out = apparent_orders(t, AnalysisSettings(), factor_names=("solvent",))
     assert out.empty and list(out.columns) == COLUMNS
+
+
+# ------------------------------------------------------------------------------- the points behind a series
+
+@pytest.mark.parametrize("seed", [0, 3])
+def test_the_points_of_each_series_give_its_order_by_linregress(seed):
+    # every series' in-fit wells, fitted alone by scipy.stats.linregress on ln rate vs ln level
+    # (the outside reference), give the table's order and SE; out-of-fit points are the wells with
+    # a net rate or level <= 0 (a log cannot take them)
+    t = _random_turnover(seed)
+    s = AnalysisSettings()
+    o = apparent_orders(t, s, factor_names=("solvent",))
+    p = order_points(t, s, factor_names=("solvent",))
+    assert list(p.columns) == POINT_COLUMNS
+    assert set(p["series"]) == set(range(len(o)))
+    for i, pts in p.groupby("series"):
+        row = o.iloc[i]
+        assert (pts["catalyst"] == row["catalyst"]).all() and (pts["variable"] == row["variable"]).all()
+        fit = pts[pts["in_fit"]]
+        assert len(fit) == row["n_wells"] and fit["level"].nunique() == row["n_levels"]
+        assert fit["level"].min() == row["level_min"] and fit["level"].max() == row["level_max"]
+        assert ((fit["net_rate_mM_per_h"] > 0) & (fit["level"] > 0)).all()
+        assert not ((pts.loc[~pts["in_fit"], "net_rate_mM_per_h"] > 0) & (pts.loc[~pts["in_fit"], "level"] > 0)).any()
+        lr = stats.linregress(np.log(fit["level"]), np.log(fit["net_rate_mM_per_h"]))
+        assert row["order"] == pytest.approx(lr.slope, rel=1e-9)
+        if len(fit) > 2:
+            assert row["order_se"] == pytest.approx(lr.stderr, rel=1e-7)
+        assert (pts["level_unit"] == ("mM" if row["variable"] == "substrate_conc" else pts["level_unit"])).all()
+
+
+def test_points_carry_the_loading_unit_and_the_left_out_well():
+    t = _turnover(np.array([50.0, 100.0, 200.0]), np.full(3, 0.5), np.array([1.0, 2.0, -0.5]))
+    p = order_points(t, AnalysisSettings(), factor_names=("solvent",))
+    assert p["in_fit"].tolist() == [True, True, False] and p["level_unit"].eq("mM").all()
+    load = _turnover(np.full(4, 100.0), np.array([0.1, 0.2, 0.4, 0.8]), np.array([5.0, 10.0, 20.0, 40.0]))
+    q = order_points(load, AnalysisSettings(), factor_names=("solvent",))
+    assert q["variable"].eq("loading").all() and q["level_unit"].eq("umol").all()
+    assert q["level"].tolist() == [0.1, 0.2, 0.4, 0.8]
+    empty = order_points(_turnover([50.0], [0.5], [1.0]), AnalysisSettings(), factor_names=("solvent",))
+    assert empty.empty and list(empty.columns) == POINT_COLUMNS

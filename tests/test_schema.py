@@ -31,6 +31,7 @@ def test_the_contributor_guide_shows_the_declared_schemas():
 def _frames(name: str) -> dict[S.FrameSchema, pd.DataFrame]:
     import screenlab as sl
     from screenlab.kinetics.arrhenius import predict_tof
+    from screenlab.kinetics.orders import order_points
     from screenlab.stats.quality import control_chart
     from screenlab.stats.ranking import rank_candidates
 
@@ -41,7 +42,8 @@ def _frames(name: str) -> dict[S.FrameSchema, pd.DataFrame]:
         k = an.kinetics
         return {S.CATALYSTS: d.catalysts, S.PLATES: d.plates, S.WELLS: d.wells, S.READINGS: d.readings,
                 S.AMOUNTS: k.amounts, S.WELL_RATES: k.per_well, S.BLANKS: k.blanks, S.TURNOVER: k.wells,
-                S.RATES: k.rates, S.ARRHENIUS: k.arrhenius, S.ORDERS: k.orders, S.SELECTIVITY: k.selectivity,
+                S.RATES: k.rates, S.ARRHENIUS: k.arrhenius, S.ORDERS: k.orders,
+                S.ORDER_POINTS: order_points(k.wells, an.settings, d.factor_names), S.SELECTIVITY: k.selectivity,
                 S.QUALITY: an.quality, S.CONTROL_CHART: control_chart(k, d),
                 S.RANKING: rank_candidates(k, an.quality, metric="tof", top_k=3, draws=200, seed=0),
                 S.PREDICTED_TOF: predict_tof(k.arrhenius, 55.0, 0.95)}, d.factor_names

@@ -28,7 +28,8 @@ def pages(read_only: bool) -> dict[str, list]:
     return {
         "Campaign": campaign,
         "Kinetics": [p("plate_map", "Plate map", "grid_on"), p("rates", "Rates", "table_chart"),
-                     p("temperature", "Temperature series", "thermostat")],
+                     p("temperature", "Temperature series", "thermostat"),
+                     p("orders", "Reaction orders", "trending_up")],
         "Decide": [p("ranking", "Ranking", "leaderboard"), p("quality", "Plate quality", "verified"),
                    p("shortlist", "Shortlist", "checklist")],
     }

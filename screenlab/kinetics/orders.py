@@ -75,6 +75,11 @@ def _fixed_text(first: pd.DataFrame, fixed: list[str]) -> np.ndarray:
     return np.array(["; ".join(p for p in row if p) for row in stacked], dtype=object)
 
 
+#: :func:`order_points`: one row per catalysed well of a series of :func:`apparent_orders`
+POINT_COLUMNS = ["series", "catalyst", "temperature_c", "variable", "plate", "well", "level", "level_unit",
+                 "net_rate_mM_per_h", "tof_per_h", "in_fit"]
+
+
 def apparent_orders(turnover: pd.DataFrame, settings: AnalysisSettings | None = None,
                     factor_names=None) -> pd.DataFrame:
     """Orders in substrate and in catalyst loading; columns :data:`COLUMNS`.
@@ -82,13 +87,30 @@ def apparent_orders(turnover: pd.DataFrame, settings: AnalysisSettings | None = 
     Every series is fitted at once (group ids and np.bincount sums), so the cost grows with the
     number of wells, not with the number of series times pandas overhead.
     """
+    return _orders(turnover, settings, factor_names, points=False)[0]
+
+
+def order_points(turnover: pd.DataFrame, settings: AnalysisSettings | None = None,
+                 factor_names=None) -> pd.DataFrame:
+    """The wells behind each series of :func:`apparent_orders` (columns :data:`POINT_COLUMNS`):
+    ``series`` is the row of the orders table, ``level`` the substrate concentration (mM) or the
+    loading (in ``level_unit``), ``in_fit`` whether the well entered the log-log fit (a net rate or
+    a level <= 0 cannot). The points a plot of ln rate on ln level shows, the fitted slope through
+    the ``in_fit`` ones being the order."""
+    return _orders(turnover, settings, factor_names, points=True)[1]
+
+
+def _orders(turnover: pd.DataFrame, settings: AnalysisSettings | None, factor_names, *, points: bool):
+    """``(orders, points)``: :func:`apparent_orders` and, with ``points``, :func:`order_points`
+    (else None)."""
     settings = settings or AnalysisSettings()
+    no_points = pd.DataFrame(columns=POINT_COLUMNS) if points else None
     factors = list(_infer_factors(turnover, factor_names))
     role = _role(turnover)
     t = turnover[np.isin(role, ["sample", "reference"])]
     t = t[np.isfinite(pd.to_numeric(t["rate_mM_per_h"], errors="coerce").to_numpy(float))].copy()
     if t.empty:
-        return pd.DataFrame(columns=COLUMNS)
+        return pd.DataFrame(columns=COLUMNS), no_points
     t["temperature_c"] = _tkey(t["temperature_c"])
     net = pd.to_numeric(t["net_rate_mM_per_h"], errors="coerce").to_numpy(float)
     tof = pd.to_numeric(t["tof_per_h"], errors="coerce").to_numpy(float)
@@ -96,7 +118,7 @@ def apparent_orders(turnover: pd.DataFrame, settings: AnalysisSettings | None = 
         "substrate_conc": ("substrate_conc_mM", ["loading", "loading_unit", *factors]),
         "loading": ("loading", ["loading_unit", "substrate_conc_mM", *factors]),
     }
-    frames = []
+    frames, point_frames, n_before = [], [], 0
     for variable, (col, fixed) in series.items():
         keys = ["catalyst", "temperature_c", *fixed]
         gid_s = t.groupby(keys, dropna=False, sort=True, observed=True).ngroup()
@@ -144,9 +166,24 @@ def apparent_orders(turnover: pd.DataFrame, settings: AnalysisSettings | None = 
         out = out[keep].copy()
         out["fixed"] = _fixed_text(first[keep], fixed)
         frames.append(out)
+        if points:
+            row = n_before + np.cumsum(keep) - 1                       # a kept series' row in the table
+            on = keep[gid]
+            unit = (t["loading_unit"].astype("string").fillna("").to_numpy(dtype=object)[on]
+                    if variable == "loading" else "mM")
+            point_frames.append(pd.DataFrame({
+                "series": row[gid[on]].astype(np.int64), "catalyst": t["catalyst"].to_numpy(dtype=object)[on],
+                "temperature_c": t["temperature_c"].to_numpy(float)[on], "variable": variable,
+                "plate": t["plate"].to_numpy(dtype=object)[on], "well": t["well"].to_numpy(dtype=object)[on],
+                "level": lv[on], "level_unit": unit, "net_rate_mM_per_h": net[on], "tof_per_h": tof[on],
+                "in_fit": ok[on]}))
+        n_before += int(keep.sum())
     if not frames:
-        return pd.DataFrame(columns=COLUMNS)
+        return pd.DataFrame(columns=COLUMNS), no_points
     out = pd.concat(frames, ignore_index=True)[COLUMNS]
     out["flags"] = join_flags(out["flags"], {}, index=out.index).to_numpy(dtype=object)
     out["n_levels"] = out["n_levels"].astype(np.int64)
-    return out
+    if not points:
+        return out, None
+    pts = pd.concat(point_frames, ignore_index=True)[POINT_COLUMNS]
+    return out, pts.sort_values(["series", "level", "plate", "well"], kind="stable", ignore_index=True)

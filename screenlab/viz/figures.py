@@ -324,6 +324,62 @@ def arrhenius_plot(points: pd.DataFrame, prediction: pd.DataFrame | None = None,
     return fig
 
 
+def order_plot(points: pd.DataFrame, order: float, *, variable: str, unit: str, title: str | None = None) -> go.Figure:
+    """Net rate against the varied level on log-log axes for one series of apparent orders.
+
+    points: the series' rows of ``kinetics.orders.order_points`` (``level``, ``net_rate_mM_per_h``,
+    ``in_fit``, ``plate``, ``well``); only ``in_fit`` points can be drawn (a rate <= 0 has no log).
+    ``order`` is the fitted slope: its line is drawn through the centroid of the logs (where a
+    least-squares line passes) over the levels measured, with dotted lines of order 0 and 1
+    through the same point to read the slope against.
+    """
+    fig = go.Figure()
+    pts = points[points["in_fit"].astype(bool)]
+    x = pd.to_numeric(pts["level"], errors="coerce").to_numpy(float)
+    y = pd.to_numeric(pts["net_rate_mM_per_h"], errors="coerce").to_numpy(float)
+    what = "substrate" if variable == "substrate_conc" else "loading"
+    if x.size:
+        lx, ly = np.log(x), np.log(y)
+        cx, cy = float(lx.mean()), float(ly.mean())
+        xs = np.exp(np.linspace(float(lx.min()), float(lx.max()), 2))
+        for slope, name, style in ((0.0, "order 0", dict(color="#999999", dash="dot", width=1)),
+                                   (1.0, "order 1", dict(color="#555555", dash="dot", width=1))):
+            fig.add_trace(go.Scatter(x=xs, y=np.exp(cy + slope * (np.log(xs) - cx)), mode="lines", name=name,
+                                     line=style, hoverinfo="skip"))
+        if math.isfinite(order):
+            fig.add_trace(go.Scatter(x=xs, y=np.exp(cy + order * (np.log(xs) - cx)), mode="lines",
+                                     name=f"fit: order {order:.2f}", line=dict(color=series_colours(1)[0], width=2),
+                                     hoverinfo="skip"))
+        label = pts["plate"].astype(str) + " " + pts["well"].astype(str)
+        fig.add_trace(go.Scatter(x=x, y=y, mode="markers", name="wells",
+                                 marker=dict(symbol="circle", size=9, color=series_colours(1)[0],
+                                             line=dict(width=1, color="#333")),
+                                 text=label, hovertemplate="%{text}<br>" + what + " = %{x:.4g} " + unit
+                                 + "<br>net rate = %{y:.4g} mM h⁻¹<extra></extra>"))
+    fig.update_xaxes(type="log", title=f"{what} / {unit}")
+    fig.update_yaxes(type="log", title="net rate / mM h⁻¹")
+    if x.size:
+        levels = np.unique(x)   # the levels themselves label the x axis when they are few
+        xt = levels if levels.size <= 8 else _log_ticks(float(x.min()), float(x.max()))
+        yt = _log_ticks(float(y.min()), float(y.max()))
+        fig.update_xaxes(tickvals=xt, ticktext=[f"{v:g}" for v in xt])
+        fig.update_yaxes(tickvals=yt, ticktext=[f"{v:g}" for v in yt])
+    return _layout(fig, title, height=420)
+
+
+def _log_ticks(lo: float, hi: float) -> np.ndarray:
+    """Round tick values (1, 2, 5 x 10^k; 10^k over a wide span, 1-9 x 10^k over a narrow one) from
+    just below ``lo`` to just above ``hi``, written out in full: a log axis left to itself labels
+    200 as "2"."""
+    k0, k1 = math.floor(math.log10(lo)) - 1, math.ceil(math.log10(hi)) + 1
+    for mantissas in ((1.0,), (1.0, 2.0, 5.0), tuple(float(m) for m in range(1, 10))):
+        vals = np.array([m * 10.0 ** k for k in range(k0, k1 + 1) for m in mantissas])
+        inside = vals[(vals >= lo / 1.15) & (vals <= hi * 1.15)]
+        if inside.size >= 4 or (inside.size >= 3 and len(mantissas) > 1):
+            return inside
+    return vals[(vals >= lo / 1.6) & (vals <= hi * 1.6)]
+
+
 # --------------------------------------------------------------------------- ranking
 def forest_plot(ranking: pd.DataFrame, *, label: str, log_x: bool = False, title: str | None = None,
                 highlight: list[str] | None = None) -> go.Figure:
