@@ -49,6 +49,10 @@ metrics and what comes first:
 Bounds: a rate the readings cannot resolve is shown as a bound (censored lower: '>= x', faster
 than the first reading allows; upper: '<= x', not distinguishable from the blank), never as a
 value with an interval, and is not given P(best) or P(top K).
+
+The benchmark is ranked with the candidates, so it takes one of the K places of P(top K); the
+shortlist leaves it out, so its K-th pick can be a candidate ranked just below the benchmark with a
+low P(top K).
 """
 
 

@@ -97,7 +97,11 @@ direction = r.attrs.get("direction", "")
 has_ref = bool((ranked["role"].astype(str) == "reference").any())
 st.caption(f"Order: **{direction}**. Intervals at {ctx.settings.confidence * 100:g} %"
            + ("; the benchmark in orange" if has_ref else "") + f". Rank interval and P(top {k}) from the estimates' "
-           "uncertainty; 1 = best. " + metrics[metric].get("help", ""))
+           "uncertainty; 1 = best. "
+           + (f"The benchmark is ranked with the candidates and takes one of the {k} places of P(top {k}); the "
+              "shortlist leaves it out, so its last pick can be a candidate just below the benchmark with a low "
+              f"P(top {k}). " if has_ref else "")
+           + metrics[metric].get("help", ""))
 if require:
     n_out = int((r["reason"].astype(str).str.contains("--require", regex=False)).sum())
     st.caption(f"Required: {', '.join(r.attrs.get('requirements', require))}: {n_out} candidate(s) clearly outside, "
