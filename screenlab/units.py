@@ -77,6 +77,15 @@ def normalise_loading_unit(word: str) -> str | None:
     return aliases.get(key)
 
 
+#: how a canonical unit word is written for reading (axis titles, prose); tables keep the word
+UNIT_SHOWN = {"umol": "µmol", "uL": "µL", "uM": "µM"}
+
+
+def shown_unit(word: str) -> str:
+    """``word`` as written for reading (``umol`` -> ``µmol``); other words unchanged."""
+    return UNIT_SHOWN.get(str(word), str(word))
+
+
 def amount_umol(conc_mM, volume_uL):
     """Amount in umol of a solute at ``conc_mM`` in ``volume_uL`` (mM x uL = nmol)."""
     return np.asarray(conc_mM, dtype=float) * np.asarray(volume_uL, dtype=float) * 1.0e-3

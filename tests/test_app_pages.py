@@ -155,6 +155,26 @@ def test_reaction_orders(monkeypatch, demo_store):
     assert (y[1] - y[0]) / (x[1] - x[0]) == pytest.approx(float(table["order"].iloc[0]), rel=1e-9)
 
 
+def test_reaction_orders_follow_the_row_picked_and_drop_a_stale_pick(monkeypatch, demo_store):
+    # a click on the second row (the frontend's selection state) plots RU-04's loading series with
+    # its own wells; a selection kept from a longer table (another campaign, other settings) falls
+    # back to the first row instead of failing
+    at = _page(monkeypatch, demo_store, "orders")
+    at.session_state["orders_table"] = {"selection": {"rows": [1], "columns": [], "cells": []}}
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert "RU-04 at 60 °C: order in catalyst loading" in _texts(at)
+    fig = _figures(at)[0]
+    assert fig["layout"]["xaxis"]["title"]["text"] == "loading / µmol"
+    points = next(df.value for df in at.dataframe if "in_fit" in df.value.columns)
+    assert sorted(set(points["level"])) == [0.125, 0.25, 0.5, 1.0]
+    assert "TOF slope" in _texts(at)
+    at.session_state["orders_table"] = {"selection": {"rows": [7], "columns": [], "cells": []}}
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert "MN-01 at 60 °C: order in substrate" in _texts(at)
+
+
 def test_reaction_orders_without_series_says_what_to_run(monkeypatch, demo_store):
     at = _page(monkeypatch, demo_store, "orders", campaign="ester-hydrolysis-uv")
     assert "there are no apparent orders" in _texts(at) and not _figures(at)

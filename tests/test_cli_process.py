@@ -105,33 +105,38 @@ def test_a_closed_stdout_or_a_profiler_take_the_usual_ending(tmp_path, write_sam
     assert prof.stat().st_size > 0
 
 
-def test_a_command_collects_garbage_in_larger_batches_and_the_app_server_as_python_does(tmp_path, monkeypatch):
+def test_a_command_collects_garbage_in_larger_batches_and_the_app_server_as_it_was_started(tmp_path, monkeypatch):
     # the command's process: the youngest generation is collected after COMMAND_GC_THRESHOLD net
     # allocations (the start-up's long-lived module objects are not walked again and again)
+    import gc
+
+    from screenlab import cli
+    from screenlab.cli import app_cmd
+
     seen = tmp_path / "threshold.json"
     code = ("import atexit, gc, json, pathlib, sys\n"
+            "gc.set_threshold(900, 11, 12)\n"
             f"atexit.register(lambda: pathlib.Path({str(seen)!r}).write_text(json.dumps(gc.get_threshold())))\n"
             "sys.argv = ['screenlab', '--version']\n"
             "from screenlab.cli import console_main\n"
             "console_main()\n")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120, cwd=tmp_path)
     assert out.returncode == 0, out.stderr
-    import gc
-
-    from screenlab import cli
-    from screenlab.cli import app_cmd
-
-    assert json.loads(seen.read_text()) == [cli.COMMAND_GC_THRESHOLD, *gc.get_threshold()[1:]]
-    assert cli.COMMAND_GC_THRESHOLD > gc.get_threshold()[0]
-    # the app server runs for hours: it starts with the interpreter's thresholds
+    assert json.loads(seen.read_text()) == [cli.COMMAND_GC_THRESHOLD, 11, 12]
+    # the app server runs for hours: it starts with the thresholds the command replaced ...
     from streamlit.web import cli as stcli
 
     got = []
     monkeypatch.setattr(stcli, "main", lambda **kw: got.append(gc.get_threshold()))
     before = gc.get_threshold()
     try:
-        gc.set_threshold(cli.COMMAND_GC_THRESHOLD, *before[1:])
+        gc.set_threshold(900, 11, 12)
+        cli.command_gc_threshold()
+        assert gc.get_threshold() == (cli.COMMAND_GC_THRESHOLD, 11, 12)
+        assert app_cmd._launch(["run", "x.py"]) == 0
+        # ... and one launched from main() in-process (no command threshold) leaves them alone
+        gc.set_threshold(901, 9, 9)
         assert app_cmd._launch(["run", "x.py"]) == 0
     finally:
         gc.set_threshold(*before)
-    assert got == [cli.INTERPRETER_GC_THRESHOLD]
+    assert got == [(900, 11, 12), (901, 9, 9)]

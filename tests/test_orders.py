@@ -197,7 +197,12 @@ def test_the_points_of_each_series_give_its_order_by_linregress(seed):
         assert row["order"] == pytest.approx(lr.slope, rel=1e-9)
         if len(fit) > 2:
             assert row["order_se"] == pytest.approx(lr.stderr, rel=1e-7)
-        assert (pts["level_unit"] == ("mM" if row["variable"] == "substrate_conc" else pts["level_unit"])).all()
+        # the level's unit: mM for a substrate series, the wells' own loading unit for a loading one
+        unit_of = t.set_index("well")["loading_unit"]
+        want = "mM" if row["variable"] == "substrate_conc" else unit_of.loc[pts["well"]].to_numpy()
+        assert (pts["level_unit"].to_numpy() == want).all()
+        if row["variable"] == "loading":
+            assert pts["level_unit"].nunique() == 1 and f"loading_unit={pts['level_unit'].iloc[0]}" in row["fixed"]
 
 
 def test_points_carry_the_loading_unit_and_the_left_out_well():

@@ -116,3 +116,9 @@ def test_settings_out_of_range_are_refused_by_the_settings_themselves():
     with pytest.raises(UsageError, match="min_window_points"):
         AnalysisSettings.from_mapping({"min_window_points": 2.5})
     assert AnalysisSettings.from_mapping({"confidence": 0.5, "zprime_min": -2}).confidence == 0.5
+
+
+def test_units_are_written_with_the_micro_sign_for_reading_only():
+    from screenlab.units import shown_unit
+
+    assert [shown_unit(u) for u in ("umol", "uL", "uM", "mg", "mol%", "mM")] == ["µmol", "µL", "µM", "mg", "mol%", "mM"]

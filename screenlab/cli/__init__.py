@@ -16,11 +16,11 @@ import os
 import sys
 import threading
 
-#: the cyclic garbage collector's thresholds as the interpreter set them (restored for the app server)
-INTERPRETER_GC_THRESHOLD = gc.get_threshold()
 #: net allocations of container objects between two youngest-generation collections in a command's
 #: process (Python's default is 700): see :func:`console_main`
 COMMAND_GC_THRESHOLD = 200_000
+#: the collector thresholds :func:`command_gc_threshold` replaced (None: not replaced in this process)
+_REPLACED_GC_THRESHOLD: tuple[int, ...] | None = None
 
 #: sub-command modules, in the order ``--help`` lists them
 COMMAND_MODULES = [
@@ -105,10 +105,10 @@ def console_main() -> None:
     of a 4-plate ``screenlab rank`` (about 5 %), none with this threshold (a 400-plate rank makes
     none either, at the same peak memory). The work itself makes little cyclic garbage (pandas and
     NumPy objects are freed by reference counting), and what it makes is still collected, in
-    larger batches. The app server, which runs for hours, gets the interpreter's thresholds back
+    larger batches. The app server, which runs for hours, gets the thresholds it replaced back
     before it starts (:func:`restore_gc_threshold`).
     """
-    gc.set_threshold(COMMAND_GC_THRESHOLD, *INTERPRETER_GC_THRESHOLD[1:])
+    command_gc_threshold()
     code = _flushed(main())
     connection = sys.modules.get("screenlab.store.connection")
     if (threading.active_count() == 1 and (connection is None or connection.live_connections() == 0)
@@ -118,10 +118,23 @@ def console_main() -> None:
     sys.exit(code)
 
 
+def command_gc_threshold() -> None:
+    """The youngest generation collected after :data:`COMMAND_GC_THRESHOLD` net allocations (the
+    older generations' thresholds kept); the thresholds it replaces are kept for
+    :func:`restore_gc_threshold`."""
+    global _REPLACED_GC_THRESHOLD
+    if _REPLACED_GC_THRESHOLD is None:
+        _REPLACED_GC_THRESHOLD = gc.get_threshold()
+    gc.set_threshold(COMMAND_GC_THRESHOLD, *_REPLACED_GC_THRESHOLD[1:])
+
+
 def restore_gc_threshold() -> None:
-    """The interpreter's own collector thresholds (:data:`INTERPRETER_GC_THRESHOLD`), for a
-    long-running server started from a command."""
-    gc.set_threshold(*INTERPRETER_GC_THRESHOLD)
+    """The collector thresholds :func:`command_gc_threshold` replaced, for a long-running server
+    started from a command; nothing when they were not replaced (``main`` called in-process)."""
+    global _REPLACED_GC_THRESHOLD
+    if _REPLACED_GC_THRESHOLD is not None:
+        gc.set_threshold(*_REPLACED_GC_THRESHOLD)
+        _REPLACED_GC_THRESHOLD = None
 
 
 #: exit status when the output could not be written (Python's own, for a failed flush at exit)

@@ -80,7 +80,7 @@ def _launch(args: list[str]) -> int:
 
     from screenlab.cli import restore_gc_threshold
 
-    restore_gc_threshold()      # a server that runs for hours: the interpreter's collector settings
+    restore_gc_threshold()      # a server that runs for hours: the collector settings it was started with
 
     try:
         stcli.main(args=args, prog_name="streamlit", standalone_mode=True)

@@ -24,8 +24,8 @@ import plotly.graph_objects as go
 from plotly.colors import sample_colorscale
 
 from screenlab.plates import ROW_LETTERS
-from screenlab.units import c_to_k
-from screenlab.viz.svg import nice_step
+from screenlab.units import c_to_k, shown_unit
+from screenlab.viz.svg import log_ticks, nice_step
 
 COLORSCALE = "Viridis"
 DIVERGING = "Cividis"  # for signed quantities (B-score, residuals): still no red/green
@@ -331,12 +331,13 @@ def order_plot(points: pd.DataFrame, order: float, *, variable: str, unit: str, 
     ``in_fit``, ``plate``, ``well``); only ``in_fit`` points can be drawn (a rate <= 0 has no log).
     ``order`` is the fitted slope: its line is drawn through the centroid of the logs (where a
     least-squares line passes) over the levels measured, with dotted lines of order 0 and 1
-    through the same point to read the slope against.
+    through the same point to read the slope against. Axis ticks are written out in full.
     """
     fig = go.Figure()
-    pts = points[points["in_fit"].astype(bool)]
-    x = pd.to_numeric(pts["level"], errors="coerce").to_numpy(float)
-    y = pd.to_numeric(pts["net_rate_mM_per_h"], errors="coerce").to_numpy(float)
+    x = pd.to_numeric(points["level"], errors="coerce").to_numpy(float)
+    y = pd.to_numeric(points["net_rate_mM_per_h"], errors="coerce").to_numpy(float)
+    drawable = points["in_fit"].astype(bool).to_numpy() & (x > 0) & (y > 0)     # a log takes only x, y > 0
+    pts, x, y = points[drawable], x[drawable], y[drawable]
     what = "substrate" if variable == "substrate_conc" else "loading"
     if x.size:
         lx, ly = np.log(x), np.log(y)
@@ -354,30 +355,21 @@ def order_plot(points: pd.DataFrame, order: float, *, variable: str, unit: str, 
         fig.add_trace(go.Scatter(x=x, y=y, mode="markers", name="wells",
                                  marker=dict(symbol="circle", size=9, color=series_colours(1)[0],
                                              line=dict(width=1, color="#333")),
-                                 text=label, hovertemplate="%{text}<br>" + what + " = %{x:.4g} " + unit
+                                 text=label, hovertemplate="%{text}<br>" + what + " = %{x:.4g} " + shown_unit(unit)
                                  + "<br>net rate = %{y:.4g} mM h⁻¹<extra></extra>"))
-    fig.update_xaxes(type="log", title=f"{what} / {unit}")
+    fig.update_xaxes(type="log", title=f"{what} / {shown_unit(unit)}")
     fig.update_yaxes(type="log", title="net rate / mM h⁻¹")
     if x.size:
-        levels = np.unique(x)   # the levels themselves label the x axis when they are few
-        xt = levels if levels.size <= 8 else _log_ticks(float(x.min()), float(x.max()))
-        yt = _log_ticks(float(y.min()), float(y.max()))
+        # ticks written out (a log axis left to itself labels 200 as "2"): the levels themselves when
+        # they are few, else the report's log-axis rule over what is drawn (guides and fit included)
+        text = dict.fromkeys(f"{v:g}" for v in np.unique(x))
+        xt = [float(v) for v in text] if len(text) <= 8 else log_ticks(float(x.min()), float(x.max()))
+        drawn = np.concatenate([np.asarray(t.y, dtype=float) for t in fig.data])
+        drawn = drawn[np.isfinite(drawn) & (drawn > 0)]
+        yt = log_ticks(float(drawn.min()), float(drawn.max()))
         fig.update_xaxes(tickvals=xt, ticktext=[f"{v:g}" for v in xt])
         fig.update_yaxes(tickvals=yt, ticktext=[f"{v:g}" for v in yt])
     return _layout(fig, title, height=420)
-
-
-def _log_ticks(lo: float, hi: float) -> np.ndarray:
-    """Round tick values (1, 2, 5 x 10^k; 10^k over a wide span, 1-9 x 10^k over a narrow one) from
-    just below ``lo`` to just above ``hi``, written out in full: a log axis left to itself labels
-    200 as "2"."""
-    k0, k1 = math.floor(math.log10(lo)) - 1, math.ceil(math.log10(hi)) + 1
-    for mantissas in ((1.0,), (1.0, 2.0, 5.0), tuple(float(m) for m in range(1, 10))):
-        vals = np.array([m * 10.0 ** k for k in range(k0, k1 + 1) for m in mantissas])
-        inside = vals[(vals >= lo / 1.15) & (vals <= hi * 1.15)]
-        if inside.size >= 4 or (inside.size >= 3 and len(mantissas) > 1):
-            return inside
-    return vals[(vals >= lo / 1.6) & (vals <= hi * 1.6)]
 
 
 # --------------------------------------------------------------------------- ranking

@@ -8,6 +8,7 @@ import streamlit as st
 from screenlab.app import widgets
 from screenlab.app.app_pages import _common
 from screenlab.kinetics.orders import order_points
+from screenlab.units import shown_unit
 from screenlab.viz import figures
 
 ctx = widgets.context()
@@ -41,15 +42,17 @@ widgets.flag_glossary(view["flags"])
 _common.history_links(list(dict.fromkeys(view["catalyst"].astype(str))), key="orders_history")
 
 rows = sel.selection.rows if sel is not None and hasattr(sel, "selection") else []
-i = int(rows[0]) if rows else 0
+rows = [int(r) for r in rows if 0 <= int(r) < len(view)]   # a selection kept from a longer table is dropped
+i = rows[0] if rows else 0
 row = view.iloc[i]
 pts = order_points(kin.wells, ctx.settings, data.factor_names)
 pts = pts[pts["series"] == i]
 unit = str(pts["level_unit"].iloc[0]) if len(pts) else ""
+shown = shown_unit(unit)
 st.subheader(f"{row['catalyst']} at {row['temperature_c']:g} °C: order in {row['varied']}")
 ci = (f" ({widgets.fmt(row['order_ci_low'])} to {widgets.fmt(row['order_ci_high'])})"
       if pd.notna(row["order_ci_low"]) else " (no interval: two wells)")
-st.markdown(f"Apparent order **{widgets.fmt(row['order'])}**{ci} over {row['levels']} {unit}, "
+st.markdown(f"Apparent order **{widgets.fmt(row['order'])}**{ci} over {row['levels']} {shown}, "
             f"{int(row['n_wells'])} wells at {int(row['n_levels'])} levels"
             + (f"; fixed: {row['fixed']}" if str(row["fixed"]) else "")
             + ("" if rows else " (select a row above to change)") + ".")
@@ -58,8 +61,9 @@ widgets.chart(figures.order_plot(pts, float(row["order"]), variable=str(row["var
 left_out = int((~pts["in_fit"].astype(bool)).sum())
 notes = ["Dotted lines: order 0 and order 1 through the centre of the points, to read the slope against."]
 if left_out:
-    notes.append(f"{left_out} well{'s' if left_out != 1 else ''} with a net rate at or below zero cannot be "
-                 "drawn on log axes and were left out of the fit.")
+    notes.append(f"{left_out} well{'s' if left_out != 1 else ''} without a net rate or a level above zero (at or "
+                 "below the blank, or no blank to subtract) cannot be drawn on log axes and "
+                 f"{'were' if left_out != 1 else 'was'} left out of the fit (in fit: no, below).")
 if row["variable"] == "loading":
     notes.append("In a loading series an order near 1 means every site works at the same rate. The TOF slope "
                  "(ln TOF on ln loading) should be near 0; when its whole interval lies below 0 the TOF falls as the "

@@ -87,6 +87,7 @@ _common.history_links(view["catalyst"].dropna().astype(str).tolist(), key="rates
 
 st.subheader("Replicate time courses")
 rows = sel.selection.rows if sel is not None and hasattr(sel, "selection") else []
+rows = [int(r) for r in rows if 0 <= int(r) < len(view)]   # a selection kept from a longer table is dropped
 choice = view.reset_index(drop=True).iloc[rows[0]] if rows else (view.iloc[0] if len(view) else None)
 if choice is None:
     st.info("No rows match the filters.")
