@@ -153,6 +153,12 @@ def test_reaction_orders(monkeypatch, demo_store):
     fit = next(t for t in fig["data"] if str(t.get("name", "")).startswith("fit: order"))
     x, y = np.log(_values(fit["x"])), np.log(_values(fit["y"]))
     assert (y[1] - y[0]) / (x[1] - x[0]) == pytest.approx(float(table["order"].iloc[0]), rel=1e-9)
+    # and the wells drawn, fitted by scipy.stats.linregress on ln rate vs ln level (the outside
+    # reference), give the table's order: the plot shows the points the order was fitted to
+    from scipy import stats
+
+    lr = stats.linregress(np.log(_values(wells["x"])), np.log(_values(wells["y"])))
+    assert lr.slope == pytest.approx(float(table["order"].iloc[0]), rel=1e-9)
 
 
 def test_reaction_orders_follow_the_row_picked_and_drop_a_stale_pick(monkeypatch, demo_store):
@@ -262,3 +268,15 @@ def test_shortlist_selection_to_download(monkeypatch, demo_store):
         layout = pd.read_csv(zf.open(next(n for n in names if n.endswith("layout.csv"))))
         assert set(chosen) <= set(layout["catalyst"].dropna().astype(str))
         assert zf.read(next(n for n in names if n.endswith("NOTE.txt"))).decode().strip() == "repeat at 80 C"
+
+
+def test_a_table_selection_past_the_end_of_the_table_is_dropped():
+    # the rule in plain words: the picked rows that the table still has, in the order picked
+    from types import SimpleNamespace
+
+    from screenlab.app import widgets
+
+    picked = SimpleNamespace(selection=SimpleNamespace(rows=[3, 0, 7]))
+    assert widgets.selected_rows(picked, 4) == [3, 0]
+    assert widgets.selected_rows(picked, 0) == []
+    assert widgets.selected_rows(None, 4) == [] and widgets.selected_rows(SimpleNamespace(), 4) == []

@@ -136,6 +136,15 @@ def arrhenius_prediction(path: str, read_only: bool, version: Any, campaign: str
     return predict_tof(a.kinetics.arrhenius, grid, a.settings.confidence)
 
 
+@st.cache_data(show_spinner=False, max_entries=32)
+def order_points(path: str, read_only: bool, version: Any, campaign: str, skey: tuple) -> pd.DataFrame:
+    """``order_points`` of the analysis' wells: the wells behind each row of its orders table."""
+    from screenlab.kinetics.orders import order_points as points
+
+    a = analysis(path, read_only, version, campaign, skey)
+    return points(a.kinetics.wells, a.settings, a.data.factor_names)
+
+
 @st.cache_data(show_spinner=False, max_entries=16)
 def flag_counts(path: str, read_only: bool, version: Any, campaign: str, skey: tuple) -> pd.DataFrame:
     """:func:`screenlab.flags.analysis_flag_counts`: rows per flag code at each level (``level, flag,

@@ -186,6 +186,14 @@ def table(frame: pd.DataFrame, key: str, *, columns: list[str] | None = None, he
     return st.dataframe(show, **args)
 
 
+def selected_rows(sel, n_rows: int) -> list[int]:
+    """The rows picked in a :func:`table` shown with ``on_select``, those still in a table of
+    ``n_rows`` (a keyed table keeps its selection when its data changes: another campaign, other
+    settings or a new import can leave it pointing past the end)."""
+    rows = sel.selection.rows if sel is not None and hasattr(sel, "selection") else []
+    return [int(r) for r in rows if 0 <= int(r) < n_rows]
+
+
 def flag_glossary(codes=None, *, title: str = "What the flags mean") -> None:
     """An expander explaining flag codes (all of them, or those present in ``codes``)."""
     helptext = cache.flag_help()

@@ -5,9 +5,8 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from screenlab.app import widgets
+from screenlab.app import cache, widgets
 from screenlab.app.app_pages import _common
-from screenlab.kinetics.orders import order_points
 from screenlab.units import shown_unit
 from screenlab.viz import figures
 
@@ -17,9 +16,8 @@ if not widgets.need_campaign(ctx):
     st.stop()
 
 a = ctx.analysis()
-data, kin = a.data, a.kinetics
-orders = kin.orders
-conf = ctx.settings.confidence
+orders = a.kinetics.orders
+conf = a.settings.confidence
 if orders.empty:
     st.info("No catalyst was run at several substrate concentrations or several loadings at one temperature "
             "with everything else held fixed, so there are no apparent orders. A substrate series (three or more "
@@ -41,11 +39,10 @@ sel = widgets.table(view, key="orders_table", on_select="rerun", selection_mode=
 widgets.flag_glossary(view["flags"])
 _common.history_links(list(dict.fromkeys(view["catalyst"].astype(str))), key="orders_history")
 
-rows = sel.selection.rows if sel is not None and hasattr(sel, "selection") else []
-rows = [int(r) for r in rows if 0 <= int(r) < len(view)]   # a selection kept from a longer table is dropped
+rows = widgets.selected_rows(sel, len(view))
 i = rows[0] if rows else 0
 row = view.iloc[i]
-pts = order_points(kin.wells, ctx.settings, data.factor_names)
+pts = cache.order_points(ctx.path, ctx.read_only, ctx.version, ctx.campaign, ctx.settings_key)
 pts = pts[pts["series"] == i]
 unit = str(pts["level_unit"].iloc[0]) if len(pts) else ""
 shown = shown_unit(unit)

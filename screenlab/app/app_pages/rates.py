@@ -86,8 +86,7 @@ widgets.flag_glossary(view["flags"])
 _common.history_links(view["catalyst"].dropna().astype(str).tolist(), key="rates_history")
 
 st.subheader("Replicate time courses")
-rows = sel.selection.rows if sel is not None and hasattr(sel, "selection") else []
-rows = [int(r) for r in rows if 0 <= int(r) < len(view)]   # a selection kept from a longer table is dropped
+rows = widgets.selected_rows(sel, len(view))
 choice = view.reset_index(drop=True).iloc[rows[0]] if rows else (view.iloc[0] if len(view) else None)
 if choice is None:
     st.info("No rows match the filters.")
